@@ -1,0 +1,512 @@
+//! The station's configuration: one TOML file, read into typed sections.
+//!
+//! Every section has defaults a station would expect, so a config only needs
+//! what differs. Unknown keys are refused (`deny_unknown_fields`): a typo such
+//! as `debounse_ms` must not silently fall back to a default next to a
+//! kilowatt amplifier. [`Config::load`] names the file, the key and, where the
+//! TOML parser gives them, the line and column of every error; [`Config::validate`]
+//! checks what the types cannot (limits in order, bands that do not overlap,
+//! enough calibration points).
+
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+use serde::Deserialize;
+
+use crate::calibrate::{ModelKind, Point};
+
+/// Everything one station needs.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Config {
+    #[serde(default)]
+    pub rig: RigConfig,
+    #[serde(default)]
+    pub tuner: TunerConfig,
+    #[serde(default)]
+    pub follow: FollowConfig,
+    #[serde(default)]
+    pub calibration: CalibrationConfig,
+    /// Bands the tuner follows in; outside all of them it holds.
+    #[serde(default, rename = "band")]
+    pub bands: Vec<BandConfig>,
+    /// Where the config was read from; relative paths inside it are resolved
+    /// against this file's folder.
+    #[serde(skip)]
+    pub source: Option<PathBuf>,
+}
+
+/// `[rig]`: the transceiver's control port.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RigConfig {
+    /// A built-in dialect name (`binary-bcd`, `text-semicolon`,
+    /// `text-semicolon-9`) or a path to a dialect TOML file.
+    #[serde(default = "default_protocol")]
+    pub protocol: String,
+    /// Serial device of the rig's control port (used by the live service).
+    #[serde(default)]
+    pub port: Option<String>,
+    #[serde(default = "default_baud")]
+    pub baud: u32,
+    /// Binary family: only reports from this rig address count. Absent: any
+    /// address except the controller's own.
+    #[serde(default)]
+    pub address: Option<u8>,
+}
+
+fn default_protocol() -> String {
+    "binary-bcd".to_string()
+}
+fn default_baud() -> u32 {
+    19_200
+}
+
+impl Default for RigConfig {
+    fn default() -> Self {
+        RigConfig {
+            protocol: default_protocol(),
+            port: None,
+            baud: default_baud(),
+            address: None,
+        }
+    }
+}
+
+/// Which side the final approach to a position comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Approach {
+    Up,
+    Down,
+}
+
+/// `[tuner]`: the motor and its safe travel.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TunerConfig {
+    /// `"sim"`: the in-process simulator.
+    #[serde(default = "default_link")]
+    pub link: String,
+    #[serde(default)]
+    pub min_steps: i64,
+    #[serde(default = "default_max_steps")]
+    pub max_steps: i64,
+    #[serde(default = "default_steps_per_second")]
+    pub steps_per_second: f64,
+    #[serde(default)]
+    pub backlash_steps: i64,
+    #[serde(default = "default_approach")]
+    pub approach: Approach,
+    /// Time the mechanics need to come to rest after the last step.
+    #[serde(default = "default_settle_ms")]
+    pub settle_ms: u64,
+}
+
+fn default_link() -> String {
+    "sim".to_string()
+}
+fn default_max_steps() -> i64 {
+    10_000
+}
+fn default_steps_per_second() -> f64 {
+    800.0
+}
+fn default_approach() -> Approach {
+    Approach::Up
+}
+fn default_settle_ms() -> u64 {
+    50
+}
+
+impl Default for TunerConfig {
+    fn default() -> Self {
+        TunerConfig {
+            link: default_link(),
+            min_steps: 0,
+            max_steps: default_max_steps(),
+            steps_per_second: default_steps_per_second(),
+            backlash_steps: 0,
+            approach: default_approach(),
+            settle_ms: default_settle_ms(),
+        }
+    }
+}
+
+/// `[follow]`: when the tuner moves.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FollowConfig {
+    /// A frequency must stay the latest report this long before it is acted on.
+    #[serde(default = "default_debounce_ms")]
+    pub debounce_ms: u64,
+    /// No move while the settled frequency is within this many Hz of the
+    /// frequency the tuner is tuned for.
+    #[serde(default = "default_hysteresis_hz")]
+    pub hysteresis_hz: u64,
+    /// No move smaller than this.
+    #[serde(default = "default_min_move_steps")]
+    pub min_move_steps: i64,
+    /// Inhibit stays asserted this long after arrival, while the mechanics settle.
+    #[serde(default = "default_inhibit_tail_ms")]
+    pub inhibit_tail_ms: u64,
+    /// Time between asserting the inhibit and the first step, so that a relay
+    /// or the rig's own inhibit input has taken effect before anything moves.
+    #[serde(default = "default_inhibit_lead_ms")]
+    pub inhibit_lead_ms: u64,
+}
+
+fn default_debounce_ms() -> u64 {
+    400
+}
+fn default_hysteresis_hz() -> u64 {
+    2_000
+}
+fn default_min_move_steps() -> i64 {
+    2
+}
+fn default_inhibit_tail_ms() -> u64 {
+    150
+}
+fn default_inhibit_lead_ms() -> u64 {
+    20
+}
+
+impl Default for FollowConfig {
+    fn default() -> Self {
+        FollowConfig {
+            debounce_ms: default_debounce_ms(),
+            hysteresis_hz: default_hysteresis_hz(),
+            min_move_steps: default_min_move_steps(),
+            inhibit_tail_ms: default_inhibit_tail_ms(),
+            inhibit_lead_ms: default_inhibit_lead_ms(),
+        }
+    }
+}
+
+/// `[calibration]`: the map from frequency to motor steps.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CalibrationConfig {
+    #[serde(default)]
+    pub model: ModelKind,
+    /// Measured points, inline.
+    #[serde(default)]
+    pub points: Vec<PointConfig>,
+    /// Or a CSV file of points (`hz,steps` header), relative to the config.
+    #[serde(default)]
+    pub file: Option<PathBuf>,
+}
+
+/// One measured calibration point: at `hz` the loop was resonant at `steps`.
+#[derive(Debug, Clone, Copy, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PointConfig {
+    pub hz: f64,
+    pub steps: f64,
+}
+
+/// `[[band]]`: a range the tuner follows in.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BandConfig {
+    pub name: String,
+    pub low_hz: u64,
+    pub high_hz: u64,
+    /// Just outside the band, within this margin, the tuner is tuned for the
+    /// nearest band edge instead of holding.
+    #[serde(default)]
+    pub guard_hz: u64,
+    #[serde(default)]
+    pub hysteresis_hz: Option<u64>,
+    #[serde(default)]
+    pub debounce_ms: Option<u64>,
+}
+
+/// A config error that a person can act on: where, what was expected, what was found.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    #[error("cannot read config {path}: {source}")]
+    Read {
+        path: PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+    #[error("{path}{location}: {message}")]
+    Parse {
+        path: PathBuf,
+        location: Location,
+        message: String,
+    },
+    #[error("{path}: key `{key}`: expected {expected}, found {found}")]
+    Invalid {
+        path: PathBuf,
+        key: String,
+        expected: String,
+        found: String,
+    },
+    #[error("{path}: key `calibration`: {source}")]
+    Calibration {
+        path: PathBuf,
+        #[source]
+        source: crate::calibrate::CalibrationError,
+    },
+}
+
+/// Line and column (1-based) inside a file, when known.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Location(pub Option<(usize, usize)>);
+
+impl fmt::Display for Location {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self.0 {
+            Some((line, col)) => write!(f, ":{line}:{col}"),
+            None => Ok(()),
+        }
+    }
+}
+
+/// 1-based line and column of a byte offset in `text`.
+pub fn line_col(text: &str, offset: usize) -> (usize, usize) {
+    let offset = offset.min(text.len());
+    let before = text.get(..offset).unwrap_or(text);
+    let line = before.matches('\n').count() + 1;
+    let col = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+    (line, col)
+}
+
+impl Config {
+    /// Reads, parses and validates a config file.
+    pub fn load(path: &Path) -> Result<Config, ConfigError> {
+        let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        let mut config = Config::parse(&text, path)?;
+        config.source = Some(path.to_path_buf());
+        config.validate()?;
+        Ok(config)
+    }
+
+    /// Parses TOML text; `path` is only used to name the file in errors.
+    pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
+        toml::from_str::<Config>(text).map_err(|e| ConfigError::Parse {
+            path: path.to_path_buf(),
+            location: Location(e.span().map(|s| line_col(text, s.start))),
+            message: e.message().trim().to_string(),
+        })
+    }
+
+    fn path_for_errors(&self) -> PathBuf {
+        self.source
+            .clone()
+            .unwrap_or_else(|| PathBuf::from("<config>"))
+    }
+
+    fn invalid(&self, key: &str, expected: &str, found: String) -> ConfigError {
+        ConfigError::Invalid {
+            path: self.path_for_errors(),
+            key: key.to_string(),
+            expected: expected.to_string(),
+            found,
+        }
+    }
+
+    /// Checks what the types cannot.
+    pub fn validate(&self) -> Result<(), ConfigError> {
+        let t = &self.tuner;
+        if t.min_steps >= t.max_steps {
+            return Err(self.invalid(
+                "tuner.max_steps",
+                "a value above tuner.min_steps",
+                format!("min_steps = {}, max_steps = {}", t.min_steps, t.max_steps),
+            ));
+        }
+        if !(t.steps_per_second.is_finite() && t.steps_per_second > 0.0) {
+            return Err(self.invalid(
+                "tuner.steps_per_second",
+                "a positive number",
+                t.steps_per_second.to_string(),
+            ));
+        }
+        if t.backlash_steps < 0 || t.backlash_steps > (t.max_steps - t.min_steps) / 2 {
+            return Err(self.invalid(
+                "tuner.backlash_steps",
+                "0 up to half the travel",
+                t.backlash_steps.to_string(),
+            ));
+        }
+        if self.follow.min_move_steps < 0 {
+            return Err(self.invalid(
+                "follow.min_move_steps",
+                "0 or more",
+                self.follow.min_move_steps.to_string(),
+            ));
+        }
+        if self.bands.is_empty() {
+            return Err(self.invalid(
+                "band",
+                "at least one [[band]] table",
+                "none".to_string(),
+            ));
+        }
+        for (i, b) in self.bands.iter().enumerate() {
+            let key = format!("band[{i}] ({})", b.name);
+            if b.low_hz >= b.high_hz {
+                return Err(self.invalid(
+                    &format!("{key}.high_hz"),
+                    "a value above low_hz",
+                    format!("low_hz = {}, high_hz = {}", b.low_hz, b.high_hz),
+                ));
+            }
+            if b.low_hz.saturating_sub(b.guard_hz) < crate::rig::MIN_PLAUSIBLE_HZ
+                || b.high_hz.saturating_add(b.guard_hz) > crate::rig::MAX_PLAUSIBLE_HZ
+            {
+                return Err(self.invalid(
+                    &format!("{key}"),
+                    "a band with its guard inside 100 kHz to 500 MHz",
+                    format!("{} to {} Hz, guard {} Hz", b.low_hz, b.high_hz, b.guard_hz),
+                ));
+            }
+        }
+        let mut sorted: Vec<&BandConfig> = self.bands.iter().collect();
+        sorted.sort_by_key(|b| b.low_hz);
+        for pair in sorted.windows(2) {
+            if let [a, b] = pair {
+                if a.high_hz.saturating_add(a.guard_hz) >= b.low_hz.saturating_sub(b.guard_hz) {
+                    return Err(self.invalid(
+                        &format!("band ({} and {})", a.name, b.name),
+                        "bands whose ranges and guards do not overlap",
+                        format!(
+                            "{} ends at {} Hz + guard {}, {} starts at {} Hz - guard {}",
+                            a.name, a.high_hz, a.guard_hz, b.name, b.low_hz, b.guard_hz
+                        ),
+                    ));
+                }
+            }
+        }
+        self.calibration_points()?;
+        Ok(())
+    }
+
+    /// The calibration points, inline or from the file named in the config.
+    pub fn calibration_points(&self) -> Result<Vec<Point>, ConfigError> {
+        let c = &self.calibration;
+        match (&c.file, c.points.is_empty()) {
+            (Some(_), false) => Err(self.invalid(
+                "calibration",
+                "either `points` or `file`, not both",
+                "both".to_string(),
+            )),
+            (None, true) => Err(self.invalid(
+                "calibration.points",
+                "at least two measured points (or `file`)",
+                "none".to_string(),
+            )),
+            (None, false) => Ok(c
+                .points
+                .iter()
+                .map(|p| Point::new(p.hz, p.steps))
+                .collect()),
+            (Some(file), true) => {
+                let path = match &self.source {
+                    Some(src) if file.is_relative() => src
+                        .parent()
+                        .map(|d| d.join(file))
+                        .unwrap_or_else(|| file.clone()),
+                    _ => file.clone(),
+                };
+                crate::calibrate::read_points_csv(&path).map_err(|source| {
+                    ConfigError::Calibration {
+                        path: self.path_for_errors(),
+                        source,
+                    }
+                })
+            }
+        }
+    }
+
+    /// The fitted calibration this config describes.
+    pub fn calibration(&self) -> Result<crate::calibrate::Calibration, ConfigError> {
+        let points = self.calibration_points()?;
+        crate::calibrate::Calibration::fit(self.calibration.model, &points).map_err(|source| {
+            ConfigError::Calibration {
+                path: self.path_for_errors(),
+                source,
+            }
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const MINIMAL: &str = r#"
+[calibration]
+model = "interpolate"
+points = [{ hz = 7000000, steps = 4000 }, { hz = 7300000, steps = 3600 }]
+
+[[band]]
+name = "40m"
+low_hz = 7000000
+high_hz = 7300000
+guard_hz = 10000
+"#;
+
+    #[test]
+    fn minimal_config_gets_defaults() {
+        let c = Config::parse(MINIMAL, Path::new("t.toml")).unwrap();
+        c.validate().unwrap();
+        assert_eq!(c.rig.protocol, "binary-bcd");
+        assert_eq!(c.tuner.link, "sim");
+        assert_eq!(c.follow.debounce_ms, 400);
+        assert_eq!(c.bands.len(), 1);
+    }
+
+    #[test]
+    fn unknown_key_is_named_with_line_and_column() {
+        let text = format!("{MINIMAL}\n[follow]\ndebounse_ms = 5\n");
+        let err = Config::parse(&text, Path::new("station.toml")).unwrap_err();
+        let msg = err.to_string();
+        assert!(msg.starts_with("station.toml:"), "{msg}");
+        assert!(msg.contains("debounse_ms"), "{msg}");
+        let line = text.lines().position(|l| l.starts_with("debounse")).unwrap() + 1;
+        assert!(msg.contains(&format!(":{line}:")), "{msg}");
+    }
+
+    #[test]
+    fn wrong_type_names_the_key() {
+        let text = MINIMAL.replace("guard_hz = 10000", "guard_hz = \"wide\"");
+        let msg = Config::parse(&text, Path::new("s.toml"))
+            .unwrap_err()
+            .to_string();
+        assert!(msg.contains("guard_hz") || msg.contains("integer"), "{msg}");
+    }
+
+    #[test]
+    fn inverted_limits_are_refused() {
+        let text = format!("{MINIMAL}\n[tuner]\nmin_steps = 500\nmax_steps = 100\n");
+        let c = Config::parse(&text, Path::new("s.toml")).unwrap();
+        let msg = c.validate().unwrap_err().to_string();
+        assert!(msg.contains("tuner.max_steps"), "{msg}");
+        assert!(msg.contains("min_steps = 500"), "{msg}");
+    }
+
+    #[test]
+    fn overlapping_bands_are_refused() {
+        let text = format!(
+            "{MINIMAL}\n[[band]]\nname = \"x\"\nlow_hz = 7290000\nhigh_hz = 7400000\n"
+        );
+        let c = Config::parse(&text, Path::new("s.toml")).unwrap();
+        let msg = c.validate().unwrap_err().to_string();
+        assert!(msg.contains("40m and x"), "{msg}");
+    }
+
+    #[test]
+    fn line_col_counts_from_one() {
+        assert_eq!(line_col("ab\ncd", 0), (1, 1));
+        assert_eq!(line_col("ab\ncd", 4), (2, 2));
+        assert_eq!(line_col("ab", 99), (1, 3));
+    }
+}

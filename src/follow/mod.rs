@@ -1,0 +1,1 @@
+//! The follow core.

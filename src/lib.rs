@@ -1,0 +1,15 @@
+//! tuneward keeps a remotely tuned narrow-band antenna tuned to wherever the
+//! operator puts the transceiver's VFO.
+//!
+//! The pipeline: bytes from the rig's control port go through a [`rig`]
+//! decoder into [`rig::RigEvent`]s; the [`follow`] core, a pure state machine,
+//! turns events into actions (move, inhibit, hold); a driver carries the
+//! actions out: [`replay`] in virtual time against a simulated tuner, the live
+//! service against real ports.
+
+pub mod calibrate;
+pub mod capture;
+pub mod config;
+pub mod follow;
+pub mod rig;
+pub mod tuner;

@@ -1,0 +1,1 @@
+//! The tuner side: controllers that move the capacitor.
