@@ -30,6 +30,9 @@ pub struct Config {
     /// Bands the tuner follows in; outside all of them it holds.
     #[serde(default, rename = "band")]
     pub bands: Vec<BandConfig>,
+    /// The antenna's dimensions, for bandwidth and voltage estimates.
+    #[serde(default)]
+    pub antenna: AntennaConfig,
     /// Where the config was read from; relative paths inside it are resolved
     /// against this file's folder.
     #[serde(skip)]
@@ -143,7 +146,7 @@ pub struct FollowConfig {
     /// No move while the settled frequency is within this many Hz of the
     /// frequency the tuner is tuned for.
     #[serde(default = "default_hysteresis_hz")]
-    pub hysteresis_hz: u64,
+    pub hysteresis_hz: Hysteresis,
     /// No move smaller than this.
     #[serde(default = "default_min_move_steps")]
     pub min_move_steps: i64,
@@ -159,8 +162,8 @@ pub struct FollowConfig {
 fn default_debounce_ms() -> u64 {
     400
 }
-fn default_hysteresis_hz() -> u64 {
-    2_000
+fn default_hysteresis_hz() -> Hysteresis {
+    Hysteresis::Hz(2_000)
 }
 fn default_min_move_steps() -> i64 {
     2
@@ -218,9 +221,46 @@ pub struct BandConfig {
     #[serde(default)]
     pub guard_hz: u64,
     #[serde(default)]
-    pub hysteresis_hz: Option<u64>,
+    pub hysteresis_hz: Option<Hysteresis>,
     #[serde(default)]
     pub debounce_ms: Option<u64>,
+}
+
+/// A dead band in Hz, or `"auto"`: a share of the loop's 1.5:1 SWR bandwidth
+/// at the band's centre, estimated from `[antenna]`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[serde(untagged)]
+pub enum Hysteresis {
+    Hz(u64),
+    Auto(AutoWord),
+}
+
+/// The literal word `auto`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AutoWord {
+    Auto,
+}
+
+/// Conductor material of the loop.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Conductor {
+    #[default]
+    Copper,
+    Aluminium,
+}
+
+/// `[antenna]`: optional description of a small loop, for physics estimates.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AntennaConfig {
+    pub loop_diameter_m: Option<f64>,
+    pub conductor_diameter_m: Option<f64>,
+    #[serde(default)]
+    pub conductor: Conductor,
+    pub power_w: Option<f64>,
+    pub capacitor_rating_v: Option<f64>,
 }
 
 /// A config error that a person can act on: where, what was expected, what was found.
@@ -275,6 +315,29 @@ pub fn line_col(text: &str, offset: usize) -> (usize, usize) {
     (line, col)
 }
 
+/// The dotted key assigned on `line` (1-based), prefixed by the table it is
+/// in: `band.guard_hz`. `None` where the line assigns nothing.
+fn key_at_line(text: &str, line: usize) -> Option<String> {
+    let lines: Vec<&str> = text.lines().collect();
+    let this = lines.get(line.checked_sub(1)?)?;
+    let (key, _) = this.split_once('=')?;
+    let key = key.trim();
+    if key.is_empty() || key.starts_with('#') || key.starts_with('[') {
+        return None;
+    }
+    let table = lines
+        .get(..line - 1)?
+        .iter()
+        .rev()
+        .map(|l| l.trim())
+        .find(|l| l.starts_with('['))
+        .map(|l| l.trim_matches(|c| c == '[' || c == ']').trim().to_string());
+    Some(match table {
+        Some(t) => format!("{t}.{key}"),
+        None => key.to_string(),
+    })
+}
+
 impl Config {
     /// Reads, parses and validates a config file.
     pub fn load(path: &Path) -> Result<Config, ConfigError> {
@@ -290,10 +353,18 @@ impl Config {
 
     /// Parses TOML text; `path` is only used to name the file in errors.
     pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
-        toml::from_str::<Config>(text).map_err(|e| ConfigError::Parse {
-            path: path.to_path_buf(),
-            location: Location(e.span().map(|s| line_col(text, s.start))),
-            message: e.message().trim().to_string(),
+        toml::from_str::<Config>(text).map_err(|e| {
+            let at = e.span().map(|s| line_col(text, s.start));
+            let message = e.message().trim().to_string();
+            let message = match at.and_then(|(line, _)| key_at_line(text, line)) {
+                Some(key) if !message.contains(&key) => format!("key `{key}`: {message}"),
+                _ => message,
+            };
+            ConfigError::Parse {
+                path: path.to_path_buf(),
+                location: Location(at),
+                message,
+            }
         })
     }
 
@@ -344,11 +415,7 @@ impl Config {
             ));
         }
         if self.bands.is_empty() {
-            return Err(self.invalid(
-                "band",
-                "at least one [[band]] table",
-                "none".to_string(),
-            ));
+            return Err(self.invalid("band", "at least one [[band]] table", "none".to_string()));
         }
         for (i, b) in self.bands.iter().enumerate() {
             let key = format!("band[{i}] ({})", b.name);
@@ -363,7 +430,7 @@ impl Config {
                 || b.high_hz.saturating_add(b.guard_hz) > crate::rig::MAX_PLAUSIBLE_HZ
             {
                 return Err(self.invalid(
-                    &format!("{key}"),
+                    &key,
                     "a band with its guard inside 100 kHz to 500 MHz",
                     format!("{} to {} Hz, guard {} Hz", b.low_hz, b.high_hz, b.guard_hz),
                 ));
@@ -403,11 +470,7 @@ impl Config {
                 "at least two measured points (or `file`)",
                 "none".to_string(),
             )),
-            (None, false) => Ok(c
-                .points
-                .iter()
-                .map(|p| Point::new(p.hz, p.steps))
-                .collect()),
+            (None, false) => Ok(c.points.iter().map(|p| Point::new(p.hz, p.steps)).collect()),
             (Some(file), true) => {
                 let path = match &self.source {
                     Some(src) if file.is_relative() => src
@@ -471,7 +534,11 @@ guard_hz = 10000
         let msg = err.to_string();
         assert!(msg.starts_with("station.toml:"), "{msg}");
         assert!(msg.contains("debounse_ms"), "{msg}");
-        let line = text.lines().position(|l| l.starts_with("debounse")).unwrap() + 1;
+        let line = text
+            .lines()
+            .position(|l| l.starts_with("debounse"))
+            .unwrap()
+            + 1;
         assert!(msg.contains(&format!(":{line}:")), "{msg}");
     }
 
@@ -481,7 +548,8 @@ guard_hz = 10000
         let msg = Config::parse(&text, Path::new("s.toml"))
             .unwrap_err()
             .to_string();
-        assert!(msg.contains("guard_hz") || msg.contains("integer"), "{msg}");
+        assert!(msg.contains("key `band.guard_hz`"), "{msg}");
+        assert!(msg.contains("\"wide\""), "{msg}");
     }
 
     #[test]
@@ -495,9 +563,8 @@ guard_hz = 10000
 
     #[test]
     fn overlapping_bands_are_refused() {
-        let text = format!(
-            "{MINIMAL}\n[[band]]\nname = \"x\"\nlow_hz = 7290000\nhigh_hz = 7400000\n"
-        );
+        let text =
+            format!("{MINIMAL}\n[[band]]\nname = \"x\"\nlow_hz = 7290000\nhigh_hz = 7400000\n");
         let c = Config::parse(&text, Path::new("s.toml")).unwrap();
         let msg = c.validate().unwrap_err().to_string();
         assert!(msg.contains("40m and x"), "{msg}");

@@ -1,1 +1,2 @@
 //! The tuner side: controllers that move the capacitor.
+pub mod sim;
