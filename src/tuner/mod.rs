@@ -1,2 +1,3 @@
 //! The tuner side: controllers that move the capacitor.
+pub mod line;
 pub mod sim;
