@@ -12,9 +12,26 @@ struct Cli {
 }
 
 #[derive(Subcommand)]
-enum Command {}
+enum Command {
+    /// Simulate a stepper controller speaking the line protocol
+    /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
+    SimTuner(tuneward::tuner::server::SimTunerArgs),
+}
 
 fn main() -> std::process::ExitCode {
     let cli = Cli::parse();
-    match cli.command {}
+    match cli.command {
+        Command::SimTuner(args) => report(tuneward::tuner::server::run_sim_tuner(&args)),
+    }
+}
+
+/// Prints an error and turns the outcome into the exit code.
+fn report(result: Result<(), String>) -> std::process::ExitCode {
+    match result {
+        Ok(()) => std::process::ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("tuneward: {e}");
+            std::process::ExitCode::FAILURE
+        }
+    }
 }

@@ -1,3 +1,4 @@
 //! The tuner side: controllers that move the capacitor.
 pub mod line;
+pub mod server;
 pub mod sim;

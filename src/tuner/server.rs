@@ -1,0 +1,527 @@
+//! A stand-alone controller simulator speaking the line protocol
+//! (`protocols/tuner-line.md`), for trying the live service without a motor.
+//!
+//! [`SimController`] is the sans-IO part: it takes requests with the current
+//! time and answers them, using [`SimTuner`] for the mechanics (speed, settle
+//! time, backlash, end stops) and refusing targets outside its limits.
+//! [`serve_connection`] runs it over any byte stream; [`run_tcp`] and
+//! [`run_pty`] put it on a loopback socket or a pseudo-terminal. Like a real
+//! controller on a serial port it serves one host: a new TCP connection
+//! replaces the previous one.
+
+use std::io;
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex};
+use std::time::Duration;
+
+use bytes::BytesMut;
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
+use tokio::net::TcpListener;
+use tokio::sync::watch;
+use tokio::time::Instant;
+
+use super::line::{LineFramer, Reply, Request};
+use super::sim::{SimParams, SimTuner};
+
+/// The simulated controller: mechanics plus protocol rules.
+#[derive(Debug, Clone)]
+pub struct SimController {
+    tuner: SimTuner,
+    /// The move under way: its target and when it will have settled.
+    moving: Option<(i64, Duration)>,
+}
+
+impl SimController {
+    /// A controller at rest at `start`; `start` must be within the limits.
+    pub fn new(params: SimParams, start: i64) -> Result<SimController, String> {
+        if params.min_steps >= params.max_steps {
+            return Err(format!(
+                "limits: expected min below max, found {}..{}",
+                params.min_steps, params.max_steps
+            ));
+        }
+        if !(params.steps_per_second.is_finite() && params.steps_per_second > 0.0) {
+            return Err(format!(
+                "steps per second: expected a positive number, found {}",
+                params.steps_per_second
+            ));
+        }
+        if !(params.min_steps..=params.max_steps).contains(&start) {
+            return Err(format!(
+                "start: expected a position within {}..{}, found {start}",
+                params.min_steps, params.max_steps
+            ));
+        }
+        Ok(SimController {
+            tuner: SimTuner::new(params, start),
+            moving: None,
+        })
+    }
+
+    fn within(&self, steps: i64) -> bool {
+        let p = self.tuner.params();
+        (p.min_steps..=p.max_steps).contains(&steps)
+    }
+
+    fn limits(&self) -> String {
+        let p = self.tuner.params();
+        format!("{}..{}", p.min_steps, p.max_steps)
+    }
+
+    /// Answers one request at time `now`.
+    pub fn handle(&mut self, now: Duration, req: Request) -> Reply {
+        self.poll_arrival(now);
+        match req {
+            Request::Goto(target) => {
+                if !self.within(target) {
+                    return Reply::Err(format!("target {target} outside limits {}", self.limits()));
+                }
+                let arrive = self.tuner.goto(now, target);
+                self.moving = Some((target, arrive));
+                Reply::Moving(target)
+            }
+            Request::Where => match self.moving {
+                Some((target, _)) => Reply::Moving(target),
+                None => Reply::At(self.tuner.position_at(now)),
+            },
+            Request::Stop => {
+                self.moving = None;
+                Reply::At(self.tuner.stop(now))
+            }
+            Request::Zero(steps) => {
+                if self.moving.is_some() {
+                    return Reply::Err("busy: ZERO refused while moving".to_string());
+                }
+                if !self.within(steps) {
+                    return Reply::Err(format!(
+                        "position {steps} outside limits {}",
+                        self.limits()
+                    ));
+                }
+                self.tuner = SimTuner::new(*self.tuner.params(), steps);
+                Reply::At(steps)
+            }
+        }
+    }
+
+    /// The `AT` of a move that has settled by `now`, once.
+    pub fn poll_arrival(&mut self, now: Duration) -> Option<Reply> {
+        match self.moving {
+            Some((target, arrive)) if now >= arrive => {
+                self.moving = None;
+                Some(Reply::At(target))
+            }
+            _ => None,
+        }
+    }
+
+    /// When the move under way will have settled.
+    pub fn next_arrival(&self) -> Option<Duration> {
+        self.moving.map(|(_, arrive)| arrive)
+    }
+
+    /// Where the motor is at `now`.
+    pub fn position_at(&self, now: Duration) -> i64 {
+        self.tuner.position_at(now)
+    }
+}
+
+/// A controller shared by the connections of one server, with the instant
+/// its clock counts from.
+#[derive(Debug, Clone)]
+pub struct SharedController {
+    inner: Arc<Mutex<SimController>>,
+    origin: Instant,
+}
+
+impl SharedController {
+    pub fn new(ctl: SimController) -> SharedController {
+        SharedController {
+            inner: Arc::new(Mutex::new(ctl)),
+            origin: Instant::now(),
+        }
+    }
+
+    fn with<T>(&self, f: impl FnOnce(&mut SimController, Duration) -> T) -> T {
+        let now = self.origin.elapsed();
+        // A poisoned lock means a panic elsewhere; the state is still usable.
+        let mut guard = self.inner.lock().unwrap_or_else(|p| p.into_inner());
+        f(&mut guard, now)
+    }
+}
+
+/// Serves the protocol on one byte stream until the peer closes it, an IO
+/// error occurs, or `stop` changes.
+pub async fn serve_connection<S>(
+    stream: S,
+    ctl: SharedController,
+    mut stop: watch::Receiver<u64>,
+) -> io::Result<()>
+where
+    S: AsyncRead + AsyncWrite + Unpin,
+{
+    let (mut rd, mut wr) = tokio::io::split(stream);
+    let mut framer = LineFramer::new();
+    let mut inbuf = BytesMut::with_capacity(256);
+    let mut out = BytesMut::with_capacity(256);
+    loop {
+        let deadline = ctl.with(|c, _| c.next_arrival()).map(|d| ctl.origin + d);
+        tokio::select! {
+            n = rd.read_buf(&mut inbuf) => {
+                if n? == 0 {
+                    return Ok(());
+                }
+                while let Some(line) = framer.next_line(&mut inbuf) {
+                    let reply = match line.and_then(|l| Request::parse(&l)) {
+                        Ok(req) => {
+                            tracing::debug!(%req, "request");
+                            ctl.with(|c, now| {
+                                // An arrival due before this request is reported first.
+                                if let Some(at) = c.poll_arrival(now) {
+                                    at.encode(&mut out);
+                                }
+                                c.handle(now, req)
+                            })
+                        }
+                        Err(e) => Reply::Err(e.to_string()),
+                    };
+                    reply.encode(&mut out);
+                }
+            }
+            _ = sleep_until_opt(deadline) => {
+                if let Some(at) = ctl.with(|c, now| c.poll_arrival(now)) {
+                    at.encode(&mut out);
+                }
+            }
+            _ = stop.changed() => return Ok(()),
+        }
+        if !out.is_empty() {
+            wr.write_all(&out).await?;
+            wr.flush().await?;
+            out.clear();
+        }
+    }
+}
+
+async fn sleep_until_opt(deadline: Option<Instant>) {
+    match deadline {
+        Some(d) => tokio::time::sleep_until(d).await,
+        None => std::future::pending().await,
+    }
+}
+
+/// Accepts connections on `listener` until `shutdown` becomes true; each new
+/// connection replaces the one before.
+pub async fn run_tcp(
+    listener: TcpListener,
+    ctl: SimController,
+    mut shutdown: watch::Receiver<bool>,
+) -> io::Result<()> {
+    let ctl = SharedController::new(ctl);
+    let (gen_tx, _) = watch::channel(0u64);
+    let mut generation = 0u64;
+    loop {
+        tokio::select! {
+            accepted = listener.accept() => {
+                let (stream, peer) = accepted?;
+                generation += 1;
+                gen_tx.send_replace(generation);
+                tracing::info!(%peer, "host connected");
+                let stop = gen_tx.subscribe();
+                let ctl = ctl.clone();
+                tokio::spawn(async move {
+                    match serve_connection(stream, ctl, stop).await {
+                        Ok(()) => tracing::info!(%peer, "host disconnected"),
+                        Err(e) => tracing::info!(%peer, error = %e, "host connection lost"),
+                    }
+                });
+            }
+            _ = wait_true(&mut shutdown) => {
+                gen_tx.send_replace(u64::MAX);
+                return Ok(());
+            }
+        }
+    }
+}
+
+/// Puts a symlink at `link` pointing to `target`, replacing an existing
+/// symlink there but never a regular file or folder.
+pub fn place_symlink(link: &Path, target: &Path) -> io::Result<()> {
+    match std::fs::symlink_metadata(link) {
+        Ok(m) if m.file_type().is_symlink() => std::fs::remove_file(link)?,
+        Ok(_) => {
+            return Err(io::Error::new(
+                io::ErrorKind::AlreadyExists,
+                format!(
+                    "{}: expected nothing or a symlink there, found an existing file; refusing to replace it",
+                    link.display()
+                ),
+            ))
+        }
+        Err(e) if e.kind() == io::ErrorKind::NotFound => {}
+        Err(e) => return Err(e),
+    }
+    std::os::unix::fs::symlink(target, link)
+}
+
+/// A pseudo-terminal whose far end is reachable at a symlink; the symlink
+/// is removed on drop. The far end stays open, so a program may open and
+/// close the link as often as it likes without our end seeing a hang-up.
+pub struct PtyLink {
+    /// Held open so the terminal survives the other program closing it.
+    _slave: tokio_serial::SerialStream,
+    link: PathBuf,
+    slave_path: PathBuf,
+}
+
+impl PtyLink {
+    /// Creates a pseudo-terminal, points `link` at its far end, and returns
+    /// the guard and our (master) end.
+    pub fn create(link: &Path) -> io::Result<(PtyLink, tokio_serial::SerialStream)> {
+        use tokio_serial::SerialPort;
+        let (master, slave) = tokio_serial::SerialStream::pair().map_err(io::Error::from)?;
+        let slave_path = slave.name().map(PathBuf::from).ok_or_else(|| {
+            io::Error::other("pseudo-terminal has no name; cannot place the symlink")
+        })?;
+        place_symlink(link, &slave_path)?;
+        let guard = PtyLink {
+            _slave: slave,
+            link: link.to_path_buf(),
+            slave_path,
+        };
+        Ok((guard, master))
+    }
+
+    /// The device the symlink points to.
+    pub fn slave_path(&self) -> &Path {
+        &self.slave_path
+    }
+
+    /// Where the symlink is.
+    pub fn link(&self) -> &Path {
+        &self.link
+    }
+}
+
+impl Drop for PtyLink {
+    fn drop(&mut self) {
+        // Only our own symlink: someone may have re-pointed it since.
+        if std::fs::read_link(&self.link).ok().as_deref() == Some(self.slave_path.as_path()) {
+            let _ = std::fs::remove_file(&self.link);
+        }
+    }
+}
+
+/// Serves the protocol on a pseudo-terminal reachable at `link` until
+/// `shutdown` becomes true.
+pub async fn run_pty(
+    link: &Path,
+    ctl: SimController,
+    mut shutdown: watch::Receiver<bool>,
+) -> io::Result<()> {
+    let (pty, master) = PtyLink::create(link)?;
+    tracing::info!(link = %link.display(), device = %pty.slave_path().display(), "controller simulator on pseudo-terminal");
+    let (stop_tx, stop) = watch::channel(0u64);
+    let ctl = SharedController::new(ctl);
+    tokio::select! {
+        r = serve_connection(master, ctl, stop) => r,
+        _ = wait_true(&mut shutdown) => { stop_tx.send_replace(1); Ok(()) }
+    }
+}
+
+/// Returns once the flag is true or its sender is gone.
+pub async fn wait_true(flag: &mut watch::Receiver<bool>) {
+    loop {
+        if *flag.borrow_and_update() {
+            return;
+        }
+        if flag.changed().await.is_err() {
+            return;
+        }
+    }
+}
+
+/// `tuneward sim-tuner`: a controller simulator on a socket or a pseudo-terminal.
+#[derive(Debug, Clone, clap::Args)]
+pub struct SimTunerArgs {
+    /// Listen for the host on this TCP address, e.g. 127.0.0.1:7300 (port 0
+    /// picks a free port; the address is printed).
+    #[arg(
+        long,
+        value_name = "ADDR",
+        conflicts_with = "pty",
+        required_unless_present = "pty"
+    )]
+    pub listen: Option<std::net::SocketAddr>,
+    /// Create a pseudo-terminal and put a symlink to it at LINK; point the
+    /// host's `serial://LINK` at it.
+    #[arg(long, value_name = "LINK")]
+    pub pty: Option<PathBuf>,
+    /// Motor speed.
+    #[arg(long, default_value_t = 800.0)]
+    pub steps_per_second: f64,
+    /// Time the mechanics take to come to rest after the last step.
+    #[arg(long, default_value_t = 50)]
+    pub settle_ms: u64,
+    /// Lost motion on a reversal, in steps (shows in the capacitor, not in
+    /// the reported motor position).
+    #[arg(long, default_value_t = 0)]
+    pub backlash: i64,
+    /// Lowest position the controller accepts.
+    #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
+    pub min: i64,
+    /// Highest position the controller accepts.
+    #[arg(long, default_value_t = 10_000, allow_hyphen_values = true)]
+    pub max: i64,
+    /// Where the motor is when the simulator starts.
+    #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
+    pub start: i64,
+}
+
+/// Runs the simulator until interrupted (Ctrl-C).
+pub fn run_sim_tuner(args: &SimTunerArgs) -> Result<(), String> {
+    let params = SimParams {
+        steps_per_second: args.steps_per_second,
+        settle_ms: args.settle_ms,
+        backlash_steps: args.backlash,
+        min_steps: args.min,
+        max_steps: args.max,
+    };
+    if args.backlash < 0 {
+        return Err(format!(
+            "--backlash: expected 0 or more steps, found {}",
+            args.backlash
+        ));
+    }
+    let ctl = SimController::new(params, args.start).map_err(|e| format!("sim-tuner: {e}"))?;
+    let _ = tracing_subscriber::fmt()
+        .with_writer(std::io::stderr)
+        .try_init();
+    let rt = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+    rt.block_on(async move {
+        let (stop_tx, stop_rx) = watch::channel(false);
+        tokio::spawn(async move {
+            if tokio::signal::ctrl_c().await.is_ok() {
+                stop_tx.send_replace(true);
+            }
+        });
+        if let Some(addr) = args.listen {
+            let listener = TcpListener::bind(addr)
+                .await
+                .map_err(|e| format!("--listen {addr}: cannot listen: {e}"))?;
+            let local = listener
+                .local_addr()
+                .map_err(|e| format!("--listen {addr}: {e}"))?;
+            println!("listening on {local}");
+            run_tcp(listener, ctl, stop_rx)
+                .await
+                .map_err(|e| format!("sim-tuner on {local}: {e}"))
+        } else if let Some(link) = &args.pty {
+            let r = run_pty(link, ctl, stop_rx).await;
+            r.map_err(|e| format!("--pty {}: {e}", link.display()))
+        } else {
+            Err("sim-tuner: expected --listen ADDR or --pty LINK".to_string())
+        }
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn params() -> SimParams {
+        SimParams {
+            steps_per_second: 1000.0,
+            settle_ms: 50,
+            backlash_steps: 10,
+            min_steps: 0,
+            max_steps: 10_000,
+        }
+    }
+
+    fn ms(n: u64) -> Duration {
+        Duration::from_millis(n)
+    }
+
+    #[test]
+    fn goto_answers_moving_then_at_after_travel_and_settle() {
+        let mut c = SimController::new(params(), 1000).unwrap();
+        assert_eq!(c.handle(ms(0), Request::Goto(1500)), Reply::Moving(1500));
+        // 500 steps at 1000 steps/s + 50 ms settle.
+        assert_eq!(c.next_arrival(), Some(ms(550)));
+        assert_eq!(c.poll_arrival(ms(549)), None);
+        assert_eq!(c.handle(ms(300), Request::Where), Reply::Moving(1500));
+        assert_eq!(c.poll_arrival(ms(550)), Some(Reply::At(1500)));
+        assert_eq!(c.poll_arrival(ms(600)), None);
+        assert_eq!(c.handle(ms(600), Request::Where), Reply::At(1500));
+    }
+
+    #[test]
+    fn targets_and_zero_outside_limits_are_refused_without_moving() {
+        let mut c = SimController::new(params(), 100).unwrap();
+        let r = c.handle(ms(0), Request::Goto(10_001));
+        assert!(matches!(&r, Reply::Err(t) if t.contains("10001") && t.contains("0..10000")));
+        assert_eq!(
+            c.handle(ms(0), Request::Goto(-1)).to_string().get(..3),
+            Some("ERR")
+        );
+        assert!(matches!(c.handle(ms(0), Request::Zero(-5)), Reply::Err(_)));
+        assert_eq!(c.next_arrival(), None);
+        assert_eq!(c.handle(ms(0), Request::Where), Reply::At(100));
+    }
+
+    #[test]
+    fn stop_reports_where_it_stopped_and_cancels_the_arrival() {
+        let mut c = SimController::new(params(), 0).unwrap();
+        c.handle(ms(0), Request::Goto(1000));
+        assert_eq!(c.handle(ms(250), Request::Stop), Reply::At(250));
+        assert_eq!(c.poll_arrival(ms(5000)), None);
+    }
+
+    #[test]
+    fn zero_refused_while_moving_and_redefines_at_rest() {
+        let mut c = SimController::new(params(), 0).unwrap();
+        c.handle(ms(0), Request::Goto(100));
+        assert!(
+            matches!(c.handle(ms(10), Request::Zero(5)), Reply::Err(t) if t.contains("moving"))
+        );
+        assert_eq!(c.poll_arrival(ms(200)), Some(Reply::At(100)));
+        assert_eq!(c.handle(ms(200), Request::Zero(5000)), Reply::At(5000));
+        assert_eq!(c.handle(ms(200), Request::Where), Reply::At(5000));
+    }
+
+    #[test]
+    fn a_new_goto_replaces_the_target() {
+        let mut c = SimController::new(params(), 0).unwrap();
+        c.handle(ms(0), Request::Goto(1000));
+        assert_eq!(c.handle(ms(100), Request::Goto(50)), Reply::Moving(50));
+        // From 100 back to 50: 50 ms + 50 ms settle.
+        assert_eq!(c.next_arrival(), Some(ms(200)));
+        assert_eq!(c.poll_arrival(ms(200)), Some(Reply::At(50)));
+    }
+
+    #[test]
+    fn bad_start_or_limits_are_refused() {
+        assert!(SimController::new(params(), 20_000).is_err());
+        let mut p = params();
+        p.max_steps = p.min_steps;
+        assert!(SimController::new(p, 0).is_err());
+    }
+
+    #[test]
+    fn existing_regular_file_is_not_replaced_by_a_symlink() {
+        let dir = tempfile::tempdir().unwrap();
+        let f = dir.path().join("port");
+        std::fs::write(&f, b"keep").unwrap();
+        let e = place_symlink(&f, Path::new("/dev/null")).unwrap_err();
+        assert!(e.to_string().contains("refusing"), "{e}");
+        assert_eq!(std::fs::read(&f).unwrap(), b"keep");
+        let l = dir.path().join("link");
+        place_symlink(&l, Path::new("/dev/null")).unwrap();
+        place_symlink(&l, Path::new("/dev/zero")).unwrap();
+        assert_eq!(std::fs::read_link(&l).unwrap(), Path::new("/dev/zero"));
+    }
+}
