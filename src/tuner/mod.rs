@@ -1,4 +1,5 @@
 //! The tuner side: controllers that move the capacitor.
+pub mod client;
 pub mod line;
 pub mod server;
 pub mod sim;

@@ -1,0 +1,632 @@
+//! The host end of the controller line protocol: one tokio task that owns the
+//! connection to the stepper controller.
+//!
+//! The rest of the service talks to it through two channels: it takes
+//! [`TunerCommand`]s and sends back [`TunerEvent`]s. The task is the lowest
+//! layer before the motor, so it is where the last checks live:
+//!
+//! - a `GOTO` or `ZERO` outside the configured limits is refused here, never
+//!   sent;
+//! - while the rig transmits (the optional `transmit` watch is `true`) a
+//!   `GOTO` is refused, and a move under way is stopped;
+//! - every request must be answered within a margin, and a move must end
+//!   (`AT`) within the travel time for its distance plus settle time plus
+//!   the margin. A missing answer is a fault: it is reported, the
+//!   connection is dropped and reopened, and the task asks `WHERE`.
+//!
+//! Reconnection backs off from 100 ms doubling up to a cap (2 s by default).
+//! Each change of link state is logged once; retries while down are logged
+//! at debug level only.
+
+use std::fmt;
+use std::path::PathBuf;
+use std::str::FromStr;
+use std::time::Duration;
+
+use bytes::BytesMut;
+use tokio::io::{AsyncRead, AsyncReadExt, AsyncWrite, AsyncWriteExt};
+use tokio::sync::{mpsc, watch};
+use tokio::task::JoinHandle;
+use tokio::time::Instant;
+
+use super::line::{LineFramer, Reply, Request};
+use super::server::{serve_connection, SharedController, SimController};
+use super::sim::SimParams;
+
+/// Where the controller is.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ControllerUrl {
+    /// `serial:///dev/ttyACM0?baud=115200` (baud defaults to 115200).
+    Serial { path: PathBuf, baud: u32 },
+    /// `tcp://127.0.0.1:7300`.
+    Tcp { addr: String },
+    /// `sim`: a simulated controller inside this process.
+    Sim,
+}
+
+/// Baud rate of a `serial://` URL without `?baud=`.
+pub const DEFAULT_CONTROLLER_BAUD: u32 = 115_200;
+
+impl FromStr for ControllerUrl {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<ControllerUrl, String> {
+        let expected = "expected `serial:///dev/PORT?baud=N`, `tcp://HOST:PORT` or `sim`";
+        if s == "sim" {
+            return Ok(ControllerUrl::Sim);
+        }
+        if let Some(rest) = s.strip_prefix("serial://") {
+            let (path, query) = rest.split_once('?').unwrap_or((rest, ""));
+            if !path.starts_with('/') {
+                return Err(format!(
+                    "{expected}; found `{s}` (the port path must be absolute)"
+                ));
+            }
+            let mut baud = DEFAULT_CONTROLLER_BAUD;
+            for pair in query.split('&').filter(|p| !p.is_empty()) {
+                match pair.split_once('=') {
+                    Some(("baud", v)) => {
+                        baud = v.parse().ok().filter(|b| *b > 0).ok_or_else(|| {
+                            format!("`{s}`: expected a positive baud rate, found `{v}`")
+                        })?
+                    }
+                    _ => return Err(format!("`{s}`: expected only `baud=N`, found `{pair}`")),
+                }
+            }
+            return Ok(ControllerUrl::Serial {
+                path: PathBuf::from(path),
+                baud,
+            });
+        }
+        if let Some(addr) = s.strip_prefix("tcp://") {
+            let ok = addr
+                .rsplit_once(':')
+                .is_some_and(|(host, port)| !host.is_empty() && port.parse::<u16>().is_ok());
+            if !ok {
+                return Err(format!("{expected}; found `{s}` (expected HOST:PORT)"));
+            }
+            return Ok(ControllerUrl::Tcp {
+                addr: addr.to_string(),
+            });
+        }
+        Err(format!("{expected}; found `{s}`"))
+    }
+}
+
+impl fmt::Display for ControllerUrl {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            ControllerUrl::Serial { path, baud } => {
+                write!(f, "serial://{}?baud={baud}", path.display())
+            }
+            ControllerUrl::Tcp { addr } => write!(f, "tcp://{addr}"),
+            ControllerUrl::Sim => f.write_str("sim"),
+        }
+    }
+}
+
+/// What the service asks of the controller.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TunerCommand {
+    Goto(i64),
+    Where,
+    Stop,
+    Zero(i64),
+}
+
+/// What the controller link reports.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum TunerEvent {
+    /// A move was accepted (`MOVING`).
+    Accepted { target: i64 },
+    /// The motor is at rest here (`AT`).
+    At { steps: i64 },
+    /// A command was refused (by the controller or by this layer), or the
+    /// controller misbehaved.
+    Error { text: String },
+    /// The link is down; the position is not known until `At` after `LinkUp`.
+    LinkDown { reason: String },
+    /// The link is up again (a `WHERE` has been sent).
+    LinkUp,
+}
+
+/// How the link behaves.
+#[derive(Debug, Clone)]
+pub struct ClientConfig {
+    pub url: ControllerUrl,
+    pub min_steps: i64,
+    pub max_steps: i64,
+    pub steps_per_second: f64,
+    pub settle: Duration,
+    /// Allowance on top of every expected reply time.
+    pub reply_margin: Duration,
+    /// Longest wait between reconnection attempts.
+    pub backoff_cap: Duration,
+    /// Where the in-process simulator (`sim`) starts.
+    pub sim_start: i64,
+    /// Backlash of the in-process simulator.
+    pub sim_backlash: i64,
+}
+
+impl ClientConfig {
+    /// From the `[tuner]` section: `link` is the URL.
+    pub fn from_tuner(t: &crate::config::TunerConfig) -> Result<ClientConfig, String> {
+        let url = t
+            .link
+            .parse()
+            .map_err(|e| format!("key `tuner.link`: {e}"))?;
+        Ok(ClientConfig {
+            url,
+            min_steps: t.min_steps,
+            max_steps: t.max_steps,
+            steps_per_second: t.steps_per_second,
+            settle: Duration::from_millis(t.settle_ms),
+            reply_margin: Duration::from_secs(1),
+            backoff_cap: Duration::from_secs(2),
+            sim_start: t.min_steps,
+            sim_backlash: t.backlash_steps,
+        })
+    }
+
+    fn travel(&self, distance: u64) -> Duration {
+        let secs = distance as f64 / self.steps_per_second;
+        if secs.is_finite() && secs >= 0.0 {
+            Duration::try_from_secs_f64(secs).unwrap_or(Duration::MAX / 4)
+        } else {
+            Duration::MAX / 4
+        }
+    }
+}
+
+/// The channels to a running controller link.
+pub struct ClientHandle {
+    pub commands: mpsc::Sender<TunerCommand>,
+    pub events: mpsc::Receiver<TunerEvent>,
+    pub task: JoinHandle<()>,
+}
+
+/// Starts the controller link task. `transmit` is the rig's transmit state
+/// (`None`: no interlock at this layer); the task ends when `shutdown`
+/// becomes true or the command sender is dropped.
+pub fn spawn(
+    config: ClientConfig,
+    transmit: Option<watch::Receiver<bool>>,
+    shutdown: watch::Receiver<bool>,
+) -> ClientHandle {
+    let (cmd_tx, cmd_rx) = mpsc::channel(32);
+    let (ev_tx, ev_rx) = mpsc::channel(64);
+    let sim = match config.url {
+        ControllerUrl::Sim => {
+            let params = SimParams {
+                steps_per_second: config.steps_per_second,
+                settle_ms: config.settle.as_millis().try_into().unwrap_or(u64::MAX),
+                backlash_steps: config.sim_backlash,
+                min_steps: config.min_steps,
+                max_steps: config.max_steps,
+            };
+            SimController::new(params, config.sim_start)
+                .ok()
+                .map(SharedController::new)
+        }
+        _ => None,
+    };
+    let link = Link {
+        config,
+        commands: cmd_rx,
+        events: ev_tx,
+        transmit,
+        shutdown,
+        sim,
+        up: None,
+    };
+    let task = tokio::spawn(link.run());
+    ClientHandle {
+        commands: cmd_tx,
+        events: ev_rx,
+        task,
+    }
+}
+
+trait ByteStream: AsyncRead + AsyncWrite + Unpin + Send {}
+impl<T: AsyncRead + AsyncWrite + Unpin + Send> ByteStream for T {}
+
+struct Link {
+    config: ClientConfig,
+    commands: mpsc::Receiver<TunerCommand>,
+    events: mpsc::Sender<TunerEvent>,
+    transmit: Option<watch::Receiver<bool>>,
+    shutdown: watch::Receiver<bool>,
+    sim: Option<SharedController>,
+    /// Last logged link state (`None`: not yet known).
+    up: Option<bool>,
+}
+
+enum End {
+    Shutdown,
+    Fault(String),
+}
+
+/// What the open connection is waiting for.
+#[derive(Default)]
+struct Waiting {
+    /// Requests sent and not yet answered, and when the oldest is due.
+    unanswered: u32,
+    reply_due: Option<Instant>,
+    /// A move under way: its target and when it must have ended.
+    arrival: Option<(i64, Instant)>,
+    /// Last position reported at rest.
+    position: Option<i64>,
+}
+
+impl Link {
+    async fn run(mut self) {
+        let mut backoff = Duration::from_millis(100);
+        loop {
+            if *self.shutdown.borrow() {
+                return;
+            }
+            let mut shutdown = self.shutdown.clone();
+            let opened = tokio::select! {
+                r = self.open() => r,
+                _ = wait_true(&mut shutdown) => return,
+            };
+            match opened {
+                Ok(stream) => {
+                    backoff = Duration::from_millis(100);
+                    self.set_up(true, "").await;
+                    match self.session(stream).await {
+                        End::Shutdown => return,
+                        End::Fault(reason) => self.set_up(false, &reason).await,
+                    }
+                }
+                Err(reason) => {
+                    self.set_up(false, &reason).await;
+                    tracing::debug!(url = %self.config.url, %reason, "controller still unreachable");
+                }
+            }
+            // Wait before retrying, refusing commands meanwhile.
+            let until = Instant::now() + backoff;
+            backoff = (backoff * 2).min(self.config.backoff_cap);
+            loop {
+                tokio::select! {
+                    _ = tokio::time::sleep_until(until) => break,
+                    _ = wait_true(&mut self.shutdown) => return,
+                    cmd = self.commands.recv() => match cmd {
+                        None => return,
+                        Some(c) => self.emit(TunerEvent::Error {
+                            text: format!("controller link down: {} not sent", Request::from(c)),
+                        }).await,
+                    },
+                }
+            }
+        }
+    }
+
+    async fn emit(&mut self, ev: TunerEvent) {
+        // A receiver that has gone away means the service is shutting down.
+        let _ = self.events.send(ev).await;
+    }
+
+    async fn set_up(&mut self, up: bool, reason: &str) {
+        if self.up == Some(up) {
+            return;
+        }
+        self.up = Some(up);
+        if up {
+            tracing::info!(url = %self.config.url, "controller link up");
+            self.emit(TunerEvent::LinkUp).await;
+        } else {
+            tracing::warn!(url = %self.config.url, %reason, "controller link down");
+            self.emit(TunerEvent::LinkDown {
+                reason: reason.to_string(),
+            })
+            .await;
+        }
+    }
+
+    async fn open(&self) -> Result<Box<dyn ByteStream>, String> {
+        let timeout = self.config.reply_margin.max(Duration::from_millis(500));
+        match &self.config.url {
+            ControllerUrl::Serial { path, baud } => {
+                let builder = tokio_serial::new(path.to_string_lossy(), *baud);
+                tokio_serial::SerialStream::open(&builder)
+                    .map(|s| Box::new(s) as Box<dyn ByteStream>)
+                    .map_err(|e| format!("cannot open {}: {e}", path.display()))
+            }
+            ControllerUrl::Tcp { addr } => {
+                match tokio::time::timeout(timeout, tokio::net::TcpStream::connect(addr)).await {
+                    Ok(Ok(s)) => {
+                        let _ = s.set_nodelay(true);
+                        Ok(Box::new(s))
+                    }
+                    Ok(Err(e)) => Err(format!("cannot connect to {addr}: {e}")),
+                    Err(_) => Err(format!(
+                        "cannot connect to {addr}: no answer in {timeout:?}"
+                    )),
+                }
+            }
+            ControllerUrl::Sim => {
+                let Some(ctl) = self.sim.clone() else {
+                    return Err(format!(
+                        "simulator: start {} outside limits {}..{}",
+                        self.config.sim_start, self.config.min_steps, self.config.max_steps
+                    ));
+                };
+                let (ours, theirs) = tokio::io::duplex(1024);
+                let stop = self.shutdown_generation();
+                tokio::spawn(async move {
+                    let _ = serve_connection(theirs, ctl, stop).await;
+                });
+                Ok(Box::new(ours))
+            }
+        }
+    }
+
+    /// A stop signal for the in-process simulator's connection that fires
+    /// when this link shuts down (the simulator also ends when our end of
+    /// the duplex is dropped).
+    fn shutdown_generation(&self) -> watch::Receiver<u64> {
+        let (tx, rx) = watch::channel(0u64);
+        let mut shutdown = self.shutdown.clone();
+        tokio::spawn(async move {
+            tokio::select! {
+                _ = wait_true(&mut shutdown) => { tx.send_replace(1); }
+                _ = tx.closed() => {}
+            }
+        });
+        rx
+    }
+
+    async fn session(&mut self, stream: Box<dyn ByteStream>) -> End {
+        let (mut rd, mut wr) = tokio::io::split(stream);
+        let mut framer = LineFramer::new();
+        let mut inbuf = BytesMut::with_capacity(256);
+        let mut w = Waiting::default();
+        if let Err(e) = self.send(&mut wr, &mut w, Request::Where).await {
+            return End::Fault(e);
+        }
+        loop {
+            let deadline = match (w.reply_due, w.arrival.map(|a| a.1)) {
+                (Some(a), Some(b)) => Some(a.min(b)),
+                (a, b) => a.or(b),
+            };
+            let transmit_watch = self.transmit.as_mut();
+            tokio::select! {
+                _ = wait_true(&mut self.shutdown) => return End::Shutdown,
+                n = rd.read_buf(&mut inbuf) => {
+                    match n {
+                        Ok(0) => return End::Fault("controller closed the connection".to_string()),
+                        Err(e) => return End::Fault(format!("read error: {e}")),
+                        Ok(_) => {}
+                    }
+                    while let Some(line) = framer.next_line(&mut inbuf) {
+                        self.take_line(&mut w, line).await;
+                    }
+                }
+                cmd = self.commands.recv() => {
+                    let Some(cmd) = cmd else { return End::Shutdown };
+                    if let Err(e) = self.command(&mut wr, &mut w, cmd).await {
+                        return End::Fault(e);
+                    }
+                }
+                changed = changed_or_pending(transmit_watch) => {
+                    match changed {
+                        Err(()) => {
+                            tracing::warn!("transmit state no longer reported; interlock at the controller link off");
+                            self.transmit = None;
+                        }
+                        Ok(true) if w.arrival.is_some() => {
+                            tracing::warn!("rig transmitting while the motor moves: stopping it");
+                            self.emit(TunerEvent::Error { text: "rig transmitting during a move: STOP sent".into() }).await;
+                            if let Err(e) = self.send(&mut wr, &mut w, Request::Stop).await {
+                                return End::Fault(e);
+                            }
+                        }
+                        Ok(_) => {}
+                    }
+                }
+                _ = sleep_until_opt(deadline) => {
+                    let what = match (w.reply_due, w.arrival) {
+                        (Some(due), _) if Instant::now() >= due => {
+                            format!("no answer within {:?}", self.config.reply_margin)
+                        }
+                        (_, Some((target, _))) => format!("move to {target} did not end in time"),
+                        _ => "no answer in time".to_string(),
+                    };
+                    let text = format!("controller fault: {what}; reconnecting");
+                    self.emit(TunerEvent::Error { text: text.clone() }).await;
+                    return End::Fault(text);
+                }
+            }
+        }
+    }
+
+    fn transmitting(&self) -> bool {
+        self.transmit.as_ref().is_some_and(|t| *t.borrow())
+    }
+
+    async fn command(
+        &mut self,
+        wr: &mut (impl AsyncWrite + Unpin),
+        w: &mut Waiting,
+        cmd: TunerCommand,
+    ) -> Result<(), String> {
+        let (min, max) = (self.config.min_steps, self.config.max_steps);
+        let refuse = match cmd {
+            TunerCommand::Goto(t) if !(min..=max).contains(&t) => {
+                Some(format!("GOTO {t} refused: outside limits {min}..{max}"))
+            }
+            TunerCommand::Zero(t) if !(min..=max).contains(&t) => {
+                Some(format!("ZERO {t} refused: outside limits {min}..{max}"))
+            }
+            TunerCommand::Goto(t) if self.transmitting() => {
+                Some(format!("GOTO {t} refused: rig transmitting"))
+            }
+            _ => None,
+        };
+        if let Some(text) = refuse {
+            tracing::warn!(%text);
+            self.emit(TunerEvent::Error { text }).await;
+            return Ok(());
+        }
+        self.send(wr, w, Request::from(cmd)).await
+    }
+
+    async fn send(
+        &mut self,
+        wr: &mut (impl AsyncWrite + Unpin),
+        w: &mut Waiting,
+        req: Request,
+    ) -> Result<(), String> {
+        let mut out = BytesMut::with_capacity(32);
+        req.encode(&mut out);
+        let margin = self.config.reply_margin;
+        match tokio::time::timeout(margin, async {
+            wr.write_all(&out).await?;
+            wr.flush().await
+        })
+        .await
+        {
+            Ok(Ok(())) => {}
+            Ok(Err(e)) => return Err(format!("write error sending {req}: {e}")),
+            Err(_) => return Err(format!("could not send {req} within {margin:?}")),
+        }
+        tracing::debug!(%req, "sent");
+        w.unanswered += 1;
+        if w.reply_due.is_none() {
+            w.reply_due = Some(Instant::now() + margin);
+        }
+        Ok(())
+    }
+
+    async fn take_line(&mut self, w: &mut Waiting, line: Result<String, super::line::LineError>) {
+        let reply = match line.and_then(|l| Reply::parse(&l)) {
+            Ok(r) => r,
+            Err(e) => {
+                let text = format!("controller sent an unreadable line: {e}");
+                tracing::warn!(%text);
+                self.emit(TunerEvent::Error { text }).await;
+                return;
+            }
+        };
+        tracing::debug!(%reply, "received");
+        if w.unanswered > 0 {
+            w.unanswered -= 1;
+            w.reply_due = (w.unanswered > 0).then(|| Instant::now() + self.config.reply_margin);
+        }
+        let ev = match reply {
+            Reply::Moving(target) => {
+                let distance = match (w.position, w.arrival) {
+                    (Some(p), None) => p.abs_diff(target),
+                    // Unknown start or a move already under way: allow the
+                    // whole travel.
+                    _ => self.config.min_steps.abs_diff(self.config.max_steps),
+                };
+                let due = Instant::now()
+                    + self.config.travel(distance)
+                    + self.config.settle
+                    + self.config.reply_margin;
+                w.arrival = Some((target, due));
+                TunerEvent::Accepted { target }
+            }
+            Reply::At(steps) => {
+                w.arrival = None;
+                w.position = Some(steps);
+                TunerEvent::At { steps }
+            }
+            Reply::Err(text) => TunerEvent::Error {
+                text: format!("controller refused: {text}"),
+            },
+        };
+        self.emit(ev).await;
+    }
+}
+
+impl From<TunerCommand> for Request {
+    fn from(c: TunerCommand) -> Request {
+        match c {
+            TunerCommand::Goto(s) => Request::Goto(s),
+            TunerCommand::Where => Request::Where,
+            TunerCommand::Stop => Request::Stop,
+            TunerCommand::Zero(s) => Request::Zero(s),
+        }
+    }
+}
+
+/// The new value once the watch changes; `Err` if its sender is gone;
+/// never resolves without a watch.
+async fn changed_or_pending(w: Option<&mut watch::Receiver<bool>>) -> Result<bool, ()> {
+    match w {
+        Some(w) => match w.changed().await {
+            Ok(()) => Ok(*w.borrow_and_update()),
+            Err(_) => Err(()),
+        },
+        None => std::future::pending().await,
+    }
+}
+
+async fn sleep_until_opt(deadline: Option<Instant>) {
+    match deadline {
+        Some(d) => tokio::time::sleep_until(d).await,
+        None => std::future::pending().await,
+    }
+}
+
+/// Returns once the flag is true or its sender is gone.
+async fn wait_true(flag: &mut watch::Receiver<bool>) {
+    super::server::wait_true(flag).await
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn urls_parse_with_defaults_and_refusals_say_what_was_expected() {
+        assert_eq!(
+            "serial:///dev/ttyACM0?baud=57600".parse(),
+            Ok(ControllerUrl::Serial {
+                path: "/dev/ttyACM0".into(),
+                baud: 57_600
+            })
+        );
+        assert_eq!(
+            "serial:///dev/serial/by-id/usb-x".parse(),
+            Ok(ControllerUrl::Serial {
+                path: "/dev/serial/by-id/usb-x".into(),
+                baud: DEFAULT_CONTROLLER_BAUD
+            })
+        );
+        assert_eq!(
+            "tcp://127.0.0.1:7300".parse(),
+            Ok(ControllerUrl::Tcp {
+                addr: "127.0.0.1:7300".into()
+            })
+        );
+        assert_eq!("sim".parse(), Ok(ControllerUrl::Sim));
+        for bad in [
+            "serial://ttyACM0",
+            "serial:///dev/x?baud=fast",
+            "serial:///dev/x?parity=odd",
+            "tcp://127.0.0.1",
+            "tcp://:80",
+            "udp://1.2.3.4:5",
+            "",
+        ] {
+            let e = bad.parse::<ControllerUrl>().unwrap_err();
+            assert!(e.contains("expected"), "{bad}: {e}");
+        }
+    }
+
+    #[test]
+    fn url_display_parses_back() {
+        for s in [
+            "serial:///dev/ttyUSB1?baud=9600",
+            "tcp://localhost:1",
+            "sim",
+        ] {
+            let u: ControllerUrl = s.parse().unwrap();
+            assert_eq!(u.to_string(), s);
+        }
+    }
+}
