@@ -104,6 +104,10 @@ pub struct TunerConfig {
     /// Time the mechanics need to come to rest after the last step.
     #[serde(default = "default_settle_ms")]
     pub settle_ms: u64,
+    /// The position journal, relative to the config's folder (default:
+    /// `tuneward-position.state` beside the config).
+    #[serde(default)]
+    pub state_file: Option<PathBuf>,
 }
 
 fn default_link() -> String {
@@ -132,6 +136,7 @@ impl Default for TunerConfig {
             backlash_steps: 0,
             approach: default_approach(),
             settle_ms: default_settle_ms(),
+            state_file: None,
         }
     }
 }

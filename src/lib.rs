@@ -11,5 +11,6 @@ pub mod calibrate;
 pub mod capture;
 pub mod config;
 pub mod follow;
+pub mod journal;
 pub mod rig;
 pub mod tuner;

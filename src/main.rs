@@ -16,12 +16,17 @@ enum Command {
     /// Simulate a stepper controller speaking the line protocol
     /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
     SimTuner(tuneward::tuner::server::SimTunerArgs),
+    /// Record the motor's position (after homing or checking it by eye) in
+    /// the position journal, e.g. after the journal reported a move that
+    /// never finished.
+    SetPosition(tuneward::journal::SetPositionArgs),
 }
 
 fn main() -> std::process::ExitCode {
     let cli = Cli::parse();
     match cli.command {
         Command::SimTuner(args) => report(tuneward::tuner::server::run_sim_tuner(&args)),
+        Command::SetPosition(args) => report(tuneward::journal::run_set_position(&args)),
     }
 }
 
