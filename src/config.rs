@@ -33,6 +33,9 @@ pub struct Config {
     /// The antenna's dimensions, for bandwidth and voltage estimates.
     #[serde(default)]
     pub antenna: AntennaConfig,
+    /// The transmit-inhibit output.
+    #[serde(default)]
+    pub inhibit: InhibitConfig,
     /// Where the config was read from; relative paths inside it are resolved
     /// against this file's folder.
     #[serde(skip)]
@@ -266,6 +269,55 @@ pub struct AntennaConfig {
     pub conductor: Conductor,
     pub power_w: Option<f64>,
     pub capacitor_rating_v: Option<f64>,
+}
+
+/// Which output carries the transmit inhibit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum InhibitKind {
+    /// No output; the service only logs.
+    #[default]
+    None,
+    /// RTS of the serial device `port`.
+    Rts,
+    /// DTR of the serial device `port`.
+    Dtr,
+    /// Line `offset` of GPIO `chip`.
+    Gpio,
+}
+
+/// `[inhibit]`: the output that keeps the rig from transmitting while the
+/// capacitor moves (see `inhibit.rs`).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct InhibitConfig {
+    #[serde(default)]
+    pub line: InhibitKind,
+    #[serde(default)]
+    pub port: Option<String>,
+    #[serde(default)]
+    pub chip: Option<String>,
+    #[serde(default)]
+    pub offset: Option<u32>,
+    /// `true`: inhibit on = line asserted (high); `false`: inverted.
+    #[serde(default = "default_active_high")]
+    pub active_high: bool,
+}
+
+fn default_active_high() -> bool {
+    true
+}
+
+impl Default for InhibitConfig {
+    fn default() -> Self {
+        InhibitConfig {
+            line: InhibitKind::None,
+            port: None,
+            chip: None,
+            offset: None,
+            active_high: true,
+        }
+    }
 }
 
 /// A config error that a person can act on: where, what was expected, what was found.

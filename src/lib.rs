@@ -11,6 +11,7 @@ pub mod calibrate;
 pub mod capture;
 pub mod config;
 pub mod follow;
+pub mod inhibit;
 pub mod journal;
 pub mod rig;
 pub mod tuner;
