@@ -1,5 +1,6 @@
 //! The tuner side: controllers that move the capacitor.
 pub mod client;
+pub mod gpio;
 pub mod line;
 pub mod ramp;
 pub mod server;
