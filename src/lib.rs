@@ -11,5 +11,8 @@ pub mod calibrate;
 pub mod capture;
 pub mod config;
 pub mod follow;
+pub mod replay;
 pub mod rig;
+pub mod scenario;
+pub mod timeline;
 pub mod tuner;
