@@ -253,6 +253,116 @@ pub fn demo_evening() -> Scenario {
     s.clone().finish()
 }
 
+/// Broadcast bands outside the amateur allocations, where an operator may
+/// listen (and where the tuner must stay put). Edges recalled from the
+/// shortwave broadcast allocations; only used to place invented excursions.
+const BROADCAST_HZ: [(u64, u64); 3] = [
+    (5_900_000, 6_200_000),
+    (9_400_000, 9_900_000),
+    (11_600_000, 12_100_000),
+];
+
+/// A random evening of `hours` at a station operating in `bands` (low, high
+/// in Hz): dwells with digital-mode or voice overs, small retunes, knob
+/// sweeps, band changes, visits to broadcast stations and line noise. The
+/// same seed gives the same evening.
+pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
+    let mut rng = fastrand::Rng::with_seed(seed ^ 0x5eed);
+    let start = rng.u64(first.0..=first.1);
+    let s = &mut Script::new(seed, start);
+    let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
+    let ms = Duration::from_millis;
+    let sec = Duration::from_secs;
+    let mut band = first;
+    while s.now() < end {
+        match rng.u32(0..100) {
+            // Stay and operate: digital-mode cycles or voice overs.
+            0..=39 => {
+                s.wait(sec(rng.u64(5..=60)));
+                if rng.bool() {
+                    let n = rng.u32(1..=8);
+                    s.overs(n, sec(13), sec(17));
+                } else {
+                    for _ in 0..rng.u32(1..=4) {
+                        let on = ms(rng.u64(5_000..=90_000));
+                        let off = ms(rng.u64(3_000..=60_000));
+                        s.overs(1, on, off);
+                        if rng.u32(0..10) == 0 {
+                            // RF into the cable during the over.
+                            let n = rng.usize(1..=48);
+                            s.noise(n);
+                        }
+                    }
+                }
+            }
+            // A small retune, a few hundred Hz to a few kHz.
+            40..=59 => {
+                let delta = rng.u64(100..=3_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                s.wait(sec(rng.u64(10..=120)));
+            }
+            // Tune across the band looking for a contact.
+            60..=74 => {
+                let to = rng.u64(band.0..=band.1);
+                s.sweep(to, rng.u64(200..=2_000), ms(rng.u64(20..=100)));
+                s.wait(sec(rng.u64(5..=90)));
+            }
+            // Change band.
+            75..=86 => {
+                if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
+                    band = *b;
+                    let hz = rng.u64(b.0..=b.1);
+                    s.jump(hz).wait(sec(rng.u64(5..=60)));
+                }
+            }
+            // Listen to a broadcast station, then come back.
+            87..=91 => {
+                let bc = BROADCAST_HZ[rng.usize(0..BROADCAST_HZ.len())];
+                let back = s.hz();
+                s.jump(rng.u64(bc.0..=bc.1)).wait(sec(rng.u64(60..=900)));
+                s.jump(back).wait(sec(rng.u64(5..=30)));
+            }
+            // Noise on the line.
+            _ => {
+                let n = rng.usize(1..=64);
+                s.noise(n).wait(ms(rng.u64(100..=5_000)));
+            }
+        }
+    }
+    s.clone().finish()
+}
+
+/// The fewest repositionings that keep every dwell inside the loop's window,
+/// knowing the whole evening in advance: consecutive dwells share one tuning
+/// while their frequencies fit inside one window (greedy interval stabbing,
+/// which is optimal for intervals taken in order). `window_hz(hz)` is the
+/// width of the window around `hz`; `None` means the frequency is not
+/// followed (outside the bands) and places no constraint.
+pub fn fewest_moves(dwells: &[Dwell], window_hz: impl Fn(u64) -> Option<f64>) -> u64 {
+    let mut moves = 0;
+    // The band of tuned frequencies still acceptable to the current group.
+    let mut group: Option<(f64, f64)> = None;
+    for d in dwells {
+        let Some(w) = window_hz(d.hz) else { continue };
+        let (lo, hi) = (d.hz as f64 - w / 2.0, d.hz as f64 + w / 2.0);
+        group = match group {
+            Some((glo, ghi)) if lo.max(glo) <= hi.min(ghi) => Some((lo.max(glo), hi.min(ghi))),
+            _ => {
+                moves += 1;
+                Some((lo, hi))
+            }
+        };
+    }
+    moves
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -312,6 +422,43 @@ mod tests {
         let chunks = sc.chunks(&Plain);
         assert!(chunks.windows(2).all(|w| w[0].0 <= w[1].0));
         assert_eq!(chunks[1].2, b"T;");
+    }
+
+    #[test]
+    fn random_evenings_are_repeatable_and_stay_in_time_order() {
+        let bands = [(7_000_000, 7_200_000), (14_000_000, 14_350_000)];
+        let a = random_evening(3, 2.0, &bands);
+        let b = random_evening(3, 2.0, &bands);
+        assert_eq!(a.steps, b.steps);
+        assert!(a.steps.windows(2).all(|w| w[0].0 <= w[1].0));
+        assert!(a.end >= Duration::from_secs(7_200));
+        assert!(!a.transmit.is_empty());
+        let c = random_evening(4, 2.0, &bands);
+        assert_ne!(a.steps, c.steps);
+    }
+
+    #[test]
+    fn fewest_moves_groups_dwells_that_share_a_window() {
+        let d = |hz: u64| Dwell {
+            hz,
+            from: Duration::ZERO,
+            to: Duration::ZERO,
+        };
+        // Window 10 kHz wide: 7.100, 7.104, 7.108 fit in one (7.103..7.105),
+        // 7.120 needs a second, 9.6 MHz is not followed.
+        let dwells = [
+            d(7_100_000),
+            d(7_104_000),
+            d(7_108_000),
+            d(9_600_000),
+            d(7_120_000),
+            d(7_121_000),
+        ];
+        let window = |hz: u64| (hz < 8_000_000).then_some(10_000.0);
+        assert_eq!(fewest_moves(&dwells, window), 2);
+        // A 5 kHz window that also follows 9.6 MHz: {7.100, 7.104},
+        // {7.108}, {9.6}, {7.120, 7.121}.
+        assert_eq!(fewest_moves(&dwells, |_| Some(5_000.0)), 4);
     }
 
     #[test]
