@@ -165,6 +165,10 @@ pub struct FollowConfig {
     /// or the rig's own inhibit input has taken effect before anything moves.
     #[serde(default = "default_inhibit_lead_ms")]
     pub inhibit_lead_ms: u64,
+    /// After a hand touch-up, the operator must stay this long on the
+    /// frequency before the new position is offered as a calibration point.
+    #[serde(default = "default_candidate_dwell_ms")]
+    pub candidate_dwell_ms: u64,
 }
 
 fn default_debounce_ms() -> u64 {
@@ -182,6 +186,9 @@ fn default_inhibit_tail_ms() -> u64 {
 fn default_inhibit_lead_ms() -> u64 {
     20
 }
+fn default_candidate_dwell_ms() -> u64 {
+    20_000
+}
 
 impl Default for FollowConfig {
     fn default() -> Self {
@@ -191,6 +198,7 @@ impl Default for FollowConfig {
             min_move_steps: default_min_move_steps(),
             inhibit_tail_ms: default_inhibit_tail_ms(),
             inhibit_lead_ms: default_inhibit_lead_ms(),
+            candidate_dwell_ms: default_candidate_dwell_ms(),
         }
     }
 }

@@ -13,5 +13,8 @@ pub mod config;
 pub mod follow;
 pub mod inhibit;
 pub mod journal;
+pub mod replay;
 pub mod rig;
+pub mod scenario;
+pub mod timeline;
 pub mod tuner;

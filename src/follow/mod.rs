@@ -1,1 +1,631 @@
-//! The follow core.
+//! The follow core: a pure, synchronous state machine that owns every
+//! decision about moving the tuner.
+//!
+//! It does no IO and never reads a clock. A driver hands it events through
+//! the `handle_*` methods, each with the current time `now` (a [`Duration`]
+//! since the driver's own origin, virtual or real), then drains
+//! [`Follower::poll_action`] and carries the actions out, and asks
+//! [`Follower::poll_timeout`] when it next needs to call
+//! [`Follower::handle_timeout`]. The replay, the demo, the tests and the live
+//! service all drive this same type; only the driver differs.
+//!
+//! The safety rules live here, below every driver, so that nothing that asks
+//! for a move can get around them:
+//! - no target outside `min_steps..=max_steps` is ever issued (clamped, and
+//!   reported as a hold with reason `limit`);
+//! - no move starts while the rig reports transmit (deferred, reason
+//!   `transmitting`); a transmission reported during a move stops the motor;
+//! - the inhibit is asserted before the first step of every move (and
+//!   `inhibit_lead` ahead of it) and released only `inhibit_tail` after the
+//!   final arrival;
+//! - while the position is unknown nothing moves and the inhibit stays on.
+
+pub mod policy;
+
+use std::collections::VecDeque;
+use std::fmt;
+use std::sync::Arc;
+use std::time::Duration;
+
+use crate::calibrate::StepMap;
+pub use policy::{Band, Legs, Placement, Policy};
+
+/// Why the core decided not to move (or not to move as asked).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum HoldReason {
+    /// Within the dead band of the frequency the tuner is tuned for, or a
+    /// move smaller than `min_move_steps`.
+    DeadBand,
+    /// Outside every band and guard margin.
+    OutOfBand,
+    /// The rig is transmitting; the move waits for receive.
+    Transmitting,
+    /// The target lay beyond the travel limits and was clamped.
+    Limit,
+    /// Where the capacitor is, is not known; nothing moves until it is.
+    PositionUnknown,
+    /// The controller link is down or misbehaved.
+    Fault,
+    /// The operator paused following.
+    Paused,
+    /// The calibration gave no usable position for this frequency.
+    Calibration,
+}
+
+impl HoldReason {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            HoldReason::DeadBand => "dead-band",
+            HoldReason::OutOfBand => "out-of-band",
+            HoldReason::Transmitting => "transmitting",
+            HoldReason::Limit => "limit",
+            HoldReason::PositionUnknown => "position-unknown",
+            HoldReason::Fault => "fault",
+            HoldReason::Paused => "paused",
+            HoldReason::Calibration => "calibration",
+        }
+    }
+}
+
+impl fmt::Display for HoldReason {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+/// What the core asks its driver to do, in order.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Action {
+    /// Set the transmit-inhibit output.
+    Inhibit { on: bool },
+    /// A decision not to move (or a clamped one), for the log.
+    Hold { hz: u64, reason: HoldReason },
+    /// A repositioning begins: from `from` to the final position `to`, for
+    /// the settled frequency `hz`. Record the intent before the first leg.
+    Move { from: i64, to: i64, hz: u64 },
+    /// Command the controller to go to `steps` (one leg of a move).
+    Goto { steps: i64 },
+    /// Command the controller to stop where it is.
+    Stop,
+    /// The operator touched the tuning up by hand at `hz` and stayed: a
+    /// candidate calibration point.
+    Candidate {
+        hz: u64,
+        steps: i64,
+        profile: Option<String>,
+    },
+}
+
+/// A target the core wants to reach.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct Target {
+    /// The settled frequency that asked for it (reported in `Move`).
+    hz: u64,
+    /// The frequency the tuner is tuned for there (a band edge in a guard).
+    tune_hz: u64,
+    steps: i64,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Motion {
+    Idle,
+    /// Inhibit asserted, waiting `inhibit_lead` before the first step.
+    Arming {
+        until: Duration,
+    },
+    /// A leg is under way; `then` is the final leg still to come, if any.
+    Moving {
+        then: Option<i64>,
+        target: Target,
+    },
+    /// A `Stop` was sent; waiting for the controller to say where it stopped.
+    Stopping,
+}
+
+#[derive(Debug, Clone, Copy)]
+struct Pending {
+    hz: u64,
+    deadline: Duration,
+}
+
+#[derive(Debug, Clone, Copy)]
+struct Touchup {
+    hz: u64,
+    due: Option<Duration>,
+}
+
+/// Counters for a summary.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Stats {
+    pub moves: u64,
+    pub steps: u64,
+    pub holds: u64,
+}
+
+/// The follow core. See the module documentation.
+pub struct Follower {
+    policy: Policy,
+    map: Arc<dyn StepMap>,
+    profile: Option<String>,
+    transmitting: bool,
+    paused: bool,
+    fault: bool,
+    pending: Option<Pending>,
+    settled_hz: Option<u64>,
+    position: Option<i64>,
+    tuned_hz: Option<u64>,
+    want: Option<Target>,
+    motion: Motion,
+    inhibit: bool,
+    release_at: Option<Duration>,
+    touchup: Option<Touchup>,
+    /// The last hold reported, so that a repeated identical decision is
+    /// logged once, not on every report.
+    last_hold: Option<(u64, HoldReason)>,
+    actions: VecDeque<Action>,
+    stats: Stats,
+}
+
+impl fmt::Debug for Follower {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("Follower")
+            .field("position", &self.position)
+            .field("tuned_hz", &self.tuned_hz)
+            .field("motion", &self.motion)
+            .field("inhibit", &self.inhibit)
+            .field("transmitting", &self.transmitting)
+            .finish_non_exhaustive()
+    }
+}
+
+impl Follower {
+    /// A core for `policy` with calibration `map`. `position` is where the
+    /// motor is, if known; if it is not, the inhibit is asserted at once and
+    /// nothing moves until [`Follower::handle_arrived`] reports a position.
+    pub fn new(policy: Policy, map: Arc<dyn StepMap>, position: Option<i64>) -> Self {
+        let mut f = Follower {
+            policy,
+            map,
+            profile: None,
+            transmitting: false,
+            paused: false,
+            fault: false,
+            pending: None,
+            settled_hz: None,
+            position,
+            tuned_hz: None,
+            want: None,
+            motion: Motion::Idle,
+            inhibit: false,
+            release_at: None,
+            touchup: None,
+            last_hold: None,
+            actions: VecDeque::new(),
+            stats: Stats::default(),
+        };
+        if position.is_none() {
+            f.set_inhibit(true);
+        }
+        f
+    }
+
+    // ----- events in -------------------------------------------------------
+
+    /// The rig reported its frequency.
+    pub fn handle_frequency(&mut self, now: Duration, hz: u64) {
+        match self.pending {
+            Some(p) if p.hz == hz => return,
+            None if self.settled_hz == Some(hz) => return,
+            _ => {}
+        }
+        self.pending = Some(Pending {
+            hz,
+            deadline: now + self.policy.debounce_for(hz),
+        });
+        self.handle_timeout(now);
+    }
+
+    /// The rig reported that it started (`true`) or stopped transmitting.
+    pub fn handle_transmit(&mut self, now: Duration, on: bool) {
+        if on == self.transmitting {
+            return;
+        }
+        self.transmitting = on;
+        if on {
+            match self.motion {
+                Motion::Arming { .. } => {
+                    // Nothing has moved yet: stand down and wait for receive.
+                    self.motion = Motion::Idle;
+                    self.set_inhibit(false);
+                    self.defer_for_transmit();
+                }
+                Motion::Moving { target, .. } => {
+                    // The inhibit did not hold the rig off (or is not wired):
+                    // stop rather than move a capacitor under RF; the rest of
+                    // the move waits for receive.
+                    self.actions.push_back(Action::Stop);
+                    self.motion = Motion::Stopping;
+                    if self.want.is_none() {
+                        self.want = Some(target);
+                    }
+                    self.defer_for_transmit();
+                }
+                Motion::Idle | Motion::Stopping => {}
+            }
+        } else {
+            self.try_start(now);
+        }
+        self.handle_timeout(now);
+    }
+
+    /// The controller reported that the motor is at rest at `steps`: after
+    /// arriving, after a stop, or in answer to a position query.
+    pub fn handle_arrived(&mut self, now: Duration, steps: i64) {
+        let was_unknown = self.position.is_none();
+        self.position = Some(steps);
+        match self.motion {
+            Motion::Moving {
+                then: Some(next), ..
+            } => {
+                // First leg done (the overshoot); the final approach follows.
+                // A leg never starts while transmitting: a transmit report
+                // during the move has already turned this into Stopping.
+                if let Motion::Moving { target, .. } = self.motion {
+                    self.motion = Motion::Moving { then: None, target };
+                }
+                self.actions.push_back(Action::Goto { steps: next });
+            }
+            Motion::Moving { then: None, .. } | Motion::Stopping => {
+                self.motion = Motion::Idle;
+                if let Some(t) = &mut self.touchup {
+                    if t.due.is_none() {
+                        t.due = Some(now + self.policy.candidate_dwell);
+                    }
+                }
+                self.after_rest(now);
+            }
+            Motion::Idle | Motion::Arming { .. } => {
+                if was_unknown || self.fault {
+                    self.fault = false;
+                    self.tuned_hz = None;
+                    self.after_rest(now);
+                }
+            }
+        }
+        self.handle_timeout(now);
+    }
+
+    /// The controller link failed or answered nonsense: the position can no
+    /// longer be trusted. Nothing moves and the inhibit stays asserted until
+    /// a position is reported again.
+    pub fn handle_fault(&mut self, now: Duration) {
+        self.fault = true;
+        self.position = None;
+        self.motion = Motion::Idle;
+        self.release_at = None;
+        self.set_inhibit(true);
+        if let Some(hz) = self.settled_hz {
+            self.hold(hz, HoldReason::Fault);
+        }
+        self.handle_timeout(now);
+    }
+
+    /// Pauses (`true`) or resumes following. A paused core finishes the move
+    /// under way but starts no new one.
+    pub fn handle_pause(&mut self, now: Duration, paused: bool) {
+        self.paused = paused;
+        if !paused {
+            if let Some(hz) = self.settled_hz {
+                self.decide(now, hz);
+            }
+        }
+        self.handle_timeout(now);
+    }
+
+    /// Switches the calibration (a new profile, say), and re-tunes the
+    /// current frequency through it.
+    pub fn handle_calibration(
+        &mut self,
+        now: Duration,
+        profile: Option<String>,
+        map: Arc<dyn StepMap>,
+    ) {
+        self.map = map;
+        self.profile = profile;
+        self.tuned_hz = None;
+        self.last_hold = None;
+        if let Some(hz) = self.settled_hz {
+            self.decide(now, hz);
+        }
+        self.handle_timeout(now);
+    }
+
+    /// The operator moves the tuner by `delta` steps by hand, to touch up the
+    /// tuning at the current frequency. The move obeys the same limits and
+    /// interlock as any other; if the operator then stays on the frequency
+    /// for `candidate_dwell`, the position is offered as a calibration point.
+    pub fn handle_nudge(&mut self, now: Duration, delta: i64) {
+        let Some(base) = self.want.map(|t| t.steps).or(self.position) else {
+            self.hold(self.settled_hz.unwrap_or(0), HoldReason::PositionUnknown);
+            return;
+        };
+        let wanted = base.saturating_add(delta);
+        let steps = self.policy.clamp(wanted);
+        let hz = self.settled_hz.or(self.tuned_hz).unwrap_or(0);
+        if steps != wanted {
+            self.hold(hz, HoldReason::Limit);
+        }
+        self.want = Some(Target {
+            hz,
+            tune_hz: self.tuned_hz.unwrap_or(hz),
+            steps,
+        });
+        self.touchup = (hz != 0).then_some(Touchup { hz, due: None });
+        self.try_start(now);
+        self.handle_timeout(now);
+    }
+
+    /// Time has passed: act on whatever deadline is due.
+    pub fn handle_timeout(&mut self, now: Duration) {
+        if let Some(p) = self.pending {
+            if now >= p.deadline {
+                self.pending = None;
+                self.settle(now, p.hz);
+            }
+        }
+        if let Motion::Arming { until } = self.motion {
+            if now >= until {
+                self.start_legs();
+            }
+        }
+        if let Some(at) = self.release_at {
+            if now >= at {
+                self.release_at = None;
+                self.set_inhibit(false);
+            }
+        }
+        if let Some(t) = self.touchup {
+            if t.due.is_some_and(|due| now >= due) {
+                self.touchup = None;
+                if let Some(steps) = self.position {
+                    self.actions.push_back(Action::Candidate {
+                        hz: t.hz,
+                        steps,
+                        profile: self.profile.clone(),
+                    });
+                }
+            }
+        }
+    }
+
+    // ----- work out -------------------------------------------------------
+
+    /// The next action for the driver, in order.
+    pub fn poll_action(&mut self) -> Option<Action> {
+        self.actions.pop_front()
+    }
+
+    /// When the core next needs [`Follower::handle_timeout`], if ever.
+    pub fn poll_timeout(&self) -> Option<Duration> {
+        let arming = match self.motion {
+            Motion::Arming { until } => Some(until),
+            _ => None,
+        };
+        [
+            self.pending.map(|p| p.deadline),
+            arming,
+            self.release_at,
+            self.touchup.and_then(|t| t.due),
+        ]
+        .into_iter()
+        .flatten()
+        .min()
+    }
+
+    // ----- getters ----------------------------------------------------------
+
+    /// Motor position when last at rest, if known.
+    pub fn position(&self) -> Option<i64> {
+        self.position
+    }
+    /// The frequency the tuner is tuned (or being tuned) for.
+    pub fn tuned_hz(&self) -> Option<u64> {
+        self.tuned_hz
+    }
+    pub fn is_moving(&self) -> bool {
+        !matches!(self.motion, Motion::Idle)
+    }
+    pub fn inhibit(&self) -> bool {
+        self.inhibit
+    }
+    pub fn transmitting(&self) -> bool {
+        self.transmitting
+    }
+    pub fn stats(&self) -> Stats {
+        self.stats
+    }
+    pub fn policy(&self) -> &Policy {
+        &self.policy
+    }
+    pub fn profile(&self) -> Option<&str> {
+        self.profile.as_deref()
+    }
+
+    // ----- inside -----------------------------------------------------------
+
+    fn settle(&mut self, now: Duration, hz: u64) {
+        if self.touchup.is_some_and(|t| t.hz != hz) {
+            self.touchup = None;
+        }
+        self.settled_hz = Some(hz);
+        self.decide(now, hz);
+    }
+
+    /// Decides what the settled frequency `hz` asks for.
+    fn decide(&mut self, now: Duration, hz: u64) {
+        let (tune_hz, band) = match self.policy.place(hz) {
+            Placement::Inside { band } => (hz, band),
+            Placement::Guard { band, edge_hz } => (edge_hz, band),
+            Placement::Outside => {
+                // Listening outside the bands must not drive the tuner; a
+                // move still waiting for receive is dropped too.
+                self.want = None;
+                self.hold(hz, HoldReason::OutOfBand);
+                return;
+            }
+        };
+        let hysteresis = self.policy.bands.get(band).map_or(0, |b| b.hysteresis_hz);
+        if self
+            .tuned_hz
+            .is_some_and(|t| t.abs_diff(tune_hz) <= hysteresis)
+            && self.position.is_some()
+        {
+            self.want = None;
+            self.hold(hz, HoldReason::DeadBand);
+            return;
+        }
+        let raw = self.map.steps_at(tune_hz as f64);
+        if !raw.is_finite() || raw.abs() > 1e15 {
+            self.hold(hz, HoldReason::Calibration);
+            return;
+        }
+        let wanted = raw.round() as i64;
+        let steps = self.policy.clamp(wanted);
+        if steps != wanted {
+            self.hold(hz, HoldReason::Limit);
+        }
+        // Compare against where the motor is heading, or resting.
+        let reference = match self.motion {
+            Motion::Moving { target, .. } => Some(target.steps),
+            _ => self.position,
+        };
+        if let Some(r) = reference {
+            if r.abs_diff(steps) < self.policy.min_move_steps.unsigned_abs() || r == steps {
+                self.want = None;
+                self.tuned_hz = Some(tune_hz);
+                self.hold(hz, HoldReason::DeadBand);
+                return;
+            }
+        }
+        self.want = Some(Target { hz, tune_hz, steps });
+        self.try_start(now);
+    }
+
+    /// Starts the wanted move if everything allows it now.
+    fn try_start(&mut self, now: Duration) {
+        let Some(target) = self.want else { return };
+        if self.paused {
+            self.hold(target.hz, HoldReason::Paused);
+            return;
+        }
+        if self.position.is_none() {
+            self.hold(
+                target.hz,
+                if self.fault {
+                    HoldReason::Fault
+                } else {
+                    HoldReason::PositionUnknown
+                },
+            );
+            return;
+        }
+        if !matches!(self.motion, Motion::Idle) {
+            // Picked up when the motor comes to rest.
+            return;
+        }
+        if self.transmitting {
+            self.defer_for_transmit();
+            return;
+        }
+        if self.inhibit {
+            // Already asserted (in the tail of the last move): go at once.
+            self.release_at = None;
+            self.start_legs();
+        } else {
+            self.set_inhibit(true);
+            self.motion = Motion::Arming {
+                until: now + self.policy.inhibit_lead,
+            };
+            if self.policy.inhibit_lead.is_zero() {
+                self.start_legs();
+            }
+        }
+    }
+
+    fn start_legs(&mut self) {
+        let (Some(target), Some(from)) = (self.want.take(), self.position) else {
+            self.motion = Motion::Idle;
+            return;
+        };
+        if self.transmitting || !self.inhibit {
+            // Not reachable through the public events; kept as a last guard.
+            self.want = Some(target);
+            self.motion = Motion::Idle;
+            return;
+        }
+        let to = self.policy.clamp(target.steps);
+        self.tuned_hz = Some(target.tune_hz);
+        if to == from {
+            self.motion = Motion::Idle;
+            self.release_at = None;
+            self.set_inhibit(false);
+            return;
+        }
+        let legs = self.policy.legs(from, to);
+        self.stats.moves += 1;
+        self.stats.steps += legs.distance(from);
+        self.last_hold = None;
+        self.actions.push_back(Action::Move {
+            from,
+            to,
+            hz: target.hz,
+        });
+        self.actions.push_back(Action::Goto { steps: legs.first });
+        self.motion = Motion::Moving {
+            then: legs.then,
+            target: Target {
+                steps: to,
+                ..target
+            },
+        };
+    }
+
+    /// The motor is at rest: start the next wanted move, or begin the
+    /// inhibit tail.
+    fn after_rest(&mut self, now: Duration) {
+        if self.want.is_some() && !self.transmitting && !self.paused {
+            self.try_start(now);
+            if self.is_moving() {
+                return;
+            }
+        }
+        if self.inhibit && self.position.is_some() && !self.fault {
+            self.release_at = Some(now + self.policy.inhibit_tail);
+        }
+    }
+
+    fn defer_for_transmit(&mut self) {
+        if let Some(t) = self.want {
+            self.hold(t.hz, HoldReason::Transmitting);
+        }
+    }
+
+    fn hold(&mut self, hz: u64, reason: HoldReason) {
+        if self.last_hold == Some((hz, reason)) {
+            return;
+        }
+        self.last_hold = Some((hz, reason));
+        self.stats.holds += 1;
+        self.actions.push_back(Action::Hold { hz, reason });
+    }
+
+    fn set_inhibit(&mut self, on: bool) {
+        if self.inhibit != on {
+            self.inhibit = on;
+            self.actions.push_back(Action::Inhibit { on });
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests;

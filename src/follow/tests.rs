@@ -1,0 +1,482 @@
+//! Unit tests of the follow core, driven by hand event by event. The
+//! calibration here is a straight line (invented, for the rules only):
+//! steps = 10 000 - (hz - 7 000 000) / 100, so 100 Hz is one step.
+
+use super::*;
+use crate::config::Approach;
+
+struct Line;
+impl StepMap for Line {
+    fn steps_at(&self, hz: f64) -> f64 {
+        10_000.0 - (hz - 7_000_000.0) / 100.0
+    }
+}
+
+fn ms(v: u64) -> Duration {
+    Duration::from_millis(v)
+}
+
+fn policy() -> Policy {
+    Policy {
+        bands: vec![
+            Band {
+                name: "40m".into(),
+                low_hz: 7_000_000,
+                high_hz: 7_200_000,
+                guard_hz: 10_000,
+                hysteresis_hz: 1_000,
+                debounce: ms(300),
+            },
+            Band {
+                name: "30m".into(),
+                low_hz: 10_100_000,
+                high_hz: 10_150_000,
+                guard_hz: 0,
+                hysteresis_hz: 500,
+                debounce: ms(300),
+            },
+        ],
+        min_steps: 0,
+        max_steps: 12_000,
+        backlash_steps: 30,
+        approach: Approach::Up,
+        debounce: ms(500),
+        min_move_steps: 3,
+        inhibit_lead: ms(20),
+        inhibit_tail: ms(100),
+        candidate_dwell: ms(5_000),
+    }
+}
+
+fn core(position: Option<i64>) -> Follower {
+    Follower::new(policy(), Arc::new(Line), position)
+}
+
+fn drain(f: &mut Follower) -> Vec<Action> {
+    std::iter::from_fn(|| f.poll_action()).collect()
+}
+
+fn gotos(actions: &[Action]) -> Vec<i64> {
+    actions
+        .iter()
+        .filter_map(|a| match a {
+            Action::Goto { steps } => Some(*steps),
+            _ => None,
+        })
+        .collect()
+}
+
+/// Settles `hz` at `t` and runs past the debounce and the inhibit lead.
+fn settle(f: &mut Follower, t: u64, hz: u64) -> Vec<Action> {
+    f.handle_frequency(ms(t), hz);
+    f.handle_timeout(ms(t + 300));
+    f.handle_timeout(ms(t + 320));
+    f.handle_timeout(ms(t + 500));
+    drain(f)
+}
+
+#[test]
+fn knob_turning_moves_once_after_it_stops() {
+    let mut f = core(Some(10_000));
+    // A sweep: a new report every 100 ms for two seconds.
+    for i in 0..20u64 {
+        f.handle_frequency(ms(i * 100), 7_010_000 + i * 1_000);
+        f.handle_timeout(ms(i * 100 + 99));
+        assert!(gotos(&drain(&mut f)).is_empty(), "moved while turning");
+    }
+    // The last report (7 029 000) was at 1900 ms; it settles at 2200 ms.
+    assert_eq!(f.poll_timeout(), Some(ms(2_200)));
+    f.handle_timeout(ms(2_199));
+    assert!(drain(&mut f).is_empty());
+    f.handle_timeout(ms(2_200));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_timeout(ms(2_220));
+    assert_eq!(
+        drain(&mut f),
+        vec![
+            Action::Move {
+                from: 10_000,
+                to: 9_710,
+                hz: 7_029_000
+            },
+            Action::Goto { steps: 9_680 },
+        ]
+    );
+}
+
+#[test]
+fn repeated_reports_of_one_frequency_do_not_restart_the_debounce() {
+    let mut f = core(Some(10_000));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_frequency(ms(200), 7_050_000);
+    assert_eq!(f.poll_timeout(), Some(ms(300)));
+}
+
+#[test]
+fn inhibit_is_asserted_before_the_first_step_and_released_after_the_tail() {
+    let mut f = core(Some(9_000));
+    let a = settle(&mut f, 0, 7_050_000); // steps 9 500, upward: one leg
+    assert_eq!(a.first(), Some(&Action::Inhibit { on: true }));
+    assert_eq!(gotos(&a), vec![9_500]);
+    assert!(f.inhibit());
+    f.handle_arrived(ms(1_000), 9_500);
+    assert!(drain(&mut f).is_empty(), "released without the tail");
+    assert_eq!(f.poll_timeout(), Some(ms(1_100)));
+    f.handle_timeout(ms(1_100));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+    assert_eq!(f.stats().moves, 1);
+    assert_eq!(f.stats().steps, 500);
+}
+
+#[test]
+fn a_new_move_in_the_tail_keeps_the_inhibit_and_needs_no_lead() {
+    // The next report settles at 1 050 ms, inside the tail (1 000..1 100).
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_frequency(ms(750), 7_040_000);
+    f.handle_arrived(ms(1_000), 9_500);
+    f.handle_timeout(ms(1_050));
+    let a = drain(&mut f);
+    assert!(!a.contains(&Action::Inhibit { on: false }), "{a:?}");
+    assert_eq!(gotos(&a), vec![9_600]);
+    assert!(f.inhibit());
+}
+
+#[test]
+fn a_move_after_the_tail_asserts_the_inhibit_afresh() {
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_arrived(ms(1_000), 9_500);
+    f.handle_frequency(ms(1_010), 7_040_000);
+    f.handle_timeout(ms(1_100));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+    f.handle_timeout(ms(1_310));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_timeout(ms(1_330));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_600]);
+}
+
+#[test]
+fn dead_band_holds_small_changes() {
+    let mut p = policy();
+    p.min_move_steps = 20;
+    let mut f = Follower::new(p, Arc::new(Line), Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_arrived(ms(500), 9_500);
+    f.handle_timeout(ms(600));
+    drain(&mut f);
+    // 800 Hz away: inside the 1 000 Hz dead band.
+    let a = settle(&mut f, 1_000, 7_050_800);
+    assert_eq!(
+        a,
+        vec![Action::Hold {
+            hz: 7_050_800,
+            reason: HoldReason::DeadBand
+        }]
+    );
+    // 1 200 Hz away but only 12 steps from where the motor is (min 20).
+    let a = settle(&mut f, 2_000, 7_048_800);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(a.contains(&Action::Hold {
+        hz: 7_048_800,
+        reason: HoldReason::DeadBand
+    }));
+    // 5 000 Hz away: moves (downward, so by way of the overshoot).
+    let a = settle(&mut f, 3_000, 7_055_000);
+    assert_eq!(gotos(&a), vec![9_420]);
+}
+
+#[test]
+fn out_of_band_holds_and_never_moves() {
+    let mut f = core(Some(9_000));
+    // A broadcast station in the 41 m broadcast band.
+    let a = settle(&mut f, 0, 7_300_000);
+    assert_eq!(
+        a,
+        vec![Action::Hold {
+            hz: 7_300_000,
+            reason: HoldReason::OutOfBand
+        }]
+    );
+    // Reported again later: logged once, still no move.
+    let a = settle(&mut f, 2_000, 9_400_000);
+    assert!(gotos(&a).is_empty());
+    assert_eq!(f.stats().moves, 0);
+    assert!(!f.inhibit());
+}
+
+#[test]
+fn guard_margin_tunes_for_the_nearest_band_edge() {
+    let mut f = core(Some(9_000));
+    let a = settle(&mut f, 0, 6_995_000); // 5 kHz below 40 m
+    assert!(a.contains(&Action::Move {
+        from: 9_000,
+        to: 10_000,
+        hz: 6_995_000
+    }));
+    assert_eq!(f.tuned_hz(), Some(7_000_000));
+}
+
+#[test]
+fn targets_beyond_the_limits_are_clamped_and_reported() {
+    let mut p = policy();
+    p.max_steps = 9_800;
+    let mut f = Follower::new(p, Arc::new(Line), Some(9_000));
+    let a = settle(&mut f, 0, 7_001_000); // steps 9 990 > 9 800
+    assert!(a.contains(&Action::Hold {
+        hz: 7_001_000,
+        reason: HoldReason::Limit
+    }));
+    assert!(a.contains(&Action::Move {
+        from: 9_000,
+        to: 9_800,
+        hz: 7_001_000
+    }));
+    assert!(gotos(&a).iter().all(|s| (0..=9_800).contains(s)));
+}
+
+#[test]
+fn backlash_overshoots_when_coming_from_the_wrong_side() {
+    let mut f = core(Some(9_000));
+    let a = settle(&mut f, 0, 7_150_000); // 8 500: downward, approach up
+    assert!(a.contains(&Action::Move {
+        from: 9_000,
+        to: 8_500,
+        hz: 7_150_000
+    }));
+    assert_eq!(gotos(&a), vec![8_470]);
+    f.handle_arrived(ms(2_000), 8_470);
+    assert_eq!(drain(&mut f), vec![Action::Goto { steps: 8_500 }]);
+    f.handle_arrived(ms(2_100), 8_500);
+    f.handle_timeout(ms(2_200));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+    assert_eq!(f.stats().moves, 1);
+    assert_eq!(f.stats().steps, 530 + 30);
+}
+
+#[test]
+fn no_move_starts_while_transmitting() {
+    let mut f = core(Some(9_000));
+    f.handle_transmit(ms(0), true);
+    let a = settle(&mut f, 10, 7_050_000);
+    assert_eq!(
+        a,
+        vec![Action::Hold {
+            hz: 7_050_000,
+            reason: HoldReason::Transmitting
+        }]
+    );
+    assert!(!f.inhibit(), "inhibit asserted against a transmission");
+    f.handle_timeout(ms(60_000));
+    assert!(drain(&mut f).is_empty());
+    f.handle_transmit(ms(61_000), false);
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_timeout(ms(61_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+}
+
+#[test]
+fn transmit_during_the_inhibit_lead_stands_down() {
+    let mut f = core(Some(9_000));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_transmit(ms(310), true);
+    f.handle_timeout(ms(320));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty());
+    assert!(a.contains(&Action::Inhibit { on: false }));
+    f.handle_transmit(ms(5_000), false);
+    f.handle_timeout(ms(5_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+}
+
+#[test]
+fn transmit_during_a_move_stops_it_and_resumes_on_receive() {
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_150_000); // overshoot leg to 8 470 first
+    f.handle_transmit(ms(500), true);
+    let a = drain(&mut f);
+    assert_eq!(a.first(), Some(&Action::Stop));
+    f.handle_arrived(ms(510), 8_800);
+    f.handle_timeout(ms(700));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert_eq!(f.position(), Some(8_800));
+    f.handle_transmit(ms(3_000), false);
+    f.handle_timeout(ms(3_020));
+    let a = drain(&mut f);
+    assert!(a.contains(&Action::Move {
+        from: 8_800,
+        to: 8_500,
+        hz: 7_150_000
+    }));
+    assert_eq!(gotos(&a), vec![8_470]);
+}
+
+#[test]
+fn unknown_position_keeps_inhibit_and_holds_until_reported() {
+    let mut f = core(None);
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    let a = settle(&mut f, 0, 7_050_000);
+    assert_eq!(
+        a,
+        vec![Action::Hold {
+            hz: 7_050_000,
+            reason: HoldReason::PositionUnknown
+        }]
+    );
+    f.handle_arrived(ms(5_000), 9_100);
+    let a = drain(&mut f);
+    assert!(a.contains(&Action::Move {
+        from: 9_100,
+        to: 9_500,
+        hz: 7_050_000
+    }));
+    assert!(!a.contains(&Action::Inhibit { on: false }));
+}
+
+#[test]
+fn a_fault_holds_with_inhibit_until_the_position_is_known_again() {
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_fault(ms(400));
+    let a = drain(&mut f);
+    assert!(a.contains(&Action::Hold {
+        hz: 7_050_000,
+        reason: HoldReason::Fault
+    }));
+    assert!(f.inhibit());
+    assert_eq!(f.position(), None);
+    f.handle_timeout(ms(10_000));
+    assert!(drain(&mut f).is_empty(), "inhibit released during a fault");
+    f.handle_arrived(ms(11_000), 9_200);
+    f.handle_timeout(ms(11_100));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+    // Following resumes from the reported position.
+    let a = settle(&mut f, 12_000, 7_090_000);
+    assert!(a.contains(&Action::Move {
+        from: 9_200,
+        to: 9_100,
+        hz: 7_090_000
+    }));
+    assert_eq!(gotos(&a), vec![9_070]);
+}
+
+#[test]
+fn paused_core_starts_nothing_until_resumed() {
+    let mut f = core(Some(9_000));
+    f.handle_pause(ms(0), true);
+    let a = settle(&mut f, 10, 7_050_000);
+    assert!(a.contains(&Action::Hold {
+        hz: 7_050_000,
+        reason: HoldReason::Paused
+    }));
+    assert!(gotos(&a).is_empty());
+    f.handle_pause(ms(1_000), false);
+    f.handle_timeout(ms(1_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+}
+
+#[test]
+fn a_touch_up_that_stays_becomes_a_candidate_point() {
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_arrived(ms(1_000), 9_500);
+    f.handle_timeout(ms(1_100));
+    drain(&mut f);
+    f.handle_nudge(ms(2_000), 12);
+    f.handle_timeout(ms(2_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_512]);
+    f.handle_arrived(ms(2_100), 9_512);
+    assert_eq!(f.poll_timeout(), Some(ms(2_200)));
+    f.handle_timeout(ms(2_200));
+    drain(&mut f);
+    assert_eq!(f.poll_timeout(), Some(ms(7_100)));
+    f.handle_timeout(ms(7_100));
+    assert_eq!(
+        drain(&mut f),
+        vec![Action::Candidate {
+            hz: 7_050_000,
+            steps: 9_512,
+            profile: None
+        }]
+    );
+    // The same frequency reported again does not undo the touch-up.
+    f.handle_frequency(ms(8_000), 7_050_000);
+    f.handle_timeout(ms(9_000));
+    assert!(gotos(&drain(&mut f)).is_empty());
+}
+
+#[test]
+fn a_touch_up_abandoned_by_retuning_is_no_candidate() {
+    let mut f = core(Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    drain(&mut f);
+    f.handle_nudge(ms(1_000), -8);
+    f.handle_timeout(ms(1_020));
+    f.handle_arrived(ms(1_100), 9_462);
+    f.handle_arrived(ms(1_150), 9_492);
+    drain(&mut f);
+    let a = settle(&mut f, 2_000, 7_060_000);
+    assert_eq!(gotos(&a), vec![9_370]);
+    f.handle_arrived(ms(3_000), 9_370);
+    f.handle_arrived(ms(3_100), 9_400);
+    f.handle_timeout(ms(60_000));
+    let a = drain(&mut f);
+    assert!(
+        !a.iter().any(|x| matches!(x, Action::Candidate { .. })),
+        "{a:?}"
+    );
+}
+
+#[test]
+fn switching_calibration_retunes_the_current_frequency() {
+    struct Shifted;
+    impl StepMap for Shifted {
+        fn steps_at(&self, hz: f64) -> f64 {
+            Line.steps_at(hz) + 40.0
+        }
+    }
+    let mut f = core(Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    assert!(gotos(&drain(&mut f)).is_empty());
+    f.handle_calibration(ms(1_000), Some("wet".into()), Arc::new(Shifted));
+    f.handle_timeout(ms(1_020));
+    let a = drain(&mut f);
+    assert_eq!(gotos(&a), vec![9_540]);
+    assert_eq!(f.profile(), Some("wet"));
+}
+
+#[test]
+fn poll_timeout_is_the_earliest_deadline() {
+    let mut f = core(Some(9_000));
+    assert_eq!(f.poll_timeout(), None);
+    f.handle_frequency(ms(100), 7_050_000);
+    assert_eq!(f.poll_timeout(), Some(ms(400)));
+    f.handle_timeout(ms(400));
+    assert_eq!(f.poll_timeout(), Some(ms(420)));
+    f.handle_timeout(ms(420));
+    assert_eq!(f.poll_timeout(), None);
+}
+
+#[test]
+fn a_calibration_that_answers_nonsense_never_moves() {
+    struct Broken;
+    impl StepMap for Broken {
+        fn steps_at(&self, _hz: f64) -> f64 {
+            f64::NAN
+        }
+    }
+    let mut f = Follower::new(policy(), Arc::new(Broken), Some(9_000));
+    let a = settle(&mut f, 0, 7_050_000);
+    assert_eq!(
+        a,
+        vec![Action::Hold {
+            hz: 7_050_000,
+            reason: HoldReason::Calibration
+        }]
+    );
+}

@@ -1,0 +1,239 @@
+//! The virtual-time driver: feeds a capture through a decoder into the
+//! follow core and carries the core's actions out on a simulated tuner, as
+//! fast as the CPU allows.
+//!
+//! Time comes from the capture; between two records the driver jumps from
+//! one deadline to the next (the core's own, or the simulated tuner's
+//! arrival), so a day's capture replays in a moment and every decision
+//! happens at the virtual time it would have happened live.
+//!
+//! Besides driving, the replay keeps its own count of the safety rules (no
+//! `GOTO` while the rig transmits or without the inhibit, nothing outside the
+//! limits): an independent check on the core, reported as `violations`.
+
+use std::sync::Arc;
+use std::time::Duration;
+
+use crate::calibrate::StepMap;
+use crate::follow::{Action, Follower, Policy};
+use crate::rig::{Decode, Direction, RigEvent};
+use crate::timeline::{Entry, Summary, Timeline};
+use crate::tuner::sim::{SimParams, SimTuner};
+
+/// What a replay needs besides its input.
+pub struct ReplaySetup {
+    pub policy: Policy,
+    pub map: Arc<dyn StepMap>,
+    pub decoder: Box<dyn Decode>,
+    pub tuner: SimParams,
+    /// Where the motor starts; `None` = unknown (nothing will move).
+    pub start_steps: Option<i64>,
+}
+
+/// One chunk of bytes on the rig port, at a time since any origin.
+#[derive(Debug, Clone)]
+pub struct Chunk<'a> {
+    pub t: Duration,
+    pub dir: Direction,
+    pub bytes: &'a [u8],
+}
+
+/// Drives one replay. Feed it chunks in time order with [`Replay::feed`],
+/// then call [`Replay::finish`].
+pub struct Replay<'t> {
+    core: Follower,
+    decoder: Box<dyn Decode>,
+    tuner: SimTuner,
+    /// When the simulated tuner will report that it is at rest.
+    arrival: Option<Duration>,
+    timeline: &'t mut dyn Timeline,
+    origin: Option<Duration>,
+    now: Duration,
+    events: Vec<RigEvent>,
+    summary: Summary,
+    inhibit: bool,
+    transmitting: bool,
+    transmit_since: Option<Duration>,
+}
+
+impl<'t> Replay<'t> {
+    pub fn new(setup: ReplaySetup, timeline: &'t mut dyn Timeline) -> Self {
+        let start = setup.start_steps;
+        let tuner = SimTuner::new(setup.tuner, start.unwrap_or(setup.policy.min_steps));
+        Replay {
+            core: Follower::new(setup.policy, setup.map, start),
+            decoder: setup.decoder,
+            tuner,
+            arrival: None,
+            timeline,
+            origin: None,
+            now: Duration::ZERO,
+            events: Vec::with_capacity(16),
+            summary: Summary::default(),
+            inhibit: false,
+            transmitting: false,
+            transmit_since: None,
+        }
+    }
+
+    /// The next chunk of the capture. Times before the previous chunk's are
+    /// taken as equal to it (the capture reader refuses them anyway).
+    pub fn feed(&mut self, chunk: Chunk<'_>) -> std::io::Result<()> {
+        let origin = *self.origin.get_or_insert(chunk.t);
+        let t = chunk.t.saturating_sub(origin).max(self.now);
+        self.advance_to(t)?;
+        self.now = t;
+        let mut events = std::mem::take(&mut self.events);
+        events.clear();
+        self.decoder.feed(chunk.dir, chunk.bytes, &mut events);
+        for ev in &events {
+            self.rig_event(*ev)?;
+        }
+        self.events = events;
+        self.apply_actions()
+    }
+
+    /// Runs out every deadline still pending (a settling frequency, a move,
+    /// the inhibit tail), writes the summary and returns it.
+    pub fn finish(mut self) -> std::io::Result<Summary> {
+        // Every pending deadline is finite: debounce, lead, travel, tail,
+        // candidate dwell. Bound the loop all the same.
+        for _ in 0..10_000 {
+            let Some(next) = self.next_deadline() else {
+                break;
+            };
+            self.advance_to(next)?;
+        }
+        if let Some(since) = self.transmit_since.take() {
+            self.summary.transmit_s += (self.now.saturating_sub(since)).as_secs_f64();
+        }
+        let stats = self.core.stats();
+        self.summary.moves = stats.moves;
+        self.summary.steps = self.tuner.travelled();
+        let summary = self.summary.clone();
+        self.timeline
+            .entry(self.now, &Entry::Summary(summary.clone()))?;
+        Ok(summary)
+    }
+
+    /// The core, for inspection.
+    pub fn core(&self) -> &Follower {
+        &self.core
+    }
+
+    fn next_deadline(&self) -> Option<Duration> {
+        [self.core.poll_timeout(), self.arrival]
+            .into_iter()
+            .flatten()
+            .min()
+    }
+
+    /// Handles every deadline up to and including `t`, in time order.
+    fn advance_to(&mut self, t: Duration) -> std::io::Result<()> {
+        while let Some(next) = self.next_deadline().filter(|n| *n <= t) {
+            self.now = next.max(self.now);
+            if self.arrival.is_some_and(|a| a <= next) {
+                self.arrival = None;
+                let steps = self.tuner.position_at(self.now);
+                self.core.handle_arrived(self.now, steps);
+                // A backlash overshoot is internal: only a motor that stays at
+                // rest is reported as arrived.
+                if self.arrival_is_final() {
+                    self.timeline.entry(self.now, &Entry::Arrive { steps })?;
+                }
+            } else {
+                self.core.handle_timeout(self.now);
+            }
+            self.apply_actions()?;
+        }
+        Ok(())
+    }
+
+    fn arrival_is_final(&self) -> bool {
+        !self.core.is_moving()
+    }
+
+    fn rig_event(&mut self, ev: RigEvent) -> std::io::Result<()> {
+        let now = self.now;
+        match ev {
+            RigEvent::Frequency { hz } => {
+                self.summary.frames += 1;
+                self.timeline.entry(now, &Entry::Frequency { hz })?;
+                self.core.handle_frequency(now, hz);
+            }
+            RigEvent::Transmit { on } => {
+                self.summary.frames += 1;
+                self.timeline.entry(now, &Entry::Transmit { on })?;
+                if on != self.transmitting {
+                    self.transmitting = on;
+                    if on {
+                        self.transmit_since = Some(now);
+                    } else if let Some(since) = self.transmit_since.take() {
+                        self.summary.transmit_s += now.saturating_sub(since).as_secs_f64();
+                    }
+                }
+                self.core.handle_transmit(now, on);
+            }
+            RigEvent::Reject { reason, bytes } => {
+                self.summary.rejected += 1;
+                *self.summary.rejects.entry(reason.as_str()).or_default() += 1;
+                self.timeline.entry(
+                    now,
+                    &Entry::Reject {
+                        reason: reason.as_str(),
+                        bytes,
+                    },
+                )?;
+            }
+        }
+        self.apply_actions()
+    }
+
+    fn apply_actions(&mut self) -> std::io::Result<()> {
+        while let Some(action) = self.core.poll_action() {
+            let now = self.now;
+            match action {
+                Action::Inhibit { on } => {
+                    if !on && self.arrival.is_some() {
+                        self.summary.violations += 1;
+                    }
+                    self.inhibit = on;
+                    self.timeline.entry(now, &Entry::Inhibit { on })?;
+                }
+                Action::Hold { hz, reason } => {
+                    *self.summary.holds.entry(reason.as_str()).or_default() += 1;
+                    self.timeline.entry(
+                        now,
+                        &Entry::Hold {
+                            hz,
+                            reason: reason.as_str(),
+                        },
+                    )?;
+                }
+                Action::Move { from, to, hz } => {
+                    self.timeline.entry(now, &Entry::Move { from, to, hz })?;
+                }
+                Action::Goto { steps } => {
+                    let p = self.core.policy();
+                    if !self.inhibit
+                        || self.transmitting
+                        || !(p.min_steps..=p.max_steps).contains(&steps)
+                    {
+                        self.summary.violations += 1;
+                    }
+                    self.arrival = Some(self.tuner.goto(now, steps));
+                }
+                Action::Stop => {
+                    self.tuner.stop(now);
+                    self.arrival = Some(now + Duration::from_millis(self.tuner.params().settle_ms));
+                    self.timeline.entry(now, &Entry::Stop)?;
+                }
+                Action::Candidate { hz, steps, profile } => {
+                    self.timeline
+                        .entry(now, &Entry::Candidate { hz, steps, profile })?;
+                }
+            }
+        }
+        Ok(())
+    }
+}

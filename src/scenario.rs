@@ -1,0 +1,471 @@
+//! Invented station scenarios: what an operator does over an evening (dwell,
+//! turn the knob, transmit, change band, listen to a broadcast station), and
+//! the bytes the rig would put on its control port meanwhile, line noise
+//! included. Used by the demo, the tests and the benchmarks; never a source of
+//! truth about the world.
+
+use std::time::Duration;
+
+use crate::rig::Direction;
+
+/// Something the rig reports, or noise on the line.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Happening {
+    /// The rig reports its frequency.
+    Report { hz: u64 },
+    /// The rig reports transmit on or off.
+    Transmit { on: bool },
+    /// Bytes that are not a report: RF on the cable, a half frame.
+    Noise { bytes: Vec<u8> },
+}
+
+/// How a rig family puts a report on the wire.
+pub trait Wire {
+    fn frequency(&self, hz: u64) -> Vec<u8>;
+    fn transmit(&self, on: bool) -> Vec<u8>;
+}
+
+/// A span of time the operator stayed on one frequency.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Dwell {
+    pub hz: u64,
+    pub from: Duration,
+    pub to: Duration,
+}
+
+/// A scenario being written, step by step, in virtual time.
+#[derive(Debug, Clone)]
+pub struct Script {
+    now: Duration,
+    hz: u64,
+    rng: fastrand::Rng,
+    steps: Vec<(Duration, Happening)>,
+    dwells: Vec<Dwell>,
+    transmit: Vec<(Duration, Duration)>,
+    /// While set, the rig repeats its frequency this often (a rig that is
+    /// polled, or one that announces periodically).
+    repeat: Option<Duration>,
+    dwell_start: Duration,
+}
+
+impl Script {
+    /// A scenario starting at time zero on `hz`; `seed` makes noise and
+    /// jitter repeatable.
+    pub fn new(seed: u64, hz: u64) -> Self {
+        let mut s = Script {
+            now: Duration::ZERO,
+            hz,
+            rng: fastrand::Rng::with_seed(seed),
+            steps: Vec::new(),
+            dwells: Vec::new(),
+            transmit: Vec::new(),
+            repeat: None,
+            dwell_start: Duration::ZERO,
+        };
+        s.push(Happening::Report { hz });
+        s
+    }
+
+    /// Have the rig repeat its frequency every `every` while nothing else
+    /// happens (`None`: it speaks only on change).
+    pub fn repeat_every(&mut self, every: Option<Duration>) -> &mut Self {
+        self.repeat = every;
+        self
+    }
+
+    pub fn now(&self) -> Duration {
+        self.now
+    }
+
+    pub fn hz(&self) -> u64 {
+        self.hz
+    }
+
+    fn push(&mut self, what: Happening) {
+        self.steps.push((self.now, what));
+    }
+
+    /// Lets `d` pass on the current frequency, with repeats if enabled.
+    pub fn wait(&mut self, d: Duration) -> &mut Self {
+        let end = self.now + d;
+        if let Some(every) = self.repeat.filter(|e| !e.is_zero()) {
+            while self.now + every < end {
+                self.now += every;
+                let hz = self.hz;
+                self.push(Happening::Report { hz });
+            }
+        }
+        self.now = end;
+        self
+    }
+
+    fn close_dwell(&mut self) {
+        if self.now > self.dwell_start {
+            self.dwells.push(Dwell {
+                hz: self.hz,
+                from: self.dwell_start,
+                to: self.now,
+            });
+        }
+    }
+
+    /// Turns the knob to `to_hz` in steps of `step_hz`, one report every
+    /// `every` (as a rig reports while its VFO turns).
+    pub fn sweep(&mut self, to_hz: u64, step_hz: u64, every: Duration) -> &mut Self {
+        self.close_dwell();
+        let step = step_hz.max(1);
+        while self.hz != to_hz {
+            self.now += every;
+            self.hz = if to_hz > self.hz {
+                (self.hz + step).min(to_hz)
+            } else {
+                self.hz.saturating_sub(step).max(to_hz)
+            };
+            let hz = self.hz;
+            self.push(Happening::Report { hz });
+        }
+        self.dwell_start = self.now;
+        self
+    }
+
+    /// Jumps to `hz` at once (a band change, a memory recall).
+    pub fn jump(&mut self, hz: u64) -> &mut Self {
+        self.close_dwell();
+        self.now += Duration::from_millis(50);
+        self.hz = hz;
+        self.push(Happening::Report { hz });
+        self.dwell_start = self.now;
+        self
+    }
+
+    /// `times` overs of `on` transmitting and `off` receiving.
+    pub fn overs(&mut self, times: u32, on: Duration, off: Duration) -> &mut Self {
+        for _ in 0..times {
+            let start = self.now;
+            self.push(Happening::Transmit { on: true });
+            self.wait(on);
+            self.push(Happening::Transmit { on: false });
+            self.transmit.push((start, self.now));
+            self.wait(off);
+        }
+        self
+    }
+
+    /// A burst of `len` random bytes on the line.
+    pub fn noise(&mut self, len: usize) -> &mut Self {
+        let bytes: Vec<u8> = (0..len).map(|_| self.rng.u8(..)).collect();
+        self.push(Happening::Noise { bytes });
+        self
+    }
+
+    /// Specific bytes on the line (a frame cut short, a doubled preamble).
+    pub fn raw(&mut self, bytes: &[u8]) -> &mut Self {
+        self.push(Happening::Noise {
+            bytes: bytes.to_vec(),
+        });
+        self
+    }
+
+    /// A random whole number in `range`, from the scenario's seed.
+    pub fn pick(&mut self, range: std::ops::RangeInclusive<u64>) -> u64 {
+        self.rng.u64(range)
+    }
+
+    /// Ends the scenario: the steps in time order, the dwells, and the
+    /// transmissions.
+    pub fn finish(mut self) -> Scenario {
+        self.close_dwell();
+        Scenario {
+            steps: self.steps,
+            dwells: self.dwells,
+            transmit: self.transmit,
+            end: self.now,
+        }
+    }
+}
+
+/// A finished scenario.
+#[derive(Debug, Clone)]
+pub struct Scenario {
+    pub steps: Vec<(Duration, Happening)>,
+    /// Where the operator stayed, and how long.
+    pub dwells: Vec<Dwell>,
+    /// Spans the rig was transmitting.
+    pub transmit: Vec<(Duration, Duration)>,
+    pub end: Duration,
+}
+
+impl Scenario {
+    /// The bytes on the rig port, in time order, as a rig of `wire`'s family
+    /// would send them.
+    pub fn chunks(&self, wire: &dyn Wire) -> Vec<(Duration, Direction, Vec<u8>)> {
+        self.steps
+            .iter()
+            .map(|(t, what)| {
+                let bytes = match what {
+                    Happening::Report { hz } => wire.frequency(*hz),
+                    Happening::Transmit { on } => wire.transmit(*on),
+                    Happening::Noise { bytes } => bytes.clone(),
+                };
+                (*t, Direction::Rx, bytes)
+            })
+            .collect()
+    }
+}
+
+/// The demo's evening: most of an hour on 40 m, 30 m and 20 m, with knob
+/// sweeps, transmissions, noise on the line and a visit to a broadcast
+/// station outside the amateur bands. Invented for the demo.
+pub fn demo_evening() -> Scenario {
+    let s = &mut Script::new(7, 7_074_000);
+    let sec = Duration::from_secs;
+    let ms = Duration::from_millis;
+    // 40 m: a digital-mode evening starts with 15-second overs.
+    s.wait(sec(90)).overs(6, sec(13), sec(17));
+    // Turn the knob up the band, listening, and settle on a voice net.
+    s.sweep(7_152_000, 500, ms(60)).wait(sec(30));
+    s.overs(3, sec(40), sec(55));
+    // RF gets into the cable during a long over: garbage on the line.
+    s.overs(1, sec(5), ms(10)).noise(24).wait(sec(1)).noise(7);
+    s.wait(sec(120));
+    // A small retune inside the loop's window: the tuner should stay.
+    s.sweep(7_153_000, 100, ms(80)).wait(sec(60));
+    // Out of the band: the evening news on a broadcast station.
+    s.jump(9_650_000).wait(sec(600));
+    // 30 m: a quick jump, then a sweep down past the band edge into the guard.
+    s.jump(10_136_000).wait(sec(30)).overs(4, sec(13), sec(17));
+    s.sweep(10_098_000, 1_000, ms(50)).wait(sec(20));
+    // A frame cut short, then a doubled preamble and a partial frame.
+    s.raw(&[0xFE, 0xFE, 0x00])
+        .wait(ms(300))
+        .raw(&[0xFE, 0xFE, 0xFE]);
+    s.wait(sec(60));
+    // 20 m: a contest-style run, many short overs, then a long sweep.
+    s.jump(14_250_000).wait(sec(20)).overs(10, sec(4), sec(8));
+    s.sweep(14_020_000, 2_000, ms(40))
+        .wait(sec(40))
+        .overs(3, sec(20), sec(25));
+    // Back to 40 m to close the evening.
+    s.jump(7_074_000)
+        .wait(sec(30))
+        .overs(4, sec(13), sec(17))
+        .wait(sec(60));
+    s.clone().finish()
+}
+
+/// Broadcast bands outside the amateur allocations, where an operator may
+/// listen (and where the tuner must stay put). Edges recalled from the
+/// shortwave broadcast allocations; only used to place invented excursions.
+const BROADCAST_HZ: [(u64, u64); 3] = [
+    (5_900_000, 6_200_000),
+    (9_400_000, 9_900_000),
+    (11_600_000, 12_100_000),
+];
+
+/// A random evening of `hours` at a station operating in `bands` (low, high
+/// in Hz): dwells with digital-mode or voice overs, small retunes, knob
+/// sweeps, band changes, visits to broadcast stations and line noise. The
+/// same seed gives the same evening.
+pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
+    let mut rng = fastrand::Rng::with_seed(seed ^ 0x5eed);
+    let start = rng.u64(first.0..=first.1);
+    let s = &mut Script::new(seed, start);
+    let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
+    let ms = Duration::from_millis;
+    let sec = Duration::from_secs;
+    let mut band = first;
+    while s.now() < end {
+        match rng.u32(0..100) {
+            // Stay and operate: digital-mode cycles or voice overs.
+            0..=39 => {
+                s.wait(sec(rng.u64(5..=60)));
+                if rng.bool() {
+                    let n = rng.u32(1..=8);
+                    s.overs(n, sec(13), sec(17));
+                } else {
+                    for _ in 0..rng.u32(1..=4) {
+                        let on = ms(rng.u64(5_000..=90_000));
+                        let off = ms(rng.u64(3_000..=60_000));
+                        s.overs(1, on, off);
+                        if rng.u32(0..10) == 0 {
+                            // RF into the cable during the over.
+                            let n = rng.usize(1..=48);
+                            s.noise(n);
+                        }
+                    }
+                }
+            }
+            // A small retune, a few hundred Hz to a few kHz.
+            40..=59 => {
+                let delta = rng.u64(100..=3_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                s.wait(sec(rng.u64(10..=120)));
+            }
+            // Tune across the band looking for a contact.
+            60..=74 => {
+                let to = rng.u64(band.0..=band.1);
+                s.sweep(to, rng.u64(200..=2_000), ms(rng.u64(20..=100)));
+                s.wait(sec(rng.u64(5..=90)));
+            }
+            // Change band.
+            75..=86 => {
+                if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
+                    band = *b;
+                    let hz = rng.u64(b.0..=b.1);
+                    s.jump(hz).wait(sec(rng.u64(5..=60)));
+                }
+            }
+            // Listen to a broadcast station, then come back.
+            87..=91 => {
+                let bc = BROADCAST_HZ[rng.usize(0..BROADCAST_HZ.len())];
+                let back = s.hz();
+                s.jump(rng.u64(bc.0..=bc.1)).wait(sec(rng.u64(60..=900)));
+                s.jump(back).wait(sec(rng.u64(5..=30)));
+            }
+            // Noise on the line.
+            _ => {
+                let n = rng.usize(1..=64);
+                s.noise(n).wait(ms(rng.u64(100..=5_000)));
+            }
+        }
+    }
+    s.clone().finish()
+}
+
+/// The fewest repositionings that keep every dwell inside the loop's window,
+/// knowing the whole evening in advance: consecutive dwells share one tuning
+/// while their frequencies fit inside one window (greedy interval stabbing,
+/// which is optimal for intervals taken in order). `window_hz(hz)` is the
+/// width of the window around `hz`; `None` means the frequency is not
+/// followed (outside the bands) and places no constraint.
+pub fn fewest_moves(dwells: &[Dwell], window_hz: impl Fn(u64) -> Option<f64>) -> u64 {
+    let mut moves = 0;
+    // The band of tuned frequencies still acceptable to the current group.
+    let mut group: Option<(f64, f64)> = None;
+    for d in dwells {
+        let Some(w) = window_hz(d.hz) else { continue };
+        let (lo, hi) = (d.hz as f64 - w / 2.0, d.hz as f64 + w / 2.0);
+        group = match group {
+            Some((glo, ghi)) if lo.max(glo) <= hi.min(ghi) => Some((lo.max(glo), hi.min(ghi))),
+            _ => {
+                moves += 1;
+                Some((lo, hi))
+            }
+        };
+    }
+    moves
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    struct Plain;
+    impl Wire for Plain {
+        fn frequency(&self, hz: u64) -> Vec<u8> {
+            format!("F{hz};").into_bytes()
+        }
+        fn transmit(&self, on: bool) -> Vec<u8> {
+            if on {
+                b"T;".to_vec()
+            } else {
+                b"R;".to_vec()
+            }
+        }
+    }
+
+    #[test]
+    fn sweep_reports_every_step_and_records_dwells() {
+        let s = &mut Script::new(1, 7_000_000);
+        s.wait(Duration::from_secs(10));
+        s.sweep(7_002_000, 500, Duration::from_millis(100));
+        s.wait(Duration::from_secs(5));
+        let sc = s.clone().finish();
+        let reports: Vec<u64> = sc
+            .steps
+            .iter()
+            .filter_map(|(_, h)| match h {
+                Happening::Report { hz } => Some(*hz),
+                _ => None,
+            })
+            .collect();
+        assert_eq!(
+            reports,
+            vec![7_000_000, 7_000_500, 7_001_000, 7_001_500, 7_002_000]
+        );
+        assert_eq!(sc.dwells.len(), 2);
+        assert_eq!(sc.dwells[0].to, Duration::from_secs(10));
+        assert_eq!(sc.dwells[1].hz, 7_002_000);
+        assert_eq!(sc.end, Duration::from_millis(15_400));
+    }
+
+    #[test]
+    fn overs_record_transmit_spans_and_chunks_are_in_time_order() {
+        let s = &mut Script::new(1, 14_000_000);
+        s.repeat_every(Some(Duration::from_secs(1)));
+        s.overs(2, Duration::from_secs(3), Duration::from_secs(2));
+        let sc = s.clone().finish();
+        assert_eq!(
+            sc.transmit,
+            vec![
+                (Duration::ZERO, Duration::from_secs(3)),
+                (Duration::from_secs(5), Duration::from_secs(8))
+            ]
+        );
+        let chunks = sc.chunks(&Plain);
+        assert!(chunks.windows(2).all(|w| w[0].0 <= w[1].0));
+        assert_eq!(chunks[1].2, b"T;");
+    }
+
+    #[test]
+    fn random_evenings_are_repeatable_and_stay_in_time_order() {
+        let bands = [(7_000_000, 7_200_000), (14_000_000, 14_350_000)];
+        let a = random_evening(3, 2.0, &bands);
+        let b = random_evening(3, 2.0, &bands);
+        assert_eq!(a.steps, b.steps);
+        assert!(a.steps.windows(2).all(|w| w[0].0 <= w[1].0));
+        assert!(a.end >= Duration::from_secs(7_200));
+        assert!(!a.transmit.is_empty());
+        let c = random_evening(4, 2.0, &bands);
+        assert_ne!(a.steps, c.steps);
+    }
+
+    #[test]
+    fn fewest_moves_groups_dwells_that_share_a_window() {
+        let d = |hz: u64| Dwell {
+            hz,
+            from: Duration::ZERO,
+            to: Duration::ZERO,
+        };
+        // Window 10 kHz wide: 7.100, 7.104, 7.108 fit in one (7.103..7.105),
+        // 7.120 needs a second, 9.6 MHz is not followed.
+        let dwells = [
+            d(7_100_000),
+            d(7_104_000),
+            d(7_108_000),
+            d(9_600_000),
+            d(7_120_000),
+            d(7_121_000),
+        ];
+        let window = |hz: u64| (hz < 8_000_000).then_some(10_000.0);
+        assert_eq!(fewest_moves(&dwells, window), 2);
+        // A 5 kHz window that also follows 9.6 MHz: {7.100, 7.104},
+        // {7.108}, {9.6}, {7.120, 7.121}.
+        assert_eq!(fewest_moves(&dwells, |_| Some(5_000.0)), 4);
+    }
+
+    #[test]
+    fn demo_evening_is_repeatable() {
+        let a = demo_evening();
+        let b = demo_evening();
+        assert_eq!(a.steps, b.steps);
+        assert!(a.end > Duration::from_secs(1_800), "{:?}", a.end);
+    }
+}
