@@ -1,0 +1,355 @@
+//! The rig's serial control port, watched by one tokio task.
+//!
+//! The task opens the port by path (a stable `/dev/serial/by-id/...` symlink
+//! is best: it is re-resolved on every reconnect, so a rig that comes back
+//! under a new device name is found again), reads chunks as they come and
+//! forwards them, with the direction and the time they arrived, as
+//! [`LinkEvent::Bytes`]. A read error or an unplugged cable is a
+//! [`LinkEvent::Down`]; the task retries with a backoff that doubles up to a
+//! cap (about 2 s) and reports [`LinkEvent::Up`] when the port is back.
+//! Each change of state is logged once.
+//!
+//! For rigs that only answer when asked, the task can poll: it writes a
+//! query every `every`, and while no answer comes it stretches the interval
+//! (doubling up to `max_every`) so that a switched-off rig is not hammered.
+//! The query bytes are forwarded too (as [`Direction::Tx`]), so the decoder
+//! sees the conversation as it happened on the wire.
+
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use bytes::{Bytes, BytesMut};
+use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::sync::{mpsc, watch};
+use tokio::task::JoinHandle;
+use tokio::time::Instant;
+pub use tokio_serial::{DataBits, FlowControl, Parity, StopBits};
+
+use super::Direction;
+
+/// How to open the port.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PortSettings {
+    pub path: PathBuf,
+    pub baud: u32,
+    pub data_bits: DataBits,
+    pub parity: Parity,
+    pub stop_bits: StopBits,
+    pub flow: FlowControl,
+}
+
+impl PortSettings {
+    /// 8 data bits, no parity, one stop bit, no flow control.
+    pub fn new(path: impl Into<PathBuf>, baud: u32) -> PortSettings {
+        PortSettings {
+            path: path.into(),
+            baud,
+            data_bits: DataBits::Eight,
+            parity: Parity::None,
+            stop_bits: StopBits::One,
+            flow: FlowControl::None,
+        }
+    }
+}
+
+/// Opens the port at `settings.path`, resolving a symlink first. Returns the
+/// stream and the device it resolved to.
+pub fn open_port(settings: &PortSettings) -> Result<(tokio_serial::SerialStream, PathBuf), String> {
+    let device = std::fs::canonicalize(&settings.path)
+        .map_err(|e| format!("cannot resolve {}: {e}", settings.path.display()))?;
+    let builder = tokio_serial::new(device.to_string_lossy(), settings.baud)
+        .data_bits(settings.data_bits)
+        .parity(settings.parity)
+        .stop_bits(settings.stop_bits)
+        .flow_control(settings.flow);
+    let stream = tokio_serial::SerialStream::open(&builder).map_err(|e| {
+        format!(
+            "cannot open {} ({}): {e}",
+            settings.path.display(),
+            device.display()
+        )
+    })?;
+    Ok((stream, device))
+}
+
+/// What the link reports.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum LinkEvent {
+    /// The port is open; `device` is what its path resolved to.
+    Up { device: PathBuf },
+    /// The port is gone or failed; the task is retrying.
+    Down { reason: String },
+    /// Bytes seen on the wire, in order.
+    Bytes {
+        dir: Direction,
+        bytes: Bytes,
+        at: Instant,
+    },
+}
+
+/// Polling for rigs that do not report on their own.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct PollConfig {
+    /// Bytes to send (a frequency query in the rig's dialect).
+    pub query: Vec<u8>,
+    /// Interval while the rig answers.
+    pub every: Duration,
+    /// Longest interval while it does not.
+    pub max_every: Duration,
+}
+
+/// The link task's settings.
+#[derive(Debug, Clone)]
+pub struct LinkConfig {
+    pub port: PortSettings,
+    pub poll: Option<PollConfig>,
+    /// Longest wait between reopening attempts.
+    pub backoff_cap: Duration,
+}
+
+impl LinkConfig {
+    pub fn new(port: PortSettings) -> LinkConfig {
+        LinkConfig {
+            port,
+            poll: None,
+            backoff_cap: Duration::from_secs(2),
+        }
+    }
+}
+
+/// Reports link state changes once each, and logs them.
+#[derive(Debug, Default)]
+pub(crate) struct Transitions {
+    up: Option<bool>,
+}
+
+impl Transitions {
+    /// `Some(event)` if this is a change of state.
+    pub(crate) fn up(&mut self, what: &str, device: &Path) -> Option<LinkEvent> {
+        if self.up == Some(true) {
+            return None;
+        }
+        self.up = Some(true);
+        tracing::info!(port = what, device = %device.display(), "rig port up");
+        Some(LinkEvent::Up {
+            device: device.to_path_buf(),
+        })
+    }
+
+    pub(crate) fn down(&mut self, what: &str, reason: &str) -> Option<LinkEvent> {
+        if self.up == Some(false) {
+            tracing::debug!(port = what, %reason, "rig port still down");
+            return None;
+        }
+        self.up = Some(false);
+        tracing::warn!(port = what, %reason, "rig port down; retrying");
+        Some(LinkEvent::Down {
+            reason: reason.to_string(),
+        })
+    }
+}
+
+/// Starts the link task. It ends when `shutdown` becomes true or the event
+/// receiver is dropped.
+pub fn spawn(
+    config: LinkConfig,
+    events: mpsc::Sender<LinkEvent>,
+    shutdown: watch::Receiver<bool>,
+) -> JoinHandle<()> {
+    tokio::spawn(run(config, events, shutdown))
+}
+
+async fn run(
+    config: LinkConfig,
+    events: mpsc::Sender<LinkEvent>,
+    mut shutdown: watch::Receiver<bool>,
+) {
+    let name = config.port.path.display().to_string();
+    let mut state = Transitions::default();
+    let mut backoff = Duration::from_millis(100);
+    loop {
+        let reason = match open_port(&config.port) {
+            Ok((stream, device)) => {
+                backoff = Duration::from_millis(100);
+                if let Some(ev) = state.up(&name, &device) {
+                    if events.send(ev).await.is_err() {
+                        return;
+                    }
+                }
+                match session(&config, stream, &events, &mut shutdown).await {
+                    Ok(()) => return,
+                    Err(reason) => reason,
+                }
+            }
+            Err(reason) => reason,
+        };
+        if let Some(ev) = state.down(&name, &reason) {
+            if events.send(ev).await.is_err() {
+                return;
+            }
+        }
+        tokio::select! {
+            _ = tokio::time::sleep(backoff) => {}
+            _ = wait_true(&mut shutdown) => return,
+        }
+        backoff = (backoff * 2).min(config.backoff_cap);
+    }
+}
+
+/// Reads (and polls) until the port fails (`Err(reason)`) or shutdown
+/// (`Ok`).
+async fn session(
+    config: &LinkConfig,
+    mut stream: tokio_serial::SerialStream,
+    events: &mpsc::Sender<LinkEvent>,
+    shutdown: &mut watch::Receiver<bool>,
+) -> Result<(), String> {
+    let mut buf = BytesMut::with_capacity(1024);
+    let mut poll = config.poll.as_ref().map(|p| Poller::new(p.clone()));
+    loop {
+        let next_poll = poll.as_ref().map(|p| p.due);
+        tokio::select! {
+            _ = wait_true(shutdown) => return Ok(()),
+            r = stream.read_buf(&mut buf) => {
+                match r {
+                    Ok(0) => return Err("port closed (end of file)".to_string()),
+                    Ok(_) => {
+                        let at = Instant::now();
+                        if let Some(p) = poll.as_mut() {
+                            p.answered();
+                        }
+                        let bytes = buf.split().freeze();
+                        if events.send(LinkEvent::Bytes { dir: Direction::Rx, bytes, at }).await.is_err() {
+                            return Ok(());
+                        }
+                        if buf.capacity() < 256 {
+                            buf.reserve(1024);
+                        }
+                    }
+                    Err(e) => return Err(format!("read error: {e}")),
+                }
+            }
+            _ = sleep_until_opt(next_poll) => {
+                if let Some(p) = poll.as_mut() {
+                    let query = p.fire(Instant::now());
+                    write_all_timeout(&mut stream, &query).await?;
+                    let ev = LinkEvent::Bytes { dir: Direction::Tx, bytes: Bytes::from(query), at: Instant::now() };
+                    if events.send(ev).await.is_err() {
+                        return Ok(());
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Writes, giving up after a second (a port stuck in hardware flow control
+/// must not hang the task).
+pub(crate) async fn write_all_timeout(
+    stream: &mut tokio_serial::SerialStream,
+    bytes: &[u8],
+) -> Result<(), String> {
+    match tokio::time::timeout(Duration::from_secs(1), async {
+        stream.write_all(bytes).await?;
+        stream.flush().await
+    })
+    .await
+    {
+        Ok(Ok(())) => Ok(()),
+        Ok(Err(e)) => Err(format!("write error: {e}")),
+        Err(_) => Err("write did not complete within 1 s (flow control?)".to_string()),
+    }
+}
+
+/// When to send the next query, stretching the interval while unanswered.
+#[derive(Debug, Clone)]
+pub(crate) struct Poller {
+    config: PollConfig,
+    interval: Duration,
+    pub(crate) due: Instant,
+    answered: bool,
+}
+
+impl Poller {
+    pub(crate) fn new(config: PollConfig) -> Poller {
+        Poller {
+            interval: config.every,
+            due: Instant::now(),
+            answered: true,
+            config,
+        }
+    }
+
+    /// The rig said something.
+    pub(crate) fn answered(&mut self) {
+        self.answered = true;
+    }
+
+    /// A query is being sent at `now`: returns it and plans the next one.
+    pub(crate) fn fire(&mut self, now: Instant) -> Vec<u8> {
+        self.interval = if self.answered {
+            self.config.every
+        } else {
+            (self.interval * 2).min(self.config.max_every.max(self.config.every))
+        };
+        self.answered = false;
+        self.due = now + self.interval;
+        self.config.query.clone()
+    }
+}
+
+pub(crate) async fn sleep_until_opt(deadline: Option<Instant>) {
+    match deadline {
+        Some(d) => tokio::time::sleep_until(d).await,
+        None => std::future::pending().await,
+    }
+}
+
+/// Returns once the flag is true or its sender is gone.
+pub(crate) async fn wait_true(flag: &mut watch::Receiver<bool>) {
+    loop {
+        if *flag.borrow_and_update() {
+            return;
+        }
+        if flag.changed().await.is_err() {
+            return;
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn poller_stretches_while_unanswered_and_resets_on_an_answer() {
+        let t0 = Instant::now();
+        let mut p = Poller::new(PollConfig {
+            query: b"Q;".to_vec(),
+            every: Duration::from_millis(100),
+            max_every: Duration::from_millis(500),
+        });
+        let mut gaps = Vec::new();
+        let mut now = t0;
+        for _ in 0..5 {
+            assert_eq!(p.fire(now), b"Q;");
+            gaps.push(p.due - now);
+            now = p.due;
+        }
+        let ms: Vec<u128> = gaps.iter().map(|g| g.as_millis()).collect();
+        assert_eq!(ms, vec![100, 200, 400, 500, 500]);
+        p.answered();
+        p.fire(now);
+        assert_eq!(p.due - now, Duration::from_millis(100));
+    }
+
+    #[test]
+    fn transitions_are_reported_once() {
+        let mut t = Transitions::default();
+        assert!(t.down("p", "gone").is_some());
+        assert!(t.down("p", "gone").is_none());
+        assert!(t.up("p", Path::new("/dev/x")).is_some());
+        assert!(t.up("p", Path::new("/dev/x")).is_none());
+        assert!(t.down("p", "gone").is_some());
+    }
+}
