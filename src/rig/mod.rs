@@ -87,3 +87,6 @@ pub trait Decode: Send {
     /// it completes onto `out`. Never panics, whatever the bytes.
     fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>);
 }
+
+pub mod link;
+pub mod proxy;

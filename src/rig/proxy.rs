@@ -1,0 +1,258 @@
+//! Sharing the rig's control port with the station's other software.
+//!
+//! A serial port has one owner. The proxy takes the real port, creates a
+//! pseudo-terminal, and puts a symlink to it at a configured path for the
+//! other program to open instead. Every byte is forwarded both ways
+//! unchanged and in order, and both directions are handed to the decoder
+//! channel as [`LinkEvent::Bytes`] (`Rx`: from the rig, `Tx`: from the other
+//! program), so tuneward hears the whole conversation without saying
+//! anything.
+//!
+//! If the rig needs polling, the proxy's own query is only sent between the
+//! other program's messages: a [`Boundary`] (from the decoder's family: a
+//! text frame ends in `;`, a binary frame in its end byte) says after each
+//! chunk whether that program's stream is at a message boundary. A query
+//! that falls due in the middle of a message waits until it is complete.
+//! The rig's answer to our query reaches the other program too (the proxy
+//! changes nothing on the wire); programs that share a port expect that.
+//!
+//! The pseudo-terminal outlives rig reconnects: when the rig's port goes
+//! away the other program simply hears nothing (what it writes meanwhile is
+//! dropped and logged at debug level) until the rig is back.
+
+use std::path::PathBuf;
+use std::time::Duration;
+
+use bytes::{Bytes, BytesMut};
+use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::sync::{mpsc, watch};
+use tokio::task::JoinHandle;
+use tokio::time::Instant;
+use tokio_serial::SerialStream;
+
+use super::link::{
+    open_port, sleep_until_opt, wait_true, write_all_timeout, LinkEvent, PollConfig, Poller,
+    PortSettings, Transitions,
+};
+use super::Direction;
+use crate::tuner::server::PtyLink;
+
+/// Says whether the other program's byte stream is at a message boundary
+/// after `chunk` (the latest bytes it wrote).
+pub trait Boundary: Send {
+    fn at_boundary(&mut self, chunk: &[u8]) -> bool;
+}
+
+impl<F: FnMut(&[u8]) -> bool + Send> Boundary for F {
+    fn at_boundary(&mut self, chunk: &[u8]) -> bool {
+        self(chunk)
+    }
+}
+
+/// A boundary after every message that ends in `end` (`;` for the text
+/// family, the end-of-frame byte for the binary family).
+pub fn ends_with(end: u8) -> impl Boundary {
+    move |chunk: &[u8]| chunk.last() == Some(&end)
+}
+
+/// The proxy's settings.
+#[derive(Debug, Clone)]
+pub struct ProxyConfig {
+    /// The rig's real port.
+    pub port: PortSettings,
+    /// Where the symlink to the pseudo-terminal goes.
+    pub link: PathBuf,
+    pub poll: Option<PollConfig>,
+    /// Longest wait between reopening attempts of the real port.
+    pub backoff_cap: Duration,
+}
+
+/// Creates the pseudo-terminal and its symlink now (so that a bad path is
+/// an error at start-up) and starts the proxy task. The symlink is removed
+/// when the task ends.
+pub fn spawn(
+    config: ProxyConfig,
+    boundary: Box<dyn Boundary>,
+    events: mpsc::Sender<LinkEvent>,
+    shutdown: watch::Receiver<bool>,
+) -> Result<JoinHandle<()>, String> {
+    let (pty, master) = PtyLink::create(&config.link)
+        .map_err(|e| format!("proxy link {}: {e}", config.link.display()))?;
+    tracing::info!(link = %config.link.display(), device = %pty.slave_path().display(), "proxy port ready for the other program");
+    let proxy = Proxy {
+        config,
+        boundary,
+        events,
+        shutdown,
+        master,
+        _pty: pty,
+        other_at_boundary: true,
+    };
+    Ok(tokio::spawn(proxy.run()))
+}
+
+struct Proxy {
+    config: ProxyConfig,
+    boundary: Box<dyn Boundary>,
+    events: mpsc::Sender<LinkEvent>,
+    shutdown: watch::Receiver<bool>,
+    master: SerialStream,
+    _pty: PtyLink,
+    other_at_boundary: bool,
+}
+
+enum End {
+    Shutdown,
+    RigDown(String),
+}
+
+impl Proxy {
+    async fn run(mut self) {
+        let name = self.config.port.path.display().to_string();
+        let mut state = Transitions::default();
+        let mut backoff = Duration::from_millis(100);
+        loop {
+            let reason = match open_port(&self.config.port) {
+                Ok((rig, device)) => {
+                    backoff = Duration::from_millis(100);
+                    if let Some(ev) = state.up(&name, &device) {
+                        if self.events.send(ev).await.is_err() {
+                            return;
+                        }
+                    }
+                    match self.session(rig).await {
+                        End::Shutdown => return,
+                        End::RigDown(reason) => reason,
+                    }
+                }
+                Err(reason) => reason,
+            };
+            if let Some(ev) = state.down(&name, &reason) {
+                if self.events.send(ev).await.is_err() {
+                    return;
+                }
+            }
+            if self.wait_discarding(backoff).await {
+                return;
+            }
+            backoff = (backoff * 2).min(self.config.backoff_cap);
+        }
+    }
+
+    /// Waits `d` while the rig is away, dropping what the other program
+    /// writes. `true` on shutdown.
+    async fn wait_discarding(&mut self, d: Duration) -> bool {
+        let until = Instant::now() + d;
+        let mut scratch = [0u8; 512];
+        loop {
+            tokio::select! {
+                _ = tokio::time::sleep_until(until) => return false,
+                _ = wait_true(&mut self.shutdown) => return true,
+                r = self.master.read(&mut scratch) => match r {
+                    Ok(n) => tracing::debug!(bytes = n, "rig port down: dropped bytes from the other program"),
+                    Err(e) => {
+                        tracing::warn!(error = %e, "proxy pseudo-terminal failed");
+                        return true;
+                    }
+                },
+            }
+        }
+    }
+
+    async fn emit(&mut self, dir: Direction, bytes: Bytes) -> bool {
+        let ev = LinkEvent::Bytes {
+            dir,
+            bytes,
+            at: Instant::now(),
+        };
+        self.events.send(ev).await.is_ok()
+    }
+
+    async fn session(&mut self, mut rig: SerialStream) -> End {
+        let mut from_rig = BytesMut::with_capacity(1024);
+        let mut from_other = BytesMut::with_capacity(1024);
+        let mut poll = self.config.poll.clone().map(Poller::new);
+        // A query that fell due mid-message waits here for the boundary.
+        let mut pending = false;
+        loop {
+            let next_poll = if pending {
+                None
+            } else {
+                poll.as_ref().map(|p| p.due)
+            };
+            tokio::select! {
+                _ = wait_true(&mut self.shutdown) => return End::Shutdown,
+                r = rig.read_buf(&mut from_rig) => {
+                    match r {
+                        Ok(0) => return End::RigDown("rig port closed (end of file)".into()),
+                        Err(e) => return End::RigDown(format!("read error: {e}")),
+                        Ok(_) => {}
+                    }
+                    let bytes = from_rig.split().freeze();
+                    if let Some(p) = poll.as_mut() {
+                        p.answered();
+                    }
+                    if let Err(e) = self.master.write_all(&bytes).await {
+                        tracing::warn!(error = %e, "proxy pseudo-terminal write failed");
+                    }
+                    if !self.emit(Direction::Rx, bytes).await {
+                        return End::Shutdown;
+                    }
+                }
+                r = self.master.read_buf(&mut from_other) => {
+                    match r {
+                        Ok(0) => {
+                            // Cannot happen while we hold the far end open;
+                            // do not spin if it does.
+                            tokio::time::sleep(Duration::from_millis(50)).await;
+                            continue;
+                        }
+                        Err(e) => {
+                            tracing::warn!(error = %e, "proxy pseudo-terminal read failed");
+                            tokio::time::sleep(Duration::from_millis(50)).await;
+                            continue;
+                        }
+                        Ok(_) => {}
+                    }
+                    let bytes = from_other.split().freeze();
+                    if let Err(e) = write_all_timeout(&mut rig, &bytes).await {
+                        return End::RigDown(e);
+                    }
+                    self.other_at_boundary = self.boundary.at_boundary(&bytes);
+                    if !self.emit(Direction::Tx, bytes).await {
+                        return End::Shutdown;
+                    }
+                    if pending && self.other_at_boundary {
+                        pending = false;
+                        if let Some(p) = poll.as_mut() {
+                            if let Err(e) = self.inject(&mut rig, p).await {
+                                return e;
+                            }
+                        }
+                    }
+                }
+                _ = sleep_until_opt(next_poll) => {
+                    if let Some(p) = poll.as_mut() {
+                        if self.other_at_boundary {
+                            if let Err(e) = self.inject(&mut rig, p).await {
+                                return e;
+                            }
+                        } else {
+                            pending = true;
+                        }
+                    }
+                }
+            }
+        }
+    }
+
+    async fn inject(&mut self, rig: &mut SerialStream, p: &mut Poller) -> Result<(), End> {
+        let query = p.fire(Instant::now());
+        write_all_timeout(rig, &query).await.map_err(End::RigDown)?;
+        if self.emit(Direction::Tx, Bytes::from(query)).await {
+            Ok(())
+        } else {
+            Err(End::Shutdown)
+        }
+    }
+}

@@ -1,0 +1,173 @@
+//! The proxy between the rig's port and another program, on
+//! pseudo-terminals: byte-exact forwarding both ways, both directions on the
+//! decoder channel, and poll queries only between the program's messages.
+
+use std::time::Duration;
+
+use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::sync::{mpsc, watch};
+use tokio::time::timeout;
+use tokio_serial::{SerialPort, SerialStream};
+use tuneward::rig::link::{LinkEvent, PollConfig, PortSettings};
+use tuneward::rig::proxy::{ends_with, spawn, ProxyConfig};
+use tuneward::rig::Direction;
+
+async fn next(ev: &mut mpsc::Receiver<LinkEvent>) -> LinkEvent {
+    timeout(Duration::from_secs(5), ev.recv())
+        .await
+        .expect("an event within 5 s")
+        .expect("proxy task alive")
+}
+
+async fn read_exactly(port: &mut SerialStream, n: usize) -> Vec<u8> {
+    let mut got = vec![0u8; n];
+    timeout(Duration::from_secs(5), port.read_exact(&mut got))
+        .await
+        .expect("bytes within 5 s")
+        .unwrap();
+    got
+}
+
+struct Setup {
+    rig: SerialStream,
+    _rig_far: SerialStream,
+    other: SerialStream,
+    events: mpsc::Receiver<LinkEvent>,
+    _stop: watch::Sender<bool>,
+    _dir: tempfile::TempDir,
+}
+
+async fn setup(poll: Option<PollConfig>) -> Setup {
+    let dir = tempfile::tempdir().unwrap();
+    let (rig, rig_far) = SerialStream::pair().unwrap();
+    let rig_path = rig_far.name().unwrap();
+    let link = dir.path().join("shared-port");
+    let (tx, mut events) = mpsc::channel(256);
+    let (stop_tx, stop) = watch::channel(false);
+    let cfg = ProxyConfig {
+        port: PortSettings::new(rig_path, 19_200),
+        link: link.clone(),
+        poll,
+        backoff_cap: Duration::from_millis(200),
+    };
+    spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
+    assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
+    // The other program opens the symlink like any serial port.
+    let other = SerialStream::open(&tokio_serial::new(link.to_string_lossy(), 19_200)).unwrap();
+    Setup {
+        rig,
+        _rig_far: rig_far,
+        other,
+        events,
+        _stop: stop_tx,
+        _dir: dir,
+    }
+}
+
+async fn collect(ev: &mut mpsc::Receiver<LinkEvent>, dir: Direction, n: usize) -> Vec<u8> {
+    let mut got = Vec::new();
+    while got.len() < n {
+        if let LinkEvent::Bytes { dir: d, bytes, .. } = next(ev).await {
+            if d == dir {
+                got.extend_from_slice(&bytes);
+            }
+        }
+    }
+    got
+}
+
+#[tokio::test]
+async fn forwards_every_byte_both_ways_unchanged_and_in_order() {
+    let mut s = setup(None).await;
+    let from_rig: Vec<u8> = (0..2048u32).map(|i| (i * 7 % 256) as u8).collect();
+    let from_other: Vec<u8> = (0..2048u32).map(|i| (255 - i % 256) as u8).collect();
+    for chunk in from_rig.chunks(97) {
+        s.rig.write_all(chunk).await.unwrap();
+    }
+    assert_eq!(read_exactly(&mut s.other, from_rig.len()).await, from_rig);
+    for chunk in from_other.chunks(61) {
+        s.other.write_all(chunk).await.unwrap();
+    }
+    assert_eq!(read_exactly(&mut s.rig, from_other.len()).await, from_other);
+    // The decoder channel saw both directions, each complete and in order.
+    let mut rx = Vec::new();
+    let mut txd = Vec::new();
+    while rx.len() < from_rig.len() || txd.len() < from_other.len() {
+        if let LinkEvent::Bytes { dir, bytes, .. } = next(&mut s.events).await {
+            match dir {
+                Direction::Rx => rx.extend_from_slice(&bytes),
+                Direction::Tx => txd.extend_from_slice(&bytes),
+            }
+        }
+    }
+    assert_eq!(rx, from_rig);
+    assert_eq!(txd, from_other);
+}
+
+#[tokio::test]
+async fn poll_queries_wait_for_the_end_of_the_other_programs_message() {
+    let mut s = setup(Some(PollConfig {
+        query: b"IF;".to_vec(),
+        every: Duration::from_millis(20),
+        max_every: Duration::from_millis(40),
+    }))
+    .await;
+    // Let a few queries go out, then half a message, then a pause long
+    // enough for several more to fall due, then the rest of the message.
+    tokio::time::sleep(Duration::from_millis(100)).await;
+    s.other.write_all(b"FA").await.unwrap();
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    s.other.write_all(b"00014074000;").await.unwrap();
+
+    // The rig never answers, so queries keep coming: read until the
+    // message and the query after it have arrived.
+    let mut wire = Vec::new();
+    let mut b = [0u8; 256];
+    let done = |w: &[u8]| {
+        let t = String::from_utf8_lossy(w);
+        t.find("FA00014074000;")
+            .is_some_and(|i| t.len() >= i + 14 + 3)
+    };
+    while !done(&wire) {
+        let n = timeout(Duration::from_secs(5), s.rig.read(&mut b))
+            .await
+            .expect("the rig hears something within 5 s")
+            .unwrap();
+        wire.extend_from_slice(&b[..n]);
+    }
+    let text = String::from_utf8(wire).unwrap();
+    // Only whole messages on the wire: the program's, and our queries
+    // around it, never inside it.
+    let messages: Vec<&str> = text.split_terminator(';').collect();
+    assert!(
+        messages.iter().all(|m| *m == "IF" || *m == "FA00014074000"),
+        "{text}"
+    );
+    let at = messages.iter().position(|m| *m == "FA00014074000").unwrap();
+    assert!(at >= 1, "a query before the message: {text}");
+    assert!(messages.len() > at + 1, "a query after the message: {text}");
+    // The query held back during the message went out right after it.
+    assert_eq!(messages[at + 1], "IF");
+    // Our queries are on the decoder channel too, the other program's
+    // message unchanged.
+    let tx = collect(&mut s.events, Direction::Tx, text.len()).await;
+    assert_eq!(String::from_utf8(tx).unwrap(), text);
+}
+
+#[tokio::test]
+async fn an_existing_file_at_the_link_path_is_not_replaced() {
+    let dir = tempfile::tempdir().unwrap();
+    let link = dir.path().join("ttyUSB-config");
+    std::fs::write(&link, b"precious").unwrap();
+    let (tx, _events) = mpsc::channel(8);
+    let (_stop_tx, stop) = watch::channel(false);
+    let cfg = ProxyConfig {
+        port: PortSettings::new("/nonexistent/port", 9600),
+        link: link.clone(),
+        poll: None,
+        backoff_cap: Duration::from_millis(200),
+    };
+    let e = spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap_err();
+    assert!(e.contains("ttyUSB-config") && e.contains("refusing"), "{e}");
+    assert_eq!(std::fs::read(&link).unwrap(), b"precious");
+}
