@@ -447,7 +447,7 @@ mod tests {
     #[test]
     fn overlong_is_rejected_and_skipped_to_next_preamble() {
         let mut bytes = vec![0xFE, 0xFE, 0x00];
-        bytes.extend(std::iter::repeat_n(0x11, 100));
+        bytes.extend_from_slice(&[0x11; 100]);
         bytes.push(0xFD);
         bytes.extend_from_slice(&F14074);
         // 32-byte frames at most: 104 bytes of overlong run, then the frame.
