@@ -79,6 +79,7 @@ fn compose_linear(d: &[f64], alpha: f64, beta: f64) -> Vec<f64> {
 
 /// Solves the weighted least-squares problem min ‖√w (y − A c)‖ through QR.
 struct Solver {
+    design: DMatrix<f64>,
     q: DMatrix<f64>,
     r: DMatrix<f64>,
     sqrt_w: Vec<f64>,
@@ -89,7 +90,7 @@ impl Solver {
         if design.iter().any(|v| !v.is_finite()) {
             return Err(LsqFailure::NotFinite);
         }
-        let qr = design.qr();
+        let qr = design.clone().qr();
         let q = qr.q();
         let r = qr.r();
         let diag: Vec<f64> = r.diagonal().iter().map(|v| v.abs()).collect();
@@ -97,7 +98,33 @@ impl Solver {
         if largest == 0.0 || diag.iter().any(|d| *d <= largest * 1e-13) {
             return Err(LsqFailure::RankDeficient);
         }
-        Ok(Solver { q, r, sqrt_w })
+        Ok(Solver {
+            design,
+            q,
+            r,
+            sqrt_w,
+        })
+    }
+
+    /// Solves `[I A; Aᵀ 0][δr; δd] = [f; g]` for the scaled design A = QR:
+    /// `h = R⁻ᵀ g`, `δd = R⁻¹(Qᵀ f − h)`, `δr = f − A δd`.
+    fn solve_augmented(
+        &self,
+        f: &DVector<f64>,
+        g: &DVector<f64>,
+    ) -> Result<(DVector<f64>, DVector<f64>), LsqFailure> {
+        let h = self
+            .r
+            .transpose()
+            .solve_lower_triangular(g)
+            .ok_or(LsqFailure::RankDeficient)?;
+        let qtf = self.q.transpose() * f;
+        let dd = self
+            .r
+            .solve_upper_triangular(&(qtf - h))
+            .ok_or(LsqFailure::RankDeficient)?;
+        let dr = f - &self.design * &dd;
+        Ok((dr, dd))
     }
 
     /// Coefficients for right-hand side `y` (unweighted values).
@@ -115,8 +142,116 @@ impl Solver {
     }
 }
 
-fn weighted_sq_norm(r: &[f64], w: &[f64]) -> f64 {
-    r.iter().zip(w).map(|(ri, wi)| wi * ri * ri).sum()
+/// Compensated dot product: error-free transformations of each product
+/// (fused multiply-add) and each sum, so the result is as accurate as if
+/// computed in twice the working precision. Source: T. Ogita, S. M. Rump and
+/// S. Oishi, "Accurate sum and dot product", SIAM J. Sci. Comput. 26(6),
+/// 2005, algorithm Dot2.
+fn dot2(pairs: impl Iterator<Item = (f64, f64)>) -> f64 {
+    let (mut s, mut c) = (0.0f64, 0.0f64);
+    for (a, b) in pairs {
+        let p = a * b;
+        let e = a.mul_add(b, -p);
+        let t = s + p;
+        let z = t - s;
+        let q = (s - (t - z)) + (p - z);
+        s = t;
+        c += q + e;
+    }
+    s + c
+}
+
+/// The matrix C with raw = C · scaled: column k holds the coefficients of
+/// `(αx + β)^k` in powers of x.
+fn compose_matrix(p: usize, alpha: f64, beta: f64) -> DMatrix<f64> {
+    let mut c = DMatrix::zeros(p, p);
+    for k in 0..p {
+        let mut unit = vec![0.0; p];
+        if let Some(u) = unit.get_mut(k) {
+            *u = 1.0;
+        }
+        let col = compose_linear(&unit, alpha, beta);
+        for (j, v) in col.iter().enumerate() {
+            if let Some(slot) = c.get_mut((j, k)) {
+                *slot = *v;
+            }
+        }
+    }
+    c
+}
+
+/// Raw-basis coefficients by iterative refinement of the augmented system
+/// `[I A; Aᵀ 0][r; a] = [b; 0]` (Å. Björck, "Iterative refinement of linear
+/// least squares solutions I", BIT 7, 1967), with the residuals `f = b − r −
+/// A a` and `g = −Aᵀ r` accumulated by [`dot2`] and the corrections solved
+/// through the QR of the scaled design. Carrying `r` separately is what
+/// keeps large-residual problems (NIST Wampler4/5) accurate: a plain
+/// refinement would project the whole residual, whose rounding error alone
+/// is eps·‖r‖. The iterate with the smallest scaled gradient `Cᵀ Aᵀ r` wins.
+fn refine_raw(
+    solver: &Solver,
+    x: &[f64],
+    y: &[f64],
+    c: &DMatrix<f64>,
+    scaled: &[f64],
+) -> Result<Vec<f64>, LsqFailure> {
+    let n = x.len();
+    let p = scaled.len();
+    let sw = &solver.sqrt_w;
+    let a_raw = DMatrix::from_fn(n, p, |i, k| {
+        sw.get(i).copied().unwrap_or(0.0) * x.get(i).copied().unwrap_or(0.0).powi(k as i32)
+    });
+    let b: Vec<f64> = y.iter().zip(sw).map(|(yi, s)| yi * s).collect();
+    let residual = |a: &DVector<f64>| -> DVector<f64> {
+        DVector::from_fn(n, |i, _| {
+            let row = a_raw.row(i);
+            let bi = b.get(i).copied().unwrap_or(0.0);
+            dot2(
+                std::iter::once((1.0, bi)).chain(row.iter().zip(a.iter()).map(|(v, ak)| (-v, *ak))),
+            )
+        })
+    };
+    let gradient = |r: &DVector<f64>| -> DVector<f64> {
+        let g_raw = DVector::from_fn(p, |k, _| {
+            -dot2(a_raw.column(k).iter().copied().zip(r.iter().copied()))
+        });
+        c.transpose() * g_raw
+    };
+    let mut a = c * DVector::from_column_slice(scaled);
+    let mut r = residual(&a);
+    let mut best = (a.clone(), gradient(&r).norm());
+    for _ in 0..10 {
+        let f = DVector::from_fn(n, |i, _| {
+            let row = a_raw.row(i);
+            let bi = b.get(i).copied().unwrap_or(0.0);
+            let ri = r.get(i).copied().unwrap_or(0.0);
+            dot2(
+                [(1.0, bi), (-1.0, ri)]
+                    .into_iter()
+                    .chain(row.iter().zip(a.iter()).map(|(v, ak)| (-v, *ak))),
+            )
+        });
+        let g = gradient(&r);
+        let (dr, dd) = solver.solve_augmented(&f, &g)?;
+        let da = c * dd;
+        a += &da;
+        r += dr;
+        if a.iter().any(|v| !v.is_finite()) {
+            break;
+        }
+        let score = gradient(&residual(&a)).norm();
+        if score < best.1 {
+            best = (a.clone(), score);
+        }
+        if da
+            .iter()
+            .zip(a.iter())
+            .all(|(d, v)| d.abs() <= 1e-17 * v.abs())
+        {
+            break;
+        }
+    }
+    Ok(best.0.iter().copied().collect())
 }
 
 /// Fits `y ≈ Σ c_k x^k`, k = 0..=degree, with weights `w` (> 0).
@@ -168,30 +303,14 @@ pub(crate) fn fit_poly(
         *s += d;
     }
 
-    // Raw form, polished against raw-basis residuals while that helps.
-    let alpha = 1.0 / scale;
-    let beta = -centre / scale;
-    let raw_resid = |coef: &[f64]| -> Vec<f64> {
-        x.iter()
-            .zip(y)
-            .map(|(xi, yi)| yi - horner(coef, *xi))
-            .collect()
-    };
-    let mut raw = compose_linear(&scaled, alpha, beta);
-    let mut resid = raw_resid(&raw);
-    let mut norm = weighted_sq_norm(&resid, w);
-    for _ in 0..4 {
-        let step = compose_linear(&solver.solve(&resid)?, alpha, beta);
-        let trial: Vec<f64> = raw.iter().zip(&step).map(|(a, d)| a + d).collect();
-        let trial_resid = raw_resid(&trial);
-        let trial_norm = weighted_sq_norm(&trial_resid, w);
-        if !(trial_norm.is_finite() && trial_norm <= norm) || trial == raw {
-            break;
-        }
-        raw = trial;
-        resid = trial_resid;
-        norm = trial_norm;
-    }
+    // Raw form: composed from the scaled one, then polished.
+    let raw = refine_raw(
+        &solver,
+        x,
+        y,
+        &compose_matrix(p, 1.0 / scale, -centre / scale),
+        &scaled,
+    )?;
     Ok(PolyFit {
         centre,
         scale,

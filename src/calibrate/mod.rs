@@ -117,8 +117,13 @@ pub enum CalibrationError {
     },
     #[error("{0}")]
     Csv(Box<CsvProblem>),
-    #[error("point {index} (hz = {hz}, steps = {steps}): expected a frequency above 0 Hz, finite steps and a positive weight")]
-    BadPoint { index: usize, hz: f64, steps: f64 },
+    #[error("point {index} (hz = {hz}, steps = {steps}): expected {expected}")]
+    BadPoint {
+        index: usize,
+        hz: f64,
+        steps: f64,
+        expected: &'static str,
+    },
     #[error("model {model} needs at least {needed} points at distinct frequencies, found {found}")]
     TooFewPoints {
         model: String,
@@ -219,19 +224,26 @@ impl FitOptions {
     }
 }
 
-fn check_points(points: &[Point]) -> Result<(), CalibrationError> {
+/// Finite numbers and positive weights everywhere; the physics model also
+/// needs frequencies above zero (poly and interpolate take any abscissa,
+/// which is what lets the NIST polynomial datasets run through them).
+fn check_points(points: &[Point], spec_needs_positive: bool) -> Result<(), CalibrationError> {
     for (i, p) in points.iter().enumerate() {
-        let usable = p.hz.is_finite()
-            && p.hz > 0.0
-            && p.steps.is_finite()
-            && p.weight.is_finite()
-            && p.weight > 0.0;
+        let usable =
+            p.hz.is_finite() && p.steps.is_finite() && p.weight.is_finite() && p.weight > 0.0;
+        let bad = |expected| CalibrationError::BadPoint {
+            index: i + 1,
+            hz: p.hz,
+            steps: p.steps,
+            expected,
+        };
         if !usable {
-            return Err(CalibrationError::BadPoint {
-                index: i + 1,
-                hz: p.hz,
-                steps: p.steps,
-            });
+            return Err(bad("finite frequency and steps and a positive weight"));
+        }
+        if spec_needs_positive && p.hz <= 0.0 {
+            return Err(bad(
+                "a frequency above 0 Hz (the physics model divides by f²)",
+            ));
         }
     }
     Ok(())
@@ -372,7 +384,10 @@ impl Calibration {
     /// Fits with options; `auto` and `physics` choose their structure by
     /// leave-one-out cross-validation and say why in [`Calibration::note`].
     pub fn fit_with(options: FitOptions, points: &[Point]) -> Result<Self, CalibrationError> {
-        check_points(points)?;
+        check_points(
+            points,
+            matches!(options.kind, ModelKind::Physics | ModelKind::Auto),
+        )?;
         match options.kind {
             ModelKind::Interpolate => Self::fit_spec(FitSpec::Interpolate, points),
             ModelKind::Poly => Self::fit_spec(
@@ -388,7 +403,7 @@ impl Calibration {
 
     /// Fits one fixed structure.
     pub fn fit_spec(spec: FitSpec, points: &[Point]) -> Result<Self, CalibrationError> {
-        check_points(points)?;
+        check_points(points, matches!(spec, FitSpec::Physics { .. }))?;
         let model = fit_model(spec, points)?;
         Ok(Calibration {
             spec,

@@ -3,7 +3,8 @@
 //! A point file is CSV with a header row. Lines starting with `#` are
 //! comments, blank lines are skipped. The first column is the frequency in
 //! Hz, the second the motor position in steps (their header names are free,
-//! `hz,steps` is usual); further columns must be named `profile` (a word such
+//! `hz,steps` is usual; any finite number is read, the physics model
+//! refuses frequencies at or below zero); further columns must be named `profile` (a word such
 //! as `dry` or `wet`; empty for the base profile) or `weight` (a positive
 //! number; empty means 1). Any other column is refused, so that a typo does
 //! not silently drop information.
@@ -94,12 +95,12 @@ pub fn parse_points_csv(text: &str, path: &Path) -> Result<Vec<Point>, Calibrati
         let col = |c: usize, name: &str| format!("column {} ({name})", c + 1);
         let hz_text = fields.first().copied().unwrap_or("");
         let hz: f64 = match hz_text.parse::<f64>() {
-            Ok(v) if v.is_finite() && v > 0.0 => v,
+            Ok(v) if v.is_finite() => v,
             _ => {
                 return Err(err(
                     line_no,
                     &col(0, hz_name),
-                    "a frequency in Hz above zero",
+                    "a frequency in Hz (a number)",
                     if hz_text.is_empty() {
                         "nothing"
                     } else {
@@ -426,8 +427,11 @@ mod tests {
         let msg = parse("hz,steps,colour\n").unwrap_err().to_string();
         assert!(msg.contains("column 3") && msg.contains("colour"), "{msg}");
 
-        let msg = parse("hz,steps\n-5,3\n").unwrap_err().to_string();
-        assert!(msg.contains("column 1 (hz)") && msg.contains("-5"), "{msg}");
+        let msg = parse("hz,steps\n7e6x,3\n").unwrap_err().to_string();
+        assert!(
+            msg.contains("column 1 (hz)") && msg.contains("7e6x"),
+            "{msg}"
+        );
 
         let msg = parse("hz,steps\n5,3,4\n").unwrap_err().to_string();
         assert!(msg.contains(":2") && msg.contains("3 columns"), "{msg}");
