@@ -12,9 +12,14 @@ struct Cli {
 }
 
 #[derive(Subcommand)]
-enum Command {}
+enum Command {
+    /// Fit a calibration to measured points and report how well it holds.
+    Fit(tuneward::calibrate::cli::FitArgs),
+}
 
 fn main() -> std::process::ExitCode {
     let cli = Cli::parse();
-    match cli.command {}
+    match cli.command {
+        Command::Fit(args) => tuneward::calibrate::cli::run_fit(args),
+    }
 }
