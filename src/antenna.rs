@@ -38,9 +38,11 @@ pub const MU0: f64 = 1.256_637_062_12e-6;
 /// Speed of light in vacuum, m/s (exact by definition of the metre).
 pub const C0: f64 = 299_792_458.0;
 
-/// Share of the 1.5:1 SWR bandwidth used as the automatic dead band: a
-/// quarter keeps the SWR near 1.1:1 at the dead band's edge (derived from
-/// the same resonator model; the share itself is common practice, no source).
+/// Share of the 1.5:1 SWR bandwidth used as the automatic dead band (the
+/// distance from the tuned frequency within which nothing moves). A quarter
+/// of the full 1.5:1 width is half the way to a 1.5:1 edge, where the same
+/// resonator model gives x = 0.204, |Γ| = 0.10, SWR ≈ 1.23:1. The share
+/// itself is common practice, no source.
 pub const AUTO_HYSTERESIS_SHARE: f64 = 0.25;
 
 /// A residual above this share of the 1.5:1 bandwidth gets a warning in the

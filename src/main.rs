@@ -13,7 +13,6 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
-    /// Fit a calibration to measured points and report how well it holds.
     Fit(tuneward::calibrate::cli::FitArgs),
 }
 

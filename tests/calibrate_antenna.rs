@@ -256,3 +256,26 @@ fn band_check_without_antenna_still_gives_hz_per_step() {
         Err(AntennaError::FlatCalibration { .. })
     ));
 }
+
+/// SWR of the matched loop detuned by `df`: z = 1 + j·2Q_u·df/f (series
+/// resonator with R = Z0), |Γ| = |x|/√(4 + x²).
+fn swr_detuned(q: f64, f: f64, df: f64) -> f64 {
+    let x = 2.0 * q * df / f;
+    let g = x.abs() / (4.0 + x * x).sqrt();
+    (1.0 + g) / (1.0 - g)
+}
+
+/// The bandwidth formula and the impedance model agree: half the 1.5:1
+/// bandwidth away the SWR is 1.5; at the automatic dead band (a quarter of
+/// the width) it is about 1.23:1.
+#[test]
+fn auto_dead_band_edge_swr() {
+    let a = antenna(100.0, 15_000.0);
+    let f = 7.1e6;
+    let e = SmallLoop::from_config(&a).unwrap().at(f);
+    assert!((swr_detuned(e.q_unloaded, f, e.bandwidth_1_5_hz / 2.0) - 1.5).abs() < 1e-9);
+    assert!((swr_detuned(e.q_unloaded, f, e.bandwidth_2_hz / 2.0) - 2.0).abs() < 1e-9);
+    let h = auto_hysteresis_hz(&a, f).unwrap() as f64;
+    let s = swr_detuned(e.q_unloaded, f, h);
+    assert!((s - 1.226).abs() < 0.005, "{s}");
+}

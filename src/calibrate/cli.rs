@@ -19,6 +19,9 @@ use crate::config::Config;
 /// optionally `profile` and `weight` columns. Lines starting with `#` are
 /// comments. Candidate points learned from touch-ups are read from
 /// `<stem>.candidates.csv` beside it and shown marked with `*`.
+///
+/// Exit status: 0 when a calibration was fitted (warnings included), 2 on
+/// any error, with the file, line and column named on standard error.
 #[derive(Debug, Clone, clap::Args)]
 pub struct FitArgs {
     /// The points file (CSV: hz,steps[,profile][,weight]).
