@@ -215,14 +215,24 @@ pub struct CalibrationConfig {
     /// Or a CSV file of points (`hz,steps` header), relative to the config.
     #[serde(default)]
     pub file: Option<PathBuf>,
+    /// Polynomial degree for `model = "poly"` (default 2).
+    #[serde(default)]
+    pub degree: Option<usize>,
+    /// Profile in use at start (`None`: the base, points without a profile).
+    #[serde(default)]
+    pub profile: Option<String>,
 }
 
 /// One measured calibration point: at `hz` the loop was resonant at `steps`.
-#[derive(Debug, Clone, Copy, Deserialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct PointConfig {
     pub hz: f64,
     pub steps: f64,
+    #[serde(default)]
+    pub profile: Option<String>,
+    #[serde(default)]
+    pub weight: Option<f64>,
 }
 
 /// `[[band]]`: a range the tuner follows in.
@@ -535,7 +545,15 @@ impl Config {
                 "at least two measured points (or `file`)",
                 "none".to_string(),
             )),
-            (None, false) => Ok(c.points.iter().map(|p| Point::new(p.hz, p.steps)).collect()),
+            (None, false) => Ok(c
+                .points
+                .iter()
+                .map(|p| {
+                    Point::new(p.hz, p.steps)
+                        .with_profile(p.profile.as_deref())
+                        .with_weight(p.weight.unwrap_or(1.0))
+                })
+                .collect()),
             (Some(file), true) => {
                 let path = match &self.source {
                     Some(src) if file.is_relative() => src
@@ -554,10 +572,19 @@ impl Config {
         }
     }
 
-    /// The fitted calibration this config describes.
+    /// The fitted base calibration this config describes (points without a
+    /// profile; [`crate::calibrate::CalibrationSet`] handles profiles).
     pub fn calibration(&self) -> Result<crate::calibrate::Calibration, ConfigError> {
-        let points = self.calibration_points()?;
-        crate::calibrate::Calibration::fit(self.calibration.model, &points).map_err(|source| {
+        let mut points = self.calibration_points()?;
+        points.retain(|p| p.profile.is_none());
+        let options = crate::calibrate::FitOptions {
+            kind: self.calibration.model,
+            degree: self
+                .calibration
+                .degree
+                .unwrap_or(crate::calibrate::DEFAULT_POLY_DEGREE),
+        };
+        crate::calibrate::Calibration::fit_with(options, &points).map_err(|source| {
             ConfigError::Calibration {
                 path: self.path_for_errors(),
                 source,

@@ -7,6 +7,7 @@
 //! actions out: [`replay`] in virtual time against a simulated tuner, the live
 //! service against real ports.
 
+pub mod antenna;
 pub mod calibrate;
 pub mod capture;
 pub mod config;

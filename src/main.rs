@@ -13,6 +13,7 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
+    Fit(tuneward::calibrate::cli::FitArgs),
     /// Simulate a stepper controller speaking the line protocol
     /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
     SimTuner(tuneward::tuner::server::SimTunerArgs),
@@ -25,6 +26,7 @@ enum Command {
 fn main() -> std::process::ExitCode {
     let cli = Cli::parse();
     match cli.command {
+        Command::Fit(args) => tuneward::calibrate::cli::run_fit(args),
         Command::SimTuner(args) => report(tuneward::tuner::server::run_sim_tuner(&args)),
         Command::SetPosition(args) => report(tuneward::journal::run_set_position(&args)),
     }

@@ -8,6 +8,15 @@
 
 use std::fmt;
 
+pub mod bcd;
+mod binary;
+pub mod dialect;
+mod text;
+
+pub use binary::BinaryDecoder;
+pub use dialect::{Dialect, DialectError, Family};
+pub use text::TextDecoder;
+
 /// Lowest frequency a report may carry and still be believed.
 pub const MIN_PLAUSIBLE_HZ: u64 = 100_000;
 /// Highest frequency a report may carry and still be believed.
@@ -82,10 +91,158 @@ impl fmt::Display for RejectReason {
 }
 
 /// An incremental decoder for one rig family.
+///
+/// Each direction has its own bounded buffer. Only [`Direction::Rx`] bytes
+/// (from the rig) yield `Frequency` and `Transmit` events; `Tx` bytes are
+/// framed the same way and may yield `Reject`s (the caller knows which
+/// direction it fed), nothing else.
+///
+/// What a decoder emits depends only on the bytes of each direction, never on
+/// how they were split into chunks: a run of rejected bytes is reported once
+/// it ends (or every [`REJECT_REPORT_BYTES`] bytes while it lasts).
 pub trait Decode: Send {
     /// Takes the next chunk of bytes travelling in `dir` and pushes whatever
     /// it completes onto `out`. Never panics, whatever the bytes.
     fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>);
+
+    /// End of input (a capture's last line, a closed port): reports what is
+    /// still held, a pending reject run and any unfinished frame, and starts
+    /// afresh.
+    fn finish(&mut self, _out: &mut Vec<RigEvent>) {}
+
+    /// Bytes currently held in the buffers (both directions); never more
+    /// than the dialect's longest frame plus one per direction.
+    fn buffered(&self) -> usize {
+        0
+    }
+
+    /// Counters since the decoder was made.
+    fn stats(&self) -> DecodeStats {
+        DecodeStats::default()
+    }
+}
+
+/// What a decoder has seen, for diagnostics.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct DecodeStats {
+    /// Complete frames or messages, both directions, whatever became of them.
+    pub frames: u64,
+    /// Well-formed frames that are not reports: echoes of requests,
+    /// requests, acknowledgements, other commands, other rigs, the inactive
+    /// VFO, anything sent to the rig.
+    pub ignored: u64,
+    /// `Frequency` and `Transmit` events emitted.
+    pub reports: u64,
+    /// `Reject` events emitted.
+    pub rejects: u64,
+}
+
+/// A long run of rejected bytes is reported in pieces of this size, so that
+/// endless noise still shows up while it lasts.
+pub const REJECT_REPORT_BYTES: usize = 64 * 1024;
+
+/// A run of rejected bytes (garbage, an overlong frame) not yet reported:
+/// adjacent bytes rejected for the same reason are one run, one event.
+#[derive(Debug, Default)]
+pub(crate) struct RejectRun {
+    reason: Option<RejectReason>,
+    bytes: usize,
+}
+
+impl RejectRun {
+    pub(crate) fn add(
+        &mut self,
+        reason: RejectReason,
+        n: usize,
+        out: &mut Vec<RigEvent>,
+        stats: &mut DecodeStats,
+    ) {
+        if n == 0 {
+            return;
+        }
+        if self.reason != Some(reason) {
+            self.flush(out, stats);
+            self.reason = Some(reason);
+        }
+        self.bytes = self.bytes.saturating_add(n);
+        while self.bytes >= REJECT_REPORT_BYTES {
+            out.push(RigEvent::Reject {
+                reason,
+                bytes: REJECT_REPORT_BYTES,
+            });
+            stats.rejects += 1;
+            self.bytes -= REJECT_REPORT_BYTES;
+        }
+        if self.bytes == 0 {
+            self.reason = None;
+        }
+    }
+
+    pub(crate) fn flush(&mut self, out: &mut Vec<RigEvent>, stats: &mut DecodeStats) {
+        if let Some(reason) = self.reason.take() {
+            if self.bytes > 0 {
+                out.push(RigEvent::Reject {
+                    reason,
+                    bytes: self.bytes,
+                });
+                stats.rejects += 1;
+            }
+        }
+        self.bytes = 0;
+    }
+}
+
+/// What one complete frame or message amounts to.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Outcome {
+    /// Not a report; counted, nothing emitted.
+    Ignored,
+    /// One report.
+    One(RigEvent),
+    /// Two reports (a status answer: frequency and transmit state).
+    Two(RigEvent, RigEvent),
+    /// Rejected for this reason; the caller knows the length.
+    Reject(RejectReason),
+}
+
+/// Checks a frequency against the plausible range.
+pub(crate) fn plausible(hz: u64) -> Result<RigEvent, RejectReason> {
+    if (MIN_PLAUSIBLE_HZ..=MAX_PLAUSIBLE_HZ).contains(&hz) {
+        Ok(RigEvent::Frequency { hz })
+    } else {
+        Err(RejectReason::OutOfRange)
+    }
+}
+
+impl Outcome {
+    /// Emits the outcome of a complete frame of `len` bytes, after the reject
+    /// run before it.
+    pub(crate) fn emit(
+        self,
+        len: usize,
+        run: &mut RejectRun,
+        out: &mut Vec<RigEvent>,
+        stats: &mut DecodeStats,
+    ) {
+        run.flush(out, stats);
+        stats.frames += 1;
+        match self {
+            Outcome::Ignored => stats.ignored += 1,
+            Outcome::One(e) => {
+                out.push(e);
+                stats.reports += 1;
+            }
+            Outcome::Two(a, b) => {
+                out.push(a);
+                out.push(b);
+                stats.reports += 2;
+            }
+            Outcome::Reject(reason) => {
+                out.push(RigEvent::Reject { reason, bytes: len });
+                stats.rejects += 1;
+            }
+        }
+    }
 }
 
 pub mod link;

@@ -1,0 +1,489 @@
+//! The binary framed family: `FE FE <to> <from> <command> [<data>…] FD`.
+//!
+//! Framing is check-then-parse over one bounded buffer per direction: find
+//! where a frame starts (two preamble bytes followed by something else),
+//! check that it is complete, then parse the header with nom and interpret
+//! the command. Anything between frames is one run of garbage; a frame longer
+//! than the dialect allows is rejected as overlong and skipped up to the next
+//! preamble; a preamble inside a frame abandons the frame so far (garbage)
+//! and starts again there.
+
+use nom::bytes::complete::take_until;
+use nom::number::complete::u8 as byte;
+use nom::{IResult, Parser};
+
+use super::dialect::BinarySpec;
+use super::Decode;
+use super::{bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent};
+
+/// Decoder for the binary framed family.
+#[derive(Debug)]
+pub struct BinaryDecoder {
+    spec: BinarySpec,
+    rig_address: Option<u8>,
+    rx: Stream,
+    tx: Stream,
+    stats: DecodeStats,
+}
+
+#[derive(Debug)]
+struct Stream {
+    /// Bytes not yet decided on: at most a partial frame or a trailing
+    /// preamble. Capacity `max_frame + 1`, allocated once.
+    buf: Vec<u8>,
+    /// Inside an overlong frame: reject until the next preamble.
+    skipping: bool,
+    run: RejectRun,
+}
+
+impl Stream {
+    fn new(cap: usize) -> Stream {
+        Stream {
+            buf: Vec::with_capacity(cap),
+            skipping: false,
+            run: RejectRun::default(),
+        }
+    }
+}
+
+impl BinaryDecoder {
+    /// `rig_address`: only reports from that address count; None: any address
+    /// except our controller's.
+    pub fn new(spec: BinarySpec, rig_address: Option<u8>) -> BinaryDecoder {
+        let cap = spec.max_frame + 1;
+        BinaryDecoder {
+            spec,
+            rig_address,
+            rx: Stream::new(cap),
+            tx: Stream::new(cap),
+            stats: DecodeStats::default(),
+        }
+    }
+}
+
+impl Decode for BinaryDecoder {
+    fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>) {
+        let cap = self.spec.max_frame + 1;
+        let stream = match dir {
+            Direction::Rx => &mut self.rx,
+            Direction::Tx => &mut self.tx,
+        };
+        let mut rest = chunk;
+        loop {
+            let room = cap.saturating_sub(stream.buf.len());
+            let (now, later) = rest.split_at(room.min(rest.len()));
+            stream.buf.extend_from_slice(now);
+            rest = later;
+            let ctx = Ctx {
+                spec: &self.spec,
+                rig_address: self.rig_address,
+                dir,
+            };
+            let mut used = process(
+                &ctx,
+                &stream.buf,
+                &mut stream.skipping,
+                &mut stream.run,
+                out,
+                &mut self.stats,
+            );
+            if used == 0 && stream.buf.len() >= cap {
+                // Cannot happen (a full buffer always holds an overlong
+                // frame); kept so that a mistake here can never stall.
+                stream.run.add(
+                    RejectReason::Garbage,
+                    stream.buf.len(),
+                    out,
+                    &mut self.stats,
+                );
+                used = stream.buf.len();
+            }
+            stream.buf.drain(..used.min(stream.buf.len()));
+            if rest.is_empty() {
+                break;
+            }
+        }
+    }
+
+    fn finish(&mut self, out: &mut Vec<RigEvent>) {
+        for stream in [&mut self.rx, &mut self.tx] {
+            let reason = if stream.skipping {
+                RejectReason::Overlong
+            } else {
+                RejectReason::Garbage
+            };
+            stream
+                .run
+                .add(reason, stream.buf.len(), out, &mut self.stats);
+            stream.run.flush(out, &mut self.stats);
+            stream.buf.clear();
+            stream.skipping = false;
+        }
+    }
+
+    fn buffered(&self) -> usize {
+        self.rx.buf.len() + self.tx.buf.len()
+    }
+
+    fn stats(&self) -> DecodeStats {
+        self.stats
+    }
+}
+
+struct Ctx<'a> {
+    spec: &'a BinarySpec,
+    rig_address: Option<u8>,
+    dir: Direction,
+}
+
+/// Where the frame at the start of a buffer ends, as far as can be told.
+enum Scan {
+    /// Not all there yet.
+    Incomplete,
+    /// A whole frame of this many bytes, terminator included.
+    Complete(usize),
+    /// A new preamble at this offset abandons the frame before it.
+    Restart(usize),
+    /// No terminator within the longest frame; reject this many bytes.
+    Overlong(usize),
+}
+
+/// Offset of the first two consecutive preamble bytes.
+fn find_pair(input: &[u8], pair: &[u8; 2]) -> Option<usize> {
+    let r: IResult<&[u8], &[u8]> = take_until(&pair[..]).parse(input);
+    r.ok().map(|(_, before)| before.len())
+}
+
+/// Decides what it can about `buf`, emits, and returns how many bytes are
+/// done with. What remains is a partial frame or a trailing preamble byte.
+fn process(
+    ctx: &Ctx,
+    buf: &[u8],
+    skipping: &mut bool,
+    run: &mut RejectRun,
+    out: &mut Vec<RigEvent>,
+    stats: &mut DecodeStats,
+) -> usize {
+    let pre = ctx.spec.preamble;
+    let pair = [pre, pre];
+    let mut pos = 0;
+    loop {
+        let rest = buf.get(pos..).unwrap_or_default();
+        if rest.is_empty() {
+            return pos;
+        }
+        let reason = if *skipping {
+            RejectReason::Overlong
+        } else {
+            RejectReason::Garbage
+        };
+        let Some(at) = find_pair(rest, &pair) else {
+            // No frame start here. A last preamble byte may begin one.
+            let keep = usize::from(rest.last() == Some(&pre));
+            run.add(reason, rest.len() - keep, out, stats);
+            return pos + rest.len() - keep;
+        };
+        let run_len = rest
+            .get(at..)
+            .unwrap_or_default()
+            .iter()
+            .take_while(|&&b| b == pre)
+            .count();
+        let after = at + run_len;
+        // A frame starts with the last two of a run of preamble bytes;
+        // extra ones before them are not part of any frame.
+        let start = after - 2;
+        run.add(reason, start, out, stats);
+        pos += start;
+        if after == rest.len() {
+            return pos;
+        }
+        *skipping = false;
+        let frame = buf.get(pos..).unwrap_or_default();
+        match scan(ctx.spec, frame) {
+            Scan::Incomplete => return pos,
+            Scan::Complete(len) => {
+                let body = frame.get(2..len - 1).unwrap_or_default();
+                interpret(ctx, body).emit(len, run, out, stats);
+                pos += len;
+            }
+            Scan::Restart(n) => {
+                run.add(RejectReason::Garbage, n, out, stats);
+                pos += n;
+            }
+            Scan::Overlong(n) => {
+                run.add(RejectReason::Overlong, n, out, stats);
+                *skipping = true;
+                pos += n;
+            }
+        }
+    }
+}
+
+/// `frame` starts with two preamble bytes and a third, different byte.
+fn scan(spec: &BinarySpec, frame: &[u8]) -> Scan {
+    let mut k = 2;
+    loop {
+        if k + 1 > spec.max_frame {
+            return Scan::Overlong(k);
+        }
+        let Some(&b) = frame.get(k) else {
+            return Scan::Incomplete;
+        };
+        if b == spec.terminator {
+            return Scan::Complete(k + 1);
+        }
+        if b == spec.preamble {
+            match frame.get(k + 1) {
+                None => return Scan::Incomplete,
+                Some(&n) if n == spec.preamble => return Scan::Restart(k),
+                Some(_) => {}
+            }
+        }
+        k += 1;
+    }
+}
+
+/// `<to> <from> <command>`, then the data.
+fn header(body: &[u8]) -> IResult<&[u8], (u8, u8, u8)> {
+    (byte, byte, byte).parse(body)
+}
+
+/// What a complete frame (between preamble and terminator) amounts to.
+fn interpret(ctx: &Ctx, body: &[u8]) -> Outcome {
+    let s = ctx.spec;
+    if body.contains(&s.collision) {
+        return Outcome::Reject(RejectReason::Collision);
+    }
+    let Ok((data, (_to, from, cmd))) = header(body) else {
+        return Outcome::Reject(RejectReason::BadLength);
+    };
+    if ctx.dir == Direction::Tx {
+        return Outcome::Ignored;
+    }
+    // Our own requests echoed on the shared bus, and acknowledgements.
+    if from == s.controller || cmd == s.ack_ok || cmd == s.ack_ng {
+        return Outcome::Ignored;
+    }
+    if ctx.rig_address.is_some_and(|a| a != from) {
+        return Outcome::Ignored;
+    }
+    if cmd == s.frequency_broadcast || cmd == s.frequency_read {
+        if data.is_empty() {
+            // A read request (from another controller): not a report.
+            return Outcome::Ignored;
+        }
+        if data.len() != s.frequency_bytes {
+            return Outcome::Reject(RejectReason::BadLength);
+        }
+        return match bcd::decode_le(data) {
+            Err(_) => Outcome::Reject(RejectReason::BadDigit),
+            Ok(hz) => match plausible(hz) {
+                Ok(e) => Outcome::One(e),
+                Err(r) => Outcome::Reject(r),
+            },
+        };
+    }
+    if cmd == s.transmit {
+        return match data {
+            // A read, with or without the sub-command.
+            [] | [_] => Outcome::Ignored,
+            [sub, ..] if *sub != s.transmit_sub => Outcome::Ignored,
+            [_, 0x00] => Outcome::One(RigEvent::Transmit { on: false }),
+            [_, 0x01] => Outcome::One(RigEvent::Transmit { on: true }),
+            [_, _] => Outcome::Reject(RejectReason::Unknown),
+            _ => Outcome::Reject(RejectReason::BadLength),
+        };
+    }
+    Outcome::Ignored
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::rig::Dialect;
+
+    fn decode_with(addr: Option<u8>, dir: Direction, bytes: &[u8]) -> Vec<RigEvent> {
+        let mut d = Dialect::builtin("binary-bcd").unwrap().decoder(addr);
+        let mut out = Vec::new();
+        d.feed(dir, bytes, &mut out);
+        d.finish(&mut out);
+        out
+    }
+
+    fn decode(bytes: &[u8]) -> Vec<RigEvent> {
+        decode_with(None, Direction::Rx, bytes)
+    }
+
+    fn freq(hz: u64) -> RigEvent {
+        RigEvent::Frequency { hz }
+    }
+
+    fn reject(reason: RejectReason, bytes: usize) -> RigEvent {
+        RigEvent::Reject { reason, bytes }
+    }
+
+    const F14074: [u8; 11] = [
+        0xFE, 0xFE, 0x00, 0x5A, 0x00, 0x00, 0x40, 0x07, 0x14, 0x00, 0xFD,
+    ];
+
+    #[test]
+    fn broadcast_and_answer() {
+        assert_eq!(decode(&F14074), vec![freq(14_074_000)]);
+        // Answer to a read: cmd 03, to the controller E0. 7 074 000 Hz by
+        // hand: 00 40 07 07 00.
+        let answer = [
+            0xFE, 0xFE, 0xE0, 0x5A, 0x03, 0x00, 0x40, 0x07, 0x07, 0x00, 0xFD,
+        ];
+        assert_eq!(decode(&answer), vec![freq(7_074_000)]);
+    }
+
+    #[test]
+    fn transmit_state() {
+        let on = [0xFE, 0xFE, 0xE0, 0x5A, 0x1C, 0x00, 0x01, 0xFD];
+        let off = [0xFE, 0xFE, 0xE0, 0x5A, 0x1C, 0x00, 0x00, 0xFD];
+        let odd = [0xFE, 0xFE, 0xE0, 0x5A, 0x1C, 0x00, 0x07, 0xFD];
+        assert_eq!(decode(&on), vec![RigEvent::Transmit { on: true }]);
+        assert_eq!(decode(&off), vec![RigEvent::Transmit { on: false }]);
+        assert_eq!(decode(&odd), vec![reject(RejectReason::Unknown, 8)]);
+    }
+
+    #[test]
+    fn echoes_requests_and_acks_are_ignored() {
+        let mut d = Dialect::builtin("binary-bcd").unwrap().decoder(None);
+        let mut out = Vec::new();
+        // Our read request echoed (from E0), another controller's read
+        // (no data), an OK acknowledgement.
+        d.feed(
+            Direction::Rx,
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x03, 0xFD],
+            &mut out,
+        );
+        d.feed(
+            Direction::Rx,
+            &[0xFE, 0xFE, 0x5A, 0xE4, 0x03, 0xFD],
+            &mut out,
+        );
+        d.feed(
+            Direction::Rx,
+            &[0xFE, 0xFE, 0xE0, 0x5A, 0xFB, 0xFD],
+            &mut out,
+        );
+        // A frequency *from* the controller address (a set, echoed).
+        let mut from_us = F14074;
+        from_us[3] = 0xE0;
+        d.feed(Direction::Rx, &from_us, &mut out);
+        assert_eq!(out, vec![]);
+        let s = d.stats();
+        assert_eq!((s.frames, s.ignored, s.reports, s.rejects), (4, 4, 0, 0));
+    }
+
+    #[test]
+    fn rig_address_filters() {
+        assert_eq!(
+            decode_with(Some(0x5A), Direction::Rx, &F14074),
+            vec![freq(14_074_000)]
+        );
+        assert_eq!(decode_with(Some(0x94), Direction::Rx, &F14074), vec![]);
+    }
+
+    #[test]
+    fn tx_direction_yields_no_reports() {
+        assert_eq!(decode_with(None, Direction::Tx, &F14074), vec![]);
+        assert_eq!(
+            decode_with(None, Direction::Tx, &[0x11, 0x22]),
+            vec![reject(RejectReason::Garbage, 2)]
+        );
+    }
+
+    #[test]
+    fn collision_bad_digit_bad_length_out_of_range() {
+        let mut f = F14074;
+        f[3] = 0xFC;
+        assert_eq!(decode(&f), vec![reject(RejectReason::Collision, 11)]);
+        let mut f = F14074;
+        f[6] = 0x4A;
+        assert_eq!(decode(&f), vec![reject(RejectReason::BadDigit, 11)]);
+        let short = [0xFE, 0xFE, 0x00, 0x5A, 0x00, 0x40, 0x07, 0x14, 0xFD];
+        assert_eq!(decode(&short), vec![reject(RejectReason::BadLength, 9)]);
+        let tiny = [0xFE, 0xFE, 0x00, 0xFD];
+        assert_eq!(decode(&tiny), vec![reject(RejectReason::BadLength, 4)]);
+        // 50 000 Hz: 00 00 05 00 00 by hand; below 100 kHz.
+        let low = [
+            0xFE, 0xFE, 0x00, 0x5A, 0x00, 0x00, 0x00, 0x05, 0x00, 0x00, 0xFD,
+        ];
+        assert_eq!(decode(&low), vec![reject(RejectReason::OutOfRange, 11)]);
+    }
+
+    #[test]
+    fn garbage_is_one_run_per_stretch() {
+        let mut bytes = vec![0x00, 0xFF, 0x13, 0xFD, 0xFE];
+        bytes.extend_from_slice(&F14074);
+        bytes.extend_from_slice(&[0xFF; 7]);
+        bytes.extend_from_slice(&F14074);
+        assert_eq!(
+            decode(&bytes),
+            vec![
+                // The lone FE before the frame's preamble makes a run of
+                // three; only the last two start the frame.
+                reject(RejectReason::Garbage, 5),
+                freq(14_074_000),
+                reject(RejectReason::Garbage, 7),
+                freq(14_074_000),
+            ]
+        );
+    }
+
+    #[test]
+    fn restarted_preamble_abandons_the_partial_frame() {
+        let mut bytes = vec![0xFE, 0xFE, 0x00, 0x5A, 0x00, 0x00];
+        bytes.extend_from_slice(&F14074);
+        assert_eq!(
+            decode(&bytes),
+            vec![reject(RejectReason::Garbage, 6), freq(14_074_000)]
+        );
+    }
+
+    #[test]
+    fn overlong_is_rejected_and_skipped_to_next_preamble() {
+        let mut bytes = vec![0xFE, 0xFE, 0x00];
+        bytes.extend_from_slice(&[0x11; 100]);
+        bytes.push(0xFD);
+        bytes.extend_from_slice(&F14074);
+        // 32-byte frames at most: 104 bytes of overlong run, then the frame.
+        assert_eq!(
+            decode(&bytes),
+            vec![reject(RejectReason::Overlong, 104), freq(14_074_000)]
+        );
+    }
+
+    #[test]
+    fn split_anywhere_gives_the_same() {
+        let mut bytes = vec![0x42, 0xFE];
+        bytes.extend_from_slice(&F14074);
+        bytes.extend_from_slice(&[0xFE, 0xFE, 0xE0, 0x5A, 0x1C, 0x00, 0x01, 0xFD]);
+        let whole = decode(&bytes);
+        for cut in 0..=bytes.len() {
+            let mut d = Dialect::builtin("binary-bcd").unwrap().decoder(None);
+            let mut out = Vec::new();
+            d.feed(Direction::Rx, &bytes[..cut], &mut out);
+            d.feed(Direction::Rx, &bytes[cut..], &mut out);
+            d.finish(&mut out);
+            assert_eq!(out, whole, "cut at {cut}");
+        }
+    }
+
+    #[test]
+    fn four_byte_dialect() {
+        let d = Dialect::builtin("binary-bcd-4").unwrap();
+        let bytes = d.encode_frequency(14_074_000, 0x5A);
+        assert_eq!(
+            bytes,
+            vec![0xFE, 0xFE, 0x00, 0x5A, 0x00, 0x00, 0x40, 0x07, 0x14, 0xFD]
+        );
+        let mut dec = d.decoder(None);
+        let mut out = Vec::new();
+        dec.feed(Direction::Rx, &bytes, &mut out);
+        assert_eq!(out, vec![freq(14_074_000)]);
+    }
+}

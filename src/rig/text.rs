@@ -1,0 +1,367 @@
+//! The text family: `<two upper-case letters><payload>;`.
+//!
+//! A message is the printable ASCII run ending at the terminator. Bytes that
+//! are not printable ASCII (line noise: 0x00, 0xFF, anything with the high bit
+//! set, control characters) cannot belong to a message: they and the
+//! printable bytes before them since the last terminator are one run of
+//! garbage, and a new message may start right after them. So noise glued to
+//! the front of a message costs nothing; printable noise glued to it spoils
+//! it (it cannot be told from a corrupted message). A message longer than the
+//! dialect allows is rejected as overlong and skipped to the next terminator,
+//! without growing the buffer.
+//!
+//! Complete messages are parsed with nom: the two-letter command, then the
+//! payload according to the command.
+
+use nom::bytes::complete::take_while_m_n;
+use nom::combinator::all_consuming;
+use nom::{IResult, Parser};
+
+use super::dialect::{TextSpec, Vfo};
+use super::{
+    plausible, Decode, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent,
+};
+
+/// Decoder for the text family.
+#[derive(Debug)]
+pub struct TextDecoder {
+    spec: TextSpec,
+    rx: Stream,
+    tx: Stream,
+    stats: DecodeStats,
+}
+
+#[derive(Debug)]
+struct Stream {
+    /// The message so far (printable bytes since the last terminator or
+    /// noise byte). Capacity `max_message`, allocated once.
+    buf: Vec<u8>,
+    /// Inside an overlong message: reject up to the next terminator.
+    skipping: bool,
+    run: RejectRun,
+}
+
+impl TextDecoder {
+    pub fn new(spec: TextSpec) -> TextDecoder {
+        let cap = spec.max_message;
+        let stream = || Stream {
+            buf: Vec::with_capacity(cap),
+            skipping: false,
+            run: RejectRun::default(),
+        };
+        TextDecoder {
+            spec,
+            rx: stream(),
+            tx: stream(),
+            stats: DecodeStats::default(),
+        }
+    }
+}
+
+fn printable(b: u8) -> bool {
+    (0x20..0x7F).contains(&b)
+}
+
+impl Decode for TextDecoder {
+    fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>) {
+        let spec = &self.spec;
+        let stats = &mut self.stats;
+        let s = match dir {
+            Direction::Rx => &mut self.rx,
+            Direction::Tx => &mut self.tx,
+        };
+        let term = spec.terminator;
+        let mut rest = chunk;
+        while !rest.is_empty() {
+            if s.skipping {
+                // Everything up to and including the terminator is overlong.
+                match rest.iter().position(|&b| b == term) {
+                    Some(i) => {
+                        s.run.add(RejectReason::Overlong, i + 1, out, stats);
+                        s.skipping = false;
+                        rest = rest.get(i + 1..).unwrap_or_default();
+                    }
+                    None => {
+                        s.run.add(RejectReason::Overlong, rest.len(), out, stats);
+                        rest = &[];
+                    }
+                }
+                continue;
+            }
+            let Some((&b, tail)) = rest.split_first() else {
+                break;
+            };
+            rest = tail;
+            if b == term {
+                let outcome = interpret(spec, dir, &s.buf);
+                let len = s.buf.len() + 1;
+                s.buf.clear();
+                outcome.emit(len, &mut s.run, out, stats);
+            } else if !printable(b) {
+                s.run
+                    .add(RejectReason::Garbage, s.buf.len() + 1, out, stats);
+                s.buf.clear();
+            } else if s.buf.len() >= spec.max_message {
+                s.run
+                    .add(RejectReason::Overlong, s.buf.len() + 1, out, stats);
+                s.buf.clear();
+                s.skipping = true;
+            } else {
+                s.buf.push(b);
+            }
+        }
+    }
+
+    fn finish(&mut self, out: &mut Vec<RigEvent>) {
+        for s in [&mut self.rx, &mut self.tx] {
+            let reason = if s.skipping {
+                RejectReason::Overlong
+            } else {
+                RejectReason::Garbage
+            };
+            s.run.add(reason, s.buf.len(), out, &mut self.stats);
+            s.run.flush(out, &mut self.stats);
+            s.buf.clear();
+            s.skipping = false;
+        }
+    }
+
+    fn buffered(&self) -> usize {
+        self.rx.buf.len() + self.tx.buf.len()
+    }
+
+    fn stats(&self) -> DecodeStats {
+        self.stats
+    }
+}
+
+/// The two-letter command.
+fn command(msg: &[u8]) -> IResult<&[u8], &[u8]> {
+    take_while_m_n(2, 2, |c: u8| c.is_ascii_uppercase()).parse(msg)
+}
+
+/// Exactly `n` decimal digits, as a number.
+fn digits(field: &[u8], n: usize) -> Result<u64, RejectReason> {
+    if field.len() != n {
+        return Err(RejectReason::BadLength);
+    }
+    let r: IResult<&[u8], &[u8]> =
+        all_consuming(take_while_m_n(n, n, |c: u8| c.is_ascii_digit())).parse(field);
+    let (_, ds) = r.map_err(|_| RejectReason::BadDigit)?;
+    // At most 18 digits (the dialect loader's limit): no overflow.
+    Ok(ds.iter().fold(0u64, |v, &d| {
+        v.saturating_mul(10).saturating_add(u64::from(d - b'0'))
+    }))
+}
+
+fn frequency(field: &[u8], n: usize) -> Result<RigEvent, RejectReason> {
+    plausible(digits(field, n)?)
+}
+
+/// A transmit/receive message: no payload, or one digit.
+fn transmit_payload(payload: &[u8], on: bool) -> Outcome {
+    match payload {
+        [] => Outcome::One(RigEvent::Transmit { on }),
+        [d] if d.is_ascii_digit() => Outcome::One(RigEvent::Transmit { on }),
+        [_] => Outcome::Reject(RejectReason::BadDigit),
+        _ => Outcome::Reject(RejectReason::BadLength),
+    }
+}
+
+/// What one complete message (printable, terminator stripped) amounts to.
+fn interpret(spec: &TextSpec, dir: Direction, msg: &[u8]) -> Outcome {
+    if msg.is_empty() {
+        // A bare terminator: harmless, used to clear a rig's input.
+        return Outcome::Ignored;
+    }
+    if dir == Direction::Tx {
+        return Outcome::Ignored;
+    }
+    let Ok((payload, cmd)) = command(msg) else {
+        return Outcome::Reject(if msg.len() < 2 {
+            RejectReason::BadLength
+        } else {
+            RejectReason::Unknown
+        });
+    };
+    let as_outcome = |r: Result<RigEvent, RejectReason>| match r {
+        Ok(e) => Outcome::One(e),
+        Err(reason) => Outcome::Reject(reason),
+    };
+    if cmd == spec.vfo_a || cmd == spec.vfo_b {
+        let vfo = if cmd == spec.vfo_a { Vfo::A } else { Vfo::B };
+        if payload.is_empty() || vfo != spec.active_vfo {
+            // A read request, or the VFO the operator is not on.
+            return Outcome::Ignored;
+        }
+        return as_outcome(frequency(payload, spec.digits));
+    }
+    if cmd == spec.status {
+        if payload.is_empty() {
+            return Outcome::Ignored;
+        }
+        if payload.len() != spec.status_length {
+            return Outcome::Reject(RejectReason::BadLength);
+        }
+        let f0 = spec.status_frequency_offset;
+        let field = payload.get(f0..f0 + spec.digits).unwrap_or_default();
+        let freq = match frequency(field, spec.digits) {
+            Ok(e) => e,
+            Err(reason) => return Outcome::Reject(reason),
+        };
+        let on = match payload.get(spec.status_transmit_offset) {
+            Some(b'0') => false,
+            Some(b'1') => true,
+            _ => return Outcome::Reject(RejectReason::BadDigit),
+        };
+        return Outcome::Two(freq, RigEvent::Transmit { on });
+    }
+    if cmd == spec.transmit_on {
+        return transmit_payload(payload, true);
+    }
+    if cmd == spec.transmit_off {
+        return transmit_payload(payload, false);
+    }
+    Outcome::Ignored
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::rig::Dialect;
+
+    fn decode_in(dialect: &str, dir: Direction, bytes: &[u8]) -> Vec<RigEvent> {
+        let mut d = Dialect::builtin(dialect).unwrap().decoder(None);
+        let mut out = Vec::new();
+        d.feed(dir, bytes, &mut out);
+        d.finish(&mut out);
+        out
+    }
+
+    fn decode(bytes: &[u8]) -> Vec<RigEvent> {
+        decode_in("text-semicolon", Direction::Rx, bytes)
+    }
+
+    fn freq(hz: u64) -> RigEvent {
+        RigEvent::Frequency { hz }
+    }
+
+    fn reject(reason: RejectReason, bytes: usize) -> RigEvent {
+        RigEvent::Reject { reason, bytes }
+    }
+
+    /// A status payload of the built-in 11-digit layout (35 characters,
+    /// frequency at 0, transmit flag at 26), filled with invented values.
+    fn status(hz: u64, tx: bool) -> Vec<u8> {
+        let mut p = format!("{hz:011}").into_bytes();
+        p.resize(35, b'0');
+        p[26] = if tx { b'1' } else { b'0' };
+        let mut m = b"IF".to_vec();
+        m.extend_from_slice(&p);
+        m.push(b';');
+        m
+    }
+
+    #[test]
+    fn vfo_a_transmit_receive() {
+        assert_eq!(decode(b"FA00014074000;"), vec![freq(14_074_000)]);
+        assert_eq!(
+            decode(b"TX;TX0;RX;"),
+            vec![
+                RigEvent::Transmit { on: true },
+                RigEvent::Transmit { on: true },
+                RigEvent::Transmit { on: false }
+            ]
+        );
+    }
+
+    #[test]
+    fn vfo_b_ignored_when_a_is_active() {
+        assert_eq!(decode(b"FB00007074000;"), vec![]);
+    }
+
+    #[test]
+    fn status_carries_frequency_and_transmit() {
+        assert_eq!(
+            decode(&status(7_074_000, true)),
+            vec![freq(7_074_000), RigEvent::Transmit { on: true }]
+        );
+        let mut bad_flag = status(7_074_000, false);
+        bad_flag[2 + 26] = b'x';
+        assert_eq!(decode(&bad_flag), vec![reject(RejectReason::BadDigit, 38)]);
+    }
+
+    #[test]
+    fn requests_other_commands_and_tx_are_ignored() {
+        assert_eq!(decode(b"FA;IF;MD2;;"), vec![]);
+        assert_eq!(
+            decode_in("text-semicolon", Direction::Tx, b"FA00014074000;TX;"),
+            vec![]
+        );
+    }
+
+    #[test]
+    fn rejects_with_reasons() {
+        assert_eq!(
+            decode(b"FA0001407400;"),
+            vec![reject(RejectReason::BadLength, 13)]
+        );
+        assert_eq!(
+            decode(b"FA0001407400O;"),
+            vec![reject(RejectReason::BadDigit, 14)]
+        );
+        assert_eq!(
+            decode(b"fa00014074000;"),
+            vec![reject(RejectReason::Unknown, 14)]
+        );
+        assert_eq!(decode(b"F;"), vec![reject(RejectReason::BadLength, 2)]);
+        assert_eq!(
+            decode(b"FA00000050000;"),
+            vec![reject(RejectReason::OutOfRange, 14)]
+        );
+        assert_eq!(decode(b"TX12;"), vec![reject(RejectReason::BadLength, 5)]);
+    }
+
+    #[test]
+    fn noise_before_a_message_is_one_garbage_run() {
+        let mut bytes = vec![0xFF, 0x00, b'F', b'A', b'0', 0x80];
+        bytes.extend_from_slice(b"FA00014074000;");
+        assert_eq!(
+            decode(&bytes),
+            vec![reject(RejectReason::Garbage, 6), freq(14_074_000)]
+        );
+    }
+
+    #[test]
+    fn long_run_without_terminator_stays_bounded() {
+        let mut d = Dialect::builtin("text-semicolon").unwrap().decoder(None);
+        let mut out = Vec::new();
+        let run = vec![b'7'; 10_000];
+        for _ in 0..10 {
+            d.feed(Direction::Rx, &run, &mut out);
+            assert!(d.buffered() <= 48);
+        }
+        d.feed(Direction::Rx, b";FA00014074000;", &mut out);
+        // 100 001 bytes of overlong run: one full report piece, then the rest.
+        assert_eq!(
+            out,
+            vec![
+                reject(RejectReason::Overlong, 65_536),
+                reject(RejectReason::Overlong, 100_001 - 65_536),
+                freq(14_074_000)
+            ]
+        );
+    }
+
+    #[test]
+    fn nine_digit_dialect() {
+        assert_eq!(
+            decode_in("text-semicolon-9", Direction::Rx, b"FA014074000;"),
+            vec![freq(14_074_000)]
+        );
+        assert_eq!(
+            decode_in("text-semicolon-9", Direction::Rx, b"FA00014074000;"),
+            vec![reject(RejectReason::BadLength, 14)]
+        );
+    }
+}
