@@ -17,5 +17,6 @@ pub mod journal;
 pub mod replay;
 pub mod rig;
 pub mod scenario;
+pub mod service;
 pub mod timeline;
 pub mod tuner;
