@@ -15,5 +15,6 @@ pub mod follow;
 pub mod replay;
 pub mod rig;
 pub mod scenario;
+pub mod station;
 pub mod timeline;
 pub mod tuner;
