@@ -18,5 +18,6 @@ pub mod replay;
 pub mod rig;
 pub mod scenario;
 pub mod service;
+pub mod station;
 pub mod timeline;
 pub mod tuner;

@@ -1,11 +1,23 @@
 //! The `tuneward` command: argument parsing only; the work is in the library.
 
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
 use clap::{Parser, Subcommand};
+
+use tuneward::timeline::{Human, JsonLines, Timeline};
 
 /// Keeps a remotely tuned antenna (a small transmitting loop, say) tuned to
 /// wherever the operator puts the transceiver's VFO.
+///
+/// tuneward listens to the rig's control port, waits until the operator has
+/// settled on a frequency, maps it through the station's calibration to a
+/// motor position and moves the tuner: never while the rig transmits, with
+/// the transmit inhibit asserted around every move, and never beyond the
+/// travel limits.
 #[derive(Parser)]
-#[command(name = "tuneward", version, about, long_about = None)]
+#[command(name = "tuneward", version, about, long_about, max_term_width = 100)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -13,6 +25,35 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
+    /// Replay a capture of a rig's control port through a station's config,
+    /// against a simulated tuner, and print what would have happened.
+    ///
+    /// Runs in virtual time, as fast as the machine allows. The timeline is
+    /// readable text by default; --json writes one JSON object per line
+    /// (see protocols/timeline.md).
+    Replay {
+        /// Capture file (format: protocols/capture.md).
+        capture: PathBuf,
+        /// The station's config (TOML; see config/example.toml).
+        #[arg(long, short)]
+        config: PathBuf,
+        /// Write JSON lines instead of text.
+        #[arg(long)]
+        json: bool,
+        /// Where the simulated motor starts, in steps [default: tuner.min_steps].
+        #[arg(long, value_name = "N", allow_negative_numbers = true)]
+        start_steps: Option<i64>,
+        /// Also show every frequency report and ignored stretch of bytes.
+        #[arg(long, short)]
+        verbose: bool,
+    },
+    /// Replay an invented evening at a demo station: no hardware, no arguments.
+    Demo {
+        /// Write JSON lines instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Fit a calibration to measured points and report how well it holds.
     Fit(tuneward::calibrate::cli::FitArgs),
     /// Simulate a stepper controller speaking the line protocol
     /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
@@ -21,24 +62,74 @@ enum Command {
     /// the position journal, e.g. after the journal reported a move that
     /// never finished.
     SetPosition(tuneward::journal::SetPositionArgs),
+    /// Check a config and show the bands, limits and calibration it describes.
+    Check {
+        /// The station's config (TOML).
+        #[arg(long, short)]
+        config: PathBuf,
+    },
 }
 
-fn main() -> std::process::ExitCode {
+fn main() -> ExitCode {
     let cli = Cli::parse();
-    match cli.command {
-        Command::Fit(args) => tuneward::calibrate::cli::run_fit(args),
-        Command::SimTuner(args) => report(tuneward::tuner::server::run_sim_tuner(&args)),
-        Command::SetPosition(args) => report(tuneward::journal::run_set_position(&args)),
+    let stdout = std::io::stdout();
+    let mut out = stdout.lock();
+    let result = match cli.command {
+        Command::Replay {
+            capture,
+            config,
+            json,
+            start_steps,
+            verbose,
+        } => {
+            let mut json_out;
+            let mut human_out;
+            let timeline: &mut dyn Timeline = if json {
+                json_out = JsonLines(&mut out);
+                &mut json_out
+            } else {
+                human_out = Human::new(&mut out, verbose);
+                &mut human_out
+            };
+            tuneward::station::replay_file(&config, &capture, start_steps, timeline).map(|_| ())
+        }
+        Command::Demo { json } => tuneward::station::demo(&mut out, json).map(|_| ()),
+        Command::Check { config } => tuneward::station::check(&config, &mut out),
+        Command::Fit(args) => {
+            drop(out);
+            return tuneward::calibrate::cli::run_fit(args);
+        }
+        Command::SimTuner(args) => {
+            drop(out);
+            return report(tuneward::tuner::server::run_sim_tuner(&args));
+        }
+        Command::SetPosition(args) => {
+            drop(out);
+            return report(tuneward::journal::run_set_position(&args));
+        }
+    };
+    let _ = out.flush();
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("tuneward: {e}");
+            let mut source = std::error::Error::source(&e);
+            while let Some(s) = source {
+                eprintln!("  because: {s}");
+                source = s.source();
+            }
+            ExitCode::FAILURE
+        }
     }
 }
 
 /// Prints an error and turns the outcome into the exit code.
-fn report(result: Result<(), String>) -> std::process::ExitCode {
+fn report(result: Result<(), String>) -> ExitCode {
     match result {
-        Ok(()) => std::process::ExitCode::SUCCESS,
+        Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("tuneward: {e}");
-            std::process::ExitCode::FAILURE
+            ExitCode::FAILURE
         }
     }
 }

@@ -210,8 +210,24 @@ impl<'t> Replay<'t> {
                         },
                     )?;
                 }
-                Action::Move { from, to, hz } => {
-                    self.timeline.entry(now, &Entry::Move { from, to, hz })?;
+                Action::Settled { hz } => {
+                    self.timeline.entry(now, &Entry::Settle { hz })?;
+                }
+                Action::Move {
+                    from,
+                    to,
+                    hz,
+                    tune_hz,
+                } => {
+                    self.timeline.entry(
+                        now,
+                        &Entry::Move {
+                            from,
+                            to,
+                            hz,
+                            tune_hz,
+                        },
+                    )?;
                 }
                 Action::Goto { steps } => {
                     let p = self.core.policy();

@@ -241,7 +241,9 @@ pub fn demo_evening() -> Scenario {
         .raw(&[0xFE, 0xFE, 0xFE]);
     s.wait(sec(60));
     // 20 m: a contest-style run, many short overs, then a long sweep.
-    s.jump(14_250_000).wait(sec(20)).overs(10, sec(4), sec(8));
+    // Straight onto the air after the jump, before the tuner could move:
+    // the move waits for the end of the over.
+    s.jump(14_250_000).wait(ms(150)).overs(10, sec(4), sec(8));
     s.sweep(14_020_000, 2_000, ms(40))
         .wait(sec(40))
         .overs(3, sec(20), sec(25));

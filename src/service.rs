@@ -417,9 +417,15 @@ impl Driver {
                         }
                     }
                 },
+                Action::Settled { hz } => tracing::info!(hz, "settled"),
                 Action::Hold { hz, reason } => tracing::info!(hz, %reason, "hold"),
-                Action::Move { from, to, hz } => {
-                    tracing::info!(from, to, hz, "move");
+                Action::Move {
+                    from,
+                    to,
+                    hz,
+                    tune_hz,
+                } => {
+                    tracing::info!(from, to, hz, tune_hz, "move");
                     let written = match &self.journal {
                         Some(j) => j.record_intent(from, to).map_err(|e| e.to_string()),
                         None => Ok(()),

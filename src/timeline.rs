@@ -21,6 +21,9 @@ pub enum Entry {
     Transmit {
         on: bool,
     },
+    Settle {
+        hz: u64,
+    },
     Reject {
         reason: &'static str,
         bytes: usize,
@@ -33,6 +36,7 @@ pub enum Entry {
         from: i64,
         to: i64,
         hz: u64,
+        tune_hz: u64,
     },
     Arrive {
         steps: i64,
@@ -127,13 +131,18 @@ pub fn seconds(t: Duration) -> f64 {
 /// Readable lines: time, what, details.
 pub struct Human<W: Write> {
     out: W,
-    /// Print every frequency report, not only the decisions.
+    /// Print every report and ignored stretch, not only the decisions.
     pub verbose: bool,
+    transmit_since: Option<Duration>,
 }
 
 impl<W: Write> Human<W> {
     pub fn new(out: W, verbose: bool) -> Self {
-        Human { out, verbose }
+        Human {
+            out,
+            verbose,
+            transmit_since: None,
+        }
     }
 }
 
@@ -151,8 +160,25 @@ impl<W: Write> Timeline for Human<W> {
                 }
                 format!("rig on      {}", mhz(*hz))
             }
-            Entry::Transmit { on: true } => "rig         transmitting".to_string(),
-            Entry::Transmit { on: false } => "rig         receiving".to_string(),
+            Entry::Transmit { on } if self.verbose => {
+                format!(
+                    "rig         {}",
+                    if *on { "transmitting" } else { "receiving" }
+                )
+            }
+            // Without --verbose an over is one line, written when it ends.
+            Entry::Transmit { on: true } => {
+                self.transmit_since.get_or_insert(t);
+                return Ok(());
+            }
+            Entry::Transmit { on: false } => match self.transmit_since.take() {
+                Some(since) => format!(
+                    "receive     after {:.1} s of transmitting",
+                    seconds(t.saturating_sub(since))
+                ),
+                None => return Ok(()),
+            },
+            Entry::Settle { hz } => format!("settled     {}", mhz(*hz)),
             Entry::Reject { reason, bytes } => {
                 if !self.verbose {
                     return Ok(());
@@ -160,9 +186,20 @@ impl<W: Write> Timeline for Human<W> {
                 format!("ignored     {bytes} bytes ({reason})")
             }
             Entry::Hold { hz, reason } => format!("stay        {} ({reason})", mhz(*hz)),
-            Entry::Move { from, to, hz } => {
+            Entry::Move {
+                from,
+                to,
+                hz,
+                tune_hz,
+            } if hz == tune_hz => {
                 format!("move        {from} -> {to} steps for {}", mhz(*hz))
             }
+            Entry::Move {
+                from, to, tune_hz, ..
+            } => format!(
+                "move        {from} -> {to} steps for the band edge, {}",
+                mhz(*tune_hz)
+            ),
             Entry::Arrive { steps } => format!("at rest     {steps} steps"),
             Entry::Inhibit { on: true } => "inhibit     on".to_string(),
             Entry::Inhibit { on: false } => "inhibit     off".to_string(),
@@ -211,6 +248,7 @@ mod tests {
                 from: 10,
                 to: 20,
                 hz: 7_074_000,
+                tune_hz: 7_074_000,
             },
         )
         .unwrap();
@@ -237,7 +275,7 @@ mod tests {
             .collect();
         assert_eq!(
             lines[0],
-            serde_json::json!({"t": 12.345, "kind": "move", "from": 10, "to": 20, "hz": 7074000})
+            serde_json::json!({"t": 12.345, "kind": "move", "from": 10, "to": 20, "hz": 7074000, "tune_hz": 7074000})
         );
         assert_eq!(lines[1]["t"], 0.000001);
         assert_eq!(lines[1]["reason"], "garbage");

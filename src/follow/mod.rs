@@ -76,13 +76,23 @@ impl fmt::Display for HoldReason {
 /// What the core asks its driver to do, in order.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Action {
+    /// The operator has settled on `hz` (it stayed the latest report for the
+    /// debounce time): a decision follows.
+    Settled { hz: u64 },
     /// Set the transmit-inhibit output.
     Inhibit { on: bool },
     /// A decision not to move (or a clamped one), for the log.
     Hold { hz: u64, reason: HoldReason },
     /// A repositioning begins: from `from` to the final position `to`, for
-    /// the settled frequency `hz`. Record the intent before the first leg.
-    Move { from: i64, to: i64, hz: u64 },
+    /// the settled frequency `hz`, tuning the loop for `tune_hz` (the same,
+    /// or the nearest band edge from a guard margin). Record the intent
+    /// before the first leg.
+    Move {
+        from: i64,
+        to: i64,
+        hz: u64,
+        tune_hz: u64,
+    },
     /// Command the controller to go to `steps` (one leg of a move).
     Goto { steps: i64 },
     /// Command the controller to stop where it is.
@@ -458,6 +468,7 @@ impl Follower {
             self.touchup = None;
         }
         self.settled_hz = Some(hz);
+        self.actions.push_back(Action::Settled { hz });
         self.decide(now, hz);
     }
 
@@ -579,6 +590,7 @@ impl Follower {
             from,
             to,
             hz: target.hz,
+            tune_hz: target.tune_hz,
         });
         self.actions.push_back(Action::Goto { steps: legs.first });
         self.motion = Motion::Moving {

@@ -52,8 +52,11 @@ fn core(position: Option<i64>) -> Follower {
     Follower::new(policy(), Arc::new(Line), position)
 }
 
+/// The actions so far, less the `Settled` notes (checked on their own).
 fn drain(f: &mut Follower) -> Vec<Action> {
-    std::iter::from_fn(|| f.poll_action()).collect()
+    std::iter::from_fn(|| f.poll_action())
+        .filter(|a| !matches!(a, Action::Settled { .. }))
+        .collect()
 }
 
 fn gotos(actions: &[Action]) -> Vec<i64> {
@@ -97,11 +100,26 @@ fn knob_turning_moves_once_after_it_stops() {
             Action::Move {
                 from: 10_000,
                 to: 9_710,
-                hz: 7_029_000
+                hz: 7_029_000,
+                tune_hz: 7_029_000,
             },
             Action::Goto { steps: 9_680 },
         ]
     );
+}
+
+#[test]
+fn settling_is_announced_once_per_settled_frequency() {
+    let mut f = core(Some(10_000));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_frequency(ms(100), 7_050_000);
+    f.handle_timeout(ms(400));
+    f.handle_frequency(ms(500), 7_050_000);
+    f.handle_timeout(ms(2_000));
+    let settled: Vec<Action> = std::iter::from_fn(|| f.poll_action())
+        .filter(|a| matches!(a, Action::Settled { .. }))
+        .collect();
+    assert_eq!(settled, vec![Action::Settled { hz: 7_050_000 }]);
 }
 
 #[test]
@@ -212,7 +230,8 @@ fn guard_margin_tunes_for_the_nearest_band_edge() {
     assert!(a.contains(&Action::Move {
         from: 9_000,
         to: 10_000,
-        hz: 6_995_000
+        hz: 6_995_000,
+        tune_hz: 7_000_000,
     }));
     assert_eq!(f.tuned_hz(), Some(7_000_000));
 }
@@ -230,7 +249,8 @@ fn targets_beyond_the_limits_are_clamped_and_reported() {
     assert!(a.contains(&Action::Move {
         from: 9_000,
         to: 9_800,
-        hz: 7_001_000
+        hz: 7_001_000,
+        tune_hz: 7_001_000,
     }));
     assert!(gotos(&a).iter().all(|s| (0..=9_800).contains(s)));
 }
@@ -242,7 +262,8 @@ fn backlash_overshoots_when_coming_from_the_wrong_side() {
     assert!(a.contains(&Action::Move {
         from: 9_000,
         to: 8_500,
-        hz: 7_150_000
+        hz: 7_150_000,
+        tune_hz: 7_150_000,
     }));
     assert_eq!(gotos(&a), vec![8_470]);
     f.handle_arrived(ms(2_000), 8_470);
@@ -309,7 +330,8 @@ fn transmit_during_a_move_stops_it_and_resumes_on_receive() {
     assert!(a.contains(&Action::Move {
         from: 8_800,
         to: 8_500,
-        hz: 7_150_000
+        hz: 7_150_000,
+        tune_hz: 7_150_000,
     }));
     assert_eq!(gotos(&a), vec![8_470]);
 }
@@ -331,7 +353,8 @@ fn unknown_position_keeps_inhibit_and_holds_until_reported() {
     assert!(a.contains(&Action::Move {
         from: 9_100,
         to: 9_500,
-        hz: 7_050_000
+        hz: 7_050_000,
+        tune_hz: 7_050_000,
     }));
     assert!(!a.contains(&Action::Inhibit { on: false }));
 }
@@ -358,7 +381,8 @@ fn a_fault_holds_with_inhibit_until_the_position_is_known_again() {
     assert!(a.contains(&Action::Move {
         from: 9_200,
         to: 9_100,
-        hz: 7_090_000
+        hz: 7_090_000,
+        tune_hz: 7_090_000,
     }));
     assert_eq!(gotos(&a), vec![9_070]);
 }
