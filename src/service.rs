@@ -81,6 +81,74 @@ pub struct Outcome {
     pub faults: u64,
 }
 
+impl Service {
+    /// The live service a station's config describes: the rig's port from
+    /// `[rig]` (`port`, `baud`; 8 data bits, no parity, one stop bit), the
+    /// controller from `tuner.link`, the inhibit from `[inhibit]`, the
+    /// journal from `tuner.state_file`.
+    pub fn from_station(station: &crate::station::Station) -> Result<Service, String> {
+        let config = &station.config;
+        let file = config
+            .source
+            .as_deref()
+            .map(|p| p.display().to_string())
+            .unwrap_or_else(|| "<config>".to_string());
+        let port = config.rig.port.clone().ok_or_else(|| {
+            format!("{file}: key `rig.port`: expected the rig's serial device (e.g. /dev/serial/by-id/...), found none")
+        })?;
+        let controller =
+            ClientConfig::from_tuner(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
+        let inhibit = crate::inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
+        Ok(Service {
+            follower: Follower::new(
+                station.policy.clone(),
+                std::sync::Arc::clone(&station.map),
+                None,
+            ),
+            decoder: station.dialect.decoder(config.rig.address),
+            rig: RigSource::Link(LinkConfig::new(crate::rig::link::PortSettings::new(
+                port,
+                config.rig.baud,
+            ))),
+            controller,
+            inhibit,
+            journal: Some(Journal::for_config(config)),
+        })
+    }
+}
+
+/// Runs the live service for the config at `config` until interrupted
+/// (Ctrl-C or SIGTERM), on a runtime of its own.
+pub fn run_config(config: &std::path::Path) -> Result<Outcome, String> {
+    let station = crate::station::Station::load(config).map_err(|e| e.to_string())?;
+    let service = Service::from_station(&station)?;
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+    rt.block_on(async move {
+        let (stop_tx, stop_rx) = watch::channel(false);
+        tokio::spawn(async move {
+            let term = async {
+                match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+                    Ok(mut s) => {
+                        s.recv().await;
+                    }
+                    Err(_) => std::future::pending::<()>().await,
+                }
+            };
+            tokio::select! {
+                _ = tokio::signal::ctrl_c() => {}
+                _ = term => {}
+            }
+            tracing::info!("shutting down");
+            stop_tx.send_replace(true);
+        });
+        run(service, stop_rx).await
+    })
+}
+
 /// How long a failed resource waits before the driver asks `WHERE` again.
 const RETRY_AFTER: Duration = Duration::from_secs(2);
 /// How long shutdown waits for a stopping motor to report where it is.

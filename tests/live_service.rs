@@ -227,3 +227,105 @@ async fn a_failing_inhibit_output_means_no_move() {
     assert_eq!(out.moves, 0);
     assert!(out.faults >= 1);
 }
+
+/// The whole service from a config file: the rig on a pseudo-terminal
+/// behind a symlink, the controller simulator on loopback TCP.
+#[tokio::test]
+async fn runs_from_a_station_config_with_real_links() {
+    use tokio::io::AsyncWriteExt;
+    use tokio_serial::SerialPort;
+    use tuneward::station::Station;
+    use tuneward::tuner::server::{place_symlink, run_tcp, SimController};
+    use tuneward::tuner::sim::SimParams;
+
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, rig_far) = tokio_serial::SerialStream::pair().unwrap();
+    let rig_link = dir.path().join("rig");
+    place_symlink(&rig_link, std::path::Path::new(&rig_far.name().unwrap())).unwrap();
+
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+    let addr = listener.local_addr().unwrap();
+    let (_sim_stop, sim_shutdown) = watch::channel(false);
+    let params = SimParams {
+        steps_per_second: 20_000.0,
+        settle_ms: 10,
+        backlash_steps: 0,
+        min_steps: 0,
+        max_steps: 3000,
+    };
+    tokio::spawn(run_tcp(
+        listener,
+        SimController::new(params, 0).unwrap(),
+        sim_shutdown,
+    ));
+
+    let config = dir.path().join("station.toml");
+    std::fs::write(
+        &config,
+        format!(
+            r#"
+[rig]
+protocol = "text-semicolon"
+port = "{rig}"
+baud = 38400
+
+[tuner]
+link = "tcp://{addr}"
+min_steps = 0
+max_steps = 3000
+steps_per_second = 20000
+settle_ms = 10
+state_file = "motor.state"
+
+[follow]
+debounce_ms = 30
+hysteresis_hz = 100
+inhibit_lead_ms = 5
+inhibit_tail_ms = 20
+
+[calibration]
+model = "interpolate"
+points = [{{ hz = 7000000, steps = 0 }}, {{ hz = 7300000, steps = 3000 }}]
+
+[[band]]
+name = "40m"
+low_hz = 7000000
+high_hz = 7300000
+"#,
+            rig = rig_link.display()
+        ),
+    )
+    .unwrap();
+    let station = Station::load(&config).unwrap();
+    let service = Service::from_station(&station).unwrap();
+    let (stop, shutdown) = watch::channel(false);
+    let task = tokio::spawn(run(service, shutdown));
+
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let wait_for = |want: Recorded| {
+        let journal = journal.clone();
+        async move {
+            let until = Instant::now() + Duration::from_secs(5);
+            loop {
+                if journal.load().unwrap() == Some(want) {
+                    return;
+                }
+                assert!(Instant::now() < until, "journal {:?}", journal.load());
+                tokio::time::sleep(Duration::from_millis(10)).await;
+            }
+        }
+    };
+    wait_for(Recorded::Known(0)).await;
+    let bytes = station.dialect.encode_frequency(7_150_000, 0);
+    rig.write_all(&bytes).await.unwrap();
+    // Half way between the two invented points.
+    wait_for(Recorded::Known(1500)).await;
+    stop.send_replace(true);
+    let out = tokio::time::timeout(Duration::from_secs(5), task)
+        .await
+        .unwrap()
+        .unwrap()
+        .unwrap();
+    assert_eq!(out.position, Some(1500));
+    assert_eq!(out.moves, 1);
+}
