@@ -59,6 +59,53 @@ pub struct RigConfig {
     /// address except the controller's own.
     #[serde(default)]
     pub address: Option<u8>,
+    /// Serial framing of the rig's port: data bits (5 to 8).
+    #[serde(default = "default_data_bits")]
+    pub data_bits: u8,
+    /// `"none"`, `"odd"` or `"even"`.
+    #[serde(default)]
+    pub parity: SerialParity,
+    /// 1 or 2.
+    #[serde(default = "default_stop_bits")]
+    pub stop_bits: u8,
+    /// `"none"`, `"software"` (XON/XOFF) or `"hardware"` (RTS/CTS).
+    #[serde(default)]
+    pub flow_control: SerialFlow,
+    /// For rigs that do not report on their own: ask for the frequency every
+    /// this many ms (the interval stretches while the rig does not answer).
+    #[serde(default)]
+    pub poll_ms: Option<u64>,
+    /// Share the port with another program: tuneward opens `port` and puts a
+    /// symlink to a pseudo-terminal here for the other program to open.
+    #[serde(default)]
+    pub share_as: Option<PathBuf>,
+}
+
+/// Parity of a serial port.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SerialParity {
+    #[default]
+    None,
+    Odd,
+    Even,
+}
+
+/// Flow control of a serial port.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SerialFlow {
+    #[default]
+    None,
+    Software,
+    Hardware,
+}
+
+fn default_data_bits() -> u8 {
+    8
+}
+fn default_stop_bits() -> u8 {
+    1
 }
 
 fn default_protocol() -> String {
@@ -75,6 +122,12 @@ impl Default for RigConfig {
             port: None,
             baud: default_baud(),
             address: None,
+            data_bits: default_data_bits(),
+            parity: SerialParity::None,
+            stop_bits: default_stop_bits(),
+            flow_control: SerialFlow::None,
+            poll_ms: None,
+            share_as: None,
         }
     }
 }

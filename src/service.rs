@@ -99,6 +99,59 @@ impl Service {
         let controller =
             ClientConfig::from_tuner(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
         let inhibit = crate::inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
+        let settings = port_settings(&config.rig, port).map_err(|e| format!("{file}: {e}"))?;
+        let poll = match config.rig.poll_ms {
+            None => None,
+            Some(0) => {
+                return Err(format!(
+                    "{file}: key `rig.poll_ms`: expected a positive number of ms, found 0"
+                ))
+            }
+            Some(ms) => {
+                let address = match (station.dialect.family(), config.rig.address) {
+                    (crate::rig::Family::Binary, None) => {
+                        return Err(format!(
+                            "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
+                        ))
+                    }
+                    (_, a) => a.unwrap_or(0),
+                };
+                let mut query = station.dialect.poll_frequency(address);
+                query.extend(station.dialect.poll_transmit(address));
+                let every = Duration::from_millis(ms);
+                Some(crate::rig::link::PollConfig {
+                    query,
+                    every,
+                    max_every: every.max(Duration::from_secs(4)),
+                })
+            }
+        };
+        let rig = match &config.rig.share_as {
+            Some(link) => {
+                let link = match config.source.as_deref().and_then(std::path::Path::parent) {
+                    Some(dir) if link.is_relative() => dir.join(link),
+                    _ => link.clone(),
+                };
+                let end = match &station.dialect.spec {
+                    crate::rig::dialect::Spec::Binary(b) => b.terminator,
+                    crate::rig::dialect::Spec::Text(t) => t.terminator,
+                };
+                RigSource::Proxy {
+                    config: ProxyConfig {
+                        port: settings,
+                        link,
+                        poll,
+                        backoff_cap: Duration::from_secs(2),
+                    },
+                    boundary: Box::new(crate::rig::proxy::ends_with(end)),
+                }
+            }
+            None => RigSource::Link(LinkConfig {
+                port: settings,
+                poll,
+                backoff_cap: Duration::from_secs(2),
+            }),
+        };
         Ok(Service {
             follower: Follower::new(
                 station.policy.clone(),
@@ -106,15 +159,52 @@ impl Service {
                 None,
             ),
             decoder: station.dialect.decoder(config.rig.address),
-            rig: RigSource::Link(LinkConfig::new(crate::rig::link::PortSettings::new(
-                port,
-                config.rig.baud,
-            ))),
+            rig,
             controller,
             inhibit,
             journal: Some(Journal::for_config(config)),
         })
     }
+}
+
+/// The rig port's settings from `[rig]`, with the keys named in errors.
+pub fn port_settings(
+    rig: &crate::config::RigConfig,
+    port: String,
+) -> Result<crate::rig::link::PortSettings, String> {
+    use crate::config::{SerialFlow, SerialParity};
+    use crate::rig::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
+    if rig.baud == 0 {
+        return Err("key `rig.baud`: expected a positive baud rate, found 0".to_string());
+    }
+    let mut s = PortSettings::new(port, rig.baud);
+    s.data_bits = match rig.data_bits {
+        5 => DataBits::Five,
+        6 => DataBits::Six,
+        7 => DataBits::Seven,
+        8 => DataBits::Eight,
+        n => {
+            return Err(format!(
+                "key `rig.data_bits`: expected 5, 6, 7 or 8, found {n}"
+            ))
+        }
+    };
+    s.stop_bits = match rig.stop_bits {
+        1 => StopBits::One,
+        2 => StopBits::Two,
+        n => return Err(format!("key `rig.stop_bits`: expected 1 or 2, found {n}")),
+    };
+    s.parity = match rig.parity {
+        SerialParity::None => Parity::None,
+        SerialParity::Odd => Parity::Odd,
+        SerialParity::Even => Parity::Even,
+    };
+    s.flow = match rig.flow_control {
+        SerialFlow::None => FlowControl::None,
+        SerialFlow::Software => FlowControl::Software,
+        SerialFlow::Hardware => FlowControl::Hardware,
+    };
+    Ok(s)
 }
 
 /// Runs the live service for the config at `config` until interrupted

@@ -228,38 +228,16 @@ async fn a_failing_inhibit_output_means_no_move() {
     assert!(out.faults >= 1);
 }
 
-/// The whole service from a config file: the rig on a pseudo-terminal
-/// behind a symlink, the controller simulator on loopback TCP.
-#[tokio::test]
-async fn runs_from_a_station_config_with_real_links() {
-    use tokio::io::AsyncWriteExt;
-    use tokio_serial::SerialPort;
-    use tuneward::station::Station;
-    use tuneward::tuner::server::{place_symlink, run_tcp, SimController};
-    use tuneward::tuner::sim::SimParams;
-
-    let dir = tempfile::tempdir().unwrap();
-    let (mut rig, rig_far) = tokio_serial::SerialStream::pair().unwrap();
-    let rig_link = dir.path().join("rig");
-    place_symlink(&rig_link, std::path::Path::new(&rig_far.name().unwrap())).unwrap();
-
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
-    let addr = listener.local_addr().unwrap();
-    let (_sim_stop, sim_shutdown) = watch::channel(false);
-    let params = SimParams {
-        steps_per_second: 20_000.0,
-        settle_ms: 10,
-        backlash_steps: 0,
-        min_steps: 0,
-        max_steps: 3000,
-    };
-    tokio::spawn(run_tcp(
-        listener,
-        SimController::new(params, 0).unwrap(),
-        sim_shutdown,
-    ));
-
-    let config = dir.path().join("station.toml");
+/// Invented demo station: the rig on `rig_link`, the controller simulator
+/// at `addr`, 0 to 3000 steps over 7.0 to 7.3 MHz; `extra_rig` adds keys
+/// to `[rig]`.
+fn station_config(
+    dir: &std::path::Path,
+    rig_link: &std::path::Path,
+    addr: std::net::SocketAddr,
+    extra_rig: &str,
+) -> std::path::PathBuf {
+    let config = dir.join("station.toml");
     std::fs::write(
         &config,
         format!(
@@ -268,6 +246,7 @@ async fn runs_from_a_station_config_with_real_links() {
 protocol = "text-semicolon"
 port = "{rig}"
 baud = 38400
+{extra_rig}
 
 [tuner]
 link = "tcp://{addr}"
@@ -296,30 +275,75 @@ high_hz = 7300000
         ),
     )
     .unwrap();
+    config
+}
+
+/// A rig on a pseudo-terminal behind a symlink, and the controller
+/// simulator on loopback TCP.
+async fn rig_and_controller(
+    dir: &std::path::Path,
+) -> (
+    tokio_serial::SerialStream,
+    tokio_serial::SerialStream,
+    std::path::PathBuf,
+    std::net::SocketAddr,
+    watch::Sender<bool>,
+) {
+    use tokio_serial::SerialPort;
+    use tuneward::tuner::server::{place_symlink, run_tcp, SimController};
+    use tuneward::tuner::sim::SimParams;
+    let (rig, rig_far) = tokio_serial::SerialStream::pair().unwrap();
+    let rig_link = dir.join("rig");
+    place_symlink(&rig_link, std::path::Path::new(&rig_far.name().unwrap())).unwrap();
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+    let addr = listener.local_addr().unwrap();
+    let (sim_stop, sim_shutdown) = watch::channel(false);
+    let params = SimParams {
+        steps_per_second: 20_000.0,
+        settle_ms: 10,
+        backlash_steps: 0,
+        min_steps: 0,
+        max_steps: 3000,
+    };
+    tokio::spawn(run_tcp(
+        listener,
+        SimController::new(params, 0).unwrap(),
+        sim_shutdown,
+    ));
+    (rig, rig_far, rig_link, addr, sim_stop)
+}
+
+async fn wait_for(journal: &Journal, want: Recorded) {
+    let until = Instant::now() + Duration::from_secs(5);
+    loop {
+        if journal.load().unwrap() == Some(want) {
+            return;
+        }
+        assert!(Instant::now() < until, "journal {:?}", journal.load());
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    }
+}
+
+/// The whole service from a config file, with real link tasks.
+#[tokio::test]
+async fn runs_from_a_station_config_with_real_links() {
+    use tokio::io::AsyncWriteExt;
+    use tuneward::station::Station;
+
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _rig_far, rig_link, addr, _sim) = rig_and_controller(dir.path()).await;
+    let config = station_config(dir.path(), &rig_link, addr, "");
     let station = Station::load(&config).unwrap();
     let service = Service::from_station(&station).unwrap();
     let (stop, shutdown) = watch::channel(false);
     let task = tokio::spawn(run(service, shutdown));
 
     let journal = Journal::new(dir.path().join("motor.state"));
-    let wait_for = |want: Recorded| {
-        let journal = journal.clone();
-        async move {
-            let until = Instant::now() + Duration::from_secs(5);
-            loop {
-                if journal.load().unwrap() == Some(want) {
-                    return;
-                }
-                assert!(Instant::now() < until, "journal {:?}", journal.load());
-                tokio::time::sleep(Duration::from_millis(10)).await;
-            }
-        }
-    };
-    wait_for(Recorded::Known(0)).await;
+    wait_for(&journal, Recorded::Known(0)).await;
     let bytes = station.dialect.encode_frequency(7_150_000, 0);
     rig.write_all(&bytes).await.unwrap();
     // Half way between the two invented points.
-    wait_for(Recorded::Known(1500)).await;
+    wait_for(&journal, Recorded::Known(1500)).await;
     stop.send_replace(true);
     let out = tokio::time::timeout(Duration::from_secs(5), task)
         .await
@@ -328,4 +352,83 @@ high_hz = 7300000
         .unwrap();
     assert_eq!(out.position, Some(1500));
     assert_eq!(out.moves, 1);
+}
+
+/// `share_as` and `poll_ms`: the service polls a silent rig through the
+/// proxy, another program shares the port, and the rig's answer moves the
+/// tuner.
+#[tokio::test]
+async fn shares_the_port_and_polls_a_silent_rig() {
+    use tokio::io::{AsyncReadExt, AsyncWriteExt};
+    use tuneward::station::Station;
+
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _rig_far, rig_link, addr, _sim) = rig_and_controller(dir.path()).await;
+    let config = station_config(
+        dir.path(),
+        &rig_link,
+        addr,
+        "poll_ms = 50\nshare_as = \"shared\"",
+    );
+    let station = Station::load(&config).unwrap();
+    let service = Service::from_station(&station).unwrap();
+    let (stop, shutdown) = watch::channel(false);
+    let task = tokio::spawn(run(service, shutdown));
+    let journal = Journal::new(dir.path().join("motor.state"));
+    wait_for(&journal, Recorded::Known(0)).await;
+
+    // The rig hears our query, exactly as the dialect words it.
+    let query = [
+        station.dialect.poll_frequency(0),
+        station.dialect.poll_transmit(0),
+    ]
+    .concat();
+    let mut heard = vec![0u8; query.len()];
+    tokio::time::timeout(Duration::from_secs(5), rig.read_exact(&mut heard))
+        .await
+        .unwrap()
+        .unwrap();
+    assert_eq!(heard, query);
+
+    // Another program on the shared port hears the rig's answer too.
+    let shared = dir.path().join("shared");
+    let mut other =
+        tokio_serial::SerialStream::open(&tokio_serial::new(shared.to_string_lossy(), 38_400))
+            .unwrap();
+    let answer = station.dialect.encode_frequency(7_030_000, 0);
+    rig.write_all(&answer).await.unwrap();
+    let mut got = vec![0u8; answer.len()];
+    tokio::time::timeout(Duration::from_secs(5), other.read_exact(&mut got))
+        .await
+        .unwrap()
+        .unwrap();
+    assert_eq!(got, answer);
+    wait_for(&journal, Recorded::Known(300)).await;
+    stop.send_replace(true);
+    let out = tokio::time::timeout(Duration::from_secs(5), task)
+        .await
+        .unwrap()
+        .unwrap()
+        .unwrap();
+    assert_eq!(out.position, Some(300));
+    // The symlink goes with the service.
+    assert!(std::fs::symlink_metadata(&shared).is_err());
+}
+
+#[test]
+fn bad_serial_framing_names_the_key() {
+    let mut rig = tuneward::config::RigConfig {
+        data_bits: 9,
+        ..Default::default()
+    };
+    let e = tuneward::service::port_settings(&rig, "/dev/x".into()).unwrap_err();
+    assert!(e.contains("rig.data_bits") && e.contains('9'), "{e}");
+    rig.data_bits = 7;
+    rig.stop_bits = 3;
+    let e = tuneward::service::port_settings(&rig, "/dev/x".into()).unwrap_err();
+    assert!(e.contains("rig.stop_bits"), "{e}");
+    rig.stop_bits = 2;
+    let s = tuneward::service::port_settings(&rig, "/dev/x".into()).unwrap();
+    assert_eq!(s.data_bits, tuneward::rig::link::DataBits::Seven);
+    assert_eq!(s.stop_bits, tuneward::rig::link::StopBits::Two);
 }
