@@ -109,3 +109,26 @@ fn bad_flags_are_refused_with_a_reason() {
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("start") && err.contains("20000"), "{err}");
 }
+
+#[test]
+fn absurd_speed_or_travel_is_refused_not_a_crash() {
+    for args in [
+        &["--steps-per-second", "1e-300"][..],
+        &[
+            "--min",
+            "-9223372036854775808",
+            "--max",
+            "9223372036854775807",
+        ][..],
+        &["--steps-per-second", "NaN"][..],
+    ] {
+        let out = Command::new(env!("CARGO_BIN_EXE_tuneward"))
+            .args(["sim-tuner", "--listen", "127.0.0.1:0"])
+            .args(args)
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(1), "{args:?}");
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(err.contains("expected"), "{args:?}: {err}");
+    }
+}

@@ -104,7 +104,7 @@ impl<P: StepDirPins, C: Pause> StepDirDriver<P, C> {
         limits: (i64, i64),
         position: i64,
     ) -> Result<Self, DriveError> {
-        let period = Duration::from_secs_f64(profile.cruise_delay());
+        let period = Duration::try_from_secs_f64(profile.cruise_delay()).unwrap_or(Duration::MAX);
         if timing.step_pulse * 2 > period {
             return Err(DriveError::PulseTooLong {
                 pulse: timing.step_pulse,

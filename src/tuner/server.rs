@@ -40,10 +40,19 @@ impl SimController {
                 params.min_steps, params.max_steps
             ));
         }
-        if !(params.steps_per_second.is_finite() && params.steps_per_second > 0.0) {
+        if !(params.steps_per_second.is_finite() && params.steps_per_second >= 0.001) {
             return Err(format!(
-                "steps per second: expected a positive number, found {}",
+                "steps per second: expected a number of at least 0.001, found {}",
                 params.steps_per_second
+            ));
+        }
+        // The mechanics compute travel times as Durations; keep the longest
+        // travel representable (and sane: under a year).
+        let longest = params.min_steps.abs_diff(params.max_steps) as f64 / params.steps_per_second;
+        if longest > 3.0e7 {
+            return Err(format!(
+                "limits and speed: expected a full travel under a year, found {longest:.3e} s for {}..{} at {} steps/s",
+                params.min_steps, params.max_steps, params.steps_per_second
             ));
         }
         if !(params.min_steps..=params.max_steps).contains(&start) {
@@ -506,6 +515,15 @@ mod tests {
     #[test]
     fn bad_start_or_limits_are_refused() {
         assert!(SimController::new(params(), 20_000).is_err());
+        let mut slow = params();
+        slow.steps_per_second = 1e-300;
+        assert!(SimController::new(slow, 0).is_err());
+        let mut wide = params();
+        wide.min_steps = i64::MIN;
+        wide.max_steps = i64::MAX;
+        assert!(SimController::new(wide, 0)
+            .unwrap_err()
+            .contains("under a year"));
         let mut p = params();
         p.max_steps = p.min_steps;
         assert!(SimController::new(p, 0).is_err());
