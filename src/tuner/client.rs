@@ -42,6 +42,27 @@ pub enum ControllerUrl {
     Tcp { addr: String },
     /// `sim`: a simulated controller inside this process.
     Sim,
+    /// `gpio://gpiochip0?step=17&dir=27`: drive a step/direction stepper
+    /// driver directly from two GPIO lines (see [`GpioWiring`]).
+    Gpio(GpioWiring),
+}
+
+/// Wiring and timing of a directly driven stepper. URL parameters: `step`
+/// and `dir` (line offsets, required), `up` (`high` or `low`: the direction
+/// level for increasing positions, default `high`), `accel` (steps/s²,
+/// default four times the speed: full speed in a quarter second), `pulse_us`
+/// (step pulse width, default 5) and `setup_us` (direction set-up time,
+/// default 20). The defaults are common practice, no source: generous for
+/// the usual driver chips; check the driver's datasheet.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct GpioWiring {
+    pub chip: String,
+    pub step: u32,
+    pub dir: u32,
+    pub up_is_high: bool,
+    pub accel: Option<u32>,
+    pub pulse_us: u32,
+    pub setup_us: u32,
 }
 
 /// Baud rate of a `serial://` URL without `?baud=`.
@@ -51,9 +72,13 @@ impl FromStr for ControllerUrl {
     type Err = String;
 
     fn from_str(s: &str) -> Result<ControllerUrl, String> {
-        let expected = "expected `serial:///dev/PORT?baud=N`, `tcp://HOST:PORT` or `sim`";
+        let expected =
+            "expected `serial:///dev/PORT?baud=N`, `tcp://HOST:PORT`, `gpio://CHIP?step=N&dir=N` or `sim`";
         if s == "sim" {
             return Ok(ControllerUrl::Sim);
+        }
+        if let Some(rest) = s.strip_prefix("gpio://") {
+            return parse_gpio(s, rest).map(ControllerUrl::Gpio);
         }
         if let Some(rest) = s.strip_prefix("serial://") {
             let (path, query) = rest.split_once('?').unwrap_or((rest, ""));
@@ -93,6 +118,67 @@ impl FromStr for ControllerUrl {
     }
 }
 
+fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, String> {
+    let (chip, query) = rest.split_once('?').unwrap_or((rest, ""));
+    if chip.is_empty() {
+        return Err(format!(
+            "`{whole}`: expected a GPIO chip such as `gpiochip0` after gpio://, found nothing"
+        ));
+    }
+    let mut w = GpioWiring {
+        chip: chip.to_string(),
+        step: u32::MAX,
+        dir: u32::MAX,
+        up_is_high: true,
+        accel: None,
+        pulse_us: 5,
+        setup_us: 20,
+    };
+    let (mut step, mut dir) = (None, None);
+    for pair in query.split('&').filter(|p| !p.is_empty()) {
+        let (key, value) = pair
+            .split_once('=')
+            .ok_or_else(|| format!("`{whole}`: expected `key=value`, found `{pair}`"))?;
+        let number = || {
+            value.parse::<u32>().map_err(|_| {
+                format!("`{whole}`: key `{key}`: expected a whole number, found `{value}`")
+            })
+        };
+        match key {
+            "step" => step = Some(number()?),
+            "dir" => dir = Some(number()?),
+            "accel" => w.accel = Some(number()?).filter(|a| *a > 0),
+            "pulse_us" => w.pulse_us = number()?,
+            "setup_us" => w.setup_us = number()?,
+            "up" => {
+                w.up_is_high = match value {
+                    "high" => true,
+                    "low" => false,
+                    _ => {
+                        return Err(format!(
+                            "`{whole}`: key `up`: expected `high` or `low`, found `{value}`"
+                        ))
+                    }
+                }
+            }
+            _ => return Err(format!(
+                "`{whole}`: expected keys step, dir, up, accel, pulse_us, setup_us; found `{key}`"
+            )),
+        }
+    }
+    w.step =
+        step.ok_or_else(|| format!("`{whole}`: expected `step=N` (the step line's offset)"))?;
+    w.dir =
+        dir.ok_or_else(|| format!("`{whole}`: expected `dir=N` (the direction line's offset)"))?;
+    if w.step == w.dir {
+        return Err(format!(
+            "`{whole}`: expected different lines for step and dir, found {} for both",
+            w.step
+        ));
+    }
+    Ok(w)
+}
+
 impl fmt::Display for ControllerUrl {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
@@ -101,6 +187,20 @@ impl fmt::Display for ControllerUrl {
             }
             ControllerUrl::Tcp { addr } => write!(f, "tcp://{addr}"),
             ControllerUrl::Sim => f.write_str("sim"),
+            ControllerUrl::Gpio(w) => {
+                write!(
+                    f,
+                    "gpio://{}?step={}&dir={}&up={}",
+                    w.chip,
+                    w.step,
+                    w.dir,
+                    if w.up_is_high { "high" } else { "low" }
+                )?;
+                if let Some(a) = w.accel {
+                    write!(f, "&accel={a}")?;
+                }
+                write!(f, "&pulse_us={}&setup_us={}", w.pulse_us, w.setup_us)
+            }
         }
     }
 }
@@ -218,6 +318,7 @@ pub fn spawn(
         shutdown,
         sim,
         up: None,
+        direct: std::sync::Mutex::new(None),
     };
     let task = tokio::spawn(link.run());
     ClientHandle {
@@ -237,6 +338,8 @@ struct Link {
     transmit: Option<watch::Receiver<bool>>,
     shutdown: watch::Receiver<bool>,
     sim: Option<SharedController>,
+    /// The direct drive, once its lines have been opened.
+    direct: std::sync::Mutex<Option<super::gpio::DirectController>>,
     /// Last logged link state (`None`: not yet known).
     up: Option<bool>,
 }
@@ -327,6 +430,26 @@ impl Link {
     async fn open(&self) -> Result<Box<dyn ByteStream>, String> {
         let timeout = self.config.reply_margin.max(Duration::from_millis(500));
         match &self.config.url {
+            ControllerUrl::Gpio(w) => {
+                let existing = self
+                    .direct
+                    .lock()
+                    .unwrap_or_else(|p| p.into_inner())
+                    .clone();
+                let direct = match existing {
+                    Some(d) => d,
+                    None => {
+                        let d = open_direct(&self.config, w)?;
+                        *self.direct.lock().unwrap_or_else(|p| p.into_inner()) = Some(d.clone());
+                        d
+                    }
+                };
+                direct
+                    .connect()
+                    .await
+                    .map(|s| Box::new(s) as Box<dyn ByteStream>)
+                    .map_err(|e| e.to_string())
+            }
             ControllerUrl::Serial { path, baud } => {
                 let builder = tokio_serial::new(path.to_string_lossy(), *baud);
                 tokio_serial::SerialStream::open(&builder)
@@ -542,6 +665,45 @@ impl Link {
     }
 }
 
+/// Opens the GPIO lines and starts the direct drive. Its step count starts
+/// at the lower limit: a direct drive has no memory, so the service sets it
+/// from the journal (`ZERO`) when the link comes up.
+#[cfg(target_os = "linux")]
+fn open_direct(
+    config: &ClientConfig,
+    w: &GpioWiring,
+) -> Result<super::gpio::DirectController, String> {
+    use super::gpio::{DirectController, GpioPins, PulseTiming, RealPause, StepDirDriver};
+    let pins = GpioPins::open(&w.chip, w.step, w.dir, w.up_is_high).map_err(|e| e.to_string())?;
+    let accel = w
+        .accel
+        .map(f64::from)
+        .unwrap_or(config.steps_per_second * 4.0);
+    let profile = super::ramp::RampProfile::new(accel, config.steps_per_second)?;
+    let timing = PulseTiming {
+        step_pulse: Duration::from_micros(w.pulse_us.into()),
+        dir_setup: Duration::from_micros(w.setup_us.into()),
+    };
+    let driver = StepDirDriver::new(
+        pins,
+        RealPause,
+        profile,
+        timing,
+        (config.min_steps, config.max_steps),
+        config.min_steps,
+    )
+    .map_err(|e| e.to_string())?;
+    Ok(DirectController::start(driver, config.settle))
+}
+
+#[cfg(not(target_os = "linux"))]
+fn open_direct(
+    _config: &ClientConfig,
+    _w: &GpioWiring,
+) -> Result<super::gpio::DirectController, String> {
+    Err("direct GPIO drive needs Linux".to_string())
+}
+
 impl From<TunerCommand> for Request {
     fn from(c: TunerCommand) -> Request {
         match c {
@@ -604,6 +766,18 @@ mod tests {
             })
         );
         assert_eq!("sim".parse(), Ok(ControllerUrl::Sim));
+        assert_eq!(
+            "gpio://gpiochip0?step=17&dir=27&up=low&accel=3000".parse(),
+            Ok(ControllerUrl::Gpio(GpioWiring {
+                chip: "gpiochip0".into(),
+                step: 17,
+                dir: 27,
+                up_is_high: false,
+                accel: Some(3000),
+                pulse_us: 5,
+                setup_us: 20,
+            }))
+        );
         for bad in [
             "serial://ttyACM0",
             "serial:///dev/x?baud=fast",
@@ -611,6 +785,11 @@ mod tests {
             "tcp://127.0.0.1",
             "tcp://:80",
             "udp://1.2.3.4:5",
+            "gpio://gpiochip0?step=17",
+            "gpio://gpiochip0?step=4&dir=4",
+            "gpio://?step=1&dir=2",
+            "gpio://gpiochip0?step=1&dir=2&up=sideways",
+            "gpio://gpiochip0?step=1&dir=2&speed=9",
             "",
         ] {
             let e = bad.parse::<ControllerUrl>().unwrap_err();

@@ -251,6 +251,262 @@ impl StepDirPins for GpioPins {
     }
 }
 
+/// What the driver thread is asked to do.
+#[derive(Debug)]
+enum Job {
+    Move(i64),
+    Zero(i64),
+}
+
+/// What the driver thread reports back.
+#[derive(Debug)]
+enum Done {
+    /// A move ended (arrived, or stopped short) at this position.
+    Moved(i64),
+    /// A move failed part way; the position is the step count at failure.
+    Failed { position: i64, text: String },
+}
+
+/// A step/direction driver served through the line protocol, so that the
+/// controller link (with its limits, interlock and deadlines) drives it like
+/// any controller. The driver runs on a thread of its own; one protocol task
+/// answers lines, and a new connection replaces the previous one.
+#[derive(Clone)]
+pub struct DirectController {
+    conns: tokio::sync::mpsc::Sender<tokio::io::DuplexStream>,
+}
+
+impl DirectController {
+    /// Starts the driver thread and the protocol task. `settle` is the wait
+    /// after the last step before `AT` is reported.
+    pub fn start<P, C>(driver: StepDirDriver<P, C>, settle: Duration) -> DirectController
+    where
+        P: StepDirPins + 'static,
+        C: Pause + 'static,
+    {
+        let (conn_tx, conn_rx) = tokio::sync::mpsc::channel(2);
+        let (job_tx, job_rx) = std::sync::mpsc::channel::<Job>();
+        let (done_tx, done_rx) = tokio::sync::mpsc::unbounded_channel::<Done>();
+        let stop = std::sync::Arc::new(AtomicBool::new(false));
+        let position = driver.position();
+        let (min, max) = (driver.min, driver.max);
+        let thread_stop = stop.clone();
+        std::thread::spawn(move || {
+            let mut driver = driver;
+            while let Ok(job) = job_rx.recv() {
+                match job {
+                    Job::Zero(n) => driver.zero(n),
+                    Job::Move(t) => {
+                        let done = match driver.move_to(t, &thread_stop) {
+                            Ok(p) => Done::Moved(p),
+                            Err(e) => Done::Failed {
+                                position: driver.position(),
+                                text: e.to_string(),
+                            },
+                        };
+                        if done_tx.send(done).is_err() {
+                            return;
+                        }
+                    }
+                }
+            }
+        });
+        let task = DirectTask {
+            jobs: job_tx,
+            done: done_rx,
+            stop,
+            min,
+            max,
+            settle,
+            position,
+            moving: None,
+            next_target: None,
+            answer_stop: false,
+            settle_until: None,
+        };
+        tokio::spawn(task.run(conn_rx));
+        DirectController { conns: conn_tx }
+    }
+
+    /// A new connection to the controller (replacing any previous one).
+    pub async fn connect(&self) -> io::Result<tokio::io::DuplexStream> {
+        let (ours, theirs) = tokio::io::duplex(1024);
+        self.conns
+            .send(theirs)
+            .await
+            .map_err(|_| io::Error::other("direct drive task has ended"))?;
+        Ok(ours)
+    }
+}
+
+struct DirectTask {
+    jobs: std::sync::mpsc::Sender<Job>,
+    done: tokio::sync::mpsc::UnboundedReceiver<Done>,
+    stop: std::sync::Arc<AtomicBool>,
+    min: i64,
+    max: i64,
+    settle: Duration,
+    /// Position at rest (or where the last move ended).
+    position: i64,
+    /// Target reported to the host while a move (or its settling) is under way.
+    moving: Option<i64>,
+    /// A new target to go to once the current move has stopped.
+    next_target: Option<i64>,
+    /// The host asked STOP: answer `AT` when the move has ended.
+    answer_stop: bool,
+    /// The move has ended; `AT` is due at this instant.
+    settle_until: Option<tokio::time::Instant>,
+}
+
+impl DirectTask {
+    async fn run(mut self, mut conns: tokio::sync::mpsc::Receiver<tokio::io::DuplexStream>) {
+        use super::line::{LineFramer, Reply, Request};
+        use tokio::io::{AsyncReadExt, AsyncWriteExt};
+        let mut stream: Option<tokio::io::DuplexStream> = None;
+        let mut framer = LineFramer::new();
+        let mut inbuf = bytes::BytesMut::with_capacity(256);
+        loop {
+            let mut out = bytes::BytesMut::new();
+            let settle_until = self.settle_until;
+            tokio::select! {
+                c = conns.recv() => match c {
+                    Some(c) => {
+                        stream = Some(c);
+                        framer = LineFramer::new();
+                        inbuf.clear();
+                    }
+                    None => {
+                        // No one can connect any more: stop the motor and end.
+                        self.stop.store(true, Ordering::Relaxed);
+                        return;
+                    }
+                },
+                r = async {
+                    match stream.as_mut() {
+                        Some(s) => s.read_buf(&mut inbuf).await,
+                        None => std::future::pending().await,
+                    }
+                } => {
+                    match r {
+                        Ok(0) | Err(_) => stream = None,
+                        Ok(_) => {
+                            while let Some(line) = framer.next_line(&mut inbuf) {
+                                let reply = match line.and_then(|l| Request::parse(&l)) {
+                                    Ok(req) => self.request(req),
+                                    Err(e) => Some(Reply::Err(e.to_string())),
+                                };
+                                if let Some(r) = reply {
+                                    r.encode(&mut out);
+                                }
+                            }
+                        }
+                    }
+                }
+                d = self.done.recv() => match d {
+                    None => return,
+                    Some(Done::Moved(p)) => {
+                        self.position = p;
+                        if let Some(t) = self.next_target.take() {
+                            self.start_move(t);
+                        } else if self.answer_stop {
+                            self.answer_stop = false;
+                            self.moving = None;
+                            Reply::At(p).encode(&mut out);
+                        } else {
+                            self.settle_until = Some(tokio::time::Instant::now() + self.settle);
+                        }
+                    }
+                    Some(Done::Failed { position, text }) => {
+                        self.position = position;
+                        self.moving = None;
+                        self.next_target = None;
+                        self.answer_stop = false;
+                        Reply::Err(text).encode(&mut out);
+                    }
+                },
+                _ = async {
+                    match settle_until {
+                        Some(d) => tokio::time::sleep_until(d).await,
+                        None => std::future::pending().await,
+                    }
+                } => {
+                    self.settle_until = None;
+                    self.moving = None;
+                    Reply::At(self.position).encode(&mut out);
+                }
+            }
+            if !out.is_empty() {
+                if let Some(s) = stream.as_mut() {
+                    if s.write_all(&out).await.is_err() {
+                        stream = None;
+                    }
+                }
+            }
+        }
+    }
+
+    fn start_move(&mut self, target: i64) {
+        self.stop.store(false, Ordering::Relaxed);
+        self.moving = Some(target);
+        if self.jobs.send(Job::Move(target)).is_err() {
+            tracing::error!("direct drive thread has ended");
+        }
+    }
+
+    fn request(&mut self, req: super::line::Request) -> Option<super::line::Reply> {
+        use super::line::{Reply, Request};
+        let busy = self.moving.is_some();
+        let limits = format!("{}..{}", self.min, self.max);
+        match req {
+            Request::Goto(t) if !(self.min..=self.max).contains(&t) => {
+                Some(Reply::Err(format!("target {t} outside limits {limits}")))
+            }
+            Request::Goto(t) => {
+                if busy && self.settle_until.is_none() {
+                    // Slow down, then head for the new target.
+                    self.next_target = Some(t);
+                    self.answer_stop = false;
+                    self.moving = Some(t);
+                    self.stop.store(true, Ordering::Relaxed);
+                } else {
+                    self.settle_until = None;
+                    self.start_move(t);
+                }
+                Some(Reply::Moving(t))
+            }
+            Request::Where => Some(match self.moving {
+                Some(t) => Reply::Moving(t),
+                None => Reply::At(self.position),
+            }),
+            Request::Stop => {
+                if busy && self.settle_until.is_none() {
+                    self.next_target = None;
+                    self.answer_stop = true;
+                    self.stop.store(true, Ordering::Relaxed);
+                    None
+                } else {
+                    self.settle_until = None;
+                    self.moving = None;
+                    Some(Reply::At(self.position))
+                }
+            }
+            Request::Zero(_) if busy => {
+                Some(Reply::Err("busy: ZERO refused while moving".to_string()))
+            }
+            Request::Zero(n) if !(self.min..=self.max).contains(&n) => {
+                Some(Reply::Err(format!("position {n} outside limits {limits}")))
+            }
+            Request::Zero(n) => {
+                self.position = n;
+                if self.jobs.send(Job::Zero(n)).is_err() {
+                    return Some(Reply::Err("direct drive thread has ended".to_string()));
+                }
+                Some(Reply::At(n))
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -270,6 +526,8 @@ mod tests {
         fail_after: Option<usize>,
         /// Raise this flag once this many steps have been taken.
         stop_after: Option<(usize, Arc<AtomicBool>)>,
+        /// Also wait in real time (for tests that interrupt a move).
+        real: bool,
     }
 
     impl StepDirPins for Bench {
@@ -297,6 +555,9 @@ mod tests {
     impl Pause for Bench {
         fn pause(&mut self, d: Duration) {
             *self.now.lock().unwrap() += d;
+            if self.real {
+                std::thread::sleep(d);
+            }
         }
     }
 
@@ -449,5 +710,115 @@ mod tests {
         let profile = RampProfile::new(1000.0, 200_000.0).unwrap();
         let r = StepDirDriver::new(bench.clone(), bench, profile, timing(), (0, 1), 0);
         assert!(matches!(r, Err(DriveError::PulseTooLong { .. })));
+    }
+
+    mod direct {
+        use super::*;
+        use tokio::io::{AsyncBufReadExt, AsyncWriteExt, BufReader, DuplexStream};
+
+        struct Host(BufReader<DuplexStream>);
+
+        impl Host {
+            async fn say(&mut self, line: &str) {
+                self.0
+                    .get_mut()
+                    .write_all(format!("{line}\n").as_bytes())
+                    .await
+                    .unwrap();
+            }
+            async fn hear(&mut self) -> String {
+                let mut l = String::new();
+                tokio::time::timeout(Duration::from_secs(10), self.0.read_line(&mut l))
+                    .await
+                    .expect("a reply within 10 s")
+                    .unwrap();
+                l.trim_end().to_string()
+            }
+            async fn ask(&mut self, line: &str) -> String {
+                self.say(line).await;
+                self.hear().await
+            }
+        }
+
+        /// 500 steps/s, full speed after 250 steps: 1000 steps take about 2.5 s.
+        fn slow(bench: &Bench, position: i64) -> DirectController {
+            let profile = RampProfile::new(500.0, 500.0).unwrap();
+            let d = StepDirDriver::new(
+                bench.clone(),
+                bench.clone(),
+                profile,
+                timing(),
+                (0, 10_000),
+                position,
+            )
+            .unwrap();
+            DirectController::start(d, Duration::from_millis(20))
+        }
+
+        #[tokio::test]
+        async fn moves_refuses_and_redefines_like_any_controller() {
+            let bench = Bench::default();
+            let ctl = DirectController::start(driver(&bench, 100), Duration::from_millis(5));
+            let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert_eq!(h.ask("WHERE").await, "AT 100");
+            assert_eq!(h.ask("GOTO 400").await, "MOVING 400");
+            assert_eq!(h.hear().await, "AT 400");
+            assert_eq!(rising(&bench.edges.lock().unwrap()).len(), 300);
+            assert!(h.ask("GOTO 10001").await.starts_with("ERR "));
+            assert!(h.ask("ZERO -1").await.starts_with("ERR "));
+            assert!(h.ask("FLY").await.starts_with("ERR "));
+            assert_eq!(h.ask("ZERO 5000").await, "AT 5000");
+            assert_eq!(h.ask("GOTO 4990").await, "MOVING 4990");
+            assert_eq!(h.hear().await, "AT 4990");
+            assert_eq!(rising(&bench.edges.lock().unwrap()).len(), 310);
+            // A new connection finds the same motor.
+            let mut h2 = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert_eq!(h2.ask("WHERE").await, "AT 4990");
+        }
+
+        #[tokio::test]
+        async fn stop_slows_down_and_reports_where_it_stopped() {
+            let bench = Bench {
+                real: true,
+                ..Bench::default()
+            };
+            let ctl = slow(&bench, 0);
+            let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert_eq!(h.ask("GOTO 1000").await, "MOVING 1000");
+            tokio::time::sleep(Duration::from_millis(300)).await;
+            assert_eq!(h.ask("WHERE").await, "MOVING 1000");
+            let at = h.ask("STOP").await;
+            let p: i64 = at.strip_prefix("AT ").unwrap().parse().unwrap();
+            assert!((1..1000).contains(&p), "{at}");
+            // Every step taken is counted.
+            assert_eq!(rising(&bench.edges.lock().unwrap()).len() as i64, p);
+            assert_eq!(h.ask("WHERE").await, format!("AT {p}"));
+        }
+
+        #[tokio::test]
+        async fn a_new_target_mid_move_gets_the_only_arrival() {
+            let bench = Bench {
+                real: true,
+                ..Bench::default()
+            };
+            let ctl = slow(&bench, 0);
+            let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert_eq!(h.ask("GOTO 1000").await, "MOVING 1000");
+            tokio::time::sleep(Duration::from_millis(300)).await;
+            assert_eq!(h.ask("GOTO 20").await, "MOVING 20");
+            assert_eq!(h.hear().await, "AT 20");
+            let edges = bench.edges.lock().unwrap().clone();
+            let dirs: Vec<_> = edges
+                .iter()
+                .filter_map(|(_, e)| match e {
+                    Edge::Dir(up) => Some(*up),
+                    _ => None,
+                })
+                .collect();
+            assert_eq!(dirs, vec![true, false]);
+            // Up n steps, then down n - 20.
+            let n = rising(&edges).len() as i64;
+            assert!(n > 40 && (n - 20) % 2 == 0, "{n}");
+        }
     }
 }
