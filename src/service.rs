@@ -452,6 +452,11 @@ impl Driver {
                 self.fault(now, false);
             }
             TunerEvent::Accepted { target } => tracing::debug!(target, "controller accepted"),
+            TunerEvent::InterlockStop => {
+                tracing::warn!(
+                    "rig transmitted during a move; the controller link stopped the motor"
+                )
+            }
             TunerEvent::Error { text } => {
                 tracing::warn!(%text, "controller link");
                 if self.core.is_moving() {

@@ -240,10 +240,7 @@ async fn transmit_refuses_moves_and_stops_one_under_way() {
     );
     tokio::time::sleep(Duration::from_millis(200)).await;
     tx_on.send_replace(true);
-    match next(&mut h.events).await {
-        TunerEvent::Error { text } => assert!(text.contains("STOP"), "{text}"),
-        other => panic!("expected the stop notice, got {other:?}"),
-    }
+    assert_eq!(next(&mut h.events).await, TunerEvent::InterlockStop);
     match next(&mut h.events).await {
         // Stopped part way: 5000 steps take 5 s at 1000 steps/s.
         TunerEvent::At { steps } => assert!((100..2000).contains(&steps), "{steps}"),

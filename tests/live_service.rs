@@ -77,6 +77,14 @@ async fn start(
     journal_before: Option<Recorded>,
     failing_inhibit: bool,
 ) -> Running {
+    start_with(controller(controller_at), journal_before, failing_inhibit).await
+}
+
+async fn start_with(
+    controller: ClientConfig,
+    journal_before: Option<Recorded>,
+    failing_inhibit: bool,
+) -> Running {
     let dir = tempfile::tempdir().unwrap();
     let journal = Journal::new(dir.path().join("pos.state"));
     match journal_before {
@@ -93,7 +101,7 @@ async fn start(
         follower: Follower::new(policy(), Arc::new(Linear), None),
         decoder: dialect.decoder(None),
         rig: RigSource::Events(rig_rx),
-        controller: controller(controller_at),
+        controller,
         inhibit: Box::new(inhibit.clone()),
         journal: Some(journal.clone()),
     };
@@ -180,6 +188,39 @@ async fn no_move_while_transmitting_then_the_move_on_receive() {
     r.wait_journal(Recorded::Known(500)).await;
     let (out, _, _) = r.finish().await;
     assert_eq!(out.position, Some(500));
+}
+
+#[tokio::test]
+async fn transmitting_mid_move_stops_the_motor_and_receive_finishes_the_move() {
+    let mut slow = controller(0);
+    slow.steps_per_second = 2000.0;
+    let r = start_with(slow, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    // Debounce 30 ms, lead 5 ms, then 1000 steps take 500 ms.
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    assert_eq!(
+        r.journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1000 })
+    );
+    r.transmit(true).await;
+    // Stopped part way, and the stop position is on record.
+    let until = Instant::now() + Duration::from_secs(3);
+    let stopped = loop {
+        if let Some(Recorded::Known(p)) = r.journal.load().unwrap() {
+            break p;
+        }
+        assert!(Instant::now() < until, "{:?}", r.journal.load());
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    };
+    assert!((1..1000).contains(&stopped), "{stopped}");
+    tokio::time::sleep(Duration::from_millis(600)).await;
+    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(stopped)));
+    r.transmit(false).await;
+    r.wait_journal(Recorded::Known(1000)).await;
+    let (out, _, _) = r.finish().await;
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(out.faults, 0);
 }
 
 #[tokio::test]

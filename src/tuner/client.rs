@@ -161,9 +161,11 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, String> {
                     }
                 }
             }
-            _ => return Err(format!(
+            _ => {
+                return Err(format!(
                 "`{whole}`: expected keys step, dir, up, accel, pulse_us, setup_us; found `{key}`"
-            )),
+            ))
+            }
         }
     }
     w.step =
@@ -228,6 +230,9 @@ pub enum TunerEvent {
     LinkDown { reason: String },
     /// The link is up again (a `WHERE` has been sent).
     LinkUp,
+    /// The rig started transmitting during a move and this layer sent
+    /// `STOP`; an `At` with where the motor stopped follows.
+    InterlockStop,
 }
 
 /// How the link behaves.
@@ -540,7 +545,7 @@ impl Link {
                         }
                         Ok(true) if w.arrival.is_some() => {
                             tracing::warn!("rig transmitting while the motor moves: stopping it");
-                            self.emit(TunerEvent::Error { text: "rig transmitting during a move: STOP sent".into() }).await;
+                            self.emit(TunerEvent::InterlockStop).await;
                             if let Err(e) = self.send(&mut wr, &mut w, Request::Stop).await {
                                 return End::Fault(e);
                             }
