@@ -132,3 +132,48 @@ fn absurd_speed_or_travel_is_refused_not_a_crash() {
         assert!(err.contains("expected"), "{args:?}: {err}");
     }
 }
+
+#[tokio::test]
+async fn sim_tuner_on_a_pseudo_terminal_behind_a_symlink() {
+    use tokio::io::{AsyncBufReadExt, AsyncWriteExt};
+    let dir = tempfile::tempdir().unwrap();
+    let link = dir.path().join("controller");
+    let child = Command::new(env!("CARGO_BIN_EXE_tuneward"))
+        .args(["sim-tuner", "--pty"])
+        .arg(&link)
+        .args(["--start", "42", "--steps-per-second", "10000"])
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut sim = Sim(child);
+    let until = Instant::now() + Duration::from_secs(10);
+    while std::fs::symlink_metadata(&link).is_err() {
+        assert!(Instant::now() < until, "no symlink at {}", link.display());
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    let port =
+        tokio_serial::SerialStream::open(&tokio_serial::new(link.to_string_lossy(), 115_200))
+            .unwrap();
+    let (r, mut w) = tokio::io::split(port);
+    let mut lines = tokio::io::BufReader::new(r).lines();
+    let mut heard = Vec::new();
+    w.write_all(b"WHERE\nGOTO 1042\n").await.unwrap();
+    while heard.len() < 3 {
+        let l = tokio::time::timeout(Duration::from_secs(5), lines.next_line())
+            .await
+            .unwrap()
+            .unwrap()
+            .unwrap();
+        heard.push(l);
+    }
+    assert_eq!(heard, ["AT 42", "MOVING 1042", "AT 1042"]);
+
+    // Ctrl-C: a clean exit that takes the symlink away.
+    let pid = i32::try_from(sim.0.id()).unwrap();
+    // SAFETY: sending a signal to our own child process.
+    assert_eq!(unsafe { libc::kill(pid, libc::SIGINT) }, 0);
+    let status = sim.0.wait().unwrap();
+    assert!(status.success(), "{status:?}");
+    assert!(std::fs::symlink_metadata(&link).is_err());
+}
