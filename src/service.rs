@@ -304,8 +304,10 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
 enum Resync {
     /// Nothing to check.
     Idle,
-    /// The link is up; the next `At` answers its `WHERE`.
-    AwaitWhere,
+    /// The next `At` answers a `WHERE`. After the link came (back) up the
+    /// controller may have restarted, so its answer is checked against the
+    /// journal; after a fault with the link up all along it is taken.
+    AwaitWhere { after_link_up: bool },
     /// `ZERO p` was sent; waiting for `At p`.
     AwaitZero(i64),
     /// The position cannot be trusted (unfinished move in the journal):
@@ -446,7 +448,11 @@ impl Driver {
     async fn tuner_event(&mut self, ev: TunerEvent) {
         let now = self.now();
         match ev {
-            TunerEvent::LinkUp => self.resync = Resync::AwaitWhere,
+            TunerEvent::LinkUp => {
+                self.resync = Resync::AwaitWhere {
+                    after_link_up: true,
+                }
+            }
             TunerEvent::LinkDown { reason } => {
                 tracing::warn!(%reason, "controller link down: position not trusted until it is back");
                 self.fault(now, false);
@@ -466,7 +472,15 @@ impl Driver {
                 }
             }
             TunerEvent::At { steps } => match self.resync {
-                Resync::AwaitWhere => self.resync_where(now, steps).await,
+                Resync::AwaitWhere {
+                    after_link_up: true,
+                } => self.resync_where(now, steps).await,
+                Resync::AwaitWhere {
+                    after_link_up: false,
+                } => {
+                    self.resync = Resync::Idle;
+                    self.accept(now, steps);
+                }
                 Resync::AwaitZero(p) => {
                     self.resync = Resync::Idle;
                     if steps == p {
@@ -475,8 +489,12 @@ impl Driver {
                         tracing::error!(
                             wanted = p,
                             got = steps,
-                            "controller did not take the journal's position"
+                            "controller did not take the journal's position; asking again"
                         );
+                        // Check against the journal again (and re-send ZERO).
+                        self.resync = Resync::AwaitWhere {
+                            after_link_up: true,
+                        };
                         self.fault(now, true);
                     }
                 }
@@ -551,7 +569,12 @@ impl Driver {
         self.outcome.faults += 1;
         self.core.handle_fault(now);
         if ask_again {
-            self.resync = Resync::AwaitWhere;
+            // Keep a stricter check already pending.
+            if matches!(self.resync, Resync::Idle) {
+                self.resync = Resync::AwaitWhere {
+                    after_link_up: false,
+                };
+            }
             self.retry_where = Some(Instant::now() + RETRY_AFTER);
         }
     }

@@ -135,7 +135,7 @@ impl Running {
         self.rig_says(self.dialect.encode_transmit(on, 0)).await;
     }
     async fn wait_journal(&self, want: Recorded) {
-        let until = Instant::now() + Duration::from_secs(3);
+        let until = Instant::now() + Duration::from_secs(6);
         loop {
             let got = self.journal.load().unwrap();
             if got == Some(want) {
@@ -472,4 +472,41 @@ fn bad_serial_framing_names_the_key() {
     let s = tuneward::service::port_settings(&rig, "/dev/x".into()).unwrap();
     assert_eq!(s.data_bits, tuneward::rig::link::DataBits::Seven);
     assert_eq!(s.stop_bits, tuneward::rig::link::StopBits::Two);
+}
+
+/// A controller that refuses a leg (its limits are narrower than the
+/// config's) is a fault, but with the link up all along its count is still
+/// trusted: the position comes back without a restart.
+#[tokio::test]
+async fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
+    use tuneward::tuner::server::{run_tcp, SimController};
+    use tuneward::tuner::sim::SimParams;
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+    let addr = listener.local_addr().unwrap();
+    let (_sim_stop, sim_shutdown) = watch::channel(false);
+    let narrow = SimParams {
+        steps_per_second: 20_000.0,
+        settle_ms: 10,
+        backlash_steps: 0,
+        min_steps: 0,
+        max_steps: 1500,
+    };
+    tokio::spawn(run_tcp(
+        listener,
+        SimController::new(narrow, 0).unwrap(),
+        sim_shutdown,
+    ));
+    let mut cfg = controller(0);
+    cfg.url = ControllerUrl::Tcp {
+        addr: addr.to_string(),
+    };
+    let r = start_with(cfg, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_200_000).await;
+    r.wait_journal(Recorded::Unknown { from: 0, to: 2000 })
+        .await;
+    // Refused, fault, WHERE after 2 s, position taken again.
+    r.wait_journal(Recorded::Known(0)).await;
+    let (out, _, _) = r.finish().await;
+    assert!(out.faults >= 1);
 }
