@@ -1,6 +1,11 @@
 //! The host end of the controller line protocol: one tokio task that owns the
 //! connection to the stepper controller.
 //!
+//! The controller is named by a URL (`tuner.link`): `serial:///dev/PORT?baud=N`,
+//! `tcp://HOST:PORT`, `sim` (the simulator, in process) or
+//! `gpio://CHIP?step=N&dir=N` (a step/direction driver on GPIO lines, run
+//! in process behind the same protocol; see [`GpioWiring`]).
+//!
 //! The rest of the service talks to it through two channels: it takes
 //! [`TunerCommand`]s and sends back [`TunerEvent`]s. The task is the lowest
 //! layer before the motor, so it is where the last checks live:
