@@ -171,3 +171,38 @@ async fn an_existing_file_at_the_link_path_is_not_replaced() {
     assert!(e.contains("ttyUSB-config") && e.contains("refusing"), "{e}");
     assert_eq!(std::fs::read(&link).unwrap(), b"precious");
 }
+
+/// The rig's port goes away and comes back under a new device name: the
+/// other program keeps its end open throughout and hears the rig again.
+#[tokio::test]
+async fn the_shared_port_survives_the_rig_being_unplugged() {
+    use tuneward::tuner::server::place_symlink;
+    let dir = tempfile::tempdir().unwrap();
+    let rig_link = dir.path().join("rig-by-id");
+    let (rig1, rig1_far) = SerialStream::pair().unwrap();
+    place_symlink(&rig_link, std::path::Path::new(&rig1_far.name().unwrap())).unwrap();
+    let shared = dir.path().join("shared-port");
+    let (tx, mut events) = mpsc::channel(256);
+    let (_stop_tx, stop) = watch::channel(false);
+    let cfg = ProxyConfig {
+        port: PortSettings::new(&rig_link, 9600),
+        link: shared.clone(),
+        poll: None,
+        backoff_cap: Duration::from_millis(100),
+    };
+    spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
+    assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
+    let mut other = SerialStream::open(&tokio_serial::new(shared.to_string_lossy(), 9600)).unwrap();
+
+    let (mut rig2, rig2_far) = SerialStream::pair().unwrap();
+    drop(rig1);
+    drop(rig1_far);
+    assert!(matches!(next(&mut events).await, LinkEvent::Down { .. }));
+    place_symlink(&rig_link, std::path::Path::new(&rig2_far.name().unwrap())).unwrap();
+    assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
+
+    rig2.write_all(b"FA00003573000;").await.unwrap();
+    assert_eq!(read_exactly(&mut other, 14).await, b"FA00003573000;");
+    other.write_all(b"FA;").await.unwrap();
+    assert_eq!(read_exactly(&mut rig2, 3).await, b"FA;");
+}
