@@ -229,7 +229,7 @@ pub fn demo_evening() -> Scenario {
     s.overs(1, sec(5), ms(10)).noise(24).wait(sec(1)).noise(7);
     s.wait(sec(120));
     // A small retune inside the loop's window: the tuner should stay.
-    s.sweep(7_153_000, 100, ms(80)).wait(sec(60));
+    s.sweep(7_152_150, 50, ms(80)).wait(sec(60));
     // Out of the band: the evening news on a broadcast station.
     s.jump(9_650_000).wait(sec(600));
     // 30 m: a quick jump, then a sweep down past the band edge into the guard.
@@ -308,6 +308,7 @@ pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
                 }
                 .clamp(band.0, band.1);
                 s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                quick_call(s, &mut rng);
                 s.wait(sec(rng.u64(10..=120)));
             }
             // Tune across the band looking for a contact.
@@ -321,7 +322,9 @@ pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
                 if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
                     band = *b;
                     let hz = rng.u64(b.0..=b.1);
-                    s.jump(hz).wait(sec(rng.u64(5..=60)));
+                    s.jump(hz);
+                    quick_call(s, &mut rng);
+                    s.wait(sec(rng.u64(5..=60)));
                 }
             }
             // Listen to a broadcast station, then come back.
@@ -339,6 +342,16 @@ pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
         }
     }
     s.clone().finish()
+}
+
+/// Sometimes the operator calls at once after tuning, before the debounce
+/// has run out: the move then has to wait for the end of the over.
+fn quick_call(s: &mut Script, rng: &mut fastrand::Rng) {
+    if rng.u32(0..3) == 0 {
+        let on = Duration::from_millis(rng.u64(2_000..=20_000));
+        s.wait(Duration::from_millis(rng.u64(50..=350)));
+        s.overs(1, on, Duration::from_secs(2));
+    }
 }
 
 /// The fewest repositionings that keep every dwell inside the loop's window,

@@ -214,12 +214,22 @@ impl Dialect {
 
     /// Parses dialect TOML text; `file` is only used to name errors.
     pub fn parse(text: &str, file: &Path) -> Result<Dialect, DialectError> {
-        let table: toml::Table =
-            text.parse()
-                .map_err(|e: toml::de::Error| DialectError::Syntax {
-                    file: file.to_path_buf(),
-                    message: e.to_string().trim_end().replace('\n', " "),
-                })?;
+        let table: toml::Table = text.parse().map_err(|e: toml::de::Error| {
+            let what = e.message().trim_end().replace('\n', " ");
+            let message = match e.span() {
+                Some(span) => {
+                    let before = text.get(..span.start).unwrap_or(text);
+                    let line = before.matches('\n').count() + 1;
+                    let column = before.len() - before.rfind('\n').map_or(0, |i| i + 1) + 1;
+                    format!("line {line}, column {column}: {what}")
+                }
+                None => what,
+            };
+            DialectError::Syntax {
+                file: file.to_path_buf(),
+                message,
+            }
+        })?;
         let r = Reader { file };
         r.only(
             &table,
@@ -899,6 +909,10 @@ mod tests {
     fn syntax_error_names_file() {
         let e = Dialect::parse("name = ", Path::new("bad.toml")).unwrap_err();
         assert!(matches!(e, DialectError::Syntax { .. }));
-        assert!(e.to_string().starts_with("bad.toml: not valid TOML"), "{e}");
+        assert!(
+            e.to_string()
+                .starts_with("bad.toml: not valid TOML: line 1, column 8: "),
+            "{e}"
+        );
     }
 }

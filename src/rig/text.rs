@@ -281,6 +281,18 @@ mod tests {
     }
 
     #[test]
+    fn vfo_b_counts_when_the_dialect_says_b_is_active() {
+        let text = include_str!("../../protocols/text-semicolon.toml")
+            .replace("active_vfo = \"A\"", "active_vfo = \"B\"");
+        let d = Dialect::parse(&text, std::path::Path::new("b.toml")).unwrap();
+        assert_eq!(d.encode_frequency(7_074_000, 0), b"FB00007074000;".to_vec());
+        let mut dec = d.decoder(None);
+        let mut out = Vec::new();
+        dec.feed(Direction::Rx, b"FA00014074000;FB00007074000;", &mut out);
+        assert_eq!(out, vec![freq(7_074_000)]);
+    }
+
+    #[test]
     fn status_carries_frequency_and_transmit() {
         assert_eq!(
             decode(&status(7_074_000, true)),
