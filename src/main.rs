@@ -46,6 +46,11 @@ enum Command {
         /// Also show every frequency report and ignored stretch of bytes.
         #[arg(long, short)]
         verbose: bool,
+        /// Warn about each malformed capture line (on standard error) and
+        /// carry on with the next, instead of stopping at the first. The
+        /// summary counts them as `bad_lines`.
+        #[arg(long)]
+        skip_bad_lines: bool,
     },
     /// Replay an invented evening at a demo station: no hardware, no arguments.
     Demo {
@@ -74,6 +79,7 @@ fn main() -> ExitCode {
             json,
             start_steps,
             verbose,
+            skip_bad_lines,
         } => {
             let mut json_out;
             let mut human_out;
@@ -84,7 +90,19 @@ fn main() -> ExitCode {
                 human_out = Human::new(&mut out, verbose);
                 &mut human_out
             };
-            tuneward::station::replay_file(&config, &capture, start_steps, timeline).map(|_| ())
+            let options = tuneward::station::ReplayOptions {
+                start_steps,
+                skip_bad_lines,
+            };
+            let stderr = std::io::stderr();
+            tuneward::station::replay_file_with(
+                &config,
+                &capture,
+                options,
+                timeline,
+                &mut stderr.lock(),
+            )
+            .map(|_| ())
         }
         Command::Demo { json } => tuneward::station::demo(&mut out, json).map(|_| ()),
         Command::Check { config } => tuneward::station::check(&config, &mut out),

@@ -96,6 +96,16 @@ impl<'t> Replay<'t> {
     /// Runs out every deadline still pending (a settling frequency, a move,
     /// the inhibit tail), writes the summary and returns it.
     pub fn finish(mut self) -> std::io::Result<Summary> {
+        // Bytes the decoder still holds at the end of the input (a pending run
+        // of rejected bytes, an unfinished frame) are reported, not lost.
+        let mut events = std::mem::take(&mut self.events);
+        events.clear();
+        self.decoder.finish(&mut events);
+        for ev in &events {
+            self.rig_event(*ev)?;
+        }
+        self.events = events;
+        self.apply_actions()?;
         // Every pending deadline is finite: debounce, lead, travel, tail,
         // candidate dwell. Bound the loop all the same.
         for _ in 0..10_000 {
@@ -114,6 +124,12 @@ impl<'t> Replay<'t> {
         self.timeline
             .entry(self.now, &Entry::Summary(summary.clone()))?;
         Ok(summary)
+    }
+
+    /// Counts one malformed capture line passed over (reported in the
+    /// summary as `bad_lines`).
+    pub fn skip_bad_line(&mut self) {
+        self.summary.bad_lines += 1;
     }
 
     /// The core, for inspection.
