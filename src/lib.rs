@@ -12,6 +12,7 @@ pub mod calibrate;
 pub mod capture;
 pub mod config;
 pub mod follow;
+pub mod quality;
 pub mod replay;
 pub mod rig;
 pub mod scenario;

@@ -60,6 +60,32 @@ enum Command {
     },
     /// Fit a calibration to measured points and report how well it holds.
     Fit(tuneward::calibrate::cli::FitArgs),
+    /// Measure how well the follow policy keeps the loop tuned.
+    ///
+    /// Replays invented evenings at a station (by default the bundled
+    /// quality station, fixtures/quality/station.toml) against a simulated
+    /// loop whose resonance differs from the calibration by a small hidden
+    /// error, and reports for the station's policy, a naive one that moves on
+    /// every report, and the offline optimum: moves, motor travel, and the
+    /// share of the time on the air at SWR <= 1.5 and <= 2. The station must
+    /// describe its loop in [antenna].
+    BenchFollow {
+        /// The station's config [default: the bundled quality station].
+        #[arg(long, short)]
+        config: Option<PathBuf>,
+        /// Invented evenings to replay, one per seed (1 to N).
+        #[arg(long, default_value_t = 5, value_name = "N")]
+        evenings: u64,
+        /// Length of each evening, in hours.
+        #[arg(long, default_value_t = 4.0)]
+        hours: f64,
+        /// Amplitude of the hidden calibration error, in motor steps.
+        #[arg(long, default_value_t = 3.0, value_name = "STEPS")]
+        error_steps: f64,
+        /// Write one JSON object instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
     /// Check a config and show the bands, limits and calibration it describes.
     Check {
         /// The station's config (TOML).
@@ -105,6 +131,21 @@ fn main() -> ExitCode {
             .map(|_| ())
         }
         Command::Demo { json } => tuneward::station::demo(&mut out, json).map(|_| ()),
+        Command::BenchFollow {
+            config,
+            evenings,
+            hours,
+            error_steps,
+            json,
+        } => {
+            let options = tuneward::quality::BenchOptions {
+                seeds: (1..=evenings).collect(),
+                hours,
+                error_steps,
+                ..Default::default()
+            };
+            tuneward::quality::run(config.as_deref(), &options, json, &mut out).map(|_| ())
+        }
         Command::Check { config } => tuneward::station::check(&config, &mut out),
         Command::Fit(args) => {
             drop(out);

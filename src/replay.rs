@@ -132,6 +132,32 @@ impl<'t> Replay<'t> {
         self.summary.bad_lines += 1;
     }
 
+    /// Runs every deadline up to capture time `t` (as given to
+    /// [`Replay::feed`]) without new input, so that a caller can look at the
+    /// state in between records. Earlier times do nothing.
+    pub fn advance(&mut self, t: Duration) -> std::io::Result<()> {
+        let Some(origin) = self.origin else {
+            return Ok(());
+        };
+        let t = t.saturating_sub(origin);
+        if t <= self.now {
+            return Ok(());
+        }
+        self.advance_to(t)?;
+        self.now = t;
+        Ok(())
+    }
+
+    /// The simulated tuner, for inspection (where the capacitor is).
+    pub fn tuner(&self) -> &SimTuner {
+        &self.tuner
+    }
+
+    /// The replay's current time since the capture's first record.
+    pub fn now(&self) -> Duration {
+        self.now
+    }
+
     /// The core, for inspection.
     pub fn core(&self) -> &Follower {
         &self.core

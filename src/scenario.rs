@@ -269,10 +269,23 @@ const BROADCAST_HZ: [(u64, u64); 3] = [
 /// sweeps, band changes, visits to broadcast stations and line noise. The
 /// same seed gives the same evening.
 pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    random_evening_repeating(seed, hours, bands, None)
+}
+
+/// [`random_evening`] from a rig that also repeats its frequency every
+/// `repeat` while nothing else happens (a polled rig): the same evening, with
+/// more reports on the wire.
+pub fn random_evening_repeating(
+    seed: u64,
+    hours: f64,
+    bands: &[(u64, u64)],
+    repeat: Option<Duration>,
+) -> Scenario {
     let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
     let mut rng = fastrand::Rng::with_seed(seed ^ 0x5eed);
     let start = rng.u64(first.0..=first.1);
     let s = &mut Script::new(seed, start);
+    s.repeat_every(repeat);
     let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
     let ms = Duration::from_millis;
     let sec = Duration::from_secs;
@@ -348,7 +361,17 @@ pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
 /// width of the window around `hz`; `None` means the frequency is not
 /// followed (outside the bands) and places no constraint.
 pub fn fewest_moves(dwells: &[Dwell], window_hz: impl Fn(u64) -> Option<f64>) -> u64 {
-    let mut moves = 0;
+    fewest_moves_plan(dwells, window_hz).len() as u64
+}
+
+/// The tunings of [`fewest_moves`], in order: for each repositioning, the
+/// range of tuned frequencies (low, high in Hz) that keeps every dwell of its
+/// group inside the window.
+pub fn fewest_moves_plan(
+    dwells: &[Dwell],
+    window_hz: impl Fn(u64) -> Option<f64>,
+) -> Vec<(f64, f64)> {
+    let mut plan: Vec<(f64, f64)> = Vec::new();
     // The band of tuned frequencies still acceptable to the current group.
     let mut group: Option<(f64, f64)> = None;
     for d in dwells {
@@ -357,12 +380,17 @@ pub fn fewest_moves(dwells: &[Dwell], window_hz: impl Fn(u64) -> Option<f64>) ->
         group = match group {
             Some((glo, ghi)) if lo.max(glo) <= hi.min(ghi) => Some((lo.max(glo), hi.min(ghi))),
             _ => {
-                moves += 1;
+                if let Some(g) = group {
+                    plan.push(g);
+                }
                 Some((lo, hi))
             }
         };
     }
-    moves
+    if let Some(g) = group {
+        plan.push(g);
+    }
+    plan
 }
 
 #[cfg(test)]
@@ -437,6 +465,19 @@ mod tests {
         assert!(!a.transmit.is_empty());
         let c = random_evening(4, 2.0, &bands);
         assert_ne!(a.steps, c.steps);
+        // The repeating rig: the same evening, reports added only.
+        let r = random_evening_repeating(3, 2.0, &bands, Some(Duration::from_secs(1)));
+        assert_eq!(r.dwells, a.dwells);
+        assert_eq!(r.transmit, a.transmit);
+        assert!(r.steps.len() > a.steps.len() + 3_000, "{}", r.steps.len());
+        let not_reports = |sc: &Scenario| -> Vec<(Duration, Happening)> {
+            sc.steps
+                .iter()
+                .filter(|(_, h)| !matches!(h, Happening::Report { .. }))
+                .cloned()
+                .collect()
+        };
+        assert_eq!(not_reports(&r), not_reports(&a));
     }
 
     #[test]
@@ -461,6 +502,11 @@ mod tests {
         // A 5 kHz window that also follows 9.6 MHz: {7.100, 7.104},
         // {7.108}, {9.6}, {7.120, 7.121}.
         assert_eq!(fewest_moves(&dwells, |_| Some(5_000.0)), 4);
+        // The plan: where each of the two tunings may sit.
+        assert_eq!(
+            fewest_moves_plan(&dwells, window),
+            vec![(7_103_000.0, 7_105_000.0), (7_116_000.0, 7_125_000.0)]
+        );
     }
 
     #[test]
