@@ -356,6 +356,33 @@ fn key_at_line(text: &str, line: usize) -> Option<String> {
     })
 }
 
+/// A type name from the TOML reader, in words a station owner reads.
+fn plain_type(rust: &str) -> Option<&'static str> {
+    Some(match rust {
+        "u8" | "u16" | "u32" | "u64" | "usize" => "a whole number, 0 or more",
+        "i8" | "i16" | "i32" | "i64" | "isize" => "a whole number",
+        "f32" | "f64" => "a number",
+        _ => return None,
+    })
+}
+
+/// Rewrites the TOML reader's `invalid type: <found>, expected <type>` (and
+/// `invalid value: …`) as `expected <in words>, found <found>`, the form
+/// every other config error has. Other messages pass unchanged.
+fn plain_words(message: &str) -> String {
+    for lead in ["invalid type: ", "invalid value: "] {
+        let Some(rest) = message.strip_prefix(lead) else {
+            continue;
+        };
+        let Some((found, expected)) = rest.rsplit_once(", expected ") else {
+            continue;
+        };
+        let expected = plain_type(expected.trim()).unwrap_or(expected.trim());
+        return format!("expected {expected}, found {found}");
+    }
+    message.to_string()
+}
+
 impl Config {
     /// Reads, parses and validates a config file.
     pub fn load(path: &Path) -> Result<Config, ConfigError> {
@@ -373,7 +400,7 @@ impl Config {
     pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         toml::from_str::<Config>(text).map_err(|e| {
             let at = e.span().map(|s| line_col(text, s.start));
-            let message = e.message().trim().to_string();
+            let message = plain_words(e.message().trim());
             let message = match at.and_then(|(line, _)| key_at_line(text, line)) {
                 Some(key) if !message.contains(&key) => format!("key `{key}`: {message}"),
                 _ => message,

@@ -156,10 +156,15 @@ fn main() -> ExitCode {
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
-            eprintln!("tuneward: {e}");
+            let message = e.to_string();
+            eprintln!("tuneward: {message}");
             let mut source = std::error::Error::source(&e);
             while let Some(s) = source {
-                eprintln!("  because: {s}");
+                // Most messages already end with their cause: say it once.
+                let why = s.to_string();
+                if !message.contains(&why) {
+                    eprintln!("  because: {why}");
+                }
                 source = s.source();
             }
             ExitCode::FAILURE

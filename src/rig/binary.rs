@@ -1,9 +1,9 @@
 //! The binary framed family: `FE FE <to> <from> <command> [<data>…] FD`.
 //!
-//! Framing is check-then-parse over one bounded buffer per direction: find
-//! where a frame starts (two preamble bytes followed by something else),
-//! check that it is complete, then parse the header with nom and interpret
-//! the command. Anything between frames is one run of garbage; a frame longer
+//! Framing is check-then-parse over one bounded buffer per direction (or in
+//! place, when nothing is held): find where a frame starts (two preamble
+//! bytes followed by something else), check that it is complete, then read
+//! the header and interpret the command. Anything between frames is one run of garbage; a frame longer
 //! than the dialect allows is rejected as overlong and skipped up to the next
 //! preamble; a preamble inside a frame abandons the frame so far (garbage)
 //! and starts again there.
