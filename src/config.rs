@@ -167,7 +167,7 @@ fn default_debounce_ms() -> u64 {
     400
 }
 fn default_hysteresis_hz() -> Hysteresis {
-    Hysteresis::Hz(2_000)
+    Hysteresis::Unset
 }
 fn default_min_move_steps() -> i64 {
     2
@@ -251,7 +251,16 @@ pub struct BandConfig {
 pub enum Hysteresis {
     Hz(u64),
     Auto(AutoWord),
+    /// Not set in the config: `"auto"` where `[antenna]` describes the loop,
+    /// else [`DEFAULT_HYSTERESIS_HZ`]. (A fixed default cannot suit every
+    /// loop: `tuneward bench-follow` measured 2000 Hz as too wide for a
+    /// high-Q loop on 40 m, where the 1.5:1 window is about 1 kHz.)
+    #[serde(skip_deserializing)]
+    Unset,
 }
+
+/// The dead band when none is set and the loop is not described.
+pub const DEFAULT_HYSTERESIS_HZ: u64 = 2_000;
 
 /// The literal word `auto`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]

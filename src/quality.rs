@@ -542,6 +542,48 @@ mod tests {
     }
 
     #[test]
+    fn the_default_policy_keeps_the_loop_within_1_5_with_few_moves() {
+        // The quality station leaves [follow] at its defaults; the dead band
+        // is then "auto". With a fixed 2000 Hz dead band this fails (the
+        // README gives the figures).
+        let st = station();
+        let options = BenchOptions {
+            seeds: vec![3, 4],
+            hours: 2.0,
+            ..BenchOptions::default()
+        };
+        let r = bench_follow(&st, "test", &options).unwrap();
+        let (f, o) = (r.row("follow").unwrap(), r.row("optimum").unwrap());
+        assert_eq!(f.over_1_5_s, 0.0, "{f:?}");
+        assert!(
+            f.moves as f64 <= 1.3 * o.moves as f64,
+            "{} vs {}",
+            f.moves,
+            o.moves
+        );
+        assert!(r.target_met());
+        // And the same evenings with the old fixed default do not.
+        let mut fixed = st.policy.clone();
+        for b in &mut fixed.bands {
+            b.hysteresis_hz = crate::config::DEFAULT_HYSTERESIS_HZ;
+        }
+        let mut tally = Tally::default();
+        let physics = SmallLoop::from_config(&st.config.antenna).unwrap();
+        let sim_loop = SimLoop::new(st.map.as_ref(), physics, &fixed, 3.0, 20_000.0);
+        let bands: Vec<(u64, u64)> = fixed.bands.iter().map(|b| (b.low_hz, b.high_hz)).collect();
+        let wire = DialectWire {
+            dialect: &st.dialect,
+            address: 0x94,
+        };
+        for seed in [3, 4] {
+            let sc = random_evening(seed, 2.0, &bands);
+            let chunks = sc.chunks(&wire);
+            run_policy(&st, &fixed, &sc, &chunks, &sim_loop, &mut tally).unwrap();
+        }
+        assert!(tally.radiated - tally.ok_1_5 > 0.0);
+    }
+
+    #[test]
     fn naive_moves_more_than_ours_and_the_optimum_fewest() {
         let st = station();
         let options = BenchOptions {
