@@ -106,6 +106,33 @@ pub fn swr_bandwidth_hz(hz: f64, q_unloaded: f64, swr: f64) -> f64 {
     hz / q_unloaded * (swr - 1.0) / swr.sqrt()
 }
 
+/// SWR of a loop resonant at `resonance_hz`, matched there (critical
+/// coupling), seen at `hz`, for unloaded Q `q_unloaded`.
+///
+/// Derivation (the same model as [`swr_bandwidth_hz`]): near resonance a
+/// series RLC has `Z = R (1 + j 2 Q Δf/f0)` (D. M. Pozar, *Microwave
+/// Engineering*, 4th ed., §6.1, series resonant circuit near resonance;
+/// recalled). The loop is coupled so that at resonance it presents `Z0`,
+/// and the Q of the loop itself in that form is `Q_u`, so the normalised
+/// impedance is `z = 1 + j x`, `x = 2 Q_u δ`, `δ = (f − f0)/f0`. The
+/// reflection coefficient is `Γ = (z − 1)/(z + 1)` (Pozar §2.3), so
+/// `|Γ| = |x| / √(4 + x²)`, and `SWR = (1 + |Γ|)/(1 − |Γ|)`. At `x = 1`,
+/// `|Γ| = 1/√5` and SWR = (3 + √5)/2 ≈ 2.618; at `x = 2`, `|Γ|² = ½` (the
+/// loaded half-power points) and SWR = 3 + 2√2 ≈ 5.83. Infinite for a
+/// non-finite detuning or Q.
+pub fn swr_at(hz: f64, resonance_hz: f64, q_unloaded: f64) -> f64 {
+    let delta = (hz - resonance_hz) / resonance_hz;
+    let x = 2.0 * q_unloaded * delta;
+    if !x.is_finite() {
+        return f64::INFINITY;
+    }
+    let gamma = x.abs() / (4.0 + x * x).sqrt();
+    if gamma >= 1.0 {
+        return f64::INFINITY;
+    }
+    (1.0 + gamma) / (1.0 - gamma)
+}
+
 /// RMS voltage across the tuning capacitor with `power_w` delivered to the
 /// matched loop: all the power is dissipated in `R = X_L/Q_u`, so the
 /// circulating current is `I = √(P/R)` and `V = I X_C = I X_L = √(P X_L Q_u)`
@@ -310,7 +337,7 @@ pub fn check_band(
         for f in [low, center, high] {
             let e = l.at(f);
             let v = capacitor_voltage_rms(p, e.reactance_ohm, e.q_unloaded);
-            if v_rms.map_or(true, |(best, _)| v > best) {
+            if v_rms.is_none_or(|(best, _)| v > best) {
                 v_rms = Some((v, f));
             }
         }
@@ -357,6 +384,29 @@ mod tests {
             power_w: Some(100.0),
             capacitor_rating_v: Some(15_000.0),
         }
+    }
+
+    #[test]
+    fn swr_at_an_offset_matches_hand_computed_values() {
+        // Hand computations from Γ = (z − 1)/(z + 1), z = 1 + jx (Pozar,
+        // Microwave Engineering, §2.3 and §6.1; recalled):
+        // x = 0: matched, SWR 1.
+        assert_eq!(swr_at(7e6, 7e6, 1000.0), 1.0);
+        // x = 1: |Γ| = 1/√5, SWR = (1 + 1/√5)/(1 − 1/√5) = (3 + √5)/2.
+        // With Q_u = 1000, x = 1 at δ = 1/2000: 3500 Hz above 7 MHz.
+        let s = swr_at(7_003_500.0, 7e6, 1000.0);
+        assert!((s - (3.0 + 5f64.sqrt()) / 2.0).abs() < 1e-9, "{s}");
+        // x = −2 (below resonance): |Γ|² = 1/2, SWR = 3 + 2√2.
+        let s = swr_at(6_993_000.0, 7e6, 1000.0);
+        assert!((s - (3.0 + 2.0 * 2f64.sqrt())).abs() < 1e-9, "{s}");
+        // Consistent with the bandwidth: half the 1.5:1 (2:1) width off
+        // resonance the SWR is 1.5 (2).
+        for (swr, f0, q) in [(1.5, 7.1e6, 2900.0), (2.0, 14.2e6, 1550.0)] {
+            let half = swr_bandwidth_hz(f0, q, swr) / 2.0;
+            assert!((swr_at(f0 + half, f0, q) - swr).abs() < 1e-9);
+            assert!((swr_at(f0 - half, f0, q) - swr).abs() < 1e-6);
+        }
+        assert_eq!(swr_at(7.1e6, 7e6, f64::INFINITY), f64::INFINITY);
     }
 
     #[test]

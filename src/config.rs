@@ -222,13 +222,23 @@ pub struct FollowConfig {
     /// frequency before the new position is offered as a calibration point.
     #[serde(default = "default_candidate_dwell_ms")]
     pub candidate_dwell_ms: u64,
+    /// Assert the inhibit as soon as the rig reports a frequency the loop is
+    /// not tuned for (beyond the dead band), not only while the motor moves:
+    /// an operator who calls at once after tuning cannot transmit into a
+    /// mistuned loop.
+    #[serde(default = "default_true")]
+    pub inhibit_while_detuned: bool,
+}
+
+fn default_true() -> bool {
+    true
 }
 
 fn default_debounce_ms() -> u64 {
     400
 }
 fn default_hysteresis_hz() -> Hysteresis {
-    Hysteresis::Hz(2_000)
+    Hysteresis::Unset
 }
 fn default_min_move_steps() -> i64 {
     2
@@ -252,6 +262,7 @@ impl Default for FollowConfig {
             inhibit_tail_ms: default_inhibit_tail_ms(),
             inhibit_lead_ms: default_inhibit_lead_ms(),
             candidate_dwell_ms: default_candidate_dwell_ms(),
+            inhibit_while_detuned: true,
         }
     }
 }
@@ -312,7 +323,16 @@ pub struct BandConfig {
 pub enum Hysteresis {
     Hz(u64),
     Auto(AutoWord),
+    /// Not set in the config: `"auto"` where `[antenna]` describes the loop,
+    /// else [`DEFAULT_HYSTERESIS_HZ`]. (A fixed default cannot suit every
+    /// loop: `tuneward bench-follow` measured 2000 Hz as too wide for a
+    /// high-Q loop on 40 m, where the 1.5:1 window is about 1 kHz.)
+    #[serde(skip_deserializing)]
+    Unset,
 }
+
+/// The dead band when none is set and the loop is not described.
+pub const DEFAULT_HYSTERESIS_HZ: u64 = 2_000;
 
 /// The literal word `auto`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
@@ -466,6 +486,33 @@ fn key_at_line(text: &str, line: usize) -> Option<String> {
     })
 }
 
+/// A type name from the TOML reader, in words a station owner reads.
+fn plain_type(rust: &str) -> Option<&'static str> {
+    Some(match rust {
+        "u8" | "u16" | "u32" | "u64" | "usize" => "a whole number, 0 or more",
+        "i8" | "i16" | "i32" | "i64" | "isize" => "a whole number",
+        "f32" | "f64" => "a number",
+        _ => return None,
+    })
+}
+
+/// Rewrites the TOML reader's `invalid type: <found>, expected <type>` (and
+/// `invalid value: …`) as `expected <in words>, found <found>`, the form
+/// every other config error has. Other messages pass unchanged.
+fn plain_words(message: &str) -> String {
+    for lead in ["invalid type: ", "invalid value: "] {
+        let Some(rest) = message.strip_prefix(lead) else {
+            continue;
+        };
+        let Some((found, expected)) = rest.rsplit_once(", expected ") else {
+            continue;
+        };
+        let expected = plain_type(expected.trim()).unwrap_or(expected.trim());
+        return format!("expected {expected}, found {found}");
+    }
+    message.to_string()
+}
+
 impl Config {
     /// Reads, parses and validates a config file.
     pub fn load(path: &Path) -> Result<Config, ConfigError> {
@@ -483,7 +530,7 @@ impl Config {
     pub fn parse(text: &str, path: &Path) -> Result<Config, ConfigError> {
         toml::from_str::<Config>(text).map_err(|e| {
             let at = e.span().map(|s| line_col(text, s.start));
-            let message = e.message().trim().to_string();
+            let message = plain_words(e.message().trim());
             let message = match at.and_then(|(line, _)| key_at_line(text, line)) {
                 Some(key) if !message.contains(&key) => format!("key `{key}`: {message}"),
                 _ => message,

@@ -46,6 +46,11 @@ enum Command {
         /// Also show every frequency report and ignored stretch of bytes.
         #[arg(long, short)]
         verbose: bool,
+        /// Warn about each malformed capture line (on standard error) and
+        /// carry on with the next, instead of stopping at the first. The
+        /// summary counts them as `bad_lines`.
+        #[arg(long)]
+        skip_bad_lines: bool,
     },
     /// Replay an invented evening at a demo station: no hardware, no arguments.
     Demo {
@@ -62,6 +67,32 @@ enum Command {
     /// the position journal, e.g. after the journal reported a move that
     /// never finished.
     SetPosition(tuneward::journal::SetPositionArgs),
+    /// Measure how well the follow policy keeps the loop tuned.
+    ///
+    /// Replays invented evenings at a station (by default the bundled
+    /// quality station, fixtures/quality/station.toml) against a simulated
+    /// loop whose resonance differs from the calibration by a small hidden
+    /// error, and reports for the station's policy, a naive one that moves on
+    /// every report, and the offline optimum: moves, motor travel, and the
+    /// share of the time on the air at SWR <= 1.5 and <= 2. The station must
+    /// describe its loop in [antenna].
+    BenchFollow {
+        /// The station's config [default: the bundled quality station].
+        #[arg(long, short)]
+        config: Option<PathBuf>,
+        /// Invented evenings to replay, one per seed (1 to N).
+        #[arg(long, default_value_t = 5, value_name = "N")]
+        evenings: u64,
+        /// Length of each evening, in hours.
+        #[arg(long, default_value_t = 4.0)]
+        hours: f64,
+        /// Amplitude of the hidden calibration error, in motor steps.
+        #[arg(long, default_value_t = 3.0, value_name = "STEPS")]
+        error_steps: f64,
+        /// Write one JSON object instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
     /// Check a config and show the bands, limits and calibration it describes.
     Check {
         /// The station's config (TOML).
@@ -81,6 +112,7 @@ fn main() -> ExitCode {
             json,
             start_steps,
             verbose,
+            skip_bad_lines,
         } => {
             let mut json_out;
             let mut human_out;
@@ -91,9 +123,36 @@ fn main() -> ExitCode {
                 human_out = Human::new(&mut out, verbose);
                 &mut human_out
             };
-            tuneward::station::replay_file(&config, &capture, start_steps, timeline).map(|_| ())
+            let options = tuneward::station::ReplayOptions {
+                start_steps,
+                skip_bad_lines,
+            };
+            let stderr = std::io::stderr();
+            tuneward::station::replay_file_with(
+                &config,
+                &capture,
+                options,
+                timeline,
+                &mut stderr.lock(),
+            )
+            .map(|_| ())
         }
         Command::Demo { json } => tuneward::station::demo(&mut out, json).map(|_| ()),
+        Command::BenchFollow {
+            config,
+            evenings,
+            hours,
+            error_steps,
+            json,
+        } => {
+            let options = tuneward::quality::BenchOptions {
+                seeds: (1..=evenings).collect(),
+                hours,
+                error_steps,
+                ..Default::default()
+            };
+            tuneward::quality::run(config.as_deref(), &options, json, &mut out).map(|_| ())
+        }
         Command::Check { config } => tuneward::station::check(&config, &mut out),
         Command::Fit(args) => {
             drop(out);
@@ -112,10 +171,15 @@ fn main() -> ExitCode {
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
-            eprintln!("tuneward: {e}");
+            let message = e.to_string();
+            eprintln!("tuneward: {message}");
             let mut source = std::error::Error::source(&e);
             while let Some(s) = source {
-                eprintln!("  because: {s}");
+                // Most messages already end with their cause: say it once.
+                let why = s.to_string();
+                if !message.contains(&why) {
+                    eprintln!("  because: {why}");
+                }
                 source = s.source();
             }
             ExitCode::FAILURE

@@ -96,6 +96,16 @@ impl<'t> Replay<'t> {
     /// Runs out every deadline still pending (a settling frequency, a move,
     /// the inhibit tail), writes the summary and returns it.
     pub fn finish(mut self) -> std::io::Result<Summary> {
+        // Bytes the decoder still holds at the end of the input (a pending run
+        // of rejected bytes, an unfinished frame) are reported, not lost.
+        let mut events = std::mem::take(&mut self.events);
+        events.clear();
+        self.decoder.finish(&mut events);
+        for ev in &events {
+            self.rig_event(*ev)?;
+        }
+        self.events = events;
+        self.apply_actions()?;
         // Every pending deadline is finite: debounce, lead, travel, tail,
         // candidate dwell. Bound the loop all the same.
         for _ in 0..10_000 {
@@ -114,6 +124,38 @@ impl<'t> Replay<'t> {
         self.timeline
             .entry(self.now, &Entry::Summary(summary.clone()))?;
         Ok(summary)
+    }
+
+    /// Counts one malformed capture line passed over (reported in the
+    /// summary as `bad_lines`).
+    pub fn skip_bad_line(&mut self) {
+        self.summary.bad_lines += 1;
+    }
+
+    /// Runs every deadline up to capture time `t` (as given to
+    /// [`Replay::feed`]) without new input, so that a caller can look at the
+    /// state in between records. Earlier times do nothing.
+    pub fn advance(&mut self, t: Duration) -> std::io::Result<()> {
+        let Some(origin) = self.origin else {
+            return Ok(());
+        };
+        let t = t.saturating_sub(origin);
+        if t <= self.now {
+            return Ok(());
+        }
+        self.advance_to(t)?;
+        self.now = t;
+        Ok(())
+    }
+
+    /// The simulated tuner, for inspection (where the capacitor is).
+    pub fn tuner(&self) -> &SimTuner {
+        &self.tuner
+    }
+
+    /// The replay's current time since the capture's first record.
+    pub fn now(&self) -> Duration {
+        self.now
     }
 
     /// The core, for inspection.

@@ -184,6 +184,32 @@ impl Script {
     }
 }
 
+/// Writes `scenario` as a capture file (all bytes as received from the rig),
+/// one record at a time: nothing but the scenario itself is held. Returns
+/// the number of records written.
+pub fn write_capture<W: std::io::Write>(
+    scenario: &Scenario,
+    wire: &dyn Wire,
+    out: W,
+) -> std::io::Result<u64> {
+    let mut w = crate::capture::CaptureWriter::new(out);
+    w.comment("an invented scenario, generated")?;
+    let mut records = 0;
+    for (t, what) in &scenario.steps {
+        let bytes = match what {
+            Happening::Report { hz } => wire.frequency(*hz),
+            Happening::Transmit { on } => wire.transmit(*on),
+            Happening::Noise { bytes } => bytes.clone(),
+        };
+        if !bytes.is_empty() {
+            w.write_record(*t, Direction::Rx, &bytes)?;
+            records += 1;
+        }
+    }
+    w.flush()?;
+    Ok(records)
+}
+
 /// A finished scenario.
 #[derive(Debug, Clone)]
 pub struct Scenario {
@@ -269,10 +295,23 @@ const BROADCAST_HZ: [(u64, u64); 3] = [
 /// sweeps, band changes, visits to broadcast stations and line noise. The
 /// same seed gives the same evening.
 pub fn random_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    random_evening_repeating(seed, hours, bands, None)
+}
+
+/// [`random_evening`] from a rig that also repeats its frequency every
+/// `repeat` while nothing else happens (a polled rig): the same evening, with
+/// more reports on the wire.
+pub fn random_evening_repeating(
+    seed: u64,
+    hours: f64,
+    bands: &[(u64, u64)],
+    repeat: Option<Duration>,
+) -> Scenario {
     let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
     let mut rng = fastrand::Rng::with_seed(seed ^ 0x5eed);
     let start = rng.u64(first.0..=first.1);
     let s = &mut Script::new(seed, start);
+    s.repeat_every(repeat);
     let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
     let ms = Duration::from_millis;
     let sec = Duration::from_secs;
@@ -361,7 +400,17 @@ fn quick_call(s: &mut Script, rng: &mut fastrand::Rng) {
 /// width of the window around `hz`; `None` means the frequency is not
 /// followed (outside the bands) and places no constraint.
 pub fn fewest_moves(dwells: &[Dwell], window_hz: impl Fn(u64) -> Option<f64>) -> u64 {
-    let mut moves = 0;
+    fewest_moves_plan(dwells, window_hz).len() as u64
+}
+
+/// The tunings of [`fewest_moves`], in order: for each repositioning, the
+/// range of tuned frequencies (low, high in Hz) that keeps every dwell of its
+/// group inside the window.
+pub fn fewest_moves_plan(
+    dwells: &[Dwell],
+    window_hz: impl Fn(u64) -> Option<f64>,
+) -> Vec<(f64, f64)> {
+    let mut plan: Vec<(f64, f64)> = Vec::new();
     // The band of tuned frequencies still acceptable to the current group.
     let mut group: Option<(f64, f64)> = None;
     for d in dwells {
@@ -370,12 +419,17 @@ pub fn fewest_moves(dwells: &[Dwell], window_hz: impl Fn(u64) -> Option<f64>) ->
         group = match group {
             Some((glo, ghi)) if lo.max(glo) <= hi.min(ghi) => Some((lo.max(glo), hi.min(ghi))),
             _ => {
-                moves += 1;
+                if let Some(g) = group {
+                    plan.push(g);
+                }
                 Some((lo, hi))
             }
         };
     }
-    moves
+    if let Some(g) = group {
+        plan.push(g);
+    }
+    plan
 }
 
 #[cfg(test)]
@@ -450,6 +504,19 @@ mod tests {
         assert!(!a.transmit.is_empty());
         let c = random_evening(4, 2.0, &bands);
         assert_ne!(a.steps, c.steps);
+        // The repeating rig: the same evening, reports added only.
+        let r = random_evening_repeating(3, 2.0, &bands, Some(Duration::from_secs(1)));
+        assert_eq!(r.dwells, a.dwells);
+        assert_eq!(r.transmit, a.transmit);
+        assert!(r.steps.len() > a.steps.len() + 3_000, "{}", r.steps.len());
+        let not_reports = |sc: &Scenario| -> Vec<(Duration, Happening)> {
+            sc.steps
+                .iter()
+                .filter(|(_, h)| !matches!(h, Happening::Report { .. }))
+                .cloned()
+                .collect()
+        };
+        assert_eq!(not_reports(&r), not_reports(&a));
     }
 
     #[test]
@@ -474,6 +541,26 @@ mod tests {
         // A 5 kHz window that also follows 9.6 MHz: {7.100, 7.104},
         // {7.108}, {9.6}, {7.120, 7.121}.
         assert_eq!(fewest_moves(&dwells, |_| Some(5_000.0)), 4);
+        // The plan: where each of the two tunings may sit.
+        assert_eq!(
+            fewest_moves_plan(&dwells, window),
+            vec![(7_103_000.0, 7_105_000.0), (7_116_000.0, 7_125_000.0)]
+        );
+    }
+
+    #[test]
+    fn written_capture_reads_back_as_the_chunks() {
+        let sc = random_evening(5, 0.5, &[(7_000_000, 7_200_000)]);
+        let mut file = Vec::new();
+        let n = write_capture(&sc, &Plain, &mut file).unwrap();
+        let back: Vec<(Duration, Direction, Vec<u8>)> =
+            crate::capture::CaptureReader::new(file.as_slice(), "s.cap")
+                .map(|r| r.map(|r| (r.t, r.dir, r.bytes)))
+                .collect::<Result<_, _>>()
+                .unwrap();
+        assert_eq!(back.len() as u64, n);
+        // Times are written to the microsecond, as the scenario makes them.
+        assert_eq!(back, sc.chunks(&Plain));
     }
 
     #[test]

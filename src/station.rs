@@ -128,18 +128,55 @@ impl Station {
     }
 }
 
-/// `tuneward replay`: a capture file through the station's core, in virtual time.
+/// How `tuneward replay` runs.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct ReplayOptions {
+    /// Where the simulated motor starts [default: `tuner.min_steps`].
+    pub start_steps: Option<i64>,
+    /// Pass over malformed capture lines (each warned about) instead of
+    /// stopping at the first; they are counted as `bad_lines`.
+    pub skip_bad_lines: bool,
+}
+
+/// `tuneward replay`: a capture file through the station's core, in virtual
+/// time. Stops at the first malformed capture line.
 pub fn replay_file(
     config: &Path,
     capture: &Path,
     start_steps: Option<i64>,
     timeline: &mut dyn Timeline,
 ) -> Result<Summary, StationError> {
+    let options = ReplayOptions {
+        start_steps,
+        skip_bad_lines: false,
+    };
+    replay_file_with(config, capture, options, timeline, &mut std::io::sink())
+}
+
+/// `tuneward replay` with its options. With `skip_bad_lines`, each malformed
+/// line (its file, line, what was expected and what was found; never the
+/// line itself, which may be megabytes) is written to `warnings` and the
+/// replay carries on at the next line; an I/O error still stops it.
+pub fn replay_file_with(
+    config: &Path,
+    capture: &Path,
+    options: ReplayOptions,
+    timeline: &mut dyn Timeline,
+    warnings: &mut dyn Write,
+) -> Result<Summary, StationError> {
     let station = Station::load(config)?;
     let reader = CaptureReader::open(capture)?;
-    let mut replay = Replay::new(station.replay_setup(start_steps), timeline);
+    let mut replay = Replay::new(station.replay_setup(options.start_steps), timeline);
     for record in reader {
-        let record = record?;
+        let record = match record {
+            Ok(r) => r,
+            Err(e @ CaptureError::Line { .. }) if options.skip_bad_lines => {
+                writeln!(warnings, "tuneward: warning: {e}; line skipped")?;
+                replay.skip_bad_line();
+                continue;
+            }
+            Err(e) => return Err(e.into()),
+        };
         replay.feed(Chunk {
             t: record.t,
             dir: record.dir,

@@ -74,6 +74,8 @@ pub struct Summary {
     /// Safety rules the driver saw broken (always 0; counted independently of
     /// the core as a check on it).
     pub violations: u64,
+    /// Malformed capture lines passed over (`replay --skip-bad-lines`).
+    pub bad_lines: u64,
 }
 
 /// Receives a run's entries.
@@ -226,6 +228,12 @@ impl<W: Write> Timeline for Human<W> {
                     let rejects: Vec<String> =
                         s.rejects.iter().map(|(k, v)| format!("{k} {v}")).collect();
                     text.push_str(&format!("; ignored: {}", rejects.join(", ")));
+                }
+                if s.bad_lines > 0 {
+                    text.push_str(&format!(
+                        "; {} malformed capture lines skipped",
+                        s.bad_lines
+                    ));
                 }
                 text
             }

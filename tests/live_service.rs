@@ -45,6 +45,7 @@ fn policy() -> Policy {
         inhibit_lead: Duration::from_millis(5),
         inhibit_tail: Duration::from_millis(20),
         candidate_dwell: Duration::from_secs(60),
+        inhibit_while_detuned: false,
     }
 }
 

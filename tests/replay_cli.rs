@@ -295,12 +295,14 @@ high_hz = 7300000
         brief,
         vec![
             "0.0 frequency hz=7100000",
+            // The loop is not tuned for the report: inhibited at once.
+            "0.0 inhibit on=true",
             "0.5 settle hz=7100000",
-            "0.5 inhibit on=true",
             "0.5 move from=500 hz=7100000 to=1000 tune_hz=7100000",
             "1.0 arrive steps=1000",
             "1.2 inhibit on=false",
             "10.0 transmit on=true",
+            // Reported while transmitting: no inhibit against a transmission.
             "10.1 frequency hz=7200000",
             "10.6 settle hz=7200000",
             "10.6 hold hz=7200000 reason=\"transmitting\"",

@@ -268,7 +268,7 @@ proptest! {
         for (i, &addr) in addrs.iter().enumerate() {
             let hz = 7_000_000 + i as u64 * 1000;
             stream.extend(d.encode_frequency(hz, addr));
-            let counts = addr != 0xE0 && filter.map_or(true, |f| f == addr);
+            let counts = addr != 0xE0 && filter.is_none_or(|f| f == addr);
             if counts {
                 expected.push(RigEvent::Frequency { hz });
             }

@@ -168,6 +168,8 @@ pub struct Follower {
     motion: Motion,
     inhibit: bool,
     release_at: Option<Duration>,
+    /// The inhibit is held for a detuned report that has not settled yet.
+    detune_hold: bool,
     touchup: Option<Touchup>,
     /// The last hold reported, so that a repeated identical decision is
     /// logged once, not on every report.
@@ -208,6 +210,7 @@ impl Follower {
             motion: Motion::Idle,
             inhibit: false,
             release_at: None,
+            detune_hold: false,
             touchup: None,
             last_hold: None,
             actions: VecDeque::new(),
@@ -232,7 +235,34 @@ impl Follower {
             hz,
             deadline: now + self.policy.debounce_for(hz),
         });
+        if self.policy.inhibit_while_detuned
+            && !self.transmitting
+            && self.position.is_some()
+            && self.detuned_for(hz)
+        {
+            // The loop is wrong for this frequency from now on: no
+            // transmitting into it until it has been tuned. (A running
+            // inhibit tail is kept, and ends no earlier than the settle.)
+            self.detune_hold = true;
+            self.set_inhibit(true);
+        }
         self.handle_timeout(now);
+    }
+
+    /// Whether the loop, tuned for `tuned_hz`, is outside its dead band for
+    /// a report of `hz` in a followed band.
+    fn detuned_for(&self, hz: u64) -> bool {
+        let (tune_hz, band) = match self.policy.place(hz) {
+            Placement::Inside { band } => (hz, band),
+            Placement::Guard { band, edge_hz } => (edge_hz, band),
+            Placement::Outside => return false,
+        };
+        let hysteresis = self.policy.bands.get(band).map_or(0, |b| b.hysteresis_hz);
+        let heading = match self.motion {
+            Motion::Moving { target, .. } => Some(target.tune_hz),
+            _ => self.tuned_hz,
+        };
+        heading.is_none_or(|t| t.abs_diff(tune_hz) > hysteresis)
     }
 
     /// The rig reported that it started (`true`) or stopped transmitting.
@@ -389,7 +419,7 @@ impl Follower {
             }
         }
         if let Some(at) = self.release_at {
-            if now >= at {
+            if now >= at && !self.detune_hold {
                 self.release_at = None;
                 self.set_inhibit(false);
             }
@@ -424,7 +454,7 @@ impl Follower {
         [
             self.pending.map(|p| p.deadline),
             arming,
-            self.release_at,
+            self.release_at.filter(|_| !self.detune_hold),
             self.touchup.and_then(|t| t.due),
         ]
         .into_iter()
@@ -469,7 +499,21 @@ impl Follower {
         }
         self.settled_hz = Some(hz);
         self.actions.push_back(Action::Settled { hz });
+        let held = std::mem::take(&mut self.detune_hold);
         self.decide(now, hz);
+        // Asserted for a detuned report, and no move came of it (dead band,
+        // out of band, paused): let the rig transmit again, at once or when
+        // a running tail ends.
+        if held
+            && self.inhibit
+            && matches!(self.motion, Motion::Idle)
+            && (self.want.is_none() || self.paused)
+            && self.release_at.is_none()
+            && self.position.is_some()
+            && !self.fault
+        {
+            self.set_inhibit(false);
+        }
     }
 
     /// Decides what the settled frequency `hz` asks for.

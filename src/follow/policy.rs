@@ -3,7 +3,7 @@
 
 use std::time::Duration;
 
-use crate::config::{Approach, Config, ConfigError, Hysteresis};
+use crate::config::{Approach, Config, ConfigError, Hysteresis, DEFAULT_HYSTERESIS_HZ};
 
 /// A band the tuner follows in, with the margins around it.
 #[derive(Debug, Clone, PartialEq)]
@@ -39,6 +39,10 @@ pub struct Policy {
     pub debounce: Duration,
     pub min_move_steps: i64,
     pub inhibit_lead: Duration,
+    /// Assert the inhibit from the first report of a frequency the loop is
+    /// not tuned for, until it has been tuned (or the report falls back into
+    /// the dead band).
+    pub inhibit_while_detuned: bool,
     pub inhibit_tail: Duration,
     /// How long the operator must stay after a hand touch-up before the
     /// touched-up position is offered as a calibration candidate.
@@ -68,6 +72,7 @@ impl Policy {
             };
             let hysteresis_hz = match setting {
                 Hysteresis::Hz(hz) => hz,
+                Hysteresis::Unset => auto_hysteresis(centre).unwrap_or(DEFAULT_HYSTERESIS_HZ),
                 Hysteresis::Auto(_) => {
                     auto_hysteresis(centre).ok_or_else(|| ConfigError::Invalid {
                         path: path.clone(),
@@ -96,6 +101,7 @@ impl Policy {
             debounce: Duration::from_millis(f.debounce_ms),
             min_move_steps: f.min_move_steps,
             inhibit_lead: Duration::from_millis(f.inhibit_lead_ms),
+            inhibit_while_detuned: f.inhibit_while_detuned,
             inhibit_tail: Duration::from_millis(f.inhibit_tail_ms),
             candidate_dwell: Duration::from_millis(f.candidate_dwell_ms),
         })
@@ -203,9 +209,31 @@ mod tests {
             debounce: Duration::from_millis(500),
             min_move_steps: 2,
             inhibit_lead: Duration::from_millis(20),
+            inhibit_while_detuned: false,
             inhibit_tail: Duration::from_millis(100),
             candidate_dwell: Duration::from_secs(10),
         }
+    }
+
+    #[test]
+    fn unset_dead_band_is_auto_for_a_described_loop_else_the_fixed_default() {
+        let text = "[calibration]\npoints = [{ hz = 7000000, steps = 4000 }, { hz = 7200000, steps = 3000 }]\n\
+                    [[band]]\nname = \"40m\"\nlow_hz = 7000000\nhigh_hz = 7200000\n\
+                    [[band]]\nname = \"30m\"\nlow_hz = 10100000\nhigh_hz = 10150000\nhysteresis_hz = 700\n";
+        let config = Config::parse(text, std::path::Path::new("t.toml")).unwrap();
+        // No loop described: the fixed default; a band's own value wins.
+        let p = Policy::from_config(&config, |_| None).unwrap();
+        assert_eq!(p.bands[0].hysteresis_hz, DEFAULT_HYSTERESIS_HZ);
+        assert_eq!(p.bands[1].hysteresis_hz, 700);
+        // A described loop: whatever "auto" gives at the band's centre.
+        let p = Policy::from_config(&config, |centre| Some(centre as u64 / 10_000)).unwrap();
+        assert_eq!(p.bands[0].hysteresis_hz, 710);
+        assert_eq!(p.bands[1].hysteresis_hz, 700);
+        // Set explicitly, a number stays a number.
+        let fixed = format!("[follow]\nhysteresis_hz = 1500\n{text}");
+        let config = Config::parse(&fixed, std::path::Path::new("t.toml")).unwrap();
+        let p = Policy::from_config(&config, |_| Some(1)).unwrap();
+        assert_eq!(p.bands[0].hysteresis_hz, 1500);
     }
 
     #[test]

@@ -45,7 +45,16 @@ fn policy() -> Policy {
         inhibit_lead: ms(20),
         inhibit_tail: ms(100),
         candidate_dwell: ms(5_000),
+        // Off for most rules below, which time the inhibit around moves;
+        // the tests of the detuned inhibit turn it on.
+        inhibit_while_detuned: false,
     }
+}
+
+fn detune_core(position: Option<i64>) -> Follower {
+    let mut p = policy();
+    p.inhibit_while_detuned = true;
+    Follower::new(p, Arc::new(Line), position)
 }
 
 fn core(position: Option<i64>) -> Follower {
@@ -472,6 +481,101 @@ fn switching_calibration_retunes_the_current_frequency() {
     let a = drain(&mut f);
     assert_eq!(gotos(&a), vec![9_540]);
     assert_eq!(f.profile(), Some("wet"));
+}
+
+#[test]
+fn a_detuned_report_inhibits_at_once_until_the_loop_is_tuned() {
+    let mut f = detune_core(Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    f.handle_timeout(ms(320));
+    drain(&mut f); // tuned for 7.050 MHz (already there)
+    assert!(!f.inhibit());
+    // The operator jumps 20 kHz and calls 100 ms later, before the debounce
+    // has run out: the inhibit is already on.
+    f.handle_frequency(ms(1_000), 7_070_000);
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_transmit(ms(1_100), true);
+    f.handle_timeout(ms(1_300));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(a.contains(&Action::Hold {
+        hz: 7_070_000,
+        reason: HoldReason::Transmitting
+    }));
+    assert!(f.inhibit());
+    // On receive the move starts at once: the inhibit has long been on.
+    f.handle_transmit(ms(2_000), false);
+    assert_eq!(gotos(&drain(&mut f)), vec![9_270]);
+    f.handle_arrived(ms(2_300), 9_270);
+    assert_eq!(drain(&mut f), vec![Action::Goto { steps: 9_300 }]);
+    f.handle_arrived(ms(2_350), 9_300);
+    f.handle_timeout(ms(2_450));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+}
+
+#[test]
+fn a_report_inside_the_dead_band_does_not_inhibit() {
+    let mut f = detune_core(Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    drain(&mut f);
+    f.handle_frequency(ms(1_000), 7_050_600);
+    assert!(drain(&mut f).is_empty());
+    assert!(!f.inhibit());
+    // Out of every band: not the loop's business either.
+    f.handle_frequency(ms(2_000), 9_650_000);
+    assert!(!f.inhibit());
+}
+
+#[test]
+fn a_detuned_excursion_that_comes_back_releases_at_the_settle() {
+    let mut f = detune_core(Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    drain(&mut f);
+    f.handle_frequency(ms(1_000), 7_060_000);
+    f.handle_frequency(ms(1_100), 7_050_200);
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    assert_eq!(f.poll_timeout(), Some(ms(1_400)));
+    f.handle_timeout(ms(1_400));
+    let a = drain(&mut f);
+    assert!(a.contains(&Action::Inhibit { on: false }), "{a:?}");
+    assert!(gotos(&a).is_empty());
+}
+
+#[test]
+fn a_detuned_report_during_the_tail_keeps_the_inhibit_without_spinning() {
+    let mut f = detune_core(Some(9_000));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    f.handle_timeout(ms(320));
+    f.handle_arrived(ms(500), 9_500);
+    drain(&mut f);
+    // Tail runs to 600 ms; a detuned report at 550 holds the inhibit.
+    f.handle_frequency(ms(550), 7_080_000);
+    f.handle_timeout(ms(600));
+    assert!(f.inhibit());
+    // The stale tail deadline is not offered again while held.
+    assert_eq!(f.poll_timeout(), Some(ms(850)));
+    f.handle_timeout(ms(850));
+    let a = drain(&mut f);
+    assert!(!a.contains(&Action::Inhibit { on: false }), "{a:?}");
+    assert_eq!(gotos(&a), vec![9_170]);
+}
+
+#[test]
+fn paused_core_does_not_hold_the_inhibit_for_a_detuned_report() {
+    let mut f = detune_core(Some(9_500));
+    f.handle_pause(ms(0), true);
+    f.handle_frequency(ms(100), 7_090_000);
+    f.handle_timeout(ms(400));
+    let a = drain(&mut f);
+    assert!(a.contains(&Action::Hold {
+        hz: 7_090_000,
+        reason: HoldReason::Paused
+    }));
+    assert!(!f.inhibit(), "{a:?}");
 }
 
 #[test]

@@ -150,6 +150,7 @@ pub(crate) struct RejectRun {
 }
 
 impl RejectRun {
+    #[inline]
     pub(crate) fn add(
         &mut self,
         reason: RejectReason,
@@ -178,6 +179,7 @@ impl RejectRun {
         }
     }
 
+    #[inline]
     pub(crate) fn flush(&mut self, out: &mut Vec<RigEvent>, stats: &mut DecodeStats) {
         if let Some(reason) = self.reason.take() {
             if self.bytes > 0 {
@@ -206,6 +208,7 @@ pub(crate) enum Outcome {
 }
 
 /// Checks a frequency against the plausible range.
+#[inline]
 pub(crate) fn plausible(hz: u64) -> Result<RigEvent, RejectReason> {
     if (MIN_PLAUSIBLE_HZ..=MAX_PLAUSIBLE_HZ).contains(&hz) {
         Ok(RigEvent::Frequency { hz })
@@ -217,6 +220,7 @@ pub(crate) fn plausible(hz: u64) -> Result<RigEvent, RejectReason> {
 impl Outcome {
     /// Emits the outcome of a complete frame of `len` bytes, after the reject
     /// run before it.
+    #[inline]
     pub(crate) fn emit(
         self,
         len: usize,

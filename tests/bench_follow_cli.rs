@@ -1,0 +1,97 @@
+//! `tuneward bench-follow` through the real binary: the promised columns,
+//! the naive policy moving more than ours, and a located error for a
+//! station that does not describe its loop.
+
+use std::path::Path;
+use std::process::Command;
+
+fn tuneward(args: &[&str]) -> std::process::Output {
+    Command::new(env!("CARGO_BIN_EXE_tuneward"))
+        .args(args)
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
+        .output()
+        .unwrap()
+}
+
+#[test]
+fn json_report_has_the_promised_columns_and_the_naive_policy_moves_more() {
+    let out = tuneward(&["bench-follow", "--evenings", "2", "--hours", "1", "--json"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["evenings"], 2);
+    let rows = v["rows"].as_array().unwrap();
+    let policies: Vec<&str> = rows.iter().map(|r| r["policy"].as_str().unwrap()).collect();
+    assert_eq!(policies, ["follow", "naive", "optimum"]);
+    for r in rows {
+        for column in [
+            "moves",
+            "travel_steps",
+            "transmit_s",
+            "inhibited_s",
+            "swr_1_5_pct",
+            "swr_2_pct",
+            "over_1_5_s",
+            "worst_swr",
+        ] {
+            assert!(r.get(column).is_some(), "{column} missing in {r}");
+        }
+        let pct = r["swr_1_5_pct"].as_f64().unwrap();
+        assert!((0.0..=100.0).contains(&pct), "{r}");
+        assert!(r["swr_2_pct"].as_f64().unwrap() >= pct);
+    }
+    let moves = |i: usize| rows[i]["moves"].as_u64().unwrap();
+    assert!(
+        moves(1) > moves(0),
+        "naive {} vs ours {}",
+        moves(1),
+        moves(0)
+    );
+    assert!(
+        moves(2) <= moves(0),
+        "optimum {} vs ours {}",
+        moves(2),
+        moves(0)
+    );
+    assert!(moves(2) > 0);
+}
+
+#[test]
+fn table_names_its_columns_and_the_target() {
+    let out = tuneward(&["bench-follow", "--evenings", "1", "--hours", "0.5"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = String::from_utf8(out.stdout).unwrap();
+    let header = text.lines().nth(1).unwrap();
+    for column in ["policy", "moves", "travel_steps", "swr<=1.5", "swr<=2"] {
+        assert!(header.contains(column), "{header}");
+    }
+    for policy in ["follow", "naive", "optimum"] {
+        assert!(text.lines().any(|l| l.starts_with(policy)), "{text}");
+    }
+    assert!(text.contains("target: 100% with at most 1.3x"), "{text}");
+}
+
+#[test]
+fn a_station_without_a_described_loop_is_refused_with_the_key() {
+    // The example config leaves [antenna] commented out.
+    let example = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/example.toml");
+    let out = tuneward(&[
+        "bench-follow",
+        "--config",
+        example.to_str().unwrap(),
+        "--hours",
+        "0.1",
+    ]);
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("example.toml"), "{err}");
+    assert!(err.contains("antenna"), "{err}");
+    assert!(err.contains("expected") && err.contains("found"), "{err}");
+}
