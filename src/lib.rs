@@ -14,6 +14,7 @@ pub mod config;
 pub mod follow;
 pub mod inhibit;
 pub mod journal;
+pub mod recorder;
 pub mod replay;
 pub mod rig;
 pub mod scenario;

@@ -62,6 +62,15 @@ enum Command {
     /// the position journal, e.g. after the journal reported a move that
     /// never finished.
     SetPosition(tuneward::journal::SetPositionArgs),
+    /// Follow the rig and drive the tuner controller: the live service.
+    ///
+    /// Runs until SIGINT (Ctrl-C) or SIGTERM, then lets the move under way
+    /// finish, records the position and releases the transmit inhibit; exit
+    /// status 0 after a clean shutdown. Logs one line per decision on
+    /// stderr.
+    Run(tuneward::service::RunArgs),
+    /// Record the rig's control port into a capture file for `replay`.
+    Capture(tuneward::recorder::CaptureArgs),
     /// Check a config and show the bands, limits and calibration it describes.
     Check {
         /// The station's config (TOML).
@@ -102,6 +111,15 @@ fn main() -> ExitCode {
         Command::SimTuner(args) => {
             drop(out);
             return report(tuneward::tuner::server::run_sim_tuner(&args));
+        }
+        Command::Run(args) => {
+            drop(out);
+            return report(tuneward::service::run_command(&args));
+        }
+        Command::Capture(args) => {
+            drop(out);
+            tuneward::service::init_logging(tuneward::service::LogFormat::Text);
+            return report(tuneward::recorder::run_capture(&args).map(|_| ()));
         }
         Command::SetPosition(args) => {
             drop(out);
