@@ -82,6 +82,9 @@ pub struct Outcome {
     pub moves: u64,
     /// Faults seen (controller link, inhibit, journal).
     pub faults: u64,
+    /// Times the driver woke for a timer of its own (a core deadline or a
+    /// `WHERE` retry); with no traffic and nothing due this stays 0.
+    pub timer_wakeups: u64,
 }
 
 /// The config's file name for error messages.
@@ -444,6 +447,39 @@ struct Leg {
     sent: Instant,
 }
 
+/// The last stretch before a core deadline that is slept on a blocking
+/// thread rather than on tokio's timer.
+const PRECISE_SLEEP: Duration = Duration::from_millis(3);
+
+/// Sleeps until `deadline` (forever if `None`) to well under a millisecond.
+///
+/// tokio's timer works in whole milliseconds and fires on the first tick
+/// at or after the deadline, which puts 1 to 2 ms between a debounce
+/// deadline and the `GOTO` it releases. So the timer only takes us to a
+/// few milliseconds before the deadline, and the rest is a plain thread
+/// sleep (a high-resolution timer on Linux) on tokio's blocking pool. A
+/// sleep that loses its `select!` race leaves that thread to finish a
+/// sleep of at most `PRECISE_SLEEP`; with no deadline nothing runs.
+async fn sleep_until_precise(deadline: Option<Instant>) {
+    let Some(deadline) = deadline else {
+        return std::future::pending().await;
+    };
+    if let Some(early) = deadline.checked_sub(PRECISE_SLEEP) {
+        tokio::time::sleep_until(early).await;
+    }
+    let rest = deadline.saturating_duration_since(Instant::now());
+    if rest.is_zero() {
+        return;
+    }
+    if tokio::task::spawn_blocking(move || std::thread::sleep(rest))
+        .await
+        .is_err()
+    {
+        // The blocking pool is gone (runtime shutting down): fall back.
+        tokio::time::sleep_until(deadline).await;
+    }
+}
+
 /// What one turn of the driver's loop did.
 enum Step {
     Shutdown,
@@ -579,12 +615,14 @@ impl Driver {
                 }
                 None => return Step::TunerGone,
             },
-            _ = crate::rig::link::sleep_until_opt(wake) => {
+            _ = sleep_until_precise(wake) => {
+                self.outcome.timer_wakeups += 1;
                 let now = self.now();
                 self.core.handle_timeout(now);
                 Step::Worked
             }
             _ = crate::rig::link::sleep_until_opt(retry) => {
+                self.outcome.timer_wakeups += 1;
                 self.retry_where = None;
                 self.send(TunerCommand::Where).await;
                 Step::Worked
