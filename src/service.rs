@@ -23,8 +23,10 @@
 //!   that never finished leaves the position unknown (nothing moves) unless
 //!   the controller reports the move's target, until the operator runs
 //!   `tuneward set-position` and restarts.
-//! - **Deaf means transmitting.** While the rig's port is down the core is
-//!   told the rig transmits, so nothing moves while we cannot hear it.
+//! - **Deaf means no moves.** While the rig's port is down the core is told
+//!   (`handle_rig_link`: it holds with reason `rig-silent`), and the
+//!   controller link treats the rig as transmitting, so nothing moves while
+//!   we cannot hear it.
 //!
 //! The journal is written synchronously on this task (a few milliseconds
 //! per fsync): ordering matters more than latency here, and the events come
@@ -601,9 +603,9 @@ impl Driver {
                     Some(ev) => self.rig_event(ev),
                     None => {
                         *rig_open = false;
-                        tracing::warn!("rig source ended; treating the rig as transmitting");
+                        tracing::warn!("rig source ended; nothing moves from now on");
                         let now = self.now();
-                        self.set_transmit(now, true);
+                        self.rig_deaf(now);
                     }
                 }
                 Step::Worked
@@ -811,6 +813,13 @@ impl Driver {
         }
     }
 
+    /// The rig's port is down: the core holds (`rig-silent`), and the
+    /// controller link refuses and stops moves as if the rig transmitted.
+    fn rig_deaf(&mut self, now: Duration) {
+        self.transmit.send_replace(true);
+        self.core.handle_rig_link(now, false);
+    }
+
     fn set_transmit(&mut self, now: Duration, on: bool) {
         self.transmit.send_replace(on);
         self.core.handle_transmit(now, on);
@@ -836,14 +845,15 @@ impl Driver {
                 }
                 self.events = out;
             }
-            LinkEvent::Down { .. } => {
-                // Deaf: we would not hear the rig start transmitting.
-                self.set_transmit(now, true);
-            }
+            LinkEvent::Down { .. } => self.rig_deaf(now),
             LinkEvent::Up { .. } => {
                 let mut out = Vec::new();
                 self.decoder.finish(&mut out);
+                // A transmission that ended while the port was down went
+                // unheard: the rig is taken to be receiving until it says
+                // otherwise.
                 self.set_transmit(now, false);
+                self.core.handle_rig_link(now, true);
             }
         }
     }

@@ -621,3 +621,47 @@ async fn shutdown_stops_a_move_that_does_not_end_in_time() {
     }
     assert_eq!(lines, vec!["WHERE", "GOTO 1000", "STOP"]);
 }
+
+/// The rig's port going down mid-move stops the motor (we could not hear a
+/// transmission start); nothing moves until it is back, then the move
+/// finishes.
+#[tokio::test]
+async fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
+    let mut slow = controller(0);
+    slow.steps_per_second = 2000.0;
+    let r = start_with(slow, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    assert_eq!(
+        r.journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1000 })
+    );
+    r.rig
+        .send(LinkEvent::Down {
+            reason: "unplugged".into(),
+        })
+        .await
+        .unwrap();
+    let until = Instant::now() + Duration::from_secs(3);
+    let stopped = loop {
+        if let Some(Recorded::Known(p)) = r.journal.load().unwrap() {
+            break p;
+        }
+        assert!(Instant::now() < until, "{:?}", r.journal.load());
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    };
+    assert!((1..1000).contains(&stopped), "{stopped}");
+    tokio::time::sleep(Duration::from_millis(600)).await;
+    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(stopped)));
+    r.rig
+        .send(LinkEvent::Up {
+            device: "/dev/pts/99".into(),
+        })
+        .await
+        .unwrap();
+    r.wait_journal(Recorded::Known(1000)).await;
+    let (out, _, _) = r.finish().await;
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(out.faults, 0);
+}
