@@ -138,10 +138,25 @@ fn rig(
     tokio_serial::SerialStream,
     PathBuf,
 ) {
-    let (rig, far) = tokio_serial::SerialStream::pair().unwrap();
+    let (rig, far) = pty_pair();
     let link = dir.join("rig");
     tuneward::tuner::server::place_symlink(&link, Path::new(&far.name().unwrap())).unwrap();
     (rig, far, link)
+}
+
+/// A pseudo-terminal pair whose descriptors children do not inherit (an
+/// inherited master would keep an "unplugged" rig alive).
+fn pty_pair() -> (tokio_serial::SerialStream, tokio_serial::SerialStream) {
+    use std::os::fd::AsRawFd;
+    let (a, b) = tokio_serial::SerialStream::pair().unwrap();
+    for fd in [a.as_raw_fd(), b.as_raw_fd()] {
+        // SAFETY: fcntl on descriptors we own; no memory is involved.
+        assert_eq!(
+            unsafe { libc::fcntl(fd, libc::F_SETFD, libc::FD_CLOEXEC) },
+            0
+        );
+    }
+    (a, b)
 }
 
 /// An invented station: 7.000 MHz at step 0, 7.300 MHz at step 3000.
@@ -416,4 +431,72 @@ async fn capture_in_proxy_mode_records_both_directions() {
     };
     assert_eq!(bytes(tuneward::rig::Direction::Tx), query);
     assert_eq!(bytes(tuneward::rig::Direction::Rx), answer);
+}
+
+/// The rig is unplugged and comes back on a new device behind the same
+/// symlink; then the controller drops out and comes back. Each transition
+/// is logged once, the inhibit is asserted the whole time the controller is
+/// away, and following resumes both times.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn rig_unplug_and_controller_drop_both_recover() {
+    let dir = tempfile::tempdir().unwrap();
+    let (rig_a, far_a, rig_link) = rig(dir.path());
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let (sim, addr) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr, "");
+    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    wait_journal(&journal, Recorded::Known(0));
+
+    // Unplug: both ends of the first pseudo-terminal go away.
+    drop(rig_a);
+    drop(far_a);
+    run.wait_log(&["rig port down"]);
+    let (mut rig_b, far_b) = pty_pair();
+    let device_b = far_b.name().unwrap();
+    tuneward::tuner::server::place_symlink(&rig_link, Path::new(&device_b)).unwrap();
+    run.wait_log(&["rig port up", &device_b]);
+    say(&mut rig_b, &dialect.encode_frequency(7_030_000, 0)).await;
+    wait_journal(&journal, Recorded::Known(300));
+    let downs = run
+        .log()
+        .iter()
+        .filter(|l| l.contains("rig port down"))
+        .count();
+    assert_eq!(downs, 1, "{:?}", run.log());
+
+    // The controller goes away; a frequency meanwhile only holds.
+    drop(sim);
+    run.wait_log(&["controller link down"]);
+    let since = run.log().len();
+    say(&mut rig_b, &dialect.encode_frequency(7_060_000, 0)).await;
+    run.wait_log(&["hold", "hz=7060000", "reason=fault"]);
+    let (_sim2, _) = sim_tuner(&addr, 300);
+    run.wait_log(&["INFO move", "from=300", "to=600"]);
+    wait_journal(&journal, Recorded::Known(600));
+    let log = run.log();
+    let after: Vec<&String> = log[since..]
+        .iter()
+        .filter(|l| l.contains("transmit inhibit"))
+        .collect();
+    // Asserted at the drop (before `since`) and not released until the
+    // move after the controller came back.
+    let first_release = log[since..]
+        .iter()
+        .position(|l| l.contains("transmit inhibit") && l.contains("on=false"));
+    let the_move = log[since..]
+        .iter()
+        .position(|l| l.contains("INFO move"))
+        .unwrap();
+    assert!(
+        first_release.map_or(true, |r| r > the_move),
+        "inhibit released while the controller was away: {after:?}"
+    );
+    assert!(log[..since]
+        .iter()
+        .rev()
+        .find(|l| l.contains("transmit inhibit"))
+        .is_some_and(|l| l.contains("on=true")));
+    run.proc.signal(libc::SIGTERM);
+    assert_eq!(run.proc.wait_exit(Duration::from_secs(10)).code(), Some(0));
 }
