@@ -71,14 +71,51 @@ pub struct RigConfig {
     /// `"none"`, `"software"` (XON/XOFF) or `"hardware"` (RTS/CTS).
     #[serde(default)]
     pub flow_control: SerialFlow,
-    /// For rigs that do not report on their own: ask for the frequency every
-    /// this many ms (the interval stretches while the rig does not answer).
+    /// How the live service uses the port: `"listen"` (read only),
+    /// `"poll"` (ask every `poll_ms`) or `"proxy"` (share it through a
+    /// pseudo-terminal at `proxy_link`).
+    #[serde(default)]
+    pub mode: RigMode,
+    /// `mode = "poll"` (default 500) or `"proxy"` (no polling unless set):
+    /// ask for the frequency and transmit state every this many ms (the
+    /// interval stretches while the rig does not answer).
     #[serde(default)]
     pub poll_ms: Option<u64>,
-    /// Share the port with another program: tuneward opens `port` and puts a
-    /// symlink to a pseudo-terminal here for the other program to open.
+    /// `mode = "proxy"`: tuneward opens `port` and puts a symlink to a
+    /// pseudo-terminal here for the other program to open (relative to the
+    /// config's folder).
     #[serde(default)]
-    pub share_as: Option<PathBuf>,
+    pub proxy_link: Option<PathBuf>,
+}
+
+/// How the live service uses the rig's port.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RigMode {
+    /// Read only: never write (a shared one-wire bus, a rig that reports
+    /// on its own).
+    #[default]
+    Listen,
+    /// Send the dialect's frequency and transmit-state queries every
+    /// `poll_ms`.
+    Poll,
+    /// Share the port with another program through a pseudo-terminal.
+    Proxy,
+}
+
+/// `poll_ms` when `mode = "poll"` does not say.
+pub const DEFAULT_POLL_MS: u64 = 500;
+
+impl RigConfig {
+    /// The polling interval the mode asks for: always in `poll`, only when
+    /// `poll_ms` is set in `proxy`, never in `listen`.
+    pub fn poll_every_ms(&self) -> Option<u64> {
+        match self.mode {
+            RigMode::Listen => None,
+            RigMode::Poll => Some(self.poll_ms.unwrap_or(DEFAULT_POLL_MS)),
+            RigMode::Proxy => self.poll_ms,
+        }
+    }
 }
 
 /// Parity of a serial port.
@@ -126,8 +163,9 @@ impl Default for RigConfig {
             parity: SerialParity::None,
             stop_bits: default_stop_bits(),
             flow_control: SerialFlow::None,
+            mode: RigMode::Listen,
             poll_ms: None,
-            share_as: None,
+            proxy_link: None,
         }
     }
 }
@@ -164,6 +202,11 @@ pub struct TunerConfig {
     /// `tuneward-position.state` beside the config).
     #[serde(default)]
     pub state_file: Option<PathBuf>,
+    /// At a clean shutdown, after a move that ended with the final approach,
+    /// back off by half the backlash toward the approach side so that the
+    /// drive train does not stand under tension while the service is off.
+    #[serde(default)]
+    pub relax_on_exit: bool,
 }
 
 fn default_link() -> String {
@@ -193,6 +236,7 @@ impl Default for TunerConfig {
             approach: default_approach(),
             settle_ms: default_settle_ms(),
             state_file: None,
+            relax_on_exit: false,
         }
     }
 }
@@ -582,6 +626,7 @@ impl Config {
                 t.backlash_steps.to_string(),
             ));
         }
+        self.validate_rig()?;
         if self.follow.min_move_steps < 0 {
             return Err(self.invalid(
                 "follow.min_move_steps",
@@ -629,6 +674,32 @@ impl Config {
         }
         self.calibration_points()?;
         Ok(())
+    }
+
+    /// `[rig]`: the mode and the keys that go with it.
+    fn validate_rig(&self) -> Result<(), ConfigError> {
+        let r = &self.rig;
+        if r.poll_ms == Some(0) {
+            return Err(self.invalid("rig.poll_ms", "a positive number of ms", "0".into()));
+        }
+        match r.mode {
+            RigMode::Listen if r.poll_ms.is_some() => Err(self.invalid(
+                "rig.poll_ms",
+                "no poll_ms with mode = \"listen\" (listen never writes to the port; use mode = \"poll\")",
+                format!("poll_ms = {}", r.poll_ms.unwrap_or(0)),
+            )),
+            RigMode::Listen | RigMode::Poll if r.proxy_link.is_some() => Err(self.invalid(
+                "rig.proxy_link",
+                "proxy_link only with mode = \"proxy\"",
+                format!("mode = {:?}", r.mode).to_lowercase(),
+            )),
+            RigMode::Proxy if r.proxy_link.is_none() => Err(self.invalid(
+                "rig.proxy_link",
+                "the path where the shared pseudo-terminal's symlink goes (mode = \"proxy\")",
+                "none".into(),
+            )),
+            _ => Ok(()),
+        }
     }
 
     /// The calibration points, inline or from the file named in the config.
@@ -760,6 +831,34 @@ guard_hz = 10000
         let c = Config::parse(&text, Path::new("s.toml")).unwrap();
         let msg = c.validate().unwrap_err().to_string();
         assert!(msg.contains("40m and x"), "{msg}");
+    }
+
+    #[test]
+    fn rig_mode_and_its_keys_are_checked_by_name() {
+        let parse = |rig: &str| {
+            let c = Config::parse(&format!("[rig]\n{rig}\n{MINIMAL}"), Path::new("s.toml"))?;
+            c.validate().map(|()| c)
+        };
+        let c = parse("").unwrap();
+        assert_eq!(c.rig.mode, RigMode::Listen);
+        assert_eq!(c.rig.poll_every_ms(), None);
+        let c = parse("mode = \"poll\"").unwrap();
+        assert_eq!(c.rig.poll_every_ms(), Some(DEFAULT_POLL_MS));
+        let c = parse("mode = \"proxy\"\nproxy_link = \"x\"\npoll_ms = 80").unwrap();
+        assert_eq!(c.rig.poll_every_ms(), Some(80));
+        let c = parse("mode = \"proxy\"\nproxy_link = \"x\"").unwrap();
+        assert_eq!(c.rig.poll_every_ms(), None);
+        for (rig, key) in [
+            ("poll_ms = 100", "rig.poll_ms"),
+            ("mode = \"poll\"\npoll_ms = 0", "rig.poll_ms"),
+            ("mode = \"proxy\"", "rig.proxy_link"),
+            ("proxy_link = \"x\"", "rig.proxy_link"),
+            ("mode = \"shout\"", "rig.mode"),
+            ("share_as = \"x\"", "share_as"),
+        ] {
+            let msg = parse(rig).unwrap_err().to_string();
+            assert!(msg.contains(key), "{rig}: {msg}");
+        }
     }
 
     #[test]

@@ -39,7 +39,7 @@ pub struct NoLine;
 
 impl InhibitLine for NoLine {
     fn set(&mut self, on: bool) -> io::Result<()> {
-        tracing::info!(on, "transmit inhibit (no output line configured)");
+        tracing::debug!(on, "transmit inhibit (no output line configured)");
         Ok(())
     }
 }

@@ -15,6 +15,7 @@ pub mod follow;
 pub mod inhibit;
 pub mod journal;
 pub mod quality;
+pub mod recorder;
 pub mod replay;
 pub mod rig;
 pub mod scenario;

@@ -25,6 +25,12 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
+    /// Replay an invented evening at a demo station: no hardware, no arguments.
+    Demo {
+        /// Write JSON lines instead of text.
+        #[arg(long)]
+        json: bool,
+    },
     /// Replay a capture of a rig's control port through a station's config,
     /// against a simulated tuner, and print what would have happened.
     ///
@@ -52,21 +58,23 @@ enum Command {
         #[arg(long)]
         skip_bad_lines: bool,
     },
-    /// Replay an invented evening at a demo station: no hardware, no arguments.
-    Demo {
-        /// Write JSON lines instead of text.
-        #[arg(long)]
-        json: bool,
+    /// Check a config and show the bands, limits and calibration it describes.
+    Check {
+        /// The station's config (TOML).
+        #[arg(long, short)]
+        config: PathBuf,
     },
+    /// Follow the rig and drive the tuner controller: the live service.
+    ///
+    /// Runs until SIGINT (Ctrl-C) or SIGTERM, then lets the move under way
+    /// finish, records the position and releases the transmit inhibit; exit
+    /// status 0 after a clean shutdown. Logs one line per decision on
+    /// stderr.
+    Run(tuneward::service::RunArgs),
+    /// Record the rig's control port into a capture file for `replay`.
+    Capture(tuneward::recorder::CaptureArgs),
     /// Fit a calibration to measured points and report how well it holds.
     Fit(tuneward::calibrate::cli::FitArgs),
-    /// Simulate a stepper controller speaking the line protocol
-    /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
-    SimTuner(tuneward::tuner::server::SimTunerArgs),
-    /// Record the motor's position (after homing or checking it by eye) in
-    /// the position journal, e.g. after the journal reported a move that
-    /// never finished.
-    SetPosition(tuneward::journal::SetPositionArgs),
     /// Measure how well the follow policy keeps the loop tuned.
     ///
     /// Replays invented evenings at a station (by default the bundled
@@ -93,12 +101,13 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Check a config and show the bands, limits and calibration it describes.
-    Check {
-        /// The station's config (TOML).
-        #[arg(long, short)]
-        config: PathBuf,
-    },
+    /// Simulate a stepper controller speaking the line protocol
+    /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
+    SimTuner(tuneward::tuner::server::SimTunerArgs),
+    /// Record the motor's position (after homing or checking it by eye) in
+    /// the position journal, e.g. after the journal reported a move that
+    /// never finished.
+    SetPosition(tuneward::journal::SetPositionArgs),
 }
 
 fn main() -> ExitCode {
@@ -161,6 +170,15 @@ fn main() -> ExitCode {
         Command::SimTuner(args) => {
             drop(out);
             return report(tuneward::tuner::server::run_sim_tuner(&args));
+        }
+        Command::Run(args) => {
+            drop(out);
+            return report(tuneward::service::run_command(&args));
+        }
+        Command::Capture(args) => {
+            drop(out);
+            tuneward::service::init_logging(tuneward::service::LogFormat::Text);
+            return report(tuneward::recorder::run_capture(&args).map(|_| ()));
         }
         Command::SetPosition(args) => {
             drop(out);

@@ -23,8 +23,10 @@
 //!   that never finished leaves the position unknown (nothing moves) unless
 //!   the controller reports the move's target, until the operator runs
 //!   `tuneward set-position` and restarts.
-//! - **Deaf means transmitting.** While the rig's port is down the core is
-//!   told the rig transmits, so nothing moves while we cannot hear it.
+//! - **Deaf means no moves.** While the rig's port is down the core is told
+//!   (`handle_rig_link`: it holds with reason `rig-silent`), and the
+//!   controller link treats the rig as transmitting, so nothing moves while
+//!   we cannot hear it.
 //!
 //! The journal is written synchronously on this task (a few milliseconds
 //! per fsync): ordering matters more than latency here, and the events come
@@ -68,6 +70,9 @@ pub struct Service {
     /// `None`: no journal (the position is never trusted across restarts
     /// beyond what the controller says). Meant for tests and demos.
     pub journal: Option<Journal>,
+    /// `tuner.relax_on_exit`: at a clean shutdown after a completed
+    /// approach, back off half the backlash toward the approach side.
+    pub relax_on_exit: bool,
 }
 
 /// How a run ended.
@@ -79,36 +84,42 @@ pub struct Outcome {
     pub moves: u64,
     /// Faults seen (controller link, inhibit, journal).
     pub faults: u64,
+    /// Times the driver woke for a timer of its own (a core deadline or a
+    /// `WHERE` retry); with no traffic and nothing due this stays 0.
+    pub timer_wakeups: u64,
 }
 
-impl Service {
-    /// The live service a station's config describes: the rig's port from
-    /// `[rig]` (`port`, `baud`; 8 data bits, no parity, one stop bit), the
-    /// controller from `tuner.link`, the inhibit from `[inhibit]`, the
-    /// journal from `tuner.state_file`.
-    pub fn from_station(station: &crate::station::Station) -> Result<Service, String> {
-        let config = &station.config;
-        let file = config
-            .source
-            .as_deref()
-            .map(|p| p.display().to_string())
-            .unwrap_or_else(|| "<config>".to_string());
-        let port = config.rig.port.clone().ok_or_else(|| {
+/// The config's file name for error messages.
+fn config_name(config: &crate::config::Config) -> String {
+    config
+        .source
+        .as_deref()
+        .map(|p| p.display().to_string())
+        .unwrap_or_else(|| "<config>".to_string())
+}
+
+/// The rig's port as `[rig]` describes it: `port`, `baud` and framing, and
+/// the `mode`: `listen` (read only), `poll` (queries every `poll_ms`) or
+/// `proxy` (shared through a pseudo-terminal at `proxy_link`, which is
+/// relative to the config's folder).
+pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String> {
+    let config = &station.config;
+    let file = config_name(config);
+    let port = config.rig.port.clone().ok_or_else(|| {
             format!("{file}: key `rig.port`: expected the rig's serial device (e.g. /dev/serial/by-id/...), found none")
         })?;
-        let controller =
-            ClientConfig::from_tuner(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
-        let inhibit = crate::inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
-        let settings = port_settings(&config.rig, port).map_err(|e| format!("{file}: {e}"))?;
-        let poll = match config.rig.poll_ms {
-            None => None,
-            Some(0) => {
-                return Err(format!(
-                    "{file}: key `rig.poll_ms`: expected a positive number of ms, found 0"
-                ))
-            }
-            Some(ms) => {
-                let address = match (station.dialect.family(), config.rig.address) {
+    let settings = port_settings(&config.rig, port).map_err(|e| format!("{file}: {e}"))?;
+    // Which queries (if any) go to the rig is the mode's business:
+    // `listen` never writes to the port.
+    let poll = match config.rig.poll_every_ms() {
+        None => None,
+        Some(0) => {
+            return Err(format!(
+                "{file}: key `rig.poll_ms`: expected a positive number of ms, found 0"
+            ))
+        }
+        Some(ms) => {
+            let address = match (station.dialect.family(), config.rig.address) {
                     (crate::rig::Family::Binary, None) => {
                         return Err(format!(
                             "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
@@ -116,42 +127,62 @@ impl Service {
                     }
                     (_, a) => a.unwrap_or(0),
                 };
-                let mut query = station.dialect.poll_frequency(address);
-                query.extend(station.dialect.poll_transmit(address));
-                let every = Duration::from_millis(ms);
-                Some(crate::rig::link::PollConfig {
-                    query,
-                    every,
-                    max_every: every.max(Duration::from_secs(4)),
-                })
-            }
+            let mut query = station.dialect.poll_frequency(address);
+            query.extend(station.dialect.poll_transmit(address));
+            let every = Duration::from_millis(ms);
+            Some(crate::rig::link::PollConfig {
+                query,
+                every,
+                max_every: every.max(Duration::from_secs(4)),
+            })
+        }
+    };
+    let proxy_link = match config.rig.mode {
+            crate::config::RigMode::Proxy => Some(config.rig.proxy_link.clone().ok_or_else(|| {
+                format!("{file}: key `rig.proxy_link`: expected the path for the shared pseudo-terminal's symlink (mode = \"proxy\"), found none")
+            })?),
+            _ => None,
         };
-        let rig = match &config.rig.share_as {
-            Some(link) => {
-                let link = match config.source.as_deref().and_then(std::path::Path::parent) {
-                    Some(dir) if link.is_relative() => dir.join(link),
-                    _ => link.clone(),
-                };
-                let end = match &station.dialect.spec {
-                    crate::rig::dialect::Spec::Binary(b) => b.terminator,
-                    crate::rig::dialect::Spec::Text(t) => t.terminator,
-                };
-                RigSource::Proxy {
-                    config: ProxyConfig {
-                        port: settings,
-                        link,
-                        poll,
-                        backoff_cap: Duration::from_secs(2),
-                    },
-                    boundary: Box::new(crate::rig::proxy::ends_with(end)),
-                }
+    let rig = match &proxy_link {
+        Some(link) => {
+            let link = match config.source.as_deref().and_then(std::path::Path::parent) {
+                Some(dir) if link.is_relative() => dir.join(link),
+                _ => link.clone(),
+            };
+            let end = match &station.dialect.spec {
+                crate::rig::dialect::Spec::Binary(b) => b.terminator,
+                crate::rig::dialect::Spec::Text(t) => t.terminator,
+            };
+            RigSource::Proxy {
+                config: ProxyConfig {
+                    port: settings,
+                    link,
+                    poll,
+                    backoff_cap: Duration::from_secs(2),
+                },
+                boundary: Box::new(crate::rig::proxy::ends_with(end)),
             }
-            None => RigSource::Link(LinkConfig {
-                port: settings,
-                poll,
-                backoff_cap: Duration::from_secs(2),
-            }),
-        };
+        }
+        None => RigSource::Link(LinkConfig {
+            port: settings,
+            poll,
+            backoff_cap: Duration::from_secs(2),
+        }),
+    };
+    Ok(rig)
+}
+
+impl Service {
+    /// The live service a station's config describes: the rig's port from
+    /// `[rig]` (see [`rig_source`]), the controller from `tuner.link`, the
+    /// inhibit from `[inhibit]`, the journal from `tuner.state_file`.
+    pub fn from_station(station: &crate::station::Station) -> Result<Service, String> {
+        let config = &station.config;
+        let file = config_name(config);
+        let rig = rig_source(station)?;
+        let controller =
+            ClientConfig::from_tuner(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
+        let inhibit = crate::inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
         Ok(Service {
             follower: Follower::new(
                 station.policy.clone(),
@@ -163,6 +194,7 @@ impl Service {
             controller,
             inhibit,
             journal: Some(Journal::for_config(config)),
+            relax_on_exit: config.tuner.relax_on_exit,
         })
     }
 }
@@ -205,6 +237,55 @@ pub fn port_settings(
         SerialFlow::Hardware => FlowControl::Hardware,
     };
     Ok(s)
+}
+
+/// How `tuneward run` writes its log (stderr).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, clap::ValueEnum)]
+pub enum LogFormat {
+    /// One readable line per decision.
+    #[default]
+    Text,
+    /// One JSON object per line (for a log collector).
+    Json,
+}
+
+/// Installs the log for the live commands: `info` and above by default,
+/// `RUST_LOG` (e.g. `tuneward=debug`) to change it. A second call does
+/// nothing.
+pub fn init_logging(format: LogFormat) {
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info"));
+    let builder = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr)
+        .with_target(false);
+    let _ = match format {
+        LogFormat::Text => {
+            use std::io::IsTerminal;
+            builder
+                .with_ansi(std::io::stderr().is_terminal())
+                .try_init()
+        }
+        LogFormat::Json => builder.json().try_init(),
+    };
+}
+
+/// Arguments of `tuneward run`.
+#[derive(Debug, clap::Args)]
+pub struct RunArgs {
+    /// The station's config (TOML; see config/example.toml).
+    #[arg(long, short)]
+    pub config: std::path::PathBuf,
+    /// How to write the log on stderr.
+    #[arg(long, value_enum, default_value_t = LogFormat::Text)]
+    pub log_format: LogFormat,
+}
+
+/// `tuneward run`: logging, then [`run_config`] until SIGINT/SIGTERM.
+pub fn run_command(args: &RunArgs) -> Result<(), String> {
+    init_logging(args.log_format);
+    tracing::info!(config = %args.config.display(), version = env!("CARGO_PKG_VERSION"), "starting");
+    run_config(&args.config).map(|_| ())
 }
 
 /// Runs the live service for the config at `config` until interrupted
@@ -261,21 +342,39 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         ),
         None => tracing::info!("journal: none yet; the controller's count will be taken"),
     }
+    // The link tasks outlive the shutdown request: the move under way must
+    // finish (or be stopped) over the controller link, and the rig must
+    // still be heard (a transmission stops the motor; a proxied program
+    // keeps its port) until the driver has persisted and released.
+    let (tasks_stop, tasks_shutdown) = watch::channel(false);
     let (rig_tx, rig_rx) = mpsc::channel(256);
-    let rig_rx = match service.rig {
-        RigSource::Link(cfg) => {
-            crate::rig::link::spawn(cfg, rig_tx, shutdown.clone());
-            rig_rx
-        }
-        RigSource::Proxy { config, boundary } => {
-            crate::rig::proxy::spawn(config, boundary, rig_tx, shutdown.clone())?;
-            rig_rx
-        }
-        RigSource::Events(rx) => rx,
+    let (rig_task, rig_rx) = match service.rig {
+        RigSource::Link(cfg) => (
+            Some(crate::rig::link::spawn(cfg, rig_tx, tasks_shutdown.clone())),
+            rig_rx,
+        ),
+        RigSource::Proxy { config, boundary } => (
+            Some(crate::rig::proxy::spawn(
+                config,
+                boundary,
+                rig_tx,
+                tasks_shutdown.clone(),
+            )?),
+            rig_rx,
+        ),
+        RigSource::Events(rx) => (None, rx),
     };
     let (transmit_tx, transmit_rx) = watch::channel(false);
-    let client =
-        crate::tuner::client::spawn(service.controller, Some(transmit_rx), shutdown.clone());
+    let timing = StopTiming {
+        steps_per_second: service.controller.steps_per_second,
+        settle: service.controller.settle,
+        margin: service.controller.reply_margin,
+    };
+    let client = crate::tuner::client::spawn(
+        service.controller,
+        Some(transmit_rx),
+        tasks_shutdown.clone(),
+    );
     let mut driver = Driver {
         core: service.follower,
         decoder: service.decoder,
@@ -292,10 +391,103 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         unknown_reported: false,
         outcome: Outcome::default(),
         events: Vec::with_capacity(16),
+        timing,
+        relax_on_exit: service.relax_on_exit,
+        leg: None,
+        final_to: None,
+        tensioned: false,
+        stopping: false,
     };
     driver.apply_actions().await;
     let result = driver.run(rig_rx, client.events, shutdown).await;
+    tasks_stop.send_replace(true);
+    // Let the tasks close their ports (and the proxy its symlink).
+    let _ = tokio::time::timeout(TASK_END_WAIT, client.task).await;
+    if let Some(t) = rig_task {
+        let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
+    }
+    tracing::info!(
+        position = ?result.position,
+        moves = result.moves,
+        faults = result.faults,
+        "stopped"
+    );
     Ok(result)
+}
+
+/// How long the driver waits for a link task to close its port at the end.
+const TASK_END_WAIT: Duration = Duration::from_secs(3);
+
+/// What the driver needs to know about the motor's speed to bound a wait
+/// for the end of a move.
+#[derive(Debug, Clone, Copy)]
+struct StopTiming {
+    steps_per_second: f64,
+    settle: Duration,
+    margin: Duration,
+}
+
+impl StopTiming {
+    /// Time to travel `distance` steps and settle, plus the reply margin.
+    fn travel(&self, distance: u64) -> Duration {
+        let secs = distance as f64 / self.steps_per_second;
+        let run = if secs.is_finite() && secs >= 0.0 {
+            Duration::try_from_secs_f64(secs).unwrap_or(Duration::from_secs(3600))
+        } else {
+            Duration::from_secs(3600)
+        };
+        run.min(Duration::from_secs(3600)) + self.settle + self.margin
+    }
+}
+
+/// One leg sent to the controller: where it started, where it goes, when
+/// it was sent.
+#[derive(Debug, Clone, Copy)]
+struct Leg {
+    from: i64,
+    to: i64,
+    sent: Instant,
+}
+
+/// The last stretch before a core deadline that is slept on a blocking
+/// thread rather than on tokio's timer.
+const PRECISE_SLEEP: Duration = Duration::from_millis(3);
+
+/// Sleeps until `deadline` (forever if `None`) to well under a millisecond.
+///
+/// tokio's timer works in whole milliseconds and fires on the first tick
+/// at or after the deadline, which puts 1 to 2 ms between a debounce
+/// deadline and the `GOTO` it releases. So the timer only takes us to a
+/// few milliseconds before the deadline, and the rest is a plain thread
+/// sleep (a high-resolution timer on Linux) on tokio's blocking pool. A
+/// sleep that loses its `select!` race leaves that thread to finish a
+/// sleep of at most `PRECISE_SLEEP`; with no deadline nothing runs.
+async fn sleep_until_precise(deadline: Option<Instant>) {
+    let Some(deadline) = deadline else {
+        return std::future::pending().await;
+    };
+    if let Some(early) = deadline.checked_sub(PRECISE_SLEEP) {
+        tokio::time::sleep_until(early).await;
+    }
+    let rest = deadline.saturating_duration_since(Instant::now());
+    if rest.is_zero() {
+        return;
+    }
+    if tokio::task::spawn_blocking(move || std::thread::sleep(rest))
+        .await
+        .is_err()
+    {
+        // The blocking pool is gone (runtime shutting down): fall back.
+        tokio::time::sleep_until(deadline).await;
+    }
+}
+
+/// What one turn of the driver's loop did.
+enum Step {
+    Shutdown,
+    TunerGone,
+    Deadline,
+    Worked,
 }
 
 /// Where the driver is in bringing its position in line with the
@@ -335,6 +527,17 @@ struct Driver {
     unknown_reported: bool,
     outcome: Outcome,
     events: Vec<RigEvent>,
+    timing: StopTiming,
+    relax_on_exit: bool,
+    /// The leg under way, for the shutdown's bound on the remaining travel.
+    leg: Option<Leg>,
+    /// The final target of the move under way.
+    final_to: Option<i64>,
+    /// The last move ended with its final approach: the drive train is
+    /// under tension toward the approach side.
+    tensioned: bool,
+    /// Shutdown requested: frequencies are no longer acted on.
+    stopping: bool,
 }
 
 impl Driver {
@@ -350,64 +553,271 @@ impl Driver {
     ) -> Outcome {
         let mut rig_open = true;
         loop {
-            let wake = self.core.poll_timeout().map(|d| self.origin + d);
-            let retry = self.retry_where;
-            tokio::select! {
-                _ = crate::rig::link::wait_true(&mut shutdown) => break,
-                ev = rig.recv(), if rig_open => match ev {
-                    Some(ev) => self.rig_event(ev),
-                    None => {
-                        rig_open = false;
-                        tracing::warn!("rig source ended; treating the rig as transmitting");
-                        let now = self.now();
-                        self.set_transmit(now, true);
-                    }
-                },
-                ev = tuner.recv() => match ev {
-                    Some(ev) => self.tuner_event(ev).await,
-                    None => {
-                        tracing::error!("controller link task ended");
-                        break;
-                    }
-                },
-                _ = crate::rig::link::sleep_until_opt(wake) => {
-                    let now = self.now();
-                    self.core.handle_timeout(now);
+            match self
+                .step(
+                    &mut rig,
+                    &mut rig_open,
+                    &mut tuner,
+                    Some(&mut shutdown),
+                    None,
+                )
+                .await
+            {
+                Step::Shutdown => {
+                    self.shut_down(&mut rig, &mut rig_open, &mut tuner).await;
+                    break;
                 }
-                _ = crate::rig::link::sleep_until_opt(retry) => {
-                    self.retry_where = None;
-                    self.send(TunerCommand::Where).await;
+                Step::TunerGone => {
+                    tracing::error!("controller link task ended");
+                    self.release_inhibit();
+                    break;
                 }
+                Step::Deadline | Step::Worked => {}
             }
-            self.apply_actions().await;
         }
-        self.shut_down(&mut tuner).await;
         self.outcome.position = self.core.position();
         self.outcome.moves = self.core.stats().moves;
         self.outcome.clone()
     }
 
-    /// Stops a move under way (waiting a little for where it stopped) and
-    /// releases the inhibit.
-    async fn shut_down(&mut self, tuner: &mut mpsc::Receiver<TunerEvent>) {
+    /// Waits for the next thing to do (an event, a deadline of the core's,
+    /// a retry, `shutdown` if given, `until` if given), does it, and carries
+    /// out the core's actions.
+    async fn step(
+        &mut self,
+        rig: &mut mpsc::Receiver<LinkEvent>,
+        rig_open: &mut bool,
+        tuner: &mut mpsc::Receiver<TunerEvent>,
+        shutdown: Option<&mut watch::Receiver<bool>>,
+        until: Option<Instant>,
+    ) -> Step {
+        let wake = self.core.poll_timeout().map(|d| self.origin + d);
+        let retry = self.retry_where;
+        let watch_shutdown = shutdown.is_some();
+        let mut spare = watch::channel(false).1;
+        let shutdown = shutdown.unwrap_or(&mut spare);
+        let step = tokio::select! {
+            _ = crate::rig::link::wait_true(shutdown), if watch_shutdown => return Step::Shutdown,
+            ev = rig.recv(), if *rig_open => {
+                match ev {
+                    Some(ev) => self.rig_event(ev),
+                    None => {
+                        *rig_open = false;
+                        tracing::warn!("rig source ended; nothing moves from now on");
+                        let now = self.now();
+                        self.rig_deaf(now);
+                    }
+                }
+                Step::Worked
+            }
+            ev = tuner.recv() => match ev {
+                Some(ev) => {
+                    self.tuner_event(ev).await;
+                    Step::Worked
+                }
+                None => return Step::TunerGone,
+            },
+            _ = sleep_until_precise(wake) => {
+                self.outcome.timer_wakeups += 1;
+                let now = self.now();
+                self.core.handle_timeout(now);
+                Step::Worked
+            }
+            _ = crate::rig::link::sleep_until_opt(retry) => {
+                self.outcome.timer_wakeups += 1;
+                self.retry_where = None;
+                self.send(TunerCommand::Where).await;
+                Step::Worked
+            }
+            _ = crate::rig::link::sleep_until_opt(until) => Step::Deadline,
+        };
+        self.apply_actions().await;
+        step
+    }
+
+    /// The shutdown: no new targets; the move under way finishes (or is
+    /// stopped once the time its remaining travel needs has passed); the
+    /// drive train is relaxed if asked; the position is on disk; the
+    /// inhibit is released last, with the motor at rest.
+    async fn shut_down(
+        &mut self,
+        rig: &mut mpsc::Receiver<LinkEvent>,
+        rig_open: &mut bool,
+        tuner: &mut mpsc::Receiver<TunerEvent>,
+    ) {
+        self.stopping = true;
+        let now = self.now();
+        self.core.handle_pause(now, true);
+        self.apply_actions().await;
         if self.core.is_moving() {
-            tracing::info!("shutting down during a move: stopping the motor");
-            self.send(TunerCommand::Stop).await;
-            let until = Instant::now() + STOP_WAIT;
-            while let Ok(Some(ev)) = tokio::time::timeout_at(until, tuner.recv()).await {
-                if let TunerEvent::At { steps } = ev {
+            let until = self.move_deadline();
+            tracing::info!(
+                wait_ms = until.saturating_duration_since(Instant::now()).as_millis() as u64,
+                "shutting down: no new targets; letting the move under way finish"
+            );
+            while self.core.is_moving() {
+                let until = self.move_deadline();
+                match self.step(rig, rig_open, tuner, None, Some(until)).await {
+                    Step::Worked => {}
+                    Step::Deadline | Step::TunerGone | Step::Shutdown => break,
+                }
+            }
+            if self.core.is_moving() {
+                tracing::warn!(
+                    "shutting down: the move did not finish in time; stopping the motor"
+                );
+                self.tensioned = false;
+                self.send(TunerCommand::Stop).await;
+                if let Some(steps) = self.wait_at(tuner, Instant::now() + STOP_WAIT).await {
                     let now = self.now();
                     self.core.handle_arrived(now, steps);
                     self.record_position(steps);
-                    break;
+                } else {
+                    tracing::error!("shutting down: the controller did not say where the motor stopped; the journal keeps the unfinished move (position unknown at next start)");
+                }
+            }
+        } else {
+            tracing::info!("shutting down: no new targets; the motor is at rest");
+        }
+        if self.relax_on_exit {
+            self.relax(tuner).await;
+        }
+        if let Some(p) = self.core.position() {
+            self.record_position(p);
+        }
+        self.release_inhibit();
+    }
+
+    /// When the move under way should have ended: the current leg's travel
+    /// at the configured speed from when it was sent, plus settle time and
+    /// half the reply margin, so that our `STOP` goes out before the
+    /// controller link would call the slow move a fault (at the full
+    /// margin). Before the first leg (the inhibit lead), the lead plus the
+    /// margin. Recomputed for every leg.
+    fn move_deadline(&self) -> Instant {
+        let t = self.timing;
+        match self.leg {
+            Some(leg) => {
+                let run = t.travel(leg.from.abs_diff(leg.to));
+                leg.sent + run.saturating_sub(t.margin / 2)
+            }
+            None => Instant::now() + self.core.policy().inhibit_lead + t.margin,
+        }
+    }
+
+    /// Waits for the controller's next `At` until `until`; `None` if it
+    /// does not come (or the link goes down).
+    async fn wait_at(
+        &mut self,
+        tuner: &mut mpsc::Receiver<TunerEvent>,
+        until: Instant,
+    ) -> Option<i64> {
+        loop {
+            match tokio::time::timeout_at(until, tuner.recv()).await {
+                Ok(Some(TunerEvent::At { steps })) => return Some(steps),
+                Ok(Some(TunerEvent::LinkDown { reason })) => {
+                    tracing::warn!(%reason, "controller link down during shutdown");
+                    return None;
+                }
+                Ok(Some(TunerEvent::Error { text })) => {
+                    tracing::warn!(%text, "controller link");
+                    return None;
+                }
+                Ok(Some(_)) => {}
+                Ok(None) | Err(_) => return None,
+            }
+        }
+    }
+
+    /// `relax_on_exit`: after a move that ended with its final approach,
+    /// back off half the backlash toward the approach side (within the
+    /// limits), under the inhibit and through the journal like any move.
+    async fn relax(&mut self, tuner: &mut mpsc::Receiver<TunerEvent>) {
+        let policy = self.core.policy();
+        let half = policy.backlash_steps / 2;
+        let Some(p) = self.core.position() else {
+            tracing::info!("relax on exit: skipped, position unknown");
+            return;
+        };
+        if !self.tensioned || half == 0 {
+            tracing::info!(
+                tensioned = self.tensioned,
+                backlash = policy.backlash_steps,
+                "relax on exit: nothing to relax"
+            );
+            return;
+        }
+        if self.core.transmitting() {
+            tracing::info!("relax on exit: skipped, the rig is transmitting");
+            return;
+        }
+        let to = policy.clamp(match policy.approach {
+            crate::config::Approach::Up => p - half,
+            crate::config::Approach::Down => p + half,
+        });
+        let lead = policy.inhibit_lead;
+        if to == p {
+            return;
+        }
+        if !self.inhibit_on {
+            if let Err(e) = self.inhibit.set(true) {
+                tracing::error!(error = %e, "relax on exit: skipped, the transmit inhibit failed");
+                return;
+            }
+            self.inhibit_on = true;
+            tracing::info!(on = true, "transmit inhibit");
+            tokio::time::sleep(lead).await;
+        }
+        if let Some(j) = &self.journal {
+            if let Err(e) = j.record_intent(p, to) {
+                tracing::error!(error = %e, "relax on exit: skipped, could not record the intent");
+                return;
+            }
+        }
+        self.recorded = Some(Recorded::Unknown { from: p, to });
+        tracing::info!(from = p, to, "relax on exit: backing off half the backlash");
+        self.tensioned = false;
+        self.send(TunerCommand::Goto(to)).await;
+        let until = Instant::now() + self.timing.travel(p.abs_diff(to));
+        let mut at = self.wait_at(tuner, until).await;
+        if at.is_none() {
+            tracing::warn!("relax on exit: no arrival in time; stopping the motor");
+            self.send(TunerCommand::Stop).await;
+            at = self.wait_at(tuner, Instant::now() + STOP_WAIT).await;
+        }
+        match at {
+            Some(steps) => {
+                let now = self.now();
+                self.core.handle_arrived(now, steps);
+                self.record_position(steps);
+            }
+            None => tracing::error!(
+                "relax on exit: the controller did not say where the motor is; the journal keeps the unfinished move"
+            ),
+        }
+    }
+
+    /// Releases the inhibit at the very end (the motor is at rest or the
+    /// service cannot move it any more).
+    fn release_inhibit(&mut self) {
+        if self.inhibit_on || self.core.inhibit() {
+            match self.inhibit.set(false) {
+                Ok(()) => {
+                    self.inhibit_on = false;
+                    tracing::info!(on = false, "transmit inhibit");
+                }
+                Err(e) => {
+                    tracing::error!(error = %e, "could not release the transmit inhibit at shutdown")
                 }
             }
         }
-        if self.inhibit_on || self.core.inhibit() {
-            if let Err(e) = self.inhibit.set(false) {
-                tracing::error!(error = %e, "could not release the transmit inhibit at shutdown");
-            }
-        }
+    }
+
+    /// The rig's port is down: the core holds (`rig-silent`), and the
+    /// controller link refuses and stops moves as if the rig transmitted.
+    fn rig_deaf(&mut self, now: Duration) {
+        self.transmit.send_replace(true);
+        self.core.handle_rig_link(now, false);
     }
 
     fn set_transmit(&mut self, now: Duration, on: bool) {
@@ -424,6 +834,8 @@ impl Driver {
                 self.decoder.feed(dir, &bytes, &mut out);
                 for ev in &out {
                     match *ev {
+                        // Shutting down: no new targets (transmit still counts).
+                        RigEvent::Frequency { .. } if self.stopping => {}
                         RigEvent::Frequency { hz } => self.core.handle_frequency(now, hz),
                         RigEvent::Transmit { on } => self.set_transmit(now, on),
                         RigEvent::Reject { reason, bytes } => {
@@ -433,14 +845,15 @@ impl Driver {
                 }
                 self.events = out;
             }
-            LinkEvent::Down { .. } => {
-                // Deaf: we would not hear the rig start transmitting.
-                self.set_transmit(now, true);
-            }
+            LinkEvent::Down { .. } => self.rig_deaf(now),
             LinkEvent::Up { .. } => {
                 let mut out = Vec::new();
                 self.decoder.finish(&mut out);
+                // A transmission that ended while the port was down went
+                // unheard: the rig is taken to be receiving until it says
+                // otherwise.
                 self.set_transmit(now, false);
+                self.core.handle_rig_link(now, true);
             }
         }
     }
@@ -504,6 +917,9 @@ impl Driver {
                 Resync::Idle => {
                     self.core.handle_arrived(now, steps);
                     if !self.core.is_moving() {
+                        self.tensioned = self.final_to == Some(steps);
+                        self.leg = None;
+                        self.final_to = None;
                         self.record_position(steps);
                     }
                 }
@@ -567,6 +983,9 @@ impl Driver {
     /// `ask_again` the driver asks `WHERE` after a pause.
     fn fault(&mut self, now: Duration, ask_again: bool) {
         self.outcome.faults += 1;
+        self.leg = None;
+        self.final_to = None;
+        self.tensioned = false;
         self.core.handle_fault(now);
         if ask_again {
             // Keep a stricter check already pending.
@@ -592,7 +1011,7 @@ impl Driver {
                 Action::Inhibit { on } => match self.inhibit.set(on) {
                     Ok(()) => {
                         self.inhibit_on = on;
-                        tracing::debug!(on, "inhibit");
+                        tracing::info!(on, "transmit inhibit");
                     }
                     Err(e) => {
                         self.inhibit_on = false;
@@ -612,6 +1031,8 @@ impl Driver {
                     tune_hz,
                 } => {
                     tracing::info!(from, to, hz, tune_hz, "move");
+                    self.final_to = Some(to);
+                    self.tensioned = false;
                     let written = match &self.journal {
                         Some(j) => j.record_intent(from, to).map_err(|e| e.to_string()),
                         None => Ok(()),
@@ -647,10 +1068,19 @@ impl Driver {
                         self.block_gotos = true;
                         self.fault(now, true);
                     } else {
+                        self.leg = Some(Leg {
+                            from: self.core.position().unwrap_or(steps),
+                            to: steps,
+                            sent: Instant::now(),
+                        });
                         self.send(TunerCommand::Goto(steps)).await;
                     }
                 }
-                Action::Stop => self.send(TunerCommand::Stop).await,
+                Action::Stop => {
+                    self.tensioned = false;
+                    self.leg = None;
+                    self.send(TunerCommand::Stop).await
+                }
                 Action::Candidate { hz, steps, profile } => {
                     tracing::info!(
                         hz,

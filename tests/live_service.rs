@@ -86,6 +86,16 @@ async fn start_with(
     journal_before: Option<Recorded>,
     failing_inhibit: bool,
 ) -> Running {
+    start_custom(controller, journal_before, failing_inhibit, policy(), false).await
+}
+
+async fn start_custom(
+    controller: ClientConfig,
+    journal_before: Option<Recorded>,
+    failing_inhibit: bool,
+    policy: Policy,
+    relax_on_exit: bool,
+) -> Running {
     let dir = tempfile::tempdir().unwrap();
     let journal = Journal::new(dir.path().join("pos.state"));
     match journal_before {
@@ -99,12 +109,13 @@ async fn start_with(
     let (rig_tx, rig_rx) = mpsc::channel(64);
     let (stop, shutdown) = watch::channel(false);
     let service = Service {
-        follower: Follower::new(policy(), Arc::new(Linear), None),
+        follower: Follower::new(policy, Arc::new(Linear), None),
         decoder: dialect.decoder(None),
         rig: RigSource::Events(rig_rx),
         controller,
         inhibit: Box::new(inhibit.clone()),
         journal: Some(journal.clone()),
+        relax_on_exit,
     };
     let task = tokio::spawn(run(service, shutdown));
     Running {
@@ -396,7 +407,7 @@ async fn runs_from_a_station_config_with_real_links() {
     assert_eq!(out.moves, 1);
 }
 
-/// `share_as` and `poll_ms`: the service polls a silent rig through the
+/// `mode = "proxy"` with `poll_ms`: the service polls a silent rig through the
 /// proxy, another program shares the port, and the rig's answer moves the
 /// tuner.
 #[tokio::test]
@@ -410,7 +421,7 @@ async fn shares_the_port_and_polls_a_silent_rig() {
         dir.path(),
         &rig_link,
         addr,
-        "poll_ms = 50\nshare_as = \"shared\"",
+        "mode = \"proxy\"\npoll_ms = 50\nproxy_link = \"shared\"",
     );
     let station = Station::load(&config).unwrap();
     let service = Service::from_station(&station).unwrap();
@@ -510,4 +521,148 @@ async fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
     r.wait_journal(Recorded::Known(0)).await;
     let (out, _, _) = r.finish().await;
     assert!(out.faults >= 1);
+}
+
+/// `relax_on_exit`: after a move that ended with its final approach (from
+/// below), shutdown backs off half the backlash downward, under the
+/// inhibit, and records where the motor came to rest.
+#[tokio::test]
+async fn relax_on_exit_backs_off_half_the_backlash_toward_the_approach_side() {
+    let mut p = policy();
+    p.backlash_steps = 40;
+    let mut c = controller(0);
+    c.sim_backlash = 40;
+    let r = start_custom(c, None, false, p, true).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    r.wait_journal(Recorded::Known(1000)).await;
+    let (out, levels, journal) = r.finish().await;
+    assert_eq!(out.position, Some(980));
+    assert_eq!(journal, Some(Recorded::Known(980)));
+    // The last level is the release, after the relaxing move.
+    assert_eq!(levels.last(), Some(&false));
+}
+
+/// Nothing to relax when this run moved nothing (the last run may have
+/// relaxed already), and nothing unless asked.
+#[tokio::test]
+async fn relax_on_exit_only_after_an_approach_and_only_when_asked() {
+    let mut p = policy();
+    p.backlash_steps = 40;
+    let r = start_custom(
+        controller(1000),
+        Some(Recorded::Known(1000)),
+        false,
+        p.clone(),
+        true,
+    )
+    .await;
+    // The controller's answer releases the inhibit asserted at start.
+    let until = Instant::now() + Duration::from_secs(5);
+    while r.inhibit.levels() != [true, false] {
+        assert!(Instant::now() < until, "{:?}", r.inhibit.levels());
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    }
+    let (out, _, journal) = r.finish().await;
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(journal, Some(Recorded::Known(1000)));
+
+    let r = start_custom(controller(0), None, false, p, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    r.wait_journal(Recorded::Known(1000)).await;
+    let (out, _, journal) = r.finish().await;
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(journal, Some(Recorded::Known(1000)));
+}
+
+/// A controller that accepts a move and never arrives: at shutdown the
+/// driver waits for the time the leg needs, then sends `STOP`, and records
+/// where the motor stopped.
+#[tokio::test]
+async fn shutdown_stops_a_move_that_does_not_end_in_time() {
+    use tokio::io::{AsyncBufReadExt, AsyncWriteExt, BufReader};
+    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
+    let addr = listener.local_addr().unwrap();
+    let (seen_tx, mut seen) = mpsc::unbounded_channel::<String>();
+    tokio::spawn(async move {
+        let (sock, _) = listener.accept().await.unwrap();
+        let (rd, mut wr) = sock.into_split();
+        let mut lines = BufReader::new(rd).lines();
+        while let Ok(Some(line)) = lines.next_line().await {
+            let answer = match line.split_whitespace().collect::<Vec<_>>()[..] {
+                ["WHERE"] => "AT 0".to_string(),
+                ["GOTO", n] => format!("MOVING {n}"),
+                ["STOP"] => "AT 321".to_string(),
+                _ => "ERR unexpected".to_string(),
+            };
+            let _ = seen_tx.send(line);
+            wr.write_all(format!("{answer}\n").as_bytes())
+                .await
+                .unwrap();
+        }
+    });
+    let mut cfg = controller(0);
+    cfg.url = ControllerUrl::Tcp {
+        addr: addr.to_string(),
+    };
+    cfg.reply_margin = Duration::from_millis(400);
+    let r = start_with(cfg, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    r.wait_journal(Recorded::Unknown { from: 0, to: 1000 })
+        .await;
+    let (out, levels, journal) = r.finish().await;
+    assert_eq!(out.position, Some(321));
+    assert_eq!(journal, Some(Recorded::Known(321)));
+    assert_eq!(levels.last(), Some(&false));
+    let mut lines = Vec::new();
+    while let Ok(l) = seen.try_recv() {
+        lines.push(l);
+    }
+    assert_eq!(lines, vec!["WHERE", "GOTO 1000", "STOP"]);
+}
+
+/// The rig's port going down mid-move stops the motor (we could not hear a
+/// transmission start); nothing moves until it is back, then the move
+/// finishes.
+#[tokio::test]
+async fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
+    let mut slow = controller(0);
+    slow.steps_per_second = 2000.0;
+    let r = start_with(slow, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    assert_eq!(
+        r.journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1000 })
+    );
+    r.rig
+        .send(LinkEvent::Down {
+            reason: "unplugged".into(),
+        })
+        .await
+        .unwrap();
+    let until = Instant::now() + Duration::from_secs(3);
+    let stopped = loop {
+        if let Some(Recorded::Known(p)) = r.journal.load().unwrap() {
+            break p;
+        }
+        assert!(Instant::now() < until, "{:?}", r.journal.load());
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    };
+    assert!((1..1000).contains(&stopped), "{stopped}");
+    tokio::time::sleep(Duration::from_millis(600)).await;
+    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(stopped)));
+    r.rig
+        .send(LinkEvent::Up {
+            device: "/dev/pts/99".into(),
+        })
+        .await
+        .unwrap();
+    r.wait_journal(Recorded::Known(1000)).await;
+    let (out, _, _) = r.finish().await;
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(out.faults, 0);
 }

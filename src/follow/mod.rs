@@ -14,7 +14,8 @@
 //! - no target outside `min_steps..=max_steps` is ever issued (clamped, and
 //!   reported as a hold with reason `limit`);
 //! - no move starts while the rig reports transmit (deferred, reason
-//!   `transmitting`); a transmission reported during a move stops the motor;
+//!   `transmitting`) or while its port is down (`rig-silent`); either during
+//!   a move stops the motor;
 //! - the inhibit is asserted before the first step of every move (and
 //!   `inhibit_lead` ahead of it) and released only `inhibit_tail` after the
 //!   final arrival;
@@ -50,6 +51,9 @@ pub enum HoldReason {
     Paused,
     /// The calibration gave no usable position for this frequency.
     Calibration,
+    /// The rig's port is down: a transmission could start unheard, so the
+    /// move waits for the port to come back.
+    RigSilent,
 }
 
 impl HoldReason {
@@ -63,6 +67,7 @@ impl HoldReason {
             HoldReason::Fault => "fault",
             HoldReason::Paused => "paused",
             HoldReason::Calibration => "calibration",
+            HoldReason::RigSilent => "rig-silent",
         }
     }
 }
@@ -158,6 +163,8 @@ pub struct Follower {
     map: Arc<dyn StepMap>,
     profile: Option<String>,
     transmitting: bool,
+    /// The rig's port is down (see [`Follower::handle_rig_link`]).
+    rig_silent: bool,
     paused: bool,
     fault: bool,
     pending: Option<Pending>,
@@ -200,6 +207,7 @@ impl Follower {
             map,
             profile: None,
             transmitting: false,
+            rig_silent: false,
             paused: false,
             fault: false,
             pending: None,
@@ -272,28 +280,26 @@ impl Follower {
         }
         self.transmitting = on;
         if on {
-            match self.motion {
-                Motion::Arming { .. } => {
-                    // Nothing has moved yet: stand down and wait for receive.
-                    self.motion = Motion::Idle;
-                    self.set_inhibit(false);
-                    self.defer_for_transmit();
-                }
-                Motion::Moving { target, .. } => {
-                    // The inhibit did not hold the rig off (or is not wired):
-                    // stop rather than move a capacitor under RF; the rest of
-                    // the move waits for receive.
-                    self.actions.push_back(Action::Stop);
-                    self.motion = Motion::Stopping;
-                    if self.want.is_none() {
-                        self.want = Some(target);
-                    }
-                    self.defer_for_transmit();
-                }
-                Motion::Idle | Motion::Stopping => {}
-            }
+            self.stand_down(HoldReason::Transmitting);
         } else {
             self.try_start(now);
+        }
+        self.handle_timeout(now);
+    }
+
+    /// The rig's port went down (`up == false`) or came back. While it is
+    /// down a transmission could start unheard, so the core acts as for a
+    /// transmission: no move starts (hold `rig-silent`), a move under way
+    /// is stopped, and the rest waits until the port is back.
+    pub fn handle_rig_link(&mut self, now: Duration, up: bool) {
+        if self.rig_silent != up {
+            return;
+        }
+        self.rig_silent = !up;
+        if up {
+            self.try_start(now);
+        } else {
+            self.stand_down(HoldReason::RigSilent);
         }
         self.handle_timeout(now);
     }
@@ -481,6 +487,10 @@ impl Follower {
     pub fn transmitting(&self) -> bool {
         self.transmitting
     }
+    /// The rig's port is down.
+    pub fn rig_silent(&self) -> bool {
+        self.rig_silent
+    }
     pub fn stats(&self) -> Stats {
         self.stats
     }
@@ -589,7 +599,11 @@ impl Follower {
             return;
         }
         if self.transmitting {
-            self.defer_for_transmit();
+            self.defer(HoldReason::Transmitting);
+            return;
+        }
+        if self.rig_silent {
+            self.defer(HoldReason::RigSilent);
             return;
         }
         if self.inhibit {
@@ -612,7 +626,7 @@ impl Follower {
             self.motion = Motion::Idle;
             return;
         };
-        if self.transmitting || !self.inhibit {
+        if self.transmitting || self.rig_silent || !self.inhibit {
             // Not reachable through the public events; kept as a last guard.
             self.want = Some(target);
             self.motion = Motion::Idle;
@@ -649,7 +663,7 @@ impl Follower {
     /// The motor is at rest: start the next wanted move, or begin the
     /// inhibit tail.
     fn after_rest(&mut self, now: Duration) {
-        if self.want.is_some() && !self.transmitting && !self.paused {
+        if self.want.is_some() && !self.transmitting && !self.rig_silent && !self.paused {
             self.try_start(now);
             if self.is_moving() {
                 return;
@@ -660,9 +674,33 @@ impl Follower {
         }
     }
 
-    fn defer_for_transmit(&mut self) {
+    /// The rig transmits, or cannot be heard: nothing may move. A move
+    /// still arming stands down (nothing has moved; the inhibit is never
+    /// held against a transmission in progress); a move under way is
+    /// stopped (the inhibit did not hold the rig off, or is not wired:
+    /// better than moving a capacitor under RF) and its rest waits.
+    fn stand_down(&mut self, reason: HoldReason) {
+        match self.motion {
+            Motion::Arming { .. } => {
+                self.motion = Motion::Idle;
+                self.set_inhibit(false);
+                self.defer(reason);
+            }
+            Motion::Moving { target, .. } => {
+                self.actions.push_back(Action::Stop);
+                self.motion = Motion::Stopping;
+                if self.want.is_none() {
+                    self.want = Some(target);
+                }
+                self.defer(reason);
+            }
+            Motion::Idle | Motion::Stopping => {}
+        }
+    }
+
+    fn defer(&mut self, reason: HoldReason) {
         if let Some(t) = self.want {
-            self.hold(t.hz, HoldReason::Transmitting);
+            self.hold(t.hz, reason);
         }
     }
 

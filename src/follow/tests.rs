@@ -608,3 +608,75 @@ fn a_calibration_that_answers_nonsense_never_moves() {
         }]
     );
 }
+
+#[test]
+fn no_move_while_the_rig_is_silent_then_the_move_when_it_is_back() {
+    let mut f = core(Some(9_000));
+    f.handle_rig_link(ms(0), false);
+    assert!(f.rig_silent());
+    let a = settle(&mut f, 10, 7_050_000);
+    assert_eq!(
+        a,
+        vec![Action::Hold {
+            hz: 7_050_000,
+            reason: HoldReason::RigSilent
+        }]
+    );
+    assert!(!f.inhibit());
+    f.handle_timeout(ms(60_000));
+    assert!(drain(&mut f).is_empty());
+    // A second "down" changes nothing.
+    f.handle_rig_link(ms(60_500), false);
+    assert!(drain(&mut f).is_empty());
+    f.handle_rig_link(ms(61_000), true);
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_timeout(ms(61_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+}
+
+#[test]
+fn the_rig_going_silent_during_a_move_stops_it_until_it_is_back() {
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_150_000); // overshoot leg to 8 470 first
+    f.handle_rig_link(ms(500), false);
+    let a = drain(&mut f);
+    assert_eq!(a.first(), Some(&Action::Stop));
+    assert!(a.contains(&Action::Hold {
+        hz: 7_150_000,
+        reason: HoldReason::RigSilent
+    }));
+    f.handle_arrived(ms(510), 8_800);
+    f.handle_timeout(ms(700));
+    assert!(gotos(&drain(&mut f)).is_empty());
+    // A transmission that starts and ends meanwhile does not release it.
+    f.handle_transmit(ms(800), true);
+    f.handle_transmit(ms(900), false);
+    f.handle_timeout(ms(1_000));
+    assert!(gotos(&drain(&mut f)).is_empty());
+    f.handle_rig_link(ms(3_000), true);
+    f.handle_timeout(ms(3_020));
+    let a = drain(&mut f);
+    assert!(a.contains(&Action::Move {
+        from: 8_800,
+        to: 8_500,
+        hz: 7_150_000,
+        tune_hz: 7_150_000,
+    }));
+    assert_eq!(gotos(&a), vec![8_470]);
+}
+
+#[test]
+fn the_rig_going_silent_during_the_inhibit_lead_stands_down() {
+    let mut f = core(Some(9_000));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_rig_link(ms(310), false);
+    f.handle_timeout(ms(320));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty());
+    assert!(a.contains(&Action::Inhibit { on: false }));
+    f.handle_rig_link(ms(5_000), true);
+    f.handle_timeout(ms(5_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+}

@@ -282,6 +282,12 @@ impl Poller {
 
     /// The rig said something.
     pub(crate) fn answered(&mut self) {
+        if !self.answered && self.interval > self.config.every {
+            tracing::info!(
+                "rig answers polls again; polling every {:?}",
+                self.config.every
+            );
+        }
         self.answered = true;
     }
 
@@ -290,6 +296,13 @@ impl Poller {
         self.interval = if self.answered {
             self.config.every
         } else {
+            if self.interval == self.config.every {
+                // Logged once per silence, not per query.
+                tracing::warn!(
+                    "rig does not answer polls; backing off (up to every {:?})",
+                    self.config.max_every.max(self.config.every)
+                );
+            }
             (self.interval * 2).min(self.config.max_every.max(self.config.every))
         };
         self.answered = false;

@@ -1,0 +1,196 @@
+//! `tuneward capture`: records what crosses the rig's control port into a
+//! capture file (protocols/capture.md) that `tuneward replay` reads back.
+//!
+//! The port is opened the way the live service would open it (`[rig]`
+//! `port`, framing and `mode`), so a capture shows exactly what the service
+//! would have heard: in `poll` mode our own queries are recorded as `tx`,
+//! in `proxy` mode both directions of the other program's conversation
+//! are. The rig link's ups and downs go into the file as comments.
+//!
+//! It runs until `--duration` has passed or it is interrupted (Ctrl-C,
+//! SIGTERM); either way the file is flushed to disk before it exits. A
+//! progress line on stderr is refreshed at most once a second.
+
+use std::io::Write;
+use std::path::PathBuf;
+use std::time::Duration;
+
+use tokio::sync::{mpsc, watch};
+use tokio::time::Instant;
+
+use crate::capture::CaptureWriter;
+use crate::rig::link::LinkEvent;
+use crate::rig::Direction;
+use crate::service::RigSource;
+
+/// Arguments of `tuneward capture`.
+#[derive(Debug, clap::Args)]
+pub struct CaptureArgs {
+    /// The station's config (TOML); `[rig]` says which port and how.
+    #[arg(long, short)]
+    pub config: PathBuf,
+    /// The capture file to write (replaced if it exists).
+    #[arg(long, value_name = "FILE.cap")]
+    pub out: PathBuf,
+    /// Stop after this many seconds (e.g. 90 or 2.5) [default: until Ctrl-C].
+    #[arg(long, value_name = "S", value_parser = parse_duration)]
+    pub duration: Option<Duration>,
+}
+
+fn parse_duration(s: &str) -> Result<Duration, String> {
+    crate::capture::parse_seconds(s).map_err(|e| format!("expected {e}, found `{s}`"))
+}
+
+/// What a capture recorded.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Recorded {
+    pub records: u64,
+    pub rx_bytes: u64,
+    pub tx_bytes: u64,
+}
+
+/// Runs `tuneward capture`.
+pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
+    let station = crate::station::Station::load(&args.config).map_err(|e| e.to_string())?;
+    let source = crate::service::rig_source(&station)?;
+    let file = std::fs::File::create(&args.out)
+        .map_err(|e| format!("cannot create capture file {}: {e}", args.out.display()))?;
+    let rt = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+    let out = args.out.display().to_string();
+    rt.block_on(async move {
+        let (stop_tx, stop) = watch::channel(false);
+        let (tx, rx) = mpsc::channel(256);
+        let task = match source {
+            RigSource::Link(cfg) => crate::rig::link::spawn(cfg, tx, stop),
+            RigSource::Proxy { config, boundary } => {
+                crate::rig::proxy::spawn(config, boundary, tx, stop)?
+            }
+            RigSource::Events(_) => return Err("no rig port to capture".to_string()),
+        };
+        let mut w = CaptureWriter::new(std::io::BufWriter::new(file));
+        let header = format!(
+            "tuneward capture of {} ({}, mode {:?})",
+            station.config.rig.port.as_deref().unwrap_or("?"),
+            station.config.rig.protocol,
+            station.config.rig.mode
+        )
+        .to_lowercase();
+        w.comment(&header).map_err(|e| format!("{out}: {e}"))?;
+        let result = record(rx, &mut w, args.duration, &out, interrupted()).await;
+        stop_tx.send_replace(true);
+        let _ = tokio::time::timeout(Duration::from_secs(3), task).await;
+        let flushed = w
+            .flush()
+            .and_then(|()| {
+                w.into_inner()
+                    .into_inner()
+                    .map_err(|e| e.into_error())?
+                    .sync_all()
+            })
+            .map_err(|e| format!("{out}: cannot flush the capture: {e}"));
+        let got = result?;
+        flushed?;
+        eprintln!(
+            "captured {} records ({} bytes from the rig, {} to it) into {out}",
+            got.records, got.rx_bytes, got.tx_bytes
+        );
+        Ok(got)
+    })
+}
+
+/// Resolves on Ctrl-C or SIGTERM.
+async fn interrupted() {
+    let term = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(_) => std::future::pending::<()>().await,
+        }
+    };
+    tokio::select! {
+        _ = tokio::signal::ctrl_c() => {}
+        _ = term => {}
+    }
+}
+
+/// Writes link events into `w` until `duration` has passed, `stop`
+/// resolves or the link ends.
+pub async fn record<W: Write>(
+    mut events: mpsc::Receiver<LinkEvent>,
+    w: &mut CaptureWriter<W>,
+    duration: Option<Duration>,
+    name: &str,
+    stop: impl std::future::Future<Output = ()>,
+) -> Result<Recorded, String> {
+    let origin = Instant::now();
+    let until = duration.map(|d| origin + d);
+    let mut got = Recorded::default();
+    let mut last = Duration::ZERO;
+    let mut progress =
+        tokio::time::interval_at(origin + Duration::from_secs(1), Duration::from_secs(1));
+    progress.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
+    let mut shown = false;
+    let terminal = {
+        use std::io::IsTerminal;
+        std::io::stderr().is_terminal()
+    };
+    tokio::pin!(stop);
+    let io = |e: std::io::Error| format!("{name}: cannot write the capture: {e}");
+    loop {
+        tokio::select! {
+            _ = &mut stop => break,
+            _ = crate::rig::link::sleep_until_opt(until) => break,
+            _ = progress.tick() => {
+                let line = format!(
+                    "capturing: {} s, {} records, {} bytes from the rig, {} to it",
+                    origin.elapsed().as_secs(),
+                    got.records,
+                    got.rx_bytes,
+                    got.tx_bytes
+                );
+                // One line rewritten in place on a terminal; whole lines in
+                // a log file.
+                if terminal {
+                    eprint!("\r{line}   ");
+                    shown = true;
+                } else {
+                    eprintln!("{line}");
+                }
+            }
+            ev = events.recv() => match ev {
+                None => break,
+                Some(LinkEvent::Bytes { dir, bytes, at }) => {
+                    if bytes.is_empty() {
+                        continue;
+                    }
+                    // Chunks come in order; a clock that steps back still
+                    // gives a readable file.
+                    let t = at.saturating_duration_since(origin).max(last);
+                    last = t;
+                    w.write_record(t, dir, &bytes).map_err(io)?;
+                    got.records += 1;
+                    match dir {
+                        Direction::Rx => got.rx_bytes += bytes.len() as u64,
+                        Direction::Tx => got.tx_bytes += bytes.len() as u64,
+                    }
+                }
+                Some(LinkEvent::Up { device }) => {
+                    let t = origin.elapsed().as_secs_f64();
+                    w.comment(&format!("{t:.3} s: rig port open ({})", device.display())).map_err(io)?;
+                }
+                Some(LinkEvent::Down { reason }) => {
+                    let t = origin.elapsed().as_secs_f64();
+                    w.comment(&format!("{t:.3} s: rig port down: {reason}")).map_err(io)?;
+                }
+            },
+        }
+    }
+    if shown {
+        eprintln!();
+    }
+    Ok(got)
+}

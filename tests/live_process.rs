@@ -1,0 +1,502 @@
+//! The real `tuneward run` and `tuneward capture` binaries against a rig on
+//! a pseudo-terminal and `tuneward sim-tuner` on loopback TCP: signals,
+//! a crash in the middle of a move, and capture files that replay.
+//!
+//! Every wait has a deadline; a child left behind is killed on drop.
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, ExitStatus, Stdio};
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+use tokio::io::AsyncWriteExt;
+use tokio_serial::SerialPort;
+use tuneward::journal::{Journal, Recorded};
+use tuneward::rig::dialect::Dialect;
+
+const BIN: &str = env!("CARGO_BIN_EXE_tuneward");
+
+/// A child process killed (SIGKILL) when dropped.
+struct Proc(Child);
+
+impl Drop for Proc {
+    fn drop(&mut self) {
+        let _ = self.0.kill();
+        let _ = self.0.wait();
+    }
+}
+
+impl Proc {
+    fn signal(&self, sig: libc::c_int) {
+        let pid = libc::pid_t::try_from(self.0.id()).unwrap();
+        // SAFETY: kill(2) on our own child's pid; no memory is involved.
+        assert_eq!(unsafe { libc::kill(pid, sig) }, 0);
+    }
+    fn wait_exit(&mut self, within: Duration) -> ExitStatus {
+        let until = Instant::now() + within;
+        loop {
+            if let Some(status) = self.0.try_wait().unwrap() {
+                return status;
+            }
+            assert!(Instant::now() < until, "process did not exit in {within:?}");
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
+}
+
+/// `tuneward sim-tuner` on `listen` (port 0: a free one); its address.
+fn sim_tuner(listen: &str, start: i64) -> (Proc, String) {
+    let mut child = Command::new(BIN)
+        .args(["sim-tuner", "--listen", listen])
+        .args(["--steps-per-second", "1000", "--settle-ms", "10"])
+        .args(["--max", "3000", "--start", &start.to_string()])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut out = BufReader::new(child.stdout.take().unwrap());
+    let mut line = String::new();
+    out.read_line(&mut line).unwrap();
+    let addr = line
+        .trim()
+        .strip_prefix("listening on ")
+        .unwrap_or_else(|| panic!("sim-tuner said {line:?}"))
+        .to_string();
+    (Proc(child), addr)
+}
+
+/// Asks a controller where its motor is (a new connection takes over).
+fn controller_where(addr: &str) -> String {
+    let mut s = std::net::TcpStream::connect(addr).unwrap();
+    s.set_read_timeout(Some(Duration::from_secs(5))).unwrap();
+    std::io::Write::write_all(&mut s, b"WHERE\n").unwrap();
+    let mut line = String::new();
+    BufReader::new(s).read_line(&mut line).unwrap();
+    line.trim_end().to_string()
+}
+
+/// A child whose stderr is collected line by line.
+struct Logged {
+    proc: Proc,
+    lines: Arc<Mutex<Vec<String>>>,
+}
+
+impl Logged {
+    fn start(args: &[&str]) -> Logged {
+        let mut child = Command::new(BIN)
+            .args(args)
+            .env("RUST_LOG", "info")
+            .stdout(Stdio::null())
+            .stderr(Stdio::piped())
+            .spawn()
+            .unwrap();
+        let err = child.stderr.take().unwrap();
+        let lines = Arc::new(Mutex::new(Vec::new()));
+        let sink = Arc::clone(&lines);
+        std::thread::spawn(move || {
+            for line in BufReader::new(err).lines().map_while(Result::ok) {
+                eprintln!("  | {line}");
+                sink.lock().unwrap().push(line);
+            }
+        });
+        Logged {
+            proc: Proc(child),
+            lines,
+        }
+    }
+    fn log(&self) -> Vec<String> {
+        self.lines.lock().unwrap().clone()
+    }
+    /// Waits until a log line contains every one of `words`.
+    fn wait_log(&self, words: &[&str]) -> String {
+        let until = Instant::now() + Duration::from_secs(10);
+        loop {
+            if let Some(l) = self
+                .log()
+                .into_iter()
+                .find(|l| words.iter().all(|w| l.contains(w)))
+            {
+                return l;
+            }
+            assert!(
+                Instant::now() < until,
+                "no log line with {words:?} in:\n{}",
+                self.log().join("\n")
+            );
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
+}
+
+/// The rig: one end of a pseudo-terminal pair, the other end behind a
+/// symlink the config names.
+fn rig(
+    dir: &Path,
+) -> (
+    tokio_serial::SerialStream,
+    tokio_serial::SerialStream,
+    PathBuf,
+) {
+    let (rig, far) = pty_pair();
+    let link = dir.join("rig");
+    tuneward::tuner::server::place_symlink(&link, Path::new(&far.name().unwrap())).unwrap();
+    (rig, far, link)
+}
+
+/// A pseudo-terminal pair whose descriptors children do not inherit (an
+/// inherited master would keep an "unplugged" rig alive).
+fn pty_pair() -> (tokio_serial::SerialStream, tokio_serial::SerialStream) {
+    use std::os::fd::AsRawFd;
+    let (a, b) = tokio_serial::SerialStream::pair().unwrap();
+    for fd in [a.as_raw_fd(), b.as_raw_fd()] {
+        // SAFETY: fcntl on descriptors we own; no memory is involved.
+        assert_eq!(
+            unsafe { libc::fcntl(fd, libc::F_SETFD, libc::FD_CLOEXEC) },
+            0
+        );
+    }
+    (a, b)
+}
+
+/// An invented station: 7.000 MHz at step 0, 7.300 MHz at step 3000.
+fn write_config(dir: &Path, rig: &Path, controller: &str, extra_rig: &str) -> PathBuf {
+    let config = dir.join("station.toml");
+    std::fs::write(
+        &config,
+        format!(
+            r#"
+[rig]
+protocol = "text-semicolon"
+port = "{rig}"
+baud = 38400
+{extra_rig}
+
+[tuner]
+link = "tcp://{controller}"
+min_steps = 0
+max_steps = 3000
+steps_per_second = 1000
+settle_ms = 10
+state_file = "motor.state"
+
+[follow]
+debounce_ms = 30
+hysteresis_hz = 100
+inhibit_lead_ms = 5
+inhibit_tail_ms = 20
+
+[calibration]
+model = "interpolate"
+points = [{{ hz = 7000000, steps = 0 }}, {{ hz = 7300000, steps = 3000 }}]
+
+[[band]]
+name = "40m"
+low_hz = 7000000
+high_hz = 7300000
+"#,
+            rig = rig.display()
+        ),
+    )
+    .unwrap();
+    config
+}
+
+fn wait_journal(journal: &Journal, want: Recorded) {
+    let until = Instant::now() + Duration::from_secs(10);
+    loop {
+        let got = journal.load().ok().flatten();
+        if got == Some(want) {
+            return;
+        }
+        assert!(Instant::now() < until, "journal {got:?}, wanted {want:?}");
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
+
+async fn say(rig: &mut tokio_serial::SerialStream, bytes: &[u8]) {
+    rig.write_all(bytes).await.unwrap();
+    rig.flush().await.unwrap();
+}
+
+/// SIGTERM in the middle of a move: the move finishes, the position is on
+/// disk and equal to the controller's, the inhibit is released, exit 0.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn sigterm_mid_move_finishes_it_and_exits_cleanly() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig(dir.path());
+    let (_sim, addr) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr, "");
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    wait_journal(&journal, Recorded::Known(0));
+
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    // Half way between the two calibration points: 1500 steps, 1.5 s.
+    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
+    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
+    run.proc.signal(libc::SIGTERM);
+    // A frequency after the signal is no new target.
+    say(&mut rig, &dialect.encode_frequency(7_250_000, 0)).await;
+    let status = run.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(0), "{}", run.log().join("\n"));
+
+    assert_eq!(journal.load().unwrap(), Some(Recorded::Known(1500)));
+    assert_eq!(controller_where(&addr), "AT 1500");
+    let log = run.log();
+    assert!(log
+        .iter()
+        .any(|l| l.contains("letting the move under way finish")));
+    assert_eq!(log.iter().filter(|l| l.contains(" INFO move ")).count(), 1);
+    // The last word on the inhibit is a release, after the arrival.
+    let last = log
+        .iter()
+        .rev()
+        .find(|l| l.contains("transmit inhibit"))
+        .unwrap();
+    assert!(last.contains("on=false"), "{last}");
+}
+
+/// `kill -9` in the middle of a move, and a controller that lost its count
+/// too: at restart the position is unknown, nothing moves and the inhibit
+/// stays asserted, until the controller reports the move's target.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn killed_mid_move_restarts_with_the_position_unknown() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig(dir.path());
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    let journal = Journal::new(dir.path().join("motor.state"));
+
+    let (sim_a, addr_a) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr_a, "");
+    let run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    wait_journal(&journal, Recorded::Known(0));
+    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
+    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
+    drop(run); // SIGKILL mid-move
+    drop(sim_a); // and the controller is power-cycled: its count is gone
+
+    let (sim_b, addr_b) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr_b, "");
+    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    run.wait_log(&["journal: a move did not finish", "from=0", "to=1500"]);
+    run.wait_log(&["position unknown", "controller=0"]);
+    say(&mut rig, &dialect.encode_frequency(7_200_000, 0)).await;
+    run.wait_log(&["hold", "hz=7200000", "reason=position-unknown"]);
+    assert_eq!(
+        journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1500 })
+    );
+    let log = run.log();
+    assert!(!log.iter().any(|l| l.contains(" INFO move ")), "{log:?}");
+    let inhibit: Vec<&String> = log
+        .iter()
+        .filter(|l| l.contains("transmit inhibit"))
+        .collect();
+    assert!(
+        inhibit.len() == 1 && inhibit[0].contains("on=true"),
+        "{inhibit:?}"
+    );
+
+    // The operator finds the capacitor where the move was going and the
+    // controller comes back reporting it (on the same address).
+    drop(sim_b);
+    let (_sim_c, _) = sim_tuner(&addr_b, 1500);
+    // Its answer is the move's target: the position is trusted again and
+    // following resumes from there; the frequency that waited is tuned.
+    run.wait_log(&["INFO move", "from=1500", "to=2000"]);
+    wait_journal(&journal, Recorded::Known(2000));
+    run.proc.signal(libc::SIGTERM);
+    let status = run.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(0));
+    assert_eq!(journal.load().unwrap(), Some(Recorded::Known(2000)));
+}
+
+/// `tuneward capture` until Ctrl-C, then `tuneward replay` of the file
+/// sees the frequencies the rig reported.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn capture_until_interrupted_then_replay() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig(dir.path());
+    let config = write_config(dir.path(), &rig_link, "127.0.0.1:9", "");
+    let cap = dir.path().join("evening.cap");
+    let mut capture = Logged::start(&[
+        "capture",
+        "--config",
+        config.to_str().unwrap(),
+        "--out",
+        cap.to_str().unwrap(),
+    ]);
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    // The port is open once the link says so.
+    capture.wait_log(&["rig port up"]);
+    let mut total = 0;
+    for hz in [7_050_000, 7_120_000, 7_180_000] {
+        let report = dialect.encode_frequency(hz, 0);
+        total += report.len();
+        say(&mut rig, &report).await;
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+    capture.wait_log(&["capturing:", &format!(" {total} bytes from the rig")]);
+    capture.proc.signal(libc::SIGINT);
+    let status = capture.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(0));
+    capture.wait_log(&[
+        "captured",
+        &format!("({total} bytes from the rig, 0 to it)"),
+    ]);
+
+    let out = Command::new(BIN)
+        .args(["replay", cap.to_str().unwrap(), "--config"])
+        .arg(&config)
+        .args(["--json", "--verbose"])
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let heard: Vec<u64> = String::from_utf8_lossy(&out.stdout)
+        .lines()
+        .filter_map(|l| serde_json::from_str::<serde_json::Value>(l).ok())
+        .filter(|v| v["kind"] == "frequency")
+        .filter_map(|v| v["hz"].as_u64())
+        .collect();
+    assert_eq!(heard, vec![7_050_000, 7_120_000, 7_180_000]);
+}
+
+/// In proxy mode the capture holds both directions: the other program's
+/// query (`tx`) and the rig's answer (`rx`), and `--duration` ends it.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn capture_in_proxy_mode_records_both_directions() {
+    use tokio::io::AsyncReadExt;
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig(dir.path());
+    let config = write_config(
+        dir.path(),
+        &rig_link,
+        "127.0.0.1:9",
+        "mode = \"proxy\"\nproxy_link = \"shared\"",
+    );
+    let cap = dir.path().join("shared.cap");
+    let mut capture = Logged::start(&[
+        "capture",
+        "--config",
+        config.to_str().unwrap(),
+        "--out",
+        cap.to_str().unwrap(),
+        "--duration",
+        "4",
+    ]);
+    let shared = dir.path().join("shared");
+    let until = Instant::now() + Duration::from_secs(5);
+    while std::fs::symlink_metadata(&shared).is_err() {
+        assert!(Instant::now() < until, "no proxy link");
+        tokio::time::sleep(Duration::from_millis(20)).await;
+    }
+    let mut other =
+        tokio_serial::SerialStream::open(&tokio_serial::new(shared.to_string_lossy(), 38_400))
+            .unwrap();
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    let query = dialect.poll_frequency(0);
+    other.write_all(&query).await.unwrap();
+    let mut heard = vec![0u8; query.len()];
+    tokio::time::timeout(Duration::from_secs(5), rig.read_exact(&mut heard))
+        .await
+        .unwrap()
+        .unwrap();
+    assert_eq!(heard, query);
+    let answer = dialect.encode_frequency(7_074_000, 0);
+    say(&mut rig, &answer).await;
+    let mut got = vec![0u8; answer.len()];
+    tokio::time::timeout(Duration::from_secs(5), other.read_exact(&mut got))
+        .await
+        .unwrap()
+        .unwrap();
+    assert_eq!(got, answer);
+
+    let status = capture.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(0), "{}", capture.log().join("\n"));
+    let records = tuneward::capture::CaptureReader::open(&cap)
+        .unwrap()
+        .collect::<Result<Vec<_>, _>>();
+    let records = records.unwrap();
+    let bytes = |dir| -> Vec<u8> {
+        records
+            .iter()
+            .filter(|r| r.dir == dir)
+            .flat_map(|r| r.bytes.clone())
+            .collect()
+    };
+    assert_eq!(bytes(tuneward::rig::Direction::Tx), query);
+    assert_eq!(bytes(tuneward::rig::Direction::Rx), answer);
+}
+
+/// The rig is unplugged and comes back on a new device behind the same
+/// symlink; then the controller drops out and comes back. Each transition
+/// is logged once, the inhibit is asserted the whole time the controller is
+/// away, and following resumes both times.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn rig_unplug_and_controller_drop_both_recover() {
+    let dir = tempfile::tempdir().unwrap();
+    let (rig_a, far_a, rig_link) = rig(dir.path());
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let (sim, addr) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr, "");
+    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    wait_journal(&journal, Recorded::Known(0));
+
+    // Unplug: both ends of the first pseudo-terminal go away.
+    drop(rig_a);
+    drop(far_a);
+    run.wait_log(&["rig port down"]);
+    let (mut rig_b, far_b) = pty_pair();
+    let device_b = far_b.name().unwrap();
+    tuneward::tuner::server::place_symlink(&rig_link, Path::new(&device_b)).unwrap();
+    run.wait_log(&["rig port up", &device_b]);
+    say(&mut rig_b, &dialect.encode_frequency(7_030_000, 0)).await;
+    wait_journal(&journal, Recorded::Known(300));
+    let downs = run
+        .log()
+        .iter()
+        .filter(|l| l.contains("rig port down"))
+        .count();
+    assert_eq!(downs, 1, "{:?}", run.log());
+
+    // The controller goes away; a frequency meanwhile only holds.
+    drop(sim);
+    run.wait_log(&["controller link down"]);
+    let since = run.log().len();
+    say(&mut rig_b, &dialect.encode_frequency(7_060_000, 0)).await;
+    run.wait_log(&["hold", "hz=7060000", "reason=fault"]);
+    let (_sim2, _) = sim_tuner(&addr, 300);
+    run.wait_log(&["INFO move", "from=300", "to=600"]);
+    wait_journal(&journal, Recorded::Known(600));
+    let log = run.log();
+    let after: Vec<&String> = log[since..]
+        .iter()
+        .filter(|l| l.contains("transmit inhibit"))
+        .collect();
+    // Asserted at the drop (before `since`) and not released until the
+    // move after the controller came back.
+    let first_release = log[since..]
+        .iter()
+        .position(|l| l.contains("transmit inhibit") && l.contains("on=false"));
+    let the_move = log[since..]
+        .iter()
+        .position(|l| l.contains("INFO move"))
+        .unwrap();
+    assert!(
+        first_release.map_or(true, |r| r > the_move),
+        "inhibit released while the controller was away: {after:?}"
+    );
+    assert!(log[..since]
+        .iter()
+        .rev()
+        .find(|l| l.contains("transmit inhibit"))
+        .is_some_and(|l| l.contains("on=true")));
+    run.proc.signal(libc::SIGTERM);
+    assert_eq!(run.proc.wait_exit(Duration::from_secs(10)).code(), Some(0));
+}
