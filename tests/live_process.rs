@@ -489,7 +489,7 @@ async fn rig_unplug_and_controller_drop_both_recover() {
         .position(|l| l.contains("INFO move"))
         .unwrap();
     assert!(
-        first_release.map_or(true, |r| r > the_move),
+        first_release.is_none_or(|r| r > the_move),
         "inhibit released while the controller was away: {after:?}"
     );
     assert!(log[..since]
