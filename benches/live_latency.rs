@@ -137,6 +137,7 @@ async fn start(journal: bool) -> Live {
         inhibit: Box::new(RecordingLine::new()),
         journal: journal.then(|| Journal::new(dir.path().join("pos.state"))),
         relax_on_exit: false,
+        candidates: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     // Let the start-up WHERE be answered and the inhibit released.

@@ -702,6 +702,19 @@ impl Config {
         }
     }
 
+    /// The points file `[calibration] file` names, resolved against the
+    /// config's folder; `None` with inline points.
+    pub fn calibration_file(&self) -> Option<PathBuf> {
+        let file = self.calibration.file.as_ref()?;
+        Some(match &self.source {
+            Some(src) if file.is_relative() => src
+                .parent()
+                .map(|d| d.join(file))
+                .unwrap_or_else(|| file.clone()),
+            _ => file.clone(),
+        })
+    }
+
     /// The calibration points, inline or from the file named in the config.
     pub fn calibration_points(&self) -> Result<Vec<Point>, ConfigError> {
         let c = &self.calibration;
@@ -726,13 +739,7 @@ impl Config {
                 })
                 .collect()),
             (Some(file), true) => {
-                let path = match &self.source {
-                    Some(src) if file.is_relative() => src
-                        .parent()
-                        .map(|d| d.join(file))
-                        .unwrap_or_else(|| file.clone()),
-                    _ => file.clone(),
-                };
+                let path = self.calibration_file().unwrap_or_else(|| file.clone());
                 crate::calibrate::read_points_csv(&path).map_err(|source| {
                     ConfigError::Calibration {
                         path: self.path_for_errors(),

@@ -16,8 +16,10 @@
 //! | `offset`      | line number on that chip (`gpio`)                            |
 //! | `active_high` | `true` (default): inhibit on = line asserted / high          |
 //!
-//! Every line is driven to *off* as soon as it is opened: opening a serial
-//! port on Linux asserts RTS and DTR, and a GPIO line needs a defined level.
+//! Every line is driven to *on* (inhibited) as soon as it is opened: a line
+//! needs a defined level at once (opening a serial port on Linux asserts RTS
+//! and DTR), and until the service has decided, the rig is held off. The
+//! service releases it as soon as the position is trusted.
 
 use std::io;
 use std::path::PathBuf;
@@ -87,14 +89,15 @@ pub struct ModemLine<P: ModemControl> {
 }
 
 impl<P: ModemControl> ModemLine<P> {
-    /// Takes the port and drives the signal to *off* at once.
+    /// Takes the port and drives the signal to *on* (inhibited) at once:
+    /// until the service has decided, the rig is held off.
     pub fn new(port: P, signal: ModemSignal, active_high: bool) -> io::Result<ModemLine<P>> {
         let mut line = ModemLine {
             port,
             signal,
             active_high,
         };
-        line.set(false)?;
+        line.set(true)?;
         Ok(line)
     }
 }
@@ -135,7 +138,8 @@ pub struct GpioLine {
 
 #[cfg(target_os = "linux")]
 impl GpioLine {
-    /// Requests `offset` on `chip` as an output, starting inactive (off).
+    /// Requests `offset` on `chip` as an output, starting active (inhibited):
+    /// until the service has decided, the rig is held off.
     /// With `active_high = false` the kernel inverts the level (active low).
     pub fn open(chip: &str, offset: u32, active_high: bool) -> io::Result<GpioLine> {
         let path = chip_path(chip);
@@ -143,7 +147,7 @@ impl GpioLine {
         b.on_chip(&path)
             .with_consumer("tuneward-inhibit")
             .with_line(offset)
-            .as_output(gpiocdev::line::Value::Inactive);
+            .as_output(gpiocdev::line::Value::Active);
         if active_high {
             b.as_active_high();
         } else {
@@ -215,7 +219,7 @@ impl InhibitLine for RecordingLine {
     }
 }
 
-/// Opens the line `[inhibit]` describes, driven off.
+/// Opens the line `[inhibit]` describes, driven on (inhibited).
 pub fn open(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, String> {
     let need_port = |signal: &str| {
         cfg.port.clone().ok_or_else(|| {
@@ -282,7 +286,7 @@ mod tests {
     }
 
     #[test]
-    fn modem_line_starts_off_and_maps_polarity() {
+    fn modem_line_starts_inhibited_and_maps_polarity() {
         let lines = Arc::new(Mutex::new(Lines::default()));
         let mut rts = ModemLine::new(lines.clone(), ModemSignal::Rts, true).unwrap();
         rts.set(true).unwrap();
@@ -290,9 +294,9 @@ mod tests {
         let mut dtr = ModemLine::new(lines.clone(), ModemSignal::Dtr, false).unwrap();
         dtr.set(true).unwrap();
         let l = lines.lock().unwrap();
-        assert_eq!(l.rts, vec![false, true, false]);
-        // Active low: off = asserted level high, on = low.
-        assert_eq!(l.dtr, vec![true, false]);
+        assert_eq!(l.rts, vec![true, true, false]);
+        // Active low: on = low, whether at open or set.
+        assert_eq!(l.dtr, vec![false, false]);
     }
 
     #[tokio::test]

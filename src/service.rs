@@ -73,6 +73,9 @@ pub struct Service {
     /// `tuner.relax_on_exit`: at a clean shutdown after a completed
     /// approach, back off half the backlash toward the approach side.
     pub relax_on_exit: bool,
+    /// Where touch-up candidates go (beside `[calibration] file`); `None`
+    /// with inline points: candidates are only logged.
+    pub candidates: Option<std::path::PathBuf>,
 }
 
 /// How a run ended.
@@ -195,6 +198,9 @@ impl Service {
             inhibit,
             journal: Some(Journal::for_config(config)),
             relax_on_exit: config.tuner.relax_on_exit,
+            candidates: config
+                .calibration_file()
+                .map(|points| crate::calibrate::candidates_path(&points)),
         })
     }
 }
@@ -379,7 +385,8 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         core: service.follower,
         decoder: service.decoder,
         inhibit: service.inhibit,
-        inhibit_on: false,
+        // Lines are opened asserted (fail-safe); synced to the core below.
+        inhibit_on: true,
         journal: service.journal,
         recorded,
         commands: client.commands,
@@ -393,12 +400,23 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         events: Vec::with_capacity(16),
         timing,
         relax_on_exit: service.relax_on_exit,
+        candidates: service.candidates,
         leg: None,
         final_to: None,
         tensioned: false,
         stopping: false,
     };
     driver.apply_actions().await;
+    if !driver.core.inhibit() {
+        // The journal gave a trusted position: nothing to hold the rig off for.
+        match driver.inhibit.set(false) {
+            Ok(()) => {
+                driver.inhibit_on = false;
+                tracing::info!(on = false, "transmit inhibit");
+            }
+            Err(e) => tracing::error!(error = %e, "transmit inhibit output failed"),
+        }
+    }
     let result = driver.run(rig_rx, client.events, shutdown).await;
     tasks_stop.send_replace(true);
     // Let the tasks close their ports (and the proxy its symlink).
@@ -529,6 +547,7 @@ struct Driver {
     events: Vec<RigEvent>,
     timing: StopTiming,
     relax_on_exit: bool,
+    candidates: Option<std::path::PathBuf>,
     /// The leg under way, for the shutdown's bound on the remaining travel.
     leg: Option<Leg>,
     /// The final target of the move under way.
@@ -1087,7 +1106,18 @@ impl Driver {
                         steps,
                         profile = profile.as_deref().unwrap_or("-"),
                         "calibration point candidate"
-                    )
+                    );
+                    if let Some(path) = &self.candidates {
+                        let point = crate::calibrate::Point::new(hz as f64, steps as f64)
+                            .with_profile(profile.as_deref());
+                        match crate::calibrate::append_candidate(path, &point) {
+                            Ok(()) => tracing::info!(
+                                file = %path.display(),
+                                "candidate stored; review it with `tuneward fit`"
+                            ),
+                            Err(e) => tracing::error!(error = %e, "could not store the candidate"),
+                        }
+                    }
                 }
             }
         }

@@ -116,6 +116,7 @@ async fn start_custom(
         inhibit: Box::new(inhibit.clone()),
         journal: Some(journal.clone()),
         relax_on_exit,
+        candidates: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     Running {
