@@ -669,7 +669,11 @@ impl Follower {
                 return;
             }
         }
-        if self.inhibit && self.position.is_some() && !self.fault {
+        // Stopped short of a move that still waits (the rig transmitted or
+        // fell silent): the loop is detuned, so with `inhibit_while_detuned`
+        // the inhibit stays on until the move is done.
+        let stopped_short = self.policy.inhibit_while_detuned && self.want.is_some();
+        if self.inhibit && self.position.is_some() && !self.fault && !stopped_short {
             self.release_at = Some(now + self.policy.inhibit_tail);
         }
     }

@@ -515,6 +515,23 @@ fn a_detuned_report_inhibits_at_once_until_the_loop_is_tuned() {
 }
 
 #[test]
+fn a_move_stopped_by_a_transmission_keeps_the_inhibit_while_detuned() {
+    let mut f = detune_core(Some(9_000));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+    f.handle_transmit(ms(400), true);
+    assert_eq!(drain(&mut f).first(), Some(&Action::Stop));
+    f.handle_arrived(ms(450), 9_200);
+    f.handle_timeout(ms(5_000));
+    let a = drain(&mut f);
+    assert!(!a.contains(&Action::Inhibit { on: false }), "{a:?}");
+    assert!(f.inhibit());
+    f.handle_transmit(ms(6_000), false);
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+}
+
+#[test]
 fn a_report_inside_the_dead_band_does_not_inhibit() {
     let mut f = detune_core(Some(9_500));
     f.handle_frequency(ms(0), 7_050_000);
