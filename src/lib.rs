@@ -20,6 +20,7 @@ pub mod replay;
 pub mod rig;
 pub mod scenario;
 pub mod service;
+pub mod signals;
 pub mod station;
 pub mod timeline;
 pub mod tuner;

@@ -79,7 +79,14 @@ pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
         )
         .to_lowercase();
         w.comment(&header).map_err(|e| format!("{out}: {e}"))?;
-        let result = record(rx, &mut w, args.duration, &out, interrupted()).await;
+        let result = record(
+            rx,
+            &mut w,
+            args.duration,
+            &out,
+            crate::signals::interrupted(),
+        )
+        .await;
         stop_tx.send_replace(true);
         let _ = tokio::time::timeout(Duration::from_secs(3), task).await;
         let flushed = w
@@ -99,22 +106,6 @@ pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
         );
         Ok(got)
     })
-}
-
-/// Resolves on Ctrl-C or SIGTERM.
-async fn interrupted() {
-    let term = async {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut s) => {
-                s.recv().await;
-            }
-            Err(_) => std::future::pending::<()>().await,
-        }
-    };
-    tokio::select! {
-        _ = tokio::signal::ctrl_c() => {}
-        _ = term => {}
-    }
 }
 
 /// Writes link events into `w` until `duration` has passed, `stop`

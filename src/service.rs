@@ -307,18 +307,7 @@ pub fn run_config(config: &std::path::Path) -> Result<Outcome, String> {
     rt.block_on(async move {
         let (stop_tx, stop_rx) = watch::channel(false);
         tokio::spawn(async move {
-            let term = async {
-                match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-                    Ok(mut s) => {
-                        s.recv().await;
-                    }
-                    Err(_) => std::future::pending::<()>().await,
-                }
-            };
-            tokio::select! {
-                _ = tokio::signal::ctrl_c() => {}
-                _ = term => {}
-            }
+            crate::signals::interrupted().await;
             tracing::info!("shutting down");
             stop_tx.send_replace(true);
         });

@@ -387,7 +387,7 @@ pub struct SimTunerArgs {
     pub start: i64,
 }
 
-/// Runs the simulator until interrupted (Ctrl-C).
+/// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
 pub fn run_sim_tuner(args: &SimTunerArgs) -> Result<(), String> {
     let params = SimParams {
         steps_per_second: args.steps_per_second,
@@ -413,9 +413,8 @@ pub fn run_sim_tuner(args: &SimTunerArgs) -> Result<(), String> {
     rt.block_on(async move {
         let (stop_tx, stop_rx) = watch::channel(false);
         tokio::spawn(async move {
-            if tokio::signal::ctrl_c().await.is_ok() {
-                stop_tx.send_replace(true);
-            }
+            crate::signals::interrupted().await;
+            stop_tx.send_replace(true);
         });
         if let Some(addr) = args.listen {
             let listener = TcpListener::bind(addr)
