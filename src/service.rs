@@ -459,6 +459,9 @@ struct Leg {
 /// The last stretch before a core deadline that is slept on a blocking
 /// thread rather than on tokio's timer.
 const PRECISE_SLEEP: Duration = Duration::from_millis(3);
+/// The very last stretch before a core deadline, waited out by spinning on
+/// the driver's own task (so the cross-thread wake-up falls inside it).
+const SPIN: Duration = Duration::from_micros(400);
 
 /// Sleeps until `deadline` (forever if `None`) to well under a millisecond.
 ///
@@ -480,12 +483,22 @@ async fn sleep_until_precise(deadline: Option<Instant>) {
     if rest.is_zero() {
         return;
     }
-    if tokio::task::spawn_blocking(move || std::thread::sleep(rest))
-        .await
-        .is_err()
+    // The thread sleep ends SPIN early: waking this task from another thread
+    // takes a fraction of a millisecond, and the rest is waited out here.
+    let wake_at = deadline.checked_sub(SPIN).unwrap_or(deadline);
+    let sleep = wake_at.saturating_duration_since(Instant::now());
+    if !sleep.is_zero()
+        && tokio::task::spawn_blocking(move || std::thread::sleep(sleep))
+            .await
+            .is_err()
     {
         // The blocking pool is gone (runtime shutting down): fall back.
         tokio::time::sleep_until(deadline).await;
+        return;
+    }
+    // At most SPIN of busy waiting, once per core deadline.
+    while Instant::now() < deadline {
+        std::hint::spin_loop();
     }
 }
 
