@@ -16,11 +16,16 @@ pub enum BcdError {
 #[inline]
 pub fn decode_le(bytes: &[u8]) -> Result<u64, BcdError> {
     if bytes.len() <= 8 {
-        // Up to 16 digits, all at once: every byte is a lane of a u64.
-        let word = bytes
-            .iter()
-            .rev()
-            .fold(0u64, |w, &b| (w << 8) | u64::from(b));
+        // Up to 16 digits, all at once: every byte is a lane of a u64. The
+        // usual widths are loaded whole (no loop over the bytes).
+        let word = match *bytes {
+            [a, b, c, d, e] => u64::from_le_bytes([a, b, c, d, e, 0, 0, 0]),
+            [a, b, c, d] => u64::from(u32::from_le_bytes([a, b, c, d])),
+            _ => bytes
+                .iter()
+                .rev()
+                .fold(0u64, |w, &b| (w << 8) | u64::from(b)),
+        };
         if let Some(value) = swar_le(word) {
             return Ok(value);
         }

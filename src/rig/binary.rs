@@ -290,6 +290,7 @@ fn scan(spec: &BinarySpec, frame: &[u8]) -> Scan {
 
 /// `<to> <from> <command>`, then the data. The parser's error type is `()`:
 /// a short header is all there is to say, and nothing is built per frame.
+#[inline(always)]
 fn header(body: &[u8]) -> Option<(&[u8], [u8; 3])> {
     let parsed: IResult<&[u8], (u8, u8, u8), ()> = (byte, byte, byte).parse(body);
     parsed

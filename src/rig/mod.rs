@@ -220,7 +220,7 @@ pub(crate) fn plausible(hz: u64) -> Result<RigEvent, RejectReason> {
 impl Outcome {
     /// Emits the outcome of a complete frame of `len` bytes, after the reject
     /// run before it.
-    #[inline]
+    #[inline(always)]
     pub(crate) fn emit(
         self,
         len: usize,
