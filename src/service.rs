@@ -304,15 +304,7 @@ pub fn run_config(config: &std::path::Path) -> Result<Outcome, String> {
         .enable_all()
         .build()
         .map_err(|e| format!("cannot start the runtime: {e}"))?;
-    rt.block_on(async move {
-        let (stop_tx, stop_rx) = watch::channel(false);
-        tokio::spawn(async move {
-            crate::signals::interrupted().await;
-            tracing::info!("shutting down");
-            stop_tx.send_replace(true);
-        });
-        run(service, stop_rx).await
-    })
+    rt.block_on(async move { run(service, crate::signals::stop_flag()).await })
 }
 
 /// How long a failed resource waits before the driver asks `WHERE` again.

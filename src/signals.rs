@@ -18,3 +18,15 @@ pub async fn interrupted() {
         _ = term => {}
     }
 }
+
+/// A flag that turns true on Ctrl-C or SIGTERM, for tasks that watch one.
+/// Spawns its waiting task on the current tokio runtime.
+pub fn stop_flag() -> tokio::sync::watch::Receiver<bool> {
+    let (tx, rx) = tokio::sync::watch::channel(false);
+    tokio::spawn(async move {
+        interrupted().await;
+        tracing::info!("shutting down");
+        tx.send_replace(true);
+    });
+    rx
+}

@@ -411,11 +411,7 @@ pub fn run_sim_tuner(args: &SimTunerArgs) -> Result<(), String> {
         .build()
         .map_err(|e| format!("cannot start the runtime: {e}"))?;
     rt.block_on(async move {
-        let (stop_tx, stop_rx) = watch::channel(false);
-        tokio::spawn(async move {
-            crate::signals::interrupted().await;
-            stop_tx.send_replace(true);
-        });
+        let stop_rx = crate::signals::stop_flag();
         if let Some(addr) = args.listen {
             let listener = TcpListener::bind(addr)
                 .await
