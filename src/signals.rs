@@ -21,12 +21,42 @@ pub async fn interrupted() {
 
 /// A flag that turns true on Ctrl-C or SIGTERM, for tasks that watch one.
 /// Spawns its waiting task on the current tokio runtime.
+///
+/// A second Ctrl-C or SIGTERM during the shutdown ends the process at once
+/// with status 130, as an operator who presses Ctrl-C twice expects. Nothing
+/// is finished then: like a crash, a move under way leaves its intent in the
+/// journal, so the next start does not trust the position; ports close, and
+/// fail-safe inhibit wiring holds the rig off.
 pub fn stop_flag() -> tokio::sync::watch::Receiver<bool> {
+    use tokio::signal::unix::{signal, SignalKind};
     let (tx, rx) = tokio::sync::watch::channel(false);
     tokio::spawn(async move {
-        interrupted().await;
-        tracing::info!("shutting down");
-        tx.send_replace(true);
+        // Both streams exist before the first signal, so the second one
+        // cannot slip through between the two waits.
+        let (Ok(mut int), Ok(mut term)) = (
+            signal(SignalKind::interrupt()),
+            signal(SignalKind::terminate()),
+        ) else {
+            interrupted().await;
+            tracing::info!("shutting down");
+            tx.send_replace(true);
+            return;
+        };
+        for round in 0..2 {
+            tokio::select! {
+                _ = int.recv() => {}
+                _ = term.recv() => {}
+            }
+            if round == 0 {
+                tracing::info!("shutting down (interrupt again to stop at once)");
+                tx.send_replace(true);
+            }
+        }
+        tracing::warn!(
+            "second interrupt: stopping at once, without finishing the shutdown; \
+             a move under way leaves the position unknown for the next start"
+        );
+        std::process::exit(130);
     });
     rx
 }

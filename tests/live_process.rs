@@ -257,6 +257,38 @@ async fn sigterm_mid_move_finishes_it_and_exits_cleanly() {
     assert!(last.contains("on=false"), "{last}");
 }
 
+/// A second interrupt during the shutdown stops at once (status 130),
+/// leaving the unfinished move in the journal, as a crash would.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_second_interrupt_stops_at_once() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig(dir.path());
+    let (_sim, addr) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr, "");
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    wait_journal(&journal, Recorded::Known(0));
+
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    // 1500 steps at 1000 steps/s: the move takes 1.5 s.
+    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
+    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
+    run.proc.signal(libc::SIGTERM);
+    run.wait_log(&["shutting down"]);
+    run.proc.signal(libc::SIGINT);
+    let status = run.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(130), "{}", run.log().join("\n"));
+    // Stopped before the move could finish: its intent is still on disk.
+    assert_eq!(
+        journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1500 })
+    );
+    assert!(run
+        .log()
+        .iter()
+        .any(|l| l.contains("second interrupt: stopping at once")));
+}
+
 /// `kill -9` in the middle of a move, and a controller that lost its count
 /// too: at restart the position is unknown, nothing moves and the inhibit
 /// stays asserted, until the controller reports the move's target.
