@@ -13,7 +13,9 @@ use nom::{IResult, Parser};
 
 use super::dialect::BinarySpec;
 use super::Decode;
-use super::{bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent};
+use super::{
+    bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent, Stream,
+};
 
 /// Decoder for the binary framed family.
 #[derive(Debug)]
@@ -23,26 +25,6 @@ pub struct BinaryDecoder {
     rx: Stream,
     tx: Stream,
     stats: DecodeStats,
-}
-
-#[derive(Debug)]
-struct Stream {
-    /// Bytes not yet decided on: at most a partial frame or a trailing
-    /// preamble. Capacity `max_frame + 1`, allocated once.
-    buf: Vec<u8>,
-    /// Inside an overlong frame: reject until the next preamble.
-    skipping: bool,
-    run: RejectRun,
-}
-
-impl Stream {
-    fn new(cap: usize) -> Stream {
-        Stream {
-            buf: Vec::with_capacity(cap),
-            skipping: false,
-            run: RejectRun::default(),
-        }
-    }
 }
 
 impl BinaryDecoder {
@@ -131,19 +113,8 @@ impl Decode for BinaryDecoder {
     }
 
     fn finish(&mut self, out: &mut Vec<RigEvent>) {
-        for stream in [&mut self.rx, &mut self.tx] {
-            let reason = if stream.skipping {
-                RejectReason::Overlong
-            } else {
-                RejectReason::Garbage
-            };
-            stream
-                .run
-                .add(reason, stream.buf.len(), out, &mut self.stats);
-            stream.run.flush(out, &mut self.stats);
-            stream.buf.clear();
-            stream.skipping = false;
-        }
+        self.rx.finish(out, &mut self.stats);
+        self.tx.finish(out, &mut self.stats);
     }
 
     fn buffered(&self) -> usize {

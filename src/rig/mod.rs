@@ -141,6 +141,45 @@ pub struct DecodeStats {
 /// endless noise still shows up while it lasts.
 pub const REJECT_REPORT_BYTES: usize = 64 * 1024;
 
+/// One direction of a decoder: the bytes not yet decided on, whether an
+/// overlong frame or message is being skipped, and the run of rejected bytes
+/// not yet reported. Both families keep one per direction.
+#[derive(Debug)]
+pub(crate) struct Stream {
+    /// At most a partial frame or message (and, in the binary family, a
+    /// trailing preamble byte). Capacity fixed at creation, allocated once.
+    pub(crate) buf: Vec<u8>,
+    /// Inside an overlong frame or message: reject up to where the next one
+    /// can start.
+    pub(crate) skipping: bool,
+    pub(crate) run: RejectRun,
+}
+
+impl Stream {
+    pub(crate) fn new(cap: usize) -> Stream {
+        Stream {
+            buf: Vec::with_capacity(cap),
+            skipping: false,
+            run: RejectRun::default(),
+        }
+    }
+
+    /// End of input: what is still held is rejected (as overlong while
+    /// skipping, else as garbage), the pending run reported, and the stream
+    /// starts afresh.
+    pub(crate) fn finish(&mut self, out: &mut Vec<RigEvent>, stats: &mut DecodeStats) {
+        let reason = if self.skipping {
+            RejectReason::Overlong
+        } else {
+            RejectReason::Garbage
+        };
+        self.run.add(reason, self.buf.len(), out, stats);
+        self.run.flush(out, stats);
+        self.buf.clear();
+        self.skipping = false;
+    }
+}
+
 /// A run of rejected bytes (garbage, an overlong frame) not yet reported:
 /// adjacent bytes rejected for the same reason are one run, one event.
 #[derive(Debug, Default)]

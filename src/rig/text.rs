@@ -17,9 +17,7 @@ use nom::bytes::complete::take_while_m_n;
 use nom::{IResult, Parser};
 
 use super::dialect::{TextSpec, Vfo};
-use super::{
-    plausible, Decode, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent,
-};
+use super::{plausible, Decode, DecodeStats, Direction, Outcome, RejectReason, RigEvent, Stream};
 
 /// Decoder for the text family.
 #[derive(Debug)]
@@ -30,28 +28,13 @@ pub struct TextDecoder {
     stats: DecodeStats,
 }
 
-#[derive(Debug)]
-struct Stream {
-    /// The message so far (printable bytes since the last terminator or
-    /// noise byte). Capacity `max_message`, allocated once.
-    buf: Vec<u8>,
-    /// Inside an overlong message: reject up to the next terminator.
-    skipping: bool,
-    run: RejectRun,
-}
-
 impl TextDecoder {
     pub fn new(spec: TextSpec) -> TextDecoder {
         let cap = spec.max_message;
-        let stream = || Stream {
-            buf: Vec::with_capacity(cap),
-            skipping: false,
-            run: RejectRun::default(),
-        };
         TextDecoder {
             spec,
-            rx: stream(),
-            tx: stream(),
+            rx: Stream::new(cap),
+            tx: Stream::new(cap),
             stats: DecodeStats::default(),
         }
     }
@@ -133,17 +116,8 @@ impl Decode for TextDecoder {
     }
 
     fn finish(&mut self, out: &mut Vec<RigEvent>) {
-        for s in [&mut self.rx, &mut self.tx] {
-            let reason = if s.skipping {
-                RejectReason::Overlong
-            } else {
-                RejectReason::Garbage
-            };
-            s.run.add(reason, s.buf.len(), out, &mut self.stats);
-            s.run.flush(out, &mut self.stats);
-            s.buf.clear();
-            s.skipping = false;
-        }
+        self.rx.finish(out, &mut self.stats);
+        self.tx.finish(out, &mut self.stats);
     }
 
     fn buffered(&self) -> usize {
