@@ -373,6 +373,7 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         commands: client.commands,
         transmit: transmit_tx,
         origin: Instant::now(),
+        floor: std::cell::Cell::new(Duration::ZERO),
         resync: Resync::Idle,
         block_gotos: false,
         retry_where: None,
@@ -448,49 +449,42 @@ struct Leg {
     sent: Instant,
 }
 
-/// The last stretch before a core deadline that is slept on a blocking
-/// thread rather than on tokio's timer.
-const PRECISE_SLEEP: Duration = Duration::from_millis(3);
-/// The very last stretch before a core deadline, waited out by spinning on
-/// the driver's own task (so the cross-thread wake-up falls inside it).
-const SPIN: Duration = Duration::from_micros(400);
+/// The last stretch before a core deadline that is waited out by yielding
+/// rather than on tokio's timer.
+const PRECISE: Duration = Duration::from_millis(3);
 
 /// Sleeps until `deadline` (forever if `None`) to well under a millisecond.
 ///
 /// tokio's timer works in whole milliseconds and fires on the first tick
 /// at or after the deadline, which puts 1 to 2 ms between a debounce
-/// deadline and the `GOTO` it releases. So the timer only takes us to a
-/// few milliseconds before the deadline, and the rest is a plain thread
-/// sleep (a high-resolution timer on Linux) on tokio's blocking pool. A
-/// sleep that loses its `select!` race leaves that thread to finish a
-/// sleep of at most `PRECISE_SLEEP`; with no deadline nothing runs.
+/// deadline and the `GOTO` it releases; a thread sleep handed to another
+/// thread adds the cross-thread wake-up, which on a busy or virtual machine
+/// is now and then over a millisecond. So the timer only takes us to
+/// `PRECISE` before the deadline, and the rest is waited out by yielding
+/// to the runtime: every other task (and every other branch of the
+/// driver's `select!`, so a report arriving now is still taken in order)
+/// runs in between, and the deadline is met to a few microseconds. That
+/// costs at most `PRECISE` of one core per core deadline that is reached,
+/// a few times a minute while the operator tunes; with no deadline nothing
+/// runs.
 async fn sleep_until_precise(deadline: Option<Instant>) {
     let Some(deadline) = deadline else {
         return std::future::pending().await;
     };
-    if let Some(early) = deadline.checked_sub(PRECISE_SLEEP) {
+    if let Some(early) = deadline.checked_sub(PRECISE) {
         tokio::time::sleep_until(early).await;
     }
-    let rest = deadline.saturating_duration_since(Instant::now());
-    if rest.is_zero() {
-        return;
-    }
-    // The thread sleep ends SPIN early: waking this task from another thread
-    // takes a fraction of a millisecond, and the rest is waited out here.
-    let wake_at = deadline.checked_sub(SPIN).unwrap_or(deadline);
-    let sleep = wake_at.saturating_duration_since(Instant::now());
-    if !sleep.is_zero()
-        && tokio::task::spawn_blocking(move || std::thread::sleep(sleep))
-            .await
-            .is_err()
-    {
-        // The blocking pool is gone (runtime shutting down): fall back.
-        tokio::time::sleep_until(deadline).await;
-        return;
-    }
-    // At most SPIN of busy waiting, once per core deadline.
-    while Instant::now() < deadline {
-        std::hint::spin_loop();
+    let mut last = Instant::now();
+    while last < deadline {
+        tokio::task::yield_now().await;
+        let now = Instant::now();
+        if now == last {
+            // A clock that does not move between polls is tokio's paused
+            // test clock, which only the timer advances.
+            tokio::time::sleep_until(deadline).await;
+            return;
+        }
+        last = now;
     }
 }
 
@@ -531,6 +525,9 @@ struct Driver {
     commands: mpsc::Sender<TunerCommand>,
     transmit: watch::Sender<bool>,
     origin: Instant,
+    /// The latest time handed out by [`Driver::now`] or
+    /// [`Driver::arrival_time`]: the core's clock never runs backwards.
+    floor: std::cell::Cell<Duration>,
     resync: Resync,
     /// Set after a failed journal or inhibit write: the `GOTO`s of that move
     /// are not sent.
@@ -555,7 +552,23 @@ struct Driver {
 
 impl Driver {
     fn now(&self) -> Duration {
-        self.origin.elapsed()
+        let t = self.origin.elapsed().max(self.floor.get());
+        self.floor.set(t);
+        t
+    }
+
+    /// The core's time for bytes that the rig link read at `at`: then, not
+    /// when this task got to them, so that a debounce runs from the
+    /// report's arrival at the port and the hand-over between tasks does
+    /// not delay the move it releases. Never earlier than a time the core
+    /// has already seen (bytes read while this task was busy count from
+    /// when it was done).
+    fn arrival_time(&self, at: Instant) -> Duration {
+        let t = at
+            .saturating_duration_since(self.origin)
+            .max(self.floor.get());
+        self.floor.set(t);
+        t
     }
 
     async fn run(
@@ -839,9 +852,9 @@ impl Driver {
     }
 
     fn rig_event(&mut self, ev: LinkEvent) {
-        let now = self.now();
         match ev {
-            LinkEvent::Bytes { dir, bytes, .. } => {
+            LinkEvent::Bytes { dir, bytes, at } => {
+                let now = self.arrival_time(at);
                 let mut out = std::mem::take(&mut self.events);
                 out.clear();
                 self.decoder.feed(dir, &bytes, &mut out);
@@ -858,8 +871,12 @@ impl Driver {
                 }
                 self.events = out;
             }
-            LinkEvent::Down { .. } => self.rig_deaf(now),
+            LinkEvent::Down { .. } => {
+                let now = self.now();
+                self.rig_deaf(now)
+            }
             LinkEvent::Up { .. } => {
+                let now = self.now();
                 let mut out = Vec::new();
                 self.decoder.finish(&mut out);
                 // A transmission that ended while the port was down went

@@ -667,3 +667,63 @@ async fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
     assert_eq!(out.position, Some(1000));
     assert_eq!(out.faults, 0);
 }
+
+/// A debounce runs from when the rig link read the report, not from when
+/// the driver got to it: a report read long enough ago is acted on at once
+/// (the hand-over between tasks never delays the move it releases).
+#[tokio::test]
+async fn the_debounce_runs_from_when_the_report_was_read() {
+    let debounce = Duration::from_secs(2);
+    let mut p = policy();
+    p.debounce = debounce;
+    p.bands[0].debounce = debounce;
+    let r = start_custom(controller(0), None, false, p, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    // Let the start-up settle, so that the report's time is later than
+    // anything the driver has handled.
+    tokio::time::sleep(Duration::from_millis(2500)).await;
+    let read = Instant::now() - Duration::from_millis(2200);
+    r.rig
+        .send(LinkEvent::Bytes {
+            dir: Direction::Rx,
+            bytes: r.dialect.encode_frequency(7_100_000, 0).into(),
+            at: read,
+        })
+        .await
+        .unwrap();
+    let handed = Instant::now();
+    r.wait_journal(Recorded::Known(1000)).await;
+    // Counted from the hand-over, the move could not start for 2 s; from
+    // the read, it is due already. A second of slack for a loaded machine.
+    let took = handed.elapsed();
+    assert!(
+        took < Duration::from_secs(1),
+        "moved {took:?} after the hand-over"
+    );
+    let (out, _, _) = r.finish().await;
+    assert_eq!(out.moves, 1);
+}
+
+/// A report stamped earlier than the driver's own last step (read while the
+/// driver was busy) counts from that step: the core's clock never goes
+/// back, and the move follows the full debounce from there.
+#[tokio::test]
+async fn a_report_stamped_before_the_driver_started_still_waits_its_debounce() {
+    let r = start(0, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    let long_ago = Instant::now()
+        .checked_sub(Duration::from_secs(3600))
+        .unwrap_or_else(Instant::now);
+    r.rig
+        .send(LinkEvent::Bytes {
+            dir: Direction::Rx,
+            bytes: r.dialect.encode_frequency(7_100_000, 0).into(),
+            at: long_ago,
+        })
+        .await
+        .unwrap();
+    r.wait_journal(Recorded::Known(1000)).await;
+    let (out, levels, _) = r.finish().await;
+    assert_eq!(out.moves, 1);
+    assert_eq!(levels, vec![true, false, true, false]);
+}
