@@ -8,10 +8,11 @@
 //! preamble; a preamble inside a frame abandons the frame so far (garbage)
 //! and starts again there.
 
-use nom::bytes::complete::take;
+use nom::bytes::take;
 use nom::{IResult, Parser};
 
 use super::dialect::BinarySpec;
+use super::swar::find_either;
 use super::Decode;
 use super::{
     bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent, Stream,
@@ -151,40 +152,6 @@ fn find_pair(input: &[u8], pair: &[u8; 2]) -> Option<usize> {
     input.windows(2).position(|w| w == pair)
 }
 
-/// Offset of the first byte equal to `a` or `b`, eight bytes at a time
-/// (SIMD within a register; frames are a dozen bytes, too short for a
-/// library search to pay off).
-///
-/// For each word, `x = w ^ broadcast(a)` has a zero byte exactly where `w`
-/// holds `a`; `(x - 0x01…) & !x & 0x80…` sets the top bit of every such
-/// byte, and of no byte below the first one (a borrow only runs upward),
-/// so the lowest set bit of the two masks together is the first match.
-#[inline(always)]
-fn find_either(hay: &[u8], a: u8, b: u8) -> Option<usize> {
-    const ONES: u64 = 0x0101_0101_0101_0101;
-    const TOPS: u64 = 0x8080_8080_8080_8080;
-    let (wa, wb) = (ONES * u64::from(a), ONES * u64::from(b));
-    let mut at = 0;
-    let mut words = hay.chunks_exact(8);
-    for chunk in words.by_ref() {
-        let Ok(bytes) = <[u8; 8]>::try_from(chunk) else {
-            break;
-        };
-        let w = u64::from_le_bytes(bytes);
-        let (xa, xb) = (w ^ wa, w ^ wb);
-        let hits = (xa.wrapping_sub(ONES) & !xa | xb.wrapping_sub(ONES) & !xb) & TOPS;
-        if hits != 0 {
-            return Some(at + (hits.trailing_zeros() / 8) as usize);
-        }
-        at += 8;
-    }
-    words
-        .remainder()
-        .iter()
-        .position(|&c| c == a || c == b)
-        .map(|p| at + p)
-}
-
 /// Decides what it can about `buf`, emits, and returns how many bytes are
 /// done with. What remains is a partial frame or a trailing preamble byte.
 fn process(
@@ -296,7 +263,7 @@ fn scan(spec: &BinarySpec, frame: &[u8]) -> Scan {
 fn header(body: &[u8]) -> Option<(&[u8], [u8; 3])> {
     // One `take` rather than three single-byte parsers: one split of the
     // slice per frame instead of three.
-    let parsed: IResult<&[u8], &[u8], ()> = take(3usize).parse(body);
+    let parsed: IResult<&[u8], &[u8], ()> = take(3usize).parse_complete(body);
     match parsed {
         Ok((data, &[to, from, cmd])) => Some((data, [to, from, cmd])),
         _ => None,
@@ -357,23 +324,6 @@ fn interpret(ctx: &Ctx, body: &[u8]) -> Outcome {
 mod tests {
     use super::*;
     use crate::rig::Dialect;
-
-    #[test]
-    fn find_either_agrees_with_a_plain_search() {
-        let mut rng = fastrand::Rng::with_seed(5);
-        for _ in 0..20_000 {
-            let len = rng.usize(0..40);
-            // A small alphabet so that matches, repeats and near-misses
-            // (bytes one above or below, borrows across 0x00 and 0x80) are
-            // common.
-            const ALPHABET: [u8; 9] = [0x00, 0x01, 0x7F, 0x80, 0x81, 0xFC, 0xFD, 0xFE, 0xFF];
-            let pick = |rng: &mut fastrand::Rng| ALPHABET[rng.usize(0..ALPHABET.len())];
-            let hay: Vec<u8> = (0..len).map(|_| pick(&mut rng)).collect();
-            let (a, b) = (pick(&mut rng), pick(&mut rng));
-            let plain = hay.iter().position(|&c| c == a || c == b);
-            assert_eq!(find_either(&hay, a, b), plain, "{hay:02X?} {a:02X} {b:02X}");
-        }
-    }
 
     fn decode_with(addr: Option<u8>, dir: Direction, bytes: &[u8]) -> Vec<RigEvent> {
         let mut d = Dialect::builtin("binary-bcd").unwrap().decoder(addr);
