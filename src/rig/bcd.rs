@@ -13,7 +13,7 @@ pub enum BcdError {
 /// Reads a little-endian packed BCD field (`bytes[0]` holds the two lowest
 /// digits). The value saturates rather than overflows on absurd widths; the
 /// dialect loader keeps widths at 9 bytes (18 digits) or fewer.
-#[inline]
+#[inline(always)]
 pub fn decode_le(bytes: &[u8]) -> Result<u64, BcdError> {
     if bytes.len() <= 8 {
         // Up to 16 digits, all at once: every byte is a lane of a u64. The
@@ -61,7 +61,7 @@ pub fn decode_le(bytes: &[u8]) -> Result<u64, BcdError> {
 /// reaches 16 only when the nibble is above 9; hi·10 + lo ≤ 99 in a byte;
 /// then pairs of lanes are merged base 100 (≤ 9 999 in 16 bits), base 10⁴
 /// (≤ 99 999 999 in 32 bits) and base 10⁸.
-#[inline]
+#[inline(always)]
 fn swar_le(x: u64) -> Option<u64> {
     const NIBBLES: u64 = 0x0F0F_0F0F_0F0F_0F0F;
     const SIX: u64 = 0x0606_0606_0606_0606;
