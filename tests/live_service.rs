@@ -132,11 +132,15 @@ async fn start_custom(
 
 impl Running {
     async fn rig_says(&self, bytes: Vec<u8>) {
+        self.rig_said_at(bytes, Instant::now()).await;
+    }
+    /// Bytes the rig link read at `at`.
+    async fn rig_said_at(&self, bytes: Vec<u8>, at: Instant) {
         self.rig
             .send(LinkEvent::Bytes {
                 dir: Direction::Rx,
                 bytes: bytes.into(),
-                at: Instant::now(),
+                at,
             })
             .await
             .unwrap();
@@ -683,14 +687,8 @@ async fn the_debounce_runs_from_when_the_report_was_read() {
     // anything the driver has handled.
     tokio::time::sleep(Duration::from_millis(2500)).await;
     let read = Instant::now() - Duration::from_millis(2200);
-    r.rig
-        .send(LinkEvent::Bytes {
-            dir: Direction::Rx,
-            bytes: r.dialect.encode_frequency(7_100_000, 0).into(),
-            at: read,
-        })
-        .await
-        .unwrap();
+    r.rig_said_at(r.dialect.encode_frequency(7_100_000, 0), read)
+        .await;
     let handed = Instant::now();
     r.wait_journal(Recorded::Known(1000)).await;
     // Counted from the hand-over, the move could not start for 2 s; from
@@ -706,7 +704,8 @@ async fn the_debounce_runs_from_when_the_report_was_read() {
 
 /// A report stamped earlier than the driver's own last step (read while the
 /// driver was busy) counts from that step: the core's clock never goes
-/// back, and the move follows the full debounce from there.
+/// back, so even a stamp from before the service started is followed as
+/// usual (one move, the inhibit around it).
 #[tokio::test]
 async fn a_report_stamped_before_the_driver_started_still_waits_its_debounce() {
     let r = start(0, None, false).await;
@@ -714,14 +713,8 @@ async fn a_report_stamped_before_the_driver_started_still_waits_its_debounce() {
     let long_ago = Instant::now()
         .checked_sub(Duration::from_secs(3600))
         .unwrap_or_else(Instant::now);
-    r.rig
-        .send(LinkEvent::Bytes {
-            dir: Direction::Rx,
-            bytes: r.dialect.encode_frequency(7_100_000, 0).into(),
-            at: long_ago,
-        })
-        .await
-        .unwrap();
+    r.rig_said_at(r.dialect.encode_frequency(7_100_000, 0), long_ago)
+        .await;
     r.wait_journal(Recorded::Known(1000)).await;
     let (out, levels, _) = r.finish().await;
     assert_eq!(out.moves, 1);
