@@ -164,6 +164,45 @@ proptest! {
         prop_assert_eq!(pieces, whole);
     }
 
+    /// The decoders take a frame that lies whole in a long read in one look
+    /// (a fast path) and one that arrives byte by byte through the general
+    /// path: both must decide alike, on streams thick with the bytes that
+    /// matter (frame starts and ends, collision bytes, frames cut short or
+    /// run together).
+    #[test]
+    fn the_fast_path_decides_as_the_general_one(
+        di in dialect_index(),
+        picks in prop::collection::vec((any::<u8>(), any::<u16>()), 0..300),
+    ) {
+        let d = dialect(di);
+        let frame = d.encode_frequency(14_074_000, RIG);
+        let tx = d.encode_transmit(true, RIG);
+        // Every byte that appears in a frame, and a few that do not.
+        let mut alphabet: Vec<u8> = frame.iter().chain(&tx).copied().collect();
+        alphabet.extend([0x00, 0xFF, 0xFC, 0x80, b';', b'0']);
+        let mut stream = Vec::new();
+        for (kind, x) in picks {
+            let x = usize::from(x);
+            match kind % 8 {
+                0 => stream.extend_from_slice(&d.encode_frequency(7_000_000 + x as u64 * 100, RIG)),
+                1 => stream.extend_from_slice(&tx),
+                // A frame cut short, or with one byte replaced.
+                2 => stream.extend_from_slice(&frame[..x % frame.len()]),
+                3 => {
+                    let mut f = frame.clone();
+                    let at = x % f.len();
+                    f[at] = alphabet[(x >> 8) % alphabet.len()];
+                    stream.extend_from_slice(&f);
+                }
+                _ => stream.push(alphabet[x % alphabet.len()]),
+            }
+        }
+        let whole = run(d.decoder(None).as_mut(), Direction::Rx, &[&stream]);
+        let bytes: Vec<&[u8]> = stream.chunks(1).collect();
+        let one_by_one = run(d.decoder(None).as_mut(), Direction::Rx, &bytes);
+        prop_assert_eq!(one_by_one, whole);
+    }
+
     #[test]
     fn valid_frames_survive_splits_and_noise(
         di in dialect_index(),

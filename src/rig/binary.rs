@@ -3,16 +3,20 @@
 //! Framing is check-then-parse over one bounded buffer per direction (or in
 //! place, when nothing is held): find where a frame starts (two preamble
 //! bytes followed by something else), check that it is complete, then parse
-//! the header with nom and interpret the command. Anything between frames is one run of garbage; a frame longer
-//! than the dialect allows is rejected as overlong and skipped up to the next
-//! preamble; a preamble inside a frame abandons the frame so far (garbage)
-//! and starts again there.
+//! the header with nom and interpret the command. Anything between frames
+//! is one run of garbage; a frame longer than the dialect allows is
+//! rejected as overlong and skipped up to the next preamble; a preamble
+//! inside a frame abandons the frame so far (garbage) and starts again
+//! there. The usual frame, whole within the next 16 bytes and with nothing
+//! odd inside, is recognised in one look at two words ([`plain_frame`]);
+//! everything else takes the general path, which decides such a frame the
+//! same way (a property test feeds streams whole and byte by byte).
 
 use nom::bytes::take;
 use nom::{IResult, Parser};
 
 use super::dialect::BinarySpec;
-use super::swar::find_either;
+use super::swar::{broadcast, equal_to_any, find_either};
 use super::Decode;
 use super::{
     bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent, Stream,
@@ -32,7 +36,7 @@ impl BinaryDecoder {
     /// `rig_address`: only reports from that address count; None: any address
     /// except our controller's.
     pub fn new(spec: BinarySpec, rig_address: Option<u8>) -> BinaryDecoder {
-        let cap = spec.max_frame + 1;
+        let cap = spec.max_frame + 1 + TOP_UP;
         BinaryDecoder {
             spec,
             rig_address,
@@ -42,6 +46,13 @@ impl BinaryDecoder {
         }
     }
 }
+
+/// How many bytes beyond the longest frame the buffer takes in at once when
+/// something is held, so that a read goes through one pass (rather than a
+/// frame's worth at a time, each pass shifting the rest down). The buffer
+/// is allocated once at this size; what stays held between calls is still
+/// at most a partial frame.
+const TOP_UP: usize = 4096;
 
 impl Decode for BinaryDecoder {
     fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>) {
@@ -78,7 +89,9 @@ impl Decode for BinaryDecoder {
                 // Cannot happen (see below); the buffered path copes.
                 rest = tail;
             }
-            let room = cap.saturating_sub(stream.buf.len());
+            // Room for the rest of a small read (or a good part of a large
+            // one) beside the held frame: one pass decides the lot.
+            let room = (cap + TOP_UP).saturating_sub(stream.buf.len());
             let (now, later) = rest.split_at(room.min(rest.len()));
             stream.buf.extend_from_slice(now);
             rest = later;
@@ -133,6 +146,36 @@ struct Ctx<'a> {
     dir: Direction,
 }
 
+/// The usual case, decided in one look: a frame starting at `rest[0]` and
+/// ending within its first 16 bytes, with no preamble or collision byte
+/// between the preamble and the terminator, and no longer than the longest
+/// frame. Its length, terminator included; `None` for anything else (the
+/// general path decides those, and would decide these the same way).
+#[inline(always)]
+fn plain_frame(spec: &BinarySpec, rest: &[u8]) -> Option<usize> {
+    let (pre, term, col) = (spec.preamble, spec.terminator, spec.collision);
+    let first: &[u8; 16] = rest.first_chunk()?;
+    if first[0] != pre || first[1] != pre || first[2] == pre {
+        return None;
+    }
+    let (head, tail) = first.split_at(8);
+    let w0 = u64::from_le_bytes(head.try_into().ok()?);
+    let w1 = u64::from_le_bytes(tail.try_into().ok()?);
+    let (wp, wt, wc) = (broadcast(pre), broadcast(term), broadcast(col));
+    // Bytes 2.. of the first word, then the second word.
+    let s0 = equal_to_any(w0, wp, wt, wc) & !0xFFFF;
+    let k = if s0 != 0 {
+        (s0.trailing_zeros() / 8) as usize
+    } else {
+        let s1 = equal_to_any(w1, wp, wt, wc);
+        if s1 == 0 {
+            return None;
+        }
+        8 + (s1.trailing_zeros() / 8) as usize
+    };
+    (first.get(k) == Some(&term) && k < spec.max_frame).then_some(k + 1)
+}
+
 /// Where the frame at the start of a buffer ends, as far as can be told.
 enum Scan {
     /// Not all there yet.
@@ -169,6 +212,13 @@ fn process(
         let rest = buf.get(pos..).unwrap_or_default();
         if rest.is_empty() {
             return pos;
+        }
+        if let Some(len) = plain_frame(ctx.spec, rest) {
+            *skipping = false;
+            let body = rest.get(2..len - 1).unwrap_or_default();
+            interpret_clean(ctx, body).emit(len, run, out, stats);
+            pos += len;
+            continue;
         }
         let reason = if *skipping {
             RejectReason::Overlong
@@ -277,6 +327,13 @@ fn interpret(ctx: &Ctx, body: &[u8]) -> Outcome {
     if collision {
         return Outcome::Reject(RejectReason::Collision);
     }
+    interpret_clean(ctx, body)
+}
+
+/// [`interpret`] for a frame known to hold no collision byte.
+#[inline(always)]
+fn interpret_clean(ctx: &Ctx, body: &[u8]) -> Outcome {
+    let s = ctx.spec;
     let Some((data, [_to, from, cmd])) = header(body) else {
         return Outcome::Reject(RejectReason::BadLength);
     };

@@ -20,6 +20,29 @@ fn zero_bytes(x: u64) -> u64 {
     x.wrapping_sub(ONES) & !x & TOPS
 }
 
+/// The top bit of every byte of `x` that is zero, and of no other byte
+/// (no borrow crosses a byte: each byte's low seven bits plus 0x7F stay
+/// within it). A step more than [`zero_bytes`], for when every flagged
+/// byte counts, not only the first.
+#[inline(always)]
+fn zero_bytes_exact(x: u64) -> u64 {
+    const LOWS: u64 = 0x7F7F_7F7F_7F7F_7F7F;
+    !(((x & LOWS) + LOWS) | x | LOWS)
+}
+
+/// The bytes of `w` equal to `a`, `b` or `c` (given as broadcast words,
+/// `0x0101… * byte`), as the top bit of each such byte, exactly.
+#[inline(always)]
+pub(crate) fn equal_to_any(w: u64, a: u64, b: u64, c: u64) -> u64 {
+    zero_bytes_exact(w ^ a) | zero_bytes_exact(w ^ b) | zero_bytes_exact(w ^ c)
+}
+
+/// `byte` in every lane of a word.
+#[inline(always)]
+pub(crate) const fn broadcast(byte: u8) -> u64 {
+    ONES * byte as u64
+}
+
 #[inline(always)]
 fn word(chunk: &[u8]) -> u64 {
     let mut b = [0u8; 8];
@@ -177,6 +200,30 @@ mod tests {
             );
             let plain = hay.iter().position(|&c| c == a || c == b);
             assert_eq!(find_either(&hay, a, b), plain, "{hay:02X?} {a:02X} {b:02X}");
+        }
+    }
+
+    #[test]
+    fn equal_to_any_flags_exactly_the_equal_bytes() {
+        let mut rng = fastrand::Rng::with_seed(9);
+        for _ in 0..50_000 {
+            let bytes: [u8; 8] = std::array::from_fn(|_| ALPHABET[rng.usize(0..ALPHABET.len())]);
+            let (a, b, c) = (
+                rng.u8(..),
+                ALPHABET[rng.usize(0..16)],
+                ALPHABET[rng.usize(0..16)],
+            );
+            let got = equal_to_any(
+                u64::from_le_bytes(bytes),
+                broadcast(a),
+                broadcast(b),
+                broadcast(c),
+            );
+            for (i, &x) in bytes.iter().enumerate() {
+                let flagged = got >> (8 * i + 7) & 1 == 1;
+                assert_eq!(flagged, x == a || x == b || x == c, "{bytes:02X?} {i}");
+            }
+            assert_eq!(got & !TOPS, 0);
         }
     }
 
