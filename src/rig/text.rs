@@ -13,8 +13,8 @@
 //! Complete messages are parsed with nom: the two-letter command, then the
 //! payload according to the command.
 
-use nom::bytes::take;
-use nom::{IResult, Parser};
+use nom::number::complete::be_u16;
+use nom::IResult;
 
 use super::dialect::{TextSpec, Vfo};
 use super::swar::{ascii_digits, find_stop_or_unprintable};
@@ -128,19 +128,19 @@ impl Decode for TextDecoder {
 
 /// The two-letter command, and the payload after it. The parser's error
 /// type is `()`: nothing is built per message.
+#[inline(always)]
 fn command(msg: &[u8]) -> Option<(&[u8], [u8; 2])> {
-    // One `take` and a check of both letters: cheaper per message than
-    // `take_while_m_n`, which tests its bounds byte by byte.
-    let parsed: IResult<&[u8], &[u8], ()> = take(2usize).parse_complete(msg);
-    match parsed {
-        Ok((payload, &[a, b])) if a.is_ascii_uppercase() && b.is_ascii_uppercase() => {
-            Some((payload, [a, b]))
-        }
-        _ => None,
-    }
+    // The two letters read as one big-endian `u16` and then checked: nom's
+    // number parsers inline to a load, where `take` and `take_while_m_n`
+    // each cost a call per message.
+    let parsed: IResult<&[u8], u16, ()> = be_u16(msg);
+    let (payload, code) = parsed.ok()?;
+    let [a, b] = code.to_be_bytes();
+    (a.is_ascii_uppercase() && b.is_ascii_uppercase()).then_some((payload, [a, b]))
 }
 
 /// Exactly `n` decimal digits, as a number.
+#[inline(always)]
 fn digits(field: &[u8], n: usize) -> Result<u64, RejectReason> {
     if field.len() != n {
         return Err(RejectReason::BadLength);
@@ -171,6 +171,7 @@ fn digits(field: &[u8], n: usize) -> Result<u64, RejectReason> {
     Ok(value)
 }
 
+#[inline(always)]
 fn frequency(field: &[u8], n: usize) -> Result<RigEvent, RejectReason> {
     plausible(digits(field, n)?)
 }
