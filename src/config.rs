@@ -754,7 +754,15 @@ impl Config {
     /// profile; [`crate::calibrate::CalibrationSet`] handles profiles).
     pub fn calibration(&self) -> Result<crate::calibrate::Calibration, ConfigError> {
         let mut points = self.calibration_points()?;
+        let all = points.len();
         points.retain(|p| p.profile.is_none());
+        if points.is_empty() && all > 0 {
+            return Err(self.invalid(
+                "calibration",
+                "points without a profile (the base calibration, which profiles are offsets from)",
+                format!("{all} points, every one of them in a profile"),
+            ));
+        }
         let options = crate::calibrate::FitOptions {
             kind: self.calibration.model,
             degree: self

@@ -43,7 +43,7 @@ pub struct Station {
     pub config: Config,
     pub policy: Policy,
     /// The base calibration (points without a profile).
-    pub calibration: Calibration,
+    pub calibration: Arc<Calibration>,
     /// The base and every profile.
     pub profiles: CalibrationSet,
     /// The map in use at start: `[calibration] profile`, or the base.
@@ -62,7 +62,6 @@ impl Station {
         let policy = Policy::from_config(&config, |centre| {
             crate::antenna::auto_hysteresis_hz(&config.antenna, centre)
         })?;
-        let calibration = config.calibration()?;
         let config_path = config
             .source
             .clone()
@@ -78,8 +77,18 @@ impl Station {
                 .degree
                 .unwrap_or(crate::calibrate::DEFAULT_POLY_DEGREE),
         };
-        let profiles = CalibrationSet::fit_with(options, &config.calibration_points()?)
-            .map_err(calibration_error)?;
+        let points = config.calibration_points()?;
+        if !points.iter().any(|p| p.profile.is_none()) {
+            // No base points: that is the error to report, before anything a
+            // profile's points might say.
+            config.calibration()?;
+        }
+        let profiles = CalibrationSet::fit_with(options, &points).map_err(calibration_error)?;
+        // The base is fitted once, inside the set.
+        let calibration = match profiles.base() {
+            Some(base) => Arc::clone(base),
+            None => Arc::new(config.calibration()?),
+        };
         let map = profiles
             .map(config.calibration.profile.as_deref())
             .map_err(calibration_error)?;

@@ -48,3 +48,51 @@ fn auto_hysteresis_and_band_checks_for_the_demo_station() {
     let h20 = auto_hysteresis_hz(&config.antenna, 14.175e6).unwrap();
     assert!(h20 > h40);
 }
+
+/// The station's base calibration is the one inside its profile set (fitted
+/// once), and it is the config's base fit.
+#[test]
+fn station_base_is_the_sets_base() {
+    let config = station();
+    let own = config.calibration().unwrap();
+    let st = tuneward::station::Station::from_config(config).unwrap();
+    let in_set = st.profiles.base().expect("base points");
+    assert!(std::sync::Arc::ptr_eq(&st.calibration, in_set));
+    for hz in [7.0e6, 7.15e6, 10.12e6, 14.2e6] {
+        assert_eq!(st.calibration.steps_at(hz), own.steps_at(hz), "{hz}");
+    }
+}
+
+/// With every point in a profile there is no base: that is what is
+/// reported, by key, whatever the profiles' own points say.
+#[test]
+fn a_station_without_base_points_says_so() {
+    let text = r#"
+[calibration]
+model = "interpolate"
+points = [
+  { hz = 7000000, steps = 4000, profile = "wet" },
+  { hz = 7300000, steps = 3600, profile = "wet" },
+  { hz = 7100000, steps = 3900, profile = "dry" },
+]
+
+[[band]]
+name = "40m"
+low_hz = 7000000
+high_hz = 7300000
+"#;
+    let path = PathBuf::from("/stations/all-profiled.toml");
+    let config = Config::parse(text, &path).unwrap();
+    let direct = config.calibration().unwrap_err().to_string();
+    let err = match tuneward::station::Station::from_config(config) {
+        Ok(_) => panic!("a station without base points was accepted"),
+        Err(e) => e.to_string(),
+    };
+    assert_eq!(err, direct);
+    assert!(
+        err.contains("key `calibration`")
+            && err.contains("points without a profile")
+            && err.contains("3 points, every one of them in a profile"),
+        "{err}"
+    );
+}
