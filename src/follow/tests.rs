@@ -285,67 +285,6 @@ fn backlash_overshoots_when_coming_from_the_wrong_side() {
 }
 
 #[test]
-fn no_move_starts_while_transmitting() {
-    let mut f = core(Some(9_000));
-    f.handle_transmit(ms(0), true);
-    let a = settle(&mut f, 10, 7_050_000);
-    assert_eq!(
-        a,
-        vec![Action::Hold {
-            hz: 7_050_000,
-            reason: HoldReason::Transmitting
-        }]
-    );
-    assert!(!f.inhibit(), "inhibit asserted against a transmission");
-    f.handle_timeout(ms(60_000));
-    assert!(drain(&mut f).is_empty());
-    f.handle_transmit(ms(61_000), false);
-    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
-    f.handle_timeout(ms(61_020));
-    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
-}
-
-#[test]
-fn transmit_during_the_inhibit_lead_stands_down() {
-    let mut f = core(Some(9_000));
-    f.handle_frequency(ms(0), 7_050_000);
-    f.handle_timeout(ms(300));
-    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
-    f.handle_transmit(ms(310), true);
-    f.handle_timeout(ms(320));
-    let a = drain(&mut f);
-    assert!(gotos(&a).is_empty());
-    assert!(a.contains(&Action::Inhibit { on: false }));
-    f.handle_transmit(ms(5_000), false);
-    f.handle_timeout(ms(5_020));
-    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
-}
-
-#[test]
-fn transmit_during_a_move_stops_it_and_resumes_on_receive() {
-    let mut f = core(Some(9_000));
-    settle(&mut f, 0, 7_150_000); // overshoot leg to 8 470 first
-    f.handle_transmit(ms(500), true);
-    let a = drain(&mut f);
-    assert_eq!(a.first(), Some(&Action::Stop));
-    f.handle_arrived(ms(510), 8_800);
-    f.handle_timeout(ms(700));
-    let a = drain(&mut f);
-    assert!(gotos(&a).is_empty(), "{a:?}");
-    assert_eq!(f.position(), Some(8_800));
-    f.handle_transmit(ms(3_000), false);
-    f.handle_timeout(ms(3_020));
-    let a = drain(&mut f);
-    assert!(a.contains(&Action::Move {
-        from: 8_800,
-        to: 8_500,
-        hz: 7_150_000,
-        tune_hz: 7_150_000,
-    }));
-    assert_eq!(gotos(&a), vec![8_470]);
-}
-
-#[test]
 fn unknown_position_keeps_inhibit_and_holds_until_reported() {
     let mut f = core(None);
     assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
@@ -626,74 +565,151 @@ fn a_calibration_that_answers_nonsense_never_moves() {
     );
 }
 
-#[test]
-fn no_move_while_the_rig_is_silent_then_the_move_when_it_is_back() {
+/// What keeps the core from starting or finishing a move: a transmission,
+/// or a rig gone silent (a transmission could start unheard). Both must
+/// act alike, so each test below runs with both.
+#[derive(Debug, Clone, Copy)]
+enum Blocker {
+    Transmit,
+    RigSilent,
+}
+
+impl Blocker {
+    fn start(self, f: &mut Follower, at: Duration) {
+        match self {
+            Blocker::Transmit => f.handle_transmit(at, true),
+            Blocker::RigSilent => f.handle_rig_link(at, false),
+        }
+    }
+
+    fn end(self, f: &mut Follower, at: Duration) {
+        match self {
+            Blocker::Transmit => f.handle_transmit(at, false),
+            Blocker::RigSilent => f.handle_rig_link(at, true),
+        }
+    }
+
+    fn reason(self) -> HoldReason {
+        match self {
+            Blocker::Transmit => HoldReason::Transmitting,
+            Blocker::RigSilent => HoldReason::RigSilent,
+        }
+    }
+}
+
+/// Blocked before the operator settles: a hold with the reason, no
+/// inhibit, nothing however long it lasts; then the move once it ends.
+fn no_move_starts_while(b: Blocker) {
     let mut f = core(Some(9_000));
-    f.handle_rig_link(ms(0), false);
-    assert!(f.rig_silent());
+    b.start(&mut f, ms(0));
+    assert_eq!(f.rig_silent(), matches!(b, Blocker::RigSilent), "{b:?}");
     let a = settle(&mut f, 10, 7_050_000);
     assert_eq!(
         a,
         vec![Action::Hold {
             hz: 7_050_000,
-            reason: HoldReason::RigSilent
-        }]
+            reason: b.reason()
+        }],
+        "{b:?}"
     );
-    assert!(!f.inhibit());
+    assert!(!f.inhibit(), "{b:?}: inhibit asserted while blocked");
     f.handle_timeout(ms(60_000));
-    assert!(drain(&mut f).is_empty());
-    // A second "down" changes nothing.
-    f.handle_rig_link(ms(60_500), false);
-    assert!(drain(&mut f).is_empty());
-    f.handle_rig_link(ms(61_000), true);
-    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    assert!(drain(&mut f).is_empty(), "{b:?}");
+    // Being told again changes nothing.
+    b.start(&mut f, ms(60_500));
+    assert!(drain(&mut f).is_empty(), "{b:?}");
+    b.end(&mut f, ms(61_000));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }], "{b:?}");
     f.handle_timeout(ms(61_020));
-    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500], "{b:?}");
 }
 
 #[test]
-fn the_rig_going_silent_during_a_move_stops_it_until_it_is_back() {
+fn no_move_starts_while_transmitting() {
+    no_move_starts_while(Blocker::Transmit);
+}
+
+#[test]
+fn no_move_while_the_rig_is_silent_then_the_move_when_it_is_back() {
+    no_move_starts_while(Blocker::RigSilent);
+}
+
+/// Blocked during the inhibit lead: no `GOTO`, the inhibit released (the
+/// operator may be transmitting); the move once it ends.
+fn stands_down_during_the_inhibit_lead(b: Blocker) {
     let mut f = core(Some(9_000));
-    settle(&mut f, 0, 7_150_000); // overshoot leg to 8 470 first
-    f.handle_rig_link(ms(500), false);
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }], "{b:?}");
+    b.start(&mut f, ms(310));
+    f.handle_timeout(ms(320));
     let a = drain(&mut f);
-    assert_eq!(a.first(), Some(&Action::Stop));
-    assert!(a.contains(&Action::Hold {
-        hz: 7_150_000,
-        reason: HoldReason::RigSilent
-    }));
-    f.handle_arrived(ms(510), 8_800);
-    f.handle_timeout(ms(700));
-    assert!(gotos(&drain(&mut f)).is_empty());
-    // A transmission that starts and ends meanwhile does not release it.
-    f.handle_transmit(ms(800), true);
-    f.handle_transmit(ms(900), false);
-    f.handle_timeout(ms(1_000));
-    assert!(gotos(&drain(&mut f)).is_empty());
-    f.handle_rig_link(ms(3_000), true);
-    f.handle_timeout(ms(3_020));
-    let a = drain(&mut f);
-    assert!(a.contains(&Action::Move {
-        from: 8_800,
-        to: 8_500,
-        hz: 7_150_000,
-        tune_hz: 7_150_000,
-    }));
-    assert_eq!(gotos(&a), vec![8_470]);
+    assert!(gotos(&a).is_empty(), "{b:?}: {a:?}");
+    assert!(a.contains(&Action::Inhibit { on: false }), "{b:?}: {a:?}");
+    b.end(&mut f, ms(5_000));
+    f.handle_timeout(ms(5_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500], "{b:?}");
+}
+
+#[test]
+fn transmit_during_the_inhibit_lead_stands_down() {
+    stands_down_during_the_inhibit_lead(Blocker::Transmit);
 }
 
 #[test]
 fn the_rig_going_silent_during_the_inhibit_lead_stands_down() {
+    stands_down_during_the_inhibit_lead(Blocker::RigSilent);
+}
+
+/// Blocked during a move: `STOP` at once, nothing more while it lasts
+/// (`between` runs then), and the move taken up again from where the motor
+/// stopped once it ends.
+fn stops_a_move_and_resumes(b: Blocker, between: impl Fn(&mut Follower)) {
     let mut f = core(Some(9_000));
-    f.handle_frequency(ms(0), 7_050_000);
-    f.handle_timeout(ms(300));
-    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
-    f.handle_rig_link(ms(310), false);
-    f.handle_timeout(ms(320));
+    settle(&mut f, 0, 7_150_000); // overshoot leg to 8 470 first
+    b.start(&mut f, ms(500));
     let a = drain(&mut f);
-    assert!(gotos(&a).is_empty());
-    assert!(a.contains(&Action::Inhibit { on: false }));
-    f.handle_rig_link(ms(5_000), true);
-    f.handle_timeout(ms(5_020));
-    assert_eq!(gotos(&drain(&mut f)), vec![9_500]);
+    assert_eq!(a.first(), Some(&Action::Stop), "{b:?}");
+    assert!(
+        a.contains(&Action::Hold {
+            hz: 7_150_000,
+            reason: b.reason()
+        }),
+        "{b:?}: {a:?}"
+    );
+    f.handle_arrived(ms(510), 8_800);
+    f.handle_timeout(ms(700));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "{b:?}: {a:?}");
+    assert_eq!(f.position(), Some(8_800), "{b:?}");
+    between(&mut f);
+    b.end(&mut f, ms(3_000));
+    f.handle_timeout(ms(3_020));
+    let a = drain(&mut f);
+    assert!(
+        a.contains(&Action::Move {
+            from: 8_800,
+            to: 8_500,
+            hz: 7_150_000,
+            tune_hz: 7_150_000,
+        }),
+        "{b:?}: {a:?}"
+    );
+    assert_eq!(gotos(&a), vec![8_470], "{b:?}");
+}
+
+#[test]
+fn transmit_during_a_move_stops_it_and_resumes_on_receive() {
+    stops_a_move_and_resumes(Blocker::Transmit, |_| {});
+}
+
+#[test]
+fn the_rig_going_silent_during_a_move_stops_it_until_it_is_back() {
+    stops_a_move_and_resumes(Blocker::RigSilent, |f| {
+        // A transmission that starts and ends meanwhile does not release it.
+        f.handle_transmit(ms(800), true);
+        f.handle_transmit(ms(900), false);
+        f.handle_timeout(ms(1_000));
+        assert!(gotos(&drain(f)).is_empty());
+    });
 }
