@@ -79,6 +79,12 @@ impl Logged {
     fn run(config: &Path) -> Logged {
         Logged::start(&["run", "--config", config.to_str().unwrap()])
     }
+    /// `tuneward capture --config <config> --out <out>` with `extra` flags.
+    fn capture(config: &Path, out: &Path, extra: &[&str]) -> Logged {
+        let args = ["capture", "--config", config.to_str().unwrap()];
+        let out = ["--out", out.to_str().unwrap()];
+        Logged::start(&[&args[..], &out, extra].concat())
+    }
     fn log(&self) -> Vec<String> {
         self.lines.lock().unwrap().clone()
     }
@@ -277,13 +283,7 @@ async fn capture_until_interrupted_then_replay() {
     let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
     let config = write_config(dir.path(), &rig_link, "127.0.0.1:9", "");
     let cap = dir.path().join("evening.cap");
-    let mut capture = Logged::start(&[
-        "capture",
-        "--config",
-        config.to_str().unwrap(),
-        "--out",
-        cap.to_str().unwrap(),
-    ]);
+    let mut capture = Logged::capture(&config, &cap, &[]);
     let dialect = Dialect::builtin("text-semicolon").unwrap();
     // The port is open once the link says so.
     capture.wait_log(&["rig port up"]);
@@ -332,15 +332,7 @@ async fn capture_in_proxy_mode_records_both_directions() {
         "mode = \"proxy\"\nproxy_link = \"shared\"",
     );
     let cap = dir.path().join("shared.cap");
-    let mut capture = Logged::start(&[
-        "capture",
-        "--config",
-        config.to_str().unwrap(),
-        "--out",
-        cap.to_str().unwrap(),
-        "--duration",
-        "4",
-    ]);
+    let mut capture = Logged::capture(&config, &cap, &["--duration", "4"]);
     let shared = dir.path().join("shared");
     let until = Instant::now() + Duration::from_secs(5);
     while std::fs::symlink_metadata(&shared).is_err() {
