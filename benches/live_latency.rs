@@ -28,9 +28,7 @@ use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
 use tracing_subscriber::layer::{Context, SubscriberExt};
 use tracing_subscriber::Layer;
-use tuneward::calibrate::StepMap;
-use tuneward::config::Approach;
-use tuneward::follow::{Band, Follower, Policy};
+use tuneward::follow::{Follower, Policy};
 use tuneward::inhibit::RecordingLine;
 use tuneward::journal::Journal;
 use tuneward::rig::dialect::Dialect;
@@ -39,36 +37,18 @@ use tuneward::rig::Direction;
 use tuneward::service::{run, Outcome, RigSource, Service};
 use tuneward::tuner::client::{ClientConfig, ControllerUrl};
 
+#[path = "../tests/common/mod.rs"]
+mod common;
+
 const DEBOUNCE: Duration = Duration::from_millis(5);
 
-/// Invented bench calibration: 7.000 MHz at step 0, 100 Hz per step.
-struct Linear;
-impl StepMap for Linear {
-    fn steps_at(&self, hz: f64) -> f64 {
-        (hz - 7_000_000.0) / 100.0
-    }
-}
-
+/// The demo station's policy with the bench's short debounce and no
+/// inhibit lead (the `GOTO` is due at the debounce deadline).
 fn policy() -> Policy {
     Policy {
-        bands: vec![Band {
-            name: "40m".into(),
-            low_hz: 7_000_000,
-            high_hz: 7_300_000,
-            guard_hz: 0,
-            hysteresis_hz: 200,
-            debounce: DEBOUNCE,
-        }],
-        min_steps: 0,
-        max_steps: 3000,
-        backlash_steps: 0,
-        approach: Approach::Up,
-        debounce: DEBOUNCE,
-        min_move_steps: 1,
         inhibit_lead: Duration::ZERO,
-        inhibit_tail: Duration::from_millis(20),
         candidate_dwell: Duration::from_secs(3600),
-        inhibit_while_detuned: false,
+        ..common::policy(DEBOUNCE)
     }
 }
 
@@ -148,7 +128,7 @@ async fn start(journal: bool) -> Live {
     let (rig, rig_rx) = mpsc::channel(64);
     let (stop, shutdown) = watch::channel(false);
     let service = Service {
-        follower: Follower::new(policy(), Arc::new(Linear), None),
+        follower: Follower::new(policy(), Arc::new(common::Linear), None),
         decoder: Dialect::builtin("text-semicolon").unwrap().decoder(None),
         rig: RigSource::Events(rig_rx),
         controller: ClientConfig {

@@ -6,7 +6,7 @@
 
 use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
-use std::process::{Child, Command, ExitStatus, Stdio};
+use std::process::{Command, Stdio};
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
@@ -15,55 +15,25 @@ use tokio_serial::SerialPort;
 use tuneward::journal::{Journal, Recorded};
 use tuneward::rig::dialect::Dialect;
 
-const BIN: &str = env!("CARGO_BIN_EXE_tuneward");
+mod common;
 
-/// A child process killed (SIGKILL) when dropped.
-struct Proc(Child);
+use common::{assert_success, pty_pair, read_exactly, rig_behind_symlink, Proc, BIN};
 
-impl Drop for Proc {
-    fn drop(&mut self) {
-        let _ = self.0.kill();
-        let _ = self.0.wait();
-    }
-}
-
-impl Proc {
-    fn signal(&self, sig: libc::c_int) {
-        let pid = libc::pid_t::try_from(self.0.id()).unwrap();
-        // SAFETY: kill(2) on our own child's pid; no memory is involved.
-        assert_eq!(unsafe { libc::kill(pid, sig) }, 0);
-    }
-    fn wait_exit(&mut self, within: Duration) -> ExitStatus {
-        let until = Instant::now() + within;
-        loop {
-            if let Some(status) = self.0.try_wait().unwrap() {
-                return status;
-            }
-            assert!(Instant::now() < until, "process did not exit in {within:?}");
-            std::thread::sleep(Duration::from_millis(20));
-        }
-    }
-}
-
-/// `tuneward sim-tuner` on `listen` (port 0: a free one); its address.
+/// `tuneward sim-tuner` on `listen` (port 0: a free one), 1000 steps/s,
+/// 0 to 3000, counting from `start`; its address.
 fn sim_tuner(listen: &str, start: i64) -> (Proc, String) {
-    let mut child = Command::new(BIN)
-        .args(["sim-tuner", "--listen", listen])
-        .args(["--steps-per-second", "1000", "--settle-ms", "10"])
-        .args(["--max", "3000", "--start", &start.to_string()])
-        .stdout(Stdio::piped())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
-    let mut out = BufReader::new(child.stdout.take().unwrap());
-    let mut line = String::new();
-    out.read_line(&mut line).unwrap();
-    let addr = line
-        .trim()
-        .strip_prefix("listening on ")
-        .unwrap_or_else(|| panic!("sim-tuner said {line:?}"))
-        .to_string();
-    (Proc(child), addr)
+    common::sim_tuner(&[
+        "--listen",
+        listen,
+        "--steps-per-second",
+        "1000",
+        "--settle-ms",
+        "10",
+        "--max",
+        "3000",
+        "--start",
+        &start.to_string(),
+    ])
 }
 
 /// Asks a controller where its motor is (a new connection takes over).
@@ -105,6 +75,16 @@ impl Logged {
             lines,
         }
     }
+    /// `tuneward run --config <config>`.
+    fn run(config: &Path) -> Logged {
+        Logged::start(&["run", "--config", config.to_str().unwrap()])
+    }
+    /// `tuneward capture --config <config> --out <out>` with `extra` flags.
+    fn capture(config: &Path, out: &Path, extra: &[&str]) -> Logged {
+        let args = ["capture", "--config", config.to_str().unwrap()];
+        let out = ["--out", out.to_str().unwrap()];
+        Logged::start(&[&args[..], &out, extra].concat())
+    }
     fn log(&self) -> Vec<String> {
         self.lines.lock().unwrap().clone()
     }
@@ -129,77 +109,10 @@ impl Logged {
     }
 }
 
-/// The rig: one end of a pseudo-terminal pair, the other end behind a
-/// symlink the config names.
-fn rig(
-    dir: &Path,
-) -> (
-    tokio_serial::SerialStream,
-    tokio_serial::SerialStream,
-    PathBuf,
-) {
-    let (rig, far) = pty_pair();
-    let link = dir.join("rig");
-    tuneward::tuner::server::place_symlink(&link, Path::new(&far.name().unwrap())).unwrap();
-    (rig, far, link)
-}
-
-/// A pseudo-terminal pair whose descriptors children do not inherit (an
-/// inherited master would keep an "unplugged" rig alive).
-fn pty_pair() -> (tokio_serial::SerialStream, tokio_serial::SerialStream) {
-    use std::os::fd::AsRawFd;
-    let (a, b) = tokio_serial::SerialStream::pair().unwrap();
-    for fd in [a.as_raw_fd(), b.as_raw_fd()] {
-        // SAFETY: fcntl on descriptors we own; no memory is involved.
-        assert_eq!(
-            unsafe { libc::fcntl(fd, libc::F_SETFD, libc::FD_CLOEXEC) },
-            0
-        );
-    }
-    (a, b)
-}
-
-/// An invented station: 7.000 MHz at step 0, 7.300 MHz at step 3000.
+/// The demo station at 1000 steps/s: the rig on `rig`, the controller at
+/// `controller`.
 fn write_config(dir: &Path, rig: &Path, controller: &str, extra_rig: &str) -> PathBuf {
-    let config = dir.join("station.toml");
-    std::fs::write(
-        &config,
-        format!(
-            r#"
-[rig]
-protocol = "text-semicolon"
-port = "{rig}"
-baud = 38400
-{extra_rig}
-
-[tuner]
-link = "tcp://{controller}"
-min_steps = 0
-max_steps = 3000
-steps_per_second = 1000
-settle_ms = 10
-state_file = "motor.state"
-
-[follow]
-debounce_ms = 30
-hysteresis_hz = 100
-inhibit_lead_ms = 5
-inhibit_tail_ms = 20
-
-[calibration]
-model = "interpolate"
-points = [{{ hz = 7000000, steps = 0 }}, {{ hz = 7300000, steps = 3000 }}]
-
-[[band]]
-name = "40m"
-low_hz = 7000000
-high_hz = 7300000
-"#,
-            rig = rig.display()
-        ),
-    )
-    .unwrap();
-    config
+    common::station_config(dir, rig, controller, 1000, extra_rig)
 }
 
 fn wait_journal(journal: &Journal, want: Recorded) {
@@ -219,31 +132,59 @@ async fn say(rig: &mut tokio_serial::SerialStream, bytes: &[u8]) {
     rig.flush().await.unwrap();
 }
 
+/// `tuneward run` with the controller simulator, told 7.15 MHz from 0:
+/// half way between the two calibration points, 1500 steps, 1.5 s at
+/// 1000 steps/s. Returned once the move is journalled as under way.
+struct MidMove {
+    run: Logged,
+    sim: Proc,
+    addr: String,
+    rig: tokio_serial::SerialStream,
+    rig_link: PathBuf,
+    journal: Journal,
+    dialect: Dialect,
+    _far: tokio_serial::SerialStream,
+    dir: tempfile::TempDir,
+}
+
+async fn mid_move() -> MidMove {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, far, rig_link) = rig_behind_symlink(dir.path());
+    let (sim, addr) = sim_tuner("127.0.0.1:0", 0);
+    let config = write_config(dir.path(), &rig_link, &addr, "");
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let run = Logged::run(&config);
+    wait_journal(&journal, Recorded::Known(0));
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
+    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
+    MidMove {
+        run,
+        sim,
+        addr,
+        rig,
+        rig_link,
+        journal,
+        dialect,
+        _far: far,
+        dir,
+    }
+}
+
 /// SIGTERM in the middle of a move: the move finishes, the position is on
 /// disk and equal to the controller's, the inhibit is released, exit 0.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn sigterm_mid_move_finishes_it_and_exits_cleanly() {
-    let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _far, rig_link) = rig(dir.path());
-    let (_sim, addr) = sim_tuner("127.0.0.1:0", 0);
-    let config = write_config(dir.path(), &rig_link, &addr, "");
-    let journal = Journal::new(dir.path().join("motor.state"));
-    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
-    wait_journal(&journal, Recorded::Known(0));
-
-    let dialect = Dialect::builtin("text-semicolon").unwrap();
-    // Half way between the two calibration points: 1500 steps, 1.5 s.
-    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
-    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
-    run.proc.signal(libc::SIGTERM);
+    let mut m = mid_move().await;
+    m.run.proc.signal(libc::SIGTERM);
     // A frequency after the signal is no new target.
-    say(&mut rig, &dialect.encode_frequency(7_250_000, 0)).await;
-    let status = run.proc.wait_exit(Duration::from_secs(10));
-    assert_eq!(status.code(), Some(0), "{}", run.log().join("\n"));
+    say(&mut m.rig, &m.dialect.encode_frequency(7_250_000, 0)).await;
+    let status = m.run.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(0), "{}", m.run.log().join("\n"));
 
-    assert_eq!(journal.load().unwrap(), Some(Recorded::Known(1500)));
-    assert_eq!(controller_where(&addr), "AT 1500");
-    let log = run.log();
+    assert_eq!(m.journal.load().unwrap(), Some(Recorded::Known(1500)));
+    assert_eq!(controller_where(&m.addr), "AT 1500");
+    let log = m.run.log();
     assert!(log
         .iter()
         .any(|l| l.contains("letting the move under way finish")));
@@ -261,29 +202,19 @@ async fn sigterm_mid_move_finishes_it_and_exits_cleanly() {
 /// leaving the unfinished move in the journal, as a crash would.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_second_interrupt_stops_at_once() {
-    let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _far, rig_link) = rig(dir.path());
-    let (_sim, addr) = sim_tuner("127.0.0.1:0", 0);
-    let config = write_config(dir.path(), &rig_link, &addr, "");
-    let journal = Journal::new(dir.path().join("motor.state"));
-    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
-    wait_journal(&journal, Recorded::Known(0));
-
-    let dialect = Dialect::builtin("text-semicolon").unwrap();
-    // 1500 steps at 1000 steps/s: the move takes 1.5 s.
-    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
-    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
-    run.proc.signal(libc::SIGTERM);
-    run.wait_log(&["shutting down"]);
-    run.proc.signal(libc::SIGINT);
-    let status = run.proc.wait_exit(Duration::from_secs(10));
-    assert_eq!(status.code(), Some(130), "{}", run.log().join("\n"));
+    let mut m = mid_move().await;
+    m.run.proc.signal(libc::SIGTERM);
+    m.run.wait_log(&["shutting down"]);
+    m.run.proc.signal(libc::SIGINT);
+    let status = m.run.proc.wait_exit(Duration::from_secs(10));
+    assert_eq!(status.code(), Some(130), "{}", m.run.log().join("\n"));
     // Stopped before the move could finish: its intent is still on disk.
     assert_eq!(
-        journal.load().unwrap(),
+        m.journal.load().unwrap(),
         Some(Recorded::Unknown { from: 0, to: 1500 })
     );
-    assert!(run
+    assert!(m
+        .run
         .log()
         .iter()
         .any(|l| l.contains("second interrupt: stopping at once")));
@@ -294,23 +225,23 @@ async fn a_second_interrupt_stops_at_once() {
 /// stays asserted, until the controller reports the move's target.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn killed_mid_move_restarts_with_the_position_unknown() {
-    let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _far, rig_link) = rig(dir.path());
-    let dialect = Dialect::builtin("text-semicolon").unwrap();
-    let journal = Journal::new(dir.path().join("motor.state"));
-
-    let (sim_a, addr_a) = sim_tuner("127.0.0.1:0", 0);
-    let config = write_config(dir.path(), &rig_link, &addr_a, "");
-    let run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
-    wait_journal(&journal, Recorded::Known(0));
-    say(&mut rig, &dialect.encode_frequency(7_150_000, 0)).await;
-    wait_journal(&journal, Recorded::Unknown { from: 0, to: 1500 });
+    let MidMove {
+        run,
+        sim: sim_a,
+        mut rig,
+        rig_link,
+        journal,
+        dialect,
+        _far,
+        dir,
+        ..
+    } = mid_move().await;
     drop(run); // SIGKILL mid-move
     drop(sim_a); // and the controller is power-cycled: its count is gone
 
     let (sim_b, addr_b) = sim_tuner("127.0.0.1:0", 0);
     let config = write_config(dir.path(), &rig_link, &addr_b, "");
-    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    let mut run = Logged::run(&config);
     run.wait_log(&["journal: a move did not finish", "from=0", "to=1500"]);
     run.wait_log(&["position unknown", "controller=0"]);
     say(&mut rig, &dialect.encode_frequency(7_200_000, 0)).await;
@@ -349,16 +280,10 @@ async fn killed_mid_move_restarts_with_the_position_unknown() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn capture_until_interrupted_then_replay() {
     let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _far, rig_link) = rig(dir.path());
+    let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
     let config = write_config(dir.path(), &rig_link, "127.0.0.1:9", "");
     let cap = dir.path().join("evening.cap");
-    let mut capture = Logged::start(&[
-        "capture",
-        "--config",
-        config.to_str().unwrap(),
-        "--out",
-        cap.to_str().unwrap(),
-    ]);
+    let mut capture = Logged::capture(&config, &cap, &[]);
     let dialect = Dialect::builtin("text-semicolon").unwrap();
     // The port is open once the link says so.
     capture.wait_log(&["rig port up"]);
@@ -384,11 +309,7 @@ async fn capture_until_interrupted_then_replay() {
         .args(["--json", "--verbose"])
         .output()
         .unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert_success(&out);
     let heard: Vec<u64> = String::from_utf8_lossy(&out.stdout)
         .lines()
         .filter_map(|l| serde_json::from_str::<serde_json::Value>(l).ok())
@@ -402,9 +323,8 @@ async fn capture_until_interrupted_then_replay() {
 /// query (`tx`) and the rig's answer (`rx`), and `--duration` ends it.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn capture_in_proxy_mode_records_both_directions() {
-    use tokio::io::AsyncReadExt;
     let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _far, rig_link) = rig(dir.path());
+    let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
     let config = write_config(
         dir.path(),
         &rig_link,
@@ -412,41 +332,21 @@ async fn capture_in_proxy_mode_records_both_directions() {
         "mode = \"proxy\"\nproxy_link = \"shared\"",
     );
     let cap = dir.path().join("shared.cap");
-    let mut capture = Logged::start(&[
-        "capture",
-        "--config",
-        config.to_str().unwrap(),
-        "--out",
-        cap.to_str().unwrap(),
-        "--duration",
-        "4",
-    ]);
+    let mut capture = Logged::capture(&config, &cap, &["--duration", "4"]);
     let shared = dir.path().join("shared");
     let until = Instant::now() + Duration::from_secs(5);
     while std::fs::symlink_metadata(&shared).is_err() {
         assert!(Instant::now() < until, "no proxy link");
         tokio::time::sleep(Duration::from_millis(20)).await;
     }
-    let mut other =
-        tokio_serial::SerialStream::open(&tokio_serial::new(shared.to_string_lossy(), 38_400))
-            .unwrap();
+    let mut other = common::open_port(&shared, 38_400);
     let dialect = Dialect::builtin("text-semicolon").unwrap();
     let query = dialect.poll_frequency(0);
     other.write_all(&query).await.unwrap();
-    let mut heard = vec![0u8; query.len()];
-    tokio::time::timeout(Duration::from_secs(5), rig.read_exact(&mut heard))
-        .await
-        .unwrap()
-        .unwrap();
-    assert_eq!(heard, query);
+    assert_eq!(read_exactly(&mut rig, query.len()).await, query);
     let answer = dialect.encode_frequency(7_074_000, 0);
     say(&mut rig, &answer).await;
-    let mut got = vec![0u8; answer.len()];
-    tokio::time::timeout(Duration::from_secs(5), other.read_exact(&mut got))
-        .await
-        .unwrap()
-        .unwrap();
-    assert_eq!(got, answer);
+    assert_eq!(read_exactly(&mut other, answer.len()).await, answer);
 
     let status = capture.proc.wait_exit(Duration::from_secs(10));
     assert_eq!(status.code(), Some(0), "{}", capture.log().join("\n"));
@@ -472,12 +372,12 @@ async fn capture_in_proxy_mode_records_both_directions() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn rig_unplug_and_controller_drop_both_recover() {
     let dir = tempfile::tempdir().unwrap();
-    let (rig_a, far_a, rig_link) = rig(dir.path());
+    let (rig_a, far_a, rig_link) = rig_behind_symlink(dir.path());
     let dialect = Dialect::builtin("text-semicolon").unwrap();
     let journal = Journal::new(dir.path().join("motor.state"));
     let (sim, addr) = sim_tuner("127.0.0.1:0", 0);
     let config = write_config(dir.path(), &rig_link, &addr, "");
-    let mut run = Logged::start(&["run", "--config", config.to_str().unwrap()]);
+    let mut run = Logged::run(&config);
     wait_journal(&journal, Recorded::Known(0));
 
     // Unplug: both ends of the first pseudo-terminal go away.

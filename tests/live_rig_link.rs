@@ -11,25 +11,9 @@ use tuneward::rig::link::{spawn, LinkConfig, LinkEvent, PollConfig, PortSettings
 use tuneward::rig::Direction;
 use tuneward::tuner::server::place_symlink;
 
-async fn next(ev: &mut mpsc::Receiver<LinkEvent>) -> LinkEvent {
-    timeout(Duration::from_secs(5), ev.recv())
-        .await
-        .expect("an event within 5 s")
-        .expect("link task alive")
-}
+mod common;
 
-/// Collects `n` bytes of direction `dir` from the events (skipping others).
-async fn collect(ev: &mut mpsc::Receiver<LinkEvent>, dir: Direction, n: usize) -> Vec<u8> {
-    let mut got = Vec::new();
-    while got.len() < n {
-        if let LinkEvent::Bytes { dir: d, bytes, .. } = next(ev).await {
-            if d == dir {
-                got.extend_from_slice(&bytes);
-            }
-        }
-    }
-    got
-}
+use common::{collect, next_event as next};
 
 /// A fake rig: the master end of a pseudo-terminal, the link pointed at its
 /// far end.

@@ -12,21 +12,9 @@ use tuneward::rig::link::{LinkEvent, PollConfig, PortSettings};
 use tuneward::rig::proxy::{ends_with, spawn, ProxyConfig};
 use tuneward::rig::Direction;
 
-async fn next(ev: &mut mpsc::Receiver<LinkEvent>) -> LinkEvent {
-    timeout(Duration::from_secs(5), ev.recv())
-        .await
-        .expect("an event within 5 s")
-        .expect("proxy task alive")
-}
+mod common;
 
-async fn read_exactly(port: &mut SerialStream, n: usize) -> Vec<u8> {
-    let mut got = vec![0u8; n];
-    timeout(Duration::from_secs(5), port.read_exact(&mut got))
-        .await
-        .expect("bytes within 5 s")
-        .unwrap();
-    got
-}
+use common::{collect, next_event as next, open_port, read_exactly};
 
 struct Setup {
     rig: SerialStream,
@@ -53,7 +41,7 @@ async fn setup(poll: Option<PollConfig>) -> Setup {
     spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
     // The other program opens the symlink like any serial port.
-    let other = SerialStream::open(&tokio_serial::new(link.to_string_lossy(), 19_200)).unwrap();
+    let other = open_port(&link, 19_200);
     Setup {
         rig,
         _rig_far: rig_far,
@@ -62,18 +50,6 @@ async fn setup(poll: Option<PollConfig>) -> Setup {
         _stop: stop_tx,
         _dir: dir,
     }
-}
-
-async fn collect(ev: &mut mpsc::Receiver<LinkEvent>, dir: Direction, n: usize) -> Vec<u8> {
-    let mut got = Vec::new();
-    while got.len() < n {
-        if let LinkEvent::Bytes { dir: d, bytes, .. } = next(ev).await {
-            if d == dir {
-                got.extend_from_slice(&bytes);
-            }
-        }
-    }
-    got
 }
 
 #[tokio::test]
@@ -192,7 +168,7 @@ async fn the_shared_port_survives_the_rig_being_unplugged() {
     };
     spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
-    let mut other = SerialStream::open(&tokio_serial::new(shared.to_string_lossy(), 9600)).unwrap();
+    let mut other = open_port(&shared, 9600);
 
     let (mut rig2, rig2_far) = SerialStream::pair().unwrap();
     drop(rig1);

@@ -7,9 +7,7 @@ use std::time::Duration;
 
 use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
-use tuneward::calibrate::StepMap;
-use tuneward::config::Approach;
-use tuneward::follow::{Band, Follower, Policy};
+use tuneward::follow::{Follower, Policy};
 use tuneward::inhibit::RecordingLine;
 use tuneward::journal::{Journal, Recorded};
 use tuneward::rig::dialect::Dialect;
@@ -18,35 +16,13 @@ use tuneward::rig::Direction;
 use tuneward::service::{run, Outcome, RigSource, Service};
 use tuneward::tuner::client::{ClientConfig, ControllerUrl};
 
-/// Invented demo calibration: 7.000 MHz at step 0, 100 Hz per step.
-struct Linear;
-impl StepMap for Linear {
-    fn steps_at(&self, hz: f64) -> f64 {
-        (hz - 7_000_000.0) / 100.0
-    }
-}
+mod common;
 
-fn policy() -> Policy {
-    Policy {
-        bands: vec![Band {
-            name: "40m".into(),
-            low_hz: 7_000_000,
-            high_hz: 7_300_000,
-            guard_hz: 0,
-            hysteresis_hz: 200,
-            debounce: Duration::from_millis(30),
-        }],
-        min_steps: 0,
-        max_steps: 3000,
-        backlash_steps: 0,
-        approach: Approach::Up,
-        debounce: Duration::from_millis(30),
-        min_move_steps: 1,
-        inhibit_lead: Duration::from_millis(5),
-        inhibit_tail: Duration::from_millis(20),
-        candidate_dwell: Duration::from_secs(60),
-        inhibit_while_detuned: false,
-    }
+use common::{policy, Linear};
+
+/// The demo policy with the tests' 30 ms debounce.
+fn demo_policy() -> Policy {
+    policy(Duration::from_millis(30))
 }
 
 fn controller(start: i64) -> ClientConfig {
@@ -61,6 +37,29 @@ fn controller(start: i64) -> ClientConfig {
         sim_start: start,
         sim_backlash: 0,
     }
+}
+
+/// [`controller`] at 0, but a real controller on loopback TCP at `addr`.
+fn controller_on(addr: std::net::SocketAddr) -> ClientConfig {
+    ClientConfig {
+        url: ControllerUrl::Tcp {
+            addr: addr.to_string(),
+        },
+        ..controller(0)
+    }
+}
+
+/// Asks the service to stop and waits (5 s at most) for its outcome.
+async fn stop_and_join(
+    stop: &watch::Sender<bool>,
+    task: tokio::task::JoinHandle<Result<Outcome, String>>,
+) -> Outcome {
+    stop.send_replace(true);
+    tokio::time::timeout(Duration::from_secs(5), task)
+        .await
+        .unwrap()
+        .unwrap()
+        .unwrap()
 }
 
 struct Running {
@@ -86,7 +85,14 @@ async fn start_with(
     journal_before: Option<Recorded>,
     failing_inhibit: bool,
 ) -> Running {
-    start_custom(controller, journal_before, failing_inhibit, policy(), false).await
+    start_custom(
+        controller,
+        journal_before,
+        failing_inhibit,
+        demo_policy(),
+        false,
+    )
+    .await
 }
 
 async fn start_custom(
@@ -165,15 +171,44 @@ impl Running {
             tokio::time::sleep(Duration::from_millis(10)).await;
         }
     }
+    /// After the motor stopped part way through the 0 to 1000 move of
+    /// [`slow_move_under_way`]: where it stopped, once it has stayed there
+    /// for longer than the rest of the move would have taken.
+    async fn stopped_part_way(&self) -> i64 {
+        let until = Instant::now() + Duration::from_secs(3);
+        let stopped = loop {
+            if let Some(Recorded::Known(p)) = self.journal.load().unwrap() {
+                break p;
+            }
+            assert!(Instant::now() < until, "{:?}", self.journal.load());
+            tokio::time::sleep(Duration::from_millis(10)).await;
+        };
+        assert!((1..1000).contains(&stopped), "{stopped}");
+        tokio::time::sleep(Duration::from_millis(600)).await;
+        assert_eq!(self.journal.load().unwrap(), Some(Recorded::Known(stopped)));
+        stopped
+    }
     async fn finish(self) -> (Outcome, Vec<bool>, Option<Recorded>) {
-        self.stop.send_replace(true);
-        let out = tokio::time::timeout(Duration::from_secs(5), self.task)
-            .await
-            .unwrap()
-            .unwrap()
-            .unwrap();
+        let out = stop_and_join(&self.stop, self.task).await;
         (out, self.inhibit.levels(), self.journal.load().unwrap())
     }
+}
+
+/// A controller at 0 moving 2000 steps/s, told 7.1 MHz (1000 steps): the
+/// service once the move is under way, and journalled as unfinished.
+async fn slow_move_under_way() -> Running {
+    let mut slow = controller(0);
+    slow.steps_per_second = 2000.0;
+    let r = start_with(slow, None, false).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    r.frequency(7_100_000).await;
+    // Debounce 30 ms, lead 5 ms, then 1000 steps take 500 ms.
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    assert_eq!(
+        r.journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1000 })
+    );
+    r
 }
 
 #[tokio::test]
@@ -209,30 +244,10 @@ async fn no_move_while_transmitting_then_the_move_on_receive() {
 
 #[tokio::test]
 async fn transmitting_mid_move_stops_the_motor_and_receive_finishes_the_move() {
-    let mut slow = controller(0);
-    slow.steps_per_second = 2000.0;
-    let r = start_with(slow, None, false).await;
-    r.wait_journal(Recorded::Known(0)).await;
-    r.frequency(7_100_000).await;
-    // Debounce 30 ms, lead 5 ms, then 1000 steps take 500 ms.
-    tokio::time::sleep(Duration::from_millis(200)).await;
-    assert_eq!(
-        r.journal.load().unwrap(),
-        Some(Recorded::Unknown { from: 0, to: 1000 })
-    );
+    let r = slow_move_under_way().await;
     r.transmit(true).await;
     // Stopped part way, and the stop position is on record.
-    let until = Instant::now() + Duration::from_secs(3);
-    let stopped = loop {
-        if let Some(Recorded::Known(p)) = r.journal.load().unwrap() {
-            break p;
-        }
-        assert!(Instant::now() < until, "{:?}", r.journal.load());
-        tokio::time::sleep(Duration::from_millis(10)).await;
-    };
-    assert!((1..1000).contains(&stopped), "{stopped}");
-    tokio::time::sleep(Duration::from_millis(600)).await;
-    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(stopped)));
+    r.stopped_part_way().await;
     r.transmit(false).await;
     r.wait_journal(Recorded::Known(1000)).await;
     let (out, _, _) = r.finish().await;
@@ -286,73 +301,12 @@ async fn a_failing_inhibit_output_means_no_move() {
     assert!(out.faults >= 1);
 }
 
-/// Invented demo station: the rig on `rig_link`, the controller simulator
-/// at `addr`, 0 to 3000 steps over 7.0 to 7.3 MHz; `extra_rig` adds keys
-/// to `[rig]`.
-fn station_config(
-    dir: &std::path::Path,
-    rig_link: &std::path::Path,
-    addr: std::net::SocketAddr,
-    extra_rig: &str,
-) -> std::path::PathBuf {
-    let config = dir.join("station.toml");
-    std::fs::write(
-        &config,
-        format!(
-            r#"
-[rig]
-protocol = "text-semicolon"
-port = "{rig}"
-baud = 38400
-{extra_rig}
-
-[tuner]
-link = "tcp://{addr}"
-min_steps = 0
-max_steps = 3000
-steps_per_second = 20000
-settle_ms = 10
-state_file = "motor.state"
-
-[follow]
-debounce_ms = 30
-hysteresis_hz = 100
-inhibit_lead_ms = 5
-inhibit_tail_ms = 20
-
-[calibration]
-model = "interpolate"
-points = [{{ hz = 7000000, steps = 0 }}, {{ hz = 7300000, steps = 3000 }}]
-
-[[band]]
-name = "40m"
-low_hz = 7000000
-high_hz = 7300000
-"#,
-            rig = rig_link.display()
-        ),
-    )
-    .unwrap();
-    config
-}
-
-/// A rig on a pseudo-terminal behind a symlink, and the controller
-/// simulator on loopback TCP.
-async fn rig_and_controller(
-    dir: &std::path::Path,
-) -> (
-    tokio_serial::SerialStream,
-    tokio_serial::SerialStream,
-    std::path::PathBuf,
-    std::net::SocketAddr,
-    watch::Sender<bool>,
-) {
-    use tokio_serial::SerialPort;
-    use tuneward::tuner::server::{place_symlink, run_tcp, SimController};
+/// The controller simulator on loopback TCP, limits 0 to `max_steps`,
+/// 20000 steps/s; its address, and the sender that stops it (kept alive
+/// while it runs).
+async fn sim_on_loopback(max_steps: i64) -> (std::net::SocketAddr, watch::Sender<bool>) {
+    use tuneward::tuner::server::{run_tcp, SimController};
     use tuneward::tuner::sim::SimParams;
-    let (rig, rig_far) = tokio_serial::SerialStream::pair().unwrap();
-    let rig_link = dir.join("rig");
-    place_symlink(&rig_link, std::path::Path::new(&rig_far.name().unwrap())).unwrap();
     let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
     let addr = listener.local_addr().unwrap();
     let (sim_stop, sim_shutdown) = watch::channel(false);
@@ -361,14 +315,58 @@ async fn rig_and_controller(
         settle_ms: 10,
         backlash_steps: 0,
         min_steps: 0,
-        max_steps: 3000,
+        max_steps,
     };
     tokio::spawn(run_tcp(
         listener,
         SimController::new(params, 0).unwrap(),
         sim_shutdown,
     ));
-    (rig, rig_far, rig_link, addr, sim_stop)
+    (addr, sim_stop)
+}
+
+/// The whole service from the demo station's config file, with real link
+/// tasks: a rig on a pseudo-terminal behind a symlink, the controller
+/// simulator on loopback TCP; `extra_rig` adds keys to `[rig]`.
+struct FromConfig {
+    rig: tokio_serial::SerialStream,
+    station: tuneward::station::Station,
+    journal: Journal,
+    stop: watch::Sender<bool>,
+    task: tokio::task::JoinHandle<Result<Outcome, String>>,
+    _rig_far: tokio_serial::SerialStream,
+    _sim: watch::Sender<bool>,
+    dir: tempfile::TempDir,
+}
+
+impl FromConfig {
+    /// Started, and the controller's count taken (0) and journalled.
+    async fn start(extra_rig: &str) -> FromConfig {
+        let dir = tempfile::tempdir().unwrap();
+        let (rig, rig_far, rig_link) = common::rig_behind_symlink(dir.path());
+        let (addr, sim) = sim_on_loopback(3000).await;
+        let config =
+            common::station_config(dir.path(), &rig_link, &addr.to_string(), 20_000, extra_rig);
+        let station = tuneward::station::Station::load(&config).unwrap();
+        let service = Service::from_station(&station).unwrap();
+        let (stop, shutdown) = watch::channel(false);
+        let task = tokio::spawn(run(service, shutdown));
+        let journal = Journal::new(dir.path().join("motor.state"));
+        wait_for(&journal, Recorded::Known(0)).await;
+        FromConfig {
+            rig,
+            station,
+            journal,
+            stop,
+            task,
+            _rig_far: rig_far,
+            _sim: sim,
+            dir,
+        }
+    }
+    async fn finish(self) -> Outcome {
+        stop_and_join(&self.stop, self.task).await
+    }
 }
 
 async fn wait_for(journal: &Journal, want: Recorded) {
@@ -386,28 +384,13 @@ async fn wait_for(journal: &Journal, want: Recorded) {
 #[tokio::test]
 async fn runs_from_a_station_config_with_real_links() {
     use tokio::io::AsyncWriteExt;
-    use tuneward::station::Station;
 
-    let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _rig_far, rig_link, addr, _sim) = rig_and_controller(dir.path()).await;
-    let config = station_config(dir.path(), &rig_link, addr, "");
-    let station = Station::load(&config).unwrap();
-    let service = Service::from_station(&station).unwrap();
-    let (stop, shutdown) = watch::channel(false);
-    let task = tokio::spawn(run(service, shutdown));
-
-    let journal = Journal::new(dir.path().join("motor.state"));
-    wait_for(&journal, Recorded::Known(0)).await;
-    let bytes = station.dialect.encode_frequency(7_150_000, 0);
-    rig.write_all(&bytes).await.unwrap();
+    let mut s = FromConfig::start("").await;
+    let bytes = s.station.dialect.encode_frequency(7_150_000, 0);
+    s.rig.write_all(&bytes).await.unwrap();
     // Half way between the two invented points.
-    wait_for(&journal, Recorded::Known(1500)).await;
-    stop.send_replace(true);
-    let out = tokio::time::timeout(Duration::from_secs(5), task)
-        .await
-        .unwrap()
-        .unwrap()
-        .unwrap();
+    wait_for(&s.journal, Recorded::Known(1500)).await;
+    let out = s.finish().await;
     assert_eq!(out.position, Some(1500));
     assert_eq!(out.moves, 1);
 }
@@ -417,57 +400,26 @@ async fn runs_from_a_station_config_with_real_links() {
 /// tuner.
 #[tokio::test]
 async fn shares_the_port_and_polls_a_silent_rig() {
-    use tokio::io::{AsyncReadExt, AsyncWriteExt};
-    use tuneward::station::Station;
+    use tokio::io::AsyncWriteExt;
 
-    let dir = tempfile::tempdir().unwrap();
-    let (mut rig, _rig_far, rig_link, addr, _sim) = rig_and_controller(dir.path()).await;
-    let config = station_config(
-        dir.path(),
-        &rig_link,
-        addr,
-        "mode = \"proxy\"\npoll_ms = 50\nproxy_link = \"shared\"",
-    );
-    let station = Station::load(&config).unwrap();
-    let service = Service::from_station(&station).unwrap();
-    let (stop, shutdown) = watch::channel(false);
-    let task = tokio::spawn(run(service, shutdown));
-    let journal = Journal::new(dir.path().join("motor.state"));
-    wait_for(&journal, Recorded::Known(0)).await;
+    let mut s = FromConfig::start("mode = \"proxy\"\npoll_ms = 50\nproxy_link = \"shared\"").await;
 
     // The rig hears our query, exactly as the dialect words it.
     let query = [
-        station.dialect.poll_frequency(0),
-        station.dialect.poll_transmit(0),
+        s.station.dialect.poll_frequency(0),
+        s.station.dialect.poll_transmit(0),
     ]
     .concat();
-    let mut heard = vec![0u8; query.len()];
-    tokio::time::timeout(Duration::from_secs(5), rig.read_exact(&mut heard))
-        .await
-        .unwrap()
-        .unwrap();
-    assert_eq!(heard, query);
+    assert_eq!(common::read_exactly(&mut s.rig, query.len()).await, query);
 
     // Another program on the shared port hears the rig's answer too.
-    let shared = dir.path().join("shared");
-    let mut other =
-        tokio_serial::SerialStream::open(&tokio_serial::new(shared.to_string_lossy(), 38_400))
-            .unwrap();
-    let answer = station.dialect.encode_frequency(7_030_000, 0);
-    rig.write_all(&answer).await.unwrap();
-    let mut got = vec![0u8; answer.len()];
-    tokio::time::timeout(Duration::from_secs(5), other.read_exact(&mut got))
-        .await
-        .unwrap()
-        .unwrap();
-    assert_eq!(got, answer);
-    wait_for(&journal, Recorded::Known(300)).await;
-    stop.send_replace(true);
-    let out = tokio::time::timeout(Duration::from_secs(5), task)
-        .await
-        .unwrap()
-        .unwrap()
-        .unwrap();
+    let shared = s.dir.path().join("shared");
+    let mut other = common::open_port(&shared, 38_400);
+    let answer = s.station.dialect.encode_frequency(7_030_000, 0);
+    s.rig.write_all(&answer).await.unwrap();
+    assert_eq!(common::read_exactly(&mut other, answer.len()).await, answer);
+    wait_for(&s.journal, Recorded::Known(300)).await;
+    let out = s.finish().await;
     assert_eq!(out.position, Some(300));
     // The symlink goes with the service.
     assert!(std::fs::symlink_metadata(&shared).is_err());
@@ -496,28 +448,8 @@ fn bad_serial_framing_names_the_key() {
 /// trusted: the position comes back without a restart.
 #[tokio::test]
 async fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
-    use tuneward::tuner::server::{run_tcp, SimController};
-    use tuneward::tuner::sim::SimParams;
-    let listener = tokio::net::TcpListener::bind("127.0.0.1:0").await.unwrap();
-    let addr = listener.local_addr().unwrap();
-    let (_sim_stop, sim_shutdown) = watch::channel(false);
-    let narrow = SimParams {
-        steps_per_second: 20_000.0,
-        settle_ms: 10,
-        backlash_steps: 0,
-        min_steps: 0,
-        max_steps: 1500,
-    };
-    tokio::spawn(run_tcp(
-        listener,
-        SimController::new(narrow, 0).unwrap(),
-        sim_shutdown,
-    ));
-    let mut cfg = controller(0);
-    cfg.url = ControllerUrl::Tcp {
-        addr: addr.to_string(),
-    };
-    let r = start_with(cfg, None, false).await;
+    let (addr, _sim_stop) = sim_on_loopback(1500).await;
+    let r = start_with(controller_on(addr), None, false).await;
     r.wait_journal(Recorded::Known(0)).await;
     r.frequency(7_200_000).await;
     r.wait_journal(Recorded::Unknown { from: 0, to: 2000 })
@@ -533,7 +465,7 @@ async fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
 /// inhibit, and records where the motor came to rest.
 #[tokio::test]
 async fn relax_on_exit_backs_off_half_the_backlash_toward_the_approach_side() {
-    let mut p = policy();
+    let mut p = demo_policy();
     p.backlash_steps = 40;
     let mut c = controller(0);
     c.sim_backlash = 40;
@@ -552,7 +484,7 @@ async fn relax_on_exit_backs_off_half_the_backlash_toward_the_approach_side() {
 /// relaxed already), and nothing unless asked.
 #[tokio::test]
 async fn relax_on_exit_only_after_an_approach_and_only_when_asked() {
-    let mut p = policy();
+    let mut p = demo_policy();
     p.backlash_steps = 40;
     let r = start_custom(
         controller(1000),
@@ -607,10 +539,7 @@ async fn shutdown_stops_a_move_that_does_not_end_in_time() {
                 .unwrap();
         }
     });
-    let mut cfg = controller(0);
-    cfg.url = ControllerUrl::Tcp {
-        addr: addr.to_string(),
-    };
+    let mut cfg = controller_on(addr);
     cfg.reply_margin = Duration::from_millis(400);
     let r = start_with(cfg, None, false).await;
     r.wait_journal(Recorded::Known(0)).await;
@@ -633,33 +562,14 @@ async fn shutdown_stops_a_move_that_does_not_end_in_time() {
 /// finishes.
 #[tokio::test]
 async fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
-    let mut slow = controller(0);
-    slow.steps_per_second = 2000.0;
-    let r = start_with(slow, None, false).await;
-    r.wait_journal(Recorded::Known(0)).await;
-    r.frequency(7_100_000).await;
-    tokio::time::sleep(Duration::from_millis(200)).await;
-    assert_eq!(
-        r.journal.load().unwrap(),
-        Some(Recorded::Unknown { from: 0, to: 1000 })
-    );
+    let r = slow_move_under_way().await;
     r.rig
         .send(LinkEvent::Down {
             reason: "unplugged".into(),
         })
         .await
         .unwrap();
-    let until = Instant::now() + Duration::from_secs(3);
-    let stopped = loop {
-        if let Some(Recorded::Known(p)) = r.journal.load().unwrap() {
-            break p;
-        }
-        assert!(Instant::now() < until, "{:?}", r.journal.load());
-        tokio::time::sleep(Duration::from_millis(10)).await;
-    };
-    assert!((1..1000).contains(&stopped), "{stopped}");
-    tokio::time::sleep(Duration::from_millis(600)).await;
-    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(stopped)));
+    r.stopped_part_way().await;
     r.rig
         .send(LinkEvent::Up {
             device: "/dev/pts/99".into(),
@@ -678,7 +588,7 @@ async fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
 #[tokio::test]
 async fn the_debounce_runs_from_when_the_report_was_read() {
     let debounce = Duration::from_secs(2);
-    let mut p = policy();
+    let mut p = demo_policy();
     p.debounce = debounce;
     p.bands[0].debounce = debounce;
     let r = start_custom(controller(0), None, false, p, false).await;

@@ -3,35 +3,17 @@
 
 use std::io::{BufRead, BufReader, Write};
 use std::net::TcpStream;
-use std::process::{Child, Command, Stdio};
+use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-struct Sim(Child);
+mod common;
 
-impl Drop for Sim {
-    fn drop(&mut self) {
-        let _ = self.0.kill();
-        let _ = self.0.wait();
-    }
-}
+use common::{Proc, BIN};
 
-fn start(extra: &[&str]) -> (Sim, String) {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_tuneward"))
-        .args(["sim-tuner", "--listen", "127.0.0.1:0"])
-        .args(extra)
-        .stdout(Stdio::piped())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
-    let mut out = BufReader::new(child.stdout.take().unwrap());
-    let mut line = String::new();
-    out.read_line(&mut line).unwrap();
-    let addr = line
-        .trim()
-        .strip_prefix("listening on ")
-        .unwrap()
-        .to_string();
-    (Sim(child), addr)
+/// `tuneward sim-tuner` on a free loopback port with `extra` flags; the
+/// process and its address.
+fn start(extra: &[&str]) -> (Proc, String) {
+    common::sim_tuner(&[&["--listen", "127.0.0.1:0"], extra].concat())
 }
 
 fn exchange(w: &mut TcpStream, r: &mut BufReader<TcpStream>, send: &str) -> String {
@@ -101,7 +83,7 @@ fn a_new_connection_takes_over_and_sees_the_same_motor() {
 
 #[test]
 fn bad_flags_are_refused_with_a_reason() {
-    let out = Command::new(env!("CARGO_BIN_EXE_tuneward"))
+    let out = Command::new(BIN)
         .args(["sim-tuner", "--listen", "127.0.0.1:0", "--start", "20000"])
         .output()
         .unwrap();
@@ -122,7 +104,7 @@ fn absurd_speed_or_travel_is_refused_not_a_crash() {
         ][..],
         &["--steps-per-second", "NaN"][..],
     ] {
-        let out = Command::new(env!("CARGO_BIN_EXE_tuneward"))
+        let out = Command::new(BIN)
             .args(["sim-tuner", "--listen", "127.0.0.1:0"])
             .args(args)
             .output()
@@ -138,7 +120,7 @@ async fn sim_tuner_on_a_pseudo_terminal_behind_a_symlink() {
     use tokio::io::{AsyncBufReadExt, AsyncWriteExt};
     let dir = tempfile::tempdir().unwrap();
     let link = dir.path().join("controller");
-    let child = Command::new(env!("CARGO_BIN_EXE_tuneward"))
+    let child = Command::new(BIN)
         .args(["sim-tuner", "--pty"])
         .arg(&link)
         .args(["--start", "42", "--steps-per-second", "10000"])
@@ -146,7 +128,7 @@ async fn sim_tuner_on_a_pseudo_terminal_behind_a_symlink() {
         .stderr(Stdio::null())
         .spawn()
         .unwrap();
-    let mut sim = Sim(child);
+    let mut sim = Proc(child);
     let until = Instant::now() + Duration::from_secs(10);
     while std::fs::symlink_metadata(&link).is_err() {
         assert!(Instant::now() < until, "no symlink at {}", link.display());
@@ -170,9 +152,7 @@ async fn sim_tuner_on_a_pseudo_terminal_behind_a_symlink() {
     assert_eq!(heard, ["AT 42", "MOVING 1042", "AT 1042"]);
 
     // Ctrl-C: a clean exit that takes the symlink away.
-    let pid = i32::try_from(sim.0.id()).unwrap();
-    // SAFETY: sending a signal to our own child process.
-    assert_eq!(unsafe { libc::kill(pid, libc::SIGINT) }, 0);
+    sim.signal(libc::SIGINT);
     let status = sim.0.wait().unwrap();
     assert!(status.success(), "{status:?}");
     assert!(std::fs::symlink_metadata(&link).is_err());

@@ -12,6 +12,8 @@ use tuneward::config::AntennaConfig;
 use tuneward::rig::{Dialect, Direction};
 use tuneward::scenario::{fewest_moves, random_evening, Scenario};
 
+mod common;
+
 fn bin() -> Command {
     Command::new(env!("CARGO_BIN_EXE_tuneward"))
 }
@@ -256,8 +258,7 @@ fn a_hand_worked_capture_gives_the_expected_timeline() {
     let config = dir.path().join("station.toml");
     // A straight-line calibration through two points: 7.1 MHz -> 1000 steps,
     // 7.2 MHz -> 2000 steps.
-    std::fs::write(
-        &config,
+    let text = format!(
         r#"
 [tuner]
 min_steps = 0
@@ -269,16 +270,10 @@ debounce_ms = 500
 hysteresis_hz = 100
 inhibit_lead_ms = 0
 inhibit_tail_ms = 200
-[calibration]
-model = "interpolate"
-points = [{ hz = 7100000, steps = 1000 }, { hz = 7200000, steps = 2000 }]
-[[band]]
-name = "40m"
-low_hz = 7000000
-high_hz = 7300000
-"#,
-    )
-    .unwrap();
+{}"#,
+        common::forty_metres(&[(7_100_000, 1000), (7_200_000, 2000)])
+    );
+    std::fs::write(&config, text).unwrap();
     let timeline = replay_json(&capture, &config, 500);
     let brief: Vec<String> = timeline
         .iter()

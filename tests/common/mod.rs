@@ -1,0 +1,244 @@
+//! Scaffolding shared by the live end-to-end tests and the latency bench:
+//! the invented demo station (calibration, policy, config file), child
+//! processes killed on drop, pseudo-terminal rigs, and readers with
+//! deadlines for link events and port bytes.
+
+// Every test binary compiles this file and uses only some of it.
+#![allow(dead_code)]
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, ExitStatus, Output, Stdio};
+use std::time::{Duration, Instant};
+
+use tokio::io::AsyncReadExt;
+use tokio::sync::mpsc;
+use tokio_serial::{SerialPort, SerialStream};
+use tuneward::calibrate::StepMap;
+use tuneward::config::Approach;
+use tuneward::follow::{Band, Policy};
+use tuneward::rig::link::LinkEvent;
+use tuneward::rig::Direction;
+
+/// The `tuneward` binary under test.
+pub const BIN: &str = env!("CARGO_BIN_EXE_tuneward");
+
+/// Invented demo calibration: 7.000 MHz at step 0, 100 Hz per step.
+pub struct Linear;
+
+impl StepMap for Linear {
+    fn steps_at(&self, hz: f64) -> f64 {
+        (hz - 7_000_000.0) / 100.0
+    }
+}
+
+/// The demo station's policy for [`Linear`]: 40 m, 0 to 3000 steps, no
+/// backlash, `debounce` on the band and overall, 5 ms inhibit lead and
+/// 20 ms tail.
+pub fn policy(debounce: Duration) -> Policy {
+    Policy {
+        bands: vec![Band {
+            name: "40m".into(),
+            low_hz: 7_000_000,
+            high_hz: 7_300_000,
+            guard_hz: 0,
+            hysteresis_hz: 200,
+            debounce,
+        }],
+        min_steps: 0,
+        max_steps: 3000,
+        backlash_steps: 0,
+        approach: Approach::Up,
+        debounce,
+        min_move_steps: 1,
+        inhibit_lead: Duration::from_millis(5),
+        inhibit_tail: Duration::from_millis(20),
+        candidate_dwell: Duration::from_secs(60),
+        inhibit_while_detuned: false,
+    }
+}
+
+/// The `[calibration]` and `[[band]]` tables of an invented 40 m station
+/// whose calibration interpolates between `points` (Hz, steps).
+pub fn forty_metres(points: &[(u64, i64)]) -> String {
+    let points: Vec<String> = points
+        .iter()
+        .map(|(hz, steps)| format!("{{ hz = {hz}, steps = {steps} }}"))
+        .collect();
+    format!(
+        r#"
+[calibration]
+model = "interpolate"
+points = [{}]
+
+[[band]]
+name = "40m"
+low_hz = 7000000
+high_hz = 7300000
+"#,
+        points.join(", ")
+    )
+}
+
+/// Writes `station.toml` in `dir` for an invented station: the rig on
+/// `rig_link`, the controller at `controller` (host:port) moving
+/// `steps_per_second`, 0 to 3000 steps over 7.0 to 7.3 MHz, the journal in
+/// `motor.state`; `extra_rig` adds keys to `[rig]`.
+pub fn station_config(
+    dir: &Path,
+    rig_link: &Path,
+    controller: &str,
+    steps_per_second: u32,
+    extra_rig: &str,
+) -> PathBuf {
+    let config = dir.join("station.toml");
+    let text = format!(
+        r#"
+[rig]
+protocol = "text-semicolon"
+port = "{rig}"
+baud = 38400
+{extra_rig}
+
+[tuner]
+link = "tcp://{controller}"
+min_steps = 0
+max_steps = 3000
+steps_per_second = {steps_per_second}
+settle_ms = 10
+state_file = "motor.state"
+
+[follow]
+debounce_ms = 30
+hysteresis_hz = 100
+inhibit_lead_ms = 5
+inhibit_tail_ms = 20
+{bands}"#,
+        rig = rig_link.display(),
+        bands = forty_metres(&[(7_000_000, 0), (7_300_000, 3000)]),
+    );
+    std::fs::write(&config, text).unwrap();
+    config
+}
+
+/// A child process killed (SIGKILL) when dropped.
+pub struct Proc(pub Child);
+
+impl Drop for Proc {
+    fn drop(&mut self) {
+        let _ = self.0.kill();
+        let _ = self.0.wait();
+    }
+}
+
+impl Proc {
+    pub fn signal(&self, sig: libc::c_int) {
+        let pid = libc::pid_t::try_from(self.0.id()).unwrap();
+        // SAFETY: kill(2) on our own child's pid; no memory is involved.
+        assert_eq!(unsafe { libc::kill(pid, sig) }, 0);
+    }
+
+    pub fn wait_exit(&mut self, within: Duration) -> ExitStatus {
+        let until = Instant::now() + within;
+        loop {
+            if let Some(status) = self.0.try_wait().unwrap() {
+                return status;
+            }
+            assert!(Instant::now() < until, "process did not exit in {within:?}");
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
+}
+
+/// `tuneward sim-tuner` with `args` (which give it a `--listen` address);
+/// the process and the address it says it listens on.
+pub fn sim_tuner(args: &[&str]) -> (Proc, String) {
+    let mut child = Command::new(BIN)
+        .arg("sim-tuner")
+        .args(args)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let mut out = BufReader::new(child.stdout.take().unwrap());
+    let mut line = String::new();
+    out.read_line(&mut line).unwrap();
+    let addr = line
+        .trim()
+        .strip_prefix("listening on ")
+        .unwrap_or_else(|| panic!("sim-tuner said {line:?}"))
+        .to_string();
+    (Proc(child), addr)
+}
+
+/// Asserts that a finished child succeeded, showing its stderr if not.
+#[track_caller]
+pub fn assert_success(out: &Output) {
+    assert!(
+        out.status.success(),
+        "{}: {}",
+        out.status,
+        String::from_utf8_lossy(&out.stderr)
+    );
+}
+
+/// A pseudo-terminal pair whose descriptors children do not inherit (an
+/// inherited master would keep an "unplugged" rig alive).
+pub fn pty_pair() -> (SerialStream, SerialStream) {
+    use std::os::fd::AsRawFd;
+    let (a, b) = SerialStream::pair().unwrap();
+    for fd in [a.as_raw_fd(), b.as_raw_fd()] {
+        // SAFETY: fcntl on descriptors we own; no memory is involved.
+        assert_eq!(
+            unsafe { libc::fcntl(fd, libc::F_SETFD, libc::FD_CLOEXEC) },
+            0
+        );
+    }
+    (a, b)
+}
+
+/// The rig: one end of a pseudo-terminal pair, the other end behind the
+/// symlink `dir/rig` that a config names. The rig's end, the far end and
+/// the symlink.
+pub fn rig_behind_symlink(dir: &Path) -> (SerialStream, SerialStream, PathBuf) {
+    let (rig, far) = pty_pair();
+    let link = dir.join("rig");
+    tuneward::tuner::server::place_symlink(&link, Path::new(&far.name().unwrap())).unwrap();
+    (rig, far, link)
+}
+
+/// Opens `path` (a symlink to a port, as another program would) at `baud`.
+pub fn open_port(path: &Path, baud: u32) -> SerialStream {
+    SerialStream::open(&tokio_serial::new(path.to_string_lossy(), baud)).unwrap()
+}
+
+/// Exactly `n` bytes from `port`, within 5 s.
+pub async fn read_exactly(port: &mut SerialStream, n: usize) -> Vec<u8> {
+    let mut got = vec![0u8; n];
+    tokio::time::timeout(Duration::from_secs(5), port.read_exact(&mut got))
+        .await
+        .expect("bytes within 5 s")
+        .unwrap();
+    got
+}
+
+/// The next link event, within 5 s.
+pub async fn next_event(ev: &mut mpsc::Receiver<LinkEvent>) -> LinkEvent {
+    tokio::time::timeout(Duration::from_secs(5), ev.recv())
+        .await
+        .expect("an event within 5 s")
+        .expect("the task sending events alive")
+}
+
+/// Collects `n` bytes of direction `dir` from the events (skipping others).
+pub async fn collect(ev: &mut mpsc::Receiver<LinkEvent>, dir: Direction, n: usize) -> Vec<u8> {
+    let mut got = Vec::new();
+    while got.len() < n {
+        if let LinkEvent::Bytes { dir: d, bytes, .. } = next_event(ev).await {
+            if d == dir {
+                got.extend_from_slice(&bytes);
+            }
+        }
+    }
+    got
+}
