@@ -584,8 +584,11 @@ async fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
 
 /// A debounce runs from when the rig link read the report, not from when
 /// the driver got to it: a report read long enough ago is acted on at once
-/// (the hand-over between tasks never delays the move it releases).
-#[tokio::test]
+/// (the hand-over between tasks never delays the move it releases). On
+/// tokio's paused clock, so the times below are exact and no machine's
+/// load can move them (and the driver's precise sleep is seen to fall back
+/// to the timer on such a clock rather than wait for ever).
+#[tokio::test(start_paused = true)]
 async fn the_debounce_runs_from_when_the_report_was_read() {
     let debounce = Duration::from_secs(2);
     let mut p = demo_policy();
@@ -602,10 +605,12 @@ async fn the_debounce_runs_from_when_the_report_was_read() {
     let handed = Instant::now();
     r.wait_journal(Recorded::Known(1000)).await;
     // Counted from the hand-over, the move could not start for 2 s; from
-    // the read, it is due already. A second of slack for a loaded machine.
+    // the read, it is due at once: the inhibit lead (5 ms), 1000 steps at
+    // 20 000 steps/s (50 ms) and the settle (10 ms), give or take the
+    // polling of the journal.
     let took = handed.elapsed();
     assert!(
-        took < Duration::from_secs(1),
+        took >= Duration::from_millis(65) && took < Duration::from_millis(200),
         "moved {took:?} after the hand-over"
     );
     let (out, _, _) = r.finish().await;
