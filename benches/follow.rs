@@ -66,12 +66,7 @@ fn drive(station: &Station, events: &[(Duration, Ev)]) -> u64 {
 fn bench(c: &mut Criterion) {
     let config = Config::parse(DEMO_CONFIG, Path::new("config/demo.toml")).expect("demo config");
     let station = Station::from_config(config).expect("demo station");
-    let bands: Vec<(u64, u64)> = station
-        .policy
-        .bands
-        .iter()
-        .map(|b| (b.low_hz, b.high_hz))
-        .collect();
+    let bands = station.policy.band_ranges();
     let sc = random_evening_repeating(24, 24.0, &bands, Some(Duration::from_millis(300)));
     let events: Vec<(Duration, Ev)> = sc
         .steps

@@ -383,12 +383,7 @@ pub fn bench_follow(
             found: "no loop described".to_string(),
         }
     })?;
-    let bands: Vec<(u64, u64)> = station
-        .policy
-        .bands
-        .iter()
-        .map(|b| (b.low_hz, b.high_hz))
-        .collect();
+    let bands = station.policy.band_ranges();
     let wire = DialectWire {
         dialect: &station.dialect,
         address: station.config.rig.address.unwrap_or(0x94),
@@ -571,7 +566,7 @@ mod tests {
         let mut tally = Tally::default();
         let physics = SmallLoop::from_config(&st.config.antenna).unwrap();
         let sim_loop = SimLoop::new(st.map.as_ref(), physics, &fixed, 3.0, 20_000.0);
-        let bands: Vec<(u64, u64)> = fixed.bands.iter().map(|b| (b.low_hz, b.high_hz)).collect();
+        let bands = fixed.band_ranges();
         let wire = DialectWire {
             dialect: &st.dialect,
             address: 0x94,

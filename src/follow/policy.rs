@@ -50,6 +50,11 @@ pub struct Policy {
 }
 
 impl Policy {
+    /// Each band's edges, low and high, in Hz, in the config's order.
+    pub fn band_ranges(&self) -> Vec<(u64, u64)> {
+        self.bands.iter().map(|b| (b.low_hz, b.high_hz)).collect()
+    }
+
     /// Resolves the policy from a validated config. `"auto"` dead bands are
     /// resolved through `auto_hysteresis`, which is given a band's centre in
     /// Hz and answers with a dead band in Hz, or `None` if it cannot estimate
