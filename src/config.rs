@@ -587,7 +587,9 @@ impl Config {
         })
     }
 
-    fn path_for_errors(&self) -> PathBuf {
+    /// The config's file, or `<config>` when it was not read from one:
+    /// what every error about it names.
+    pub fn path_for_errors(&self) -> PathBuf {
         self.source
             .clone()
             .unwrap_or_else(|| PathBuf::from("<config>"))
@@ -750,27 +752,37 @@ impl Config {
         }
     }
 
-    /// The fitted base calibration this config describes (points without a
-    /// profile; [`crate::calibrate::CalibrationSet`] handles profiles).
-    pub fn calibration(&self) -> Result<crate::calibrate::Calibration, ConfigError> {
-        let mut points = self.calibration_points()?;
-        let all = points.len();
-        points.retain(|p| p.profile.is_none());
-        if points.is_empty() && all > 0 {
-            return Err(self.invalid(
-                "calibration",
-                "points without a profile (the base calibration, which profiles are offsets from)",
-                format!("{all} points, every one of them in a profile"),
-            ));
-        }
-        let options = crate::calibrate::FitOptions {
+    /// How `[calibration]` asks for its points to be fitted.
+    pub fn fit_options(&self) -> crate::calibrate::FitOptions {
+        crate::calibrate::FitOptions {
             kind: self.calibration.model,
             degree: self
                 .calibration
                 .degree
                 .unwrap_or(crate::calibrate::DEFAULT_POLY_DEGREE),
-        };
-        crate::calibrate::Calibration::fit_with(options, &points).map_err(|source| {
+        }
+    }
+
+    /// Points, all of them in a profile, leave no base calibration for the
+    /// profiles to be offsets from: that is an error of its own.
+    pub fn check_base_points(&self, points: &[crate::calibrate::Point]) -> Result<(), ConfigError> {
+        if points.is_empty() || points.iter().any(|p| p.profile.is_none()) {
+            return Ok(());
+        }
+        Err(self.invalid(
+            "calibration",
+            "points without a profile (the base calibration, which profiles are offsets from)",
+            format!("{} points, every one of them in a profile", points.len()),
+        ))
+    }
+
+    /// The fitted base calibration this config describes (points without a
+    /// profile; [`crate::calibrate::CalibrationSet`] handles profiles).
+    pub fn calibration(&self) -> Result<crate::calibrate::Calibration, ConfigError> {
+        let mut points = self.calibration_points()?;
+        self.check_base_points(&points)?;
+        points.retain(|p| p.profile.is_none());
+        crate::calibrate::Calibration::fit_with(self.fit_options(), &points).map_err(|source| {
             ConfigError::Calibration {
                 path: self.path_for_errors(),
                 source,

@@ -373,11 +373,7 @@ pub fn bench_follow(
 ) -> Result<Report, StationError> {
     let physics = SmallLoop::from_config(&station.config.antenna).ok_or_else(|| {
         crate::config::ConfigError::Invalid {
-            path: station
-                .config
-                .source
-                .clone()
-                .unwrap_or_else(|| std::path::PathBuf::from("<config>")),
+            path: station.config.path_for_errors(),
             key: "antenna".to_string(),
             expected: "loop_diameter_m and conductor_diameter_m describing the loop (bench-follow needs its Q)".to_string(),
             found: "no loop described".to_string(),

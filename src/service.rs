@@ -94,11 +94,7 @@ pub struct Outcome {
 
 /// The config's file name for error messages.
 fn config_name(config: &crate::config::Config) -> String {
-    config
-        .source
-        .as_deref()
-        .map(|p| p.display().to_string())
-        .unwrap_or_else(|| "<config>".to_string())
+    config.path_for_errors().display().to_string()
 }
 
 /// The rig's port as `[rig]` describes it: `port`, `baud` and framing, and

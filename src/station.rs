@@ -6,7 +6,7 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-use crate::calibrate::{Calibration, CalibrationSet, FitOptions, StepMap};
+use crate::calibrate::{Calibration, CalibrationSet, StepMap};
 use crate::capture::{CaptureError, CaptureReader};
 use crate::config::{Config, ConfigError};
 use crate::follow::Policy;
@@ -62,29 +62,18 @@ impl Station {
         let policy = Policy::from_config(&config, |centre| {
             crate::antenna::auto_hysteresis_hz(&config.antenna, centre)
         })?;
-        let config_path = config
-            .source
-            .clone()
-            .unwrap_or_else(|| PathBuf::from("<config>"));
         let calibration_error = |source| ConfigError::Calibration {
-            path: config_path.clone(),
+            path: config.path_for_errors(),
             source,
         };
-        let options = FitOptions {
-            kind: config.calibration.model,
-            degree: config
-                .calibration
-                .degree
-                .unwrap_or(crate::calibrate::DEFAULT_POLY_DEGREE),
-        };
         let points = config.calibration_points()?;
-        if !points.iter().any(|p| p.profile.is_none()) {
-            // No base points: that is the error to report, before anything a
-            // profile's points might say.
-            config.calibration()?;
-        }
-        let profiles = CalibrationSet::fit_with(options, &points).map_err(calibration_error)?;
-        // The base is fitted once, inside the set.
+        // No base points is the error to report, before anything a
+        // profile's points might say.
+        config.check_base_points(&points)?;
+        let profiles =
+            CalibrationSet::fit_with(config.fit_options(), &points).map_err(calibration_error)?;
+        // The base is fitted once, inside the set; without one there were
+        // no points at all, which the base fit reports.
         let calibration = match profiles.base() {
             Some(base) => Arc::clone(base),
             None => Arc::new(config.calibration()?),
@@ -95,10 +84,7 @@ impl Station {
         let base = config.source.as_deref().and_then(Path::parent);
         let dialect = Dialect::resolve(&config.rig.protocol, base).map_err(|source| {
             StationError::Dialect {
-                path: config
-                    .source
-                    .clone()
-                    .unwrap_or_else(|| PathBuf::from("<config>")),
+                path: config.path_for_errors(),
                 source,
             }
         })?;

@@ -63,10 +63,7 @@ impl Policy {
         config: &Config,
         auto_hysteresis: impl Fn(f64) -> Option<u64>,
     ) -> Result<Policy, ConfigError> {
-        let path = config
-            .source
-            .clone()
-            .unwrap_or_else(|| std::path::PathBuf::from("<config>"));
+        let path = config.path_for_errors();
         let f = &config.follow;
         let mut bands = Vec::with_capacity(config.bands.len());
         for (i, b) in config.bands.iter().enumerate() {
