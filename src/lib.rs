@@ -14,6 +14,7 @@ pub mod config;
 pub mod follow;
 pub mod inhibit;
 pub mod journal;
+pub mod port;
 pub mod quality;
 pub mod recorder;
 pub mod replay;

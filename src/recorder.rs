@@ -19,7 +19,7 @@ use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
 
 use crate::capture::CaptureWriter;
-use crate::rig::link::LinkEvent;
+use crate::port::link::LinkEvent;
 use crate::rig::Direction;
 use crate::service::RigSource;
 
@@ -64,9 +64,9 @@ pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
         let (stop_tx, stop) = watch::channel(false);
         let (tx, rx) = mpsc::channel(256);
         let task = match source {
-            RigSource::Link(cfg) => crate::rig::link::spawn(cfg, tx, stop),
+            RigSource::Link(cfg) => crate::port::link::spawn(cfg, tx, stop),
             RigSource::Proxy { config, boundary } => {
-                crate::rig::proxy::spawn(config, boundary, tx, stop)?
+                crate::port::proxy::spawn(config, boundary, tx, stop)?
             }
             RigSource::Events(_) => return Err("no rig port to capture".to_string()),
         };
@@ -134,7 +134,7 @@ pub async fn record<W: Write>(
     loop {
         tokio::select! {
             _ = &mut stop => break,
-            _ = crate::rig::link::sleep_until_opt(until) => break,
+            _ = crate::port::link::sleep_until_opt(until) => break,
             _ = progress.tick() => {
                 let line = format!(
                     "capturing: {} s, {} records, {} bytes from the rig, {} to it",

@@ -40,8 +40,8 @@ use tokio::time::Instant;
 use crate::follow::{Action, Follower};
 use crate::inhibit::InhibitLine;
 use crate::journal::{Journal, Recorded};
-use crate::rig::link::{LinkConfig, LinkEvent};
-use crate::rig::proxy::{Boundary, ProxyConfig};
+use crate::port::link::{LinkConfig, LinkEvent};
+use crate::port::proxy::{Boundary, ProxyConfig};
 use crate::rig::{Decode, RigEvent};
 use crate::tuner::client::{ClientConfig, TunerCommand, TunerEvent};
 
@@ -129,7 +129,7 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
             let mut query = station.dialect.poll_frequency(address);
             query.extend(station.dialect.poll_transmit(address));
             let every = Duration::from_millis(ms);
-            Some(crate::rig::link::PollConfig {
+            Some(crate::port::link::PollConfig {
                 query,
                 every,
                 max_every: every.max(Duration::from_secs(4)),
@@ -159,7 +159,7 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
                     poll,
                     backoff_cap: Duration::from_secs(2),
                 },
-                boundary: Box::new(crate::rig::proxy::ends_with(end)),
+                boundary: Box::new(crate::port::proxy::ends_with(end)),
             }
         }
         None => RigSource::Link(LinkConfig {
@@ -205,9 +205,9 @@ impl Service {
 pub fn port_settings(
     rig: &crate::config::RigConfig,
     port: String,
-) -> Result<crate::rig::link::PortSettings, String> {
+) -> Result<crate::port::link::PortSettings, String> {
     use crate::config::{SerialFlow, SerialParity};
-    use crate::rig::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
+    use crate::port::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
     if rig.baud == 0 {
         return Err("key `rig.baud`: expected a positive baud rate, found 0".to_string());
     }
@@ -333,11 +333,15 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
     let (rig_tx, rig_rx) = mpsc::channel(256);
     let (rig_task, rig_rx) = match service.rig {
         RigSource::Link(cfg) => (
-            Some(crate::rig::link::spawn(cfg, rig_tx, tasks_shutdown.clone())),
+            Some(crate::port::link::spawn(
+                cfg,
+                rig_tx,
+                tasks_shutdown.clone(),
+            )),
             rig_rx,
         ),
         RigSource::Proxy { config, boundary } => (
-            Some(crate::rig::proxy::spawn(
+            Some(crate::port::proxy::spawn(
                 config,
                 boundary,
                 rig_tx,
@@ -619,7 +623,7 @@ impl Driver {
         let mut spare = watch::channel(false).1;
         let shutdown = shutdown.unwrap_or(&mut spare);
         let step = tokio::select! {
-            _ = crate::rig::link::wait_true(shutdown), if watch_shutdown => return Step::Shutdown,
+            _ = crate::port::link::wait_true(shutdown), if watch_shutdown => return Step::Shutdown,
             ev = rig.recv(), if *rig_open => {
                 match ev {
                     Some(ev) => self.rig_event(ev),
@@ -645,13 +649,13 @@ impl Driver {
                 self.core.handle_timeout(now);
                 Step::Worked
             }
-            _ = crate::rig::link::sleep_until_opt(retry) => {
+            _ = crate::port::link::sleep_until_opt(retry) => {
                 self.outcome.timer_wakeups += 1;
                 self.retry_where = None;
                 self.send(TunerCommand::Where).await;
                 Step::Worked
             }
-            _ = crate::rig::link::sleep_until_opt(until) => Step::Deadline,
+            _ = crate::port::link::sleep_until_opt(until) => Step::Deadline,
         };
         self.apply_actions().await;
         step

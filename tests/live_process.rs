@@ -386,7 +386,7 @@ async fn rig_unplug_and_controller_drop_both_recover() {
     run.wait_log(&["rig port down"]);
     let (mut rig_b, far_b) = pty_pair();
     let device_b = far_b.name().unwrap();
-    tuneward::tuner::server::place_symlink(&rig_link, Path::new(&device_b)).unwrap();
+    tuneward::port::pty::place_symlink(&rig_link, Path::new(&device_b)).unwrap();
     run.wait_log(&["rig port up", &device_b]);
     say(&mut rig_b, &dialect.encode_frequency(7_030_000, 0)).await;
     wait_journal(&journal, Recorded::Known(300));

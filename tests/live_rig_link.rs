@@ -7,9 +7,9 @@ use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::sync::{mpsc, watch};
 use tokio::time::{timeout, Instant};
 use tokio_serial::{SerialPort, SerialStream};
-use tuneward::rig::link::{spawn, LinkConfig, LinkEvent, PollConfig, PortSettings};
+use tuneward::port::link::{spawn, LinkConfig, LinkEvent, PollConfig, PortSettings};
+use tuneward::port::pty::place_symlink;
 use tuneward::rig::Direction;
-use tuneward::tuner::server::place_symlink;
 
 mod common;
 

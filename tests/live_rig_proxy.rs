@@ -8,8 +8,8 @@ use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::sync::{mpsc, watch};
 use tokio::time::timeout;
 use tokio_serial::{SerialPort, SerialStream};
-use tuneward::rig::link::{LinkEvent, PollConfig, PortSettings};
-use tuneward::rig::proxy::{ends_with, spawn, ProxyConfig};
+use tuneward::port::link::{LinkEvent, PollConfig, PortSettings};
+use tuneward::port::proxy::{ends_with, spawn, ProxyConfig};
 use tuneward::rig::Direction;
 
 mod common;
@@ -152,7 +152,7 @@ async fn an_existing_file_at_the_link_path_is_not_replaced() {
 /// other program keeps its end open throughout and hears the rig again.
 #[tokio::test]
 async fn the_shared_port_survives_the_rig_being_unplugged() {
-    use tuneward::tuner::server::place_symlink;
+    use tuneward::port::pty::place_symlink;
     let dir = tempfile::tempdir().unwrap();
     let rig_link = dir.path().join("rig-by-id");
     let (rig1, rig1_far) = SerialStream::pair().unwrap();

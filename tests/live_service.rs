@@ -10,8 +10,8 @@ use tokio::time::Instant;
 use tuneward::follow::{Follower, Policy};
 use tuneward::inhibit::RecordingLine;
 use tuneward::journal::{Journal, Recorded};
+use tuneward::port::link::LinkEvent;
 use tuneward::rig::dialect::Dialect;
-use tuneward::rig::link::LinkEvent;
 use tuneward::rig::Direction;
 use tuneward::service::{run, Outcome, RigSource, Service};
 use tuneward::tuner::client::{ClientConfig, ControllerUrl};
@@ -439,8 +439,8 @@ fn bad_serial_framing_names_the_key() {
     assert!(e.contains("rig.stop_bits"), "{e}");
     rig.stop_bits = 2;
     let s = tuneward::service::port_settings(&rig, "/dev/x".into()).unwrap();
-    assert_eq!(s.data_bits, tuneward::rig::link::DataBits::Seven);
-    assert_eq!(s.stop_bits, tuneward::rig::link::StopBits::Two);
+    assert_eq!(s.data_bits, tuneward::port::link::DataBits::Seven);
+    assert_eq!(s.stop_bits, tuneward::port::link::StopBits::Two);
 }
 
 /// A controller that refuses a leg (its limits are narrower than the

@@ -288,6 +288,3 @@ impl Outcome {
         }
     }
 }
-
-pub mod link;
-pub mod proxy;

@@ -17,7 +17,7 @@ use tokio_serial::{SerialPort, SerialStream};
 use tuneward::calibrate::StepMap;
 use tuneward::config::Approach;
 use tuneward::follow::{Band, Policy};
-use tuneward::rig::link::LinkEvent;
+use tuneward::port::link::LinkEvent;
 use tuneward::rig::Direction;
 
 /// The `tuneward` binary under test.
@@ -203,7 +203,7 @@ pub fn pty_pair() -> (SerialStream, SerialStream) {
 pub fn rig_behind_symlink(dir: &Path) -> (SerialStream, SerialStream, PathBuf) {
     let (rig, far) = pty_pair();
     let link = dir.join("rig");
-    tuneward::tuner::server::place_symlink(&link, Path::new(&far.name().unwrap())).unwrap();
+    tuneward::port::pty::place_symlink(&link, Path::new(&far.name().unwrap())).unwrap();
     (rig, far, link)
 }
 

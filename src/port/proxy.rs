@@ -34,8 +34,8 @@ use super::link::{
     open_port, sleep_until_opt, wait_true, write_all_timeout, LinkEvent, PollConfig, Poller,
     PortSettings, Transitions,
 };
-use super::Direction;
-use crate::tuner::server::PtyLink;
+use super::pty::PtyLink;
+use crate::rig::Direction;
 
 /// Says whether the other program's byte stream is at a message boundary
 /// after `chunk` (the latest bytes it wrote).

@@ -25,7 +25,7 @@ use tokio::task::JoinHandle;
 use tokio::time::Instant;
 pub use tokio_serial::{DataBits, FlowControl, Parity, StopBits};
 
-use super::Direction;
+use crate::rig::Direction;
 
 /// How to open the port.
 #[derive(Debug, Clone, PartialEq)]
