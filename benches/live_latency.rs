@@ -34,7 +34,7 @@ use tuneward::journal::Journal;
 use tuneward::port::link::LinkEvent;
 use tuneward::rig::dialect::Dialect;
 use tuneward::rig::Direction;
-use tuneward::service::{run, Outcome, RigSource, Service};
+use tuneward::service::{run, RigSource, RunSummary, ServiceParts};
 use tuneward::tuner::client::{ClientConfig, ControllerUrl};
 
 #[path = "../tests/common/mod.rs"]
@@ -117,7 +117,7 @@ struct Live {
     rig: mpsc::Sender<LinkEvent>,
     gotos: mpsc::UnboundedReceiver<Instant>,
     stop: watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<Outcome, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
     _dir: tempfile::TempDir,
 }
 
@@ -127,7 +127,7 @@ async fn start(journal: bool) -> Live {
     let addr = controller_double(goto_tx).await;
     let (rig, rig_rx) = mpsc::channel(64);
     let (stop, shutdown) = watch::channel(false);
-    let service = Service {
+    let service = ServiceParts {
         follower: Follower::new(policy(), Arc::new(common::Linear), None),
         decoder: Dialect::builtin("text-semicolon").unwrap().decoder(None),
         rig: RigSource::Events(rig_rx),
@@ -162,7 +162,7 @@ async fn start(journal: bool) -> Live {
 }
 
 impl Live {
-    async fn finish(self) -> Outcome {
+    async fn finish(self) -> RunSummary {
         self.stop.send_replace(true);
         self.task.await.unwrap().unwrap()
     }

@@ -286,16 +286,15 @@ fn clip(s: &str) -> String {
     s.chars().take(40).collect()
 }
 
-/// `tuneward set-position`: the operator says where the motor is.
-#[derive(Debug, Clone, clap::Args)]
-pub struct SetPositionArgs {
+/// What `tuneward set-position` is asked to do: the operator says where
+/// the motor is.
+#[derive(Debug, Clone)]
+pub struct SetPositionOptions {
     /// The motor's position in steps, as the operator has established it
     /// (after homing, or by reading a scale).
-    #[arg(allow_hyphen_values = true)]
     pub steps: i64,
     /// The station's config file; its `tuner.state_file` (default
     /// `tuneward-position.state` beside the config) is written.
-    #[arg(long, value_name = "FILE")]
     pub config: PathBuf,
 }
 
@@ -314,7 +313,7 @@ pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, String> {
 }
 
 /// Runs `tuneward set-position`.
-pub fn run_set_position(args: &SetPositionArgs) -> Result<(), String> {
+pub fn run_set_position(args: &SetPositionOptions) -> Result<(), String> {
     let config = Config::load(&args.config).map_err(|e| e.to_string())?;
     let path = set_position(&config, args.steps)?;
     println!("position {} recorded in {}", args.steps, path.display());

@@ -102,7 +102,7 @@ pub struct Row {
 
 /// What `bench-follow` reports.
 #[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct Report {
+pub struct BenchReport {
     pub station: String,
     pub evenings: usize,
     pub hours: f64,
@@ -112,7 +112,7 @@ pub struct Report {
     pub rows: Vec<Row>,
 }
 
-impl Report {
+impl BenchReport {
     pub fn row(&self, policy: &str) -> Option<&Row> {
         self.rows.iter().find(|r| r.policy == policy)
     }
@@ -370,7 +370,7 @@ pub fn bench_follow(
     station: &Station,
     name: &str,
     options: &BenchOptions,
-) -> Result<Report, StationError> {
+) -> Result<BenchReport, StationError> {
     let physics = SmallLoop::from_config(&station.config.antenna).ok_or_else(|| {
         crate::config::ConfigError::Invalid {
             path: station.config.path_for_errors(),
@@ -405,7 +405,7 @@ pub fn bench_follow(
         run_policy(station, &plain, &sc, &chunks, &sim_loop, &mut t_naive)?;
         optimum(station, &physics, &sc, &mut t_opt);
     }
-    Ok(Report {
+    Ok(BenchReport {
         station: name.to_string(),
         evenings: options.seeds.len(),
         hours: options.hours,
@@ -421,12 +421,12 @@ pub fn bench_follow(
 
 /// `tuneward bench-follow`: measures the station at `config` (the bundled
 /// quality station when `None`) and writes a table, or JSON.
-pub fn run(
+pub fn run_bench(
     config: Option<&Path>,
     options: &BenchOptions,
     json: bool,
     out: &mut dyn Write,
-) -> Result<Report, StationError> {
+) -> Result<BenchReport, StationError> {
     let (station, name) = match config {
         Some(path) => (Station::load(path)?, path.display().to_string()),
         None => {
@@ -447,7 +447,7 @@ pub fn run(
 }
 
 /// The report as a table.
-pub fn write_table(report: &Report, out: &mut dyn Write) -> std::io::Result<()> {
+pub fn write_table(report: &BenchReport, out: &mut dyn Write) -> std::io::Result<()> {
     writeln!(
         out,
         "{}: {} invented evenings of {} h, {} dwells; hidden calibration error ±{} steps",

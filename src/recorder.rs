@@ -15,42 +15,38 @@ use std::io::Write;
 use std::path::PathBuf;
 use std::time::Duration;
 
-use tokio::sync::{mpsc, watch};
+use tokio::sync::mpsc;
 use tokio::time::Instant;
 
 use crate::capture::CaptureWriter;
 use crate::port::link::LinkEvent;
 use crate::rig::Direction;
 use crate::service::RigSource;
+use crate::shutdown;
+use crate::timing::sleep_until_opt;
 
-/// Arguments of `tuneward capture`.
-#[derive(Debug, clap::Args)]
-pub struct CaptureArgs {
+/// What `tuneward capture` is asked to do.
+#[derive(Debug, Clone)]
+pub struct CaptureOptions {
     /// The station's config (TOML); `[rig]` says which port and how.
-    #[arg(long, short)]
     pub config: PathBuf,
     /// The capture file to write (replaced if it exists).
-    #[arg(long, value_name = "FILE.cap")]
     pub out: PathBuf,
-    /// Stop after this many seconds (e.g. 90 or 2.5) [default: until Ctrl-C].
-    #[arg(long, value_name = "S", value_parser = parse_duration)]
+    /// Stop after this long; `None`: until interrupted.
     pub duration: Option<Duration>,
 }
 
-fn parse_duration(s: &str) -> Result<Duration, String> {
-    crate::capture::parse_seconds(s).map_err(|e| format!("expected {e}, found `{s}`"))
-}
-
-/// What a capture recorded.
+/// What a capture recorded (not to be confused with the journal's
+/// [`crate::journal::Recorded`], a position record).
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
-pub struct Recorded {
+pub struct CaptureCounts {
     pub records: u64,
     pub rx_bytes: u64,
     pub tx_bytes: u64,
 }
 
 /// Runs `tuneward capture`.
-pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
+pub fn run_capture(args: &CaptureOptions) -> Result<CaptureCounts, String> {
     let station = crate::station::Station::load(&args.config).map_err(|e| e.to_string())?;
     let source = crate::service::rig_source(&station)?;
     let file = std::fs::File::create(&args.out)
@@ -61,7 +57,7 @@ pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
         .map_err(|e| format!("cannot start the runtime: {e}"))?;
     let out = args.out.display().to_string();
     rt.block_on(async move {
-        let (stop_tx, stop) = watch::channel(false);
+        let (stop_trigger, stop) = shutdown::channel();
         let (tx, rx) = mpsc::channel(256);
         let task = match source {
             RigSource::Link(cfg) => crate::port::link::spawn(cfg, tx, stop),
@@ -87,7 +83,7 @@ pub fn run_capture(args: &CaptureArgs) -> Result<Recorded, String> {
             crate::signals::interrupted(),
         )
         .await;
-        stop_tx.send_replace(true);
+        stop_trigger.trigger();
         let _ = tokio::time::timeout(Duration::from_secs(3), task).await;
         let flushed = w
             .flush()
@@ -116,10 +112,10 @@ pub async fn record<W: Write>(
     duration: Option<Duration>,
     name: &str,
     stop: impl std::future::Future<Output = ()>,
-) -> Result<Recorded, String> {
+) -> Result<CaptureCounts, String> {
     let origin = Instant::now();
     let until = duration.map(|d| origin + d);
-    let mut got = Recorded::default();
+    let mut got = CaptureCounts::default();
     let mut last = Duration::ZERO;
     let mut progress =
         tokio::time::interval_at(origin + Duration::from_secs(1), Duration::from_secs(1));
@@ -134,7 +130,7 @@ pub async fn record<W: Write>(
     loop {
         tokio::select! {
             _ = &mut stop => break,
-            _ = crate::port::link::sleep_until_opt(until) => break,
+            _ = sleep_until_opt(until) => break,
             _ = progress.tick() => {
                 let line = format!(
                     "capturing: {} s, {} records, {} bytes from the rig, {} to it",

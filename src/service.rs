@@ -5,8 +5,15 @@
 //! link); this driver owns the core, the decoder, the inhibit line and the
 //! journal, and joins them with channels. It feeds the core events stamped
 //! with the time since its start, carries out the core's actions in order,
-//! and sleeps until the core's next deadline. Shutdown is a `watch` flag
-//! every task honours.
+//! and sleeps until the core's next deadline.
+//!
+//! Shutdown is the driver's: on the request (a [`Shutdown`], set by
+//! SIGINT/SIGTERM in `tuneward run`) it stops taking new targets, lets the
+//! move under way finish (or stops it when it overruns), relaxes the drive
+//! train if asked, journals the position and releases the inhibit. Only
+//! then are the rig and controller tasks told to stop, through a
+//! [`Shutdown`] of their own, so that a transmission is still heard and the
+//! controller still answers until the end.
 //!
 //! What the driver adds to the core, all on the side of caution:
 //!
@@ -32,18 +39,30 @@
 //! per fsync): ordering matters more than latency here, and the events come
 //! at human rates.
 
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
 use std::time::Duration;
 
 use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
 
+use crate::calibrate::{append_candidate, candidates_path, Point};
+use crate::config::{Approach, Config, RigConfig, RigMode, SerialFlow, SerialParity};
 use crate::follow::{Action, Follower};
-use crate::inhibit::InhibitLine;
+use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, Recorded};
-use crate::port::link::{LinkConfig, LinkEvent};
-use crate::port::proxy::{Boundary, ProxyConfig};
-use crate::rig::{Decode, RigEvent};
-use crate::tuner::client::{ClientConfig, TunerCommand, TunerEvent};
+use crate::port::link::{
+    DataBits, FlowControl, LinkConfig, LinkEvent, Parity, PollConfig, PortSettings, StopBits,
+};
+use crate::port::proxy::{ends_with, Boundary, ProxyConfig};
+use crate::port::{link, proxy};
+use crate::rig::dialect::Spec;
+use crate::rig::{Decode, Family, RigEvent};
+use crate::shutdown::{self, Shutdown};
+use crate::signals;
+use crate::station::Station;
+use crate::timing::{sleep_until_opt, sleep_until_precise};
+use crate::tuner::client::{self, ClientConfig, TunerCommand, TunerEvent};
 
 /// Where the rig's bytes come from.
 pub enum RigSource {
@@ -59,7 +78,7 @@ pub enum RigSource {
 }
 
 /// Everything the live service drives.
-pub struct Service {
+pub struct ServiceParts {
     /// The core; give it `position: None` (the position comes from the
     /// controller and the journal once the link is up).
     pub follower: Follower,
@@ -75,12 +94,12 @@ pub struct Service {
     pub relax_on_exit: bool,
     /// Where touch-up candidates go (beside `[calibration] file`); `None`
     /// with inline points: candidates are only logged.
-    pub candidates: Option<std::path::PathBuf>,
+    pub candidates: Option<PathBuf>,
 }
 
 /// How a run ended.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
-pub struct Outcome {
+pub struct RunSummary {
     /// Where the motor was at rest at the end, if known.
     pub position: Option<i64>,
     /// Moves the core started.
@@ -93,7 +112,7 @@ pub struct Outcome {
 }
 
 /// The config's file name for error messages.
-fn config_name(config: &crate::config::Config) -> String {
+fn config_name(config: &Config) -> String {
     config.path_for_errors().display().to_string()
 }
 
@@ -101,7 +120,7 @@ fn config_name(config: &crate::config::Config) -> String {
 /// the `mode`: `listen` (read only), `poll` (queries every `poll_ms`) or
 /// `proxy` (shared through a pseudo-terminal at `proxy_link`, which is
 /// relative to the config's folder).
-pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String> {
+pub fn rig_source(station: &Station) -> Result<RigSource, String> {
     let config = &station.config;
     let file = config_name(config);
     let port = config.rig.port.clone().ok_or_else(|| {
@@ -119,7 +138,7 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
         }
         Some(ms) => {
             let address = match (station.dialect.family(), config.rig.address) {
-                    (crate::rig::Family::Binary, None) => {
+                    (Family::Binary, None) => {
                         return Err(format!(
                             "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
                         ))
@@ -129,7 +148,7 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
             let mut query = station.dialect.poll_frequency(address);
             query.extend(station.dialect.poll_transmit(address));
             let every = Duration::from_millis(ms);
-            Some(crate::port::link::PollConfig {
+            Some(PollConfig {
                 query,
                 every,
                 max_every: every.max(Duration::from_secs(4)),
@@ -137,20 +156,20 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
         }
     };
     let proxy_link = match config.rig.mode {
-            crate::config::RigMode::Proxy => Some(config.rig.proxy_link.clone().ok_or_else(|| {
+            RigMode::Proxy => Some(config.rig.proxy_link.clone().ok_or_else(|| {
                 format!("{file}: key `rig.proxy_link`: expected the path for the shared pseudo-terminal's symlink (mode = \"proxy\"), found none")
             })?),
             _ => None,
         };
     let rig = match &proxy_link {
         Some(link) => {
-            let link = match config.source.as_deref().and_then(std::path::Path::parent) {
+            let link = match config.source.as_deref().and_then(Path::parent) {
                 Some(dir) if link.is_relative() => dir.join(link),
                 _ => link.clone(),
             };
             let end = match &station.dialect.spec {
-                crate::rig::dialect::Spec::Binary(b) => b.terminator,
-                crate::rig::dialect::Spec::Text(t) => t.terminator,
+                Spec::Binary(b) => b.terminator,
+                Spec::Text(t) => t.terminator,
             };
             RigSource::Proxy {
                 config: ProxyConfig {
@@ -159,7 +178,7 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
                     poll,
                     backoff_cap: Duration::from_secs(2),
                 },
-                boundary: Box::new(crate::port::proxy::ends_with(end)),
+                boundary: Box::new(ends_with(end)),
             }
         }
         None => RigSource::Link(LinkConfig {
@@ -171,23 +190,19 @@ pub fn rig_source(station: &crate::station::Station) -> Result<RigSource, String
     Ok(rig)
 }
 
-impl Service {
+impl ServiceParts {
     /// The live service a station's config describes: the rig's port from
     /// `[rig]` (see [`rig_source`]), the controller from `tuner.link`, the
     /// inhibit from `[inhibit]`, the journal from `tuner.state_file`.
-    pub fn from_station(station: &crate::station::Station) -> Result<Service, String> {
+    pub fn from_station(station: &Station) -> Result<ServiceParts, String> {
         let config = &station.config;
         let file = config_name(config);
         let rig = rig_source(station)?;
         let controller =
             ClientConfig::from_tuner(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
-        let inhibit = crate::inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
-        Ok(Service {
-            follower: Follower::new(
-                station.policy.clone(),
-                std::sync::Arc::clone(&station.map),
-                None,
-            ),
+        let inhibit = inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
+        Ok(ServiceParts {
+            follower: Follower::new(station.policy.clone(), Arc::clone(&station.map), None),
             decoder: station.dialect.decoder(config.rig.address),
             rig,
             controller,
@@ -196,18 +211,13 @@ impl Service {
             relax_on_exit: config.tuner.relax_on_exit,
             candidates: config
                 .calibration_file()
-                .map(|points| crate::calibrate::candidates_path(&points)),
+                .map(|points| candidates_path(&points)),
         })
     }
 }
 
 /// The rig port's settings from `[rig]`, with the keys named in errors.
-pub fn port_settings(
-    rig: &crate::config::RigConfig,
-    port: String,
-) -> Result<crate::port::link::PortSettings, String> {
-    use crate::config::{SerialFlow, SerialParity};
-    use crate::port::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
+pub fn port_settings(rig: &RigConfig, port: String) -> Result<PortSettings, String> {
     if rig.baud == 0 {
         return Err("key `rig.baud`: expected a positive baud rate, found 0".to_string());
     }
@@ -242,7 +252,7 @@ pub fn port_settings(
 }
 
 /// How `tuneward run` writes its log (stderr).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum LogFormat {
     /// One readable line per decision.
     #[default]
@@ -272,19 +282,17 @@ pub fn init_logging(format: LogFormat) {
     };
 }
 
-/// Arguments of `tuneward run`.
-#[derive(Debug, clap::Args)]
-pub struct RunArgs {
+/// What `tuneward run` is asked to do.
+#[derive(Debug, Clone)]
+pub struct RunOptions {
     /// The station's config (TOML; see config/example.toml).
-    #[arg(long, short)]
-    pub config: std::path::PathBuf,
+    pub config: PathBuf,
     /// How to write the log on stderr.
-    #[arg(long, value_enum, default_value_t = LogFormat::Text)]
     pub log_format: LogFormat,
 }
 
 /// `tuneward run`: logging, then [`run_config`] until SIGINT/SIGTERM.
-pub fn run_command(args: &RunArgs) -> Result<(), String> {
+pub fn run_command(args: &RunOptions) -> Result<(), String> {
     init_logging(args.log_format);
     tracing::info!(config = %args.config.display(), version = env!("CARGO_PKG_VERSION"), "starting");
     run_config(&args.config).map(|_| ())
@@ -292,15 +300,15 @@ pub fn run_command(args: &RunArgs) -> Result<(), String> {
 
 /// Runs the live service for the config at `config` until interrupted
 /// (Ctrl-C or SIGTERM), on a runtime of its own.
-pub fn run_config(config: &std::path::Path) -> Result<Outcome, String> {
-    let station = crate::station::Station::load(config).map_err(|e| e.to_string())?;
-    let service = Service::from_station(&station)?;
+pub fn run_config(config: &Path) -> Result<RunSummary, String> {
+    let station = Station::load(config).map_err(|e| e.to_string())?;
+    let service = ServiceParts::from_station(&station)?;
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
         .build()
         .map_err(|e| format!("cannot start the runtime: {e}"))?;
-    rt.block_on(async move { run(service, crate::signals::stop_flag()).await })
+    rt.block_on(async move { run(service, signals::stop_flag()).await })
 }
 
 /// How long a failed resource waits before the driver asks `WHERE` again.
@@ -311,7 +319,11 @@ const STOP_WAIT: Duration = Duration::from_secs(3);
 /// Runs the service until `shutdown` becomes true. Errors only for what
 /// stops it from starting (a proxy symlink that cannot be placed, a journal
 /// that cannot be read); everything after start-up is retried and logged.
-pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Outcome, String> {
+pub async fn run(
+    service: ServiceParts,
+    shutdown: impl Into<Shutdown>,
+) -> Result<RunSummary, String> {
+    let shutdown = shutdown.into();
     let recorded = match &service.journal {
         Some(j) => j.load().map_err(|e| e.to_string())?,
         None => None,
@@ -329,19 +341,15 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
     // finish (or be stopped) over the controller link, and the rig must
     // still be heard (a transmission stops the motor; a proxied program
     // keeps its port) until the driver has persisted and released.
-    let (tasks_stop, tasks_shutdown) = watch::channel(false);
+    let (tasks_stop, tasks_shutdown) = shutdown::channel();
     let (rig_tx, rig_rx) = mpsc::channel(256);
     let (rig_task, rig_rx) = match service.rig {
         RigSource::Link(cfg) => (
-            Some(crate::port::link::spawn(
-                cfg,
-                rig_tx,
-                tasks_shutdown.clone(),
-            )),
+            Some(link::spawn(cfg, rig_tx, tasks_shutdown.clone())),
             rig_rx,
         ),
         RigSource::Proxy { config, boundary } => (
-            Some(crate::port::proxy::spawn(
+            Some(proxy::spawn(
                 config,
                 boundary,
                 rig_tx,
@@ -357,7 +365,7 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         settle: service.controller.settle,
         margin: service.controller.reply_margin,
     };
-    let client = crate::tuner::client::spawn(
+    let client = client::spawn(
         service.controller,
         Some(transmit_rx),
         tasks_shutdown.clone(),
@@ -378,7 +386,7 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
         block_gotos: false,
         retry_where: None,
         unknown_reported: false,
-        outcome: Outcome::default(),
+        outcome: RunSummary::default(),
         events: Vec::with_capacity(16),
         timing,
         relax_on_exit: service.relax_on_exit,
@@ -399,8 +407,8 @@ pub async fn run(service: Service, shutdown: watch::Receiver<bool>) -> Result<Ou
             Err(e) => tracing::error!(error = %e, "transmit inhibit output failed"),
         }
     }
-    let result = driver.run(rig_rx, client.events, shutdown).await;
-    tasks_stop.send_replace(true);
+    let result = driver.drive(rig_rx, client.events, shutdown).await;
+    tasks_stop.trigger();
     // Let the tasks close their ports (and the proxy its symlink).
     let _ = tokio::time::timeout(TASK_END_WAIT, client.task).await;
     if let Some(t) = rig_task {
@@ -449,45 +457,6 @@ struct Leg {
     sent: Instant,
 }
 
-/// The last stretch before a core deadline that is waited out by yielding
-/// rather than on tokio's timer.
-const PRECISE: Duration = Duration::from_millis(3);
-
-/// Sleeps until `deadline` (forever if `None`) to well under a millisecond.
-///
-/// tokio's timer works in whole milliseconds and fires on the first tick
-/// at or after the deadline, which puts 1 to 2 ms between a debounce
-/// deadline and the `GOTO` it releases; a thread sleep handed to another
-/// thread adds the cross-thread wake-up, which on a busy or virtual machine
-/// is now and then over a millisecond. So the timer only takes us to
-/// `PRECISE` before the deadline, and the rest is waited out by yielding
-/// to the runtime: every other task (and every other branch of the
-/// driver's `select!`, so a report arriving now is still taken in order)
-/// runs in between, and the deadline is met to a few microseconds. That
-/// costs at most `PRECISE` of one core per core deadline that is reached,
-/// a few times a minute while the operator tunes; with no deadline nothing
-/// runs.
-async fn sleep_until_precise(deadline: Option<Instant>) {
-    let Some(deadline) = deadline else {
-        return std::future::pending().await;
-    };
-    if let Some(early) = deadline.checked_sub(PRECISE) {
-        tokio::time::sleep_until(early).await;
-    }
-    let mut last = Instant::now();
-    while last < deadline {
-        tokio::task::yield_now().await;
-        let now = Instant::now();
-        if now == last {
-            // A clock that does not move between polls is tokio's paused
-            // test clock, which only the timer advances.
-            tokio::time::sleep_until(deadline).await;
-            return;
-        }
-        last = now;
-    }
-}
-
 /// What one turn of the driver's loop did.
 enum Step {
     Shutdown,
@@ -534,11 +503,11 @@ struct Driver {
     block_gotos: bool,
     retry_where: Option<Instant>,
     unknown_reported: bool,
-    outcome: Outcome,
+    outcome: RunSummary,
     events: Vec<RigEvent>,
     timing: StopTiming,
     relax_on_exit: bool,
-    candidates: Option<std::path::PathBuf>,
+    candidates: Option<PathBuf>,
     /// The leg under way, for the shutdown's bound on the remaining travel.
     leg: Option<Leg>,
     /// The final target of the move under way.
@@ -571,12 +540,12 @@ impl Driver {
         t
     }
 
-    async fn run(
+    async fn drive(
         &mut self,
         mut rig: mpsc::Receiver<LinkEvent>,
         mut tuner: mpsc::Receiver<TunerEvent>,
-        mut shutdown: watch::Receiver<bool>,
-    ) -> Outcome {
+        mut shutdown: Shutdown,
+    ) -> RunSummary {
         let mut rig_open = true;
         loop {
             match self
@@ -614,16 +583,16 @@ impl Driver {
         rig: &mut mpsc::Receiver<LinkEvent>,
         rig_open: &mut bool,
         tuner: &mut mpsc::Receiver<TunerEvent>,
-        shutdown: Option<&mut watch::Receiver<bool>>,
+        shutdown: Option<&mut Shutdown>,
         until: Option<Instant>,
     ) -> Step {
         let wake = self.core.poll_timeout().map(|d| self.origin + d);
         let retry = self.retry_where;
         let watch_shutdown = shutdown.is_some();
-        let mut spare = watch::channel(false).1;
+        let mut spare = Shutdown::from(watch::channel(false).1);
         let shutdown = shutdown.unwrap_or(&mut spare);
         let step = tokio::select! {
-            _ = crate::port::link::wait_true(shutdown), if watch_shutdown => return Step::Shutdown,
+            _ = shutdown.wait(), if watch_shutdown => return Step::Shutdown,
             ev = rig.recv(), if *rig_open => {
                 match ev {
                     Some(ev) => self.rig_event(ev),
@@ -649,13 +618,13 @@ impl Driver {
                 self.core.handle_timeout(now);
                 Step::Worked
             }
-            _ = crate::port::link::sleep_until_opt(retry) => {
+            _ = sleep_until_opt(retry) => {
                 self.outcome.timer_wakeups += 1;
                 self.retry_where = None;
                 self.send(TunerCommand::Where).await;
                 Step::Worked
             }
-            _ = crate::port::link::sleep_until_opt(until) => Step::Deadline,
+            _ = sleep_until_opt(until) => Step::Deadline,
         };
         self.apply_actions().await;
         step
@@ -778,8 +747,8 @@ impl Driver {
             return;
         }
         let to = policy.clamp(match policy.approach {
-            crate::config::Approach::Up => p - half,
-            crate::config::Approach::Down => p + half,
+            Approach::Up => p - half,
+            Approach::Down => p + half,
         });
         let lead = policy.inhibit_lead;
         if to == p {
@@ -877,8 +846,18 @@ impl Driver {
             }
             LinkEvent::Up { .. } => {
                 let now = self.now();
+                // Bytes the decoder still holds belong to the connection
+                // that ended: `finish` turns them into rejects, so that a
+                // frame torn by the drop is never joined to the new
+                // connection's bytes. Rejects decide nothing; they are
+                // logged as on any read.
                 let mut out = Vec::new();
                 self.decoder.finish(&mut out);
+                for ev in &out {
+                    if let RigEvent::Reject { reason, bytes } = *ev {
+                        tracing::debug!(%reason, bytes, "rig bytes rejected (held across a port drop)")
+                    }
+                }
                 // A transmission that ended while the port was down went
                 // unheard: the rig is taken to be receiving until it says
                 // otherwise.
@@ -1119,9 +1098,9 @@ impl Driver {
                         "calibration point candidate"
                     );
                     if let Some(path) = &self.candidates {
-                        let point = crate::calibrate::Point::new(hz as f64, steps as f64)
-                            .with_profile(profile.as_deref());
-                        match crate::calibrate::append_candidate(path, &point) {
+                        let point =
+                            Point::new(hz as f64, steps as f64).with_profile(profile.as_deref());
+                        match append_candidate(path, &point) {
                             Ok(()) => tracing::info!(
                                 file = %path.display(),
                                 "candidate stored; review it with `tuneward fit`"

@@ -2,6 +2,8 @@
 //! place every long-running command (`run`, `capture`, `sim-tuner`) waits
 //! for them.
 
+use crate::shutdown::Shutdown;
+
 /// Resolves on Ctrl-C or SIGTERM. If SIGTERM cannot be watched (not a Unix
 /// process), Ctrl-C alone ends it.
 pub async fn interrupted() {
@@ -19,17 +21,17 @@ pub async fn interrupted() {
     }
 }
 
-/// A flag that turns true on Ctrl-C or SIGTERM, for tasks that watch one.
-/// Spawns its waiting task on the current tokio runtime.
+/// A [`Shutdown`] that is set on Ctrl-C or SIGTERM, for tasks that watch
+/// one. Spawns its waiting task on the current tokio runtime.
 ///
 /// A second Ctrl-C or SIGTERM during the shutdown ends the process at once
 /// with status 130, as an operator who presses Ctrl-C twice expects. Nothing
 /// is finished then: like a crash, a move under way leaves its intent in the
 /// journal, so the next start does not trust the position; ports close, and
 /// fail-safe inhibit wiring holds the rig off.
-pub fn stop_flag() -> tokio::sync::watch::Receiver<bool> {
+pub fn stop_flag() -> Shutdown {
     use tokio::signal::unix::{signal, SignalKind};
-    let (tx, rx) = tokio::sync::watch::channel(false);
+    let (trigger, handle) = crate::shutdown::channel();
     tokio::spawn(async move {
         // Both streams exist before the first signal, so the second one
         // cannot slip through between the two waits.
@@ -39,7 +41,7 @@ pub fn stop_flag() -> tokio::sync::watch::Receiver<bool> {
         ) else {
             interrupted().await;
             tracing::info!("shutting down");
-            tx.send_replace(true);
+            trigger.trigger();
             return;
         };
         for round in 0..2 {
@@ -49,7 +51,7 @@ pub fn stop_flag() -> tokio::sync::watch::Receiver<bool> {
             }
             if round == 0 {
                 tracing::info!("shutting down (interrupt again to stop at once)");
-                tx.send_replace(true);
+                trigger.trigger();
             }
         }
         tracing::warn!(
@@ -58,5 +60,5 @@ pub fn stop_flag() -> tokio::sync::watch::Receiver<bool> {
         );
         std::process::exit(130);
     });
-    rx
+    handle
 }

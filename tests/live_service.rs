@@ -13,7 +13,7 @@ use tuneward::journal::{Journal, Recorded};
 use tuneward::port::link::LinkEvent;
 use tuneward::rig::dialect::Dialect;
 use tuneward::rig::Direction;
-use tuneward::service::{run, Outcome, RigSource, Service};
+use tuneward::service::{run, RigSource, RunSummary, ServiceParts};
 use tuneward::tuner::client::{ClientConfig, ControllerUrl};
 
 mod common;
@@ -52,8 +52,8 @@ fn controller_on(addr: std::net::SocketAddr) -> ClientConfig {
 /// Asks the service to stop and waits (5 s at most) for its outcome.
 async fn stop_and_join(
     stop: &watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<Outcome, String>>,
-) -> Outcome {
+    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
+) -> RunSummary {
     stop.send_replace(true);
     tokio::time::timeout(Duration::from_secs(5), task)
         .await
@@ -65,7 +65,7 @@ async fn stop_and_join(
 struct Running {
     rig: mpsc::Sender<LinkEvent>,
     stop: watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<Outcome, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
     inhibit: RecordingLine,
     journal: Journal,
     dialect: Dialect,
@@ -114,7 +114,7 @@ async fn start_custom(
     inhibit.set_failing(failing_inhibit);
     let (rig_tx, rig_rx) = mpsc::channel(64);
     let (stop, shutdown) = watch::channel(false);
-    let service = Service {
+    let service = ServiceParts {
         follower: Follower::new(policy, Arc::new(Linear), None),
         decoder: dialect.decoder(None),
         rig: RigSource::Events(rig_rx),
@@ -188,7 +188,7 @@ impl Running {
         assert_eq!(self.journal.load().unwrap(), Some(Recorded::Known(stopped)));
         stopped
     }
-    async fn finish(self) -> (Outcome, Vec<bool>, Option<Recorded>) {
+    async fn finish(self) -> (RunSummary, Vec<bool>, Option<Recorded>) {
         let out = stop_and_join(&self.stop, self.task).await;
         (out, self.inhibit.levels(), self.journal.load().unwrap())
     }
@@ -333,7 +333,7 @@ struct FromConfig {
     station: tuneward::station::Station,
     journal: Journal,
     stop: watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<Outcome, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
     _rig_far: tokio_serial::SerialStream,
     _sim: watch::Sender<bool>,
     dir: tempfile::TempDir,
@@ -348,7 +348,7 @@ impl FromConfig {
         let config =
             common::station_config(dir.path(), &rig_link, &addr.to_string(), 20_000, extra_rig);
         let station = tuneward::station::Station::load(&config).unwrap();
-        let service = Service::from_station(&station).unwrap();
+        let service = ServiceParts::from_station(&station).unwrap();
         let (stop, shutdown) = watch::channel(false);
         let task = tokio::spawn(run(service, shutdown));
         let journal = Journal::new(dir.path().join("motor.state"));
@@ -364,7 +364,7 @@ impl FromConfig {
             dir,
         }
     }
-    async fn finish(self) -> Outcome {
+    async fn finish(self) -> RunSummary {
         stop_and_join(&self.stop, self.task).await
     }
 }

@@ -1,55 +1,45 @@
 //! `tuneward fit`: fit a calibration to a point file and report on it.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::process::ExitCode;
 
 use super::profiles::{CalibrationSet, ProfileMap};
 use super::report::{self, Report};
 use super::{
     accept_candidates, candidates_path, read_candidates, read_points_csv, CalibrationError,
-    FitOptions, ModelKind, Point, DEFAULT_POLY_DEGREE,
+    FitOptions, ModelKind, Point,
 };
 use crate::config::Config;
 
-/// Fit a calibration (frequency to motor steps) to measured points and
-/// report how well it holds.
+/// What `tuneward fit` is asked to do: fit a calibration (frequency to
+/// motor steps) to measured points and report how well it holds.
 ///
-/// POINTS is a CSV file with a header row: frequency in Hz, motor steps, and
-/// optionally `profile` and `weight` columns. Lines starting with `#` are
-/// comments. Candidate points learned from touch-ups are read from
+/// `points` is a CSV file with a header row: frequency in Hz, motor steps,
+/// and optionally `profile` and `weight` columns. Lines starting with `#`
+/// are comments. Candidate points learned from touch-ups are read from
 /// `<stem>.candidates.csv` beside it and shown marked with `*`.
-///
-/// Exit status: 0 when a calibration was fitted (warnings included), 2 on
-/// any error, with the file, line and column named on standard error.
-#[derive(Debug, Clone, clap::Args)]
-pub struct FitArgs {
+#[derive(Debug, Clone)]
+pub struct FitCommandOptions {
     /// The points file (CSV: hz,steps[,profile][,weight]).
     pub points: PathBuf,
     /// Model to fit; `auto` picks by leave-one-out error.
-    #[arg(long, value_enum, default_value = "auto")]
     pub model: ModelKind,
-    /// Polynomial degree for `--model poly`.
-    #[arg(long, default_value_t = DEFAULT_POLY_DEGREE)]
+    /// Polynomial degree for `ModelKind::Poly`.
     pub degree: usize,
-    /// Print the result as JSON instead of the text report.
-    #[arg(long)]
+    /// The result as JSON instead of the text report.
     pub json: bool,
     /// Also draw points, curve and residuals into this SVG file.
-    #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
-    /// Station config: its bands and `[antenna]` make the report per band and
-    /// give residuals as a share of the loop's bandwidth.
-    #[arg(long, value_name = "FILE.toml")]
+    /// Station config: its bands and `[antenna]` make the report per band
+    /// and give residuals as a share of the loop's bandwidth.
     pub config: Option<PathBuf>,
     /// Move the candidate points into the points file (atomically) before
     /// fitting, and clear the candidates file.
-    #[arg(long)]
     pub accept: bool,
 }
 
+/// Why `tuneward fit` failed.
 #[derive(Debug, thiserror::Error)]
-enum FitFailure {
+pub enum FitFailure {
     #[error(transparent)]
     Calibration(#[from] CalibrationError),
     #[error(transparent)]
@@ -58,30 +48,6 @@ enum FitFailure {
     NoBase { path: PathBuf },
     #[error("cannot write to standard output: {0}")]
     Stdout(std::io::Error),
-}
-
-/// Runs `tuneward fit`; prints the report (or JSON) and returns the exit code:
-/// 0 on success, 2 on any error (with the message on standard error).
-pub fn run_fit(args: FitArgs) -> ExitCode {
-    match fit_command(&args) {
-        Ok(out) => {
-            let mut stdout = std::io::stdout().lock();
-            match stdout
-                .write_all(out.as_bytes())
-                .and_then(|_| stdout.flush())
-            {
-                Ok(()) => ExitCode::SUCCESS,
-                Err(e) => {
-                    eprintln!("tuneward fit: {}", FitFailure::Stdout(e));
-                    ExitCode::from(2)
-                }
-            }
-        }
-        Err(e) => {
-            eprintln!("tuneward fit: {e}");
-            ExitCode::from(2)
-        }
-    }
 }
 
 /// The fitted base calibration's report for a point file, as the CLI computes
@@ -98,7 +64,9 @@ pub fn fit_report(path: &Path, options: FitOptions) -> Result<Report, Calibratio
     Ok(report::build(base, None, &[], &[]))
 }
 
-fn fit_command(args: &FitArgs) -> Result<String, FitFailure> {
+/// Runs `tuneward fit`: the report (or JSON) to print on standard output.
+/// Notes (accepted candidates) go to standard error with `--json`.
+pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
     let config = args
         .config
         .as_deref()

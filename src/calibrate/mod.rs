@@ -41,7 +41,7 @@ pub trait StepMap: Send + Sync {
 }
 
 /// Which model a calibration uses.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum ModelKind {
     /// Monotone piecewise cubic through the points (Fritsch–Carlson).

@@ -20,9 +20,12 @@ use std::time::Duration;
 
 use bytes::{Bytes, BytesMut};
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
-use tokio::sync::{mpsc, watch};
+use tokio::sync::mpsc;
 use tokio::task::JoinHandle;
 use tokio::time::Instant;
+
+use crate::shutdown::Shutdown;
+use crate::timing::sleep_until_opt;
 pub use tokio_serial::{DataBits, FlowControl, Parity, StopBits};
 
 use crate::rig::Direction;
@@ -154,16 +157,14 @@ impl Transitions {
 pub fn spawn(
     config: LinkConfig,
     events: mpsc::Sender<LinkEvent>,
-    shutdown: watch::Receiver<bool>,
+    shutdown: impl Into<Shutdown>,
 ) -> JoinHandle<()> {
-    tokio::spawn(run(config, events, shutdown))
+    tokio::spawn(keep_link(config, events, shutdown.into()))
 }
 
-async fn run(
-    config: LinkConfig,
-    events: mpsc::Sender<LinkEvent>,
-    mut shutdown: watch::Receiver<bool>,
-) {
+/// Opens the port, reads it until it fails, and opens it again (with a
+/// growing pause) until shutdown.
+async fn keep_link(config: LinkConfig, events: mpsc::Sender<LinkEvent>, mut shutdown: Shutdown) {
     let name = config.port.path.display().to_string();
     let mut state = Transitions::default();
     let mut backoff = Duration::from_millis(100);
@@ -190,7 +191,7 @@ async fn run(
         }
         tokio::select! {
             _ = tokio::time::sleep(backoff) => {}
-            _ = wait_true(&mut shutdown) => return,
+            _ = shutdown.wait() => return,
         }
         backoff = (backoff * 2).min(config.backoff_cap);
     }
@@ -202,14 +203,14 @@ async fn session(
     config: &LinkConfig,
     mut stream: tokio_serial::SerialStream,
     events: &mpsc::Sender<LinkEvent>,
-    shutdown: &mut watch::Receiver<bool>,
+    shutdown: &mut Shutdown,
 ) -> Result<(), String> {
     let mut buf = BytesMut::with_capacity(1024);
     let mut poll = config.poll.as_ref().map(|p| Poller::new(p.clone()));
     loop {
         let next_poll = poll.as_ref().map(|p| p.due);
         tokio::select! {
-            _ = wait_true(shutdown) => return Ok(()),
+            _ = shutdown.wait() => return Ok(()),
             r = stream.read_buf(&mut buf) => {
                 match r {
                     Ok(0) => return Err("port closed (end of file)".to_string()),
@@ -308,25 +309,6 @@ impl Poller {
         self.answered = false;
         self.due = now + self.interval;
         self.config.query.clone()
-    }
-}
-
-pub(crate) async fn sleep_until_opt(deadline: Option<Instant>) {
-    match deadline {
-        Some(d) => tokio::time::sleep_until(d).await,
-        None => std::future::pending().await,
-    }
-}
-
-/// Returns once the flag is true or its sender is gone.
-pub(crate) async fn wait_true(flag: &mut watch::Receiver<bool>) {
-    loop {
-        if *flag.borrow_and_update() {
-            return;
-        }
-        if flag.changed().await.is_err() {
-            return;
-        }
     }
 }
 

@@ -25,17 +25,18 @@ use std::time::Duration;
 
 use bytes::{Bytes, BytesMut};
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
-use tokio::sync::{mpsc, watch};
+use tokio::sync::mpsc;
 use tokio::task::JoinHandle;
 use tokio::time::Instant;
 use tokio_serial::SerialStream;
 
 use super::link::{
-    open_port, sleep_until_opt, wait_true, write_all_timeout, LinkEvent, PollConfig, Poller,
-    PortSettings, Transitions,
+    open_port, write_all_timeout, LinkEvent, PollConfig, Poller, PortSettings, Transitions,
 };
 use super::pty::PtyLink;
 use crate::rig::Direction;
+use crate::shutdown::Shutdown;
+use crate::timing::sleep_until_opt;
 
 /// Says whether the other program's byte stream is at a message boundary
 /// after `chunk` (the latest bytes it wrote).
@@ -74,7 +75,7 @@ pub fn spawn(
     config: ProxyConfig,
     boundary: Box<dyn Boundary>,
     events: mpsc::Sender<LinkEvent>,
-    shutdown: watch::Receiver<bool>,
+    shutdown: impl Into<Shutdown>,
 ) -> Result<JoinHandle<()>, String> {
     let (pty, master) = PtyLink::create(&config.link)
         .map_err(|e| format!("proxy link {}: {e}", config.link.display()))?;
@@ -83,19 +84,19 @@ pub fn spawn(
         config,
         boundary,
         events,
-        shutdown,
+        shutdown: shutdown.into(),
         master,
         _pty: pty,
         other_at_boundary: true,
     };
-    Ok(tokio::spawn(proxy.run()))
+    Ok(tokio::spawn(proxy.relay()))
 }
 
 struct Proxy {
     config: ProxyConfig,
     boundary: Box<dyn Boundary>,
     events: mpsc::Sender<LinkEvent>,
-    shutdown: watch::Receiver<bool>,
+    shutdown: Shutdown,
     master: SerialStream,
     _pty: PtyLink,
     other_at_boundary: bool,
@@ -107,7 +108,7 @@ enum End {
 }
 
 impl Proxy {
-    async fn run(mut self) {
+    async fn relay(mut self) {
         let name = self.config.port.path.display().to_string();
         let mut state = Transitions::default();
         let mut backoff = Duration::from_millis(100);
@@ -147,7 +148,7 @@ impl Proxy {
         loop {
             tokio::select! {
                 _ = tokio::time::sleep_until(until) => return false,
-                _ = wait_true(&mut self.shutdown) => return true,
+                _ = self.shutdown.wait() => return true,
                 r = self.master.read(&mut scratch) => match r {
                     Ok(n) => tracing::debug!(bytes = n, "rig port down: dropped bytes from the other program"),
                     Err(e) => {
@@ -181,7 +182,7 @@ impl Proxy {
                 poll.as_ref().map(|p| p.due)
             };
             tokio::select! {
-                _ = wait_true(&mut self.shutdown) => return End::Shutdown,
+                _ = self.shutdown.wait() => return End::Shutdown,
                 r = rig.read_buf(&mut from_rig) => {
                     match r {
                         Ok(0) => return End::RigDown("rig port closed (end of file)".into()),

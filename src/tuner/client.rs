@@ -37,6 +37,8 @@ use tokio::time::Instant;
 use super::line::{LineFramer, Reply, Request};
 use super::server::{serve_connection, SharedController, SimController};
 use super::sim::SimParams;
+use crate::shutdown::Shutdown;
+use crate::timing::sleep_until_opt;
 
 /// Where the controller is.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -301,7 +303,7 @@ pub struct ClientHandle {
 pub fn spawn(
     config: ClientConfig,
     transmit: Option<watch::Receiver<bool>>,
-    shutdown: watch::Receiver<bool>,
+    shutdown: impl Into<Shutdown>,
 ) -> ClientHandle {
     let (cmd_tx, cmd_rx) = mpsc::channel(32);
     let (ev_tx, ev_rx) = mpsc::channel(64);
@@ -325,12 +327,12 @@ pub fn spawn(
         commands: cmd_rx,
         events: ev_tx,
         transmit,
-        shutdown,
+        shutdown: shutdown.into(),
         sim,
         up: None,
         direct: std::sync::Mutex::new(None),
     };
-    let task = tokio::spawn(link.run());
+    let task = tokio::spawn(link.keep_connected());
     ClientHandle {
         commands: cmd_tx,
         events: ev_rx,
@@ -346,7 +348,7 @@ struct Link {
     commands: mpsc::Receiver<TunerCommand>,
     events: mpsc::Sender<TunerEvent>,
     transmit: Option<watch::Receiver<bool>>,
-    shutdown: watch::Receiver<bool>,
+    shutdown: Shutdown,
     sim: Option<SharedController>,
     /// The direct drive, once its lines have been opened.
     direct: std::sync::Mutex<Option<super::gpio::DirectController>>,
@@ -372,16 +374,18 @@ struct Waiting {
 }
 
 impl Link {
-    async fn run(mut self) {
+    /// Connects, serves commands until the connection fails, and
+    /// reconnects (with a growing pause) until shutdown.
+    async fn keep_connected(mut self) {
         let mut backoff = Duration::from_millis(100);
         loop {
-            if *self.shutdown.borrow() {
+            if self.shutdown.is_set() {
                 return;
             }
             let mut shutdown = self.shutdown.clone();
             let opened = tokio::select! {
                 r = self.open() => r,
-                _ = wait_true(&mut shutdown) => return,
+                _ = shutdown.wait() => return,
             };
             match opened {
                 Ok(stream) => {
@@ -403,7 +407,7 @@ impl Link {
             loop {
                 tokio::select! {
                     _ = tokio::time::sleep_until(until) => break,
-                    _ = wait_true(&mut self.shutdown) => return,
+                    _ = self.shutdown.wait() => return,
                     cmd = self.commands.recv() => match cmd {
                         None => return,
                         Some(c) => self.emit(TunerEvent::Error {
@@ -503,7 +507,7 @@ impl Link {
         let mut shutdown = self.shutdown.clone();
         tokio::spawn(async move {
             tokio::select! {
-                _ = wait_true(&mut shutdown) => { tx.send_replace(1); }
+                _ = shutdown.wait() => { tx.send_replace(1); }
                 _ = tx.closed() => {}
             }
         });
@@ -525,7 +529,7 @@ impl Link {
             };
             let transmit_watch = self.transmit.as_mut();
             tokio::select! {
-                _ = wait_true(&mut self.shutdown) => return End::Shutdown,
+                _ = self.shutdown.wait() => return End::Shutdown,
                 n = rd.read_buf(&mut inbuf) => {
                     match n {
                         Ok(0) => return End::Fault("controller closed the connection".to_string()),
@@ -735,18 +739,6 @@ async fn changed_or_pending(w: Option<&mut watch::Receiver<bool>>) -> Result<boo
         },
         None => std::future::pending().await,
     }
-}
-
-async fn sleep_until_opt(deadline: Option<Instant>) {
-    match deadline {
-        Some(d) => tokio::time::sleep_until(d).await,
-        None => std::future::pending().await,
-    }
-}
-
-/// Returns once the flag is true or its sender is gone.
-async fn wait_true(flag: &mut watch::Receiver<bool>) {
-    super::server::wait_true(flag).await
 }
 
 #[cfg(test)]

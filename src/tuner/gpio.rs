@@ -324,7 +324,7 @@ impl DirectController {
             answer_stop: false,
             settle_until: None,
         };
-        tokio::spawn(task.run(conn_rx));
+        tokio::spawn(task.serve(conn_rx));
         DirectController { conns: conn_tx }
     }
 
@@ -359,7 +359,7 @@ struct DirectTask {
 }
 
 impl DirectTask {
-    async fn run(mut self, mut conns: tokio::sync::mpsc::Receiver<tokio::io::DuplexStream>) {
+    async fn serve(mut self, mut conns: tokio::sync::mpsc::Receiver<tokio::io::DuplexStream>) {
         use super::line::{LineFramer, Reply, Request};
         use tokio::io::{AsyncReadExt, AsyncWriteExt};
         let mut stream: Option<tokio::io::DuplexStream> = None;

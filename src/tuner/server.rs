@@ -23,6 +23,8 @@ use tokio::time::Instant;
 use super::line::{LineFramer, Reply, Request};
 use super::sim::{SimParams, SimTuner};
 use crate::port::pty::PtyLink;
+use crate::shutdown::Shutdown;
+use crate::timing::sleep_until_opt;
 
 /// The simulated controller: mechanics plus protocol rules.
 #[derive(Debug, Clone)]
@@ -213,20 +215,14 @@ where
     }
 }
 
-async fn sleep_until_opt(deadline: Option<Instant>) {
-    match deadline {
-        Some(d) => tokio::time::sleep_until(d).await,
-        None => std::future::pending().await,
-    }
-}
-
 /// Accepts connections on `listener` until `shutdown` becomes true; each new
 /// connection replaces the one before.
 pub async fn run_tcp(
     listener: TcpListener,
     ctl: SimController,
-    mut shutdown: watch::Receiver<bool>,
+    shutdown: impl Into<Shutdown>,
 ) -> io::Result<()> {
+    let mut shutdown: Shutdown = shutdown.into();
     let ctl = SharedController::new(ctl);
     let (gen_tx, _) = watch::channel(0u64);
     let mut generation = 0u64;
@@ -246,7 +242,7 @@ pub async fn run_tcp(
                     }
                 });
             }
-            _ = wait_true(&mut shutdown) => {
+            _ = shutdown.wait() => {
                 gen_tx.send_replace(u64::MAX);
                 return Ok(());
             }
@@ -259,69 +255,44 @@ pub async fn run_tcp(
 pub async fn run_pty(
     link: &Path,
     ctl: SimController,
-    mut shutdown: watch::Receiver<bool>,
+    shutdown: impl Into<Shutdown>,
 ) -> io::Result<()> {
+    let mut shutdown: Shutdown = shutdown.into();
     let (pty, master) = PtyLink::create(link)?;
     tracing::info!(link = %link.display(), device = %pty.slave_path().display(), "controller simulator on pseudo-terminal");
     let (stop_tx, stop) = watch::channel(0u64);
     let ctl = SharedController::new(ctl);
     tokio::select! {
         r = serve_connection(master, ctl, stop) => r,
-        _ = wait_true(&mut shutdown) => { stop_tx.send_replace(1); Ok(()) }
+        _ = shutdown.wait() => { stop_tx.send_replace(1); Ok(()) }
     }
 }
 
-/// Returns once the flag is true or its sender is gone.
-pub async fn wait_true(flag: &mut watch::Receiver<bool>) {
-    loop {
-        if *flag.borrow_and_update() {
-            return;
-        }
-        if flag.changed().await.is_err() {
-            return;
-        }
-    }
-}
-
-/// `tuneward sim-tuner`: a controller simulator on a socket or a pseudo-terminal.
-#[derive(Debug, Clone, clap::Args)]
-pub struct SimTunerArgs {
-    /// Listen for the host on this TCP address, e.g. 127.0.0.1:7300 (port 0
-    /// picks a free port; the address is printed).
-    #[arg(
-        long,
-        value_name = "ADDR",
-        conflicts_with = "pty",
-        required_unless_present = "pty"
-    )]
+/// What `tuneward sim-tuner` is asked to do: a controller simulator on a
+/// socket or a pseudo-terminal (exactly one of `listen` and `pty`).
+#[derive(Debug, Clone)]
+pub struct SimTunerOptions {
+    /// Listen for the host on this TCP address (port 0 picks a free port;
+    /// the address is printed).
     pub listen: Option<std::net::SocketAddr>,
-    /// Create a pseudo-terminal and put a symlink to it at LINK; point the
-    /// host's `serial://LINK` at it.
-    #[arg(long, value_name = "LINK")]
+    /// Create a pseudo-terminal and put a symlink to it here.
     pub pty: Option<PathBuf>,
     /// Motor speed.
-    #[arg(long, default_value_t = 800.0)]
     pub steps_per_second: f64,
     /// Time the mechanics take to come to rest after the last step.
-    #[arg(long, default_value_t = 50)]
     pub settle_ms: u64,
-    /// Lost motion on a reversal, in steps (shows in the capacitor, not in
-    /// the reported motor position).
-    #[arg(long, default_value_t = 0)]
+    /// Lost motion on a reversal, in steps.
     pub backlash: i64,
     /// Lowest position the controller accepts.
-    #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
     pub min: i64,
     /// Highest position the controller accepts.
-    #[arg(long, default_value_t = 10_000, allow_hyphen_values = true)]
     pub max: i64,
     /// Where the motor is when the simulator starts.
-    #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
     pub start: i64,
 }
 
 /// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
-pub fn run_sim_tuner(args: &SimTunerArgs) -> Result<(), String> {
+pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), String> {
     let params = SimParams {
         steps_per_second: args.steps_per_second,
         settle_ms: args.settle_ms,

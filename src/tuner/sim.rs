@@ -16,8 +16,9 @@ pub struct SimParams {
     pub max_steps: i64,
 }
 
+/// The simulated motor's motion under way: one leg, from start to last step.
 #[derive(Debug, Clone, Copy)]
-struct Leg {
+struct Motion {
     from: i64,
     to: i64,
     start: Duration,
@@ -31,7 +32,7 @@ pub struct SimTuner {
     params: SimParams,
     /// Motor position at rest, or where the current leg started.
     rest: i64,
-    leg: Option<Leg>,
+    leg: Option<Motion>,
     /// +1 if the last motion was upward, -1 downward, 0 none yet.
     last_dir: i64,
     travelled: u64,
@@ -65,7 +66,7 @@ impl SimTuner {
         }
         self.travelled += distance;
         self.rest = from;
-        self.leg = Some(Leg {
+        self.leg = Some(Motion {
             from,
             to,
             start: now,

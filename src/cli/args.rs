@@ -1,0 +1,270 @@
+//! The arguments of the commands whose work lives in one library function:
+//! clap types here, plain option structs in the library, and the mapping
+//! between them. Flags, defaults and help text are the command line's
+//! contract (tests read them); the library never sees clap.
+
+use std::path::PathBuf;
+use std::time::Duration;
+
+use tuneward::calibrate::cli::FitCommandOptions;
+use tuneward::calibrate::{ModelKind, DEFAULT_POLY_DEGREE};
+use tuneward::journal::SetPositionOptions;
+use tuneward::recorder::CaptureOptions;
+use tuneward::service::{LogFormat, RunOptions};
+use tuneward::tuner::server::SimTunerOptions;
+
+/// How `tuneward run` writes its log (stderr).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, clap::ValueEnum)]
+pub enum LogFormatArg {
+    /// One readable line per decision.
+    #[default]
+    Text,
+    /// One JSON object per line (for a log collector).
+    Json,
+}
+
+impl From<LogFormatArg> for LogFormat {
+    fn from(f: LogFormatArg) -> Self {
+        match f {
+            LogFormatArg::Text => LogFormat::Text,
+            LogFormatArg::Json => LogFormat::Json,
+        }
+    }
+}
+
+/// Arguments of `tuneward run`.
+#[derive(Debug, clap::Args)]
+pub struct RunArgs {
+    /// The station's config (TOML; see config/example.toml).
+    #[arg(long, short)]
+    pub config: PathBuf,
+    /// How to write the log on stderr.
+    #[arg(long, value_enum, default_value_t = LogFormatArg::Text)]
+    pub log_format: LogFormatArg,
+}
+
+impl From<RunArgs> for RunOptions {
+    fn from(a: RunArgs) -> Self {
+        RunOptions {
+            config: a.config,
+            log_format: a.log_format.into(),
+        }
+    }
+}
+
+/// Arguments of `tuneward capture`.
+#[derive(Debug, clap::Args)]
+pub struct CaptureArgs {
+    /// The station's config (TOML); `[rig]` says which port and how.
+    #[arg(long, short)]
+    pub config: PathBuf,
+    /// The capture file to write (replaced if it exists).
+    #[arg(long, value_name = "FILE.cap")]
+    pub out: PathBuf,
+    /// Stop after this many seconds (e.g. 90 or 2.5) [default: until Ctrl-C].
+    #[arg(long, value_name = "S", value_parser = parse_duration)]
+    pub duration: Option<Duration>,
+}
+
+fn parse_duration(s: &str) -> Result<Duration, String> {
+    tuneward::capture::parse_seconds(s).map_err(|e| format!("expected {e}, found `{s}`"))
+}
+
+impl From<CaptureArgs> for CaptureOptions {
+    fn from(a: CaptureArgs) -> Self {
+        CaptureOptions {
+            config: a.config,
+            out: a.out,
+            duration: a.duration,
+        }
+    }
+}
+
+/// Which model a calibration uses (the command line's names for
+/// [`ModelKind`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ModelArg {
+    /// Monotone piecewise cubic through the points (Fritsch–Carlson).
+    Interpolate,
+    /// steps = a + b / f² (+ c / f⁴ where the data call for it), least squares.
+    Physics,
+    /// A polynomial in frequency of a chosen degree, least squares.
+    Poly,
+    /// Whichever of the above predicts left-out points best.
+    Auto,
+}
+
+impl From<ModelArg> for ModelKind {
+    fn from(m: ModelArg) -> Self {
+        match m {
+            ModelArg::Interpolate => ModelKind::Interpolate,
+            ModelArg::Physics => ModelKind::Physics,
+            ModelArg::Poly => ModelKind::Poly,
+            ModelArg::Auto => ModelKind::Auto,
+        }
+    }
+}
+
+/// Fit a calibration (frequency to motor steps) to measured points and
+/// report how well it holds.
+///
+/// POINTS is a CSV file with a header row: frequency in Hz, motor steps, and
+/// optionally `profile` and `weight` columns. Lines starting with `#` are
+/// comments. Candidate points learned from touch-ups are read from
+/// `<stem>.candidates.csv` beside it and shown marked with `*`.
+///
+/// Exit status: 0 when a calibration was fitted (warnings included), 2 on
+/// any error, with the file, line and column named on standard error.
+#[derive(Debug, Clone, clap::Args)]
+pub struct FitArgs {
+    /// The points file (CSV: hz,steps[,profile][,weight]).
+    pub points: PathBuf,
+    /// Model to fit; `auto` picks by leave-one-out error.
+    #[arg(long, value_enum, default_value = "auto")]
+    pub model: ModelArg,
+    /// Polynomial degree for `--model poly`.
+    #[arg(long, default_value_t = DEFAULT_POLY_DEGREE)]
+    pub degree: usize,
+    /// Print the result as JSON instead of the text report.
+    #[arg(long)]
+    pub json: bool,
+    /// Also draw points, curve and residuals into this SVG file.
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<PathBuf>,
+    /// Station config: its bands and `[antenna]` make the report per band and
+    /// give residuals as a share of the loop's bandwidth.
+    #[arg(long, value_name = "FILE.toml")]
+    pub config: Option<PathBuf>,
+    /// Move the candidate points into the points file (atomically) before
+    /// fitting, and clear the candidates file.
+    #[arg(long)]
+    pub accept: bool,
+}
+
+impl From<FitArgs> for FitCommandOptions {
+    fn from(a: FitArgs) -> Self {
+        FitCommandOptions {
+            points: a.points,
+            model: a.model.into(),
+            degree: a.degree,
+            json: a.json,
+            plot: a.plot,
+            config: a.config,
+            accept: a.accept,
+        }
+    }
+}
+
+/// `tuneward sim-tuner`: a controller simulator on a socket or a pseudo-terminal.
+#[derive(Debug, Clone, clap::Args)]
+pub struct SimTunerArgs {
+    /// Listen for the host on this TCP address, e.g. 127.0.0.1:7300 (port 0
+    /// picks a free port; the address is printed).
+    #[arg(
+        long,
+        value_name = "ADDR",
+        conflicts_with = "pty",
+        required_unless_present = "pty"
+    )]
+    pub listen: Option<std::net::SocketAddr>,
+    /// Create a pseudo-terminal and put a symlink to it at LINK; point the
+    /// host's `serial://LINK` at it.
+    #[arg(long, value_name = "LINK")]
+    pub pty: Option<PathBuf>,
+    /// Motor speed.
+    #[arg(long, default_value_t = 800.0)]
+    pub steps_per_second: f64,
+    /// Time the mechanics take to come to rest after the last step.
+    #[arg(long, default_value_t = 50)]
+    pub settle_ms: u64,
+    /// Lost motion on a reversal, in steps (shows in the capacitor, not in
+    /// the reported motor position).
+    #[arg(long, default_value_t = 0)]
+    pub backlash: i64,
+    /// Lowest position the controller accepts.
+    #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
+    pub min: i64,
+    /// Highest position the controller accepts.
+    #[arg(long, default_value_t = 10_000, allow_hyphen_values = true)]
+    pub max: i64,
+    /// Where the motor is when the simulator starts.
+    #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
+    pub start: i64,
+}
+
+impl From<SimTunerArgs> for SimTunerOptions {
+    fn from(a: SimTunerArgs) -> Self {
+        SimTunerOptions {
+            listen: a.listen,
+            pty: a.pty,
+            steps_per_second: a.steps_per_second,
+            settle_ms: a.settle_ms,
+            backlash: a.backlash,
+            min: a.min,
+            max: a.max,
+            start: a.start,
+        }
+    }
+}
+
+/// `tuneward set-position`: the operator says where the motor is.
+#[derive(Debug, Clone, clap::Args)]
+pub struct SetPositionArgs {
+    /// The motor's position in steps, as the operator has established it
+    /// (after homing, or by reading a scale).
+    #[arg(allow_hyphen_values = true)]
+    pub steps: i64,
+    /// The station's config file; its `tuner.state_file` (default
+    /// `tuneward-position.state` beside the config) is written.
+    #[arg(long, value_name = "FILE")]
+    pub config: PathBuf,
+}
+
+impl From<SetPositionArgs> for SetPositionOptions {
+    fn from(a: SetPositionArgs) -> Self {
+        SetPositionOptions {
+            steps: a.steps,
+            config: a.config,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::ValueEnum;
+
+    /// Every model the library knows has a command-line name, and each
+    /// name maps to the model of the same name (the config's spelling).
+    #[test]
+    fn model_names_on_the_command_line_are_the_library_names() {
+        // A model added to the library must get a name here: this match
+        // stops compiling until it does.
+        fn named(kind: ModelKind) -> ModelArg {
+            match kind {
+                ModelKind::Interpolate => ModelArg::Interpolate,
+                ModelKind::Physics => ModelArg::Physics,
+                ModelKind::Poly => ModelArg::Poly,
+                ModelKind::Auto => ModelArg::Auto,
+            }
+        }
+        for arg in ModelArg::value_variants() {
+            let name = arg.to_possible_value().map(|v| v.get_name().to_string());
+            let kind = ModelKind::from(*arg);
+            assert_eq!(name.as_deref(), Some(kind.name()));
+            assert_eq!(named(kind), *arg);
+        }
+    }
+
+    #[test]
+    fn log_format_names_map_to_the_library_formats() {
+        assert_eq!(
+            LogFormat::from(LogFormatArg::from_str("json", false).unwrap()),
+            LogFormat::Json
+        );
+        assert_eq!(
+            LogFormat::from(LogFormatArg::from_str("text", false).unwrap()),
+            LogFormat::Text
+        );
+    }
+}

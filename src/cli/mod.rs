@@ -1,0 +1,262 @@
+//! The command line: every clap type of `tuneward` lives in this module of
+//! the binary (the library takes plain option structs and knows nothing of
+//! clap), and `execute` is the one place a command's outcome becomes an
+//! error to report.
+
+mod args;
+
+use std::io::Write;
+use std::path::PathBuf;
+
+use clap::{Parser, Subcommand};
+
+use tuneward::timeline::{Human, JsonLines, Timeline};
+
+use args::{CaptureArgs, FitArgs, RunArgs, SetPositionArgs, SimTunerArgs};
+
+/// Keeps a remotely tuned antenna (a small transmitting loop, say) tuned to
+/// wherever the operator puts the transceiver's VFO.
+///
+/// tuneward listens to the rig's control port, waits until the operator has
+/// settled on a frequency, maps it through the station's calibration to a
+/// motor position and moves the tuner: never while the rig transmits, with
+/// the transmit inhibit asserted around every move, and never beyond the
+/// travel limits.
+#[derive(Parser)]
+#[command(name = "tuneward", version, about, long_about, max_term_width = 100)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+pub enum Command {
+    /// Replay an invented evening at a demo station: no hardware, no arguments.
+    Demo {
+        /// Write JSON lines instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Replay a capture of a rig's control port through a station's config,
+    /// against a simulated tuner, and print what would have happened.
+    ///
+    /// Runs in virtual time, as fast as the machine allows. The timeline is
+    /// readable text by default; --json writes one JSON object per line
+    /// (see protocols/timeline.md).
+    Replay {
+        /// Capture file (format: protocols/capture.md).
+        capture: PathBuf,
+        /// The station's config (TOML; see config/example.toml).
+        #[arg(long, short)]
+        config: PathBuf,
+        /// Write JSON lines instead of text.
+        #[arg(long)]
+        json: bool,
+        /// Where the simulated motor starts, in steps [default: tuner.min_steps].
+        #[arg(long, value_name = "N", allow_negative_numbers = true)]
+        start_steps: Option<i64>,
+        /// Also show every frequency report and ignored stretch of bytes.
+        #[arg(long, short)]
+        verbose: bool,
+        /// Warn about each malformed capture line (on standard error) and
+        /// carry on with the next, instead of stopping at the first. The
+        /// summary counts them as `bad_lines`.
+        #[arg(long)]
+        skip_bad_lines: bool,
+    },
+    /// Check a config and show the bands, limits and calibration it describes.
+    Check {
+        /// The station's config (TOML).
+        #[arg(long, short)]
+        config: PathBuf,
+    },
+    /// Follow the rig and drive the tuner controller: the live service.
+    ///
+    /// Runs until SIGINT (Ctrl-C) or SIGTERM, then lets the move under way
+    /// finish, records the position and releases the transmit inhibit; exit
+    /// status 0 after a clean shutdown. Logs one line per decision on
+    /// stderr.
+    Run(RunArgs),
+    /// Record the rig's control port into a capture file for `replay`.
+    Capture(CaptureArgs),
+    /// Fit a calibration to measured points and report how well it holds.
+    Fit(FitArgs),
+    /// Measure how well the follow policy keeps the loop tuned.
+    ///
+    /// Replays invented evenings at a station (by default the bundled
+    /// quality station, fixtures/quality/station.toml) against a simulated
+    /// loop whose resonance differs from the calibration by a small hidden
+    /// error, and reports for the station's policy, a naive one that moves on
+    /// every report, and the offline optimum: moves, motor travel, and the
+    /// share of the time on the air at SWR <= 1.5 and <= 2. The station must
+    /// describe its loop in [antenna].
+    BenchFollow {
+        /// The station's config [default: the bundled quality station].
+        #[arg(long, short)]
+        config: Option<PathBuf>,
+        /// Invented evenings to replay, one per seed (1 to N).
+        #[arg(long, default_value_t = 5, value_name = "N")]
+        evenings: u64,
+        /// Length of each evening, in hours.
+        #[arg(long, default_value_t = 4.0)]
+        hours: f64,
+        /// Amplitude of the hidden calibration error, in motor steps.
+        #[arg(long, default_value_t = 3.0, value_name = "STEPS")]
+        error_steps: f64,
+        /// Write one JSON object instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Simulate a stepper controller speaking the line protocol
+    /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
+    SimTuner(SimTunerArgs),
+    /// Record the motor's position (after homing or checking it by eye) in
+    /// the position journal, e.g. after the journal reported a move that
+    /// never finished.
+    SetPosition(SetPositionArgs),
+}
+
+/// Why a command failed, ready to print: `tuneward: message` (or the
+/// command's own prefix) on standard error, and the exit status.
+#[derive(Debug)]
+pub struct Failure {
+    prefix: &'static str,
+    status: u8,
+    message: String,
+}
+
+impl Failure {
+    /// A message that already says everything.
+    fn plain(message: String) -> Self {
+        Failure {
+            prefix: "tuneward",
+            status: 1,
+            message,
+        }
+    }
+
+    /// An error and its chain of causes, each cause on a line of its own
+    /// unless the message already ends with it.
+    fn with_causes(e: &dyn std::error::Error) -> Self {
+        let mut message = e.to_string();
+        let mut source = e.source();
+        while let Some(s) = source {
+            // Most messages already end with their cause: say it once.
+            let why = s.to_string();
+            if !message.contains(&why) {
+                message.push_str("\n  because: ");
+                message.push_str(&why);
+            }
+            source = s.source();
+        }
+        Failure {
+            prefix: "tuneward",
+            status: 1,
+            message,
+        }
+    }
+
+    /// `tuneward fit` reports under its own name with status 2.
+    fn fit(e: &tuneward::calibrate::cli::FitFailure) -> Self {
+        Failure {
+            prefix: "tuneward fit",
+            status: 2,
+            message: e.to_string(),
+        }
+    }
+
+    /// Prints the failure on standard error; the exit status to end with.
+    pub fn report(&self) -> u8 {
+        eprintln!("{}: {}", self.prefix, self.message);
+        self.status
+    }
+}
+
+/// Runs the command `cli` names; what it prints goes to standard output,
+/// flushed before this returns.
+pub fn execute(cli: Cli) -> Result<(), Failure> {
+    let stdout = std::io::stdout();
+    let mut out = stdout.lock();
+    let result = match cli.command {
+        Command::Replay {
+            capture,
+            config,
+            json,
+            start_steps,
+            verbose,
+            skip_bad_lines,
+        } => {
+            let mut json_out;
+            let mut human_out;
+            let timeline: &mut dyn Timeline = if json {
+                json_out = JsonLines(&mut out);
+                &mut json_out
+            } else {
+                human_out = Human::new(&mut out, verbose);
+                &mut human_out
+            };
+            let options = tuneward::station::ReplayOptions {
+                start_steps,
+                skip_bad_lines,
+            };
+            let stderr = std::io::stderr();
+            tuneward::station::replay_file_with(
+                &config,
+                &capture,
+                options,
+                timeline,
+                &mut stderr.lock(),
+            )
+            .map(|_| ())
+            .map_err(|e| Failure::with_causes(&e))
+        }
+        Command::Demo { json } => tuneward::station::demo(&mut out, json)
+            .map(|_| ())
+            .map_err(|e| Failure::with_causes(&e)),
+        Command::BenchFollow {
+            config,
+            evenings,
+            hours,
+            error_steps,
+            json,
+        } => {
+            let options = tuneward::quality::BenchOptions {
+                seeds: (1..=evenings).collect(),
+                hours,
+                error_steps,
+                ..Default::default()
+            };
+            tuneward::quality::run_bench(config.as_deref(), &options, json, &mut out)
+                .map(|_| ())
+                .map_err(|e| Failure::with_causes(&e))
+        }
+        Command::Check { config } => {
+            tuneward::station::check(&config, &mut out).map_err(|e| Failure::with_causes(&e))
+        }
+        Command::Fit(args) => {
+            let failure = |e| Failure::fit(&e);
+            tuneward::calibrate::cli::fit_command(&args.into())
+                .and_then(|report| {
+                    out.write_all(report.as_bytes())
+                        .and_then(|()| out.flush())
+                        .map_err(tuneward::calibrate::cli::FitFailure::Stdout)
+                })
+                .map_err(failure)
+        }
+        Command::SimTuner(args) => {
+            tuneward::tuner::server::run_sim_tuner(&args.into()).map_err(Failure::plain)
+        }
+        Command::Run(args) => tuneward::service::run_command(&args.into()).map_err(Failure::plain),
+        Command::Capture(args) => {
+            tuneward::service::init_logging(tuneward::service::LogFormat::Text);
+            tuneward::recorder::run_capture(&args.into())
+                .map(|_| ())
+                .map_err(Failure::plain)
+        }
+        Command::SetPosition(args) => {
+            tuneward::journal::run_set_position(&args.into()).map_err(Failure::plain)
+        }
+    };
+    let _ = out.flush();
+    result
+}
