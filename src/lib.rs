@@ -23,6 +23,7 @@ pub mod scenario;
 pub mod service;
 pub mod shutdown;
 pub mod signals;
+pub mod sim;
 pub mod station;
 pub mod timeline;
 pub mod timing;

@@ -268,3 +268,72 @@ mod tests {
         );
     }
 }
+
+/// `tuneward sim-rig`'s arguments.
+#[derive(Debug, Clone, clap::Args)]
+pub struct SimRigArgs {
+    /// Dialect to speak: a built-in name (binary-bcd, binary-bcd-4,
+    /// text-semicolon, text-semicolon-9) or a dialect TOML file.
+    #[arg(long, value_name = "NAME")]
+    protocol: String,
+    /// Create a pseudo-terminal and put a symlink to it at LINK.
+    #[arg(long, value_name = "LINK")]
+    pty: PathBuf,
+    /// The operator's script (JSON lines) [default: a built-in demo].
+    #[arg(long, value_name = "FILE")]
+    script: Option<PathBuf>,
+    /// Count the script's times from the first byte a controller sends
+    /// instead of from start-up.
+    #[arg(long)]
+    script_from_first_byte: bool,
+    /// The rig's address (binary family), decimal or 0x hex.
+    #[arg(long, value_name = "N", default_value = "0x94", value_parser = parse_byte)]
+    address: u8,
+    /// Write the truth log (JSON lines) to FILE [default: standard error].
+    #[arg(long, value_name = "FILE")]
+    truth: Option<PathBuf>,
+    /// No transceive / auto-information reports (a script can still turn
+    /// them on).
+    #[arg(long)]
+    no_reports: bool,
+    /// The rig's fixed port speed: a controller whose port is set to
+    /// another speed hears garbage [default: any speed].
+    #[arg(long, value_name = "N")]
+    baud: Option<u32>,
+    /// VFO A at start, in Hz.
+    #[arg(long, default_value_t = 14_074_000, value_name = "HZ")]
+    vfo_a: u64,
+    /// VFO B at start, in Hz.
+    #[arg(long, default_value_t = 14_074_000, value_name = "HZ")]
+    vfo_b: u64,
+}
+
+fn parse_byte(s: &str) -> Result<u8, String> {
+    let parsed = match s.strip_prefix("0x").or_else(|| s.strip_prefix("0X")) {
+        Some(hex) => u8::from_str_radix(hex, 16),
+        None => s.parse::<u8>(),
+    };
+    parsed.map_err(|_| format!("expected a byte (0 to 255, or 0x00 to 0xFF), found {s:?}"))
+}
+
+/// `tuneward sim-rig`: the arguments mapped onto the simulator's settings.
+pub fn run_sim_rig(args: SimRigArgs) -> Result<(), String> {
+    let dialect = tuneward::rig::Dialect::resolve(&args.protocol, None)
+        .map_err(|e| format!("--protocol: {e}"))?;
+    let options = tuneward::sim::rig::SimOptions {
+        address: args.address,
+        vfo_a_hz: args.vfo_a,
+        vfo_b_hz: args.vfo_b,
+        reports: !args.no_reports,
+        ..Default::default()
+    };
+    tuneward::sim::driver::run_sim_rig(&tuneward::sim::driver::SimRigSettings {
+        dialect,
+        link: args.pty,
+        script: args.script,
+        script_from_first_byte: args.script_from_first_byte,
+        truth: args.truth,
+        baud: args.baud,
+        options,
+    })
+}

@@ -12,7 +12,7 @@ use clap::{Parser, Subcommand};
 
 use tuneward::timeline::{Human, JsonLines, Timeline};
 
-use args::{CaptureArgs, FitArgs, RunArgs, SetPositionArgs, SimTunerArgs};
+use args::{CaptureArgs, FitArgs, RunArgs, SetPositionArgs, SimRigArgs, SimTunerArgs};
 
 /// Keeps a remotely tuned antenna (a small transmitting loop, say) tuned to
 /// wherever the operator puts the transceiver's VFO.
@@ -110,6 +110,16 @@ pub enum Command {
     /// Simulate a stepper controller speaking the line protocol
     /// (protocols/tuner-line.md) on a loopback socket or a pseudo-terminal.
     SimTuner(SimTunerArgs),
+    /// Simulate a transceiver's control port on a pseudo-terminal: test
+    /// equipment for tuneward and the programs beside it.
+    ///
+    /// Keeps VFO A and B, split, mode and transmit state; answers reads and
+    /// takes sets in the chosen dialect's family; a scripted operator
+    /// (JSON lines, see protocols/sim-rig.md; a built-in demo by default)
+    /// turns the knob and keys, with transceive reports. Every change of
+    /// what it really receives and transmits on is logged as a JSON line
+    /// (the truth log). Runs until SIGINT or SIGTERM.
+    SimRig(SimRigArgs),
     /// Record the motor's position (after homing or checking it by eye) in
     /// the position journal, e.g. after the journal reported a move that
     /// never finished.
@@ -246,6 +256,7 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
         Command::SimTuner(args) => {
             tuneward::tuner::server::run_sim_tuner(&args.into()).map_err(Failure::plain)
         }
+        Command::SimRig(args) => args::run_sim_rig(args).map_err(Failure::plain),
         Command::Run(args) => tuneward::service::run_command(&args.into()).map_err(Failure::plain),
         Command::Capture(args) => {
             tuneward::service::init_logging(tuneward::service::LogFormat::Text);

@@ -62,6 +62,13 @@ impl PtyLink {
     pub fn link(&self) -> &Path {
         &self.link
     }
+
+    /// The port speed last set on the far end (by whoever opened the link):
+    /// a pseudo-terminal keeps the opener's termios, speed included.
+    pub fn far_end_baud(&self) -> io::Result<u32> {
+        use tokio_serial::SerialPort;
+        self._slave.baud_rate().map_err(io::Error::from)
+    }
 }
 
 impl Drop for PtyLink {

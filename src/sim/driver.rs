@@ -1,0 +1,151 @@
+//! `tuneward sim-rig`: [`SimRig`] on a pseudo-terminal.
+//!
+//! IO and timers only: bytes from the far end go to the state machine with
+//! the time since start, its answers and reports go back, its truth records
+//! go out as JSON lines. With a fixed port speed (`baud`), a far end opened
+//! at another speed hears garbage and is not understood, as on a real port.
+
+use std::io;
+use std::path::PathBuf;
+use std::time::Duration;
+
+use tokio::io::{AsyncReadExt, AsyncWriteExt};
+use tokio::time::Instant;
+
+use super::rig::{misclocked, Script, SimOptions, SimRig};
+use crate::port::pty::PtyLink;
+use crate::rig::Dialect;
+use crate::shutdown::Shutdown;
+
+/// What `sim-rig` was asked to do.
+#[derive(Debug, Clone)]
+pub struct SimRigSettings {
+    pub dialect: Dialect,
+    /// Where the symlink to the pseudo-terminal goes.
+    pub link: PathBuf,
+    /// The operator's script (None: the built-in demo script).
+    pub script: Option<PathBuf>,
+    /// Count the script's times from the first byte the controller sends,
+    /// not from start-up.
+    pub script_from_first_byte: bool,
+    /// Truth log file (None: standard error).
+    pub truth: Option<PathBuf>,
+    /// The port speed the rig is set to (None: any).
+    pub baud: Option<u32>,
+    pub options: SimOptions,
+}
+
+/// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
+pub fn run_sim_rig(settings: &SimRigSettings) -> Result<(), String> {
+    let script = match &settings.script {
+        Some(path) => {
+            let text = std::fs::read_to_string(path)
+                .map_err(|e| format!("--script {}: cannot read it: {e}", path.display()))?;
+            Script::parse(&text, &path.display().to_string())?
+        }
+        None => Script::demo(),
+    };
+    let mut truth: Box<dyn io::Write> = match &settings.truth {
+        Some(path) => Box::new(
+            std::fs::File::create(path)
+                .map_err(|e| format!("--truth {}: cannot create it: {e}", path.display()))?,
+        ),
+        None => Box::new(io::stderr()),
+    };
+    let rt = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+    rt.block_on(async move {
+        let stop = crate::signals::stop_flag();
+        let (pty, master) = PtyLink::create(&settings.link)
+            .map_err(|e| format!("--pty {}: {e}", settings.link.display()))?;
+        println!(
+            "sim-rig: {} at {} ({})",
+            settings.dialect.name,
+            settings.link.display(),
+            pty.slave_path().display()
+        );
+        let start = Instant::now();
+        let mut rig = SimRig::new(&settings.dialect, &settings.options);
+        let origin = (!settings.script_from_first_byte).then_some(Duration::ZERO);
+        rig.load_script(script, origin);
+        serve(
+            &mut rig,
+            &pty,
+            master,
+            start,
+            settings.baud,
+            &mut truth,
+            stop,
+        )
+        .await
+        .map_err(|e| format!("sim-rig on {}: {e}", settings.link.display()))
+    })
+}
+
+async fn serve(
+    rig: &mut SimRig,
+    pty: &PtyLink,
+    mut master: tokio_serial::SerialStream,
+    start: Instant,
+    baud: Option<u32>,
+    truth: &mut dyn io::Write,
+    mut stop: Shutdown,
+) -> io::Result<()> {
+    let mut buf = [0u8; 1024];
+    let mut started = false;
+    loop {
+        let mut wrong_speed = false;
+        if let Some(want) = baud {
+            wrong_speed = pty.far_end_baud().map_or(true, |b| b != want);
+        }
+        if let Some(bytes) = rig.poll_output() {
+            let bytes = if wrong_speed {
+                misclocked(&bytes)
+            } else {
+                bytes
+            };
+            AsyncWriteExt::write_all(&mut master, &bytes).await?;
+        }
+        while let Some(t) = rig.poll_truth() {
+            let line = serde_json::to_string(&t).map_err(io::Error::other)?;
+            writeln!(truth, "{line}")?;
+            truth.flush()?;
+        }
+        let deadline = rig.poll_timeout().map(|d| start + d);
+        tokio::select! {
+            r = master.read(&mut buf) => {
+                let n = r?;
+                let now = start.elapsed();
+                let Some(chunk) = buf.get(..n) else { continue };
+                if n == 0 {
+                    // Nothing open at the far end for a moment; try again.
+                    tokio::time::sleep(Duration::from_millis(20)).await;
+                    continue;
+                }
+                if !started {
+                    started = true;
+                    rig.start_script(now);
+                }
+                if wrong_speed {
+                    // The rig cannot read a request at the wrong speed; its
+                    // line hears noise. Nothing is understood.
+                    AsyncWriteExt::write_all(&mut master, &misclocked(chunk)).await?;
+                    rig.handle_timeout(now);
+                } else {
+                    rig.handle_bytes(now, chunk);
+                }
+            }
+            _ = sleep_until_opt(deadline) => rig.handle_timeout(start.elapsed()),
+            _ = stop.wait() => return Ok(()),
+        }
+    }
+}
+
+async fn sleep_until_opt(deadline: Option<Instant>) {
+    match deadline {
+        Some(d) => tokio::time::sleep_until(d).await,
+        None => std::future::pending().await,
+    }
+}
