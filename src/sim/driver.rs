@@ -96,12 +96,11 @@ async fn serve(
     let mut buf = [0u8; 1024];
     let mut started = false;
     loop {
-        let mut wrong_speed = false;
-        if let Some(want) = baud {
-            wrong_speed = pty.far_end_baud().map_or(true, |b| b != want);
-        }
+        // Asked afresh each time: the far end may change its speed whenever.
+        let wrong_speed =
+            |pty: &PtyLink| baud.is_some_and(|want| pty.far_end_baud().map_or(true, |b| b != want));
         if let Some(bytes) = rig.poll_output() {
-            let bytes = if wrong_speed {
+            let bytes = if wrong_speed(pty) {
                 misclocked(&bytes)
             } else {
                 bytes
@@ -128,7 +127,7 @@ async fn serve(
                     started = true;
                     rig.start_script(now);
                 }
-                if wrong_speed {
+                if wrong_speed(pty) {
                     // The rig cannot read a request at the wrong speed; its
                     // line hears noise. Nothing is understood.
                     AsyncWriteExt::write_all(&mut master, &misclocked(chunk)).await?;
