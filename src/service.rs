@@ -438,13 +438,9 @@ struct StopTiming {
 impl StopTiming {
     /// Time to travel `distance` steps and settle, plus the reply margin.
     fn travel(&self, distance: u64) -> Duration {
-        let secs = distance as f64 / self.steps_per_second;
-        let run = if secs.is_finite() && secs >= 0.0 {
-            Duration::try_from_secs_f64(secs).unwrap_or(Duration::from_secs(3600))
-        } else {
-            Duration::from_secs(3600)
-        };
-        run.min(Duration::from_secs(3600)) + self.settle + self.margin
+        let run =
+            crate::tuner::travel_time(distance, self.steps_per_second, Duration::from_secs(3600));
+        run + self.settle + self.margin
     }
 }
 

@@ -280,13 +280,10 @@ impl ClientConfig {
         })
     }
 
+    /// Travel time for `distance`, capped at a quarter of `Duration::MAX`
+    /// so that adding settle time and margin cannot overflow.
     fn travel(&self, distance: u64) -> Duration {
-        let secs = distance as f64 / self.steps_per_second;
-        if secs.is_finite() && secs >= 0.0 {
-            Duration::try_from_secs_f64(secs).unwrap_or(Duration::MAX / 4)
-        } else {
-            Duration::MAX / 4
-        }
+        super::travel_time(distance, self.steps_per_second, Duration::MAX / 4)
     }
 }
 

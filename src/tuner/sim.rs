@@ -49,9 +49,10 @@ impl SimTuner {
         }
     }
 
-    /// Time to travel `distance` steps at the configured speed.
+    /// Time to travel `distance` steps at the configured speed
+    /// ([`super::travel_time`], uncapped).
     pub fn travel_time(&self, distance: u64) -> Duration {
-        Duration::from_secs_f64(distance as f64 / self.params.steps_per_second)
+        super::travel_time(distance, self.params.steps_per_second, Duration::MAX)
     }
 
     /// Starts a move to `target` (clamped to the limits: the mechanics have end
