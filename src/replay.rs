@@ -15,7 +15,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use crate::calibrate::StepMap;
-use crate::follow::{Action, Follower, Policy};
+use crate::follow::{Effects, Follower, HoldReason, Policy};
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::timeline::{Entry, Summary, Timeline};
 use crate::tuner::sim::{SimParams, SimTuner};
@@ -234,64 +234,91 @@ impl<'t> Replay<'t> {
     fn apply_actions(&mut self) -> std::io::Result<()> {
         while let Some(action) = self.core.poll_action() {
             let now = self.now;
-            match action {
-                Action::Inhibit { on } => {
-                    if !on && self.arrival.is_some() {
-                        self.summary.violations += 1;
-                    }
-                    self.inhibit = on;
-                    self.timeline.entry(now, &Entry::Inhibit { on })?;
-                }
-                Action::Hold { hz, reason } => {
-                    *self.summary.holds.entry(reason.as_str()).or_default() += 1;
-                    self.timeline.entry(
-                        now,
-                        &Entry::Hold {
-                            hz,
-                            reason: reason.as_str(),
-                        },
-                    )?;
-                }
-                Action::Settled { hz } => {
-                    self.timeline.entry(now, &Entry::Settle { hz })?;
-                }
-                Action::Move {
-                    from,
-                    to,
-                    hz,
-                    tune_hz,
-                } => {
-                    self.timeline.entry(
-                        now,
-                        &Entry::Move {
-                            from,
-                            to,
-                            hz,
-                            tune_hz,
-                        },
-                    )?;
-                }
-                Action::Goto { steps } => {
-                    let p = self.core.policy();
-                    if !self.inhibit
-                        || self.transmitting
-                        || !(p.min_steps..=p.max_steps).contains(&steps)
-                    {
-                        self.summary.violations += 1;
-                    }
-                    self.arrival = Some(self.tuner.goto(now, steps));
-                }
-                Action::Stop => {
-                    self.tuner.stop(now);
-                    self.arrival = Some(now + Duration::from_millis(self.tuner.params().settle_ms));
-                    self.timeline.entry(now, &Entry::Stop)?;
-                }
-                Action::Candidate { hz, steps, profile } => {
-                    self.timeline
-                        .entry(now, &Entry::Candidate { hz, steps, profile })?;
-                }
-            }
+            crate::follow::apply(&mut Sink { replay: self }, now, action)?;
         }
         Ok(())
+    }
+}
+
+/// The replay's side of [`crate::follow::Effects`]: the simulated tuner,
+/// the timeline and the summary's independent safety count.
+struct Sink<'r, 't> {
+    replay: &'r mut Replay<'t>,
+}
+
+impl Effects for Sink<'_, '_> {
+    type Error = std::io::Error;
+
+    fn inhibit(&mut self, now: Duration, on: bool) -> std::io::Result<()> {
+        let r = &mut *self.replay;
+        if !on && r.arrival.is_some() {
+            r.summary.violations += 1;
+        }
+        r.inhibit = on;
+        r.timeline.entry(now, &Entry::Inhibit { on })
+    }
+
+    fn settled(&mut self, now: Duration, hz: u64) -> std::io::Result<()> {
+        self.replay.timeline.entry(now, &Entry::Settle { hz })
+    }
+
+    fn hold(&mut self, now: Duration, hz: u64, reason: HoldReason) -> std::io::Result<()> {
+        let r = &mut *self.replay;
+        *r.summary.holds.entry(reason.as_str()).or_default() += 1;
+        r.timeline.entry(
+            now,
+            &Entry::Hold {
+                hz,
+                reason: reason.as_str(),
+            },
+        )
+    }
+
+    fn begin_move(
+        &mut self,
+        now: Duration,
+        from: i64,
+        to: i64,
+        hz: u64,
+        tune_hz: u64,
+    ) -> std::io::Result<()> {
+        self.replay.timeline.entry(
+            now,
+            &Entry::Move {
+                from,
+                to,
+                hz,
+                tune_hz,
+            },
+        )
+    }
+
+    fn goto(&mut self, now: Duration, steps: i64) -> std::io::Result<()> {
+        let r = &mut *self.replay;
+        let p = r.core.policy();
+        if !r.inhibit || r.transmitting || !(p.min_steps..=p.max_steps).contains(&steps) {
+            r.summary.violations += 1;
+        }
+        r.arrival = Some(r.tuner.goto(now, steps));
+        Ok(())
+    }
+
+    fn stop(&mut self, now: Duration) -> std::io::Result<()> {
+        let r = &mut *self.replay;
+        r.tuner.stop(now);
+        r.arrival = Some(now + Duration::from_millis(r.tuner.params().settle_ms));
+        r.timeline.entry(now, &Entry::Stop)
+    }
+
+    fn candidate(
+        &mut self,
+        now: Duration,
+        hz: u64,
+        steps: i64,
+        profile: Option<String>,
+    ) -> std::io::Result<()> {
+        self.replay
+            .timeline
+            .entry(now, &Entry::Candidate { hz, steps, profile })
     }
 }

@@ -21,7 +21,9 @@
 //!   final arrival;
 //! - while the position is unknown nothing moves and the inhibit stays on.
 
+pub mod effects;
 pub mod policy;
+pub mod session;
 
 use std::collections::VecDeque;
 use std::fmt;
@@ -29,6 +31,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use crate::calibrate::StepMap;
+pub use effects::{apply, Effects};
 pub use policy::{Band, Legs, Placement, Policy};
 
 /// Why the core decided not to move (or not to move as asked).

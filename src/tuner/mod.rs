@@ -11,6 +11,34 @@ pub mod sim;
 
 use std::time::Duration;
 
+/// What the service asks of the controller.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TunerCommand {
+    Goto(i64),
+    Where,
+    Stop,
+    Zero(i64),
+}
+
+/// What the controller link reports.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum TunerEvent {
+    /// A move was accepted (`MOVING`).
+    Accepted { target: i64 },
+    /// The motor is at rest here (`AT`).
+    At { steps: i64 },
+    /// A command was refused (by the controller or by this layer), or the
+    /// controller misbehaved.
+    Error { text: String },
+    /// The link is down; the position is not known until `At` after `LinkUp`.
+    LinkDown { reason: String },
+    /// The link is up again (a `WHERE` has been sent).
+    LinkUp,
+    /// The rig started transmitting during a move and this layer sent
+    /// `STOP`; an `At` with where the motor stopped follows.
+    InterlockStop,
+}
+
 /// Time to travel `distance` steps at `steps_per_second`, at most `cap`.
 ///
 /// The one rule for every layer that bounds or predicts a move (the

@@ -1,0 +1,63 @@
+//! The one place where the core's [`Action`]s are told apart: every driver
+//! (the replay against its simulated tuner, the live session) implements
+//! [`Effects`] and hands each action to [`apply`], so the match over the
+//! actions is written once.
+
+use std::time::Duration;
+
+use super::{Action, HoldReason};
+
+/// What a driver does with each kind of action. `Error` is what carrying
+/// one out can fail with (a timeline that cannot be written, say).
+pub trait Effects {
+    type Error;
+    /// Set the transmit-inhibit output.
+    fn inhibit(&mut self, now: Duration, on: bool) -> Result<(), Self::Error>;
+    /// The operator settled on `hz`.
+    fn settled(&mut self, now: Duration, hz: u64) -> Result<(), Self::Error>;
+    /// A decision not to move.
+    fn hold(&mut self, now: Duration, hz: u64, reason: HoldReason) -> Result<(), Self::Error>;
+    /// A repositioning begins (record its intent before the first leg).
+    fn begin_move(
+        &mut self,
+        now: Duration,
+        from: i64,
+        to: i64,
+        hz: u64,
+        tune_hz: u64,
+    ) -> Result<(), Self::Error>;
+    /// One leg for the controller.
+    fn goto(&mut self, now: Duration, steps: i64) -> Result<(), Self::Error>;
+    /// Stop the motor where it is.
+    fn stop(&mut self, now: Duration) -> Result<(), Self::Error>;
+    /// A candidate calibration point.
+    fn candidate(
+        &mut self,
+        now: Duration,
+        hz: u64,
+        steps: i64,
+        profile: Option<String>,
+    ) -> Result<(), Self::Error>;
+}
+
+/// Carries out one action on `fx`.
+pub fn apply<E: Effects + ?Sized>(
+    fx: &mut E,
+    now: Duration,
+    action: Action,
+) -> Result<(), E::Error> {
+    match action {
+        Action::Inhibit { on } => fx.inhibit(now, on),
+        Action::Settled { hz } => fx.settled(now, hz),
+        Action::Hold { hz, reason } => fx.hold(now, hz, reason),
+        Action::Move {
+            from,
+            to,
+            hz,
+            tune_hz,
+        } => fx.begin_move(now, from, to, hz, tune_hz),
+        Action::Goto { steps } => fx.goto(now, steps),
+        Action::Stop => fx.stop(now),
+        Action::Candidate { hz, steps, profile } => fx.candidate(now, hz, steps, profile),
+    }
+}

@@ -1,0 +1,1198 @@
+//! The live service's decisions, sans IO: the follow core plus everything
+//! the live driver has to decide around it.
+//!
+//! [`Session`] owns the [`Follower`], the rig's decoder and the
+//! controller's protocol state: bringing the journal and the controller's
+//! count into line when the link comes up (`ZERO` after a restart, nothing
+//! moves after an unfinished move), refusing a move's `GOTO`s when its
+//! journal or inhibit write failed, asking `WHERE` again after a fault, the
+//! legs under way (for the shutdown's bound on them), relax-on-exit and the
+//! whole shutdown sequence. It never reads a clock and does no IO; it
+//! imports no async runtime, no command-line parser and no config
+//! settings (only `Approach`, which the policy carries).
+//!
+//! How a driver uses it:
+//! - feed every input with the time since the driver's origin: rig bytes
+//!   and link state (`handle_rig_*`), controller events
+//!   ([`Session::handle_tuner`], [`Session::handle_tuner_gone`]), the
+//!   shutdown request, and [`Session::handle_timeout`] once
+//!   [`Session::poll_timeout`] is due. Times earlier than one already seen
+//!   count as that one: the session's clock never runs backwards;
+//! - then drain [`Session::poll_output`] and carry each [`Output`] out in
+//!   order. [`Output::Inhibit`], [`Output::JournalIntent`] and
+//!   [`Output::JournalPosition`] are writes whose result decides what comes
+//!   next: the driver does them synchronously and reports with
+//!   [`Session::handle_inhibit_result`] or
+//!   [`Session::handle_journal_result`] before it polls again (until then
+//!   `poll_output` gives nothing). A driver without a journal answers `Ok`;
+//! - stop when [`Session::is_finished`]; [`Session::outcome`] says how it
+//!   ended.
+
+use std::collections::VecDeque;
+use std::time::Duration;
+
+use super::{Effects, Follower, HoldReason};
+use crate::config::Approach;
+use crate::journal::Recorded;
+use crate::rig::{Decode, Direction, RigEvent};
+use crate::tuner::{TunerCommand, TunerEvent};
+
+/// How long after a fault the session asks `WHERE` again.
+pub const RETRY_AFTER: Duration = Duration::from_secs(2);
+/// How long shutdown (and relax-on-exit) waits for a stopping motor to
+/// report where it is.
+pub const STOP_WAIT: Duration = Duration::from_secs(3);
+/// The longest travel the session ever waits for.
+const TRAVEL_CAP: Duration = Duration::from_secs(3600);
+
+/// What the session needs to know of the controller and the station.
+#[derive(Debug, Clone, Copy)]
+pub struct SessionSettings {
+    pub steps_per_second: f64,
+    /// The motor's settle time after the last step.
+    pub settle: Duration,
+    /// The controller link's allowance on every reply.
+    pub reply_margin: Duration,
+    /// At a clean shutdown after a completed approach, back off half the
+    /// backlash toward the approach side.
+    pub relax_on_exit: bool,
+}
+
+impl SessionSettings {
+    /// Time to travel `distance` steps and settle, plus the reply margin.
+    fn travel(&self, distance: u64) -> Duration {
+        crate::tuner::travel_time(distance, self.steps_per_second, TRAVEL_CAP)
+            + self.settle
+            + self.reply_margin
+    }
+}
+
+/// What the driver is asked to do, in order.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Output {
+    /// Send to the controller link.
+    Command(TunerCommand),
+    /// Set the inhibit output; answer with [`Session::handle_inhibit_result`].
+    Inhibit { on: bool },
+    /// Record (fsync) a move's intent; answer with
+    /// [`Session::handle_journal_result`].
+    JournalIntent { from: i64, to: i64 },
+    /// Record (fsync) the position at rest; answer with
+    /// [`Session::handle_journal_result`].
+    JournalPosition { steps: i64 },
+    /// Tell the controller link's interlock whether the rig transmits (or
+    /// cannot be heard).
+    Transmit { on: bool },
+    /// Store a calibration point candidate, if there is somewhere to.
+    Candidate {
+        hz: u64,
+        steps: i64,
+        profile: Option<String>,
+    },
+    /// A log line.
+    Log(Note),
+}
+
+/// How loud a note is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Level {
+    Debug,
+    Info,
+    Warn,
+    Error,
+}
+
+/// One log line, as data: the driver writes it (with tracing, fields as
+/// fields).
+#[derive(Debug, Clone, PartialEq)]
+pub enum Note {
+    /// A line without fields.
+    Plain {
+        level: Level,
+        text: &'static str,
+    },
+    JournalKnown {
+        position: i64,
+    },
+    JournalUnfinished {
+        from: i64,
+        to: i64,
+    },
+    Inhibit {
+        on: bool,
+    },
+    InhibitFailed {
+        on: bool,
+        error: String,
+    },
+    ReleaseFailed {
+        error: String,
+    },
+    Settled {
+        hz: u64,
+    },
+    Hold {
+        hz: u64,
+        reason: HoldReason,
+    },
+    Move {
+        from: i64,
+        to: i64,
+        hz: u64,
+        tune_hz: u64,
+    },
+    IntentFailed {
+        error: String,
+    },
+    GotoBlocked {
+        steps: i64,
+    },
+    GotoWithoutInhibit {
+        steps: i64,
+    },
+    Candidate {
+        hz: u64,
+        steps: i64,
+        profile: Option<String>,
+    },
+    PositionFailed {
+        error: String,
+    },
+    /// Bytes the decoder held when the port dropped.
+    RigRejectedAtDrop {
+        reason: &'static str,
+        bytes: usize,
+    },
+    RigRejected {
+        reason: &'static str,
+        bytes: usize,
+    },
+    LinkDown {
+        reason: String,
+    },
+    Accepted {
+        target: i64,
+    },
+    LinkError {
+        text: String,
+    },
+    ZeroNotTaken {
+        wanted: i64,
+        got: i64,
+    },
+    Untrusted {
+        steps: i64,
+    },
+    CountDiffers {
+        journal: i64,
+        controller: i64,
+    },
+    PositionUnknown {
+        from: i64,
+        to: i64,
+        controller: i64,
+    },
+    ShutdownFinishing {
+        wait_ms: u64,
+    },
+    LinkDownInShutdown {
+        reason: String,
+    },
+    RelaxNothing {
+        tensioned: bool,
+        backlash: i64,
+    },
+    RelaxInhibitFailed {
+        error: String,
+    },
+    RelaxIntentFailed {
+        error: String,
+    },
+    RelaxBegin {
+        from: i64,
+        to: i64,
+    },
+}
+
+fn plain(level: Level, text: &'static str) -> Output {
+    Output::Log(Note::Plain { level, text })
+}
+
+/// How a session ended.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct RunSummary {
+    /// Where the motor was at rest at the end, if known.
+    pub position: Option<i64>,
+    /// Moves the core started.
+    pub moves: u64,
+    /// Faults seen (controller link, inhibit, journal).
+    pub faults: u64,
+    /// Times a timer of the session's own was due (a core deadline or a
+    /// `WHERE` retry); with no traffic and nothing due this stays 0.
+    pub timer_wakeups: u64,
+}
+
+/// Where the session is in bringing its position in line with the
+/// controller's.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Resync {
+    Idle,
+    /// The next `At` answers a `WHERE`. After the link came (back) up the
+    /// controller may have restarted, so its answer is checked against the
+    /// journal; after a fault with the link up all along it is taken.
+    AwaitWhere {
+        after_link_up: bool,
+    },
+    /// `ZERO p` was sent; waiting for `At p`.
+    AwaitZero(i64),
+    /// The position cannot be trusted (unfinished move in the journal):
+    /// positions reported are ignored until the link comes up again.
+    Blocked,
+}
+
+/// One leg sent to the controller.
+#[derive(Debug, Clone, Copy)]
+struct Leg {
+    from: i64,
+    to: i64,
+    sent: Duration,
+}
+
+/// The write whose result the session waits for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Awaiting {
+    CoreInhibit { on: bool },
+    StartRelease,
+    MoveIntent { from: i64, to: i64 },
+    Position { steps: i64 },
+    RelaxInhibit { from: i64, to: i64 },
+    RelaxIntent { from: i64, to: i64 },
+    FinalRelease,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Phase {
+    /// The core's first actions, then the inhibit synced to it.
+    Starting,
+    Running,
+    /// Shutdown asked: no new targets; the move under way may finish.
+    Finishing {
+        since: Duration,
+        announced: bool,
+    },
+    /// Shutdown sent `STOP`; waiting for where the motor stopped.
+    StopWait {
+        until: Duration,
+    },
+    /// The move is over (or given up on): relax, or close.
+    AfterMove,
+    RelaxStart,
+    /// The inhibit was asserted for the relaxing move; its lead runs.
+    RelaxLead {
+        until: Duration,
+        from: i64,
+        to: i64,
+    },
+    /// A write for the relaxing move is out; its result decides.
+    RelaxAsked,
+    /// The relaxing `GOTO` is under way.
+    RelaxMoving {
+        until: Duration,
+    },
+    /// The relaxing move overran and was stopped.
+    RelaxStopWait {
+        until: Duration,
+    },
+    /// Record the position.
+    Closing,
+    /// Release the inhibit.
+    Release,
+    Finished,
+}
+
+impl Phase {
+    /// The core's actions are carried out (and its timers run) only until
+    /// the shutdown has given up on the move under way.
+    fn follows(self) -> bool {
+        matches!(
+            self,
+            Phase::Starting | Phase::Running | Phase::Finishing { .. }
+        )
+    }
+}
+
+/// The state beside the core (split off so that the core's actions can be
+/// applied to it through [`Effects`] while the core is borrowed).
+struct Shell {
+    settings: SessionSettings,
+    inhibit_lead: Duration,
+    /// The inhibit output has accepted *on* and not been set off since.
+    inhibit_on: bool,
+    /// What the journal says (kept in step with every write).
+    recorded: Option<Recorded>,
+    resync: Resync,
+    /// Set after a failed journal or inhibit write: the `GOTO`s of that
+    /// move are not sent.
+    block_gotos: bool,
+    retry_where: Option<Duration>,
+    unknown_reported: bool,
+    leg: Option<Leg>,
+    final_to: Option<i64>,
+    /// The last move ended with its final approach: the drive train is
+    /// under tension toward the approach side.
+    tensioned: bool,
+    /// Shutdown requested: frequencies are no longer acted on.
+    stopping: bool,
+    /// The controller link's task is gone.
+    link_gone: bool,
+    phase: Phase,
+    now: Duration,
+    /// The core's position when the action being applied was taken.
+    core_position: Option<i64>,
+    /// A fault raised while applying an action (`ask_again`).
+    fault_request: Option<bool>,
+    out: VecDeque<(Output, Option<Awaiting>)>,
+    awaiting: Option<Awaiting>,
+    outcome: RunSummary,
+}
+
+impl Shell {
+    fn push(&mut self, o: Output) {
+        self.out.push_back((o, None));
+    }
+    fn ask(&mut self, o: Output, a: Awaiting) {
+        self.out.push_back((o, Some(a)));
+    }
+    fn note(&mut self, n: Note) {
+        self.push(Output::Log(n));
+    }
+}
+
+/// The live service's decisions. See the module documentation.
+pub struct Session {
+    core: Follower,
+    decoder: Box<dyn Decode>,
+    events: Vec<RigEvent>,
+    st: Shell,
+}
+
+impl Session {
+    /// A session for `core` (made with `position: None`: the position comes
+    /// from the controller and the journal), decoding the rig's bytes with
+    /// `decoder`; `recorded` is what the journal said at start (`None`:
+    /// none yet, or no journal). The inhibit line is taken to have opened
+    /// asserted.
+    pub fn new(
+        core: Follower,
+        decoder: Box<dyn Decode>,
+        recorded: Option<Recorded>,
+        settings: SessionSettings,
+    ) -> Session {
+        let inhibit_lead = core.policy().inhibit_lead;
+        let mut st = Shell {
+            settings,
+            inhibit_lead,
+            inhibit_on: true,
+            recorded,
+            resync: Resync::Idle,
+            block_gotos: false,
+            retry_where: None,
+            unknown_reported: false,
+            leg: None,
+            final_to: None,
+            tensioned: false,
+            stopping: false,
+            link_gone: false,
+            phase: Phase::Starting,
+            now: Duration::ZERO,
+            core_position: None,
+            fault_request: None,
+            out: VecDeque::new(),
+            awaiting: None,
+            outcome: RunSummary::default(),
+        };
+        st.note(match recorded {
+            Some(Recorded::Known(p)) => Note::JournalKnown { position: p },
+            Some(Recorded::Unknown { from, to }) => Note::JournalUnfinished { from, to },
+            None => Note::Plain {
+                level: Level::Info,
+                text: "journal: none yet; the controller's count will be taken",
+            },
+        });
+        Session {
+            core,
+            decoder,
+            events: Vec::with_capacity(16),
+            st,
+        }
+    }
+
+    fn clock(&mut self, now: Duration) -> Duration {
+        self.st.now = self.st.now.max(now);
+        self.st.now
+    }
+
+    // ----- events in -------------------------------------------------------
+
+    /// Bytes from the rig's port, read at `now`.
+    pub fn handle_rig_bytes(&mut self, now: Duration, dir: Direction, bytes: &[u8]) {
+        let now = self.clock(now);
+        let mut out = std::mem::take(&mut self.events);
+        out.clear();
+        self.decoder.feed(dir, bytes, &mut out);
+        for ev in &out {
+            match *ev {
+                // Shutting down: no new targets (transmit still counts).
+                RigEvent::Frequency { .. } if self.st.stopping => {}
+                RigEvent::Frequency { hz } => self.core.handle_frequency(now, hz),
+                RigEvent::Transmit { on } => self.set_transmit(now, on),
+                RigEvent::Reject { reason, bytes } => self.st.note(Note::RigRejected {
+                    reason: reason.as_str(),
+                    bytes,
+                }),
+            }
+        }
+        self.events = out;
+    }
+
+    /// The rig's port went down: the core holds (`rig-silent`) and the
+    /// controller link refuses and stops moves as if the rig transmitted.
+    pub fn handle_rig_down(&mut self, now: Duration) {
+        let now = self.clock(now);
+        self.st.push(Output::Transmit { on: true });
+        self.core.handle_rig_link(now, false);
+    }
+
+    /// The rig's port is (back) up.
+    pub fn handle_rig_up(&mut self, now: Duration) {
+        let now = self.clock(now);
+        // Bytes the decoder still holds belong to the connection that
+        // ended: `finish` turns them into rejects, so that a frame torn by
+        // the drop is never joined to the new connection's bytes. Rejects
+        // decide nothing; they are logged as on any read.
+        let mut stale = Vec::new();
+        self.decoder.finish(&mut stale);
+        for ev in &stale {
+            if let RigEvent::Reject { reason, bytes } = *ev {
+                self.st.note(Note::RigRejectedAtDrop {
+                    reason: reason.as_str(),
+                    bytes,
+                });
+            }
+        }
+        // A transmission that ended while the port was down went unheard:
+        // the rig is taken to be receiving until it says otherwise.
+        self.set_transmit(now, false);
+        self.core.handle_rig_link(now, true);
+    }
+
+    /// The rig's source ended for good: nothing moves from now on.
+    pub fn handle_rig_ended(&mut self, now: Duration) {
+        self.st.push(plain(
+            Level::Warn,
+            "rig source ended; nothing moves from now on",
+        ));
+        self.handle_rig_down(now);
+    }
+
+    fn set_transmit(&mut self, now: Duration, on: bool) {
+        self.st.push(Output::Transmit { on });
+        self.core.handle_transmit(now, on);
+    }
+
+    /// An event from the controller link.
+    pub fn handle_tuner(&mut self, now: Duration, ev: TunerEvent) {
+        let now = self.clock(now);
+        match self.st.phase {
+            p if p.follows() => self.tuner_event(now, ev),
+            Phase::StopWait { .. } | Phase::RelaxMoving { .. } | Phase::RelaxStopWait { .. } => {
+                match ev {
+                    TunerEvent::At { steps } => self.waited(now, Some(steps)),
+                    TunerEvent::LinkDown { reason } => {
+                        self.st.note(Note::LinkDownInShutdown { reason });
+                        self.waited(now, None);
+                    }
+                    TunerEvent::Error { text } => {
+                        self.st.note(Note::LinkError { text });
+                        self.waited(now, None);
+                    }
+                    _ => {}
+                }
+            }
+            // Nothing is asked of the controller now.
+            _ => {}
+        }
+    }
+
+    /// The controller link's task ended (its channel closed).
+    pub fn handle_tuner_gone(&mut self, now: Duration) {
+        let now = self.clock(now);
+        self.st.link_gone = true;
+        if matches!(self.st.phase, Phase::Starting | Phase::Running) {
+            self.st
+                .push(plain(Level::Error, "controller link task ended"));
+            self.st.phase = Phase::Release;
+        }
+        let _ = now;
+    }
+
+    /// SIGINT/SIGTERM: stop acting on frequencies; let the move under way
+    /// finish (or stop it once its leg's travel time has passed); relax if
+    /// asked; record the position; release the inhibit.
+    pub fn handle_shutdown(&mut self, now: Duration) {
+        let now = self.clock(now);
+        if self.st.stopping {
+            return;
+        }
+        self.st.stopping = true;
+        self.core.handle_pause(now, true);
+        if matches!(self.st.phase, Phase::Starting | Phase::Running) {
+            self.st.phase = Phase::Finishing {
+                since: now,
+                announced: false,
+            };
+        }
+    }
+
+    /// Time has passed: act on whatever is due.
+    pub fn handle_timeout(&mut self, now: Duration) {
+        let now = self.clock(now);
+        match self.st.phase {
+            p if p.follows() => {
+                let mut woke = false;
+                if self.st.retry_where.is_some_and(|t| now >= t) {
+                    self.st.retry_where = None;
+                    self.st.push(Output::Command(TunerCommand::Where));
+                    woke = true;
+                }
+                if self.core.poll_timeout().is_some_and(|t| now >= t) {
+                    self.core.handle_timeout(now);
+                    woke = true;
+                }
+                if woke {
+                    self.st.outcome.timer_wakeups += 1;
+                }
+                if matches!(p, Phase::Finishing { .. })
+                    && self.core.is_moving()
+                    && now >= self.move_deadline()
+                {
+                    self.overrun();
+                }
+            }
+            Phase::StopWait { until }
+            | Phase::RelaxMoving { until }
+            | Phase::RelaxStopWait { until }
+                if now >= until =>
+            {
+                self.waited(now, None)
+            }
+            Phase::RelaxLead { until, from, to } if now >= until => {
+                self.st.phase = Phase::RelaxAsked;
+                self.st.ask(
+                    Output::JournalIntent { from, to },
+                    Awaiting::RelaxIntent { from, to },
+                );
+            }
+            _ => {}
+        }
+    }
+
+    /// The result of the last [`Output::Inhibit`].
+    pub fn handle_inhibit_result(&mut self, now: Duration, result: Result<(), String>) {
+        let now = self.clock(now);
+        let Some(a) = self.st.awaiting.take() else {
+            return;
+        };
+        match (a, result) {
+            (Awaiting::CoreInhibit { on }, Ok(())) => {
+                self.st.inhibit_on = on;
+                self.st.note(Note::Inhibit { on });
+            }
+            (Awaiting::CoreInhibit { on }, Err(error)) => {
+                self.st.inhibit_on = false;
+                self.st.note(Note::InhibitFailed { on, error });
+                if on {
+                    self.st.block_gotos = true;
+                    self.fault(now, true);
+                }
+            }
+            (Awaiting::StartRelease, Ok(())) | (Awaiting::FinalRelease, Ok(())) => {
+                self.st.inhibit_on = false;
+                self.st.note(Note::Inhibit { on: false });
+            }
+            (Awaiting::StartRelease, Err(error)) => {
+                self.st.note(Note::InhibitFailed { on: false, error })
+            }
+            (Awaiting::FinalRelease, Err(error)) => self.st.note(Note::ReleaseFailed { error }),
+            (Awaiting::RelaxInhibit { from, to }, Ok(())) => {
+                self.st.inhibit_on = true;
+                self.st.note(Note::Inhibit { on: true });
+                self.st.phase = Phase::RelaxLead {
+                    until: now + self.st.inhibit_lead,
+                    from,
+                    to,
+                };
+            }
+            (Awaiting::RelaxInhibit { .. }, Err(error)) => {
+                self.st.note(Note::RelaxInhibitFailed { error });
+                self.st.phase = Phase::Closing;
+            }
+            // Not an answer to an inhibit write: still waiting for that.
+            (other, _) => self.st.awaiting = Some(other),
+        }
+    }
+
+    /// The result of the last [`Output::JournalIntent`] or
+    /// [`Output::JournalPosition`].
+    pub fn handle_journal_result(&mut self, now: Duration, result: Result<(), String>) {
+        let now = self.clock(now);
+        let Some(a) = self.st.awaiting.take() else {
+            return;
+        };
+        match (a, result) {
+            (Awaiting::MoveIntent { from, to }, Ok(())) => {
+                self.st.recorded = Some(Recorded::Unknown { from, to });
+                if self.st.inhibit_on {
+                    self.st.block_gotos = false;
+                } else {
+                    self.st.push(plain(
+                        Level::Error,
+                        "move without a confirmed transmit inhibit; not moving",
+                    ));
+                    self.st.block_gotos = true;
+                    self.fault(now, true);
+                }
+            }
+            (Awaiting::MoveIntent { .. }, Err(error)) => {
+                self.st.note(Note::IntentFailed { error });
+                self.st.block_gotos = true;
+                self.fault(now, true);
+            }
+            (Awaiting::Position { steps }, Ok(())) => {
+                self.st.recorded = Some(Recorded::Known(steps))
+            }
+            // What is on disk is unchanged (atomic rename): still the
+            // intent, which is the cautious reading.
+            (Awaiting::Position { .. }, Err(error)) => self.st.note(Note::PositionFailed { error }),
+            (Awaiting::RelaxIntent { from, to }, Ok(())) => {
+                self.st.recorded = Some(Recorded::Unknown { from, to });
+                self.st.note(Note::RelaxBegin { from, to });
+                self.st.tensioned = false;
+                self.st.push(Output::Command(TunerCommand::Goto(to)));
+                self.st.phase = Phase::RelaxMoving {
+                    until: now + self.st.settings.travel(from.abs_diff(to)),
+                };
+            }
+            (Awaiting::RelaxIntent { .. }, Err(error)) => {
+                self.st.note(Note::RelaxIntentFailed { error });
+                self.st.phase = Phase::Closing;
+            }
+            (other, _) => self.st.awaiting = Some(other),
+        }
+    }
+
+    // ----- work out --------------------------------------------------------
+
+    /// The next thing for the driver to do, in order. `None` when there is
+    /// nothing (or while a write's result is awaited).
+    pub fn poll_output(&mut self) -> Option<Output> {
+        loop {
+            if self.st.awaiting.is_some() {
+                return None;
+            }
+            if let Some((o, a)) = self.st.out.pop_front() {
+                self.st.awaiting = a;
+                return Some(o);
+            }
+            if self.st.phase.follows() {
+                if let Some(action) = self.core.poll_action() {
+                    let now = self.st.now;
+                    self.st.core_position = self.core.position();
+                    let Ok(()) = super::apply(&mut self.st, now, action);
+                    if let Some(ask_again) = self.st.fault_request.take() {
+                        self.fault(now, ask_again);
+                    }
+                    continue;
+                }
+            }
+            if !self.advance() {
+                return None;
+            }
+        }
+    }
+
+    /// When [`Session::handle_timeout`] is next needed, if ever.
+    pub fn poll_timeout(&self) -> Option<Duration> {
+        match self.st.phase {
+            p if p.follows() => {
+                let finishing = match p {
+                    Phase::Finishing { .. } if self.core.is_moving() => Some(self.move_deadline()),
+                    _ => None,
+                };
+                [self.core.poll_timeout(), self.st.retry_where, finishing]
+                    .into_iter()
+                    .flatten()
+                    .min()
+            }
+            Phase::StopWait { until }
+            | Phase::RelaxMoving { until }
+            | Phase::RelaxStopWait { until }
+            | Phase::RelaxLead { until, .. } => Some(until),
+            _ => None,
+        }
+    }
+
+    /// The shutdown is complete (or the controller link is gone and the
+    /// inhibit released): the driver can stop.
+    pub fn is_finished(&self) -> bool {
+        self.st.phase == Phase::Finished && self.st.out.is_empty() && self.st.awaiting.is_none()
+    }
+
+    /// How the session stands (final once [`Session::is_finished`]).
+    pub fn outcome(&self) -> RunSummary {
+        RunSummary {
+            position: self.core.position(),
+            moves: self.core.stats().moves,
+            ..self.st.outcome.clone()
+        }
+    }
+
+    /// The core, for inspection.
+    pub fn core(&self) -> &Follower {
+        &self.core
+    }
+
+    /// What the session takes the journal to say.
+    pub fn recorded(&self) -> Option<Recorded> {
+        self.st.recorded
+    }
+
+    /// The inhibit output has accepted *on* and not been set off since.
+    pub fn inhibit_on(&self) -> bool {
+        self.st.inhibit_on
+    }
+
+    /// The last move ended with its final approach.
+    pub fn tensioned(&self) -> bool {
+        self.st.tensioned
+    }
+
+    // ----- decisions ---------------------------------------------------------
+
+    fn tuner_event(&mut self, now: Duration, ev: TunerEvent) {
+        match ev {
+            TunerEvent::LinkUp => {
+                self.st.resync = Resync::AwaitWhere {
+                    after_link_up: true,
+                }
+            }
+            TunerEvent::LinkDown { reason } => {
+                self.st.note(Note::LinkDown { reason });
+                self.fault(now, false);
+            }
+            TunerEvent::Accepted { target } => self.st.note(Note::Accepted { target }),
+            TunerEvent::InterlockStop => self.st.push(plain(
+                Level::Warn,
+                "rig transmitted during a move; the controller link stopped the motor",
+            )),
+            TunerEvent::Error { text } => {
+                self.st.note(Note::LinkError { text });
+                if self.core.is_moving() {
+                    // A refused or failed leg: the core would wait for an
+                    // arrival that will not come.
+                    self.fault(now, true);
+                }
+            }
+            TunerEvent::At { steps } => match self.st.resync {
+                Resync::AwaitWhere {
+                    after_link_up: true,
+                } => self.resync_where(now, steps),
+                Resync::AwaitWhere {
+                    after_link_up: false,
+                } => {
+                    self.st.resync = Resync::Idle;
+                    self.accept(now, steps);
+                }
+                Resync::AwaitZero(p) => {
+                    self.st.resync = Resync::Idle;
+                    if steps == p {
+                        self.accept(now, steps);
+                    } else {
+                        self.st.note(Note::ZeroNotTaken {
+                            wanted: p,
+                            got: steps,
+                        });
+                        // Check against the journal again (and re-send ZERO).
+                        self.st.resync = Resync::AwaitWhere {
+                            after_link_up: true,
+                        };
+                        self.fault(now, true);
+                    }
+                }
+                Resync::Blocked => self.st.note(Note::Untrusted { steps }),
+                Resync::Idle => {
+                    self.core.handle_arrived(now, steps);
+                    if !self.core.is_moving() {
+                        self.st.tensioned = self.st.final_to == Some(steps);
+                        self.st.leg = None;
+                        self.st.final_to = None;
+                        self.record_position(steps);
+                    }
+                }
+            },
+        }
+    }
+
+    fn resync_where(&mut self, now: Duration, steps: i64) {
+        self.st.resync = Resync::Idle;
+        match self.st.recorded {
+            Some(Recorded::Known(p)) if p != steps => {
+                self.st.note(Note::CountDiffers {
+                    journal: p,
+                    controller: steps,
+                });
+                self.st.resync = Resync::AwaitZero(p);
+                self.st.push(Output::Command(TunerCommand::Zero(p)));
+            }
+            Some(Recorded::Unknown { from, to }) if steps != to => {
+                self.st.resync = Resync::Blocked;
+                if !self.st.unknown_reported {
+                    self.st.unknown_reported = true;
+                    self.st.note(Note::PositionUnknown {
+                        from,
+                        to,
+                        controller: steps,
+                    });
+                }
+            }
+            _ => self.accept(now, steps),
+        }
+    }
+
+    /// The position is trusted again.
+    fn accept(&mut self, now: Duration, steps: i64) {
+        self.st.block_gotos = false;
+        self.core.handle_arrived(now, steps);
+        if !self.core.is_moving() {
+            self.record_position(steps);
+        }
+    }
+
+    fn record_position(&mut self, steps: i64) {
+        if self.st.recorded != Some(Recorded::Known(steps)) {
+            self.st.ask(
+                Output::JournalPosition { steps },
+                Awaiting::Position { steps },
+            );
+        }
+    }
+
+    /// Something failed: the core stops trusting the position; with
+    /// `ask_again` the session asks `WHERE` after a pause.
+    fn fault(&mut self, now: Duration, ask_again: bool) {
+        let st = &mut self.st;
+        st.outcome.faults += 1;
+        st.leg = None;
+        st.final_to = None;
+        st.tensioned = false;
+        self.core.handle_fault(now);
+        if ask_again {
+            // Keep a stricter check already pending.
+            if matches!(st.resync, Resync::Idle) {
+                st.resync = Resync::AwaitWhere {
+                    after_link_up: false,
+                };
+            }
+            st.retry_where = Some(now + RETRY_AFTER);
+        }
+    }
+
+    /// When the move under way should have ended: the current leg's travel
+    /// from when it was sent, plus settle time and half the reply margin,
+    /// so that our `STOP` goes out before the controller link would call
+    /// the slow move a fault (at the full margin). Before the first leg
+    /// (the inhibit lead), the lead plus the margin from when shutdown was
+    /// asked.
+    fn move_deadline(&self) -> Duration {
+        let s = self.st.settings;
+        match (self.st.leg, self.st.phase) {
+            (Some(leg), _) => {
+                let run = s.travel(leg.from.abs_diff(leg.to));
+                leg.sent + run.saturating_sub(s.reply_margin / 2)
+            }
+            (None, Phase::Finishing { since, .. }) => since + self.st.inhibit_lead + s.reply_margin,
+            (None, _) => self.st.now + self.st.inhibit_lead + s.reply_margin,
+        }
+    }
+
+    /// Shutdown gave up waiting for the move under way.
+    fn overrun(&mut self) {
+        self.st.push(plain(
+            Level::Warn,
+            "shutting down: the move did not finish in time; stopping the motor",
+        ));
+        self.st.tensioned = false;
+        self.st.push(Output::Command(TunerCommand::Stop));
+        self.st.phase = Phase::StopWait {
+            until: self.st.now + STOP_WAIT,
+        };
+    }
+
+    /// A shutdown wait for `At` ended: with where the motor is, or not.
+    fn waited(&mut self, now: Duration, at: Option<i64>) {
+        match (self.st.phase, at) {
+            (Phase::StopWait { .. }, Some(steps)) => {
+                self.core.handle_arrived(now, steps);
+                self.record_position(steps);
+                self.st.phase = Phase::AfterMove;
+            }
+            (Phase::StopWait { .. }, None) => {
+                self.st.push(plain(Level::Error, "shutting down: the controller did not say where the motor stopped; the journal keeps the unfinished move (position unknown at next start)"));
+                // The core still holds the position the move started from;
+                // recording that at the close would hide the unfinished move.
+                self.fault(now, false);
+                self.st.phase = Phase::AfterMove;
+            }
+            (Phase::RelaxMoving { .. } | Phase::RelaxStopWait { .. }, Some(steps)) => {
+                self.core.handle_arrived(now, steps);
+                self.record_position(steps);
+                self.st.phase = Phase::Closing;
+            }
+            (Phase::RelaxMoving { .. }, None) => {
+                self.st.push(plain(
+                    Level::Warn,
+                    "relax on exit: no arrival in time; stopping the motor",
+                ));
+                self.st.push(Output::Command(TunerCommand::Stop));
+                self.st.phase = Phase::RelaxStopWait {
+                    until: now + STOP_WAIT,
+                };
+            }
+            (Phase::RelaxStopWait { .. }, None) => {
+                self.st.push(plain(Level::Error, "relax on exit: the controller did not say where the motor is; the journal keeps the unfinished move"));
+                self.fault(now, false);
+                self.st.phase = Phase::Closing;
+            }
+            _ => {}
+        }
+    }
+
+    /// `relax_on_exit`: after a move that ended with its final approach,
+    /// back off half the backlash toward the approach side (within the
+    /// limits), under the inhibit and through the journal like any move.
+    fn relax_start(&mut self) {
+        self.st.phase = Phase::Closing;
+        let policy = self.core.policy();
+        let half = policy.backlash_steps / 2;
+        let Some(p) = self.core.position() else {
+            self.st.push(plain(
+                Level::Info,
+                "relax on exit: skipped, position unknown",
+            ));
+            return;
+        };
+        if !self.st.tensioned || half == 0 {
+            let backlash = policy.backlash_steps;
+            self.st.note(Note::RelaxNothing {
+                tensioned: self.st.tensioned,
+                backlash,
+            });
+            return;
+        }
+        if self.core.transmitting() {
+            self.st.push(plain(
+                Level::Info,
+                "relax on exit: skipped, the rig is transmitting",
+            ));
+            return;
+        }
+        let to = policy.clamp(match policy.approach {
+            Approach::Up => p - half,
+            Approach::Down => p + half,
+        });
+        if to == p {
+            return;
+        }
+        if self.st.inhibit_on {
+            self.st.ask(
+                Output::JournalIntent { from: p, to },
+                Awaiting::RelaxIntent { from: p, to },
+            );
+        } else {
+            self.st.ask(
+                Output::Inhibit { on: true },
+                Awaiting::RelaxInhibit { from: p, to },
+            );
+        }
+        self.st.phase = Phase::RelaxAsked;
+    }
+
+    /// Moves the phase on once nothing else is to be done; `false` when it
+    /// stays as it is.
+    fn advance(&mut self) -> bool {
+        let now = self.st.now;
+        match self.st.phase {
+            Phase::Starting => {
+                self.st.phase = Phase::Running;
+                if !self.core.inhibit() {
+                    // The journal gave a trusted position: nothing to hold
+                    // the rig off for.
+                    self.st
+                        .ask(Output::Inhibit { on: false }, Awaiting::StartRelease);
+                }
+                true
+            }
+            Phase::Running => false,
+            Phase::Finishing {
+                since,
+                announced: false,
+            } => {
+                self.st.phase = Phase::Finishing {
+                    since,
+                    announced: true,
+                };
+                if self.core.is_moving() {
+                    let wait_ms = self.move_deadline().saturating_sub(now).as_millis() as u64;
+                    self.st.note(Note::ShutdownFinishing { wait_ms });
+                } else {
+                    self.st.push(plain(
+                        Level::Info,
+                        "shutting down: no new targets; the motor is at rest",
+                    ));
+                    self.st.phase = Phase::AfterMove;
+                }
+                true
+            }
+            Phase::Finishing { .. } if !self.core.is_moving() => {
+                self.st.phase = Phase::AfterMove;
+                true
+            }
+            Phase::Finishing { .. } if self.st.link_gone => {
+                self.overrun();
+                true
+            }
+            Phase::StopWait { .. } | Phase::RelaxMoving { .. } | Phase::RelaxStopWait { .. }
+                if self.st.link_gone =>
+            {
+                self.waited(now, None);
+                true
+            }
+            Phase::AfterMove => {
+                self.st.phase = if self.st.settings.relax_on_exit {
+                    Phase::RelaxStart
+                } else {
+                    Phase::Closing
+                };
+                true
+            }
+            Phase::RelaxStart => {
+                self.relax_start();
+                true
+            }
+            Phase::Closing => {
+                self.st.phase = Phase::Release;
+                if let Some(p) = self.core.position() {
+                    self.record_position(p);
+                }
+                true
+            }
+            Phase::Release => {
+                self.st.phase = Phase::Finished;
+                if self.st.inhibit_on || self.core.inhibit() {
+                    self.st
+                        .ask(Output::Inhibit { on: false }, Awaiting::FinalRelease);
+                }
+                true
+            }
+            _ => false,
+        }
+    }
+}
+
+/// The core's actions turned into the session's outputs and decisions.
+impl Effects for Shell {
+    type Error = std::convert::Infallible;
+
+    fn inhibit(&mut self, _now: Duration, on: bool) -> Result<(), Self::Error> {
+        self.ask(Output::Inhibit { on }, Awaiting::CoreInhibit { on });
+        Ok(())
+    }
+
+    fn settled(&mut self, _now: Duration, hz: u64) -> Result<(), Self::Error> {
+        self.note(Note::Settled { hz });
+        Ok(())
+    }
+
+    fn hold(&mut self, _now: Duration, hz: u64, reason: HoldReason) -> Result<(), Self::Error> {
+        self.note(Note::Hold { hz, reason });
+        Ok(())
+    }
+
+    fn begin_move(
+        &mut self,
+        _now: Duration,
+        from: i64,
+        to: i64,
+        hz: u64,
+        tune_hz: u64,
+    ) -> Result<(), Self::Error> {
+        self.note(Note::Move {
+            from,
+            to,
+            hz,
+            tune_hz,
+        });
+        self.final_to = Some(to);
+        self.tensioned = false;
+        self.ask(
+            Output::JournalIntent { from, to },
+            Awaiting::MoveIntent { from, to },
+        );
+        Ok(())
+    }
+
+    fn goto(&mut self, now: Duration, steps: i64) -> Result<(), Self::Error> {
+        if self.block_gotos {
+            self.note(Note::GotoBlocked { steps });
+        } else if !self.inhibit_on {
+            self.note(Note::GotoWithoutInhibit { steps });
+            self.block_gotos = true;
+            self.fault_request = Some(true);
+        } else {
+            self.leg = Some(Leg {
+                from: self.core_position.unwrap_or(steps),
+                to: steps,
+                sent: now,
+            });
+            self.push(Output::Command(TunerCommand::Goto(steps)));
+        }
+        Ok(())
+    }
+
+    fn stop(&mut self, _now: Duration) -> Result<(), Self::Error> {
+        self.tensioned = false;
+        self.leg = None;
+        self.push(Output::Command(TunerCommand::Stop));
+        Ok(())
+    }
+
+    fn candidate(
+        &mut self,
+        _now: Duration,
+        hz: u64,
+        steps: i64,
+        profile: Option<String>,
+    ) -> Result<(), Self::Error> {
+        self.note(Note::Candidate {
+            hz,
+            steps,
+            profile: profile.clone(),
+        });
+        self.push(Output::Candidate { hz, steps, profile });
+        Ok(())
+    }
+}
+
+#[cfg(test)]
+#[path = "session_tests.rs"]
+mod tests;

@@ -1,0 +1,373 @@
+//! The session's decisions on virtual time, without sockets: a bench plays
+//! the controller, the inhibit line and the journal, keeping its own record
+//! of what was written and sent, and the tests check that record (not the
+//! session's own view). The calibration is an invented straight line:
+//! steps = (hz - 7 000 000) / 100, so 7.1 MHz is 1000 steps.
+
+use std::sync::Arc;
+use std::time::Duration;
+
+use super::*;
+use crate::calibrate::StepMap;
+use crate::follow::{Band, Policy};
+use crate::rig::dialect::Dialect;
+
+struct Line;
+impl StepMap for Line {
+    fn steps_at(&self, hz: f64) -> f64 {
+        (hz - 7_000_000.0) / 100.0
+    }
+}
+
+fn ms(v: u64) -> Duration {
+    Duration::from_millis(v)
+}
+
+fn policy(backlash: i64) -> Policy {
+    Policy {
+        bands: vec![Band {
+            name: "40m".into(),
+            low_hz: 7_000_000,
+            high_hz: 7_300_000,
+            guard_hz: 0,
+            hysteresis_hz: 500,
+            debounce: ms(30),
+        }],
+        min_steps: 0,
+        max_steps: 3000,
+        backlash_steps: backlash,
+        approach: Approach::Up,
+        debounce: ms(30),
+        min_move_steps: 3,
+        inhibit_lead: ms(5),
+        inhibit_tail: ms(50),
+        candidate_dwell: ms(5_000),
+        inhibit_while_detuned: false,
+    }
+}
+
+struct Bench {
+    s: Session,
+    dialect: Dialect,
+    now: Duration,
+    journal: Option<Recorded>,
+    fail_journal: bool,
+    fail_inhibit: bool,
+    /// Every level written to the inhibit line, in order.
+    levels: Vec<bool>,
+    /// Every command sent to the controller, in order.
+    commands: Vec<TunerCommand>,
+    transmit: Vec<bool>,
+}
+
+impl Bench {
+    fn new(journal: Option<Recorded>, backlash: i64, relax: bool) -> Bench {
+        let dialect = Dialect::builtin("text-semicolon").expect("built-in dialect");
+        let settings = SessionSettings {
+            steps_per_second: 20_000.0,
+            settle: ms(10),
+            reply_margin: ms(500),
+            relax_on_exit: relax,
+        };
+        let core = Follower::new(policy(backlash), Arc::new(Line), None);
+        let s = Session::new(core, dialect.decoder(None), journal, settings);
+        let mut b = Bench {
+            s,
+            dialect,
+            now: Duration::ZERO,
+            journal,
+            fail_journal: false,
+            fail_inhibit: false,
+            levels: Vec::new(),
+            commands: Vec::new(),
+            transmit: Vec::new(),
+        };
+        b.pump();
+        b
+    }
+
+    /// A bench whose controller link came up reporting `controller`.
+    fn linked(journal: Option<Recorded>, controller: i64) -> Bench {
+        let mut b = Bench::new(journal, 0, false);
+        b.tuner(TunerEvent::LinkUp);
+        b.tuner(TunerEvent::At { steps: controller });
+        // Past the inhibit tail of the start-up.
+        b.wait(ms(100));
+        b
+    }
+
+    /// Runs every deadline for `d` from now.
+    fn wait(&mut self, d: Duration) {
+        self.run_until(self.now + d);
+    }
+
+    fn pump(&mut self) {
+        while let Some(o) = self.s.poll_output() {
+            match o {
+                Output::Command(c) => self.commands.push(c),
+                Output::Inhibit { on } => {
+                    self.levels.push(on);
+                    let r = if self.fail_inhibit {
+                        Err("line stuck".to_string())
+                    } else {
+                        Ok(())
+                    };
+                    self.s.handle_inhibit_result(self.now, r);
+                }
+                Output::JournalIntent { from, to } => {
+                    let r = self.write(Recorded::Unknown { from, to });
+                    self.s.handle_journal_result(self.now, r);
+                }
+                Output::JournalPosition { steps } => {
+                    let r = self.write(Recorded::Known(steps));
+                    self.s.handle_journal_result(self.now, r);
+                }
+                Output::Transmit { on } => self.transmit.push(on),
+                Output::Candidate { .. } | Output::Log(_) => {}
+            }
+        }
+    }
+
+    fn write(&mut self, r: Recorded) -> Result<(), String> {
+        if self.fail_journal {
+            return Err("disk full".to_string());
+        }
+        self.journal = Some(r);
+        Ok(())
+    }
+
+    fn tuner(&mut self, ev: TunerEvent) {
+        self.s.handle_tuner(self.now, ev);
+        self.pump();
+    }
+
+    fn frequency(&mut self, hz: u64) {
+        let bytes = self.dialect.encode_frequency(hz, 0);
+        self.s.handle_rig_bytes(self.now, Direction::Rx, &bytes);
+        self.pump();
+    }
+
+    /// Runs every deadline up to `t` (virtual time).
+    fn run_until(&mut self, t: Duration) {
+        while let Some(d) = self.s.poll_timeout().filter(|d| *d <= t) {
+            self.now = d.max(self.now);
+            self.s.handle_timeout(self.now);
+            self.pump();
+        }
+        self.now = self.now.max(t);
+    }
+
+    fn shutdown(&mut self) {
+        self.s.handle_shutdown(self.now);
+        self.pump();
+    }
+
+    fn gotos(&self) -> Vec<i64> {
+        self.commands
+            .iter()
+            .filter_map(|c| match c {
+                TunerCommand::Goto(n) => Some(*n),
+                _ => None,
+            })
+            .collect()
+    }
+}
+
+#[test]
+fn a_first_start_takes_the_controllers_count_and_follows() {
+    let mut b = Bench::linked(None, 0);
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+    b.frequency(7_100_000);
+    b.wait(ms(100));
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 1000 }));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(1000));
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+    // On while unknown at start, off once known, on for the move, off after.
+    assert_eq!(b.levels, vec![true, false, true, false]);
+}
+
+#[test]
+fn a_clean_journal_and_a_differing_count_send_zero() {
+    let mut b = Bench::linked(Some(Recorded::Known(2000)), 0);
+    assert_eq!(b.commands, vec![TunerCommand::Zero(2000)]);
+    assert_eq!(b.s.core().position(), None);
+    b.tuner(TunerEvent::At { steps: 2000 });
+    assert_eq!(b.s.core().position(), Some(2000));
+    b.frequency(7_250_000);
+    b.wait(ms(100));
+    assert_eq!(b.gotos(), vec![2500]);
+}
+
+#[test]
+fn a_controller_that_does_not_take_zero_is_a_fault_and_asked_again() {
+    let mut b = Bench::linked(Some(Recorded::Known(2000)), 0);
+    b.tuner(TunerEvent::At { steps: 5 });
+    assert_eq!(b.s.outcome().faults, 1);
+    b.wait(RETRY_AFTER + ms(1));
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
+    b.tuner(TunerEvent::At { steps: 0 });
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Zero(2000)));
+}
+
+#[test]
+fn an_unfinished_move_blocks_everything_unless_the_controller_reports_its_target() {
+    let unfinished = Some(Recorded::Unknown { from: 100, to: 900 });
+    let mut b = Bench::linked(unfinished, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    b.tuner(TunerEvent::At { steps: 0 });
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    assert_eq!(b.journal, unfinished);
+    assert_eq!(b.levels, vec![true]);
+    b.shutdown();
+    assert!(b.s.is_finished());
+    assert_eq!(b.levels, vec![true, false]);
+    assert_eq!(b.journal, unfinished);
+
+    let b = Bench::linked(unfinished, 900);
+    assert_eq!(b.s.core().position(), Some(900));
+    assert_eq!(b.journal, Some(Recorded::Known(900)));
+}
+
+#[test]
+fn a_failed_intent_write_sends_no_goto_and_asks_where_again() {
+    let mut b = Bench::linked(None, 0);
+    b.fail_journal = true;
+    b.frequency(7_100_000);
+    b.wait(ms(200));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.outcome().faults, 1);
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+    // The inhibit stays on after the fault.
+    assert_eq!(b.levels.last(), Some(&true));
+    b.wait(RETRY_AFTER);
+    assert_eq!(b.commands, vec![TunerCommand::Where]);
+}
+
+#[test]
+fn a_failed_inhibit_sends_no_goto() {
+    let mut b = Bench::linked(None, 0);
+    b.fail_inhibit = true;
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert!(b.s.outcome().faults >= 1);
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+}
+
+#[test]
+fn shutdown_mid_move_waits_for_the_leg_then_stops_and_records() {
+    let mut b = Bench::linked(None, 0);
+    let t0 = b.now;
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![1000]);
+    // Debounce 30 ms, lead 5 ms.
+    let sent = t0 + ms(35);
+    b.shutdown();
+    assert!(!b.s.is_finished());
+    // The leg needs 50 ms + 10 ms settle + 500 ms margin; STOP goes at half
+    // the margin before that.
+    let deadline = sent + ms(50 + 10 + 250);
+    b.run_until(deadline - ms(1));
+    assert!(!b.commands.contains(&TunerCommand::Stop));
+    b.run_until(deadline);
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Stop));
+    // A frequency now is not acted on.
+    b.frequency(7_200_000);
+    b.tuner(TunerEvent::At { steps: 321 });
+    assert!(b.s.is_finished());
+    assert_eq!(b.journal, Some(Recorded::Known(321)));
+    assert_eq!(b.levels.last(), Some(&false));
+    assert_eq!(b.gotos(), vec![1000]);
+}
+
+#[test]
+fn shutdown_without_an_answer_to_stop_keeps_the_unfinished_move() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.shutdown();
+    b.wait(ms(310) + STOP_WAIT);
+    assert!(b.s.is_finished());
+    assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 1000 }));
+    assert_eq!(b.levels.last(), Some(&false));
+}
+
+#[test]
+fn relax_on_exit_backs_off_half_the_backlash_under_the_inhibit() {
+    let mut b = Bench::new(None, 40, true);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(500));
+    assert_eq!(b.levels, vec![true, false, true, false]);
+    b.shutdown();
+    // The inhibit first, then the lead, then intent and GOTO.
+    assert_eq!(b.levels.last(), Some(&true));
+    assert_eq!(b.gotos(), vec![1000]);
+    b.wait(ms(5));
+    assert_eq!(
+        b.journal,
+        Some(Recorded::Unknown {
+            from: 1000,
+            to: 980
+        })
+    );
+    assert_eq!(b.gotos(), vec![1000, 980]);
+    b.tuner(TunerEvent::At { steps: 980 });
+    assert!(b.s.is_finished());
+    assert_eq!(b.journal, Some(Recorded::Known(980)));
+    assert_eq!(b.levels.last(), Some(&false));
+}
+
+#[test]
+fn relax_on_exit_only_after_an_approach() {
+    let mut b = Bench::new(Some(Recorded::Known(1000)), 40, true);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.shutdown();
+    assert!(b.s.is_finished());
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+}
+
+#[test]
+fn a_refused_leg_is_a_fault_and_the_position_comes_back_by_where() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_200_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::Error {
+        text: "refused".into(),
+    });
+    assert_eq!(b.s.outcome().faults, 1);
+    b.wait(RETRY_AFTER);
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
+    b.tuner(TunerEvent::At { steps: 0 });
+    assert_eq!(b.s.core().position(), Some(0));
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+}
+
+#[test]
+fn a_deaf_rig_stops_the_move_and_it_finishes_when_heard_again() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.s.handle_rig_down(b.now);
+    b.pump();
+    assert_eq!(b.transmit.last(), Some(&true));
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Stop));
+    b.tuner(TunerEvent::At { steps: 400 });
+    assert_eq!(b.journal, Some(Recorded::Known(400)));
+    b.s.handle_rig_up(b.now);
+    b.pump();
+    b.wait(ms(200));
+    assert_eq!(b.transmit.last(), Some(&false));
+    assert_eq!(b.gotos(), vec![1000, 1000]);
+}
