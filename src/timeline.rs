@@ -216,8 +216,11 @@ impl<W: Write> Timeline for Human<W> {
             ),
             Entry::Summary(s) => {
                 let mut text = format!(
-                    "summary     {} moves, {} steps travelled, {} reports, {} rejected stretches",
-                    s.moves, s.steps, s.frames, s.rejected
+                    "summary     {}, {}, {}, {}",
+                    counted(s.moves, "move", "moves"),
+                    counted(s.steps, "step travelled", "steps travelled"),
+                    counted(s.frames, "report", "reports"),
+                    counted(s.rejected, "rejected stretch", "rejected stretches")
                 );
                 if !s.holds.is_empty() {
                     let holds: Vec<String> =
@@ -240,6 +243,11 @@ impl<W: Write> Timeline for Human<W> {
         };
         writeln!(self.out, "{:>10.3}  {text}", seconds(t))
     }
+}
+
+/// `1 move`, `2 moves`.
+fn counted(n: u64, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
 }
 
 #[cfg(test)]
