@@ -293,3 +293,255 @@ fn help_reads_like_documentation() {
         assert!(out.contains(word), "{word}: {out}");
     }
 }
+
+/// The typo'd point set: 14.2 MHz typed as 2448 for 24448 (a dropped
+/// digit), in a copy of the invented station beside its config.
+fn typo_station(dir: &Path) -> (PathBuf, PathBuf) {
+    let text = std::fs::read_to_string(root().join("fixtures/calibration/typo.csv")).unwrap();
+    assert!(text.contains("\n14200000,24448,\n"));
+    let points = dir.join("typo.csv");
+    std::fs::write(
+        &points,
+        text.replace("\n14200000,24448,\n", "\n14200000,2448,\n"),
+    )
+    .unwrap();
+    let config = dir.join("station.toml");
+    std::fs::copy(
+        root().join("fixtures/calibration/typo-station.toml"),
+        &config,
+    )
+    .unwrap();
+    (points, config)
+}
+
+#[test]
+fn a_typed_wrong_point_is_named_and_a_clean_set_names_none() {
+    let dir = tempfile::tempdir().unwrap();
+    let (points, config) = typo_station(dir.path());
+    let o = run(&[
+        points.to_str().unwrap(),
+        "--config",
+        config.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let out = stdout(&o);
+    let named: Vec<&str> = out
+        .lines()
+        .filter(|l| l.starts_with("likely wrong:"))
+        .collect();
+    assert_eq!(named.len(), 1, "{out}");
+    assert!(
+        named[0].contains("measured 2448 steps at 14.200 MHz: expected about 24 450"),
+        "{out}"
+    );
+    assert!(named[0].contains("a typing error (for 24 448)?"), "{out}");
+    // The other points' warnings are one line, not one each.
+    let warnings = out.lines().filter(|l| l.starts_with("warning:")).count();
+    assert!(warnings <= 2, "{out}");
+    assert!(out.contains("10 more points over 25%"), "{out}");
+
+    let v = json(&[points.to_str().unwrap(), "--json"]);
+    let o = &v["outlier"];
+    assert_eq!(o["hz"], 14_200_000.0);
+    assert_eq!(o["measured"], 2448.0);
+    assert_eq!(o["likely_typed_for"], 24448);
+    assert_eq!(
+        v["points"][o["index"].as_u64().unwrap() as usize]["steps"],
+        2448.0
+    );
+    // Independently of the rule: the other points alone predict 14.2 MHz
+    // within a few steps of the true reading.
+    let expected = o["expected"].as_f64().unwrap();
+    assert!((expected - 24448.0).abs() < 10.0, "{expected}");
+
+    // The same station with the reading right: nobody is named.
+    let clean = root().join("fixtures/calibration/typo.csv");
+    let out = stdout(&run(&[clean.to_str().unwrap()]));
+    assert!(!out.contains("likely wrong"), "{out}");
+    let v = json(&[clean.to_str().unwrap(), "--json"]);
+    assert!(v.get("outlier").is_none(), "{v}");
+}
+
+fn svg_texts(svg: &str) -> Vec<String> {
+    let doc = roxmltree::Document::parse(svg).expect("the plot is well-formed XML");
+    doc.descendants()
+        .filter(|n| n.has_tag_name("text"))
+        .map(|n| n.text().unwrap_or("").trim().to_string())
+        .collect()
+}
+
+#[test]
+fn the_plot_shows_the_station() {
+    let dir = tempfile::tempdir().unwrap();
+    let svg = dir.path().join("fit.svg");
+    let points = root().join("fixtures/calibration/typo.csv");
+    let config = root().join("fixtures/calibration/typo-station.toml");
+    let o = run(&[
+        points.to_str().unwrap(),
+        "--config",
+        config.to_str().unwrap(),
+        "--plot",
+        svg.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = std::fs::read_to_string(&svg).unwrap();
+    let texts = svg_texts(&text);
+    let has = |want: &str| texts.iter().any(|t| t.contains(want));
+    for want in [
+        "band 40m",
+        "band 20m",
+        "band 15m",
+        "travel limit min 0",
+        "travel limit max 120 000",
+        "travel limits",
+        "base: measured and fitted",
+        "profile wet",
+        "1.5:1 half-window",
+        "residual (Hz)",
+        "residual (steps)",
+        "100 000",
+    ] {
+        assert!(has(want), "{want} not among {texts:?}");
+    }
+    let title = texts
+        .iter()
+        .find(|t| t.starts_with("calibration:"))
+        .expect("a title");
+    assert!(title.contains("physics"), "{title}");
+    assert!(title.contains("leave-one-out error 1.73 steps"), "{title}");
+    // The tolerance band is a filled polygon of its own colour.
+    let doc = roxmltree::Document::parse(&text).unwrap();
+    assert!(
+        doc.descendants().any(|n| n.has_tag_name("polygon")
+            && n.attribute("fill") == Some("#D6EED6")
+            && n.attribute("points")
+                .is_some_and(|p| p.split(' ').count() > 100)),
+        "no tolerance band polygon"
+    );
+    // Whole-number axes print whole numbers.
+    assert!(!texts.iter().any(|t| t.ends_with("000.0")), "{texts:?}");
+    // Without --config: no station drawn.
+    let bare = dir.path().join("bare.svg");
+    let o = run(&[points.to_str().unwrap(), "--plot", bare.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let bare_texts = svg_texts(&std::fs::read_to_string(&bare).unwrap());
+    assert!(
+        !bare_texts.iter().any(|t| t.contains("band ")),
+        "{bare_texts:?}"
+    );
+    assert!(!bare_texts.iter().any(|t| t.contains("half-window")));
+
+    // Rendered (resvg, pure Rust; text needs fonts and is left out): the
+    // band shading is there as pixels of its colour, and the bare plot
+    // has none.
+    let count = |svg: &str, rgb: [u8; 3]| -> usize {
+        let tree = resvg::usvg::Tree::from_str(svg, &resvg::usvg::Options::default()).unwrap();
+        let size = tree.size().to_int_size();
+        let mut pixmap = resvg::tiny_skia::Pixmap::new(size.width(), size.height()).unwrap();
+        resvg::render(
+            &tree,
+            resvg::tiny_skia::Transform::default(),
+            &mut pixmap.as_mut(),
+        );
+        pixmap
+            .pixels()
+            .iter()
+            .filter(|p| {
+                let c = p.demultiply();
+                [c.red(), c.green(), c.blue()] == rgb
+            })
+            .count()
+    };
+    let band_fill = [226, 236, 246];
+    assert!(count(&text, band_fill) > 10_000, "band shading");
+    assert_eq!(
+        count(&std::fs::read_to_string(&bare).unwrap(), band_fill),
+        0
+    );
+}
+
+#[test]
+fn fit_with_config_uses_the_stations_model_and_says_how_it_gets_there() {
+    let dir = tempfile::tempdir().unwrap();
+    let points = copy_points(dir.path());
+    let config = dir.path().join("station.toml");
+    let text = std::fs::read_to_string(root().join("fixtures/calibration/station.toml")).unwrap();
+    std::fs::write(
+        &config,
+        text.replace("model = \"physics\"", "model = \"interpolate\""),
+    )
+    .unwrap();
+
+    let o = run(&[
+        points.to_str().unwrap(),
+        "--config",
+        config.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let out = stdout(&o);
+    assert!(out.starts_with("model: interpolate"), "{out}");
+    assert!(
+        out.contains("station: fitted with interpolate, the model `run` uses"),
+        "{out}"
+    );
+    assert!(out.contains("`[calibration] file = "), "{out}");
+    assert!(out.contains("is this points file"), "{out}");
+    assert!(out.contains("`--accept`"), "{out}");
+
+    let o = run(&[
+        points.to_str().unwrap(),
+        "--config",
+        config.to_str().unwrap(),
+        "--model",
+        "physics",
+    ]);
+    let out = stdout(&o);
+    assert!(out.starts_with("model: physics"), "{out}");
+    assert!(
+        out.contains("fitted with physics as asked; `run` uses interpolate"),
+        "{out}"
+    );
+    // Without a config nothing is said about a station; the model is auto.
+    let out = stdout(&run(&[points.to_str().unwrap()]));
+    assert!(!out.contains("station:"), "{out}");
+    assert!(out.contains("why:   auto:"), "{out}");
+
+    // Another points file than the station's: said so, with what to do.
+    let other = dir.path().join("other.csv");
+    std::fs::copy(&points, &other).unwrap();
+    let v = json(&[
+        other.to_str().unwrap(),
+        "--config",
+        config.to_str().unwrap(),
+        "--json",
+    ]);
+    let lines: Vec<&str> = v["station"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|l| l.as_str().unwrap())
+        .collect();
+    assert!(
+        lines
+            .iter()
+            .any(|l| l.contains("not from") && l.contains("other.csv")),
+        "{lines:?}"
+    );
+}
+
+#[test]
+fn a_closed_pipe_ends_quietly() {
+    // The reading end is closed before tuneward writes: its write fails
+    // with a broken pipe every time.
+    let (reader, writer) = std::io::pipe().unwrap();
+    drop(reader);
+    let o = Command::new(env!("CARGO_BIN_EXE_tuneward"))
+        .arg("fit")
+        .arg(root().join("fixtures/calibration/loop.csv"))
+        .stdout(writer)
+        .stderr(std::process::Stdio::piped())
+        .output()
+        .unwrap();
+    assert_eq!(stderr(&o), "");
+    assert_eq!(o.status.code(), Some(0));
+}

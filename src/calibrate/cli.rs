@@ -2,12 +2,14 @@
 
 use std::path::{Path, PathBuf};
 
+use super::plot::{PlotBand, PlotContext, ProfileCurve};
 use super::profiles::{CalibrationSet, ProfileMap};
 use super::report::{self, Report};
 use super::{
     accept_candidates, candidates_path, read_candidates, read_points_csv, CalibrationError,
     FitOptions, ModelKind, Point,
 };
+use crate::antenna::bandwidth_1_5_hz;
 use crate::config::Config;
 
 /// What `tuneward fit` is asked to do: fit a calibration (frequency to
@@ -21,8 +23,9 @@ use crate::config::Config;
 pub struct FitCommandOptions {
     /// The points file (CSV: hz,steps[,profile][,weight]).
     pub points: PathBuf,
-    /// Model to fit; `auto` picks by leave-one-out error.
-    pub model: ModelKind,
+    /// Model to fit; `auto` picks by leave-one-out error. `None`: the
+    /// station's `[calibration] model` with a config, else `auto`.
+    pub model: Option<ModelKind>,
     /// Polynomial degree for `ModelKind::Poly`.
     pub degree: usize,
     /// The result as JSON instead of the text report.
@@ -83,10 +86,7 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
     }
     let points = read_points_csv(&args.points)?;
     let candidates = read_candidates(&candidates_path(&args.points))?;
-    let options = FitOptions {
-        kind: args.model,
-        degree: args.degree,
-    };
+    let options = fit_options(args, config.as_ref());
     let set = CalibrationSet::fit_with(options, &points)?;
     let Some(base) = set.base() else {
         return Err(FitFailure::NoBase {
@@ -127,11 +127,19 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
             candidates_path(&args.points).display()
         ));
     }
+    let station = config.as_ref().map(|c| station_lines(args, c, options));
     if let Some(plot) = &args.plot {
-        super::plot::write_svg(plot, base, &rep)?;
+        let ctx = config
+            .as_ref()
+            .map_or_else(PlotContext::default, |c| plot_context(c, &set, &points));
+        super::plot::write_svg(plot, base, &rep, &ctx)?;
     }
     if args.json {
-        let mut s = serde_json::to_string_pretty(&rep.to_json())
+        let mut json = rep.to_json();
+        if let (Some(lines), Some(obj)) = (&station, json.as_object_mut()) {
+            obj.insert("station".to_string(), serde_json::json!(lines));
+        }
+        let mut s = serde_json::to_string_pretty(&json)
             .unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"));
         s.push('\n');
         if !notes.is_empty() {
@@ -139,6 +147,111 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
         }
         Ok(s)
     } else {
-        Ok(format!("{notes}{}", rep.to_text()))
+        let mut out = format!("{notes}{}", rep.to_text());
+        for line in station.iter().flatten() {
+            out.push_str(&format!("station: {line}\n"));
+        }
+        Ok(out)
+    }
+}
+
+/// `--model` when given; with a config, the station's own model and
+/// degree (what `run` fits), so that the report is about the calibration
+/// the station will use; else `auto`.
+fn fit_options(args: &FitCommandOptions, config: Option<&Config>) -> FitOptions {
+    match (args.model, config) {
+        (Some(kind), _) => FitOptions {
+            kind,
+            degree: args.degree,
+        },
+        (None, Some(c)) => c.fit_options(),
+        (None, None) => FitOptions {
+            kind: ModelKind::Auto,
+            degree: args.degree,
+        },
+    }
+}
+
+/// What the station will use and how this fit reaches it.
+fn station_lines(args: &FitCommandOptions, config: &Config, used: FitOptions) -> Vec<String> {
+    let station = config.fit_options();
+    let name = |o: FitOptions| match o.kind {
+        ModelKind::Poly => format!("poly (degree {})", o.degree),
+        k => k.name().to_string(),
+    };
+    let mut lines = Vec::new();
+    if used == station {
+        lines.push(format!(
+            "fitted with {}, the model `run` uses (`[calibration] model`)",
+            name(station)
+        ));
+    } else {
+        lines.push(format!(
+            "fitted with {} as asked; `run` uses {} (`[calibration] model`): set `model = \"{}\"` there to use this fit",
+            name(used),
+            name(station),
+            used.kind.name()
+        ));
+    }
+    let same_file = |a: &Path, b: &Path| match (a.canonicalize(), b.canonicalize()) {
+        (Ok(x), Ok(y)) => x == y,
+        _ => a == b,
+    };
+    match config.calibration_file() {
+        Some(file) if same_file(&file, &args.points) => lines.push(format!(
+            "`[calibration] file = {}` is this points file: `run` fits it when it starts, so a change here reaches the station at its next start; `--accept` moves candidate points into it first",
+            file.display()
+        )),
+        Some(file) => lines.push(format!(
+            "the station reads its points from `[calibration] file = {}`, not from {}: copy these points there or point `file` here for `run` to use them",
+            file.display(),
+            args.points.display()
+        )),
+        None => lines.push(format!(
+            "the station uses its inline `[calibration] points`, not {}: set `[calibration] file = \"{}\"` (and remove `points`) for `run` to use this file",
+            args.points.display(),
+            args.points.display()
+        )),
+    }
+    lines
+}
+
+/// The station's bands, limits, profiles and loop, as the plot takes them.
+fn plot_context(config: &Config, set: &CalibrationSet, points: &[Point]) -> PlotContext {
+    let profiles = set
+        .profiles()
+        .into_iter()
+        .filter_map(|name| {
+            let map = set.map(Some(&name)).ok()?;
+            let own = points
+                .iter()
+                .filter(|p| p.profile.as_deref() == Some(name.as_str()))
+                .map(|p| (p.hz, p.steps))
+                .collect();
+            Some(ProfileCurve {
+                name,
+                points: own,
+                map,
+            })
+        })
+        .collect();
+    let antenna = config.antenna.clone();
+    let described = crate::antenna::SmallLoop::from_config(&antenna).is_some();
+    PlotContext {
+        bands: config
+            .bands
+            .iter()
+            .map(|b| PlotBand {
+                name: b.name.clone(),
+                low_hz: b.low_hz as f64,
+                high_hz: b.high_hz as f64,
+            })
+            .collect(),
+        limits: Some((config.tuner.min_steps as f64, config.tuner.max_steps as f64)),
+        profiles,
+        half_window_hz: described.then(|| {
+            Box::new(move |hz: f64| bandwidth_1_5_hz(&antenna, hz).map(|bw| bw / 2.0))
+                as Box<dyn Fn(f64) -> Option<f64>>
+        }),
     }
 }

@@ -17,6 +17,7 @@
 pub mod cli;
 mod lsq;
 mod monotone;
+pub mod outlier;
 pub mod plot;
 mod points;
 mod profiles;

@@ -9,6 +9,7 @@
 
 use std::fmt::Write as _;
 
+use super::outlier::{self, Outlier};
 use super::{Calibration, FitSpec, Point, StepMap};
 use crate::antenna::{bandwidth_1_5_hz, RESIDUAL_WARN_SHARE};
 use crate::config::{AntennaConfig, BandConfig};
@@ -54,6 +55,9 @@ pub struct Report {
     pub bands: Vec<BandCoverage>,
     pub profiles: Vec<String>,
     pub warnings: Vec<String>,
+    /// The point that dominates the error, where one does
+    /// ([`super::outlier::find`]).
+    pub outlier: Option<Outlier>,
 }
 
 fn row(cal: &Calibration, p: &Point, antenna: Option<&AntennaConfig>) -> PointRow {
@@ -156,6 +160,7 @@ pub fn build(
             .collect()
     };
 
+    let outlier = outlier::find(cal);
     let mut warnings = Vec::new();
     for c in &coverages {
         if c.points < 3 {
@@ -168,9 +173,14 @@ pub fn build(
             ));
         }
     }
-    for r in &rows {
+    // A wrong point pulls the whole curve: the others' residuals are then
+    // its doing, and one line says so instead of a warning per point.
+    let mut pulled = 0;
+    for (i, r) in rows.iter().enumerate() {
         if let Some(share) = r.bandwidth_share {
-            if share > RESIDUAL_WARN_SHARE {
+            if share > RESIDUAL_WARN_SHARE && outlier.as_ref().is_some_and(|o| o.index != i) {
+                pulled += 1;
+            } else if share > RESIDUAL_WARN_SHARE {
                 warnings.push(format!(
                     "point at {}: residual {:+.1} steps = {:+.0} Hz, {:.0}% of the 1.5:1 bandwidth (more than {:.0}%); remeasure it or choose another model",
                     mhz(r.hz),
@@ -181,6 +191,13 @@ pub fn build(
                 ));
             }
         }
+    }
+    if pulled > 0 {
+        warnings.push(format!(
+            "{pulled} more {} over {:.0}% of the 1.5:1 bandwidth, most likely pulled by the point named above; fix it and fit again",
+            if pulled == 1 { "point" } else { "points" },
+            RESIDUAL_WARN_SHARE * 100.0
+        ));
     }
 
     let structure = match cal.spec() {
@@ -202,6 +219,7 @@ pub fn build(
         bands: coverages,
         profiles: Vec::new(),
         warnings,
+        outlier,
     }
 }
 
@@ -214,9 +232,12 @@ fn num(v: f64) -> serde_json::Value {
 }
 
 impl Report {
-    /// The `--json` contract: exactly `model`, `coefficients`,
+    /// The `--json` contract: always `model`, `coefficients`,
     /// `residual_sd`, `r_squared`, `points` (each `hz`, `steps`, `fitted`,
-    /// `residual_steps`, `residual_hz`). Non-finite numbers are `null`.
+    /// `residual_steps`, `residual_hz`); `outlier` only where a point is
+    /// named (`index` into `points`, `hz`, `measured`, `expected`,
+    /// `modified_z`, `loo_rms_with`, `loo_rms_without`, `likely_typed_for`
+    /// or `null`, and `message`). Non-finite numbers are `null`.
     pub fn to_json(&self) -> serde_json::Value {
         let points: Vec<serde_json::Value> = self
             .rows
@@ -231,13 +252,30 @@ impl Report {
                 })
             })
             .collect();
-        serde_json::json!({
+        let mut v = serde_json::json!({
             "model": self.model,
             "coefficients": self.coefficients.iter().map(|c| num(*c)).collect::<Vec<_>>(),
             "residual_sd": num(self.residual_sd),
             "r_squared": num(self.r_squared),
             "points": points,
-        })
+        });
+        if let (Some(o), Some(obj)) = (&self.outlier, v.as_object_mut()) {
+            obj.insert(
+                "outlier".to_string(),
+                serde_json::json!({
+                    "index": o.index,
+                    "hz": num(o.hz),
+                    "measured": num(o.measured),
+                    "expected": num(o.expected),
+                    "modified_z": num(o.modified_z),
+                    "loo_rms_with": num(o.loo_rms_with),
+                    "loo_rms_without": num(o.loo_rms_without),
+                    "likely_typed_for": o.likely_typed_for,
+                    "message": o.message(),
+                }),
+            );
+        }
+        v
     }
 
     /// The report for people.
@@ -320,6 +358,9 @@ impl Report {
         }
         for p in &self.profiles {
             let _ = writeln!(s, "{p}");
+        }
+        if let Some(o) = &self.outlier {
+            let _ = writeln!(s, "likely wrong: {}", o.message());
         }
         for w in &self.warnings {
             let _ = writeln!(s, "warning: {w}");

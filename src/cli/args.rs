@@ -119,9 +119,10 @@ impl From<ModelArg> for ModelKind {
 pub struct FitArgs {
     /// The points file (CSV: hz,steps[,profile][,weight]).
     pub points: PathBuf,
-    /// Model to fit; `auto` picks by leave-one-out error.
-    #[arg(long, value_enum, default_value = "auto")]
-    pub model: ModelArg,
+    /// Model to fit; `auto` picks by leave-one-out error [default: the
+    /// station's `[calibration] model` with --config, else auto].
+    #[arg(long, value_enum)]
+    pub model: Option<ModelArg>,
     /// Polynomial degree for `--model poly`.
     #[arg(long, default_value_t = DEFAULT_POLY_DEGREE)]
     pub degree: usize,
@@ -145,7 +146,7 @@ impl From<FitArgs> for FitCommandOptions {
     fn from(a: FitArgs) -> Self {
         FitCommandOptions {
             points: a.points,
-            model: a.model.into(),
+            model: a.model.map(Into::into),
             degree: a.degree,
             json: a.json,
             plot: a.plot,

@@ -247,9 +247,12 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             let failure = |e| Failure::fit(&e);
             tuneward::calibrate::cli::fit_command(&args.into())
                 .and_then(|report| {
-                    out.write_all(report.as_bytes())
-                        .and_then(|()| out.flush())
-                        .map_err(tuneward::calibrate::cli::FitFailure::Stdout)
+                    match out.write_all(report.as_bytes()).and_then(|()| out.flush()) {
+                        // A reader that stopped early (`| head`) is not a
+                        // failure of the fit: end quietly, as filters do.
+                        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+                        r => r.map_err(tuneward::calibrate::cli::FitFailure::Stdout),
+                    }
                 })
                 .map_err(failure)
         }
