@@ -31,7 +31,55 @@
 //! - μ0 = 1.25663706212e-6 H/m (CODATA 2018).
 
 use crate::calibrate::StepMap;
-use crate::config::{AntennaConfig, BandConfig, Conductor};
+
+/// Conductor material of the loop.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Conductor {
+    #[default]
+    Copper,
+    Aluminium,
+}
+
+/// An optional description of a small loop, for physics estimates (the
+/// config's `[antenna]`; any field may be missing).
+#[derive(Debug, Clone, Default, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LoopDescription {
+    pub loop_diameter_m: Option<f64>,
+    pub conductor_diameter_m: Option<f64>,
+    #[serde(default)]
+    pub conductor: Conductor,
+    pub power_w: Option<f64>,
+    pub capacitor_rating_v: Option<f64>,
+}
+
+/// A band's name and edges, for the per-band checks.
+pub trait BandEdges {
+    fn name(&self) -> &str;
+    fn low_hz(&self) -> u64;
+    fn high_hz(&self) -> u64;
+}
+
+/// A band's name and edges as plain values.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct BandSpan {
+    pub name: String,
+    pub low_hz: u64,
+    pub high_hz: u64,
+}
+
+impl BandEdges for BandSpan {
+    fn name(&self) -> &str {
+        &self.name
+    }
+    fn low_hz(&self) -> u64 {
+        self.low_hz
+    }
+    fn high_hz(&self) -> u64 {
+        self.high_hz
+    }
+}
 
 /// Vacuum permeability, H/m (CODATA 2018 recommended value).
 pub const MU0: f64 = 1.256_637_062_12e-6;
@@ -44,10 +92,6 @@ pub const C0: f64 = 299_792_458.0;
 /// resonator model gives x = 0.204, |Γ| = 0.10, SWR ≈ 1.23:1. The share
 /// itself is common practice, no source.
 pub const AUTO_HYSTERESIS_SHARE: f64 = 0.25;
-
-/// A residual above this share of the 1.5:1 bandwidth gets a warning in the
-/// fit report (common practice, no source).
-pub const RESIDUAL_WARN_SHARE: f64 = 0.25;
 
 /// Resistivity at 20 °C in Ω·m (CRC Handbook of Chemistry and Physics;
 /// recalled).
@@ -183,7 +227,7 @@ pub struct LoopEstimate {
 impl SmallLoop {
     /// The loop `[antenna]` describes, if it gives both diameters (positive,
     /// conductor thinner than the loop).
-    pub fn from_config(antenna: &AntennaConfig) -> Option<SmallLoop> {
+    pub fn from_config(antenna: &LoopDescription) -> Option<SmallLoop> {
         let d = antenna.loop_diameter_m?;
         let c = antenna.conductor_diameter_m?;
         if !(d.is_finite() && c.is_finite() && d > 0.0 && c > 0.0 && c < d / 2.0) {
@@ -231,7 +275,7 @@ impl SmallLoop {
 }
 
 /// Full 1.5:1 SWR bandwidth at `hz`, if the antenna is described.
-pub fn bandwidth_1_5_hz(antenna: &AntennaConfig, hz: f64) -> Option<f64> {
+pub fn bandwidth_1_5_hz(antenna: &LoopDescription, hz: f64) -> Option<f64> {
     let est = SmallLoop::from_config(antenna)?.at(hz);
     est.bandwidth_1_5_hz
         .is_finite()
@@ -241,7 +285,7 @@ pub fn bandwidth_1_5_hz(antenna: &AntennaConfig, hz: f64) -> Option<f64> {
 /// The dead band for `hysteresis_hz = "auto"`: a quarter of the 1.5:1 SWR
 /// bandwidth at `center_hz` (at least 1 Hz); `None` if `[antenna]` does not
 /// describe the loop.
-pub fn auto_hysteresis_hz(antenna: &AntennaConfig, center_hz: f64) -> Option<u64> {
+pub fn auto_hysteresis_hz(antenna: &LoopDescription, center_hz: f64) -> Option<u64> {
     if !(center_hz.is_finite() && center_hz > 0.0) {
         return None;
     }
@@ -294,18 +338,18 @@ pub enum AntennaError {
 /// capacitor voltage against its rating. Refuses with a HIGH VOLTAGE error
 /// when the estimate (peak) exceeds `antenna.capacitor_rating_v`.
 pub fn check_band(
-    antenna: &AntennaConfig,
-    band: &BandConfig,
+    antenna: &LoopDescription,
+    band: &impl BandEdges,
     map: &dyn StepMap,
 ) -> Result<BandCheck, AntennaError> {
-    let low = band.low_hz as f64;
-    let high = band.high_hz as f64;
+    let low = band.low_hz() as f64;
+    let high = band.high_hz() as f64;
     let center = (low + high) / 2.0;
     let dh = (high - low).abs().max(2.0) * 1e-3;
     let slope = (map.steps_at(center + dh) - map.steps_at(center - dh)) / (2.0 * dh);
     if !(slope.is_finite() && slope != 0.0) {
         return Err(AntennaError::FlatCalibration {
-            band: band.name.clone(),
+            band: band.name().to_string(),
             center_hz: center,
             slope,
         });
@@ -319,15 +363,15 @@ pub fn check_band(
         if at_high.is_some_and(|c| c > 0.25) {
             warnings.push(format!(
                 "band {}: the loop's circumference is {:.2} λ at {} Hz; the small-loop formulas assume well below 0.25 λ (common practice, no source)",
-                band.name,
+                band.name(),
                 at_high.unwrap_or(e.circumference_wavelengths),
-                band.high_hz
+                band.high_hz()
             ));
         }
         if e.bandwidth_1_5_hz < 2.0 * hz_per_step {
             warnings.push(format!(
                 "band {}: one motor step moves the resonance {:.0} Hz, more than half the 1.5:1 bandwidth ({:.0} Hz); the loop cannot be tuned finely enough",
-                band.name, hz_per_step, e.bandwidth_1_5_hz
+                band.name(), hz_per_step, e.bandwidth_1_5_hz
             ));
         }
     }
@@ -350,7 +394,7 @@ pub fn check_band(
         let peak = rms * std::f64::consts::SQRT_2;
         if peak > rating {
             return Err(AntennaError::HighVoltage {
-                band: band.name.clone(),
+                band: band.name().to_string(),
                 power_w: power,
                 at_hz: at,
                 rms_v: rms,
@@ -360,7 +404,7 @@ pub fn check_band(
         }
     }
     Ok(BandCheck {
-        band: band.name.clone(),
+        band: band.name().to_string(),
         center_hz: center,
         hz_per_step,
         estimate,
@@ -376,8 +420,8 @@ pub fn check_band(
 mod tests {
     use super::*;
 
-    fn described() -> AntennaConfig {
-        AntennaConfig {
+    fn described() -> LoopDescription {
+        LoopDescription {
             loop_diameter_m: Some(1.0),
             conductor_diameter_m: Some(0.022),
             conductor: Conductor::Copper,
@@ -418,8 +462,8 @@ mod tests {
             .bandwidth_1_5_hz;
         let h = auto_hysteresis_hz(&a, 7.1e6).unwrap();
         assert!(((h as f64) - bw / 4.0).abs() <= 0.5, "{h} vs {bw}");
-        assert_eq!(auto_hysteresis_hz(&AntennaConfig::default(), 7.1e6), None);
-        let no_conductor = AntennaConfig {
+        assert_eq!(auto_hysteresis_hz(&LoopDescription::default(), 7.1e6), None);
+        let no_conductor = LoopDescription {
             conductor_diameter_m: None,
             ..described()
         };

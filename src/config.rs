@@ -103,6 +103,19 @@ pub enum RigMode {
     Proxy,
 }
 
+/// How the rig's port is used, from a validated `[rig]`.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum RigUse {
+    /// Read only.
+    Listen,
+    /// Query every `every_ms` (positive).
+    Poll { every_ms: u64 },
+    /// Shared through a pseudo-terminal whose symlink goes at `link`
+    /// (resolved against the config's folder); queries every `poll_ms`
+    /// (positive) when set.
+    Proxy { link: PathBuf, poll_ms: Option<u64> },
+}
+
 /// `poll_ms` when `mode = "poll"` does not say.
 pub const DEFAULT_POLL_MS: u64 = 500;
 
@@ -170,13 +183,8 @@ impl Default for RigConfig {
     }
 }
 
-/// Which side the final approach to a position comes from.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, serde::Serialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Approach {
-    Up,
-    Down,
-}
+/// Which side the final approach comes from: a core setting, read here.
+pub use crate::follow::policy::Approach;
 
 /// `[tuner]`: the motor and its safe travel.
 #[derive(Debug, Clone, Deserialize)]
@@ -360,6 +368,18 @@ pub struct BandConfig {
     pub debounce_ms: Option<u64>,
 }
 
+impl crate::antenna::BandEdges for BandConfig {
+    fn name(&self) -> &str {
+        &self.name
+    }
+    fn low_hz(&self) -> u64 {
+        self.low_hz
+    }
+    fn high_hz(&self) -> u64 {
+        self.high_hz
+    }
+}
+
 /// A dead band in Hz, or `"auto"`: a share of the loop's 1.5:1 SWR bandwidth
 /// at the band's centre, estimated from `[antenna]`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
@@ -385,26 +405,8 @@ pub enum AutoWord {
     Auto,
 }
 
-/// Conductor material of the loop.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Conductor {
-    #[default]
-    Copper,
-    Aluminium,
-}
-
-/// `[antenna]`: optional description of a small loop, for physics estimates.
-#[derive(Debug, Clone, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct AntennaConfig {
-    pub loop_diameter_m: Option<f64>,
-    pub conductor_diameter_m: Option<f64>,
-    #[serde(default)]
-    pub conductor: Conductor,
-    pub power_w: Option<f64>,
-    pub capacitor_rating_v: Option<f64>,
-}
+/// `[antenna]` and its conductor: plain descriptions owned by the physics.
+pub use crate::antenna::{Conductor, LoopDescription as AntennaConfig};
 
 /// Which output carries the transmit inhibit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
@@ -595,7 +597,7 @@ impl Config {
             .unwrap_or_else(|| PathBuf::from("<config>"))
     }
 
-    fn invalid(&self, key: &str, expected: &str, found: String) -> ConfigError {
+    pub(crate) fn invalid(&self, key: &str, expected: &str, found: String) -> ConfigError {
         ConfigError::Invalid {
             path: self.path_for_errors(),
             key: key.to_string(),
@@ -680,27 +682,57 @@ impl Config {
 
     /// `[rig]`: the mode and the keys that go with it.
     fn validate_rig(&self) -> Result<(), ConfigError> {
+        self.rig_use().map(|_| ())
+    }
+
+    /// How `[rig]` asks for the port to be used, with every rule about
+    /// `mode`, `poll_ms` and `proxy_link` checked here and nowhere else;
+    /// the proxy's link is resolved against the config's folder.
+    pub fn rig_use(&self) -> Result<RigUse, ConfigError> {
         let r = &self.rig;
         if r.poll_ms == Some(0) {
             return Err(self.invalid("rig.poll_ms", "a positive number of ms", "0".into()));
         }
-        match r.mode {
-            RigMode::Listen if r.poll_ms.is_some() => Err(self.invalid(
+        match (r.mode, &r.proxy_link) {
+            (RigMode::Listen, _) if r.poll_ms.is_some() => Err(self.invalid(
                 "rig.poll_ms",
                 "no poll_ms with mode = \"listen\" (listen never writes to the port; use mode = \"poll\")",
                 format!("poll_ms = {}", r.poll_ms.unwrap_or(0)),
             )),
-            RigMode::Listen | RigMode::Poll if r.proxy_link.is_some() => Err(self.invalid(
+            (RigMode::Listen | RigMode::Poll, Some(_)) => Err(self.invalid(
                 "rig.proxy_link",
                 "proxy_link only with mode = \"proxy\"",
                 format!("mode = {:?}", r.mode).to_lowercase(),
             )),
-            RigMode::Proxy if r.proxy_link.is_none() => Err(self.invalid(
+            (RigMode::Proxy, None) => Err(self.invalid(
                 "rig.proxy_link",
                 "the path where the shared pseudo-terminal's symlink goes (mode = \"proxy\")",
                 "none".into(),
             )),
-            _ => Ok(()),
+            (RigMode::Listen, None) => Ok(RigUse::Listen),
+            (RigMode::Poll, None) => Ok(RigUse::Poll {
+                every_ms: r.poll_ms.unwrap_or(DEFAULT_POLL_MS),
+            }),
+            (RigMode::Proxy, Some(link)) => Ok(RigUse::Proxy {
+                link: self.resolve_path(link),
+                poll_ms: r.poll_ms,
+            }),
+        }
+    }
+
+    /// The config's folder, against which every relative path in it is
+    /// read; `None` for a config not read from a file (the working folder).
+    pub fn folder(&self) -> Option<&Path> {
+        self.source.as_deref().and_then(Path::parent)
+    }
+
+    /// A path the config names, resolved against the config's folder (an
+    /// absolute path, or a config not read from a file, leaves it as it is).
+    /// The one place relative paths in a config are resolved.
+    pub fn resolve_path(&self, path: &Path) -> PathBuf {
+        match self.folder() {
+            Some(dir) if path.is_relative() => dir.join(path),
+            _ => path.to_path_buf(),
         }
     }
 
@@ -708,13 +740,7 @@ impl Config {
     /// config's folder; `None` with inline points.
     pub fn calibration_file(&self) -> Option<PathBuf> {
         let file = self.calibration.file.as_ref()?;
-        Some(match &self.source {
-            Some(src) if file.is_relative() => src
-                .parent()
-                .map(|d| d.join(file))
-                .unwrap_or_else(|| file.clone()),
-            _ => file.clone(),
-        })
+        Some(self.resolve_path(file))
     }
 
     /// The calibration points, inline or from the file named in the config.
@@ -750,44 +776,6 @@ impl Config {
                 })
             }
         }
-    }
-
-    /// How `[calibration]` asks for its points to be fitted.
-    pub fn fit_options(&self) -> crate::calibrate::FitOptions {
-        crate::calibrate::FitOptions {
-            kind: self.calibration.model,
-            degree: self
-                .calibration
-                .degree
-                .unwrap_or(crate::calibrate::DEFAULT_POLY_DEGREE),
-        }
-    }
-
-    /// Points, all of them in a profile, leave no base calibration for the
-    /// profiles to be offsets from: that is an error of its own.
-    pub fn check_base_points(&self, points: &[crate::calibrate::Point]) -> Result<(), ConfigError> {
-        if points.is_empty() || points.iter().any(|p| p.profile.is_none()) {
-            return Ok(());
-        }
-        Err(self.invalid(
-            "calibration",
-            "points without a profile (the base calibration, which profiles are offsets from)",
-            format!("{} points, every one of them in a profile", points.len()),
-        ))
-    }
-
-    /// The fitted base calibration this config describes (points without a
-    /// profile; [`crate::calibrate::CalibrationSet`] handles profiles).
-    pub fn calibration(&self) -> Result<crate::calibrate::Calibration, ConfigError> {
-        let mut points = self.calibration_points()?;
-        self.check_base_points(&points)?;
-        points.retain(|p| p.profile.is_none());
-        crate::calibrate::Calibration::fit_with(self.fit_options(), &points).map_err(|source| {
-            ConfigError::Calibration {
-                path: self.path_for_errors(),
-                source,
-            }
-        })
     }
 }
 

@@ -6,7 +6,8 @@
 //! with [`RecordingLine`] (pseudo-terminals refuse modem-control changes,
 //! so a real RTS/DTR cannot be watched in a test).
 //!
-//! `[inhibit]` keys:
+//! The station layer opens the line `[inhibit]` names
+//! (`crate::station::open_inhibit`); its keys:
 //!
 //! | key           | meaning                                                      |
 //! |---------------|--------------------------------------------------------------|
@@ -22,10 +23,7 @@
 //! service releases it as soon as the position is trusted.
 
 use std::io;
-use std::path::PathBuf;
 use std::sync::{Arc, Mutex};
-
-use crate::config::{InhibitConfig, InhibitKind};
 
 /// An output that inhibits transmission while `on`.
 pub trait InhibitLine: Send {
@@ -142,7 +140,7 @@ impl GpioLine {
     /// until the service has decided, the rig is held off.
     /// With `active_high = false` the kernel inverts the level (active low).
     pub fn open(chip: &str, offset: u32, active_high: bool) -> io::Result<GpioLine> {
-        let path = chip_path(chip);
+        let path = crate::devices::gpio_chip_path(chip);
         let mut b = gpiocdev::Request::builder();
         b.on_chip(&path)
             .with_consumer("tuneward-inhibit")
@@ -177,15 +175,6 @@ impl InhibitLine for GpioLine {
     }
 }
 
-/// `gpiochip0` → `/dev/gpiochip0`; a path is kept as it is.
-pub fn chip_path(chip: &str) -> PathBuf {
-    if chip.contains('/') {
-        PathBuf::from(chip)
-    } else {
-        PathBuf::from("/dev").join(chip)
-    }
-}
-
 /// A test double: records every level it is set to, and can be told to fail.
 #[derive(Debug, Clone, Default)]
 pub struct RecordingLine {
@@ -216,51 +205,6 @@ impl InhibitLine for RecordingLine {
         }
         self.log.lock().unwrap_or_else(|p| p.into_inner()).push(on);
         Ok(())
-    }
-}
-
-/// Opens the line `[inhibit]` describes, driven on (inhibited).
-pub fn open(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, String> {
-    let need_port = |signal: &str| {
-        cfg.port.clone().ok_or_else(|| {
-            format!("key `inhibit.port`: expected the serial device whose {signal} is the inhibit, found none")
-        })
-    };
-    match cfg.line {
-        InhibitKind::None => Ok(Box::new(NoLine)),
-        InhibitKind::Rts => {
-            let port = need_port("RTS")?;
-            Ok(Box::new(
-                open_modem_line(&port, ModemSignal::Rts, cfg.active_high)
-                    .map_err(|e| e.to_string())?,
-            ))
-        }
-        InhibitKind::Dtr => {
-            let port = need_port("DTR")?;
-            Ok(Box::new(
-                open_modem_line(&port, ModemSignal::Dtr, cfg.active_high)
-                    .map_err(|e| e.to_string())?,
-            ))
-        }
-        InhibitKind::Gpio => {
-            let chip = cfg.chip.as_deref().ok_or(
-                "key `inhibit.chip`: expected a GPIO chip such as `gpiochip0`, found none",
-            )?;
-            let offset = cfg
-                .offset
-                .ok_or("key `inhibit.offset`: expected the line number on the chip, found none")?;
-            #[cfg(target_os = "linux")]
-            {
-                Ok(Box::new(
-                    GpioLine::open(chip, offset, cfg.active_high).map_err(|e| e.to_string())?,
-                ))
-            }
-            #[cfg(not(target_os = "linux"))]
-            {
-                let _ = (chip, offset);
-                Err("key `inhibit.line`: `gpio` needs Linux".to_string())
-            }
-        }
     }
 }
 
@@ -322,24 +266,6 @@ mod tests {
         assert_eq!(rec.levels(), vec![true, false]);
     }
 
-    #[test]
-    fn config_without_needed_keys_names_them() {
-        let mut c = InhibitConfig {
-            line: InhibitKind::Rts,
-            ..InhibitConfig::default()
-        };
-        let e = open(&c).err().unwrap();
-        assert!(e.contains("inhibit.port"), "{e}");
-        c.line = InhibitKind::Gpio;
-        let e = open(&c).err().unwrap();
-        assert!(e.contains("inhibit.chip"), "{e}");
-        c.chip = Some("gpiochip0".into());
-        let e = open(&c).err().unwrap();
-        assert!(e.contains("inhibit.offset"), "{e}");
-        c.line = InhibitKind::None;
-        assert!(open(&c).unwrap().set(true).is_ok());
-    }
-
     #[cfg(target_os = "linux")]
     #[test]
     fn missing_gpio_chip_is_named() {
@@ -347,6 +273,9 @@ mod tests {
             .err()
             .unwrap();
         assert!(e.to_string().contains("/nonexistent/gpiochip9"), "{e}");
-        assert_eq!(chip_path("gpiochip1"), PathBuf::from("/dev/gpiochip1"));
+        assert_eq!(
+            crate::devices::gpio_chip_path("gpiochip1"),
+            std::path::PathBuf::from("/dev/gpiochip1")
+        );
     }
 }

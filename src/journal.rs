@@ -33,8 +33,6 @@ use std::fs::{self, File, OpenOptions};
 use std::io::{self, Write};
 use std::path::{Path, PathBuf};
 
-use crate::config::Config;
-
 /// What the journal says.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Recorded {
@@ -75,23 +73,6 @@ pub const DEFAULT_STATE_FILE: &str = "tuneward-position.state";
 impl Journal {
     pub fn new(path: impl Into<PathBuf>) -> Journal {
         Journal { path: path.into() }
-    }
-
-    /// The journal a config names (`tuner.state_file`, relative to the
-    /// config's folder), or [`DEFAULT_STATE_FILE`] beside the config.
-    pub fn for_config(config: &Config) -> Journal {
-        let dir = config
-            .source
-            .as_deref()
-            .and_then(Path::parent)
-            .map(Path::to_path_buf)
-            .unwrap_or_default();
-        let path = match &config.tuner.state_file {
-            Some(p) if p.is_absolute() => p.clone(),
-            Some(p) => dir.join(p),
-            None => dir.join(DEFAULT_STATE_FILE),
-        };
-        Journal::new(path)
     }
 
     pub fn path(&self) -> &Path {
@@ -296,28 +277,6 @@ pub struct SetPositionOptions {
     /// The station's config file; its `tuner.state_file` (default
     /// `tuneward-position.state` beside the config) is written.
     pub config: PathBuf,
-}
-
-/// Writes a clean record of `steps` to the journal `config` names, after
-/// checking `steps` against the config's limits. Returns the journal's path.
-pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, String> {
-    let (min, max) = (config.tuner.min_steps, config.tuner.max_steps);
-    if !(min..=max).contains(&steps) {
-        return Err(format!(
-            "position {steps}: expected a value within tuner.min_steps..tuner.max_steps ({min}..{max})"
-        ));
-    }
-    let journal = Journal::for_config(config);
-    journal.record_position(steps).map_err(|e| e.to_string())?;
-    Ok(journal.path().to_path_buf())
-}
-
-/// Runs `tuneward set-position`.
-pub fn run_set_position(args: &SetPositionOptions) -> Result<(), String> {
-    let config = Config::load(&args.config).map_err(|e| e.to_string())?;
-    let path = set_position(&config, args.steps)?;
-    println!("position {} recorded in {}", args.steps, path.display());
-    Ok(())
 }
 
 #[cfg(test)]

@@ -11,6 +11,7 @@ pub mod antenna;
 pub mod calibrate;
 pub mod capture;
 pub mod config;
+pub mod devices;
 pub mod follow;
 pub mod inhibit;
 pub mod journal;

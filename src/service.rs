@@ -18,26 +18,21 @@
 //! end.
 
 use std::path::{Path, PathBuf};
-use std::sync::Arc;
 use std::time::Duration;
 
 use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
 
-use crate::calibrate::{append_candidate, candidates_path, Point};
-use crate::config::{Config, RigConfig, RigMode, SerialFlow, SerialParity};
+use crate::calibrate::{append_candidate, Point};
 pub use crate::follow::session::RunSummary;
 use crate::follow::session::{Level, Note, Output, Session, SessionSettings};
 use crate::follow::Follower;
-use crate::inhibit::{self, InhibitLine};
+use crate::inhibit::InhibitLine;
 use crate::journal::Journal;
-use crate::port::link::{
-    DataBits, FlowControl, LinkConfig, LinkEvent, Parity, PollConfig, PortSettings, StopBits,
-};
-use crate::port::proxy::{ends_with, Boundary, ProxyConfig};
+use crate::port::link::{LinkConfig, LinkEvent};
+use crate::port::proxy::{Boundary, ProxyConfig};
 use crate::port::{link, proxy};
-use crate::rig::dialect::Spec;
-use crate::rig::{Decode, Family};
+use crate::rig::Decode;
 use crate::shutdown::{self, Shutdown};
 use crate::signals;
 use crate::station::Station;
@@ -75,146 +70,6 @@ pub struct ServiceParts {
     /// Where touch-up candidates go (beside `[calibration] file`); `None`
     /// with inline points: candidates are only logged.
     pub candidates: Option<PathBuf>,
-}
-
-/// The config's file name for error messages.
-fn config_name(config: &Config) -> String {
-    config.path_for_errors().display().to_string()
-}
-
-/// The rig's port as `[rig]` describes it: `port`, `baud` and framing, and
-/// the `mode`: `listen` (read only), `poll` (queries every `poll_ms`) or
-/// `proxy` (shared through a pseudo-terminal at `proxy_link`, which is
-/// relative to the config's folder).
-pub fn rig_source(station: &Station) -> Result<RigSource, String> {
-    let config = &station.config;
-    let file = config_name(config);
-    let port = config.rig.port.clone().ok_or_else(|| {
-            format!("{file}: key `rig.port`: expected the rig's serial device (e.g. /dev/serial/by-id/...), found none")
-        })?;
-    let settings = port_settings(&config.rig, port).map_err(|e| format!("{file}: {e}"))?;
-    // Which queries (if any) go to the rig is the mode's business:
-    // `listen` never writes to the port.
-    let poll = match config.rig.poll_every_ms() {
-        None => None,
-        Some(0) => {
-            return Err(format!(
-                "{file}: key `rig.poll_ms`: expected a positive number of ms, found 0"
-            ))
-        }
-        Some(ms) => {
-            let address = match (station.dialect.family(), config.rig.address) {
-                    (Family::Binary, None) => {
-                        return Err(format!(
-                            "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
-                        ))
-                    }
-                    (_, a) => a.unwrap_or(0),
-                };
-            let mut query = station.dialect.poll_frequency(address);
-            query.extend(station.dialect.poll_transmit(address));
-            let every = Duration::from_millis(ms);
-            Some(PollConfig {
-                query,
-                every,
-                max_every: every.max(Duration::from_secs(4)),
-            })
-        }
-    };
-    let proxy_link = match config.rig.mode {
-            RigMode::Proxy => Some(config.rig.proxy_link.clone().ok_or_else(|| {
-                format!("{file}: key `rig.proxy_link`: expected the path for the shared pseudo-terminal's symlink (mode = \"proxy\"), found none")
-            })?),
-            _ => None,
-        };
-    let rig = match &proxy_link {
-        Some(link) => {
-            let link = match config.source.as_deref().and_then(Path::parent) {
-                Some(dir) if link.is_relative() => dir.join(link),
-                _ => link.clone(),
-            };
-            let end = match &station.dialect.spec {
-                Spec::Binary(b) => b.terminator,
-                Spec::Text(t) => t.terminator,
-            };
-            RigSource::Proxy {
-                config: ProxyConfig {
-                    port: settings,
-                    link,
-                    poll,
-                    backoff_cap: Duration::from_secs(2),
-                },
-                boundary: Box::new(ends_with(end)),
-            }
-        }
-        None => RigSource::Link(LinkConfig {
-            port: settings,
-            poll,
-            backoff_cap: Duration::from_secs(2),
-        }),
-    };
-    Ok(rig)
-}
-
-impl ServiceParts {
-    /// The live service a station's config describes: the rig's port from
-    /// `[rig]` (see [`rig_source`]), the controller from `tuner.link`, the
-    /// inhibit from `[inhibit]`, the journal from `tuner.state_file`.
-    pub fn from_station(station: &Station) -> Result<ServiceParts, String> {
-        let config = &station.config;
-        let file = config_name(config);
-        let rig = rig_source(station)?;
-        let controller =
-            ClientConfig::from_tuner(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
-        let inhibit = inhibit::open(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
-        Ok(ServiceParts {
-            follower: Follower::new(station.policy.clone(), Arc::clone(&station.map), None),
-            decoder: station.dialect.decoder(config.rig.address),
-            rig,
-            controller,
-            inhibit,
-            journal: Some(Journal::for_config(config)),
-            relax_on_exit: config.tuner.relax_on_exit,
-            candidates: config
-                .calibration_file()
-                .map(|points| candidates_path(&points)),
-        })
-    }
-}
-
-/// The rig port's settings from `[rig]`, with the keys named in errors.
-pub fn port_settings(rig: &RigConfig, port: String) -> Result<PortSettings, String> {
-    if rig.baud == 0 {
-        return Err("key `rig.baud`: expected a positive baud rate, found 0".to_string());
-    }
-    let mut s = PortSettings::new(port, rig.baud);
-    s.data_bits = match rig.data_bits {
-        5 => DataBits::Five,
-        6 => DataBits::Six,
-        7 => DataBits::Seven,
-        8 => DataBits::Eight,
-        n => {
-            return Err(format!(
-                "key `rig.data_bits`: expected 5, 6, 7 or 8, found {n}"
-            ))
-        }
-    };
-    s.stop_bits = match rig.stop_bits {
-        1 => StopBits::One,
-        2 => StopBits::Two,
-        n => return Err(format!("key `rig.stop_bits`: expected 1 or 2, found {n}")),
-    };
-    s.parity = match rig.parity {
-        SerialParity::None => Parity::None,
-        SerialParity::Odd => Parity::Odd,
-        SerialParity::Even => Parity::Even,
-    };
-    s.flow = match rig.flow_control {
-        SerialFlow::None => FlowControl::None,
-        SerialFlow::Software => FlowControl::Software,
-        SerialFlow::Hardware => FlowControl::Hardware,
-    };
-    Ok(s)
 }
 
 /// How `tuneward run` writes its log (stderr).

@@ -1,5 +1,6 @@
 //! A station assembled from its config: the policy, the calibration, the rig
-//! dialect and the tuner's mechanics, ready for a driver. Also the `replay`,
+//! dialect and the tuner's mechanics, ready for a driver ([`settings`] turns
+//! each part of the config into the plain settings its layer takes). Also the `replay`,
 //! `demo` and `check` commands, which are thin uses of it.
 
 use std::io::Write;
@@ -14,6 +15,12 @@ use crate::replay::{Chunk, Replay, ReplaySetup};
 use crate::rig::{Dialect, DialectError};
 use crate::timeline::{self, Human, JsonLines, Summary, Timeline};
 use crate::tuner::sim::SimParams;
+
+pub mod settings;
+pub use settings::{
+    check_base_points, fit_base, fit_options, journal_for, policy_from_config, port_settings,
+    rig_source,
+};
 
 /// Anything that stops a command, worded for the operator.
 #[derive(Debug, thiserror::Error)]
@@ -59,7 +66,7 @@ impl Station {
 
     /// Resolves an already parsed and validated config.
     pub fn from_config(config: Config) -> Result<Station, StationError> {
-        let policy = Policy::from_config(&config, |centre| {
+        let policy = policy_from_config(&config, |centre| {
             crate::antenna::auto_hysteresis_hz(&config.antenna, centre)
         })?;
         let calibration_error = |source| ConfigError::Calibration {
@@ -69,25 +76,25 @@ impl Station {
         let points = config.calibration_points()?;
         // No base points is the error to report, before anything a
         // profile's points might say.
-        config.check_base_points(&points)?;
+        check_base_points(&config, &points)?;
         let profiles =
-            CalibrationSet::fit_with(config.fit_options(), &points).map_err(calibration_error)?;
+            CalibrationSet::fit_with(fit_options(&config), &points).map_err(calibration_error)?;
         // The base is fitted once, inside the set; without one there were
         // no points at all, which the base fit reports.
         let calibration = match profiles.base() {
             Some(base) => Arc::clone(base),
-            None => Arc::new(config.calibration()?),
+            None => Arc::new(fit_base(&config)?),
         };
         let map = profiles
             .map(config.calibration.profile.as_deref())
             .map_err(calibration_error)?;
-        let base = config.source.as_deref().and_then(Path::parent);
-        let dialect = Dialect::resolve(&config.rig.protocol, base).map_err(|source| {
-            StationError::Dialect {
-                path: config.path_for_errors(),
-                source,
-            }
-        })?;
+        let dialect =
+            Dialect::resolve(&config.rig.protocol, config.folder()).map_err(|source| {
+                StationError::Dialect {
+                    path: config.path_for_errors(),
+                    source,
+                }
+            })?;
         Ok(Station {
             config,
             policy,

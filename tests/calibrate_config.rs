@@ -14,7 +14,7 @@ fn station() -> Config {
 #[test]
 fn config_calibration_fits_the_base_points_only() {
     let config = station();
-    let base = config.calibration().unwrap();
+    let base = tuneward::station::fit_base(&config).unwrap();
     assert_eq!(base.kind(), ModelKind::Physics);
     assert!(base.points().iter().all(|p| p.profile.is_none()));
     let all = config.calibration_points().unwrap();
@@ -29,7 +29,7 @@ fn config_calibration_fits_the_base_points_only() {
 #[test]
 fn auto_hysteresis_and_band_checks_for_the_demo_station() {
     let config = station();
-    let cal = config.calibration().unwrap();
+    let cal = tuneward::station::fit_base(&config).unwrap();
     let lp = SmallLoop::from_config(&config.antenna).unwrap();
     for band in &config.bands {
         let centre = (band.low_hz + band.high_hz) as f64 / 2.0;
@@ -54,7 +54,7 @@ fn auto_hysteresis_and_band_checks_for_the_demo_station() {
 #[test]
 fn station_base_is_the_sets_base() {
     let config = station();
-    let own = config.calibration().unwrap();
+    let own = tuneward::station::fit_base(&config).unwrap();
     let st = tuneward::station::Station::from_config(config).unwrap();
     let in_set = st.profiles.base().expect("base points");
     assert!(std::sync::Arc::ptr_eq(&st.calibration, in_set));
@@ -83,7 +83,9 @@ high_hz = 7300000
 "#;
     let path = PathBuf::from("/stations/all-profiled.toml");
     let config = Config::parse(text, &path).unwrap();
-    let direct = config.calibration().unwrap_err().to_string();
+    let direct = tuneward::station::fit_base(&config)
+        .unwrap_err()
+        .to_string();
     let err = match tuneward::station::Station::from_config(config) {
         Ok(_) => panic!("a station without base points was accepted"),
         Err(e) => e.to_string(),

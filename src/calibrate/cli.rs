@@ -9,8 +9,7 @@ use super::{
     accept_candidates, candidates_path, read_candidates, read_points_csv, CalibrationError,
     FitOptions, ModelKind, Point,
 };
-use crate::antenna::bandwidth_1_5_hz;
-use crate::config::Config;
+use crate::antenna::{bandwidth_1_5_hz, BandSpan, LoopDescription};
 
 /// What `tuneward fit` is asked to do: fit a calibration (frequency to
 /// motor steps) to measured points and report how well it holds.
@@ -45,12 +44,26 @@ pub struct FitCommandOptions {
 pub enum FitFailure {
     #[error(transparent)]
     Calibration(#[from] CalibrationError),
-    #[error(transparent)]
-    Config(#[from] Box<crate::config::ConfigError>),
     #[error("{path}: no points without a profile; the report covers the base points (leave the `profile` column empty for them)")]
     NoBase { path: PathBuf },
     #[error("cannot write to standard output: {0}")]
     Stdout(std::io::Error),
+}
+
+/// What a station's config adds to a fit report: the loop, for residuals as
+/// a share of its bandwidth, and the bands, for coverage per band; the
+/// travel limits for the plot; the model `run` fits and the points file it
+/// reads, so the report can say how a fit reaches the station.
+#[derive(Debug, Clone)]
+pub struct FitStation {
+    pub antenna: LoopDescription,
+    pub bands: Vec<BandSpan>,
+    /// `tuner.min_steps`, `tuner.max_steps`.
+    pub limits: Option<(i64, i64)>,
+    /// `[calibration] model` and degree: what `run` fits.
+    pub fit: FitOptions,
+    /// `[calibration] file`, resolved; `None` with inline points.
+    pub calibration_file: Option<PathBuf>,
 }
 
 /// The fitted base calibration's report for a point file, as the CLI computes
@@ -68,14 +81,13 @@ pub fn fit_report(path: &Path, options: FitOptions) -> Result<Report, Calibratio
 }
 
 /// Runs `tuneward fit`: the report (or JSON) to print on standard output.
-/// Notes (accepted candidates) go to standard error with `--json`.
-pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
-    let config = args
-        .config
-        .as_deref()
-        .map(Config::load)
-        .transpose()
-        .map_err(Box::new)?;
+/// Notes (accepted candidates) go to standard error with `--json`. With
+/// `--config`, the station layer reads the config and passes what it says
+/// as `station`.
+pub fn fit_command(
+    args: &FitCommandOptions,
+    station: Option<&FitStation>,
+) -> Result<String, FitFailure> {
     let mut notes = String::new();
     if args.accept {
         let n = accept_candidates(&args.points)?;
@@ -86,15 +98,15 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
     }
     let points = read_points_csv(&args.points)?;
     let candidates = read_candidates(&candidates_path(&args.points))?;
-    let options = fit_options(args, config.as_ref());
+    let options = fit_options(args, station);
     let set = CalibrationSet::fit_with(options, &points)?;
     let Some(base) = set.base() else {
         return Err(FitFailure::NoBase {
             path: args.points.clone(),
         });
     };
-    let antenna = config.as_ref().map(|c| &c.antenna);
-    let bands = config.as_ref().map_or(&[][..], |c| &c.bands[..]);
+    let antenna = station.map(|c| &c.antenna);
+    let bands = station.map_or(&[][..], |c| &c.bands[..]);
     let base_candidates: Vec<Point> = candidates
         .iter()
         .filter(|c| c.profile.is_none())
@@ -127,16 +139,14 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
             candidates_path(&args.points).display()
         ));
     }
-    let station = config.as_ref().map(|c| station_lines(args, c, options));
+    let lines = station.map(|c| station_lines(args, c, options));
     if let Some(plot) = &args.plot {
-        let ctx = config
-            .as_ref()
-            .map_or_else(PlotContext::default, |c| plot_context(c, &set, &points));
+        let ctx = station.map_or_else(PlotContext::default, |c| plot_context(c, &set, &points));
         super::plot::write_svg(plot, base, &rep, &ctx)?;
     }
     if args.json {
         let mut json = rep.to_json();
-        if let (Some(lines), Some(obj)) = (&station, json.as_object_mut()) {
+        if let (Some(lines), Some(obj)) = (&lines, json.as_object_mut()) {
             obj.insert("station".to_string(), serde_json::json!(lines));
         }
         let mut s = serde_json::to_string_pretty(&json)
@@ -148,7 +158,7 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
         Ok(s)
     } else {
         let mut out = format!("{notes}{}", rep.to_text());
-        for line in station.iter().flatten() {
+        for line in lines.iter().flatten() {
             out.push_str(&format!("station: {line}\n"));
         }
         Ok(out)
@@ -158,13 +168,13 @@ pub fn fit_command(args: &FitCommandOptions) -> Result<String, FitFailure> {
 /// `--model` when given; with a config, the station's own model and
 /// degree (what `run` fits), so that the report is about the calibration
 /// the station will use; else `auto`.
-fn fit_options(args: &FitCommandOptions, config: Option<&Config>) -> FitOptions {
-    match (args.model, config) {
+fn fit_options(args: &FitCommandOptions, station: Option<&FitStation>) -> FitOptions {
+    match (args.model, station) {
         (Some(kind), _) => FitOptions {
             kind,
             degree: args.degree,
         },
-        (None, Some(c)) => c.fit_options(),
+        (None, Some(c)) => c.fit,
         (None, None) => FitOptions {
             kind: ModelKind::Auto,
             degree: args.degree,
@@ -173,8 +183,8 @@ fn fit_options(args: &FitCommandOptions, config: Option<&Config>) -> FitOptions 
 }
 
 /// What the station will use and how this fit reaches it.
-fn station_lines(args: &FitCommandOptions, config: &Config, used: FitOptions) -> Vec<String> {
-    let station = config.fit_options();
+fn station_lines(args: &FitCommandOptions, config: &FitStation, used: FitOptions) -> Vec<String> {
+    let station = config.fit;
     let name = |o: FitOptions| match o.kind {
         ModelKind::Poly => format!("poly (degree {})", o.degree),
         k => k.name().to_string(),
@@ -197,8 +207,8 @@ fn station_lines(args: &FitCommandOptions, config: &Config, used: FitOptions) ->
         (Ok(x), Ok(y)) => x == y,
         _ => a == b,
     };
-    match config.calibration_file() {
-        Some(file) if same_file(&file, &args.points) => lines.push(format!(
+    match &config.calibration_file {
+        Some(file) if same_file(file, &args.points) => lines.push(format!(
             "`[calibration] file = {}` is this points file: `run` fits it when it starts, so a change here reaches the station at its next start; `--accept` moves candidate points into it first",
             file.display()
         )),
@@ -217,7 +227,7 @@ fn station_lines(args: &FitCommandOptions, config: &Config, used: FitOptions) ->
 }
 
 /// The station's bands, limits, profiles and loop, as the plot takes them.
-fn plot_context(config: &Config, set: &CalibrationSet, points: &[Point]) -> PlotContext {
+fn plot_context(config: &FitStation, set: &CalibrationSet, points: &[Point]) -> PlotContext {
     let profiles = set
         .profiles()
         .into_iter()
@@ -247,7 +257,7 @@ fn plot_context(config: &Config, set: &CalibrationSet, points: &[Point]) -> Plot
                 high_hz: b.high_hz as f64,
             })
             .collect(),
-        limits: Some((config.tuner.min_steps as f64, config.tuner.max_steps as f64)),
+        limits: config.limits.map(|(lo, hi)| (lo as f64, hi as f64)),
         profiles,
         half_window_hz: described.then(|| {
             Box::new(move |hz: f64| bandwidth_1_5_hz(&antenna, hz).map(|bw| bw / 2.0))

@@ -11,8 +11,11 @@ use std::fmt::Write as _;
 
 use super::outlier::{self, Outlier};
 use super::{Calibration, FitSpec, Point, StepMap};
-use crate::antenna::{bandwidth_1_5_hz, RESIDUAL_WARN_SHARE};
-use crate::config::{AntennaConfig, BandConfig};
+use crate::antenna::{bandwidth_1_5_hz, BandSpan, LoopDescription};
+
+/// A residual above this share of the 1.5:1 bandwidth gets a warning in the
+/// fit report (common practice, no source).
+pub const RESIDUAL_WARN_SHARE: f64 = 0.25;
 
 /// One row of the per-point table.
 #[derive(Debug, Clone, PartialEq)]
@@ -60,7 +63,7 @@ pub struct Report {
     pub outlier: Option<Outlier>,
 }
 
-fn row(cal: &Calibration, p: &Point, antenna: Option<&AntennaConfig>) -> PointRow {
+fn row(cal: &Calibration, p: &Point, antenna: Option<&LoopDescription>) -> PointRow {
     let fitted = cal.steps_at(p.hz);
     let residual_steps = p.steps - fitted;
     let slope = cal.slope_at(p.hz);
@@ -114,8 +117,8 @@ fn coverage(name: &str, low: f64, high: f64, hz: &[f64]) -> BandCoverage {
 /// are shown beside them but take no part in the fit.
 pub fn build(
     cal: &Calibration,
-    antenna: Option<&AntennaConfig>,
-    bands: &[BandConfig],
+    antenna: Option<&LoopDescription>,
+    bands: &[BandSpan],
     candidates: &[Point],
 ) -> Report {
     let rows: Vec<PointRow> = cal.points().iter().map(|p| row(cal, p, antenna)).collect();

@@ -167,7 +167,7 @@ impl Failure {
     }
 
     /// `tuneward fit` reports under its own name with status 2.
-    fn fit(e: &tuneward::calibrate::cli::FitFailure) -> Self {
+    fn fit(e: &dyn std::fmt::Display) -> Self {
         Failure {
             prefix: "tuneward fit",
             status: 2,
@@ -244,17 +244,21 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             tuneward::station::check(&config, &mut out).map_err(|e| Failure::with_causes(&e))
         }
         Command::Fit(args) => {
+            let options: tuneward::calibrate::cli::FitCommandOptions = args.into();
             let failure = |e| Failure::fit(&e);
-            tuneward::calibrate::cli::fit_command(&args.into())
-                .and_then(|report| {
-                    match out.write_all(report.as_bytes()).and_then(|()| out.flush()) {
-                        // A reader that stopped early (`| head`) is not a
-                        // failure of the fit: end quietly, as filters do.
-                        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
-                        r => r.map_err(tuneward::calibrate::cli::FitFailure::Stdout),
-                    }
-                })
-                .map_err(failure)
+            match tuneward::station::settings::load_fit_station(options.config.as_deref()) {
+                Err(e) => Err(Failure::fit(&e)),
+                Ok(station) => tuneward::calibrate::cli::fit_command(&options, station.as_ref())
+                    .and_then(|report| {
+                        match out.write_all(report.as_bytes()).and_then(|()| out.flush()) {
+                            // A reader that stopped early (`| head`) is not a
+                            // failure of the fit: end quietly, as filters do.
+                            Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+                            r => r.map_err(tuneward::calibrate::cli::FitFailure::Stdout),
+                        }
+                    })
+                    .map_err(failure),
+            }
         }
         Command::SimTuner(args) => {
             tuneward::tuner::server::run_sim_tuner(&args.into()).map_err(Failure::plain)
@@ -268,7 +272,7 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
                 .map_err(Failure::plain)
         }
         Command::SetPosition(args) => {
-            tuneward::journal::run_set_position(&args.into()).map_err(Failure::plain)
+            tuneward::station::settings::run_set_position(&args.into()).map_err(Failure::plain)
         }
     };
     let _ = out.flush();

@@ -32,7 +32,7 @@ use std::time::Duration;
 
 use crate::calibrate::StepMap;
 pub use effects::{apply, Effects};
-pub use policy::{Band, Legs, Placement, Policy};
+pub use policy::{Approach, Band, Legs, Placement, Policy};
 
 /// Why the core decided not to move (or not to move as asked).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]

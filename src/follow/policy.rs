@@ -1,9 +1,17 @@
-//! The rules the follow core applies, resolved from the config once: bands
-//! and their guard margins, the dead band, debounce, limits and approach.
+//! The rules the follow core applies, as plain settings: bands and their
+//! guard margins, the dead band, debounce, limits and approach. The station
+//! layer (`crate::station::policy_from_config`) resolves them from a config
+//! once; nothing here knows of config files.
 
 use std::time::Duration;
 
-use crate::config::{Approach, Config, ConfigError, Hysteresis, DEFAULT_HYSTERESIS_HZ};
+/// Which side the final approach to a position comes from (`tuner.approach`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Deserialize, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Approach {
+    Up,
+    Down,
+}
 
 /// A band the tuner follows in, with the margins around it.
 #[derive(Debug, Clone, PartialEq)]
@@ -53,60 +61,6 @@ impl Policy {
     /// Each band's edges, low and high, in Hz, in the config's order.
     pub fn band_ranges(&self) -> Vec<(u64, u64)> {
         self.bands.iter().map(|b| (b.low_hz, b.high_hz)).collect()
-    }
-
-    /// Resolves the policy from a validated config. `"auto"` dead bands are
-    /// resolved through `auto_hysteresis`, which is given a band's centre in
-    /// Hz and answers with a dead band in Hz, or `None` if it cannot estimate
-    /// one (no antenna described).
-    pub fn from_config(
-        config: &Config,
-        auto_hysteresis: impl Fn(f64) -> Option<u64>,
-    ) -> Result<Policy, ConfigError> {
-        let path = config.path_for_errors();
-        let f = &config.follow;
-        let mut bands = Vec::with_capacity(config.bands.len());
-        for (i, b) in config.bands.iter().enumerate() {
-            let centre = (b.low_hz as f64 + b.high_hz as f64) / 2.0;
-            let (key, setting) = match b.hysteresis_hz {
-                Some(h) => (format!("band[{i}] ({}).hysteresis_hz", b.name), h),
-                None => ("follow.hysteresis_hz".to_string(), f.hysteresis_hz),
-            };
-            let hysteresis_hz = match setting {
-                Hysteresis::Hz(hz) => hz,
-                Hysteresis::Unset => auto_hysteresis(centre).unwrap_or(DEFAULT_HYSTERESIS_HZ),
-                Hysteresis::Auto(_) => {
-                    auto_hysteresis(centre).ok_or_else(|| ConfigError::Invalid {
-                        path: path.clone(),
-                        key,
-                        expected: "a number of Hz, or \"auto\" with [antenna] loop_diameter_m and conductor_diameter_m set".to_string(),
-                        found: "\"auto\" without an antenna description".to_string(),
-                    })?
-                }
-            };
-            bands.push(Band {
-                name: b.name.clone(),
-                low_hz: b.low_hz,
-                high_hz: b.high_hz,
-                guard_hz: b.guard_hz,
-                hysteresis_hz,
-                debounce: Duration::from_millis(b.debounce_ms.unwrap_or(f.debounce_ms)),
-            });
-        }
-        let t = &config.tuner;
-        Ok(Policy {
-            bands,
-            min_steps: t.min_steps,
-            max_steps: t.max_steps,
-            backlash_steps: t.backlash_steps,
-            approach: t.approach,
-            debounce: Duration::from_millis(f.debounce_ms),
-            min_move_steps: f.min_move_steps,
-            inhibit_lead: Duration::from_millis(f.inhibit_lead_ms),
-            inhibit_while_detuned: f.inhibit_while_detuned,
-            inhibit_tail: Duration::from_millis(f.inhibit_tail_ms),
-            candidate_dwell: Duration::from_millis(f.candidate_dwell_ms),
-        })
     }
 
     /// Where `hz` falls. Bands do not overlap (the config validation refuses
@@ -215,27 +169,6 @@ mod tests {
             inhibit_tail: Duration::from_millis(100),
             candidate_dwell: Duration::from_secs(10),
         }
-    }
-
-    #[test]
-    fn unset_dead_band_is_auto_for_a_described_loop_else_the_fixed_default() {
-        let text = "[calibration]\npoints = [{ hz = 7000000, steps = 4000 }, { hz = 7200000, steps = 3000 }]\n\
-                    [[band]]\nname = \"40m\"\nlow_hz = 7000000\nhigh_hz = 7200000\n\
-                    [[band]]\nname = \"30m\"\nlow_hz = 10100000\nhigh_hz = 10150000\nhysteresis_hz = 700\n";
-        let config = Config::parse(text, std::path::Path::new("t.toml")).unwrap();
-        // No loop described: the fixed default; a band's own value wins.
-        let p = Policy::from_config(&config, |_| None).unwrap();
-        assert_eq!(p.bands[0].hysteresis_hz, DEFAULT_HYSTERESIS_HZ);
-        assert_eq!(p.bands[1].hysteresis_hz, 700);
-        // A described loop: whatever "auto" gives at the band's centre.
-        let p = Policy::from_config(&config, |centre| Some(centre as u64 / 10_000)).unwrap();
-        assert_eq!(p.bands[0].hysteresis_hz, 710);
-        assert_eq!(p.bands[1].hysteresis_hz, 700);
-        // Set explicitly, a number stays a number.
-        let fixed = format!("[follow]\nhysteresis_hz = 1500\n{text}");
-        let config = Config::parse(&fixed, std::path::Path::new("t.toml")).unwrap();
-        let p = Policy::from_config(&config, |_| Some(1)).unwrap();
-        assert_eq!(p.bands[0].hysteresis_hz, 1500);
     }
 
     #[test]

@@ -31,8 +31,8 @@
 use std::collections::VecDeque;
 use std::time::Duration;
 
+use super::Approach;
 use super::{Effects, Follower, HoldReason};
-use crate::config::Approach;
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::tuner::{TunerCommand, TunerEvent};

@@ -3,7 +3,6 @@
 //! steps = 10 000 - (hz - 7 000 000) / 100, so 100 Hz is one step.
 
 use super::*;
-use crate::config::Approach;
 
 struct Line;
 impl StepMap for Line {

@@ -237,25 +237,6 @@ pub struct ClientConfig {
 }
 
 impl ClientConfig {
-    /// From the `[tuner]` section: `link` is the URL.
-    pub fn from_tuner(t: &crate::config::TunerConfig) -> Result<ClientConfig, String> {
-        let url = t
-            .link
-            .parse()
-            .map_err(|e| format!("key `tuner.link`: {e}"))?;
-        Ok(ClientConfig {
-            url,
-            min_steps: t.min_steps,
-            max_steps: t.max_steps,
-            steps_per_second: t.steps_per_second,
-            settle: Duration::from_millis(t.settle_ms),
-            reply_margin: Duration::from_secs(1),
-            backoff_cap: Duration::from_secs(2),
-            sim_start: t.min_steps,
-            sim_backlash: t.backlash_steps,
-        })
-    }
-
     /// Travel time for `distance`, capped at a quarter of `Duration::MAX`
     /// so that adding settle time and margin cannot overflow.
     fn travel(&self, distance: u64) -> Duration {

@@ -207,7 +207,7 @@ pub struct GpioPins {
 impl GpioPins {
     /// Requests the `step` and `dir` lines of `chip` as outputs, both low.
     pub fn open(chip: &str, step: u32, dir: u32, up_is_high: bool) -> io::Result<GpioPins> {
-        let path = crate::inhibit::chip_path(chip);
+        let path = crate::devices::gpio_chip_path(chip);
         let request = gpiocdev::Request::builder()
             .on_chip(&path)
             .with_consumer("tuneward-stepper")

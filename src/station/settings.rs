@@ -1,0 +1,428 @@
+//! Config becomes runtime settings: the one place that turns a parsed,
+//! validated [`Config`] into the plain settings the lower layers take (the
+//! follow [`Policy`], the fitted calibration, the rig's port and poll, the
+//! controller link, the inhibit line, the journal). The pure layers know
+//! nothing of config files, keys or paths; every relative path is resolved
+//! by [`Config::resolve_path`], every rule checked once in the config's
+//! validation, and errors name the file and key.
+
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use crate::antenna::BandSpan;
+use crate::calibrate::cli::FitStation;
+use crate::calibrate::{Calibration, FitOptions, Point};
+use crate::config::{
+    Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, RigConfig, RigUse, SerialFlow,
+    SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
+};
+use crate::follow::{Band, Follower, Policy};
+use crate::inhibit::{self, InhibitLine};
+use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
+use crate::port::link::LinkConfig;
+use crate::port::proxy::ProxyConfig;
+use crate::service::{RigSource, ServiceParts};
+use crate::tuner::client::ClientConfig;
+
+use super::Station;
+
+/// Resolves the policy from a validated config. `"auto"` dead bands are
+/// resolved through `auto_hysteresis`, which is given a band's centre in
+/// Hz and answers with a dead band in Hz, or `None` if it cannot estimate
+/// one (no antenna described).
+pub fn policy_from_config(
+    config: &Config,
+    auto_hysteresis: impl Fn(f64) -> Option<u64>,
+) -> Result<Policy, ConfigError> {
+    let path = config.path_for_errors();
+    let f = &config.follow;
+    let mut bands = Vec::with_capacity(config.bands.len());
+    for (i, b) in config.bands.iter().enumerate() {
+        let centre = (b.low_hz as f64 + b.high_hz as f64) / 2.0;
+        let (key, setting) = match b.hysteresis_hz {
+            Some(h) => (format!("band[{i}] ({}).hysteresis_hz", b.name), h),
+            None => ("follow.hysteresis_hz".to_string(), f.hysteresis_hz),
+        };
+        let hysteresis_hz = match setting {
+            Hysteresis::Hz(hz) => hz,
+            Hysteresis::Unset => auto_hysteresis(centre).unwrap_or(DEFAULT_HYSTERESIS_HZ),
+            Hysteresis::Auto(_) => {
+                auto_hysteresis(centre).ok_or_else(|| ConfigError::Invalid {
+                    path: path.clone(),
+                    key,
+                    expected: "a number of Hz, or \"auto\" with [antenna] loop_diameter_m and conductor_diameter_m set".to_string(),
+                    found: "\"auto\" without an antenna description".to_string(),
+                })?
+            }
+        };
+        bands.push(Band {
+            name: b.name.clone(),
+            low_hz: b.low_hz,
+            high_hz: b.high_hz,
+            guard_hz: b.guard_hz,
+            hysteresis_hz,
+            debounce: Duration::from_millis(b.debounce_ms.unwrap_or(f.debounce_ms)),
+        });
+    }
+    let t = &config.tuner;
+    Ok(Policy {
+        bands,
+        min_steps: t.min_steps,
+        max_steps: t.max_steps,
+        backlash_steps: t.backlash_steps,
+        approach: t.approach,
+        debounce: Duration::from_millis(f.debounce_ms),
+        min_move_steps: f.min_move_steps,
+        inhibit_lead: Duration::from_millis(f.inhibit_lead_ms),
+        inhibit_while_detuned: f.inhibit_while_detuned,
+        inhibit_tail: Duration::from_millis(f.inhibit_tail_ms),
+        candidate_dwell: Duration::from_millis(f.candidate_dwell_ms),
+    })
+}
+
+/// How `[calibration]` asks for its points to be fitted.
+pub fn fit_options(config: &Config) -> FitOptions {
+    FitOptions {
+        kind: config.calibration.model,
+        degree: config
+            .calibration
+            .degree
+            .unwrap_or(crate::calibrate::DEFAULT_POLY_DEGREE),
+    }
+}
+
+/// Points, all of them in a profile, leave no base calibration for the
+/// profiles to be offsets from: that is an error of its own.
+pub fn check_base_points(config: &Config, points: &[Point]) -> Result<(), ConfigError> {
+    if points.is_empty() || points.iter().any(|p| p.profile.is_none()) {
+        return Ok(());
+    }
+    Err(config.invalid(
+        "calibration",
+        "points without a profile (the base calibration, which profiles are offsets from)",
+        format!("{} points, every one of them in a profile", points.len()),
+    ))
+}
+
+/// The fitted base calibration this config describes (points without a
+/// profile; [`crate::calibrate::CalibrationSet`] handles profiles).
+pub fn fit_base(config: &Config) -> Result<Calibration, ConfigError> {
+    let mut points = config.calibration_points()?;
+    check_base_points(config, &points)?;
+    points.retain(|p| p.profile.is_none());
+    Calibration::fit_with(fit_options(config), &points).map_err(|source| ConfigError::Calibration {
+        path: config.path_for_errors(),
+        source,
+    })
+}
+
+/// The position journal a config names (`tuner.state_file`, relative to the
+/// config's folder), or [`DEFAULT_STATE_FILE`] beside the config.
+pub fn journal_for(config: &Config) -> Journal {
+    let name = config
+        .tuner
+        .state_file
+        .clone()
+        .unwrap_or_else(|| PathBuf::from(DEFAULT_STATE_FILE));
+    Journal::new(config.resolve_path(&name))
+}
+
+/// What `tuneward fit --config` takes from a station: the loop and the bands.
+pub fn fit_station(config: &Config) -> FitStation {
+    FitStation {
+        antenna: config.antenna.clone(),
+        bands: config
+            .bands
+            .iter()
+            .map(|b| BandSpan {
+                name: b.name.clone(),
+                low_hz: b.low_hz,
+                high_hz: b.high_hz,
+            })
+            .collect(),
+        limits: Some((config.tuner.min_steps, config.tuner.max_steps)),
+        fit: fit_options(config),
+        calibration_file: config.calibration_file(),
+    }
+}
+
+/// The station a `tuneward fit --config` names, if any.
+pub fn load_fit_station(config: Option<&Path>) -> Result<Option<FitStation>, ConfigError> {
+    Ok(config
+        .map(Config::load)
+        .transpose()?
+        .as_ref()
+        .map(fit_station))
+}
+
+/// The controller link's settings from `[tuner]`: `link` is the URL.
+pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, String> {
+    let url = t
+        .link
+        .parse()
+        .map_err(|e| format!("key `tuner.link`: {e}"))?;
+    Ok(ClientConfig {
+        url,
+        min_steps: t.min_steps,
+        max_steps: t.max_steps,
+        steps_per_second: t.steps_per_second,
+        settle: Duration::from_millis(t.settle_ms),
+        reply_margin: Duration::from_secs(1),
+        backoff_cap: Duration::from_secs(2),
+        sim_start: t.min_steps,
+        sim_backlash: t.backlash_steps,
+    })
+}
+
+/// Opens the line `[inhibit]` describes, driven on (inhibited).
+pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, String> {
+    let need_port = |signal: &str| {
+        cfg.port.clone().ok_or_else(|| {
+            format!("key `inhibit.port`: expected the serial device whose {signal} is the inhibit, found none")
+        })
+    };
+    match cfg.line {
+        InhibitKind::None => Ok(Box::new(inhibit::NoLine)),
+        InhibitKind::Rts => {
+            let port = need_port("RTS")?;
+            Ok(Box::new(
+                inhibit::open_modem_line(&port, inhibit::ModemSignal::Rts, cfg.active_high)
+                    .map_err(|e| e.to_string())?,
+            ))
+        }
+        InhibitKind::Dtr => {
+            let port = need_port("DTR")?;
+            Ok(Box::new(
+                inhibit::open_modem_line(&port, inhibit::ModemSignal::Dtr, cfg.active_high)
+                    .map_err(|e| e.to_string())?,
+            ))
+        }
+        InhibitKind::Gpio => {
+            let chip = cfg.chip.as_deref().ok_or(
+                "key `inhibit.chip`: expected a GPIO chip such as `gpiochip0`, found none",
+            )?;
+            let offset = cfg
+                .offset
+                .ok_or("key `inhibit.offset`: expected the line number on the chip, found none")?;
+            #[cfg(target_os = "linux")]
+            {
+                Ok(Box::new(
+                    inhibit::GpioLine::open(chip, offset, cfg.active_high)
+                        .map_err(|e| e.to_string())?,
+                ))
+            }
+            #[cfg(not(target_os = "linux"))]
+            {
+                let _ = (chip, offset);
+                Err("key `inhibit.line`: `gpio` needs Linux".to_string())
+            }
+        }
+    }
+}
+
+/// Writes a clean record of `steps` to the journal `config` names, after
+/// checking `steps` against the config's limits. Returns the journal's path.
+pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, String> {
+    let (min, max) = (config.tuner.min_steps, config.tuner.max_steps);
+    if !(min..=max).contains(&steps) {
+        return Err(format!(
+            "position {steps}: expected a value within tuner.min_steps..tuner.max_steps ({min}..{max})"
+        ));
+    }
+    let journal = journal_for(config);
+    journal.record_position(steps).map_err(|e| e.to_string())?;
+    Ok(journal.path().to_path_buf())
+}
+
+/// Runs `tuneward set-position`.
+pub fn run_set_position(args: &SetPositionOptions) -> Result<(), String> {
+    let config = Config::load(&args.config).map_err(|e| e.to_string())?;
+    let path = set_position(&config, args.steps)?;
+    println!("position {} recorded in {}", args.steps, path.display());
+    Ok(())
+}
+
+/// The config's file name for error messages.
+fn config_name(config: &Config) -> String {
+    config.path_for_errors().display().to_string()
+}
+
+/// The rig's port as `[rig]` describes it: `port`, `baud` and framing, and
+/// the `mode`: `listen` (read only), `poll` (queries every `poll_ms`) or
+/// `proxy` (shared through a pseudo-terminal at `proxy_link`, which is
+/// relative to the config's folder).
+pub fn rig_source(station: &Station) -> Result<RigSource, String> {
+    let config = &station.config;
+    let file = config_name(config);
+    let port = config.rig.port.clone().ok_or_else(|| {
+            format!("{file}: key `rig.port`: expected the rig's serial device (e.g. /dev/serial/by-id/...), found none")
+        })?;
+    let settings = port_settings(&config.rig, port).map_err(|e| format!("{file}: {e}"))?;
+    // Which queries (if any) go to the rig is the mode's business:
+    // `listen` never writes to the port. The rules are the config's
+    // (checked once, in `Config::rig_use`).
+    let (every_ms, proxy_link) = match config.rig_use().map_err(|e| e.to_string())? {
+        RigUse::Listen => (None, None),
+        RigUse::Poll { every_ms } => (Some(every_ms), None),
+        RigUse::Proxy { link, poll_ms } => (poll_ms, Some(link)),
+    };
+    let poll = match every_ms {
+        None => None,
+        Some(ms) => {
+            let address = match (station.dialect.family(), config.rig.address) {
+                (crate::rig::Family::Binary, None) => {
+                    return Err(format!(
+                        "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
+                    ))
+                }
+                (_, a) => a.unwrap_or(0),
+            };
+            let mut query = station.dialect.poll_frequency(address);
+            query.extend(station.dialect.poll_transmit(address));
+            let every = Duration::from_millis(ms);
+            Some(crate::port::link::PollConfig {
+                query,
+                every,
+                max_every: every.max(Duration::from_secs(4)),
+            })
+        }
+    };
+    let rig = match &proxy_link {
+        Some(link) => {
+            let link = link.clone();
+            let end = match &station.dialect.spec {
+                crate::rig::dialect::Spec::Binary(b) => b.terminator,
+                crate::rig::dialect::Spec::Text(t) => t.terminator,
+            };
+            RigSource::Proxy {
+                config: ProxyConfig {
+                    port: settings,
+                    link,
+                    poll,
+                    backoff_cap: Duration::from_secs(2),
+                },
+                boundary: Box::new(crate::port::proxy::ends_with(end)),
+            }
+        }
+        None => RigSource::Link(LinkConfig {
+            port: settings,
+            poll,
+            backoff_cap: Duration::from_secs(2),
+        }),
+    };
+    Ok(rig)
+}
+
+impl ServiceParts {
+    /// The live service a station's config describes: the rig's port from
+    /// `[rig]` (see [`rig_source`]), the controller from `tuner.link`, the
+    /// inhibit from `[inhibit]`, the journal from `tuner.state_file`. (An
+    /// impl of the driver's type, kept here with the rest of the config's
+    /// reading.)
+    pub fn from_station(station: &Station) -> Result<ServiceParts, String> {
+        let config = &station.config;
+        let file = config_name(config);
+        let rig = rig_source(station)?;
+        let controller = controller_settings(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
+        let inhibit = open_inhibit(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
+        Ok(ServiceParts {
+            follower: Follower::new(
+                station.policy.clone(),
+                std::sync::Arc::clone(&station.map),
+                None,
+            ),
+            decoder: station.dialect.decoder(config.rig.address),
+            rig,
+            controller,
+            inhibit,
+            journal: Some(journal_for(config)),
+            relax_on_exit: config.tuner.relax_on_exit,
+            candidates: config
+                .calibration_file()
+                .map(|points| crate::calibrate::candidates_path(&points)),
+        })
+    }
+}
+
+/// The rig port's settings from `[rig]`, with the keys named in errors.
+pub fn port_settings(
+    rig: &RigConfig,
+    port: String,
+) -> Result<crate::port::link::PortSettings, String> {
+    use crate::port::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
+    if rig.baud == 0 {
+        return Err("key `rig.baud`: expected a positive baud rate, found 0".to_string());
+    }
+    let mut s = PortSettings::new(port, rig.baud);
+    s.data_bits = match rig.data_bits {
+        5 => DataBits::Five,
+        6 => DataBits::Six,
+        7 => DataBits::Seven,
+        8 => DataBits::Eight,
+        n => {
+            return Err(format!(
+                "key `rig.data_bits`: expected 5, 6, 7 or 8, found {n}"
+            ))
+        }
+    };
+    s.stop_bits = match rig.stop_bits {
+        1 => StopBits::One,
+        2 => StopBits::Two,
+        n => return Err(format!("key `rig.stop_bits`: expected 1 or 2, found {n}")),
+    };
+    s.parity = match rig.parity {
+        SerialParity::None => Parity::None,
+        SerialParity::Odd => Parity::Odd,
+        SerialParity::Even => Parity::Even,
+    };
+    s.flow = match rig.flow_control {
+        SerialFlow::None => FlowControl::None,
+        SerialFlow::Software => FlowControl::Software,
+        SerialFlow::Hardware => FlowControl::Hardware,
+    };
+    Ok(s)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn unset_dead_band_is_auto_for_a_described_loop_else_the_fixed_default() {
+        let text = "[calibration]\npoints = [{ hz = 7000000, steps = 4000 }, { hz = 7200000, steps = 3000 }]\n\
+                    [[band]]\nname = \"40m\"\nlow_hz = 7000000\nhigh_hz = 7200000\n\
+                    [[band]]\nname = \"30m\"\nlow_hz = 10100000\nhigh_hz = 10150000\nhysteresis_hz = 700\n";
+        let config = Config::parse(text, std::path::Path::new("t.toml")).unwrap();
+        // No loop described: the fixed default; a band's own value wins.
+        let p = policy_from_config(&config, |_| None).unwrap();
+        assert_eq!(p.bands[0].hysteresis_hz, DEFAULT_HYSTERESIS_HZ);
+        assert_eq!(p.bands[1].hysteresis_hz, 700);
+        // A described loop: whatever "auto" gives at the band's centre.
+        let p = policy_from_config(&config, |centre| Some(centre as u64 / 10_000)).unwrap();
+        assert_eq!(p.bands[0].hysteresis_hz, 710);
+        assert_eq!(p.bands[1].hysteresis_hz, 700);
+        // Set explicitly, a number stays a number.
+        let fixed = format!("[follow]\nhysteresis_hz = 1500\n{text}");
+        let config = Config::parse(&fixed, std::path::Path::new("t.toml")).unwrap();
+        let p = policy_from_config(&config, |_| Some(1)).unwrap();
+        assert_eq!(p.bands[0].hysteresis_hz, 1500);
+    }
+
+    #[test]
+    fn config_without_needed_keys_names_them() {
+        let mut c = InhibitConfig {
+            line: InhibitKind::Rts,
+            ..InhibitConfig::default()
+        };
+        let e = open_inhibit(&c).err().unwrap();
+        assert!(e.contains("inhibit.port"), "{e}");
+        c.line = InhibitKind::Gpio;
+        let e = open_inhibit(&c).err().unwrap();
+        assert!(e.contains("inhibit.chip"), "{e}");
+        c.chip = Some("gpiochip0".into());
+        let e = open_inhibit(&c).err().unwrap();
+        assert!(e.contains("inhibit.offset"), "{e}");
+        c.line = InhibitKind::None;
+        assert!(open_inhibit(&c).unwrap().set(true).is_ok());
+    }
+}
