@@ -12,6 +12,7 @@ pub mod calibrate;
 pub mod capture;
 pub mod config;
 pub mod devices;
+pub mod error;
 pub mod follow;
 pub mod inhibit;
 pub mod journal;
@@ -29,3 +30,5 @@ pub mod station;
 pub mod timeline;
 pub mod timing;
 pub mod tuner;
+
+pub use error::Error;

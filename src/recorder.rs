@@ -48,7 +48,7 @@ pub struct CaptureCounts {
 /// Runs `tuneward capture`.
 pub fn run_capture(args: &CaptureOptions) -> Result<CaptureCounts, String> {
     let station = crate::station::Station::load(&args.config).map_err(|e| e.to_string())?;
-    let source = crate::station::rig_source(&station)?;
+    let source = crate::station::rig_source(&station).map_err(|e| e.to_string())?;
     let file = std::fs::File::create(&args.out)
         .map_err(|e| format!("cannot create capture file {}: {e}", args.out.display()))?;
     let rt = tokio::runtime::Builder::new_current_thread()

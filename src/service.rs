@@ -123,7 +123,7 @@ pub fn run_command(args: &RunOptions) -> Result<(), String> {
 /// (Ctrl-C or SIGTERM), on a runtime of its own.
 pub fn run_config(config: &Path) -> Result<RunSummary, String> {
     let station = Station::load(config).map_err(|e| e.to_string())?;
-    let service = ServiceParts::from_station(&station)?;
+    let service = ServiceParts::from_station(&station).map_err(|e| e.to_string())?;
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()

@@ -431,11 +431,15 @@ fn bad_serial_framing_names_the_key() {
         data_bits: 9,
         ..Default::default()
     };
-    let e = tuneward::station::port_settings(&rig, "/dev/x".into()).unwrap_err();
+    let e = tuneward::station::port_settings(&rig, "/dev/x".into())
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("rig.data_bits") && e.contains('9'), "{e}");
     rig.data_bits = 7;
     rig.stop_bits = 3;
-    let e = tuneward::station::port_settings(&rig, "/dev/x".into()).unwrap_err();
+    let e = tuneward::station::port_settings(&rig, "/dev/x".into())
+        .unwrap_err()
+        .to_string();
     assert!(e.contains("rig.stop_bits"), "{e}");
     rig.stop_bits = 2;
     let s = tuneward::station::port_settings(&rig, "/dev/x".into()).unwrap();

@@ -271,9 +271,8 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
                 .map(|_| ())
                 .map_err(Failure::plain)
         }
-        Command::SetPosition(args) => {
-            tuneward::station::settings::run_set_position(&args.into()).map_err(Failure::plain)
-        }
+        Command::SetPosition(args) => tuneward::station::settings::run_set_position(&args.into())
+            .map_err(|e| Failure::with_causes(&e)),
     };
     let _ = out.flush();
     result

@@ -16,6 +16,7 @@ use crate::config::{
     Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, RigConfig, RigUse, SerialFlow,
     SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
+use crate::error::Error;
 use crate::follow::{Band, Follower, Policy};
 use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
@@ -156,11 +157,11 @@ pub fn load_fit_station(config: Option<&Path>) -> Result<Option<FitStation>, Con
 }
 
 /// The controller link's settings from `[tuner]`: `link` is the URL.
-pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, String> {
+pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, Error> {
     let url = t
         .link
         .parse()
-        .map_err(|e| format!("key `tuner.link`: {e}"))?;
+        .map_err(|e| Error::Failed(format!("key `tuner.link`: {e}")))?;
     Ok(ClientConfig {
         url,
         min_steps: t.min_steps,
@@ -175,10 +176,14 @@ pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, String> {
 }
 
 /// Opens the line `[inhibit]` describes, driven on (inhibited).
-pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, String> {
+pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> {
     let need_port = |signal: &str| {
         cfg.port.clone().ok_or_else(|| {
-            format!("key `inhibit.port`: expected the serial device whose {signal} is the inhibit, found none")
+            Error::invalid(
+                "key `inhibit.port`",
+                format!("the serial device whose {signal} is the inhibit"),
+                "none",
+            )
         })
     };
     match cfg.line {
@@ -187,34 +192,44 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, String>
             let port = need_port("RTS")?;
             Ok(Box::new(
                 inhibit::open_modem_line(&port, inhibit::ModemSignal::Rts, cfg.active_high)
-                    .map_err(|e| e.to_string())?,
+                    .map_err(|e| Error::Failed(e.to_string()))?,
             ))
         }
         InhibitKind::Dtr => {
             let port = need_port("DTR")?;
             Ok(Box::new(
                 inhibit::open_modem_line(&port, inhibit::ModemSignal::Dtr, cfg.active_high)
-                    .map_err(|e| e.to_string())?,
+                    .map_err(|e| Error::Failed(e.to_string()))?,
             ))
         }
         InhibitKind::Gpio => {
-            let chip = cfg.chip.as_deref().ok_or(
-                "key `inhibit.chip`: expected a GPIO chip such as `gpiochip0`, found none",
-            )?;
-            let offset = cfg
-                .offset
-                .ok_or("key `inhibit.offset`: expected the line number on the chip, found none")?;
+            let chip = cfg.chip.as_deref().ok_or_else(|| {
+                Error::invalid(
+                    "key `inhibit.chip`",
+                    "a GPIO chip such as `gpiochip0`",
+                    "none",
+                )
+            })?;
+            let offset = cfg.offset.ok_or_else(|| {
+                Error::invalid(
+                    "key `inhibit.offset`",
+                    "the line number on the chip",
+                    "none",
+                )
+            })?;
             #[cfg(target_os = "linux")]
             {
                 Ok(Box::new(
                     inhibit::GpioLine::open(chip, offset, cfg.active_high)
-                        .map_err(|e| e.to_string())?,
+                        .map_err(|e| Error::Failed(e.to_string()))?,
                 ))
             }
             #[cfg(not(target_os = "linux"))]
             {
                 let _ = (chip, offset);
-                Err("key `inhibit.line`: `gpio` needs Linux".to_string())
+                Err(Error::Failed(
+                    "key `inhibit.line`: `gpio` needs Linux".to_string(),
+                ))
             }
         }
     }
@@ -222,21 +237,23 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, String>
 
 /// Writes a clean record of `steps` to the journal `config` names, after
 /// checking `steps` against the config's limits. Returns the journal's path.
-pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, String> {
+pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, Error> {
     let (min, max) = (config.tuner.min_steps, config.tuner.max_steps);
     if !(min..=max).contains(&steps) {
-        return Err(format!(
+        return Err(Error::Failed(format!(
             "position {steps}: expected a value within tuner.min_steps..tuner.max_steps ({min}..{max})"
-        ));
+        )));
     }
     let journal = journal_for(config);
-    journal.record_position(steps).map_err(|e| e.to_string())?;
+    journal
+        .record_position(steps)
+        .map_err(|e| Error::Failed(e.to_string()))?;
     Ok(journal.path().to_path_buf())
 }
 
 /// Runs `tuneward set-position`.
-pub fn run_set_position(args: &SetPositionOptions) -> Result<(), String> {
-    let config = Config::load(&args.config).map_err(|e| e.to_string())?;
+pub fn run_set_position(args: &SetPositionOptions) -> Result<(), Error> {
+    let config = Config::load(&args.config)?;
     let path = set_position(&config, args.steps)?;
     println!("position {} recorded in {}", args.steps, path.display());
     Ok(())
@@ -251,17 +268,21 @@ fn config_name(config: &Config) -> String {
 /// the `mode`: `listen` (read only), `poll` (queries every `poll_ms`) or
 /// `proxy` (shared through a pseudo-terminal at `proxy_link`, which is
 /// relative to the config's folder).
-pub fn rig_source(station: &Station) -> Result<RigSource, String> {
+pub fn rig_source(station: &Station) -> Result<RigSource, Error> {
     let config = &station.config;
     let file = config_name(config);
     let port = config.rig.port.clone().ok_or_else(|| {
-            format!("{file}: key `rig.port`: expected the rig's serial device (e.g. /dev/serial/by-id/...), found none")
-        })?;
-    let settings = port_settings(&config.rig, port).map_err(|e| format!("{file}: {e}"))?;
+        Error::invalid(
+            format!("{file}: key `rig.port`"),
+            "the rig's serial device (e.g. /dev/serial/by-id/...)",
+            "none",
+        )
+    })?;
+    let settings = port_settings(&config.rig, port).map_err(|e| e.within(&file))?;
     // Which queries (if any) go to the rig is the mode's business:
     // `listen` never writes to the port. The rules are the config's
     // (checked once, in `Config::rig_use`).
-    let (every_ms, proxy_link) = match config.rig_use().map_err(|e| e.to_string())? {
+    let (every_ms, proxy_link) = match config.rig_use()? {
         RigUse::Listen => (None, None),
         RigUse::Poll { every_ms } => (Some(every_ms), None),
         RigUse::Proxy { link, poll_ms } => (poll_ms, Some(link)),
@@ -271,9 +292,9 @@ pub fn rig_source(station: &Station) -> Result<RigSource, String> {
         Some(ms) => {
             let address = match (station.dialect.family(), config.rig.address) {
                 (crate::rig::Family::Binary, None) => {
-                    return Err(format!(
+                    return Err(Error::Failed(format!(
                         "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
-                    ))
+                    )))
                 }
                 (_, a) => a.unwrap_or(0),
             };
@@ -319,12 +340,12 @@ impl ServiceParts {
     /// inhibit from `[inhibit]`, the journal from `tuner.state_file`. (An
     /// impl of the driver's type, kept here with the rest of the config's
     /// reading.)
-    pub fn from_station(station: &Station) -> Result<ServiceParts, String> {
+    pub fn from_station(station: &Station) -> Result<ServiceParts, Error> {
         let config = &station.config;
         let file = config_name(config);
         let rig = rig_source(station)?;
-        let controller = controller_settings(&config.tuner).map_err(|e| format!("{file}: {e}"))?;
-        let inhibit = open_inhibit(&config.inhibit).map_err(|e| format!("{file}: {e}"))?;
+        let controller = controller_settings(&config.tuner).map_err(|e| e.within(&file))?;
+        let inhibit = open_inhibit(&config.inhibit).map_err(|e| e.within(&file))?;
         Ok(ServiceParts {
             follower: Follower::new(
                 station.policy.clone(),
@@ -348,10 +369,14 @@ impl ServiceParts {
 pub fn port_settings(
     rig: &RigConfig,
     port: String,
-) -> Result<crate::port::link::PortSettings, String> {
+) -> Result<crate::port::link::PortSettings, Error> {
     use crate::port::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
     if rig.baud == 0 {
-        return Err("key `rig.baud`: expected a positive baud rate, found 0".to_string());
+        return Err(Error::invalid(
+            "key `rig.baud`",
+            "a positive baud rate",
+            "0",
+        ));
     }
     let mut s = PortSettings::new(port, rig.baud);
     s.data_bits = match rig.data_bits {
@@ -360,15 +385,23 @@ pub fn port_settings(
         7 => DataBits::Seven,
         8 => DataBits::Eight,
         n => {
-            return Err(format!(
-                "key `rig.data_bits`: expected 5, 6, 7 or 8, found {n}"
+            return Err(Error::invalid(
+                "key `rig.data_bits`",
+                "5, 6, 7 or 8",
+                n.to_string(),
             ))
         }
     };
     s.stop_bits = match rig.stop_bits {
         1 => StopBits::One,
         2 => StopBits::Two,
-        n => return Err(format!("key `rig.stop_bits`: expected 1 or 2, found {n}")),
+        n => {
+            return Err(Error::invalid(
+                "key `rig.stop_bits`",
+                "1 or 2",
+                n.to_string(),
+            ))
+        }
     };
     s.parity = match rig.parity {
         SerialParity::None => Parity::None,
@@ -414,13 +447,13 @@ mod tests {
             line: InhibitKind::Rts,
             ..InhibitConfig::default()
         };
-        let e = open_inhibit(&c).err().unwrap();
+        let e = open_inhibit(&c).err().unwrap().to_string();
         assert!(e.contains("inhibit.port"), "{e}");
         c.line = InhibitKind::Gpio;
-        let e = open_inhibit(&c).err().unwrap();
+        let e = open_inhibit(&c).err().unwrap().to_string();
         assert!(e.contains("inhibit.chip"), "{e}");
         c.chip = Some("gpiochip0".into());
-        let e = open_inhibit(&c).err().unwrap();
+        let e = open_inhibit(&c).err().unwrap().to_string();
         assert!(e.contains("inhibit.offset"), "{e}");
         c.line = InhibitKind::None;
         assert!(open_inhibit(&c).unwrap().set(true).is_ok());
