@@ -7,8 +7,8 @@
 //! as plain types from `src/station/settings.rs`.
 //!
 //! What is read: every `.rs` file under `src/follow/`, `src/calibrate/` and
-//! `src/rig/` (except the rig's port IO: `link.rs`, `proxy.rs`, `pty.rs` and
-//! any `io/` or `port/` folder), and the single files in [`PURE_FILES`].
+//! `src/rig/` (pure decoding; the port IO is in `src/port/`, not read), and
+//! the single files in [`PURE_FILES`].
 //! Comments, literals and `#[cfg(test)]` items are left out (a unit test may
 //! run on tokio's test clock).
 
@@ -16,10 +16,6 @@ use std::path::{Path, PathBuf};
 
 /// Folders whose every source file is pure.
 const PURE_DIRS: &[&str] = &["src/follow", "src/calibrate", "src/rig"];
-
-/// Port IO that lives beside the rig decoders (for now): not pure.
-const RIG_IO: &[&str] = &["link.rs", "proxy.rs", "pty.rs"];
-const IO_FOLDERS: &[&str] = &["io", "port"];
 
 /// Single pure files.
 const PURE_FILES: &[&str] = &[
@@ -35,14 +31,6 @@ const PURE_FILES: &[&str] = &[
     "src/replay.rs",
 ];
 
-/// Files that still carry clap derives for the command line, which are on
-/// their way to the CLI module; only the `clap` check is waived for them.
-const CLAP_PENDING: &[&str] = &[
-    "src/journal.rs",
-    "src/calibrate/cli.rs",
-    "src/calibrate/mod.rs",
-];
-
 /// The serial library (used synchronously, to drive RTS/DTR) is allowed
 /// only where the inhibit's modem line is opened.
 const SERIAL_ALLOWED: &[&str] = &["src/inhibit.rs"];
@@ -55,12 +43,9 @@ fn rust_files(dir: &Path, out: &mut Vec<PathBuf>) {
     let entries = std::fs::read_dir(dir).unwrap_or_else(|e| panic!("{}: {e}", dir.display()));
     for entry in entries {
         let path = entry.unwrap().path();
-        let name = path.file_name().unwrap().to_string_lossy().to_string();
         if path.is_dir() {
-            if !IO_FOLDERS.contains(&name.as_str()) {
-                rust_files(&path, out);
-            }
-        } else if name.ends_with(".rs") {
+            rust_files(&path, out);
+        } else if path.extension().is_some_and(|e| e == "rs") {
             out.push(path);
         }
     }
@@ -72,10 +57,6 @@ fn pure_files() -> Vec<PathBuf> {
     for dir in PURE_DIRS {
         let mut found = Vec::new();
         rust_files(&root.join(dir), &mut found);
-        found.retain(|p| {
-            !(p.starts_with(root.join("src/rig"))
-                && RIG_IO.contains(&p.file_name().unwrap().to_str().unwrap()))
-        });
         assert!(
             !found.is_empty(),
             "{dir}: expected source files, found none"
@@ -262,7 +243,7 @@ fn violations(rel: &str, code: &str) -> Vec<String> {
             "{rel}: expected no serial port library in a pure layer, found `tokio_serial`"
         ));
     }
-    if has_word(code, "clap") && !CLAP_PENDING.contains(&rel) {
+    if has_word(code, "clap") {
         found.push(format!(
             "{rel}: expected no `clap` in a pure layer, found it"
         ));
@@ -306,9 +287,10 @@ fn the_files_read_include_the_decoders_and_leave_out_the_port_io() {
             assert!(files.contains(&root.join(must)), "{must} is not read");
         }
     }
-    for io in ["src/rig/link.rs", "src/rig/proxy.rs"] {
-        assert!(!files.contains(&root.join(io)), "{io} is read as pure");
-    }
+    assert!(
+        !files.iter().any(|f| f.starts_with(root.join("src/port"))),
+        "the port IO is read as pure"
+    );
 }
 
 #[test]
