@@ -371,3 +371,313 @@ fn a_deaf_rig_stops_the_move_and_it_finishes_when_heard_again() {
     assert_eq!(b.transmit.last(), Some(&false));
     assert_eq!(b.gotos(), vec![1000, 1000]);
 }
+
+// ---------------------------------------------------------------------
+// The decisions `tests/live_service.rs` used to check on tokio's wall
+// clock, here on virtual time with the same names. The bench plays the
+// controller, so "the motor stopped part way" is an `At` the test chooses;
+// what is checked is the session's answer to it, read from the bench's
+// own record of commands, inhibit levels and journal writes.
+// ---------------------------------------------------------------------
+
+impl Bench {
+    fn transmit(&mut self, on: bool) {
+        let bytes = self.dialect.encode_transmit(on, 0);
+        self.s.handle_rig_bytes(self.now, Direction::Rx, &bytes);
+        self.pump();
+    }
+
+    fn stops(&self) -> usize {
+        self.commands
+            .iter()
+            .filter(|c| **c == TunerCommand::Stop)
+            .count()
+    }
+
+    /// A linked bench at 0 told 7.1 MHz: once its one `GOTO 1000` has gone
+    /// and the move is journalled as unfinished.
+    fn move_under_way() -> Bench {
+        let mut b = Bench::linked(None, 0);
+        b.frequency(7_100_000);
+        // Debounce 30 ms, lead 5 ms.
+        b.wait(ms(40));
+        assert_eq!(b.gotos(), vec![1000]);
+        assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 1000 }));
+        b
+    }
+}
+
+#[test]
+fn follows_the_vfo_with_the_inhibit_around_the_move_and_journals_it() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(100));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    let out = b.s.outcome();
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(out.moves, 1);
+    assert_eq!(out.faults, 0);
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+    assert_eq!(b.levels, vec![true, false, true, false]);
+}
+
+#[test]
+fn no_move_while_transmitting_then_the_move_on_receive() {
+    let mut b = Bench::linked(None, 0);
+    b.transmit(true);
+    b.frequency(7_050_000);
+    b.wait(ms(300));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+    // Never asserted against a transmission in progress.
+    assert_eq!(b.levels, vec![true, false]);
+    b.transmit(false);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![500]);
+    assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 500 }));
+    b.tuner(TunerEvent::At { steps: 500 });
+    assert_eq!(b.journal, Some(Recorded::Known(500)));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    assert_eq!(b.s.outcome().position, Some(500));
+}
+
+#[test]
+fn transmitting_mid_move_stops_the_motor_and_receive_finishes_the_move() {
+    let mut b = Bench::move_under_way();
+    b.transmit(true);
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Stop));
+    // The motor stopped part way: that position is on record, and it
+    // stays still for longer than the rest of the move would take.
+    b.tuner(TunerEvent::At { steps: 400 });
+    assert_eq!(b.journal, Some(Recorded::Known(400)));
+    b.wait(ms(600));
+    assert_eq!(b.journal, Some(Recorded::Known(400)));
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.stops(), 1);
+    // Without `inhibit_while_detuned` the motor at rest ends the window.
+    assert_eq!(b.levels, vec![true, false, true, false]);
+    b.transmit(false);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![1000, 1000]);
+    // The rest of the move goes under the inhibit again.
+    assert_eq!(b.levels, vec![true, false, true, false, true]);
+    assert_eq!(
+        b.journal,
+        Some(Recorded::Unknown {
+            from: 400,
+            to: 1000
+        })
+    );
+    b.tuner(TunerEvent::At { steps: 1000 });
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    let out = b.s.outcome();
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(out.faults, 0);
+    assert_eq!(b.levels.last(), Some(&false));
+}
+
+#[test]
+fn a_restarted_controller_is_given_the_journal_position() {
+    // The journal says 2000 at rest; the controller restarted and counts 0.
+    let mut b = Bench::linked(Some(Recorded::Known(2000)), 0);
+    assert_eq!(b.commands, vec![TunerCommand::Zero(2000)]);
+    b.tuner(TunerEvent::At { steps: 2000 });
+    // Following from 2000: 7.25 MHz is 2500.
+    b.frequency(7_250_000);
+    b.wait(ms(100));
+    assert_eq!(b.gotos(), vec![2500]);
+    assert_eq!(
+        b.journal,
+        Some(Recorded::Unknown {
+            from: 2000,
+            to: 2500
+        })
+    );
+    b.tuner(TunerEvent::At { steps: 2500 });
+    assert_eq!(b.journal, Some(Recorded::Known(2500)));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    let out = b.s.outcome();
+    assert_eq!(out.position, Some(2500));
+    assert_eq!(out.moves, 1);
+}
+
+#[test]
+fn an_unfinished_move_in_the_journal_keeps_everything_still() {
+    let unfinished = Some(Recorded::Unknown { from: 100, to: 900 });
+    let mut b = Bench::linked(unfinished, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    let out = b.s.outcome();
+    assert_eq!(out.position, None);
+    assert_eq!(out.moves, 0);
+    assert_eq!(b.journal, unfinished);
+    // Asserted at start and held until shutdown releases it.
+    assert_eq!(b.levels, vec![true, false]);
+}
+
+#[test]
+fn the_controller_finishing_the_journalled_move_is_trusted() {
+    let mut b = Bench::linked(Some(Recorded::Unknown { from: 100, to: 900 }), 900);
+    assert_eq!(b.journal, Some(Recorded::Known(900)));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    assert_eq!(b.s.outcome().position, Some(900));
+}
+
+#[test]
+fn a_failing_inhibit_output_means_no_move() {
+    let mut b = Bench::linked(None, 0);
+    b.fail_inhibit = true;
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    b.shutdown();
+    b.wait(STOP_WAIT);
+    assert!(b.s.is_finished());
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+    let out = b.s.outcome();
+    assert_eq!(out.moves, 0);
+    assert!(out.faults >= 1);
+}
+
+#[test]
+fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_200_000);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![2000]);
+    assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 2000 }));
+    // A controller whose limits are narrower than ours refuses the leg.
+    b.tuner(TunerEvent::Error {
+        text: "ERR outside limits".into(),
+    });
+    assert!(b.s.outcome().faults >= 1);
+    // Nothing is asked before the retry is due, then WHERE.
+    b.run_until(b.now + RETRY_AFTER - ms(1));
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Goto(2000)));
+    b.wait(ms(1));
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
+    // The link stayed up: its count is trusted again without a restart.
+    b.tuner(TunerEvent::At { steps: 0 });
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    let out = b.s.outcome();
+    assert_eq!(out.position, Some(0));
+    assert!(out.faults >= 1);
+}
+
+#[test]
+fn relax_on_exit_backs_off_half_the_backlash_toward_the_approach_side() {
+    let mut b = Bench::new(None, 40, true);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(500));
+    b.shutdown();
+    b.wait(ms(5));
+    // The approach was upward: half the backlash (20) back down.
+    assert_eq!(b.gotos(), vec![1000, 980]);
+    b.tuner(TunerEvent::At { steps: 980 });
+    assert!(b.s.is_finished());
+    assert_eq!(b.s.outcome().position, Some(980));
+    assert_eq!(b.journal, Some(Recorded::Known(980)));
+    // The last level is the release, after the relaxing move.
+    assert_eq!(b.levels.last(), Some(&false));
+}
+
+#[test]
+fn relax_on_exit_only_after_an_approach_and_only_when_asked() {
+    // Nothing moved this run (the last run may have relaxed already).
+    let mut b = Bench::new(Some(Recorded::Known(1000)), 40, true);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 1000 });
+    // The controller's answer releases the inhibit asserted at start.
+    b.wait(ms(100));
+    assert_eq!(b.levels, vec![true, false]);
+    b.shutdown();
+    assert!(b.s.is_finished());
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.outcome().position, Some(1000));
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+    assert_eq!(b.levels, vec![true, false]);
+
+    // An approach, but relax-on-exit not asked for.
+    let mut b = Bench::new(None, 40, false);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(500));
+    b.shutdown();
+    b.wait(STOP_WAIT);
+    assert!(b.s.is_finished());
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.s.outcome().position, Some(1000));
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+}
+
+#[test]
+fn shutdown_stops_a_move_that_does_not_end_in_time() {
+    let mut b = Bench::move_under_way();
+    b.shutdown();
+    // The controller accepted the leg and never arrives.
+    b.wait(ms(50 + 10 + 500));
+    assert_eq!(
+        b.commands,
+        vec![TunerCommand::Goto(1000), TunerCommand::Stop]
+    );
+    b.tuner(TunerEvent::At { steps: 321 });
+    assert!(b.s.is_finished());
+    assert_eq!(b.s.outcome().position, Some(321));
+    assert_eq!(b.journal, Some(Recorded::Known(321)));
+    assert_eq!(b.levels.last(), Some(&false));
+    assert_eq!(
+        b.commands,
+        vec![TunerCommand::Goto(1000), TunerCommand::Stop]
+    );
+}
+
+#[test]
+fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
+    let mut b = Bench::move_under_way();
+    b.s.handle_rig_down(b.now);
+    b.pump();
+    // The controller link is told to treat the rig as transmitting.
+    assert_eq!(b.transmit.last(), Some(&true));
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Stop));
+    b.tuner(TunerEvent::At { steps: 400 });
+    assert_eq!(b.journal, Some(Recorded::Known(400)));
+    // Nothing moves while the port is down.
+    b.wait(ms(600));
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.journal, Some(Recorded::Known(400)));
+    b.s.handle_rig_up(b.now);
+    b.pump();
+    assert_eq!(b.transmit.last(), Some(&false));
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![1000, 1000]);
+    b.tuner(TunerEvent::At { steps: 1000 });
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+    b.shutdown();
+    assert!(b.s.is_finished());
+    let out = b.s.outcome();
+    assert_eq!(out.position, Some(1000));
+    assert_eq!(out.faults, 0);
+}
