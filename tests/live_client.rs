@@ -88,10 +88,13 @@ async fn works_with_the_simulator_on_a_pseudo_terminal() {
             .await
             .unwrap()
     });
-    for _ in 0..100 {
-        if link.exists() {
-            break;
-        }
+    let until = tokio::time::Instant::now() + Duration::from_secs(5);
+    while !link.exists() {
+        assert!(
+            tokio::time::Instant::now() < until,
+            "no controller link at {}",
+            link.display()
+        );
         tokio::time::sleep(Duration::from_millis(10)).await;
     }
     exercise(

@@ -292,7 +292,6 @@ async fn capture_until_interrupted_then_replay() {
         let report = dialect.encode_frequency(hz, 0);
         total += report.len();
         say(&mut rig, &report).await;
-        tokio::time::sleep(Duration::from_millis(100)).await;
     }
     capture.wait_log(&["capturing:", &format!(" {total} bytes from the rig")]);
     capture.proc.signal(libc::SIGINT);
