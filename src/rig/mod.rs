@@ -11,6 +11,7 @@ use std::fmt;
 pub mod bcd;
 mod binary;
 pub mod dialect;
+mod keys;
 mod swar;
 mod text;
 

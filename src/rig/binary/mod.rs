@@ -15,7 +15,9 @@
 use nom::bytes::take;
 use nom::{IResult, Parser};
 
-use super::dialect::BinarySpec;
+mod dialect;
+pub use dialect::{BinarySpec, Slot};
+
 use super::swar::{broadcast, equal_to_any, find_either};
 use super::Decode;
 use super::{

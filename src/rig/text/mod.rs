@@ -16,7 +16,9 @@
 use nom::number::complete::be_u16;
 use nom::IResult;
 
-use super::dialect::{TextSpec, Vfo};
+mod dialect;
+pub use dialect::{TextSpec, Vfo};
+
 use super::swar::{ascii_digits, find_stop_or_unprintable};
 use super::{plausible, Decode, DecodeStats, Direction, Outcome, RejectReason, RigEvent, Stream};
 
@@ -300,7 +302,7 @@ mod tests {
 
     #[test]
     fn vfo_b_counts_when_the_dialect_says_b_is_active() {
-        let text = include_str!("../../protocols/text-semicolon.toml")
+        let text = include_str!("../../../protocols/text-semicolon.toml")
             .replace("active_vfo = \"A\"", "active_vfo = \"B\"");
         let d = Dialect::parse(&text, std::path::Path::new("b.toml")).unwrap();
         assert_eq!(d.encode_frequency(7_074_000, 0), b"FB00007074000;".to_vec());

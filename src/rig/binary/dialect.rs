@@ -1,0 +1,236 @@
+//! The binary family's dialect: what its TOML keys say and the frames it
+//! implies (our poll queries, and what a rig would send, for tests and
+//! scenarios).
+
+use super::super::bcd;
+use super::super::keys::{DialectError, Reader};
+
+/// Parameters of a binary-family dialect.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct BinarySpec {
+    /// Preamble byte; a frame starts with two of them.
+    pub preamble: u8,
+    /// Terminator byte ending every frame.
+    pub terminator: u8,
+    /// Longest frame believed, preamble and terminator included.
+    pub max_frame: usize,
+    /// Our own (and the usual controller's) bus address.
+    pub controller: u8,
+    /// Address unsolicited broadcasts are sent to.
+    pub broadcast: u8,
+    /// Command of an unsolicited frequency broadcast.
+    pub frequency_broadcast: u8,
+    /// Command of a frequency read (and of its answer).
+    pub frequency_read: u8,
+    /// Command for the transmit state.
+    pub transmit: u8,
+    /// Sub-command of `transmit` that reads/reports transmit on/off.
+    pub transmit_sub: u8,
+    /// Bus collision marker.
+    pub collision: u8,
+    /// Acknowledgement "OK".
+    pub ack_ok: u8,
+    /// Acknowledgement "not good".
+    pub ack_ng: u8,
+    /// Width of the frequency field in bytes (two BCD digits per byte).
+    pub frequency_bytes: usize,
+    /// Poll query for the frequency.
+    pub poll_frequency: Vec<Slot>,
+    /// Poll query for the transmit state.
+    pub poll_transmit: Vec<Slot>,
+}
+
+/// One byte of a binary poll query: literal, or filled in when sent.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Slot {
+    Byte(u8),
+    /// The rig's address.
+    Rig,
+    /// Our controller address.
+    Controller,
+}
+
+impl BinarySpec {
+    /// An unsolicited broadcast from `rig_address` announcing `hz`. A
+    /// frequency wider than the field keeps only its low digits, as a rig
+    /// with that field would.
+    pub fn encode_frequency(&self, hz: u64, rig_address: u8) -> Vec<u8> {
+        let mut f = vec![
+            self.preamble,
+            self.preamble,
+            self.broadcast,
+            rig_address,
+            self.frequency_broadcast,
+        ];
+        let at = f.len();
+        f.resize(at + self.frequency_bytes, 0);
+        if let Some(field) = f.get_mut(at..) {
+            bcd::encode_le_into(hz, field);
+        }
+        f.push(self.terminator);
+        f
+    }
+
+    /// The rig's answer to our controller address: transmit on/off.
+    pub fn encode_transmit(&self, on: bool, rig_address: u8) -> Vec<u8> {
+        vec![
+            self.preamble,
+            self.preamble,
+            self.controller,
+            rig_address,
+            self.transmit,
+            self.transmit_sub,
+            u8::from(on),
+            self.terminator,
+        ]
+    }
+
+    /// A poll query with the addresses filled in.
+    pub fn query(&self, slots: &[Slot], rig_address: u8) -> Vec<u8> {
+        fill(slots, rig_address, self.controller)
+    }
+}
+
+fn fill(slots: &[Slot], rig: u8, controller: u8) -> Vec<u8> {
+    slots
+        .iter()
+        .map(|s| match s {
+            Slot::Byte(b) => *b,
+            Slot::Rig => rig,
+            Slot::Controller => controller,
+        })
+        .collect()
+}
+
+impl BinarySpec {
+    /// Reads the family's tables of a dialect file (the top-level keys
+    /// already checked by the loader).
+    pub(crate) fn from_toml(r: &Reader, t: &toml::Table) -> Result<BinarySpec, DialectError> {
+        r.only(
+            t,
+            "",
+            &[
+                "name",
+                "family",
+                "frame",
+                "address",
+                "command",
+                "frequency",
+                "poll",
+            ],
+        )?;
+        let frame = r.table(t, "", "frame")?;
+        r.only(frame, "frame", &["preamble", "terminator", "max_length"])?;
+        let address = r.table(t, "", "address")?;
+        r.only(address, "address", &["controller", "broadcast"])?;
+        let command = r.table(t, "", "command")?;
+        r.only(
+            command,
+            "command",
+            &[
+                "frequency_broadcast",
+                "frequency_read",
+                "transmit",
+                "transmit_sub",
+                "collision",
+                "ack_ok",
+                "ack_ng",
+            ],
+        )?;
+        let frequency = r.table(t, "", "frequency")?;
+        r.only(frequency, "frequency", &["bytes"])?;
+        let poll = r.table(t, "", "poll")?;
+        r.only(poll, "poll", &["frequency", "transmit"])?;
+
+        let preamble = r.byte(frame, "frame", "preamble")?;
+        let terminator = r.byte(frame, "frame", "terminator")?;
+        if terminator == preamble {
+            return Err(r.err(
+                "frame.terminator",
+                "a byte different from the preamble",
+                format!("0x{terminator:02X}"),
+            ));
+        }
+        let frequency_bytes = r.int(frequency, "frequency", "bytes", 4, 9)? as usize;
+        // Smallest useful frame: two preamble bytes, to, from, command,
+        // frequency field, terminator.
+        let min_frame = 2 + 3 + frequency_bytes + 1;
+        let max_frame = r.int(frame, "frame", "max_length", min_frame as i64, 4096)? as usize;
+        let controller = r.byte(address, "address", "controller")?;
+        let broadcast = r.byte(address, "address", "broadcast")?;
+        let transmit = r.byte(command, "command", "transmit")?;
+        let transmit_sub = r.byte(command, "command", "transmit_sub")?;
+        let frequency_read = r.byte(command, "command", "frequency_read")?;
+        let spec = BinarySpec {
+            preamble,
+            terminator,
+            max_frame,
+            controller,
+            broadcast,
+            frequency_broadcast: r.byte(command, "command", "frequency_broadcast")?,
+            frequency_read,
+            transmit,
+            transmit_sub,
+            collision: r.byte(command, "command", "collision")?,
+            ack_ok: r.byte(command, "command", "ack_ok")?,
+            ack_ng: r.byte(command, "command", "ack_ng")?,
+            frequency_bytes,
+            poll_frequency: binary_query(
+                r,
+                poll,
+                "poll.frequency",
+                preamble,
+                terminator,
+                max_frame,
+            )?,
+            poll_transmit: binary_query(r, poll, "poll.transmit", preamble, terminator, max_frame)?,
+        };
+        Ok(spec)
+    }
+}
+
+/// A binary query: hex bytes and the words `rig` and `controller`,
+/// separated by spaces. It must be a read: two preamble bytes, `rig`,
+/// `controller`, a command, at most a sub-command, the terminator. A
+/// query carrying data would be a *set* command, which we never send.
+fn binary_query(
+    r: &Reader,
+    poll: &toml::Table,
+    key: &str,
+    pre: u8,
+    term: u8,
+    max: usize,
+) -> Result<Vec<Slot>, DialectError> {
+    let short = key.trim_start_matches("poll.");
+    let s = r.string(poll, "poll", short)?;
+    let mut slots = Vec::new();
+    for word in s.split_whitespace() {
+        let slot = match word {
+            "rig" => Slot::Rig,
+            "controller" => Slot::Controller,
+            w => match u8::from_str_radix(w.trim_start_matches("0x"), 16) {
+                Ok(b) if w.len() <= 4 => Slot::Byte(b),
+                _ => return Err(r.err(
+                    key,
+                    "hex bytes (e.g. FE) and the words `rig` and `controller`, separated by spaces",
+                    format!("{w:?} in {s:?}"),
+                )),
+            },
+        };
+        slots.push(slot);
+    }
+    let shape_ok = matches!(
+        slots.as_slice(),
+        [Slot::Byte(a), Slot::Byte(b), Slot::Rig, Slot::Controller, Slot::Byte(_), rest @ ..]
+            if *a == pre && *b == pre
+                && matches!(rest, [Slot::Byte(t)] | [Slot::Byte(_), Slot::Byte(t)] if *t == term)
+    );
+    if !shape_ok || slots.len() > max {
+        return Err(r.err(
+            key,
+            &format!("a read query: {pre:02X} {pre:02X} rig controller <command> [<sub-command>] {term:02X}"),
+            format!("{s:?}"),
+        ));
+    }
+    Ok(slots)
+}

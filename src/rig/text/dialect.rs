@@ -1,0 +1,224 @@
+//! The text family's dialect: what its TOML keys say and the messages it
+//! implies (what a rig would send, for tests and scenarios).
+
+use super::super::keys::{DialectError, Reader};
+
+/// Which VFO's reports count as the operating frequency.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Vfo {
+    A,
+    B,
+}
+
+/// Parameters of a text-family dialect.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TextSpec {
+    /// The byte ending every message.
+    pub terminator: u8,
+    /// Longest message believed, command letters included, terminator not.
+    pub max_message: usize,
+    /// Digits of a frequency field (Hz).
+    pub digits: usize,
+    pub vfo_a: [u8; 2],
+    pub vfo_b: [u8; 2],
+    pub active_vfo: Vfo,
+    /// The status answer carrying frequency and transmit flag.
+    pub status: [u8; 2],
+    /// Payload length of a status answer.
+    pub status_length: usize,
+    /// Offset of the frequency field in the status payload.
+    pub status_frequency_offset: usize,
+    /// Offset of the one-character transmit flag in the status payload.
+    pub status_transmit_offset: usize,
+    /// Message meaning "transmitting" (optional one-digit payload).
+    pub transmit_on: [u8; 2],
+    /// Message meaning "receiving" (optional one-digit payload).
+    pub transmit_off: [u8; 2],
+    pub poll_frequency: Vec<u8>,
+    pub poll_transmit: Vec<u8>,
+}
+
+impl TextSpec {
+    /// The active VFO's message announcing `hz`. A frequency wider than the
+    /// field keeps only its low digits, as a rig with that field would.
+    pub fn encode_frequency(&self, hz: u64) -> Vec<u8> {
+        let vfo = match self.active_vfo {
+            Vfo::A => self.vfo_a,
+            Vfo::B => self.vfo_b,
+        };
+        let modulus = 10u64.saturating_pow(self.digits as u32);
+        let mut f = vfo.to_vec();
+        f.extend_from_slice(format!("{:0width$}", hz % modulus, width = self.digits).as_bytes());
+        f.push(self.terminator);
+        f
+    }
+
+    /// The transmit or receive message.
+    pub fn encode_transmit(&self, on: bool) -> Vec<u8> {
+        let mut f = if on {
+            self.transmit_on
+        } else {
+            self.transmit_off
+        }
+        .to_vec();
+        f.push(self.terminator);
+        f
+    }
+}
+
+impl TextSpec {
+    /// Reads the family's tables of a dialect file (the top-level keys
+    /// already checked by the loader).
+    pub(crate) fn from_toml(r: &Reader, t: &toml::Table) -> Result<TextSpec, DialectError> {
+        r.only(
+            t,
+            "",
+            &[
+                "name",
+                "family",
+                "message",
+                "frequency",
+                "status",
+                "transmit",
+                "poll",
+            ],
+        )?;
+        let message = r.table(t, "", "message")?;
+        r.only(message, "message", &["terminator", "max_length"])?;
+        let frequency = r.table(t, "", "frequency")?;
+        r.only(
+            frequency,
+            "frequency",
+            &["digits", "vfo_a", "vfo_b", "active_vfo"],
+        )?;
+        let status = r.table(t, "", "status")?;
+        r.only(
+            status,
+            "status",
+            &["command", "length", "frequency_offset", "transmit_offset"],
+        )?;
+        let transmit = r.table(t, "", "transmit")?;
+        r.only(transmit, "transmit", &["on", "off"])?;
+        let poll = r.table(t, "", "poll")?;
+        r.only(poll, "poll", &["frequency", "transmit"])?;
+
+        let term_s = r.string(message, "message", "terminator")?;
+        let terminator = match term_s.as_bytes() {
+            [b] if b.is_ascii_punctuation() => *b,
+            _ => {
+                return Err(r.err(
+                    "message.terminator",
+                    "one ASCII punctuation character",
+                    format!("{term_s:?}"),
+                ))
+            }
+        };
+        let digits = r.int(frequency, "frequency", "digits", 6, 18)? as usize;
+        let vfo_a = r.code(frequency, "frequency", "vfo_a")?;
+        let vfo_b = r.code(frequency, "frequency", "vfo_b")?;
+        let active_vfo = match r.string(frequency, "frequency", "active_vfo")?.as_str() {
+            "A" | "a" => Vfo::A,
+            "B" | "b" => Vfo::B,
+            other => {
+                return Err(r.err(
+                    "frequency.active_vfo",
+                    "\"A\" or \"B\"",
+                    format!("{other:?}"),
+                ))
+            }
+        };
+        let status_cmd = r.code(status, "status", "command")?;
+        let status_length = r.int(status, "status", "length", 1, 4094)? as usize;
+        let status_frequency_offset =
+            r.int(status, "status", "frequency_offset", 0, 4094)? as usize;
+        if status_frequency_offset + digits > status_length {
+            return Err(r.err(
+                "status.frequency_offset",
+                &format!(
+                    "an offset leaving room for {digits} digits in a payload of {status_length}"
+                ),
+                status_frequency_offset.to_string(),
+            ));
+        }
+        let status_transmit_offset = r.int(status, "status", "transmit_offset", 0, 4094)? as usize;
+        if status_transmit_offset >= status_length
+            || (status_frequency_offset..status_frequency_offset + digits)
+                .contains(&status_transmit_offset)
+        {
+            return Err(r.err(
+                "status.transmit_offset",
+                &format!("an offset below {status_length}, outside the frequency field"),
+                status_transmit_offset.to_string(),
+            ));
+        }
+        let transmit_on = r.code(transmit, "transmit", "on")?;
+        let transmit_off = r.code(transmit, "transmit", "off")?;
+        let codes = [
+            ("frequency.vfo_a", vfo_a),
+            ("frequency.vfo_b", vfo_b),
+            ("status.command", status_cmd),
+            ("transmit.on", transmit_on),
+            ("transmit.off", transmit_off),
+        ];
+        for (i, (key, c)) in codes.iter().enumerate() {
+            if let Some((other, _)) = codes.iter().take(i).find(|(_, o)| o == c) {
+                return Err(r.err(
+                    key,
+                    &format!("a command different from `{other}`"),
+                    String::from_utf8_lossy(c).into_owned(),
+                ));
+            }
+        }
+        let longest = 2 + status_length.max(digits);
+        let max_message = r.int(message, "message", "max_length", longest as i64, 4096)? as usize;
+        let poll_frequency = text_query(r, poll, "poll.frequency", terminator, transmit_on)?;
+        let poll_transmit = text_query(r, poll, "poll.transmit", terminator, transmit_on)?;
+        Ok(TextSpec {
+            terminator,
+            max_message,
+            digits,
+            vfo_a,
+            vfo_b,
+            active_vfo,
+            status: status_cmd,
+            status_length,
+            status_frequency_offset,
+            status_transmit_offset,
+            transmit_on,
+            transmit_off,
+            poll_frequency,
+            poll_transmit,
+        })
+    }
+}
+
+/// A text query: printable ASCII ending in the terminator; never the
+/// transmit command, which would key the rig.
+fn text_query(
+    r: &Reader,
+    poll: &toml::Table,
+    key: &str,
+    term: u8,
+    transmit_on: [u8; 2],
+) -> Result<Vec<u8>, DialectError> {
+    let short = key.trim_start_matches("poll.");
+    let s = r.string(poll, "poll", short)?;
+    let b = s.as_bytes();
+    let printable = b.iter().all(|c| (0x20..0x7F).contains(c));
+    let one_message = b.iter().position(|&c| c == term) == Some(b.len().saturating_sub(1));
+    if !printable || !one_message || b.len() < 3 {
+        return Err(r.err(
+            key,
+            &format!("one printable ASCII message ending in {:?}", term as char),
+            format!("{s:?}"),
+        ));
+    }
+    if b.starts_with(&transmit_on) {
+        return Err(r.err(
+            key,
+            "a query that does not start with the transmit command (it would key the rig)",
+            format!("{s:?}"),
+        ));
+    }
+    Ok(b.to_vec())
+}
