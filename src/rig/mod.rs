@@ -15,9 +15,9 @@ mod keys;
 mod swar;
 mod text;
 
-pub use binary::BinaryDecoder;
+pub use binary::{Binary, BinaryDecoder};
 pub use dialect::{Dialect, DialectError, Family};
-pub use text::TextDecoder;
+pub use text::{Text, TextDecoder};
 
 /// Lowest frequency a report may carry and still be believed.
 pub const MIN_PLAUSIBLE_HZ: u64 = 100_000;
@@ -121,6 +121,69 @@ pub trait Decode: Send {
     /// Counters since the decoder was made.
     fn stats(&self) -> DecodeStats {
         DecodeStats::default()
+    }
+}
+
+/// One family's framing: how the bytes of one direction become events. The
+/// stream and counters are the [`FamilyDecoder`]'s; a family keeps only its
+/// dialect.
+pub(crate) trait Framing: Send {
+    /// Decodes `chunk` travelling in `dir` on `stream`, pushing onto `out`.
+    fn feed_stream(
+        &self,
+        dir: Direction,
+        stream: &mut Stream,
+        chunk: &[u8],
+        out: &mut Vec<RigEvent>,
+        stats: &mut DecodeStats,
+    );
+}
+
+/// A decoder: one family's framing over one bounded stream per
+/// direction, with the counters every family keeps. The end of input, the
+/// bytes held and the counters work alike for every family, so they are
+/// written once, here.
+#[derive(Debug)]
+pub struct FamilyDecoder<F> {
+    framing: F,
+    rx: Stream,
+    tx: Stream,
+    stats: DecodeStats,
+}
+
+impl<F> FamilyDecoder<F> {
+    /// `cap`: the capacity of each direction's buffer, allocated once.
+    pub(crate) fn with_framing(framing: F, cap: usize) -> FamilyDecoder<F> {
+        FamilyDecoder {
+            framing,
+            rx: Stream::new(cap),
+            tx: Stream::new(cap),
+            stats: DecodeStats::default(),
+        }
+    }
+}
+
+impl<F: Framing> Decode for FamilyDecoder<F> {
+    fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>) {
+        let stream = match dir {
+            Direction::Rx => &mut self.rx,
+            Direction::Tx => &mut self.tx,
+        };
+        self.framing
+            .feed_stream(dir, stream, chunk, out, &mut self.stats);
+    }
+
+    fn finish(&mut self, out: &mut Vec<RigEvent>) {
+        self.rx.finish(out, &mut self.stats);
+        self.tx.finish(out, &mut self.stats);
+    }
+
+    fn buffered(&self) -> usize {
+        self.rx.buf.len() + self.tx.buf.len()
+    }
+
+    fn stats(&self) -> DecodeStats {
+        self.stats
     }
 }
 

@@ -19,33 +19,27 @@ mod dialect;
 pub use dialect::{BinarySpec, Slot};
 
 use super::swar::{broadcast, equal_to_any, find_either};
-use super::Decode;
 use super::{
     bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent, Stream,
 };
+use super::{FamilyDecoder, Framing};
 
-/// Decoder for the binary framed family.
+/// The binary framed family's framing: its dialect and the rig it listens to.
 #[derive(Debug)]
-pub struct BinaryDecoder {
+pub struct Binary {
     spec: BinarySpec,
     rig_address: Option<u8>,
-    rx: Stream,
-    tx: Stream,
-    stats: DecodeStats,
 }
+
+/// Decoder for the binary framed family.
+pub type BinaryDecoder = FamilyDecoder<Binary>;
 
 impl BinaryDecoder {
     /// `rig_address`: only reports from that address count; None: any address
     /// except our controller's.
     pub fn new(spec: BinarySpec, rig_address: Option<u8>) -> BinaryDecoder {
         let cap = spec.max_frame + 1 + TOP_UP;
-        BinaryDecoder {
-            spec,
-            rig_address,
-            rx: Stream::new(cap),
-            tx: Stream::new(cap),
-            stats: DecodeStats::default(),
-        }
+        FamilyDecoder::with_framing(Binary { spec, rig_address }, cap)
     }
 }
 
@@ -56,13 +50,16 @@ impl BinaryDecoder {
 /// at most a partial frame.
 const TOP_UP: usize = 4096;
 
-impl Decode for BinaryDecoder {
-    fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>) {
+impl Framing for Binary {
+    fn feed_stream(
+        &self,
+        dir: Direction,
+        stream: &mut Stream,
+        chunk: &[u8],
+        out: &mut Vec<RigEvent>,
+        stats: &mut DecodeStats,
+    ) {
         let cap = self.spec.max_frame + 1;
-        let stream = match dir {
-            Direction::Rx => &mut self.rx,
-            Direction::Tx => &mut self.tx,
-        };
         let mut rest = chunk;
         loop {
             if stream.buf.is_empty() {
@@ -81,7 +78,7 @@ impl Decode for BinaryDecoder {
                     &mut stream.skipping,
                     &mut stream.run,
                     out,
-                    &mut self.stats,
+                    stats,
                 );
                 let tail = rest.get(used..).unwrap_or_default();
                 if tail.len() < cap {
@@ -108,17 +105,14 @@ impl Decode for BinaryDecoder {
                 &mut stream.skipping,
                 &mut stream.run,
                 out,
-                &mut self.stats,
+                stats,
             );
             if used == 0 && stream.buf.len() >= cap {
                 // Cannot happen (a full buffer always holds an overlong
                 // frame); kept so that a mistake here can never stall.
-                stream.run.add(
-                    RejectReason::Garbage,
-                    stream.buf.len(),
-                    out,
-                    &mut self.stats,
-                );
+                stream
+                    .run
+                    .add(RejectReason::Garbage, stream.buf.len(), out, stats);
                 used = stream.buf.len();
             }
             stream.buf.drain(..used.min(stream.buf.len()));
@@ -126,19 +120,6 @@ impl Decode for BinaryDecoder {
                 break;
             }
         }
-    }
-
-    fn finish(&mut self, out: &mut Vec<RigEvent>) {
-        self.rx.finish(out, &mut self.stats);
-        self.tx.finish(out, &mut self.stats);
-    }
-
-    fn buffered(&self) -> usize {
-        self.rx.buf.len() + self.tx.buf.len()
-    }
-
-    fn stats(&self) -> DecodeStats {
-        self.stats
     }
 }
 

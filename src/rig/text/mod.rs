@@ -20,37 +20,37 @@ mod dialect;
 pub use dialect::{TextSpec, Vfo};
 
 use super::swar::{ascii_digits, find_stop_or_unprintable};
-use super::{plausible, Decode, DecodeStats, Direction, Outcome, RejectReason, RigEvent, Stream};
+use super::{
+    plausible, DecodeStats, Direction, FamilyDecoder, Framing, Outcome, RejectReason, RigEvent,
+    Stream,
+};
+
+/// The text family's framing: its dialect.
+#[derive(Debug)]
+pub struct Text {
+    spec: TextSpec,
+}
 
 /// Decoder for the text family.
-#[derive(Debug)]
-pub struct TextDecoder {
-    spec: TextSpec,
-    rx: Stream,
-    tx: Stream,
-    stats: DecodeStats,
-}
+pub type TextDecoder = FamilyDecoder<Text>;
 
 impl TextDecoder {
     pub fn new(spec: TextSpec) -> TextDecoder {
         let cap = spec.max_message;
-        TextDecoder {
-            spec,
-            rx: Stream::new(cap),
-            tx: Stream::new(cap),
-            stats: DecodeStats::default(),
-        }
+        FamilyDecoder::with_framing(Text { spec }, cap)
     }
 }
 
-impl Decode for TextDecoder {
-    fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>) {
+impl Framing for Text {
+    fn feed_stream(
+        &self,
+        dir: Direction,
+        s: &mut Stream,
+        chunk: &[u8],
+        out: &mut Vec<RigEvent>,
+        stats: &mut DecodeStats,
+    ) {
         let spec = &self.spec;
-        let stats = &mut self.stats;
-        let s = match dir {
-            Direction::Rx => &mut self.rx,
-            Direction::Tx => &mut self.tx,
-        };
         let term = spec.terminator;
         let mut rest = chunk;
         while !rest.is_empty() {
@@ -112,19 +112,6 @@ impl Decode for TextDecoder {
                 s.buf.clear();
             }
         }
-    }
-
-    fn finish(&mut self, out: &mut Vec<RigEvent>) {
-        self.rx.finish(out, &mut self.stats);
-        self.tx.finish(out, &mut self.stats);
-    }
-
-    fn buffered(&self) -> usize {
-        self.rx.buf.len() + self.tx.buf.len()
-    }
-
-    fn stats(&self) -> DecodeStats {
-        self.stats
     }
 }
 
