@@ -80,7 +80,11 @@ fn text_semicolon_noise() {
             tx(false),
             r(Overlong, 101),
             f(14_078_000),
-            r(BadLength, 28),
+            // Was one BadLength of 28 before the decoder resynchronised
+            // inside a run (issue 10, item 8): the second message is whole
+            // and is the rig's latest word.
+            r(Garbage, 14),
+            f(14_080_000),
             r(OutOfRange, 14),
             r(Garbage, 6),
         ]

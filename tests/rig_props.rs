@@ -315,4 +315,41 @@ proptest! {
         let out = run(d.decoder(filter).as_mut(), Direction::Rx, &[&stream]);
         prop_assert_eq!(out, expected);
     }
+
+    /// Whatever came before (line noise, a frame or message cut short, a
+    /// long run with no terminator), a whole report after it is decoded:
+    /// binary by the preamble, text by the search for where a report of a
+    /// known command starts (issue 10 item 8, issue 11). Text noise has no
+    /// capital letters, so it cannot itself spell a command.
+    #[test]
+    fn a_report_after_anything_is_decoded(
+        di in dialect_index(),
+        prefix in prop::collection::vec(any::<u8>(), 0..3200),
+        cut in any::<usize>(),
+        hz in MIN_PLAUSIBLE_HZ..=MAX_PLAUSIBLE_HZ,
+        transmit in prop::option::of(any::<bool>()),
+        cuts in prop::collection::vec(any::<usize>(), 0..20),
+    ) {
+        let d = dialect(di);
+        let hz = MIN_PLAUSIBLE_HZ + hz % (max_hz(&d) - MIN_PLAUSIBLE_HZ + 1);
+        let (frame, want) = match transmit {
+            Some(on) => (d.encode_transmit(on, RIG), RigEvent::Transmit { on }),
+            None => (d.encode_frequency(hz, RIG), RigEvent::Frequency { hz }),
+        };
+        let mut stream: Vec<u8> = match d.family() {
+            Family::Binary => prefix,
+            Family::Text => prefix.iter().map(|b| if b.is_ascii_uppercase() { b.to_ascii_lowercase() } else { *b }).collect(),
+        };
+        // Half the time, the start of a frame cut short just before it.
+        if cut % 2 == 0 {
+            let other = d.encode_frequency(7_074_000, RIG);
+            stream.extend_from_slice(&other[..(cut / 2) % other.len()]);
+        }
+        stream.extend_from_slice(&frame);
+        let out = run(d.decoder(None).as_mut(), Direction::Rx, &split(&stream, &cuts));
+        let got = reports(&out);
+        prop_assert_eq!(got.last(), Some(&want), "{:?}", out);
+        let rejected: usize = out.iter().map(|e| match e { RigEvent::Reject { bytes, .. } => *bytes, _ => 0 }).sum();
+        prop_assert!(rejected <= stream.len() - frame.len());
+    }
 }

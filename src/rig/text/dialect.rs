@@ -53,6 +53,18 @@ impl TextSpec {
         f
     }
 
+    /// Every command whose messages the decoder understands.
+    pub(crate) fn known_commands(&self) -> impl Iterator<Item = &[u8; 2]> {
+        [
+            &self.vfo_a,
+            &self.vfo_b,
+            &self.status,
+            &self.transmit_on,
+            &self.transmit_off,
+        ]
+        .into_iter()
+    }
+
     /// The transmit or receive message.
     pub fn encode_transmit(&self, on: bool) -> Vec<u8> {
         let mut f = if on {

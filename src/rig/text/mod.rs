@@ -4,10 +4,13 @@
 //! are not printable ASCII (line noise: 0x00, 0xFF, anything with the high bit
 //! set, control characters) cannot belong to a message: they and the
 //! printable bytes before them since the last terminator are one run of
-//! garbage, and a new message may start right after them. So noise glued to
-//! the front of a message costs nothing; printable noise glued to it spoils
-//! it (it cannot be told from a corrupted message). A message longer than the
+//! garbage, and a new message may start right after them. A printable run
+//! that does not parse (or reads as a command we do not know) is searched for
+//! the last place where a report of a known command starts and runs to its
+//! end: printable noise, or a message cut short, glued to the front of a
+//! report costs the noise, not the report. A message longer than the
 //! dialect allows is rejected as overlong and skipped to the next terminator,
+//! keeping only its last bytes (the longest message's worth) for that search,
 //! without growing the buffer.
 //!
 //! Complete messages are parsed with nom: the two-letter command, then the
@@ -20,6 +23,7 @@ mod dialect;
 pub use dialect::{TextSpec, Vfo};
 
 use super::swar::{ascii_digits, find_stop_or_unprintable};
+use super::RejectRun;
 use super::{
     plausible, DecodeStats, Direction, FamilyDecoder, Framing, Outcome, RejectReason, RigEvent,
     Stream,
@@ -55,18 +59,25 @@ impl Framing for Text {
         let mut rest = chunk;
         while !rest.is_empty() {
             if s.skipping {
-                // Everything up to and including the terminator is overlong.
-                match rest.iter().position(|&b| b == term) {
-                    Some(i) => {
-                        s.run.add(RejectReason::Overlong, i + 1, out, stats);
-                        s.skipping = false;
-                        rest = rest.get(i + 1..).unwrap_or_default();
+                // Everything up to and including the terminator is overlong,
+                // except a valid message at its end: the last bytes (as many
+                // as the longest message) are held to be searched for one.
+                let end = rest.iter().position(|&b| b == term);
+                let seg = rest.get(..end.unwrap_or(rest.len())).unwrap_or_default();
+                hold_tail(&mut s.buf, seg, spec.max_message, &mut s.run, out, stats);
+                let Some(i) = end else { break };
+                rest = rest.get(i + 1..).unwrap_or_default();
+                s.skipping = false;
+                match resync(spec, dir, &s.buf) {
+                    Some((at, outcome)) => {
+                        s.run.add(RejectReason::Overlong, at, out, stats);
+                        outcome.emit(s.buf.len() - at + 1, &mut s.run, out, stats);
                     }
-                    None => {
-                        s.run.add(RejectReason::Overlong, rest.len(), out, stats);
-                        rest = &[];
-                    }
+                    None => s
+                        .run
+                        .add(RejectReason::Overlong, s.buf.len() + 1, out, stats),
                 }
+                s.buf.clear();
                 continue;
             }
             // The printable run up to the next terminator or noise byte is
@@ -78,9 +89,9 @@ impl Framing for Text {
             if span.len() > room {
                 // A printable byte beyond the longest message: what is held,
                 // the bytes that fill it, and that byte are overlong.
-                s.run
-                    .add(RejectReason::Overlong, s.buf.len() + room + 1, out, stats);
-                s.buf.clear();
+                // The last of them are held, in case a message starts there.
+                let seg = span.get(..room + 1).unwrap_or_default();
+                hold_tail(&mut s.buf, seg, spec.max_message, &mut s.run, out, stats);
                 s.skipping = true;
                 rest = rest.get(room + 1..).unwrap_or_default();
                 continue;
@@ -100,8 +111,28 @@ impl Framing for Text {
                 };
                 let outcome = interpret(spec, dir, msg);
                 let len = msg.len() + 1;
+                // A run that did not parse, or that reads as a command we
+                // do not know (a message cut short, glued to the next one).
+                let unparsed = match outcome {
+                    Outcome::Reject(_) => true,
+                    Outcome::Ignored => {
+                        command(msg).is_some_and(|(_, c)| !spec.known_commands().any(|k| *k == c))
+                    }
+                    _ => false,
+                };
+                match outcome {
+                    _ if unparsed => match resync(spec, dir, msg) {
+                        // Noise glued to the front of a message costs the
+                        // noise, not the message.
+                        Some((at, found)) => {
+                            s.run.add(RejectReason::Garbage, at, out, stats);
+                            found.emit(len - at, &mut s.run, out, stats);
+                        }
+                        None => outcome.emit(len, &mut s.run, out, stats),
+                    },
+                    _ => outcome.emit(len, &mut s.run, out, stats),
+                }
                 s.buf.clear();
-                outcome.emit(len, &mut s.run, out, stats);
             } else {
                 s.run.add(
                     RejectReason::Garbage,
@@ -113,6 +144,50 @@ impl Framing for Text {
             }
         }
     }
+}
+
+/// Appends `seg` to the bytes held while skipping an overlong run, keeping
+/// only the last `max` of them; the older ones are reported as overlong.
+fn hold_tail(
+    buf: &mut Vec<u8>,
+    seg: &[u8],
+    max: usize,
+    run: &mut RejectRun,
+    out: &mut Vec<RigEvent>,
+    stats: &mut DecodeStats,
+) {
+    let total = buf.len() + seg.len();
+    let drop = total.saturating_sub(max);
+    if drop >= buf.len() {
+        run.add(RejectReason::Overlong, drop, out, stats);
+        buf.clear();
+        buf.extend_from_slice(seg.get(drop - (total - seg.len())..).unwrap_or_default());
+    } else {
+        run.add(RejectReason::Overlong, drop, out, stats);
+        buf.drain(..drop);
+        buf.extend_from_slice(seg);
+    }
+}
+
+/// In a run that did not parse (terminator stripped), the last position
+/// after its first byte where a report of a known command starts and runs
+/// to the end, and what that report is. Only printable bytes can be part of
+/// it, and only a report counts (not a request, nor anything ignored).
+fn resync(spec: &TextSpec, dir: Direction, run: &[u8]) -> Option<(usize, Outcome)> {
+    let printable_from = run
+        .iter()
+        .rposition(|b| !(0x20..0x7F).contains(b))
+        .map_or(1, |i| (i + 1).max(1));
+    (printable_from..run.len().saturating_sub(1))
+        .rev()
+        .filter(|&at| {
+            run.get(at..at + 2)
+                .is_some_and(|c| spec.known_commands().any(|k| k == c))
+        })
+        .find_map(|at| {
+            let outcome = interpret(spec, dir, run.get(at..)?);
+            matches!(outcome, Outcome::One(_) | Outcome::Two(..)).then_some((at, outcome))
+        })
 }
 
 /// The two-letter command, and the payload after it. The parser's error
@@ -370,6 +445,72 @@ mod tests {
                 freq(14_074_000)
             ]
         );
+    }
+
+    #[test]
+    fn printable_noise_glued_to_a_report_costs_only_the_noise() {
+        // Regression (issue 10): five bytes of noise without a terminator
+        // straight before a report made the whole run one Unknown.
+        assert_eq!(
+            decode(b"k7#q2FA00021074000;"),
+            vec![reject(RejectReason::Garbage, 5), freq(21_074_000)]
+        );
+        // Glued to a transmit report and to a status answer.
+        assert_eq!(
+            decode(b"zz9TX;"),
+            vec![
+                reject(RejectReason::Garbage, 3),
+                RigEvent::Transmit { on: true }
+            ]
+        );
+        let mut glued = b"0x".to_vec();
+        glued.extend_from_slice(&status(7_074_000, false));
+        assert_eq!(
+            decode(&glued),
+            vec![
+                reject(RejectReason::Garbage, 2),
+                freq(7_074_000),
+                RigEvent::Transmit { on: false }
+            ]
+        );
+    }
+
+    #[test]
+    fn a_report_after_a_truncated_message_is_decoded() {
+        // Regression (issue 11): the first message lost its end.
+        assert_eq!(
+            decode(b"FA000140FA00014074000;"),
+            vec![reject(RejectReason::Garbage, 8), freq(14_074_000)]
+        );
+        // A request and unknown text are not reports: nothing to resync to.
+        assert_eq!(decode(b"xyFA;"), vec![reject(RejectReason::Unknown, 5)]);
+    }
+
+    #[test]
+    fn a_report_after_a_long_run_without_terminator_is_decoded() {
+        // Regression (issue 11): 3000 printable bytes, no terminator, then a
+        // report glued on; in pieces of every size the report survives.
+        let mut bytes = vec![b'5'; 3000];
+        bytes.extend_from_slice(b"FA00014074000;");
+        let want = vec![reject(RejectReason::Overlong, 3000), freq(14_074_000)];
+        assert_eq!(decode(&bytes), want);
+        for piece in [1, 7, 48, 49, 500] {
+            let mut d = Dialect::builtin("text-semicolon").unwrap().decoder(None);
+            let mut out = Vec::new();
+            for c in bytes.chunks(piece) {
+                d.feed(Direction::Rx, c, &mut out);
+                assert!(d.buffered() <= 48);
+            }
+            d.finish(&mut out);
+            assert_eq!(out, want, "pieces of {piece}");
+        }
+        // Line noise inside the long run does not spoil the report after it.
+        let mut noisy = vec![b'5'; 100];
+        noisy.extend_from_slice(&[0xFF, 0x00]);
+        noisy.extend_from_slice(&[b'5'; 100]);
+        noisy.extend_from_slice(b"TX;");
+        let out = decode(&noisy);
+        assert_eq!(out.last(), Some(&RigEvent::Transmit { on: true }));
     }
 
     #[test]
