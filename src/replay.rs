@@ -227,6 +227,9 @@ impl<'t> Replay<'t> {
                     },
                 )?;
             }
+            // Station events come only from the station decoder, which
+            // replay does not use (yet).
+            _ => {}
         }
         self.apply_actions()
     }

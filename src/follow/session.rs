@@ -450,6 +450,9 @@ impl Session {
                     reason: reason.as_str(),
                     bytes,
                 }),
+                // Station events come only from the station decoder, which
+                // this session does not use (yet).
+                _ => {}
             }
         }
         self.events = out;

@@ -178,6 +178,21 @@ impl Dialect {
         }
     }
 
+    /// A decoder that also emits station events ([`RigEvent::Vfo`] and the
+    /// others after it) from both directions, besides exactly the events
+    /// [`Dialect::decoder`] emits. Text family: every VFO's frequency, the
+    /// receive/transmit VFO, sets and transmit/receive commands going to the
+    /// rig. Binary family: no station events yet (the same events as
+    /// [`Dialect::decoder`]).
+    ///
+    /// [`RigEvent::Vfo`]: super::RigEvent::Vfo
+    pub fn station_decoder(&self, rig_address: Option<u8>) -> Box<dyn Decode> {
+        match &self.spec {
+            Spec::Binary(s) => Box::new(BinaryDecoder::new(s.clone(), rig_address)),
+            Spec::Text(s) => Box::new(TextDecoder::station(s.clone())),
+        }
+    }
+
     /// Bytes the rig would send to announce `hz`: binary, an unsolicited
     /// broadcast from `rig_address`; text, the active VFO's message. A
     /// frequency wider than the field keeps only its low digits, as a rig

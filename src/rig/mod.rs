@@ -42,7 +42,39 @@ impl Direction {
     }
 }
 
+/// One of the rig's two VFOs.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Vfo {
+    A,
+    B,
+}
+
+/// Where a station event was learnt: from the rig itself, or from a command
+/// another program sent to the rig (seen in `proxy` mode or as an echo on a
+/// shared bus). A command is the operator's intent, not yet the rig's state.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Seen {
+    /// The rig said so: an unsolicited report or an answer to a read.
+    Report,
+    /// A set command travelling to the rig.
+    Command,
+}
+
+/// Which receive/transmit offset an [`RigEvent::Offset`] is about.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum OffsetKind {
+    /// Receive incremental tuning: moves the receive frequency only.
+    Rit,
+    /// Transmit incremental tuning: moves the transmit frequency only.
+    Xit,
+}
+
 /// What a decoder makes of the bytes.
+///
+/// [`Dialect::decoder`] emits only `Frequency`, `Transmit` and `Reject`
+/// (reports from the rig). [`Dialect::station_decoder`] emits those same
+/// events, in the same order, and in addition the station events below
+/// (`Vfo` to `TransmitCommand`), from both directions.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum RigEvent {
     /// The rig's operating frequency (the active VFO), in Hz.
@@ -51,6 +83,37 @@ pub enum RigEvent {
     Transmit { on: bool },
     /// Bytes that were not a believable report, and why.
     Reject { reason: RejectReason, bytes: usize },
+    /// One VFO's frequency, whichever VFO is in use: a report or answer
+    /// (`Seen::Report`), or a set going to the rig (`Seen::Command`).
+    Vfo { vfo: Vfo, hz: u64, seen: Seen },
+    /// The VFO the rig receives on.
+    ReceiveVfo { vfo: Vfo, seen: Seen },
+    /// The VFO the rig transmits on.
+    TransmitVfo { vfo: Vfo, seen: Seen },
+    /// Split operation (transmit on the other VFO) on or off.
+    Split { on: bool, seen: Seen },
+    /// A RIT or XIT state: whether it is on and, where the message carries
+    /// it, the offset in Hz (signed; `None` when not carried).
+    Offset {
+        kind: OffsetKind,
+        on: bool,
+        hz: Option<i32>,
+        seen: Seen,
+    },
+    /// A command going to the rig to transmit (`true`) or receive
+    /// (`false`): another program keying the rig over the control port.
+    /// Fail safe: it counts as a transmission from the moment it is seen.
+    TransmitCommand { on: bool },
+}
+
+impl RigEvent {
+    /// Whether this is one of the events only the station decoder emits.
+    pub fn is_station_event(&self) -> bool {
+        !matches!(
+            self,
+            RigEvent::Frequency { .. } | RigEvent::Transmit { .. } | RigEvent::Reject { .. }
+        )
+    }
 }
 
 /// Why bytes were not taken as a report.
@@ -96,8 +159,9 @@ impl fmt::Display for RejectReason {
 ///
 /// Each direction has its own bounded buffer. Only [`Direction::Rx`] bytes
 /// (from the rig) yield `Frequency` and `Transmit` events; `Tx` bytes are
-/// framed the same way and may yield `Reject`s (the caller knows which
-/// direction it fed), nothing else.
+/// framed the same way and may yield `Reject`s for framing (line noise,
+/// overlong runs; the caller knows which direction it fed) and, from the
+/// station decoder, station events with `Seen::Command`, nothing else.
 ///
 /// What a decoder emits depends only on the bytes of each direction, never on
 /// how they were split into chunks: a run of rejected bytes is reported once
@@ -196,7 +260,8 @@ pub struct DecodeStats {
     /// requests, acknowledgements, other commands, other rigs, the inactive
     /// VFO, anything sent to the rig.
     pub ignored: u64,
-    /// `Frequency` and `Transmit` events emitted.
+    /// Events emitted other than `Reject` (with the station decoder, its
+    /// station events too).
     pub reports: u64,
     /// `Reject` events emitted.
     pub rejects: u64,

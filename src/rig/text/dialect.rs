@@ -3,12 +3,7 @@
 
 use super::super::keys::{DialectError, Reader};
 
-/// Which VFO's reports count as the operating frequency.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Vfo {
-    A,
-    B,
-}
+pub use super::super::Vfo;
 
 /// Parameters of a text-family dialect.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -22,6 +17,13 @@ pub struct TextSpec {
     pub vfo_a: [u8; 2],
     pub vfo_b: [u8; 2],
     pub active_vfo: Vfo,
+    /// The command reading or setting the receive VFO (station decoder).
+    pub receive_vfo: [u8; 2],
+    /// The command reading or setting the transmit VFO (station decoder).
+    pub transmit_vfo: [u8; 2],
+    /// The one-character payloads of those commands naming VFO A and B.
+    pub select_a: u8,
+    pub select_b: u8,
     /// The status answer carrying frequency and transmit flag.
     pub status: [u8; 2],
     /// Payload length of a status answer.
@@ -53,7 +55,7 @@ impl TextSpec {
         f
     }
 
-    /// Every command whose messages the decoder understands.
+    /// Every command whose messages the reporting decoder understands.
     pub(crate) fn known_commands(&self) -> impl Iterator<Item = &[u8; 2]> {
         [
             &self.vfo_a,
@@ -63,6 +65,11 @@ impl TextSpec {
             &self.transmit_off,
         ]
         .into_iter()
+    }
+
+    /// The commands only the station decoder understands.
+    pub(crate) fn station_commands(&self) -> impl Iterator<Item = &[u8; 2]> {
+        [&self.receive_vfo, &self.transmit_vfo].into_iter()
     }
 
     /// The transmit or receive message.
@@ -101,7 +108,16 @@ impl TextSpec {
         r.only(
             frequency,
             "frequency",
-            &["digits", "vfo_a", "vfo_b", "active_vfo"],
+            &[
+                "digits",
+                "vfo_a",
+                "vfo_b",
+                "active_vfo",
+                "receive_vfo",
+                "transmit_vfo",
+                "select_a",
+                "select_b",
+            ],
         )?;
         let status = r.table(t, "", "status")?;
         r.only(
@@ -139,6 +155,28 @@ impl TextSpec {
                 ))
             }
         };
+        let receive_vfo = r.code(frequency, "frequency", "receive_vfo")?;
+        let transmit_vfo = r.code(frequency, "frequency", "transmit_vfo")?;
+        let select = |key: &str| -> Result<u8, DialectError> {
+            let v = r.string(frequency, "frequency", key)?;
+            match v.as_bytes() {
+                [b] if b.is_ascii_alphanumeric() => Ok(*b),
+                _ => Err(r.err(
+                    &format!("frequency.{key}"),
+                    "one ASCII letter or digit",
+                    format!("{v:?}"),
+                )),
+            }
+        };
+        let select_a = select("select_a")?;
+        let select_b = select("select_b")?;
+        if select_a == select_b {
+            return Err(r.err(
+                "frequency.select_b",
+                "a character different from `frequency.select_a`",
+                format!("{:?}", select_b as char),
+            ));
+        }
         let status_cmd = r.code(status, "status", "command")?;
         let status_length = r.int(status, "status", "length", 1, 4094)? as usize;
         let status_frequency_offset =
@@ -171,6 +209,8 @@ impl TextSpec {
             ("status.command", status_cmd),
             ("transmit.on", transmit_on),
             ("transmit.off", transmit_off),
+            ("frequency.receive_vfo", receive_vfo),
+            ("frequency.transmit_vfo", transmit_vfo),
         ];
         for (i, (key, c)) in codes.iter().enumerate() {
             if let Some((other, _)) = codes.iter().take(i).find(|(_, o)| o == c) {
@@ -192,6 +232,10 @@ impl TextSpec {
             vfo_a,
             vfo_b,
             active_vfo,
+            receive_vfo,
+            transmit_vfo,
+            select_a,
+            select_b,
             status: status_cmd,
             status_length,
             status_frequency_offset,

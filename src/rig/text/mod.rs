@@ -26,13 +26,15 @@ use super::swar::{ascii_digits, find_stop_or_unprintable};
 use super::RejectRun;
 use super::{
     plausible, DecodeStats, Direction, FamilyDecoder, Framing, Outcome, RejectReason, RigEvent,
-    Stream,
+    Seen, Stream,
 };
 
-/// The text family's framing: its dialect.
+/// The text family's framing: its dialect, and whether station events are
+/// wanted (see [`TextDecoder::station`]).
 #[derive(Debug)]
 pub struct Text {
     spec: TextSpec,
+    station: bool,
 }
 
 /// Decoder for the text family.
@@ -41,7 +43,29 @@ pub type TextDecoder = FamilyDecoder<Text>;
 impl TextDecoder {
     pub fn new(spec: TextSpec) -> TextDecoder {
         let cap = spec.max_message;
-        FamilyDecoder::with_framing(Text { spec }, cap)
+        FamilyDecoder::with_framing(
+            Text {
+                spec,
+                station: false,
+            },
+            cap,
+        )
+    }
+
+    /// A decoder that also emits station events: every VFO's frequency,
+    /// the receive and transmit VFOs, from the rig (`Seen::Report`) and from
+    /// sets going to it (`Seen::Command`), and transmit/receive commands
+    /// going to the rig ([`RigEvent::TransmitCommand`]). Its `Frequency` and
+    /// `Transmit` events are exactly the reporting decoder's.
+    pub fn station(spec: TextSpec) -> TextDecoder {
+        let cap = spec.max_message;
+        FamilyDecoder::with_framing(
+            Text {
+                spec,
+                station: true,
+            },
+            cap,
+        )
     }
 }
 
@@ -55,6 +79,7 @@ impl Framing for Text {
         stats: &mut DecodeStats,
     ) {
         let spec = &self.spec;
+        let station = self.station;
         let term = spec.terminator;
         let mut rest = chunk;
         while !rest.is_empty() {
@@ -68,7 +93,7 @@ impl Framing for Text {
                 let Some(i) = end else { break };
                 rest = rest.get(i + 1..).unwrap_or_default();
                 s.skipping = false;
-                match resync(spec, dir, &s.buf) {
+                match resync(spec, station, dir, &s.buf) {
                     Some((at, outcome)) => {
                         s.run.add(RejectReason::Overlong, at, out, stats);
                         outcome.emit(s.buf.len() - at + 1, &mut s.run, out, stats);
@@ -109,7 +134,7 @@ impl Framing for Text {
                     s.buf.extend_from_slice(span);
                     &s.buf
                 };
-                let outcome = interpret(spec, dir, msg);
+                let outcome = interpret(spec, station, dir, msg);
                 let len = msg.len() + 1;
                 // A run that did not parse, or that reads as a command we
                 // do not know (a message cut short, glued to the next one).
@@ -121,7 +146,7 @@ impl Framing for Text {
                     _ => false,
                 };
                 match outcome {
-                    _ if unparsed => match resync(spec, dir, msg) {
+                    _ if unparsed => match resync(spec, station, dir, msg) {
                         // Noise glued to the front of a message costs the
                         // noise, not the message.
                         Some((at, found)) => {
@@ -173,21 +198,36 @@ fn hold_tail(
 /// after its first byte where a report of a known command starts and runs
 /// to the end, and what that report is. Only printable bytes can be part of
 /// it, and only a report counts (not a request, nor anything ignored).
-fn resync(spec: &TextSpec, dir: Direction, run: &[u8]) -> Option<(usize, Outcome)> {
+///
+/// The station decoder first looks where the reporting decoder would (and
+/// takes what it finds there as a station decoder), and only if there is
+/// nothing for the reporting decoder, for its own reports: so its
+/// `Frequency` and `Transmit` events are always the reporting decoder's.
+fn resync(spec: &TextSpec, station: bool, dir: Direction, run: &[u8]) -> Option<(usize, Outcome)> {
     let printable_from = run
         .iter()
         .rposition(|b| !(0x20..0x7F).contains(b))
         .map_or(1, |i| (i + 1).max(1));
-    (printable_from..run.len().saturating_sub(1))
-        .rev()
-        .filter(|&at| {
-            run.get(at..at + 2)
-                .is_some_and(|c| spec.known_commands().any(|k| k == c))
-        })
-        .find_map(|at| {
-            let outcome = interpret(spec, dir, run.get(at..)?);
-            matches!(outcome, Outcome::One(_) | Outcome::Two(..)).then_some((at, outcome))
-        })
+    let search = |as_station: bool| {
+        (printable_from..run.len().saturating_sub(1))
+            .rev()
+            .filter(|&at| {
+                run.get(at..at + 2).is_some_and(|c| {
+                    spec.known_commands().any(|k| k == c)
+                        || (as_station && spec.station_commands().any(|k| k == c))
+                })
+            })
+            .find_map(|at| {
+                let outcome = interpret(spec, as_station, dir, run.get(at..)?);
+                matches!(outcome, Outcome::One(_) | Outcome::Two(..)).then_some(at)
+            })
+    };
+    let at = match search(false) {
+        Some(at) => at,
+        None if station => search(true)?,
+        None => return None,
+    };
+    Some((at, interpret(spec, station, dir, run.get(at..)?)))
 }
 
 /// The two-letter command, and the payload after it. The parser's error
@@ -251,13 +291,17 @@ fn transmit_payload(payload: &[u8], on: bool) -> Outcome {
 }
 
 /// What one complete message (printable, terminator stripped) amounts to.
-fn interpret(spec: &TextSpec, dir: Direction, msg: &[u8]) -> Outcome {
+fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outcome {
     if msg.is_empty() {
         // A bare terminator: harmless, used to clear a rig's input.
         return Outcome::Ignored;
     }
     if dir == Direction::Tx {
-        return Outcome::Ignored;
+        return if station {
+            interpret_command(spec, msg)
+        } else {
+            Outcome::Ignored
+        };
     }
     let Some((payload, cmd)) = command(msg) else {
         return Outcome::Reject(if msg.len() < 2 {
@@ -272,11 +316,39 @@ fn interpret(spec: &TextSpec, dir: Direction, msg: &[u8]) -> Outcome {
     };
     if cmd == spec.vfo_a || cmd == spec.vfo_b {
         let vfo = if cmd == spec.vfo_a { Vfo::A } else { Vfo::B };
-        if payload.is_empty() || vfo != spec.active_vfo {
-            // A read request, or the VFO the operator is not on.
+        if payload.is_empty() {
+            // A read request.
             return Outcome::Ignored;
         }
-        return as_outcome(frequency(payload, spec.digits));
+        if vfo != spec.active_vfo {
+            // The VFO the operator is not on: only the station decoder
+            // reports it, and a malformed one is ignored, as by the
+            // reporting decoder.
+            return match frequency(payload, spec.digits) {
+                Ok(RigEvent::Frequency { hz }) if station => Outcome::One(RigEvent::Vfo {
+                    vfo,
+                    hz,
+                    seen: Seen::Report,
+                }),
+                _ => Outcome::Ignored,
+            };
+        }
+        return match frequency(payload, spec.digits) {
+            Ok(e @ RigEvent::Frequency { hz }) if station => Outcome::Two(
+                e,
+                RigEvent::Vfo {
+                    vfo,
+                    hz,
+                    seen: Seen::Report,
+                },
+            ),
+            r => as_outcome(r),
+        };
+    }
+    if station {
+        if let Some(e) = select_vfo(spec, cmd, payload, Seen::Report) {
+            return Outcome::One(e);
+        }
     }
     if cmd == spec.status {
         if payload.is_empty() {
@@ -303,6 +375,67 @@ fn interpret(spec: &TextSpec, dir: Direction, msg: &[u8]) -> Outcome {
     }
     if cmd == spec.transmit_off {
         return transmit_payload(payload, false);
+    }
+    Outcome::Ignored
+}
+
+/// A receive- or transmit-VFO message naming VFO A or B: the station
+/// event, or None (a read, another payload such as a memory channel, or
+/// another command). None leaves the message to be handled as by the
+/// reporting decoder, to which these commands are unknown.
+fn select_vfo(spec: &TextSpec, cmd: [u8; 2], payload: &[u8], seen: Seen) -> Option<RigEvent> {
+    let vfo = match payload {
+        [c] if *c == spec.select_a => Vfo::A,
+        [c] if *c == spec.select_b => Vfo::B,
+        _ => return None,
+    };
+    if cmd == spec.receive_vfo {
+        Some(RigEvent::ReceiveVfo { vfo, seen })
+    } else if cmd == spec.transmit_vfo {
+        Some(RigEvent::TransmitVfo { vfo, seen })
+    } else {
+        None
+    }
+}
+
+/// What a complete message going to the rig amounts to (station decoder):
+/// a frequency set, a receive/transmit VFO set, a transmit or receive
+/// command. Reads (a command without payload) are queries, not sets. A
+/// malformed set is rejected with its reason; the reporting decoder's other
+/// commands and unknown ones are ignored.
+fn interpret_command(spec: &TextSpec, msg: &[u8]) -> Outcome {
+    let Some((payload, cmd)) = command(msg) else {
+        return Outcome::Reject(if msg.len() < 2 {
+            RejectReason::BadLength
+        } else {
+            RejectReason::Unknown
+        });
+    };
+    if cmd == spec.vfo_a || cmd == spec.vfo_b {
+        if payload.is_empty() {
+            return Outcome::Ignored;
+        }
+        let vfo = if cmd == spec.vfo_a { Vfo::A } else { Vfo::B };
+        return match frequency(payload, spec.digits) {
+            Ok(RigEvent::Frequency { hz }) => Outcome::One(RigEvent::Vfo {
+                vfo,
+                hz,
+                seen: Seen::Command,
+            }),
+            Ok(_) => Outcome::Ignored,
+            Err(reason) => Outcome::Reject(reason),
+        };
+    }
+    if let Some(e) = select_vfo(spec, cmd, payload, Seen::Command) {
+        return Outcome::One(e);
+    }
+    if cmd == spec.transmit_on || cmd == spec.transmit_off {
+        return match transmit_payload(payload, cmd == spec.transmit_on) {
+            Outcome::One(RigEvent::Transmit { on }) => {
+                Outcome::One(RigEvent::TransmitCommand { on })
+            }
+            other => other,
+        };
     }
     Outcome::Ignored
 }
@@ -511,6 +644,95 @@ mod tests {
         noisy.extend_from_slice(b"TX;");
         let out = decode(&noisy);
         assert_eq!(out.last(), Some(&RigEvent::Transmit { on: true }));
+    }
+
+    fn station_in(dir: Direction, bytes: &[u8]) -> Vec<RigEvent> {
+        let mut d = Dialect::builtin("text-semicolon")
+            .unwrap()
+            .station_decoder(None);
+        let mut out = Vec::new();
+        d.feed(dir, bytes, &mut out);
+        d.finish(&mut out);
+        out
+    }
+
+    fn vfo(vfo: Vfo, hz: u64, seen: Seen) -> RigEvent {
+        RigEvent::Vfo { vfo, hz, seen }
+    }
+
+    // The messages below are worked by hand from the text family's frame
+    // layout (two letters, payload, `;`); command letters FA/FB/FR/FT/TX/RX
+    // and the 0 = VFO A, 1 = VFO B payloads are recalled from the family's
+    // published PC command reference.
+
+    #[test]
+    fn station_reports_both_vfos_and_the_selected_ones() {
+        assert_eq!(
+            station_in(Direction::Rx, b"FA00014195000;FB00014200000;FR0;FT1;TX;RX;"),
+            vec![
+                freq(14_195_000),
+                vfo(Vfo::A, 14_195_000, Seen::Report),
+                vfo(Vfo::B, 14_200_000, Seen::Report),
+                RigEvent::ReceiveVfo {
+                    vfo: Vfo::A,
+                    seen: Seen::Report
+                },
+                RigEvent::TransmitVfo {
+                    vfo: Vfo::B,
+                    seen: Seen::Report
+                },
+                RigEvent::Transmit { on: true },
+                RigEvent::Transmit { on: false },
+            ]
+        );
+        // Reads and a memory-channel selection are not VFO reports.
+        assert_eq!(station_in(Direction::Rx, b"FA;FB;FR;FT;FR2;"), vec![]);
+    }
+
+    #[test]
+    fn station_sees_sets_and_keying_going_to_the_rig() {
+        assert_eq!(
+            station_in(Direction::Tx, b"FA;FA00021074000;FT1;TX;IF;RX0;"),
+            vec![
+                vfo(Vfo::A, 21_074_000, Seen::Command),
+                RigEvent::TransmitVfo {
+                    vfo: Vfo::B,
+                    seen: Seen::Command
+                },
+                RigEvent::TransmitCommand { on: true },
+                RigEvent::TransmitCommand { on: false },
+            ]
+        );
+        // A malformed set is rejected with its reason; a set glued to noise
+        // is found after it.
+        assert_eq!(
+            station_in(Direction::Tx, b"FA0002107400;k7#FB00007074000;"),
+            vec![
+                reject(RejectReason::BadLength, 13),
+                reject(RejectReason::Garbage, 3),
+                vfo(Vfo::B, 7_074_000, Seen::Command),
+            ]
+        );
+    }
+
+    #[test]
+    fn station_keeps_the_reporting_decoders_resync() {
+        // A receive-VFO message with a payload it does not understand is
+        // unknown, as to the reporting decoder: the report glued to it is
+        // still found.
+        let bytes = b"FRxFA00014074000;";
+        assert_eq!(
+            decode(bytes),
+            vec![reject(RejectReason::Garbage, 3), freq(14_074_000)]
+        );
+        assert_eq!(
+            station_in(Direction::Rx, bytes),
+            vec![
+                reject(RejectReason::Garbage, 3),
+                freq(14_074_000),
+                vfo(Vfo::A, 14_074_000, Seen::Report)
+            ]
+        );
     }
 
     #[test]
