@@ -18,6 +18,7 @@ use std::io::{self, BufRead, BufReader, Write};
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
+use crate::error::{Located, Place};
 use crate::rig::Direction;
 
 /// Longest line accepted, newline excluded.
@@ -43,7 +44,7 @@ pub enum CaptureError {
         #[source]
         source: io::Error,
     },
-    #[error("{path}, line {line}: expected {expected}, found {found}")]
+    #[error("{}", Located::render(Place::Line { file: path.clone(), line: *line }, expected, found))]
     Line {
         path: PathBuf,
         line: usize,

@@ -14,6 +14,7 @@ use std::path::{Path, PathBuf};
 use serde::Deserialize;
 
 use crate::calibrate::{ModelKind, Point};
+use crate::error::{Located, Place};
 
 /// Everything one station needs.
 #[derive(Debug, Clone, Default, Deserialize)]
@@ -472,13 +473,9 @@ pub enum ConfigError {
         location: Location,
         message: String,
     },
-    #[error("{path}: key `{key}`: expected {expected}, found {found}")]
-    Invalid {
-        path: PathBuf,
-        key: String,
-        expected: String,
-        found: String,
-    },
+    /// A value that is not what it should be, at `file: key `k``.
+    #[error(transparent)]
+    Invalid(Located),
     #[error("{path}: key `calibration`: {source}")]
     Calibration {
         path: PathBuf,
@@ -598,12 +595,11 @@ impl Config {
     }
 
     pub(crate) fn invalid(&self, key: &str, expected: &str, found: String) -> ConfigError {
-        ConfigError::Invalid {
-            path: self.path_for_errors(),
-            key: key.to_string(),
-            expected: expected.to_string(),
+        ConfigError::Invalid(Located::new(
+            Place::key(self.path_for_errors(), key),
+            expected,
             found,
-        }
+        ))
     }
 
     /// Checks what the types cannot.

@@ -1,65 +1,102 @@
-//! The one error type the commands return: where it happened (a file, a key,
-//! a line), what was expected and what was found, or the located error of
-//! the layer that failed. `main` prints every command's error the same way.
+//! The one shape of a located error: where a value was read (a file and a
+//! key, a line of a file, a column of a line), what was expected there and
+//! what was found. Every layer's "expected … found …" message is built by
+//! [`Located`]'s `Display`, whether the layer's error embeds a `Located` or
+//! keeps its own fields and renders through [`Located::render`].
+//!
+//! This module is pure: it names no config, station or driver type, so every
+//! layer may use it. The commands' error, [`crate::Error`], is the station
+//! layer's (`src/station/error.rs`).
 
-use crate::config::ConfigError;
-use crate::station::StationError;
+use std::fmt;
+use std::path::PathBuf;
 
-/// Anything that stops a command, worded for the operator.
-#[derive(Debug, thiserror::Error)]
-pub enum Error {
-    /// A value that is not what it should be.
-    #[error("{at}: expected {expected}, found {found}")]
-    Invalid {
-        /// Where: `file: key `k``, `key `k``, `file:line`.
-        at: String,
-        expected: String,
-        found: String,
+/// Where a value was read.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Place {
+    /// A key of a TOML file: `file: key `k``, or `key `k`` while the file
+    /// is not known yet (see [`Located::within`]).
+    Key { file: Option<PathBuf>, key: String },
+    /// A line of a line-by-line file: `file, line N`.
+    Line { file: PathBuf, line: usize },
+    /// A column of a line of a table: `file:N: column`.
+    Cell {
+        file: PathBuf,
+        line: usize,
+        column: String,
     },
-    #[error(transparent)]
-    Config(#[from] ConfigError),
-    #[error(transparent)]
-    Station(#[from] StationError),
-    /// A failure already worded by the layer it came from (a port that did
-    /// not open, a task that ended), with its place in the message.
-    #[error("{0}")]
-    Failed(String),
+    /// A place already put in words (`position journal x.state:3`).
+    Named(String),
 }
 
-impl Error {
-    pub fn invalid(
-        at: impl Into<String>,
-        expected: impl Into<String>,
-        found: impl Into<String>,
-    ) -> Error {
-        Error::Invalid {
-            at: at.into(),
+impl Place {
+    /// `file: key `k``.
+    pub fn key(file: impl Into<PathBuf>, key: impl Into<String>) -> Place {
+        Place::Key {
+            file: Some(file.into()),
+            key: key.into(),
+        }
+    }
+
+    /// `key `k``, its file named later.
+    pub fn bare_key(key: impl Into<String>) -> Place {
+        Place::Key {
+            file: None,
+            key: key.into(),
+        }
+    }
+}
+
+impl fmt::Display for Place {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Place::Key {
+                file: Some(file),
+                key,
+            } => write!(f, "{}: key `{key}`", file.display()),
+            Place::Key { file: None, key } => write!(f, "key `{key}`"),
+            Place::Line { file, line } => write!(f, "{}, line {line}", file.display()),
+            Place::Cell { file, line, column } => {
+                write!(f, "{}:{line}: {column}", file.display())
+            }
+            Place::Named(words) => f.write_str(words),
+        }
+    }
+}
+
+/// A value that is not what it should be: `{at}: expected {expected},
+/// found {found}`.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{at}: expected {expected}, found {found}")]
+pub struct Located {
+    pub at: Place,
+    pub expected: String,
+    pub found: String,
+}
+
+impl Located {
+    pub fn new(at: Place, expected: impl Into<String>, found: impl Into<String>) -> Located {
+        Located {
+            at,
             expected: expected.into(),
             found: found.into(),
         }
     }
 
-    /// The same error, placed in `file` (named first, as every message about
-    /// a config names its file first).
-    pub fn within(self, file: &str) -> Error {
-        match self {
-            Error::Invalid {
-                at,
-                expected,
-                found,
-            } => Error::Invalid {
-                at: format!("{file}: {at}"),
-                expected,
-                found,
-            },
-            other => Error::Failed(format!("{file}: {other}")),
-        }
+    /// The message for an error that keeps its own fields (a variant that
+    /// callers destructure): the same words as a `Located`.
+    pub fn render(at: Place, expected: &str, found: &str) -> String {
+        Located::new(at, expected, found).to_string()
     }
-}
 
-impl From<String> for Error {
-    fn from(message: String) -> Error {
-        Error::Failed(message)
+    /// The same error, its key placed in `file` (a key named before the
+    /// file was known); other places are left as they are.
+    pub fn within(self, file: &str) -> Located {
+        let at = match self.at {
+            Place::Key { file: None, key } => Place::key(file, key),
+            other => other,
+        };
+        Located { at, ..self }
     }
 }
 
@@ -68,17 +105,44 @@ mod tests {
     use super::*;
 
     #[test]
-    fn invalid_reads_where_expected_found_and_within_puts_the_file_first() {
-        let e = Error::invalid("key `rig.baud`", "a positive baud rate", "0");
-        assert_eq!(
-            e.to_string(),
-            "key `rig.baud`: expected a positive baud rate, found 0"
-        );
-        assert_eq!(
-            e.within("s.toml").to_string(),
-            "s.toml: key `rig.baud`: expected a positive baud rate, found 0"
-        );
-        let e = Error::from("port gone".to_string()).within("s.toml");
-        assert_eq!(e.to_string(), "s.toml: port gone");
+    fn every_place_reads_before_expected_and_found() {
+        let cases = [
+            (Place::key("s.toml", "rig.baud"), "s.toml: key `rig.baud`"),
+            (Place::bare_key("rig.baud"), "key `rig.baud`"),
+            (
+                Place::Line {
+                    file: "c.cap".into(),
+                    line: 7,
+                },
+                "c.cap, line 7",
+            ),
+            (
+                Place::Cell {
+                    file: "p.csv".into(),
+                    line: 3,
+                    column: "hz".into(),
+                },
+                "p.csv:3: hz",
+            ),
+            (
+                Place::Named("position journal j:2".into()),
+                "position journal j:2",
+            ),
+        ];
+        for (at, words) in cases {
+            let e = Located::new(at, "a positive baud rate", "0");
+            assert_eq!(
+                e.to_string(),
+                format!("{words}: expected a positive baud rate, found 0")
+            );
+        }
+    }
+
+    #[test]
+    fn within_names_the_file_of_a_bare_key_only() {
+        let e = Located::new(Place::bare_key("rig.baud"), "x", "y").within("s.toml");
+        assert_eq!(e.to_string(), "s.toml: key `rig.baud`: expected x, found y");
+        let e = Located::new(Place::key("a.toml", "k"), "x", "y").within("s.toml");
+        assert_eq!(e.to_string(), "a.toml: key `k`: expected x, found y");
     }
 }

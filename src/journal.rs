@@ -33,6 +33,7 @@ use std::fs::{self, File, OpenOptions};
 use std::io::{self, Write};
 use std::path::{Path, PathBuf};
 
+use crate::error::{Located, Place};
 /// What the journal says.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Recorded {
@@ -52,13 +53,21 @@ pub enum JournalError {
         #[source]
         source: io::Error,
     },
-    #[error("position journal {path}{line}: expected {expected}, found {found}; fix it or run `tuneward set-position` once the motor's position is known", line = .line.map(|l| format!(":{l}")).unwrap_or_default())]
+    #[error("{}; fix it or run `tuneward set-position` once the motor's position is known", Located::render(journal_place(path, *line), expected, found))]
     Corrupt {
         path: PathBuf,
         line: Option<usize>,
         expected: String,
         found: String,
     },
+}
+
+/// `position journal FILE` or `position journal FILE:LINE`.
+fn journal_place(path: &Path, line: Option<usize>) -> Place {
+    Place::Named(match line {
+        Some(l) => format!("position journal {}:{l}", path.display()),
+        None => format!("position journal {}", path.display()),
+    })
 }
 
 /// The journal file.

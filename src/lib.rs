@@ -31,4 +31,4 @@ pub mod timeline;
 pub mod timing;
 pub mod tuner;
 
-pub use error::Error;
+pub use station::error::Error;

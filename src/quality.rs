@@ -372,12 +372,11 @@ pub fn bench_follow(
     options: &BenchOptions,
 ) -> Result<BenchReport, StationError> {
     let physics = SmallLoop::from_config(&station.config.antenna).ok_or_else(|| {
-        crate::config::ConfigError::Invalid {
-            path: station.config.path_for_errors(),
-            key: "antenna".to_string(),
-            expected: "loop_diameter_m and conductor_diameter_m describing the loop (bench-follow needs its Q)".to_string(),
-            found: "no loop described".to_string(),
-        }
+        crate::config::ConfigError::Invalid(crate::error::Located::new(
+            crate::error::Place::key(station.config.path_for_errors(), "antenna"),
+            "loop_diameter_m and conductor_diameter_m describing the loop (bench-follow needs its Q)",
+            "no loop described",
+        ))
     })?;
     let bands = station.policy.band_ranges();
     let wire = DialectWire {

@@ -16,6 +16,7 @@ use crate::rig::{Dialect, DialectError};
 use crate::timeline::{self, Human, JsonLines, Summary, Timeline};
 use crate::tuner::sim::SimParams;
 
+pub mod error;
 pub mod settings;
 pub use settings::{
     check_base_points, fit_base, fit_options, journal_for, policy_from_config, port_settings,

@@ -28,6 +28,7 @@ const PURE_FILES: &[&str] = &[
     "src/capture.rs",
     "src/timeline.rs",
     "src/devices.rs",
+    "src/error.rs",
     "src/replay.rs",
 ];
 

@@ -25,6 +25,7 @@ pub mod report;
 
 use std::path::PathBuf;
 
+use crate::error::{Located, Place};
 use serde::Deserialize;
 
 pub use points::{
@@ -141,7 +142,7 @@ pub enum CalibrationError {
 
 /// Where and how a point file is wrong.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error("{path}:{line}: {column}: expected {expected}, found {found}")]
+#[error("{}", Located::render(Place::Cell { file: path.clone(), line: *line, column: column.clone() }, expected, found))]
 pub struct CsvProblem {
     pub path: PathBuf,
     pub line: usize,

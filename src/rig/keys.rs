@@ -4,6 +4,8 @@
 
 use std::path::{Path, PathBuf};
 
+use crate::error::{Located, Place};
+
 /// Why a dialect could not be had.
 #[derive(Debug, thiserror::Error)]
 pub enum DialectError {
@@ -15,7 +17,7 @@ pub enum DialectError {
     },
     #[error("{file}: not valid TOML: {message}")]
     Syntax { file: PathBuf, message: String },
-    #[error("{file}: key `{key}`: expected {expected}, found {found}")]
+    #[error("{}", Located::render(Place::key(file, key.as_str()), expected, found))]
     Key {
         file: PathBuf,
         key: String,

@@ -16,13 +16,14 @@ use crate::config::{
     Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, RigConfig, RigUse, SerialFlow,
     SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
-use crate::error::Error;
+use crate::error::{Located, Place};
 use crate::follow::{Band, Follower, Policy};
 use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
 use crate::port::link::LinkConfig;
 use crate::port::proxy::ProxyConfig;
 use crate::service::{RigSource, ServiceParts};
+use crate::station::error::Error;
 use crate::tuner::client::ClientConfig;
 
 use super::Station;
@@ -48,12 +49,11 @@ pub fn policy_from_config(
             Hysteresis::Hz(hz) => hz,
             Hysteresis::Unset => auto_hysteresis(centre).unwrap_or(DEFAULT_HYSTERESIS_HZ),
             Hysteresis::Auto(_) => {
-                auto_hysteresis(centre).ok_or_else(|| ConfigError::Invalid {
-                    path: path.clone(),
-                    key,
-                    expected: "a number of Hz, or \"auto\" with [antenna] loop_diameter_m and conductor_diameter_m set".to_string(),
-                    found: "\"auto\" without an antenna description".to_string(),
-                })?
+                auto_hysteresis(centre).ok_or_else(|| ConfigError::Invalid(Located::new(
+                    Place::key(path.clone(), key),
+                    "a number of Hz, or \"auto\" with [antenna] loop_diameter_m and conductor_diameter_m set",
+                    "\"auto\" without an antenna description",
+                )))?
             }
         };
         bands.push(Band {
@@ -180,7 +180,7 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
     let need_port = |signal: &str| {
         cfg.port.clone().ok_or_else(|| {
             Error::invalid(
-                "key `inhibit.port`",
+                Place::bare_key("inhibit.port"),
                 format!("the serial device whose {signal} is the inhibit"),
                 "none",
             )
@@ -205,14 +205,14 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
         InhibitKind::Gpio => {
             let chip = cfg.chip.as_deref().ok_or_else(|| {
                 Error::invalid(
-                    "key `inhibit.chip`",
+                    Place::bare_key("inhibit.chip"),
                     "a GPIO chip such as `gpiochip0`",
                     "none",
                 )
             })?;
             let offset = cfg.offset.ok_or_else(|| {
                 Error::invalid(
-                    "key `inhibit.offset`",
+                    Place::bare_key("inhibit.offset"),
                     "the line number on the chip",
                     "none",
                 )
@@ -273,7 +273,7 @@ pub fn rig_source(station: &Station) -> Result<RigSource, Error> {
     let file = config_name(config);
     let port = config.rig.port.clone().ok_or_else(|| {
         Error::invalid(
-            format!("{file}: key `rig.port`"),
+            Place::key(&file, "rig.port"),
             "the rig's serial device (e.g. /dev/serial/by-id/...)",
             "none",
         )
@@ -373,7 +373,7 @@ pub fn port_settings(
     use crate::port::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
     if rig.baud == 0 {
         return Err(Error::invalid(
-            "key `rig.baud`",
+            Place::bare_key("rig.baud"),
             "a positive baud rate",
             "0",
         ));
@@ -386,7 +386,7 @@ pub fn port_settings(
         8 => DataBits::Eight,
         n => {
             return Err(Error::invalid(
-                "key `rig.data_bits`",
+                Place::bare_key("rig.data_bits"),
                 "5, 6, 7 or 8",
                 n.to_string(),
             ))
@@ -397,7 +397,7 @@ pub fn port_settings(
         2 => StopBits::Two,
         n => {
             return Err(Error::invalid(
-                "key `rig.stop_bits`",
+                Place::bare_key("rig.stop_bits"),
                 "1 or 2",
                 n.to_string(),
             ))
