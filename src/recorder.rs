@@ -28,8 +28,6 @@ use crate::timing::sleep_until_opt;
 /// What `tuneward capture` is asked to do.
 #[derive(Debug, Clone)]
 pub struct CaptureOptions {
-    /// The station's config (TOML); `[rig]` says which port and how.
-    pub config: PathBuf,
     /// The capture file to write (replaced if it exists).
     pub out: PathBuf,
     /// Stop after this long; `None`: until interrupted.
@@ -45,10 +43,14 @@ pub struct CaptureCounts {
     pub tx_bytes: u64,
 }
 
-/// Runs `tuneward capture`.
-pub fn run_capture(args: &CaptureOptions) -> Result<CaptureCounts, String> {
-    let station = crate::station::Station::load(&args.config).map_err(|e| e.to_string())?;
-    let source = crate::station::rig_source(&station).map_err(|e| e.to_string())?;
+/// Runs `tuneward capture` on the rig port `source` (the station layer
+/// makes it from `[rig]`: `station::rig_source`); `header` is the file's
+/// first comment, naming the port, protocol and mode.
+pub fn run_capture(
+    source: RigSource,
+    header: &str,
+    args: &CaptureOptions,
+) -> Result<CaptureCounts, String> {
     let file = std::fs::File::create(&args.out)
         .map_err(|e| format!("cannot create capture file {}: {e}", args.out.display()))?;
     let rt = tokio::runtime::Builder::new_current_thread()
@@ -67,14 +69,7 @@ pub fn run_capture(args: &CaptureOptions) -> Result<CaptureCounts, String> {
             RigSource::Events(_) => return Err("no rig port to capture".to_string()),
         };
         let mut w = CaptureWriter::new(std::io::BufWriter::new(file));
-        let header = format!(
-            "tuneward capture of {} ({}, mode {:?})",
-            station.config.rig.port.as_deref().unwrap_or("?"),
-            station.config.rig.protocol,
-            station.config.rig.mode
-        )
-        .to_lowercase();
-        w.comment(&header).map_err(|e| format!("{out}: {e}"))?;
+        w.comment(header).map_err(|e| format!("{out}: {e}"))?;
         let result = record(
             rx,
             &mut w,

@@ -17,7 +17,7 @@
 //! transmission is still heard and the controller still answers until the
 //! end.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::time::Duration;
 
 use tokio::sync::{mpsc, watch};
@@ -35,7 +35,6 @@ use crate::port::{link, proxy};
 use crate::rig::Decode;
 use crate::shutdown::{self, Shutdown};
 use crate::signals;
-use crate::station::Station;
 use crate::timing::sleep_until_precise;
 use crate::tuner::client::{self, ClientConfig, TunerCommand};
 
@@ -103,27 +102,10 @@ pub fn init_logging(format: LogFormat) {
     };
 }
 
-/// What `tuneward run` is asked to do.
-#[derive(Debug, Clone)]
-pub struct RunOptions {
-    /// The station's config (TOML; see config/example.toml).
-    pub config: PathBuf,
-    /// How to write the log on stderr.
-    pub log_format: LogFormat,
-}
-
-/// `tuneward run`: logging, then [`run_config`] until SIGINT/SIGTERM.
-pub fn run_command(args: &RunOptions) -> Result<(), String> {
-    init_logging(args.log_format);
-    tracing::info!(config = %args.config.display(), version = env!("CARGO_PKG_VERSION"), "starting");
-    run_config(&args.config).map(|_| ())
-}
-
-/// Runs the live service for the config at `config` until interrupted
-/// (Ctrl-C or SIGTERM), on a runtime of its own.
-pub fn run_config(config: &Path) -> Result<RunSummary, String> {
-    let station = Station::load(config).map_err(|e| e.to_string())?;
-    let service = ServiceParts::from_station(&station).map_err(|e| e.to_string())?;
+/// Runs the live service from its parts (the station layer assembles them:
+/// `ServiceParts::from_station`) until interrupted (Ctrl-C or SIGTERM), on
+/// a runtime of its own.
+pub fn run_until_signal(service: ServiceParts) -> Result<RunSummary, String> {
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()

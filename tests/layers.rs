@@ -32,6 +32,19 @@ const PURE_FILES: &[&str] = &[
     "src/replay.rs",
 ];
 
+/// The drivers (IO and timers: the live service, the recorder, the replay,
+/// the port IO, the controller link and sim-tuner, the sim-rig driver) take
+/// the parts the station layer made; they may not reach up to it.
+const DRIVER_DIRS: &[&str] = &["src/port"];
+const DRIVER_FILES: &[&str] = &[
+    "src/service.rs",
+    "src/recorder.rs",
+    "src/replay.rs",
+    "src/sim/driver.rs",
+    "src/tuner/client.rs",
+    "src/tuner/server.rs",
+];
+
 /// The serial library (used synchronously, to drive RTS/DTR) is allowed
 /// only where the inhibit's modem line is opened.
 const SERIAL_ALLOWED: &[&str] = &["src/inhibit.rs"];
@@ -271,6 +284,77 @@ fn pure_layers_import_no_runtime_cli_or_config() {
         all.extend(violations(&rel, &code_of(&text)));
     }
     assert!(all.is_empty(), "layer rule broken:\n{}", all.join("\n"));
+}
+
+/// The driver files, as paths relative to the crate.
+fn driver_files() -> Vec<String> {
+    let root = root();
+    let mut files = Vec::new();
+    for dir in DRIVER_DIRS {
+        rust_files(&root.join(dir), &mut files);
+    }
+    assert!(
+        !files.is_empty(),
+        "src/port: expected source files, found none"
+    );
+    for f in DRIVER_FILES {
+        let p = root.join(f);
+        assert!(p.is_file(), "{f}: listed as a driver but not found");
+        files.push(p);
+    }
+    let mut rel: Vec<String> = files
+        .iter()
+        .map(|p| {
+            p.strip_prefix(&root)
+                .unwrap()
+                .to_string_lossy()
+                .replace('\\', "/")
+        })
+        .collect();
+    rel.sort();
+    rel
+}
+
+/// What is wrong with one driver file's code: an import of the station
+/// layer or the config (a driver takes their parts, it does not load them).
+fn driver_violations(rel: &str, code: &str) -> Vec<String> {
+    upper_layers_named(code)
+        .into_iter()
+        .filter(|layer| *layer != "service")
+        .map(|layer| {
+            format!("{rel}: expected a driver to take its parts from the station layer, found `crate::{layer}`")
+        })
+        .collect()
+}
+
+#[test]
+fn drivers_do_not_reach_up_to_the_station_or_the_config() {
+    let root = root();
+    let mut all = Vec::new();
+    for rel in driver_files() {
+        let text = std::fs::read_to_string(root.join(&rel)).unwrap();
+        all.extend(driver_violations(&rel, &code_of(&text)));
+    }
+    assert!(all.is_empty(), "layer rule broken:\n{}", all.join("\n"));
+}
+
+#[test]
+fn the_driver_checker_sees_the_station_and_the_config_but_not_a_sibling_driver() {
+    let v = driver_violations("src/x.rs", &code_of("use crate::station::Station;\n"));
+    assert_eq!(v.len(), 1, "{v:?}");
+    assert!(v[0].contains("crate::station"), "{v:?}");
+    let v = driver_violations(
+        "src/x.rs",
+        &code_of("fn f() { let _ = crate::config::Config::load; }\n"),
+    );
+    assert_eq!(v.len(), 1, "{v:?}");
+    assert!(v[0].contains("crate::config"), "{v:?}");
+    let fine = "use crate::service::RigSource;\n// crate::station::rig_source\n";
+    assert!(driver_violations("src/x.rs", &code_of(fine)).is_empty());
+    let listed = driver_files();
+    for must in ["src/service.rs", "src/recorder.rs", "src/port/link.rs"] {
+        assert!(listed.iter().any(|f| f == must), "{must} is not read");
+    }
 }
 
 #[test]

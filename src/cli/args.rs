@@ -10,7 +10,7 @@ use tuneward::calibrate::cli::FitCommandOptions;
 use tuneward::calibrate::{ModelKind, DEFAULT_POLY_DEGREE};
 use tuneward::journal::SetPositionOptions;
 use tuneward::recorder::CaptureOptions;
-use tuneward::service::{LogFormat, RunOptions};
+use tuneward::service::LogFormat;
 use tuneward::tuner::server::SimTunerOptions;
 
 /// How `tuneward run` writes its log (stderr).
@@ -43,15 +43,6 @@ pub struct RunArgs {
     pub log_format: LogFormatArg,
 }
 
-impl From<RunArgs> for RunOptions {
-    fn from(a: RunArgs) -> Self {
-        RunOptions {
-            config: a.config,
-            log_format: a.log_format.into(),
-        }
-    }
-}
-
 /// Arguments of `tuneward capture`.
 #[derive(Debug, clap::Args)]
 pub struct CaptureArgs {
@@ -70,12 +61,12 @@ fn parse_duration(s: &str) -> Result<Duration, String> {
     tuneward::capture::parse_seconds(s).map_err(|e| format!("expected {e}, found `{s}`"))
 }
 
-impl From<CaptureArgs> for CaptureOptions {
-    fn from(a: CaptureArgs) -> Self {
+impl CaptureArgs {
+    /// What the recorder takes; the config is the station layer's to read.
+    pub fn options(&self) -> CaptureOptions {
         CaptureOptions {
-            config: a.config,
-            out: a.out,
-            duration: a.duration,
+            out: self.out.clone(),
+            duration: self.duration,
         }
     }
 }

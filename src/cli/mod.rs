@@ -126,6 +126,38 @@ pub enum Command {
     SetPosition(SetPositionArgs),
 }
 
+/// `tuneward run`: logging, the station from its config, then the live
+/// driver on the station's parts until SIGINT/SIGTERM.
+fn run_live(args: &RunArgs) -> Result<(), Failure> {
+    use tuneward::service::{init_logging, run_until_signal, ServiceParts};
+    init_logging(args.log_format.into());
+    tracing::info!(config = %args.config.display(), version = env!("CARGO_PKG_VERSION"), "starting");
+    let plain = |e: &dyn std::fmt::Display| Failure::plain(e.to_string());
+    let station = tuneward::station::Station::load(&args.config).map_err(|e| plain(&e))?;
+    let parts = ServiceParts::from_station(&station).map_err(|e| plain(&e))?;
+    run_until_signal(parts).map(|_| ()).map_err(|e| plain(&e))
+}
+
+/// `tuneward capture`: the station's rig port from its config, recorded
+/// into the capture file.
+fn capture(args: &CaptureArgs) -> Result<(), Failure> {
+    tuneward::service::init_logging(tuneward::service::LogFormat::Text);
+    let plain = |e: &dyn std::fmt::Display| Failure::plain(e.to_string());
+    let station = tuneward::station::Station::load(&args.config).map_err(|e| plain(&e))?;
+    let source = tuneward::station::rig_source(&station).map_err(|e| plain(&e))?;
+    let rig = &station.config.rig;
+    let header = format!(
+        "tuneward capture of {} ({}, mode {:?})",
+        rig.port.as_deref().unwrap_or("?"),
+        rig.protocol,
+        rig.mode
+    )
+    .to_lowercase();
+    tuneward::recorder::run_capture(source, &header, &args.options())
+        .map(|_| ())
+        .map_err(|e| plain(&e))
+}
+
 /// Why a command failed, ready to print: `tuneward: message` (or the
 /// command's own prefix) on standard error, and the exit status.
 #[derive(Debug)]
@@ -264,13 +296,8 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             tuneward::tuner::server::run_sim_tuner(&args.into()).map_err(Failure::plain)
         }
         Command::SimRig(args) => args::run_sim_rig(args).map_err(Failure::plain),
-        Command::Run(args) => tuneward::service::run_command(&args.into()).map_err(Failure::plain),
-        Command::Capture(args) => {
-            tuneward::service::init_logging(tuneward::service::LogFormat::Text);
-            tuneward::recorder::run_capture(&args.into())
-                .map(|_| ())
-                .map_err(Failure::plain)
-        }
+        Command::Run(args) => run_live(&args),
+        Command::Capture(args) => capture(&args),
         Command::SetPosition(args) => tuneward::station::settings::run_set_position(&args.into())
             .map_err(|e| Failure::with_causes(&e)),
     };
