@@ -281,7 +281,23 @@ pub struct FollowConfig {
     /// mistuned loop.
     #[serde(default = "default_true")]
     pub inhibit_while_detuned: bool,
+    /// A report at least this far from the one before it (or in another
+    /// band), after `jump_quiet_ms` without another frequency, is a jump (a
+    /// band change, a memory recall, a band-map click) and is acted on at
+    /// once, without the debounce. 0: every report waits for the debounce.
+    #[serde(default = "default_jump_hz")]
+    pub jump_hz: u64,
+    /// How long without another frequency before a report can be a jump:
+    /// longer than a knob's report interval, so a sweep is not mistaken
+    /// for jumps.
+    #[serde(default = "default_jump_quiet_ms")]
+    pub jump_quiet_ms: u64,
 }
+
+/// The shortest `follow.jump_quiet_ms`: a knob reports every 20 to 100 ms
+/// (common practice, no source), and a shorter quiet time would take the
+/// steps of a fast sweep for jumps.
+pub const MIN_JUMP_QUIET_MS: u64 = 50;
 
 fn default_true() -> bool {
     true
@@ -305,6 +321,12 @@ fn default_inhibit_lead_ms() -> u64 {
 fn default_candidate_dwell_ms() -> u64 {
     20_000
 }
+fn default_jump_hz() -> u64 {
+    3_000
+}
+fn default_jump_quiet_ms() -> u64 {
+    300
+}
 
 impl Default for FollowConfig {
     fn default() -> Self {
@@ -316,6 +338,8 @@ impl Default for FollowConfig {
             inhibit_lead_ms: default_inhibit_lead_ms(),
             candidate_dwell_ms: default_candidate_dwell_ms(),
             inhibit_while_detuned: true,
+            jump_hz: default_jump_hz(),
+            jump_quiet_ms: default_jump_quiet_ms(),
         }
     }
 }
@@ -634,6 +658,13 @@ impl Config {
                 self.follow.min_move_steps.to_string(),
             ));
         }
+        if self.follow.jump_hz > 0 && self.follow.jump_quiet_ms < MIN_JUMP_QUIET_MS {
+            return Err(self.invalid(
+                "follow.jump_quiet_ms",
+                "at least 50 ms (longer than a knob's report interval) while follow.jump_hz is set",
+                self.follow.jump_quiet_ms.to_string(),
+            ));
+        }
         if self.bands.is_empty() {
             return Err(self.invalid("band", "at least one [[band]] table", "none".to_string()));
         }
@@ -870,6 +901,24 @@ guard_hz = 10000
             let msg = parse(rig).unwrap_err().to_string();
             assert!(msg.contains(key), "{rig}: {msg}");
         }
+    }
+
+    #[test]
+    fn jump_settings_default_and_a_quiet_time_too_short_for_a_knob_is_refused() {
+        let c = Config::parse(MINIMAL, Path::new("t.toml")).unwrap();
+        assert_eq!((c.follow.jump_hz, c.follow.jump_quiet_ms), (3_000, 300));
+        let text = format!("{MINIMAL}\n[follow]\njump_quiet_ms = 20\n");
+        let c = Config::parse(&text, Path::new("s.toml")).unwrap();
+        let msg = c.validate().unwrap_err().to_string();
+        assert!(msg.contains("follow.jump_quiet_ms"), "{msg}");
+        assert!(
+            msg.contains("at least 50 ms") && msg.contains("20"),
+            "{msg}"
+        );
+        // With jumps off, the quiet time is not used and not checked.
+        let text = format!("{MINIMAL}\n[follow]\njump_hz = 0\njump_quiet_ms = 20\n");
+        let c = Config::parse(&text, Path::new("s.toml")).unwrap();
+        c.validate().unwrap();
     }
 
     #[test]

@@ -33,6 +33,24 @@ pub struct Dwell {
     pub to: Duration,
 }
 
+/// How the operator got to a new frequency.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum RetuneKind {
+    /// The knob turned, one report per step.
+    Sweep,
+    /// One report and there: a band change, a memory recall, a band-map
+    /// click, a return from a broadcast station.
+    Jump,
+}
+
+/// A change of frequency: the report of the new frequency came `at`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Retune {
+    pub at: Duration,
+    pub hz: u64,
+    pub kind: RetuneKind,
+}
+
 /// A scenario being written, step by step, in virtual time.
 #[derive(Debug, Clone)]
 pub struct Script {
@@ -42,6 +60,7 @@ pub struct Script {
     steps: Vec<(Duration, Happening)>,
     dwells: Vec<Dwell>,
     transmit: Vec<(Duration, Duration)>,
+    retunes: Vec<Retune>,
     /// While set, the rig repeats its frequency this often (a rig that is
     /// polled, or one that announces periodically).
     repeat: Option<Duration>,
@@ -59,6 +78,7 @@ impl Script {
             steps: Vec::new(),
             dwells: Vec::new(),
             transmit: Vec::new(),
+            retunes: Vec::new(),
             repeat: None,
             dwell_start: Duration::ZERO,
         };
@@ -114,6 +134,7 @@ impl Script {
     pub fn sweep(&mut self, to_hz: u64, step_hz: u64, every: Duration) -> &mut Self {
         self.close_dwell();
         let step = step_hz.max(1);
+        let turned = self.hz != to_hz;
         while self.hz != to_hz {
             self.now += every;
             self.hz = if to_hz > self.hz {
@@ -125,6 +146,13 @@ impl Script {
             self.push(Happening::Report { hz });
         }
         self.dwell_start = self.now;
+        if turned {
+            self.retunes.push(Retune {
+                at: self.now,
+                hz: self.hz,
+                kind: RetuneKind::Sweep,
+            });
+        }
         self
     }
 
@@ -135,6 +163,11 @@ impl Script {
         self.hz = hz;
         self.push(Happening::Report { hz });
         self.dwell_start = self.now;
+        self.retunes.push(Retune {
+            at: self.now,
+            hz,
+            kind: RetuneKind::Jump,
+        });
         self
     }
 
@@ -179,6 +212,7 @@ impl Script {
             steps: self.steps,
             dwells: self.dwells,
             transmit: self.transmit,
+            retunes: self.retunes,
             end: self.now,
         }
     }
@@ -218,6 +252,8 @@ pub struct Scenario {
     pub dwells: Vec<Dwell>,
     /// Spans the rig was transmitting.
     pub transmit: Vec<(Duration, Duration)>,
+    /// Every change of frequency, in time order.
+    pub retunes: Vec<Retune>,
     pub end: Duration,
 }
 
@@ -383,6 +419,109 @@ pub fn random_evening_repeating(
     s.clone().finish()
 }
 
+/// An evening of chasing stations from a band map and memories: the
+/// second scenario family of `bench-follow`. Invented, with proportions
+/// judged, not measured (common practice, no source): of the operator's
+/// doings, 30 % are band-map clicks (a logging program sets the rig to a
+/// spotted station, 5 to 150 kHz away in the same band, and calls within
+/// 50 to 100 ms four times in five: it keys the rig itself right after
+/// the set), 12 % memory recalls (a stored frequency in any band, a call
+/// after 0.3 to 3 s half of the time), 8 % band changes by one press (a
+/// call within 0.1 to 1 s a third of the time), 30 % staying to work the
+/// station, 15 % small knob retunes and 5 % noise on the line. Memories
+/// are four frequencies per band, drawn once per evening.
+pub fn spotting_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
+    let mut rng = fastrand::Rng::with_seed(seed ^ 0x5b07);
+    let memories: Vec<u64> = bands
+        .iter()
+        .flat_map(|b| (0..4).map(|_| rng.u64(b.0..=b.1)).collect::<Vec<_>>())
+        .collect();
+    let s = &mut Script::new(seed, rng.u64(first.0..=first.1));
+    let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
+    let ms = Duration::from_millis;
+    let sec = Duration::from_secs;
+    let mut band = first;
+    let call = |s: &mut Script, rng: &mut fastrand::Rng, after: Duration| {
+        s.wait(after);
+        let n = rng.u32(1..=3);
+        for _ in 0..n {
+            let on = ms(rng.u64(3_000..=15_000));
+            s.overs(1, on, ms(rng.u64(2_000..=12_000)));
+        }
+    };
+    while s.now() < end {
+        match rng.u32(0..100) {
+            // A band-map click: the logging program sets the rig to a spot.
+            0..=29 => {
+                let delta = rng.u64(5_000..=150_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.jump(to);
+                if rng.u32(0..5) < 4 {
+                    let after = ms(rng.u64(50..=100));
+                    call(s, &mut rng, after);
+                }
+                s.wait(sec(rng.u64(5..=40)));
+            }
+            // A memory recall.
+            30..=41 => {
+                if let Some(&hz) = memories.get(rng.usize(0..memories.len().max(1))) {
+                    if let Some(b) = bands.iter().find(|b| (b.0..=b.1).contains(&hz)) {
+                        band = *b;
+                    }
+                    s.jump(hz);
+                    if rng.bool() {
+                        let after = ms(rng.u64(300..=3_000));
+                        call(s, &mut rng, after);
+                    }
+                    s.wait(sec(rng.u64(5..=60)));
+                }
+            }
+            // A band change by one press.
+            42..=49 => {
+                if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
+                    band = *b;
+                    s.jump(rng.u64(b.0..=b.1));
+                    if rng.u32(0..3) == 0 {
+                        let after = ms(rng.u64(100..=1_000));
+                        call(s, &mut rng, after);
+                    }
+                    s.wait(sec(rng.u64(5..=60)));
+                }
+            }
+            // Stay and work the station.
+            50..=79 => {
+                s.wait(sec(rng.u64(2..=30)));
+                let after = ms(rng.u64(0..=500));
+                call(s, &mut rng, after);
+            }
+            // A small knob retune, then often a call.
+            80..=94 => {
+                let delta = rng.u64(100..=3_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                quick_call(s, &mut rng);
+                s.wait(sec(rng.u64(5..=60)));
+            }
+            _ => {
+                let n = rng.usize(1..=64);
+                s.noise(n).wait(ms(rng.u64(100..=5_000)));
+            }
+        }
+    }
+    s.clone().finish()
+}
+
 /// Sometimes the operator calls at once after tuning, before the debounce
 /// has run out: the move then has to wait for the end of the over.
 fn quick_call(s: &mut Script, rng: &mut fastrand::Rng) {
@@ -410,19 +549,33 @@ pub fn fewest_moves_plan(
     dwells: &[Dwell],
     window_hz: impl Fn(u64) -> Option<f64>,
 ) -> Vec<(f64, f64)> {
-    let mut plan: Vec<(f64, f64)> = Vec::new();
+    fewest_moves_groups(dwells, window_hz)
+        .into_iter()
+        .map(|(lo, hi, _)| (lo, hi))
+        .collect()
+}
+
+/// [`fewest_moves_plan`] with, for each tuning, the index in `dwells` of
+/// the first dwell it serves (where the optimum repositions).
+pub fn fewest_moves_groups(
+    dwells: &[Dwell],
+    window_hz: impl Fn(u64) -> Option<f64>,
+) -> Vec<(f64, f64, usize)> {
+    let mut plan: Vec<(f64, f64, usize)> = Vec::new();
     // The band of tuned frequencies still acceptable to the current group.
-    let mut group: Option<(f64, f64)> = None;
-    for d in dwells {
+    let mut group: Option<(f64, f64, usize)> = None;
+    for (i, d) in dwells.iter().enumerate() {
         let Some(w) = window_hz(d.hz) else { continue };
         let (lo, hi) = (d.hz as f64 - w / 2.0, d.hz as f64 + w / 2.0);
         group = match group {
-            Some((glo, ghi)) if lo.max(glo) <= hi.min(ghi) => Some((lo.max(glo), hi.min(ghi))),
+            Some((glo, ghi, first)) if lo.max(glo) <= hi.min(ghi) => {
+                Some((lo.max(glo), hi.min(ghi), first))
+            }
             _ => {
                 if let Some(g) = group {
                     plan.push(g);
                 }
-                Some((lo, hi))
+                Some((lo, hi, i))
             }
         };
     }
@@ -561,6 +714,33 @@ mod tests {
         assert_eq!(back.len() as u64, n);
         // Times are written to the microsecond, as the scenario makes them.
         assert_eq!(back, sc.chunks(&Plain));
+    }
+
+    #[test]
+    fn spotting_evenings_jump_and_call_and_record_every_retune() {
+        let bands = [(7_000_000, 7_200_000), (14_000_000, 14_350_000)];
+        let a = spotting_evening(3, 2.0, &bands);
+        assert_eq!(a.steps, spotting_evening(3, 2.0, &bands).steps);
+        assert!(a.steps.windows(2).all(|w| w[0].0 <= w[1].0));
+        // Every retune is the time and frequency of a report, and starts a
+        // dwell on that frequency.
+        for r in &a.retunes {
+            assert!(a.steps.contains(&(r.at, Happening::Report { hz: r.hz })));
+            assert!(a.dwells.iter().any(|d| d.from == r.at && d.hz == r.hz));
+        }
+        let jumps = a.retunes.iter().filter(|r| r.kind == RetuneKind::Jump);
+        let called_within_100ms = jumps
+            .clone()
+            .filter(|r| {
+                a.transmit
+                    .iter()
+                    .any(|(on, _)| *on >= r.at && *on <= r.at + Duration::from_millis(100))
+            })
+            .count();
+        // About a quarter of all doings are clicks with a call at once.
+        let n = jumps.count();
+        assert!(n > 50, "{n}");
+        assert!(called_within_100ms * 5 > n, "{called_within_100ms} of {n}");
     }
 
     #[test]

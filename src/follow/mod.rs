@@ -32,7 +32,7 @@ use std::time::Duration;
 
 use crate::calibrate::StepMap;
 pub use effects::{apply, Effects};
-pub use policy::{Approach, Band, Legs, Placement, Policy};
+pub use policy::{Approach, Band, Jump, Legs, Placement, Policy};
 
 /// Why the core decided not to move (or not to move as asked).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -158,6 +158,8 @@ pub struct Stats {
     pub moves: u64,
     pub steps: u64,
     pub holds: u64,
+    /// Reports taken for jumps and acted on without the debounce.
+    pub jumps: u64,
 }
 
 /// The follow core. See the module documentation.
@@ -177,10 +179,16 @@ pub struct Follower {
     want: Option<Target>,
     motion: Motion,
     inhibit: bool,
+    /// When the inhibit was last asserted: a move waits `inhibit_lead`
+    /// from then, however the inhibit came to be on.
+    inhibit_since: Duration,
     release_at: Option<Duration>,
     /// The inhibit is held for a detuned report that has not settled yet.
     detune_hold: bool,
     touchup: Option<Touchup>,
+    /// The last frequency reported that differed from the one before it,
+    /// and when it came: what a jump is told from.
+    last_report: Option<(u64, Duration)>,
     /// The last hold reported, so that a repeated identical decision is
     /// logged once, not on every report.
     last_hold: Option<(u64, HoldReason)>,
@@ -220,9 +228,11 @@ impl Follower {
             want: None,
             motion: Motion::Idle,
             inhibit: false,
+            inhibit_since: Duration::ZERO,
             release_at: None,
             detune_hold: false,
             touchup: None,
+            last_report: None,
             last_hold: None,
             actions: VecDeque::new(),
             stats: Stats::default(),
@@ -235,17 +245,45 @@ impl Follower {
 
     // ----- events in -------------------------------------------------------
 
-    /// The rig reported its frequency.
+    /// The rig reported its frequency. A report that is part of a sweep
+    /// waits for the debounce; a jump (see [`Jump`]) is acted on at once.
     pub fn handle_frequency(&mut self, now: Duration, hz: u64) {
+        let jump = self.policy.is_jump(now, hz, self.last_report);
+        self.note_report(now, hz);
+        if jump && self.pending.is_none_or(|p| p.hz != hz) && self.settled_hz != Some(hz) {
+            self.stats.jumps += 1;
+        }
+        self.report(now, hz, jump);
+    }
+
+    /// A frequency known to be where the operator is going, not a step of a
+    /// sweep: a frequency set seen going to the rig from another program, or
+    /// an operator's command. Acted on at once, under the same rules as a
+    /// settled report (bands, dead band, limits, transmit deferral, inhibit).
+    pub fn handle_frequency_set(&mut self, now: Duration, hz: u64) {
+        self.note_report(now, hz);
+        self.report(now, hz, true);
+    }
+
+    fn note_report(&mut self, now: Duration, hz: u64) {
+        if self.last_report.is_none_or(|(last, _)| last != hz) {
+            self.last_report = Some((hz, now));
+        }
+    }
+
+    /// A report of `hz`, settled after the debounce or (`at_once`) now.
+    fn report(&mut self, now: Duration, hz: u64, at_once: bool) {
         match self.pending {
-            Some(p) if p.hz == hz => return,
+            Some(p) if p.hz == hz && !at_once => return,
             None if self.settled_hz == Some(hz) => return,
             _ => {}
         }
-        self.pending = Some(Pending {
-            hz,
-            deadline: now + self.policy.debounce_for(hz),
-        });
+        let deadline = if at_once {
+            now
+        } else {
+            now + self.policy.debounce_for(hz)
+        };
+        self.pending = Some(Pending { hz, deadline });
         if self.policy.inhibit_while_detuned
             && !self.transmitting
             && self.position.is_some()
@@ -255,7 +293,7 @@ impl Follower {
             // transmitting into it until it has been tuned. (A running
             // inhibit tail is kept, and ends no earlier than the settle.)
             self.detune_hold = true;
-            self.set_inhibit(true);
+            self.assert_inhibit(now);
         }
         self.handle_timeout(now);
     }
@@ -352,7 +390,7 @@ impl Follower {
         self.position = None;
         self.motion = Motion::Idle;
         self.release_at = None;
-        self.set_inhibit(true);
+        self.assert_inhibit(now);
         if let Some(hz) = self.settled_hz {
             self.hold(hz, HoldReason::Fault);
         }
@@ -610,11 +648,17 @@ impl Follower {
             return;
         }
         if self.inhibit {
-            // Already asserted (in the tail of the last move): go at once.
+            // Already asserted (in the tail of the last move, or for a
+            // detuned report): go once it has been on for the lead.
             self.release_at = None;
-            self.start_legs();
+            let ready = self.inhibit_since + self.policy.inhibit_lead;
+            if now >= ready {
+                self.start_legs();
+            } else {
+                self.motion = Motion::Arming { until: ready };
+            }
         } else {
-            self.set_inhibit(true);
+            self.assert_inhibit(now);
             self.motion = Motion::Arming {
                 until: now + self.policy.inhibit_lead,
             };
@@ -690,7 +734,11 @@ impl Follower {
         match self.motion {
             Motion::Arming { .. } => {
                 self.motion = Motion::Idle;
-                self.set_inhibit(false);
+                // Nothing has moved; with `inhibit_while_detuned` the loop
+                // is still wrong for the frequency, so the inhibit stays.
+                if !self.policy.inhibit_while_detuned {
+                    self.set_inhibit(false);
+                }
                 self.defer(reason);
             }
             Motion::Moving { target, .. } => {
@@ -720,6 +768,14 @@ impl Follower {
         self.actions.push_back(Action::Hold { hz, reason });
     }
 
+    /// Asserts the inhibit, noting when (for the lead before a move).
+    fn assert_inhibit(&mut self, now: Duration) {
+        if !self.inhibit {
+            self.inhibit_since = now;
+        }
+        self.set_inhibit(true);
+    }
+
     fn set_inhibit(&mut self, on: bool) {
         if self.inhibit != on {
             self.inhibit = on;
@@ -728,5 +784,7 @@ impl Follower {
     }
 }
 
+#[cfg(test)]
+mod jump_tests;
 #[cfg(test)]
 mod tests;

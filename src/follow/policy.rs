@@ -55,6 +55,22 @@ pub struct Policy {
     /// How long the operator must stay after a hand touch-up before the
     /// touched-up position is offered as a calibration candidate.
     pub candidate_dwell: Duration,
+    /// Reports that are jumps, not part of a knob sweep, are acted on at
+    /// once instead of after the debounce; `None`: every report waits.
+    pub jump: Option<Jump>,
+}
+
+/// When a report counts as a jump (a band change, a memory recall, a
+/// band-map click): it comes after `quiet` without another frequency
+/// reported, and lies in another band than the report before it (or
+/// outside every band when that one was inside, or the other way round),
+/// or at least `min_hz` away from it. A knob reports every few tens of
+/// milliseconds, a few Hz to a few kHz at a time, so neither holds for the
+/// reports of a sweep after its first.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Jump {
+    pub min_hz: u64,
+    pub quiet: Duration,
 }
 
 impl Policy {
@@ -94,6 +110,23 @@ impl Policy {
             }
             Placement::Outside => self.debounce,
         }
+    }
+
+    /// Whether a report of `hz` at `now` is a jump, given the report of
+    /// another frequency before it, `last` (its frequency and when it came).
+    /// See [`Jump`].
+    pub fn is_jump(&self, now: Duration, hz: u64, last: Option<(u64, Duration)>) -> bool {
+        let (Some(jump), Some((last_hz, at))) = (self.jump, last) else {
+            return false;
+        };
+        if now.saturating_sub(at) < jump.quiet || last_hz == hz {
+            return false;
+        }
+        let band = |f: u64| match self.place(f) {
+            Placement::Inside { band } | Placement::Guard { band, .. } => Some(band),
+            Placement::Outside => None,
+        };
+        band(hz) != band(last_hz) || hz.abs_diff(last_hz) >= jump.min_hz
     }
 
     /// Clamps a position into the safe travel.
@@ -166,6 +199,7 @@ mod tests {
             min_move_steps: 2,
             inhibit_lead: Duration::from_millis(20),
             inhibit_while_detuned: false,
+            jump: None,
             inhibit_tail: Duration::from_millis(100),
             candidate_dwell: Duration::from_secs(10),
         }

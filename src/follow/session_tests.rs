@@ -43,6 +43,7 @@ fn policy(backlash: i64) -> Policy {
         inhibit_tail: ms(50),
         candidate_dwell: ms(5_000),
         inhibit_while_detuned: false,
+        jump: None,
     }
 }
 

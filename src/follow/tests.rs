@@ -47,6 +47,7 @@ fn policy() -> Policy {
         // Off for most rules below, which time the inhibit around moves;
         // the tests of the detuned inhibit turn it on.
         inhibit_while_detuned: false,
+        jump: None,
     }
 }
 

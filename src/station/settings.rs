@@ -17,7 +17,7 @@ use crate::config::{
     SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
 use crate::error::{Located, Place};
-use crate::follow::{Band, Follower, Policy};
+use crate::follow::{Band, Follower, Jump, Policy};
 use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
 use crate::port::link::LinkConfig;
@@ -78,6 +78,10 @@ pub fn policy_from_config(
         inhibit_while_detuned: f.inhibit_while_detuned,
         inhibit_tail: Duration::from_millis(f.inhibit_tail_ms),
         candidate_dwell: Duration::from_millis(f.candidate_dwell_ms),
+        jump: (f.jump_hz > 0).then(|| Jump {
+            min_hz: f.jump_hz,
+            quiet: Duration::from_millis(f.jump_quiet_ms),
+        }),
     })
 }
 

@@ -55,6 +55,7 @@ pub fn policy(debounce: Duration) -> Policy {
         inhibit_tail: Duration::from_millis(20),
         candidate_dwell: Duration::from_secs(60),
         inhibit_while_detuned: false,
+        jump: None,
     }
 }
 

@@ -1,0 +1,240 @@
+//! The core tells a jump (a band change, a memory recall, a band-map click)
+//! from a knob sweep, and acts on a jump at once: unit tests driven event by
+//! event. The calibration is the invented straight line of `tests.rs`
+//! (100 Hz is one step), for the rules only.
+
+use super::*;
+
+struct Line;
+impl StepMap for Line {
+    fn steps_at(&self, hz: f64) -> f64 {
+        10_000.0 - (hz - 7_000_000.0) / 100.0
+    }
+}
+
+fn ms(v: u64) -> Duration {
+    Duration::from_millis(v)
+}
+
+/// One 40 m band with a 300 ms debounce and a 1 kHz dead band; jumps are
+/// 10 kHz or more after 300 ms without another frequency.
+fn policy() -> Policy {
+    Policy {
+        bands: vec![Band {
+            name: "40m".into(),
+            low_hz: 7_000_000,
+            high_hz: 7_200_000,
+            guard_hz: 10_000,
+            hysteresis_hz: 1_000,
+            debounce: ms(300),
+        }],
+        min_steps: 0,
+        max_steps: 12_000,
+        backlash_steps: 0,
+        approach: Approach::Up,
+        debounce: ms(500),
+        min_move_steps: 3,
+        inhibit_lead: ms(20),
+        inhibit_tail: ms(100),
+        candidate_dwell: ms(5_000),
+        inhibit_while_detuned: true,
+        jump: Some(Jump {
+            min_hz: 10_000,
+            quiet: ms(300),
+        }),
+    }
+}
+
+/// A core tuned for 7.050 MHz (position 9 500), settled there at 0 ms,
+/// with the settle's actions drained.
+fn tuned() -> Follower {
+    let mut f = Follower::new(policy(), Arc::new(Line), Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    drain(&mut f);
+    f
+}
+
+fn drain(f: &mut Follower) -> Vec<Action> {
+    std::iter::from_fn(|| f.poll_action())
+        .filter(|a| !matches!(a, Action::Settled { .. }))
+        .collect()
+}
+
+fn gotos(actions: &[Action]) -> Vec<i64> {
+    actions
+        .iter()
+        .filter_map(|a| match a {
+            Action::Goto { steps } => Some(*steps),
+            _ => None,
+        })
+        .collect()
+}
+
+#[test]
+fn a_jump_after_a_quiet_spell_moves_after_the_lead_not_the_debounce() {
+    let mut f = tuned();
+    // 10 s on 7.050, then a memory recall to 7.150 (100 kHz away).
+    f.handle_frequency(ms(10_000), 7_150_000);
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    // The inhibit went on with the report: the first step waits its lead.
+    assert_eq!(f.poll_timeout(), Some(ms(10_020)));
+    f.handle_timeout(ms(10_019));
+    assert!(drain(&mut f).is_empty());
+    f.handle_timeout(ms(10_020));
+    assert_eq!(
+        drain(&mut f),
+        vec![
+            Action::Move {
+                from: 9_500,
+                to: 8_500,
+                hz: 7_150_000,
+                tune_hz: 7_150_000,
+            },
+            Action::Goto { steps: 8_500 },
+        ]
+    );
+    assert_eq!(f.stats().jumps, 1);
+}
+
+#[test]
+fn a_sweep_is_no_jump_and_waits_for_the_settle() {
+    let mut f = tuned();
+    // A knob sweep after a quiet spell: 2 kHz every 50 ms up to 7.090,
+    // and then, still turning, a step of 20 kHz (a fast spin): neither the
+    // first step (too close) nor the later ones (too soon) is a jump.
+    let mut t = 10_000;
+    let mut hz = 7_050_000;
+    while hz < 7_090_000 {
+        hz += 2_000;
+        f.handle_frequency(ms(t), hz);
+        f.handle_timeout(ms(t + 49));
+        assert!(
+            gotos(&drain(&mut f)).is_empty(),
+            "moved at {hz} while turning"
+        );
+        t += 50;
+    }
+    f.handle_frequency(ms(t), 7_110_000);
+    f.handle_timeout(ms(t + 299));
+    assert!(
+        gotos(&drain(&mut f)).is_empty(),
+        "a fast step taken for a jump"
+    );
+    f.handle_timeout(ms(t + 300));
+    f.handle_timeout(ms(t + 320));
+    // 10 000 - 110 000 / 100 steps.
+    assert_eq!(gotos(&drain(&mut f)), vec![8_900]);
+    assert_eq!(f.stats().jumps, 0);
+}
+
+#[test]
+fn another_band_or_leaving_the_bands_is_a_jump_at_any_distance() {
+    let mut f = tuned();
+    // 7.050 to 7.205 MHz is in the guard margin, still 40 m: a jump by
+    // distance. Out to a broadcast station at 7.250 (outside every band
+    // and guard): a jump by band, held at once as out of band.
+    f.handle_frequency(ms(10_000), 7_250_000);
+    assert_eq!(
+        drain(&mut f),
+        vec![Action::Hold {
+            hz: 7_250_000,
+            reason: HoldReason::OutOfBand
+        }]
+    );
+    // Back 5 kHz below where it was before (less than jump_hz, but from
+    // outside the bands into one): a jump, and a move after the lead.
+    f.handle_frequency(ms(20_000), 7_045_000);
+    f.handle_timeout(ms(20_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_550]);
+    assert_eq!(f.stats().jumps, 2);
+}
+
+#[test]
+fn a_jump_while_the_rig_transmits_waits_for_receive() {
+    let mut f = tuned();
+    f.handle_transmit(ms(5_000), true);
+    f.handle_frequency(ms(10_000), 7_150_000);
+    f.handle_timeout(ms(10_500));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(a.contains(&Action::Hold {
+        hz: 7_150_000,
+        reason: HoldReason::Transmitting
+    }));
+    // Receive: the move goes after the inhibit lead.
+    f.handle_transmit(ms(11_000), false);
+    let a = drain(&mut f);
+    assert_eq!(a.first(), Some(&Action::Inhibit { on: true }), "{a:?}");
+    assert!(gotos(&a).is_empty());
+    f.handle_timeout(ms(11_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![8_500]);
+}
+
+#[test]
+fn a_transmission_during_the_lead_of_a_jump_keeps_the_loop_inhibited() {
+    let mut f = tuned();
+    f.handle_frequency(ms(10_000), 7_150_000);
+    f.handle_transmit(ms(10_010), true);
+    f.handle_timeout(ms(10_100));
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    // The loop is wrong for 7.150: the inhibit stays on through the over.
+    assert!(f.inhibit());
+    assert!(!a.contains(&Action::Inhibit { on: false }), "{a:?}");
+    f.handle_transmit(ms(12_000), false);
+    assert_eq!(gotos(&drain(&mut f)), vec![8_500]);
+}
+
+#[test]
+fn a_frequency_set_is_acted_on_at_once_even_close_by() {
+    let mut f = tuned();
+    // 3 kHz away and 100 ms after the last report: no jump by the rules,
+    // but a set seen going to the rig says where the operator is going.
+    f.handle_frequency(ms(10_000), 7_051_000);
+    f.handle_frequency_set(ms(10_100), 7_053_000);
+    f.handle_timeout(ms(10_120));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_470]);
+    // A set inside the dead band of where the loop is moves nothing.
+    f.handle_arrived(ms(10_300), 9_470);
+    f.handle_timeout(ms(10_500));
+    drain(&mut f);
+    f.handle_frequency_set(ms(20_000), 7_053_500);
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(a.contains(&Action::Hold {
+        hz: 7_053_500,
+        reason: HoldReason::DeadBand
+    }));
+}
+
+#[test]
+fn without_jumps_in_the_policy_every_report_waits_for_the_debounce() {
+    let mut p = policy();
+    p.jump = None;
+    let mut f = Follower::new(p, Arc::new(Line), Some(9_500));
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    drain(&mut f);
+    f.handle_frequency(ms(10_000), 7_150_000);
+    f.handle_timeout(ms(10_299));
+    assert!(gotos(&drain(&mut f)).is_empty());
+    f.handle_timeout(ms(10_300));
+    f.handle_timeout(ms(10_300));
+    assert_eq!(gotos(&drain(&mut f)), vec![8_500]);
+    assert_eq!(f.stats().jumps, 0);
+}
+
+#[test]
+fn a_jump_during_a_move_retargets_when_the_motor_rests() {
+    let mut f = tuned();
+    f.handle_frequency(ms(10_000), 7_150_000);
+    f.handle_timeout(ms(10_020));
+    assert_eq!(gotos(&drain(&mut f)), vec![8_500]);
+    // Another recall before the motor has arrived: it waits for the rest,
+    // then goes at once (the inhibit is still on, its lead long past).
+    f.handle_frequency(ms(10_400), 7_020_000);
+    assert!(gotos(&drain(&mut f)).is_empty());
+    f.handle_arrived(ms(11_000), 8_500);
+    assert_eq!(gotos(&drain(&mut f)), vec![9_800]);
+}
