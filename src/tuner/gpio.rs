@@ -804,7 +804,16 @@ mod tests {
             let ctl = slow(&bench, 0);
             let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
             assert_eq!(h.ask("GOTO 1000").await, "MOVING 1000");
-            tokio::time::sleep(Duration::from_millis(300)).await;
+            // Retarget once the motor is well on its way: wait for the steps
+            // themselves (bounded), not for a fixed time, so a loaded machine
+            // that runs the stepper thread late cannot change the scenario.
+            for _ in 0..500 {
+                if rising(&bench.edges.lock().unwrap()).len() >= 25 {
+                    break;
+                }
+                tokio::time::sleep(Duration::from_millis(10)).await;
+            }
+            assert!(rising(&bench.edges.lock().unwrap()).len() >= 25);
             assert_eq!(h.ask("GOTO 20").await, "MOVING 20");
             assert_eq!(h.hear().await, "AT 20");
             let edges = bench.edges.lock().unwrap().clone();
