@@ -11,7 +11,7 @@
 use std::path::Path;
 
 use super::binary::BinaryDecoder;
-pub use super::binary::{BinarySpec, Slot};
+pub use super::binary::{BinarySpec, Slot, StationCodes};
 pub use super::keys::DialectError;
 use super::keys::Reader;
 use super::text::TextDecoder;
@@ -147,6 +147,7 @@ impl Dialect {
                 "status",
                 "transmit",
                 "poll",
+                "station",
             ],
         )?;
         let name = r.string(&table, "", "name")?;
@@ -182,13 +183,13 @@ impl Dialect {
     /// others after it) from both directions, besides exactly the events
     /// [`Dialect::decoder`] emits. Text family: every VFO's frequency, the
     /// receive/transmit VFO, sets and transmit/receive commands going to the
-    /// rig. Binary family: no station events yet (the same events as
-    /// [`Dialect::decoder`]).
+    /// rig. Binary family: VFO select, split, selected/unselected VFO
+    /// frequency, frequency sets and transmit on/off going to the rig.
     ///
     /// [`RigEvent::Vfo`]: super::RigEvent::Vfo
     pub fn station_decoder(&self, rig_address: Option<u8>) -> Box<dyn Decode> {
         match &self.spec {
-            Spec::Binary(s) => Box::new(BinaryDecoder::new(s.clone(), rig_address)),
+            Spec::Binary(s) => Box::new(BinaryDecoder::station(s.clone(), rig_address)),
             Spec::Text(s) => Box::new(TextDecoder::station(s.clone())),
         }
     }

@@ -100,6 +100,12 @@ pub enum RigEvent {
         hz: Option<i32>,
         seen: Seen,
     },
+    /// The frequency of the VFO in use, whichever it is: for a family that
+    /// names VFOs as selected/unselected rather than A/B (binary `0x25 00`
+    /// answers, and `0x05`/`0x00`/`0x25 00` sets going to the rig).
+    SelectedFrequency { hz: u64, seen: Seen },
+    /// The frequency of the VFO not in use (binary `0x25 01`).
+    UnselectedFrequency { hz: u64, seen: Seen },
     /// A command going to the rig to transmit (`true`) or receive
     /// (`false`): another program keying the rig over the control port.
     /// Fail safe: it counts as a transmission from the moment it is seen.

@@ -38,6 +38,28 @@ pub struct BinarySpec {
     pub poll_frequency: Vec<Slot>,
     /// Poll query for the transmit state.
     pub poll_transmit: Vec<Slot>,
+    /// Commands only the station decoder reads.
+    pub station: StationCodes,
+}
+
+/// Commands of a binary dialect that only the station decoder reads
+/// (`[station]` table).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct StationCodes {
+    /// Frequency set of the VFO in use, acknowledged by the rig.
+    pub frequency_set: u8,
+    /// VFO select, and its data bytes naming VFO A and B.
+    pub select_vfo: u8,
+    pub vfo_a: u8,
+    pub vfo_b: u8,
+    /// Split, and its data bytes for off and on.
+    pub split: u8,
+    pub split_off: u8,
+    pub split_on: u8,
+    /// Frequency of the selected/unselected VFO, and the two sub-commands.
+    pub vfo_frequency: u8,
+    pub selected_sub: u8,
+    pub unselected_sub: u8,
 }
 
 /// One byte of a binary poll query: literal, or filled in when sent.
@@ -117,8 +139,49 @@ impl BinarySpec {
                 "command",
                 "frequency",
                 "poll",
+                "station",
             ],
         )?;
+        let station = r.table(t, "", "station")?;
+        let station_keys = [
+            "frequency_set",
+            "select_vfo",
+            "vfo_a",
+            "vfo_b",
+            "split",
+            "split_off",
+            "split_on",
+            "vfo_frequency",
+            "selected_sub",
+            "unselected_sub",
+        ];
+        r.only(station, "station", &station_keys)?;
+        let sb = |key: &str| r.byte(station, "station", key);
+        let station = StationCodes {
+            frequency_set: sb("frequency_set")?,
+            select_vfo: sb("select_vfo")?,
+            vfo_a: sb("vfo_a")?,
+            vfo_b: sb("vfo_b")?,
+            split: sb("split")?,
+            split_off: sb("split_off")?,
+            split_on: sb("split_on")?,
+            vfo_frequency: sb("vfo_frequency")?,
+            selected_sub: sb("selected_sub")?,
+            unselected_sub: sb("unselected_sub")?,
+        };
+        for (a, b, key) in [
+            (station.vfo_a, station.vfo_b, "station.vfo_b"),
+            (station.split_off, station.split_on, "station.split_on"),
+            (
+                station.selected_sub,
+                station.unselected_sub,
+                "station.unselected_sub",
+            ),
+        ] {
+            if a == b {
+                return Err(r.err(key, "a byte different from its pair", format!("0x{b:02X}")));
+            }
+        }
         let frame = r.table(t, "", "frame")?;
         r.only(frame, "frame", &["preamble", "terminator", "max_length"])?;
         let address = r.table(t, "", "address")?;
@@ -184,6 +247,7 @@ impl BinarySpec {
                 max_frame,
             )?,
             poll_transmit: binary_query(r, poll, "poll.transmit", preamble, terminator, max_frame)?,
+            station,
         };
         Ok(spec)
     }

@@ -16,11 +16,12 @@ use nom::bytes::take;
 use nom::{IResult, Parser};
 
 mod dialect;
-pub use dialect::{BinarySpec, Slot};
+pub use dialect::{BinarySpec, Slot, StationCodes};
 
 use super::swar::{broadcast, equal_to_any, find_either};
 use super::{
-    bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent, Stream,
+    bcd, plausible, DecodeStats, Direction, Outcome, RejectReason, RejectRun, RigEvent, Seen,
+    Stream, Vfo,
 };
 use super::{FamilyDecoder, Framing};
 
@@ -29,6 +30,7 @@ use super::{FamilyDecoder, Framing};
 pub struct Binary {
     spec: BinarySpec,
     rig_address: Option<u8>,
+    station: bool,
 }
 
 /// Decoder for the binary framed family.
@@ -39,7 +41,32 @@ impl BinaryDecoder {
     /// except our controller's.
     pub fn new(spec: BinarySpec, rig_address: Option<u8>) -> BinaryDecoder {
         let cap = spec.max_frame + 1 + TOP_UP;
-        FamilyDecoder::with_framing(Binary { spec, rig_address }, cap)
+        FamilyDecoder::with_framing(
+            Binary {
+                spec,
+                rig_address,
+                station: false,
+            },
+            cap,
+        )
+    }
+
+    /// A decoder that also emits station events: VFO select, split, the
+    /// selected/unselected VFO's frequency, from the rig (`Seen::Report`)
+    /// and from commands going to it or echoed on the bus from our
+    /// controller address (`Seen::Command`): frequency sets, transmit
+    /// on/off ([`RigEvent::TransmitCommand`]). Its `Frequency` and
+    /// `Transmit` events are exactly the reporting decoder's.
+    pub fn station(spec: BinarySpec, rig_address: Option<u8>) -> BinaryDecoder {
+        let cap = spec.max_frame + 1 + TOP_UP;
+        FamilyDecoder::with_framing(
+            Binary {
+                spec,
+                rig_address,
+                station: true,
+            },
+            cap,
+        )
     }
 }
 
@@ -70,6 +97,7 @@ impl Framing for Binary {
                 let ctx = Ctx {
                     spec: &self.spec,
                     rig_address: self.rig_address,
+                    station: self.station,
                     dir,
                 };
                 let used = process(
@@ -97,6 +125,7 @@ impl Framing for Binary {
             let ctx = Ctx {
                 spec: &self.spec,
                 rig_address: self.rig_address,
+                station: self.station,
                 dir,
             };
             let mut used = process(
@@ -126,6 +155,7 @@ impl Framing for Binary {
 struct Ctx<'a> {
     spec: &'a BinarySpec,
     rig_address: Option<u8>,
+    station: bool,
     dir: Direction,
 }
 
@@ -320,11 +350,18 @@ fn interpret_clean(ctx: &Ctx, body: &[u8]) -> Outcome {
     let Some((data, [_to, from, cmd])) = header(body) else {
         return Outcome::Reject(RejectReason::BadLength);
     };
-    if ctx.dir == Direction::Tx {
-        return Outcome::Ignored;
+    if ctx.dir == Direction::Tx || from == s.controller {
+        // Going to the rig, or a request echoed on the shared bus (ours or
+        // another program's from the same address): only the station
+        // decoder makes anything of it.
+        return if ctx.station {
+            interpret_command(s, cmd, data)
+        } else {
+            Outcome::Ignored
+        };
     }
-    // Our own requests echoed on the shared bus, and acknowledgements.
-    if from == s.controller || cmd == s.ack_ok || cmd == s.ack_ng {
+    // Acknowledgements.
+    if cmd == s.ack_ok || cmd == s.ack_ng {
         return Outcome::Ignored;
     }
     if ctx.rig_address.is_some_and(|a| a != from) {
@@ -357,7 +394,95 @@ fn interpret_clean(ctx: &Ctx, body: &[u8]) -> Outcome {
             _ => Outcome::Reject(RejectReason::BadLength),
         };
     }
+    if ctx.station {
+        return station_frame(s, cmd, data, Seen::Report).unwrap_or(Outcome::Ignored);
+    }
     Outcome::Ignored
+}
+
+/// A frequency field of the dialect's width, as a plausible frequency.
+fn bcd_frequency(s: &BinarySpec, data: &[u8]) -> Result<u64, RejectReason> {
+    if data.len() != s.frequency_bytes {
+        return Err(RejectReason::BadLength);
+    }
+    let hz = bcd::decode_le(data).map_err(|_| RejectReason::BadDigit)?;
+    match plausible(hz)? {
+        RigEvent::Frequency { hz } => Ok(hz),
+        _ => Err(RejectReason::OutOfRange),
+    }
+}
+
+/// The frames only the station decoder understands, in either direction:
+/// VFO select, split, and the selected/unselected VFO's frequency. None:
+/// not one of them, or a read (no data).
+fn station_frame(s: &BinarySpec, cmd: u8, data: &[u8], seen: Seen) -> Option<Outcome> {
+    let st = &s.station;
+    let one = |e| Some(Outcome::One(e));
+    if cmd == st.select_vfo {
+        return match data {
+            [] => None,
+            [d] if *d == st.vfo_a => one(RigEvent::ReceiveVfo { vfo: Vfo::A, seen }),
+            [d] if *d == st.vfo_b => one(RigEvent::ReceiveVfo { vfo: Vfo::B, seen }),
+            // Exchange, equalise, main/sub: not a VFO named.
+            _ => Some(Outcome::Ignored),
+        };
+    }
+    if cmd == st.split {
+        return match data {
+            [] => None,
+            [d] if *d == st.split_off => one(RigEvent::Split { on: false, seen }),
+            [d] if *d == st.split_on => one(RigEvent::Split { on: true, seen }),
+            // Duplex and other settings of the same command.
+            _ => Some(Outcome::Ignored),
+        };
+    }
+    if cmd == st.vfo_frequency {
+        let (sub, field) = data.split_first()?;
+        if field.is_empty() {
+            // A read of one VFO's frequency.
+            return None;
+        }
+        if *sub != st.selected_sub && *sub != st.unselected_sub {
+            return Some(Outcome::Ignored);
+        }
+        return Some(match bcd_frequency(s, field) {
+            Ok(hz) if *sub == st.selected_sub => {
+                Outcome::One(RigEvent::SelectedFrequency { hz, seen })
+            }
+            Ok(hz) => Outcome::One(RigEvent::UnselectedFrequency { hz, seen }),
+            Err(reason) => Outcome::Reject(reason),
+        });
+    }
+    None
+}
+
+/// A frame going to the rig (or echoed from our controller address):
+/// frequency sets, transmit on/off, and the station frames. Reads (no data)
+/// are queries, nothing; a malformed set is rejected with its reason.
+fn interpret_command(s: &BinarySpec, cmd: u8, data: &[u8]) -> Outcome {
+    if cmd == s.ack_ok || cmd == s.ack_ng || data.is_empty() {
+        return Outcome::Ignored;
+    }
+    if cmd == s.station.frequency_set || cmd == s.frequency_broadcast {
+        return match bcd_frequency(s, data) {
+            Ok(hz) => Outcome::One(RigEvent::SelectedFrequency {
+                hz,
+                seen: Seen::Command,
+            }),
+            Err(reason) => Outcome::Reject(reason),
+        };
+    }
+    if cmd == s.transmit {
+        return match data {
+            [sub, ..] if *sub != s.transmit_sub => Outcome::Ignored,
+            [_] => Outcome::Ignored,
+            [_, 0x00] => Outcome::One(RigEvent::TransmitCommand { on: false }),
+            [_, 0x01] => Outcome::One(RigEvent::TransmitCommand { on: true }),
+            [_, _] => Outcome::Reject(RejectReason::Unknown),
+            _ => Outcome::Reject(RejectReason::BadLength),
+        };
+    }
+    station_frame(s, cmd, data, Seen::Command).unwrap_or(Outcome::Ignored)
 }
 
 #[cfg(test)]
@@ -547,5 +672,120 @@ mod tests {
         let mut out = Vec::new();
         dec.feed(Direction::Rx, &bytes, &mut out);
         assert_eq!(out, vec![freq(14_074_000)]);
+    }
+
+    fn station(dir: Direction, bytes: &[u8]) -> Vec<RigEvent> {
+        let mut d = Dialect::builtin("binary-bcd")
+            .unwrap()
+            .station_decoder(Some(0x5A));
+        let mut out = Vec::new();
+        d.feed(dir, bytes, &mut out);
+        d.finish(&mut out);
+        out
+    }
+
+    // Frames worked by hand from the family's published frame layout
+    // (FE FE <to> <from> <cmd> [<data>] FD, BCD least significant byte
+    // first). The command codes (05 set frequency, 07 VFO select with 00 =
+    // A / 01 = B, 0F split with 00 off / 01 on, 25 00/01 selected/unselected
+    // VFO frequency, 1C 00 transmit) are recalled from the manufacturer's
+    // CI-V reference guide, not checked against it here.
+
+    #[test]
+    fn station_sees_another_programs_commands_going_to_the_rig() {
+        let frames: [&[u8]; 10] = [
+            // 05: set 14 200 000 Hz (00 00 20 14 00).
+            &[
+                0xFE, 0xFE, 0x5A, 0xE0, 0x05, 0x00, 0x00, 0x20, 0x14, 0x00, 0xFD,
+            ],
+            // 07 01: select VFO B.
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x07, 0x01, 0xFD],
+            // 0F 01: split on.
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x0F, 0x01, 0xFD],
+            // 25 01: unselected VFO at 14 195 000 Hz (00 50 19 14 00).
+            &[
+                0xFE, 0xFE, 0x5A, 0xE0, 0x25, 0x01, 0x00, 0x50, 0x19, 0x14, 0x00, 0xFD,
+            ],
+            // 1C 00 01: transmit; 1C 00 00: receive.
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x1C, 0x00, 0x01, 0xFD],
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x1C, 0x00, 0x00, 0xFD],
+            // Reads: 03, 1C 00, 0F, 25 00: queries, nothing.
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x03, 0xFD],
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x1C, 0x00, 0xFD],
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x0F, 0xFD],
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x25, 0x00, 0xFD],
+        ];
+        let cmds = &frames.concat();
+        let want = vec![
+            RigEvent::SelectedFrequency {
+                hz: 14_200_000,
+                seen: Seen::Command,
+            },
+            RigEvent::ReceiveVfo {
+                vfo: Vfo::B,
+                seen: Seen::Command,
+            },
+            RigEvent::Split {
+                on: true,
+                seen: Seen::Command,
+            },
+            RigEvent::UnselectedFrequency {
+                hz: 14_195_000,
+                seen: Seen::Command,
+            },
+            RigEvent::TransmitCommand { on: true },
+            RigEvent::TransmitCommand { on: false },
+        ];
+        assert_eq!(station(Direction::Tx, cmds), want);
+        // The same frames echoed on the shared bus (from our controller
+        // address) are commands too; the reporting decoder ignores both.
+        assert_eq!(station(Direction::Rx, cmds), want);
+        assert_eq!(decode_with(Some(0x5A), Direction::Rx, cmds), vec![]);
+        assert_eq!(decode_with(Some(0x5A), Direction::Tx, cmds), vec![]);
+    }
+
+    #[test]
+    fn station_reads_the_rigs_answers() {
+        let frames: [&[u8]; 4] = [
+            // 0F 00: split off.
+            &[0xFE, 0xFE, 0xE0, 0x5A, 0x0F, 0x00, 0xFD],
+            // 25 00: selected VFO at 7 074 000 Hz (00 40 07 07 00).
+            &[
+                0xFE, 0xFE, 0xE0, 0x5A, 0x25, 0x00, 0x00, 0x40, 0x07, 0x07, 0x00, 0xFD,
+            ],
+            // 1C 00 01: transmitting; FB: OK.
+            &[0xFE, 0xFE, 0xE0, 0x5A, 0x1C, 0x00, 0x01, 0xFD],
+            &[0xFE, 0xFE, 0xE0, 0x5A, 0xFB, 0xFD],
+        ];
+        let answers = &frames.concat();
+        assert_eq!(
+            station(Direction::Rx, answers),
+            vec![
+                RigEvent::Split {
+                    on: false,
+                    seen: Seen::Report
+                },
+                RigEvent::SelectedFrequency {
+                    hz: 7_074_000,
+                    seen: Seen::Report
+                },
+                RigEvent::Transmit { on: true },
+            ]
+        );
+        // A bad digit in a VFO frequency answer is named; exchange (07 B0)
+        // names no VFO.
+        let bad: [&[u8]; 2] = [
+            &[
+                0xFE, 0xFE, 0xE0, 0x5A, 0x25, 0x01, 0x0A, 0x40, 0x07, 0x07, 0x00, 0xFD,
+            ],
+            &[0xFE, 0xFE, 0x5A, 0xE0, 0x07, 0xB0, 0xFD],
+        ];
+        assert_eq!(
+            station(Direction::Rx, &bad.concat()),
+            vec![RigEvent::Reject {
+                reason: RejectReason::BadDigit,
+                bytes: 12
+            }]
+        );
     }
 }
