@@ -55,6 +55,7 @@ fn piece(station_pieces: bool) -> impl Strategy<Value = Vec<u8>> {
             b"\xFE\xFE\x5A\xE0\x25\x01\x00\x40\x07\x07\x0A\xFD",
             b"\xFE\xFE\x5A\xE0\x1C\x00\x01\xFD",
             b"\xFE\xFE\x5A\xE0\x1C\x00\x00\xFD",
+            b"IF0001419500000000+015010000020010000;",
             b"FB00007074000;",
             b"FR0;",
             b"FR1;",

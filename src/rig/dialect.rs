@@ -15,7 +15,7 @@ pub use super::binary::{BinarySpec, Slot, StationCodes};
 pub use super::keys::DialectError;
 use super::keys::Reader;
 use super::text::TextDecoder;
-pub use super::text::{TextSpec, Vfo};
+pub use super::text::{StatusFlags, TextSpec, Vfo};
 use super::Decode;
 
 /// The two wire-protocol families tuneward understands.
@@ -333,6 +333,24 @@ mod tests {
         );
         let t = text_with("transmit_offset = 26", "transmit_offset = 3");
         assert_eq!(key_error(&t).0, "status.transmit_offset");
+    }
+
+    #[test]
+    fn station_keys_are_checked() {
+        let t = text_with("split_offset = 30", "split_offset = 5");
+        assert_eq!(key_error(&t).0, "status.split_offset");
+        let t = text_with("offset_offset = 16", "offset_offset = 31");
+        assert_eq!(key_error(&t).0, "status.offset_offset");
+        let t = text_with("select_b = \"1\"", "select_b = \"0\"");
+        assert_eq!(key_error(&t).0, "frequency.select_b");
+        let t = text_with("transmit_vfo = \"FT\"", "transmit_vfo = \"TX\"");
+        assert_eq!(key_error(&t).0, "frequency.transmit_vfo");
+        let t = BUILTINS[0]
+            .1
+            .replacen("split_on = 0x01", "split_on = 0x00", 1);
+        assert_eq!(key_error(&t).0, "station.split_on");
+        let t = BUILTINS[0].1.replacen("vfo_frequency = 0x25", "", 1);
+        assert_eq!(key_error(&t).0, "station.vfo_frequency");
     }
 
     #[test]

@@ -378,8 +378,42 @@ pub(crate) enum Outcome {
     One(RigEvent),
     /// Two reports (a status answer: frequency and transmit state).
     Two(RigEvent, RigEvent),
+    /// Up to [`Batch::CAP`] reports (a status answer read by the station
+    /// decoder).
+    Many(Batch),
     /// Rejected for this reason; the caller knows the length.
     Reject(RejectReason),
+}
+
+/// A few events from one message, kept without allocating.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) struct Batch {
+    len: usize,
+    events: [RigEvent; Batch::CAP],
+}
+
+impl Batch {
+    pub(crate) const CAP: usize = 8;
+
+    pub(crate) fn new() -> Batch {
+        Batch {
+            len: 0,
+            events: [RigEvent::Transmit { on: false }; Batch::CAP],
+        }
+    }
+
+    /// Adds `e`; beyond [`Batch::CAP`] events it is dropped (no message of
+    /// either family yields that many).
+    pub(crate) fn push(&mut self, e: RigEvent) {
+        if let Some(slot) = self.events.get_mut(self.len) {
+            *slot = e;
+            self.len += 1;
+        }
+    }
+
+    pub(crate) fn events(&self) -> &[RigEvent] {
+        self.events.get(..self.len).unwrap_or_default()
+    }
 }
 
 /// Checks a frequency against the plausible range.
@@ -415,6 +449,10 @@ impl Outcome {
                 out.push(a);
                 out.push(b);
                 stats.reports += 2;
+            }
+            Outcome::Many(batch) => {
+                out.extend_from_slice(batch.events());
+                stats.reports += batch.events().len() as u64;
             }
             Outcome::Reject(reason) => {
                 out.push(RigEvent::Reject { reason, bytes: len });

@@ -32,12 +32,29 @@ pub struct TextSpec {
     pub status_frequency_offset: usize,
     /// Offset of the one-character transmit flag in the status payload.
     pub status_transmit_offset: usize,
+    /// Where the station decoder finds the status answer's other flags.
+    pub status_station: StatusFlags,
     /// Message meaning "transmitting" (optional one-digit payload).
     pub transmit_on: [u8; 2],
     /// Message meaning "receiving" (optional one-digit payload).
     pub transmit_off: [u8; 2],
     pub poll_frequency: Vec<u8>,
     pub poll_transmit: Vec<u8>,
+}
+
+/// Offsets in the status payload of what only the station decoder reads.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct StatusFlags {
+    /// One character naming the VFO in use (`select_a`/`select_b`).
+    pub vfo: usize,
+    /// One character: split off `0`, on `1`.
+    pub split: usize,
+    /// One character each: RIT, XIT off `0`, on `1`.
+    pub rit: usize,
+    pub xit: usize,
+    /// The RIT/XIT offset: a sign then `offset_digits` digits, in Hz.
+    pub offset: usize,
+    pub offset_digits: usize,
 }
 
 impl TextSpec {
@@ -123,7 +140,18 @@ impl TextSpec {
         r.only(
             status,
             "status",
-            &["command", "length", "frequency_offset", "transmit_offset"],
+            &[
+                "command",
+                "length",
+                "frequency_offset",
+                "transmit_offset",
+                "vfo_offset",
+                "split_offset",
+                "rit_offset",
+                "xit_offset",
+                "offset_offset",
+                "offset_digits",
+            ],
         )?;
         let transmit = r.table(t, "", "transmit")?;
         r.only(transmit, "transmit", &["on", "off"])?;
@@ -201,6 +229,39 @@ impl TextSpec {
                 status_transmit_offset.to_string(),
             ));
         }
+        let freq_field = status_frequency_offset..status_frequency_offset + digits;
+        let flag = |key: &str| -> Result<usize, DialectError> {
+            let at = r.int(status, "status", key, 0, 4094)? as usize;
+            if at >= status_length || freq_field.contains(&at) {
+                return Err(r.err(
+                    &format!("status.{key}"),
+                    &format!("an offset below {status_length}, outside the frequency field"),
+                    at.to_string(),
+                ));
+            }
+            Ok(at)
+        };
+        let offset_digits = r.int(status, "status", "offset_digits", 1, 9)? as usize;
+        let offset = r.int(status, "status", "offset_offset", 0, 4094)? as usize;
+        if offset + 1 + offset_digits > status_length
+            || (offset < freq_field.end && freq_field.start < offset + 1 + offset_digits)
+        {
+            return Err(r.err(
+                "status.offset_offset",
+                &format!(
+                    "an offset leaving room for a sign and {offset_digits} digits in a payload of {status_length}, outside the frequency field"
+                ),
+                offset.to_string(),
+            ));
+        }
+        let status_station = StatusFlags {
+            vfo: flag("vfo_offset")?,
+            split: flag("split_offset")?,
+            rit: flag("rit_offset")?,
+            xit: flag("xit_offset")?,
+            offset,
+            offset_digits,
+        };
         let transmit_on = r.code(transmit, "transmit", "on")?;
         let transmit_off = r.code(transmit, "transmit", "off")?;
         let codes = [
@@ -240,6 +301,7 @@ impl TextSpec {
             status_length,
             status_frequency_offset,
             status_transmit_offset,
+            status_station,
             transmit_on,
             transmit_off,
             poll_frequency,

@@ -20,13 +20,13 @@ use nom::number::complete::be_u16;
 use nom::IResult;
 
 mod dialect;
-pub use dialect::{TextSpec, Vfo};
+pub use dialect::{StatusFlags, TextSpec, Vfo};
 
 use super::swar::{ascii_digits, find_stop_or_unprintable};
 use super::RejectRun;
 use super::{
-    plausible, DecodeStats, Direction, FamilyDecoder, Framing, Outcome, RejectReason, RigEvent,
-    Seen, Stream,
+    plausible, Batch, DecodeStats, Direction, FamilyDecoder, Framing, OffsetKind, Outcome,
+    RejectReason, RigEvent, Seen, Stream,
 };
 
 /// The text family's framing: its dialect, and whether station events are
@@ -219,7 +219,11 @@ fn resync(spec: &TextSpec, station: bool, dir: Direction, run: &[u8]) -> Option<
             })
             .find_map(|at| {
                 let outcome = interpret(spec, as_station, dir, run.get(at..)?);
-                matches!(outcome, Outcome::One(_) | Outcome::Two(..)).then_some(at)
+                matches!(
+                    outcome,
+                    Outcome::One(_) | Outcome::Two(..) | Outcome::Many(_)
+                )
+                .then_some(at)
             })
     };
     let at = match search(false) {
@@ -368,6 +372,9 @@ fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outc
             Some(b'1') => true,
             _ => return Outcome::Reject(RejectReason::BadDigit),
         };
+        if station {
+            return status_station(spec, payload, freq, on);
+        }
         return Outcome::Two(freq, RigEvent::Transmit { on });
     }
     if cmd == spec.transmit_on {
@@ -377,6 +384,54 @@ fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outc
         return transmit_payload(payload, false);
     }
     Outcome::Ignored
+}
+
+/// A status answer read by the station decoder: the reporting decoder's
+/// frequency and transmit events first, then what the dialect's status
+/// flags say (the VFO in use and its frequency, split, RIT and XIT with
+/// their shared offset). A flag that is not one the dialect names is left
+/// out, never a reason to lose the frequency and transmit state.
+fn status_station(spec: &TextSpec, payload: &[u8], freq: RigEvent, on: bool) -> Outcome {
+    let mut b = Batch::new();
+    b.push(freq);
+    b.push(RigEvent::Transmit { on });
+    let seen = Seen::Report;
+    let flag = |at: usize| match payload.get(at) {
+        Some(b'0') => Some(false),
+        Some(b'1') => Some(true),
+        _ => None,
+    };
+    let st = &spec.status_station;
+    let vfo = match payload.get(st.vfo) {
+        Some(c) if *c == spec.select_a => Some(Vfo::A),
+        Some(c) if *c == spec.select_b => Some(Vfo::B),
+        _ => None,
+    };
+    if let (Some(vfo), RigEvent::Frequency { hz }) = (vfo, freq) {
+        b.push(RigEvent::Vfo { vfo, hz, seen });
+        b.push(RigEvent::ReceiveVfo { vfo, seen });
+    }
+    if let Some(on) = flag(st.split) {
+        b.push(RigEvent::Split { on, seen });
+    }
+    let hz = offset_hz(payload, st.offset, st.offset_digits);
+    for (kind, at) in [(OffsetKind::Rit, st.rit), (OffsetKind::Xit, st.xit)] {
+        if let Some(on) = flag(at) {
+            b.push(RigEvent::Offset { kind, on, hz, seen });
+        }
+    }
+    Outcome::Many(b)
+}
+
+/// A signed offset field: `+` or `-`, then `digits` decimal digits.
+fn offset_hz(payload: &[u8], at: usize, digits: usize) -> Option<i32> {
+    let (sign, field) = payload.get(at..at + 1 + digits)?.split_first()?;
+    let magnitude = i32::try_from(self::digits(field, digits).ok()?).ok()?;
+    match sign {
+        b'+' => Some(magnitude),
+        b'-' => Some(-magnitude),
+        _ => None,
+    }
 }
 
 /// A receive- or transmit-VFO message naming VFO A or B: the station
@@ -731,6 +786,98 @@ mod tests {
                 reject(RejectReason::Garbage, 3),
                 freq(14_074_000),
                 vfo(Vfo::A, 14_074_000, Seen::Report)
+            ]
+        );
+    }
+
+    #[test]
+    fn station_reads_the_status_answers_flags() {
+        // A status answer laid out by hand at the built-in dialect's
+        // offsets (recalled from the family's published PC command
+        // reference): frequency, 5 unused, RIT/XIT offset +0150, RIT on,
+        // XIT off, memory 000, receive, mode 2, VFO A, scan 0, split on,
+        // 4 unused.
+        let msg = [
+            "IF",
+            "00014195000",
+            "00000",
+            "+0150",
+            "1",
+            "0",
+            "000",
+            "0",
+            "2",
+            "0",
+            "0",
+            "1",
+            "0000",
+            ";",
+        ]
+        .concat();
+        let seen = Seen::Report;
+        assert_eq!(
+            station_in(Direction::Rx, msg.as_bytes()),
+            vec![
+                freq(14_195_000),
+                RigEvent::Transmit { on: false },
+                vfo(Vfo::A, 14_195_000, seen),
+                RigEvent::ReceiveVfo { vfo: Vfo::A, seen },
+                RigEvent::Split { on: true, seen },
+                RigEvent::Offset {
+                    kind: OffsetKind::Rit,
+                    on: true,
+                    hz: Some(150),
+                    seen
+                },
+                RigEvent::Offset {
+                    kind: OffsetKind::Xit,
+                    on: false,
+                    hz: Some(150),
+                    seen
+                },
+            ]
+        );
+        // The reporting decoder reads frequency and transmit only.
+        assert_eq!(
+            decode(msg.as_bytes()),
+            vec![freq(14_195_000), RigEvent::Transmit { on: false }]
+        );
+        // Flags it cannot read (a memory channel in the VFO field, a
+        // negative offset, junk in split) are left out, not the answer.
+        let odd = [
+            "IF",
+            "00007074000",
+            "00000",
+            "-0020",
+            "0",
+            "1",
+            "000",
+            "1",
+            "2",
+            "2",
+            "0",
+            "x",
+            "0000",
+            ";",
+        ]
+        .concat();
+        assert_eq!(
+            station_in(Direction::Rx, odd.as_bytes()),
+            vec![
+                freq(7_074_000),
+                RigEvent::Transmit { on: true },
+                RigEvent::Offset {
+                    kind: OffsetKind::Rit,
+                    on: false,
+                    hz: Some(-20),
+                    seen
+                },
+                RigEvent::Offset {
+                    kind: OffsetKind::Xit,
+                    on: true,
+                    hz: Some(-20),
+                    seen
+                },
             ]
         );
     }
