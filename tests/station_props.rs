@@ -119,3 +119,19 @@ proptest! {
         prop_assert_eq!(old_kinds(&new, true), old);
     }
 }
+
+proptest! {
+    #[test]
+    fn station_decoder_takes_any_bytes_and_stays_bounded(
+        name in proptest::sample::select(Dialect::builtin_names().to_vec()),
+        rx in any::<bool>(),
+        bytes in proptest::collection::vec(any::<u8>(), 0..600),
+        size in 1usize..40,
+    ) {
+        let d = Dialect::builtin(name).expect("built-in");
+        let dir = if rx { Direction::Rx } else { Direction::Tx };
+        let whole = run(d.station_decoder(Some(0x5A)).as_mut(), dir, std::slice::from_ref(&bytes));
+        let pieces = run(d.station_decoder(Some(0x5A)).as_mut(), dir, &chunked(&bytes, size));
+        prop_assert_eq!(whole, pieces);
+    }
+}
