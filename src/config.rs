@@ -362,6 +362,14 @@ pub struct CalibrationConfig {
     /// Profile in use at start (`None`: the base, points without a profile).
     #[serde(default)]
     pub profile: Option<String>,
+    /// The largest leave-one-out prediction error (RMS over a band's
+    /// points, in Hz) `tuneward check` accepts. Where `[antenna]` describes
+    /// the loop the bound is the loop's 1.5:1 half-window (this key, when
+    /// set, can only make it stricter); without it, this key, or by default
+    /// twice the band's dead band (the half-window a dead band of a quarter
+    /// of the 1.5:1 bandwidth implies).
+    #[serde(default)]
+    pub max_loo_error_hz: Option<f64>,
 }
 
 /// One measured calibration point: at `hz` the loop was resonant at `steps`.
@@ -464,6 +472,11 @@ pub struct InhibitConfig {
     /// `true`: inhibit on = line asserted (high); `false`: inverted.
     #[serde(default = "default_active_high")]
     pub active_high: bool,
+    /// With `line = "none"` and a real tuner, the station states that it
+    /// runs with nothing that stops the rig transmitting during a move;
+    /// `tuneward check` refuses that choice unless it is written down here.
+    #[serde(default)]
+    pub unprotected_ok: bool,
 }
 
 fn default_active_high() -> bool {
@@ -478,6 +491,7 @@ impl Default for InhibitConfig {
             chip: None,
             offset: None,
             active_high: true,
+            unprotected_ok: false,
         }
     }
 }

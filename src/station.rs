@@ -13,11 +13,13 @@ use crate::config::{Config, ConfigError};
 use crate::follow::Policy;
 use crate::replay::{Chunk, Replay, ReplaySetup};
 use crate::rig::{Dialect, DialectError};
-use crate::timeline::{self, Human, JsonLines, Summary, Timeline};
+use crate::timeline::{Human, JsonLines, Summary, Timeline};
 use crate::tuner::sim::SimParams;
 
+pub mod check;
 pub mod error;
 pub mod settings;
+pub use check::{check, check_with, CheckOptions, Finding, Grade};
 pub use settings::{
     check_base_points, fit_base, fit_options, journal_for, policy_from_config, port_settings,
     rig_source,
@@ -36,12 +38,9 @@ pub enum StationError {
         #[source]
         source: DialectError,
     },
-    #[error("{path}: {source}")]
-    Antenna {
-        path: PathBuf,
-        #[source]
-        source: crate::antenna::AntennaError,
-    },
+    /// `tuneward check` found errors (or, strict, warnings) in a config.
+    #[error("{path}: refused by check: {summary}")]
+    Refused { path: PathBuf, summary: String },
     #[error("cannot write output: {0}")]
     Output(#[from] std::io::Error),
 }
@@ -232,18 +231,20 @@ pub fn demo(out: &mut dyn Write, json: bool) -> Result<Summary, StationError> {
     };
     if !json {
         let tx_overs = scenario.transmit.len();
+        let n = |count: u64, one: &str, many: &str| check::plural(count as usize, one, many);
         writeln!(
             out,
-            "\n{} minutes of operating, {} transmissions, {} places the operator stayed.\n\
-             The tuner moved {} times ({} steps in all) and never while the rig transmitted;\n\
-             {} stretches of line noise were ignored. Try `tuneward demo --json` for the\n\
+            "\n{} of operating, {}, {} the operator stayed.\n\
+             The tuner moved {} ({} in all) and never while the rig transmitted;\n\
+             {} of line noise {} ignored. Try `tuneward demo --json` for the\n\
              machine-readable timeline, or `tuneward replay` on a capture of your own.",
-            scenario.end.as_secs() / 60,
-            tx_overs,
-            scenario.dwells.len(),
-            summary.moves,
-            summary.steps,
-            summary.rejected,
+            n(scenario.end.as_secs() / 60, "minute", "minutes"),
+            n(tx_overs as u64, "transmission", "transmissions"),
+            n(scenario.dwells.len() as u64, "place", "places"),
+            n(summary.moves, "time", "times"),
+            n(summary.steps, "step", "steps"),
+            n(summary.rejected, "stretch", "stretches"),
+            if summary.rejected == 1 { "was" } else { "were" },
         )?;
     }
     Ok(summary)
@@ -262,129 +263,4 @@ impl crate::scenario::Wire for DialectWire<'_> {
     fn transmit(&self, on: bool) -> Vec<u8> {
         self.dialect.encode_transmit(on, self.address)
     }
-}
-
-/// `tuneward check`: validates a config and describes what it will do.
-pub fn check(config: &Path, out: &mut dyn Write) -> Result<(), StationError> {
-    let station = Station::load(config)?;
-    let c = &station.config;
-    let p = &station.policy;
-    writeln!(out, "{}: valid", config.display())?;
-    writeln!(
-        out,
-        "rig       {} ({}), {}",
-        station.dialect.name,
-        c.rig.port.as_deref().unwrap_or("no port set"),
-        match c.rig.address {
-            Some(a) => format!("reports from address 0x{a:02X} only"),
-            None => "reports from any rig address".to_string(),
-        }
-    )?;
-    writeln!(
-        out,
-        "tuner     {}, travel {}..={} steps at {} steps/s, backlash {} approached from {}",
-        c.tuner.link,
-        p.min_steps,
-        p.max_steps,
-        c.tuner.steps_per_second,
-        p.backlash_steps,
-        match p.approach {
-            crate::config::Approach::Up => "below",
-            crate::config::Approach::Down => "above",
-        }
-    )?;
-    writeln!(
-        out,
-        "follow    debounce {} ms, min move {} steps, inhibit {} ms before and {} ms after",
-        p.debounce.as_millis(),
-        p.min_move_steps,
-        p.inhibit_lead.as_millis(),
-        p.inhibit_tail.as_millis()
-    )?;
-    writeln!(out, "calibration")?;
-    writeln!(
-        out,
-        "  {} from {} points; {}",
-        station.calibration.spec().label(),
-        station.calibration.points().len(),
-        station.calibration.note()
-    )?;
-    let coefficients: Vec<String> = station
-        .calibration
-        .coefficients()
-        .iter()
-        .map(|c| format!("{c:.6e}"))
-        .collect();
-    if !coefficients.is_empty() {
-        writeln!(out, "  coefficients {}", coefficients.join(", "))?;
-    }
-    if let Some(loo) = station.calibration.loo_rms() {
-        writeln!(out, "  leave-one-out error {loo:.2} steps (RMS)")?;
-    }
-    let profiles = station.profiles.profiles();
-    if !profiles.is_empty() {
-        writeln!(
-            out,
-            "  profiles {} (in use: {})",
-            profiles.join(", "),
-            c.calibration.profile.as_deref().unwrap_or("base")
-        )?;
-    }
-    writeln!(out, "bands")?;
-    let mut refusal = None;
-    for (b, bc) in p.bands.iter().zip(&c.bands) {
-        let lo = station.map.steps_at(b.low_hz as f64);
-        let hi = station.map.steps_at(b.high_hz as f64);
-        let within = |s: f64| (p.min_steps as f64..=p.max_steps as f64).contains(&s);
-        writeln!(
-            out,
-            "  {:<8} {} to {} (guard {} Hz), dead band {} Hz, debounce {} ms, steps {:.0} to {:.0}{}",
-            b.name,
-            timeline::mhz(b.low_hz),
-            timeline::mhz(b.high_hz),
-            b.guard_hz,
-            b.hysteresis_hz,
-            b.debounce.as_millis(),
-            lo,
-            hi,
-            if within(lo) && within(hi) {
-                ""
-            } else {
-                "  (beyond the travel limits: will be clamped)"
-            }
-        )?;
-        match crate::antenna::check_band(&c.antenna, bc, station.map.as_ref()) {
-            Ok(check) => {
-                let mut line = format!("           {:.0} Hz per step", check.hz_per_step);
-                if let Some(e) = &check.estimate {
-                    line.push_str(&format!(
-                        "; 1.5:1 bandwidth about {:.0} Hz, 2:1 about {:.0} Hz (Q {:.0})",
-                        e.bandwidth_1_5_hz, e.bandwidth_2_hz, e.q_unloaded
-                    ));
-                }
-                if let (Some(v), Some(r)) = (check.capacitor_v_peak, check.capacitor_rating_v) {
-                    line.push_str(&format!(
-                        "; capacitor about {v:.0} V peak of {r:.0} V rated"
-                    ));
-                } else if let Some(v) = check.capacitor_v_peak {
-                    line.push_str(&format!("; capacitor about {v:.0} V peak"));
-                }
-                writeln!(out, "{line}")?;
-                for w in &check.warnings {
-                    writeln!(out, "           note: {w}")?;
-                }
-            }
-            Err(e) => {
-                writeln!(out, "           REFUSED: {e}")?;
-                refusal.get_or_insert(e);
-            }
-        }
-    }
-    if let Some(source) = refusal {
-        return Err(StationError::Antenna {
-            path: config.to_path_buf(),
-            source,
-        });
-    }
-    Ok(())
 }

@@ -122,9 +122,9 @@ pub fn modified_z_scores(values: &[f64], mad_floor: f64) -> Option<Vec<f64>> {
     Some(dev.iter().map(|d| MAD_TO_Z * d / mad).collect())
 }
 
-/// LOO prediction errors `measured − predicted from the others` of `spec`;
-/// `None` where some refit fails.
-fn loo_errors(spec: FitSpec, points: &[Point]) -> Option<Vec<f64>> {
+/// LOO prediction errors `measured − predicted from the others` of `spec`,
+/// in steps, one per point in order; `None` where some refit fails.
+pub fn loo_errors(spec: FitSpec, points: &[Point]) -> Option<Vec<f64>> {
     (0..points.len())
         .map(|i| {
             let rest: Vec<Point> = points

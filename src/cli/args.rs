@@ -125,7 +125,7 @@ pub struct FitArgs {
     pub plot: Option<PathBuf>,
     /// Station config: its bands and `[antenna]` make the report per band and
     /// give residuals as a share of the loop's bandwidth.
-    #[arg(long, value_name = "FILE.toml")]
+    #[arg(long, short, value_name = "FILE.toml")]
     pub config: Option<PathBuf>,
     /// Move the candidate points into the points file (atomically) before
     /// fitting, and clear the candidates file.
@@ -208,7 +208,7 @@ pub struct SetPositionArgs {
     pub steps: i64,
     /// The station's config file; its `tuner.state_file` (default
     /// `tuneward-position.state` beside the config) is written.
-    #[arg(long, value_name = "FILE")]
+    #[arg(long, short, value_name = "FILE")]
     pub config: PathBuf,
 }
 

@@ -64,11 +64,20 @@ pub enum Command {
         #[arg(long)]
         skip_bad_lines: bool,
     },
-    /// Check a config and show the bands, limits and calibration it describes.
+    /// Check a config: build everything `run` would (rig port settings,
+    /// controller link, inhibit line, journal, calibration per profile,
+    /// bands) without opening a port, describe it, and grade what is wrong.
+    ///
+    /// Exit status 0 when the config is valid (warnings and notes are
+    /// printed), 1 when it is refused: an error, or with --strict a
+    /// warning. Every finding names the key and says what to do.
     Check {
         /// The station's config (TOML).
         #[arg(long, short)]
         config: PathBuf,
+        /// Refuse on warnings too.
+        #[arg(long)]
+        strict: bool,
     },
     /// Follow the rig and drive the tuner controller: the live service.
     ///
@@ -170,6 +179,24 @@ pub struct Failure {
     prefix: &'static str,
     status: u8,
     message: String,
+    /// The reader of standard output went away (`| head`): not a failure
+    /// of the command, which ends quietly, as filters do.
+    closed_pipe: bool,
+}
+
+/// Whether `e`, or an error it was caused by, is a write to a closed pipe.
+fn closed_pipe<'a>(e: &'a (dyn std::error::Error + 'static)) -> bool {
+    let mut next = Some(e);
+    while let Some(err) = next {
+        if err
+            .downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+        {
+            return true;
+        }
+        next = err.source();
+    }
+    false
 }
 
 impl Failure {
@@ -179,12 +206,13 @@ impl Failure {
             prefix: "tuneward",
             status: 1,
             message,
+            closed_pipe: false,
         }
     }
 
     /// An error and its chain of causes, each cause on a line of its own
     /// unless the message already ends with it.
-    fn with_causes(e: &dyn std::error::Error) -> Self {
+    fn with_causes(e: &(dyn std::error::Error + 'static)) -> Self {
         let mut message = e.to_string();
         let mut source = e.source();
         while let Some(s) = source {
@@ -200,6 +228,7 @@ impl Failure {
             prefix: "tuneward",
             status: 1,
             message,
+            closed_pipe: closed_pipe(e),
         }
     }
 
@@ -209,6 +238,7 @@ impl Failure {
             prefix: "tuneward fit",
             status: 2,
             message: e.to_string(),
+            closed_pipe: false,
         }
     }
 
@@ -278,8 +308,11 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
                 .map(|_| ())
                 .map_err(|e| Failure::with_causes(&e))
         }
-        Command::Check { config } => {
-            tuneward::station::check(&config, &mut out).map_err(|e| Failure::with_causes(&e))
+        Command::Check { config, strict } => {
+            let options = tuneward::station::CheckOptions { strict };
+            tuneward::station::check_with(&config, options, &mut out)
+                .map(|_| ())
+                .map_err(|e| Failure::with_causes(&e))
         }
         Command::Fit(args) => {
             let options: tuneward::calibrate::cli::FitCommandOptions = args.into();
@@ -308,5 +341,8 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             .map_err(|e| Failure::with_causes(&e)),
     };
     let _ = out.flush();
-    result
+    match result {
+        Err(f) if f.closed_pipe => Ok(()),
+        r => r,
+    }
 }

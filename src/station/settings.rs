@@ -179,8 +179,29 @@ pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, Error> {
     })
 }
 
-/// Opens the line `[inhibit]` describes, driven on (inhibited).
-pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> {
+/// The inhibit output `[inhibit]` describes, checked but not opened: what
+/// `run` opens and `check` reports.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum InhibitSettings {
+    /// No output: the service only logs.
+    None,
+    /// A modem-control line (RTS or DTR) of a serial device.
+    Modem {
+        port: String,
+        signal: inhibit::ModemSignal,
+        active_high: bool,
+    },
+    /// A GPIO line.
+    Gpio {
+        chip: String,
+        offset: u32,
+        active_high: bool,
+    },
+}
+
+/// Checks `[inhibit]` and says which line `run` will open, without opening
+/// it.
+pub fn inhibit_settings(cfg: &InhibitConfig) -> Result<InhibitSettings, Error> {
     let need_port = |signal: &str| {
         cfg.port.clone().ok_or_else(|| {
             Error::invalid(
@@ -190,24 +211,21 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
             )
         })
     };
+    let active_high = cfg.active_high;
     match cfg.line {
-        InhibitKind::None => Ok(Box::new(inhibit::NoLine)),
-        InhibitKind::Rts => {
-            let port = need_port("RTS")?;
-            Ok(Box::new(
-                inhibit::open_modem_line(&port, inhibit::ModemSignal::Rts, cfg.active_high)
-                    .map_err(|e| Error::Failed(e.to_string()))?,
-            ))
-        }
-        InhibitKind::Dtr => {
-            let port = need_port("DTR")?;
-            Ok(Box::new(
-                inhibit::open_modem_line(&port, inhibit::ModemSignal::Dtr, cfg.active_high)
-                    .map_err(|e| Error::Failed(e.to_string()))?,
-            ))
-        }
+        InhibitKind::None => Ok(InhibitSettings::None),
+        InhibitKind::Rts => Ok(InhibitSettings::Modem {
+            port: need_port("RTS")?,
+            signal: inhibit::ModemSignal::Rts,
+            active_high,
+        }),
+        InhibitKind::Dtr => Ok(InhibitSettings::Modem {
+            port: need_port("DTR")?,
+            signal: inhibit::ModemSignal::Dtr,
+            active_high,
+        }),
         InhibitKind::Gpio => {
-            let chip = cfg.chip.as_deref().ok_or_else(|| {
+            let chip = cfg.chip.clone().ok_or_else(|| {
                 Error::invalid(
                     Place::bare_key("inhibit.chip"),
                     "a GPIO chip such as `gpiochip0`",
@@ -221,21 +239,45 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
                     "none",
                 )
             })?;
-            #[cfg(target_os = "linux")]
-            {
-                Ok(Box::new(
-                    inhibit::GpioLine::open(chip, offset, cfg.active_high)
-                        .map_err(|e| Error::Failed(e.to_string()))?,
-                ))
-            }
-            #[cfg(not(target_os = "linux"))]
-            {
-                let _ = (chip, offset);
-                Err(Error::Failed(
+            if cfg!(not(target_os = "linux")) {
+                return Err(Error::Failed(
                     "key `inhibit.line`: `gpio` needs Linux".to_string(),
-                ))
+                ));
             }
+            Ok(InhibitSettings::Gpio {
+                chip,
+                offset,
+                active_high,
+            })
         }
+    }
+}
+
+/// Opens the line `[inhibit]` describes, driven on (inhibited).
+pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> {
+    match inhibit_settings(cfg)? {
+        InhibitSettings::None => Ok(Box::new(inhibit::NoLine)),
+        InhibitSettings::Modem {
+            port,
+            signal,
+            active_high,
+        } => Ok(Box::new(
+            inhibit::open_modem_line(&port, signal, active_high)
+                .map_err(|e| Error::Failed(e.to_string()))?,
+        )),
+        #[cfg(target_os = "linux")]
+        InhibitSettings::Gpio {
+            chip,
+            offset,
+            active_high,
+        } => Ok(Box::new(
+            inhibit::GpioLine::open(&chip, offset, active_high)
+                .map_err(|e| Error::Failed(e.to_string()))?,
+        )),
+        #[cfg(not(target_os = "linux"))]
+        InhibitSettings::Gpio { .. } => Err(Error::Failed(
+            "key `inhibit.line`: `gpio` needs Linux".to_string(),
+        )),
     }
 }
 
@@ -282,6 +324,14 @@ pub fn rig_source(station: &Station) -> Result<RigSource, Error> {
             "none",
         )
     })?;
+    rig_source_on(station, port)
+}
+
+/// [`rig_source`] for the device `port`, whatever `rig.port` says: `check`
+/// uses it to judge the rest of `[rig]` when the port is not set.
+pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error> {
+    let config = &station.config;
+    let file = config_name(config);
     let settings = port_settings(&config.rig, port).map_err(|e| e.within(&file))?;
     // Which queries (if any) go to the rig is the mode's business:
     // `listen` never writes to the port. The rules are the config's
