@@ -349,6 +349,12 @@ fn rig_addresses_are_spoken_of_only_for_the_binary_family() {
     let dir = tempfile::tempdir().unwrap();
     let (_, out, _) = check(&repo("config/demo.toml"), &[]);
     assert!(out.contains("reports from any rig address"), "{out}");
+    // What tells tuneward of transmissions, for this family and mode.
+    assert!(
+        out.contains("mode listen: only what the rig reports on its own")
+            && out.contains("not the transmit state"),
+        "{out}"
+    );
     let text = demo_with(
         dir.path(),
         "text.toml",
@@ -357,6 +363,7 @@ fn rig_addresses_are_spoken_of_only_for_the_binary_family() {
     let (code, out, _) = check(&text, &[]);
     assert_eq!(code, Some(0), "{out}");
     assert!(!out.contains("address"), "{out}");
+    assert!(!out.contains("not the transmit state"), "{out}");
     let addressed = demo_with(
         dir.path(),
         "addressed.toml",

@@ -252,9 +252,8 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
             "what the other program's reads bring back (set rig.poll_ms to poll between them)"
                 .to_string()
         }
-        None => {
-            "only what the rig reports on its own: turn its auto-report (transceive) on".to_string()
-        }
+        None if family == Family::Binary => "only what the rig reports on its own: turn its auto-report (transceive) on; the binary family's reports carry the frequency, not the transmit state, so only the inhibit line stops a transmission during a move".to_string(),
+        None => "only what the rig reports on its own: turn its auto-report (transceive) on".to_string(),
     };
     let mode = match c.rig.mode {
         crate::config::RigMode::Listen => "listen",

@@ -6,6 +6,7 @@
 //! by [`Config::resolve_path`], every rule checked once in the config's
 //! validation, and errors name the file and key.
 
+use std::io::Write as _;
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
@@ -301,8 +302,20 @@ pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, Error> {
 pub fn run_set_position(args: &SetPositionOptions) -> Result<(), Error> {
     let config = Config::load(&args.config)?;
     let path = set_position(&config, args.steps)?;
-    println!("position {} recorded in {}", args.steps, path.display());
-    Ok(())
+    // The record is written; a reader that went away (`| head -0`) is no
+    // failure of it.
+    let mut out = std::io::stdout();
+    match writeln!(
+        out,
+        "position {} recorded in {}",
+        args.steps,
+        path.display()
+    ) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::Failed(format!(
+            "cannot write to standard output: {e}"
+        ))),
+        _ => Ok(()),
+    }
 }
 
 /// The config's file name for error messages.
