@@ -22,6 +22,7 @@ pub mod plot;
 mod points;
 mod profiles;
 pub mod report;
+pub mod resonance;
 
 use std::path::PathBuf;
 
