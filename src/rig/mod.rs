@@ -12,6 +12,7 @@ pub mod bcd;
 mod binary;
 pub mod dialect;
 mod keys;
+pub mod meter;
 mod swar;
 mod text;
 
