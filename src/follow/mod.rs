@@ -24,6 +24,7 @@
 pub mod effects;
 pub mod policy;
 pub mod session;
+pub mod swr_watch;
 
 use std::collections::VecDeque;
 use std::fmt;
