@@ -22,6 +22,7 @@
 //! - while the position is unknown nothing moves and the inhibit stays on.
 
 pub mod effects;
+pub mod peak;
 pub mod policy;
 pub mod session;
 pub mod swr_watch;
