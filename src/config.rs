@@ -87,6 +87,26 @@ pub struct RigConfig {
     /// config's folder).
     #[serde(default)]
     pub proxy_link: Option<PathBuf>,
+    /// `"off"` (default), `"on"` or `"keep"`: DTR of the rig's port, set
+    /// at open before the first byte and held. An interface that keys the
+    /// transmitter (or CW) by DTR must have it `"off"`.
+    #[serde(default)]
+    pub dtr: ModemLineSetting,
+    /// The same for RTS. Unset, it is `"off"`, or left to the kernel under
+    /// `flow_control = "hardware"` (which drives RTS itself; setting it
+    /// there is refused).
+    #[serde(default)]
+    pub rts: Option<ModemLineSetting>,
+}
+
+/// What a modem-control line of the rig's port is driven to at open.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ModemLineSetting {
+    On,
+    #[default]
+    Off,
+    Keep,
 }
 
 /// How the live service uses the rig's port.
@@ -180,6 +200,8 @@ impl Default for RigConfig {
             mode: RigMode::Listen,
             poll_ms: None,
             proxy_link: None,
+            dtr: ModemLineSetting::Off,
+            rts: None,
         }
     }
 }

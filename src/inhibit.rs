@@ -55,6 +55,9 @@ pub enum ModemSignal {
 pub trait ModemControl: Send {
     fn write_rts(&mut self, level: bool) -> io::Result<()>;
     fn write_dtr(&mut self, level: bool) -> io::Result<()>;
+    /// Whether the device has modem-control lines at all: their state can
+    /// be read (a pseudo-terminal cannot even do that).
+    fn has_lines(&mut self) -> bool;
 }
 
 impl ModemControl for Box<dyn tokio_serial::SerialPort> {
@@ -64,6 +67,9 @@ impl ModemControl for Box<dyn tokio_serial::SerialPort> {
     fn write_dtr(&mut self, level: bool) -> io::Result<()> {
         self.write_data_terminal_ready(level)
             .map_err(io::Error::from)
+    }
+    fn has_lines(&mut self) -> bool {
+        self.read_clear_to_send().is_ok()
     }
 }
 
@@ -76,6 +82,10 @@ impl ModemControl for tokio_serial::SerialStream {
         use tokio_serial::SerialPort;
         self.write_data_terminal_ready(level)
             .map_err(io::Error::from)
+    }
+    fn has_lines(&mut self) -> bool {
+        use tokio_serial::SerialPort;
+        self.read_clear_to_send().is_ok()
     }
 }
 
@@ -226,6 +236,9 @@ mod tests {
         fn write_dtr(&mut self, level: bool) -> io::Result<()> {
             self.lock().unwrap().dtr.push(level);
             Ok(())
+        }
+        fn has_lines(&mut self) -> bool {
+            true
         }
     }
 

@@ -14,6 +14,13 @@
 //! (doubling up to `max_every`) so that a switched-off rig is not hammered.
 //! The query bytes are forwarded too (as [`Direction::Tx`]), so the decoder
 //! sees the conversation as it happened on the wire.
+//!
+//! The port's modem-control outputs (DTR, RTS) are set as [`PortSettings`]
+//! says right after the port opens, before the first byte is written, and
+//! are not touched again: many CAT interfaces key the transmitter or send CW
+//! on one of them, and Linux raises both when a port opens. (The kernel's
+//! own blip at open, before any program can act, cannot be helped from
+//! here: an interface that keys on it needs its lines wired inactive-high.)
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
@@ -28,6 +35,7 @@ use crate::shutdown::Shutdown;
 use crate::timing::sleep_until_opt;
 pub use tokio_serial::{DataBits, FlowControl, Parity, StopBits};
 
+use crate::inhibit::ModemControl;
 use crate::rig::Direction;
 
 /// How to open the port.
@@ -39,6 +47,73 @@ pub struct PortSettings {
     pub parity: Parity,
     pub stop_bits: StopBits,
     pub flow: FlowControl,
+    /// What DTR is driven to at open.
+    pub dtr: LineLevel,
+    /// What RTS is driven to at open (`Keep` under hardware flow control,
+    /// where the kernel drives it).
+    pub rts: LineLevel,
+}
+
+/// What a modem-control output of the rig's port is driven to at open.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum LineLevel {
+    /// Asserted (some interfaces take their power from it).
+    On,
+    /// Dropped: the safe level where an interface keys by this line.
+    #[default]
+    Off,
+    /// Left as the driver opened it.
+    Keep,
+}
+
+impl LineLevel {
+    fn level(self) -> Option<bool> {
+        match self {
+            LineLevel::On => Some(true),
+            LineLevel::Off => Some(false),
+            LineLevel::Keep => None,
+        }
+    }
+}
+
+/// What [`set_modem_lines`] did.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LinesSet {
+    /// Every line asked for is at its level.
+    Done,
+    /// The device has no modem-control lines (a pseudo-terminal refuses
+    /// them): there is nothing that could key a transmitter.
+    NoLines,
+}
+
+/// Drives DTR, then RTS, as `settings` asks. A device without modem lines
+/// at all (its line state cannot even be read) is [`LinesSet::NoLines`]; a
+/// device that has them but refuses the change is an error, because the
+/// port must not be used with a line in an unknown state.
+pub fn set_modem_lines(
+    port: &mut impl ModemControl,
+    settings: &PortSettings,
+) -> Result<LinesSet, String> {
+    let steps = [("DTR", settings.dtr), ("RTS", settings.rts)];
+    for (name, want) in steps {
+        let Some(level) = want.level() else { continue };
+        let r = if name == "DTR" {
+            port.write_dtr(level)
+        } else {
+            port.write_rts(level)
+        };
+        if let Err(e) = r {
+            if !port.has_lines() {
+                return Ok(LinesSet::NoLines);
+            }
+            return Err(format!(
+                "{}: expected to drive {name} {}, found the device refusing it ({e}); not using the port with {name} in an unknown state",
+                settings.path.display(),
+                if level { "on" } else { "off" },
+            ));
+        }
+    }
+    Ok(LinesSet::Done)
 }
 
 impl PortSettings {
@@ -51,6 +126,8 @@ impl PortSettings {
             parity: Parity::None,
             stop_bits: StopBits::One,
             flow: FlowControl::None,
+            dtr: LineLevel::Off,
+            rts: LineLevel::Off,
         }
     }
 }
@@ -65,13 +142,18 @@ pub fn open_port(settings: &PortSettings) -> Result<(tokio_serial::SerialStream,
         .parity(settings.parity)
         .stop_bits(settings.stop_bits)
         .flow_control(settings.flow);
-    let stream = tokio_serial::SerialStream::open(&builder).map_err(|e| {
+    let mut stream = tokio_serial::SerialStream::open(&builder).map_err(|e| {
         format!(
             "cannot open {} ({}): {e}",
             settings.path.display(),
             device.display()
         )
     })?;
+    // Before anything is written: an interface that keys by DTR or RTS
+    // must see them dropped at once.
+    if set_modem_lines(&mut stream, settings)? == LinesSet::NoLines {
+        tracing::debug!(port = %settings.path.display(), "the rig's port has no modem-control lines (a pseudo-terminal?); DTR/RTS not set");
+    }
     Ok((stream, device))
 }
 
@@ -336,6 +418,98 @@ mod tests {
         p.answered();
         p.fire(now);
         assert_eq!(p.due - now, Duration::from_millis(100));
+    }
+
+    /// A port double: records every line change in order; can refuse
+    /// changes, with or without having lines at all.
+    struct Double {
+        log: Vec<(&'static str, bool)>,
+        refuse: bool,
+        lines: bool,
+    }
+
+    impl ModemControl for Double {
+        fn write_rts(&mut self, level: bool) -> std::io::Result<()> {
+            if self.refuse {
+                return Err(std::io::Error::other("refused"));
+            }
+            self.log.push(("RTS", level));
+            Ok(())
+        }
+        fn write_dtr(&mut self, level: bool) -> std::io::Result<()> {
+            if self.refuse {
+                return Err(std::io::Error::other("refused"));
+            }
+            self.log.push(("DTR", level));
+            Ok(())
+        }
+        fn has_lines(&mut self) -> bool {
+            self.lines
+        }
+    }
+
+    fn double(refuse: bool, lines: bool) -> Double {
+        Double {
+            log: Vec::new(),
+            refuse,
+            lines,
+        }
+    }
+
+    #[test]
+    fn modem_lines_are_driven_as_set_and_keep_leaves_a_line_alone() {
+        let mut s = PortSettings::new("/dev/x", 9600);
+        let mut d = double(false, true);
+        assert_eq!(set_modem_lines(&mut d, &s), Ok(LinesSet::Done));
+        // The default drops both: nothing keys at open.
+        assert_eq!(d.log, vec![("DTR", false), ("RTS", false)]);
+        s.dtr = LineLevel::Keep;
+        s.rts = LineLevel::On;
+        let mut d = double(false, true);
+        set_modem_lines(&mut d, &s).unwrap();
+        assert_eq!(d.log, vec![("RTS", true)]);
+    }
+
+    #[test]
+    fn a_refused_line_change_fails_the_open_unless_the_device_has_no_lines() {
+        let s = PortSettings::new("/dev/x", 9600);
+        let e = set_modem_lines(&mut double(true, true), &s).unwrap_err();
+        assert!(e.contains("/dev/x") && e.contains("DTR off"), "{e}");
+        assert_eq!(
+            set_modem_lines(&mut double(true, false), &s),
+            Ok(LinesSet::NoLines)
+        );
+        let mut keep = s.clone();
+        keep.dtr = LineLevel::Keep;
+        keep.rts = LineLevel::Keep;
+        assert_eq!(
+            set_modem_lines(&mut double(true, true), &keep),
+            Ok(LinesSet::Done)
+        );
+    }
+
+    /// Linux pseudo-terminals have no modem-control lines: TIOCMGET (and
+    /// TIOCMBIS/TIOCMBIC) answer ENOTTY on either end, so DTR/RTS cannot be
+    /// read back from one; the order and levels are checked through the
+    /// double above, and here that the rig's port still opens on a pty.
+    #[tokio::test]
+    async fn a_pseudo_terminal_reports_no_lines_and_still_opens() {
+        use tokio_serial::SerialPort;
+        let (mut master, slave) = tokio_serial::SerialStream::pair().unwrap();
+        let name = slave.name().unwrap();
+        assert!(!ModemControl::has_lines(&mut master));
+        let mut tiocm: libc::c_int = 0;
+        // SAFETY: TIOCMGET writes one c_int through the pointer given.
+        let r = unsafe {
+            libc::ioctl(
+                std::os::fd::AsRawFd::as_raw_fd(&slave),
+                libc::TIOCMGET,
+                &mut tiocm,
+            )
+        };
+        assert_eq!(r, -1, "a pty reported modem lines: read them back instead");
+        let (_port, device) = open_port(&PortSettings::new(&name, 9600)).unwrap();
+        assert_eq!(device, std::fs::canonicalize(&name).unwrap());
     }
 
     #[test]

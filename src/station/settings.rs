@@ -14,8 +14,8 @@ use crate::antenna::BandSpan;
 use crate::calibrate::cli::FitStation;
 use crate::calibrate::{Calibration, FitOptions, Point};
 use crate::config::{
-    Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, RigConfig, RigUse, SerialFlow,
-    SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
+    Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, ModemLineSetting, RigConfig,
+    RigUse, SerialFlow, SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
 use crate::error::{Located, Place};
 use crate::follow::{Band, Follower, Jump, Policy};
@@ -437,7 +437,7 @@ pub fn port_settings(
     rig: &RigConfig,
     port: String,
 ) -> Result<crate::port::link::PortSettings, Error> {
-    use crate::port::link::{DataBits, FlowControl, Parity, PortSettings, StopBits};
+    use crate::port::link::{DataBits, FlowControl, LineLevel, Parity, PortSettings, StopBits};
     if rig.baud == 0 {
         return Err(Error::invalid(
             Place::bare_key("rig.baud"),
@@ -480,7 +480,30 @@ pub fn port_settings(
         SerialFlow::Software => FlowControl::Software,
         SerialFlow::Hardware => FlowControl::Hardware,
     };
+    s.dtr = line_level(rig.dtr);
+    s.rts = match (rig.rts, rig.flow_control) {
+        (None, SerialFlow::Hardware) => LineLevel::Keep,
+        (None, _) => LineLevel::Off,
+        (Some(ModemLineSetting::Keep), _) => LineLevel::Keep,
+        (Some(r), SerialFlow::Hardware) => {
+            return Err(Error::invalid(
+                Place::bare_key("rig.rts"),
+                "no rts setting with flow_control = \"hardware\" (the kernel drives RTS for flow control), or \"keep\"",
+                format!("rts = \"{}\"", format!("{r:?}").to_lowercase()),
+            ))
+        }
+        (Some(r), _) => line_level(r),
+    };
     Ok(s)
+}
+
+fn line_level(setting: ModemLineSetting) -> crate::port::link::LineLevel {
+    use crate::port::link::LineLevel;
+    match setting {
+        ModemLineSetting::On => LineLevel::On,
+        ModemLineSetting::Off => LineLevel::Off,
+        ModemLineSetting::Keep => LineLevel::Keep,
+    }
 }
 
 #[cfg(test)]
@@ -506,6 +529,27 @@ mod tests {
         let config = Config::parse(&fixed, std::path::Path::new("t.toml")).unwrap();
         let p = policy_from_config(&config, |_| Some(1)).unwrap();
         assert_eq!(p.bands[0].hysteresis_hz, 1500);
+    }
+
+    #[test]
+    fn modem_lines_default_off_and_hardware_flow_keeps_rts() {
+        use crate::port::link::LineLevel;
+        let parse = |text: &str| {
+            let c = Config::parse(text, std::path::Path::new("t.toml")).unwrap();
+            port_settings(&c.rig, "/dev/null".into())
+        };
+        let s = parse("[rig]\nport = \"/dev/null\"\n").unwrap();
+        assert_eq!((s.dtr, s.rts), (LineLevel::Off, LineLevel::Off));
+        let s = parse("[rig]\ndtr = \"on\"\nrts = \"keep\"\n").unwrap();
+        assert_eq!((s.dtr, s.rts), (LineLevel::On, LineLevel::Keep));
+        let s = parse("[rig]\nflow_control = \"hardware\"\n").unwrap();
+        assert_eq!((s.dtr, s.rts), (LineLevel::Off, LineLevel::Keep));
+        let e = parse("[rig]\nflow_control = \"hardware\"\nrts = \"off\"\n")
+            .err()
+            .unwrap()
+            .to_string();
+        assert!(e.contains("rig.rts") && e.contains("rts = \"off\""), "{e}");
+        assert!(Config::parse("[rig]\ndtr = \"low\"\n", std::path::Path::new("t.toml")).is_err());
     }
 
     #[test]
