@@ -77,7 +77,7 @@ pub struct RigConfig {
     /// pseudo-terminal at `proxy_link`).
     #[serde(default)]
     pub mode: RigMode,
-    /// `mode = "poll"` (default 500) or `"proxy"` (no polling unless set):
+    /// `mode = "poll"` (default 250, below the debounce it feeds) or `"proxy"` (no polling unless set):
     /// ask for the frequency and transmit state every this many ms (the
     /// interval stretches while the rig does not answer).
     #[serde(default)]
@@ -138,7 +138,10 @@ pub enum RigUse {
 }
 
 /// `poll_ms` when `mode = "poll"` does not say.
-pub const DEFAULT_POLL_MS: u64 = 500;
+/// Below the default debounce (400 ms) with room for the answer's latency:
+/// a poll slower than the debounce makes each polled report of a slow tune
+/// a settle of its own (a move per poll).
+pub const DEFAULT_POLL_MS: u64 = 250;
 
 impl RigConfig {
     /// The polling interval the mode asks for: always in `poll`, only when
@@ -745,7 +748,39 @@ impl Config {
 
     /// `[rig]`: the mode and the keys that go with it.
     fn validate_rig(&self) -> Result<(), ConfigError> {
-        self.rig_use().map(|_| ())
+        self.rig_use()?;
+        self.check_poll_against_debounce()
+    }
+
+    /// A polled report restarts the debounce; a poll interval not shorter
+    /// than the debounce it feeds lets every poll of a slow tune settle on
+    /// its own, so a 10 s turn of the knob becomes a move per poll. We refuse
+    /// that rather than treat an unchanged polled answer as a repeat: the
+    /// core would still see a changed answer per poll during the tune, and
+    /// the debounce is the one rule that says "the operator has stopped".
+    fn check_poll_against_debounce(&self) -> Result<(), ConfigError> {
+        let Some(every) = self.rig.poll_every_ms() else {
+            return Ok(());
+        };
+        let mut feeds = vec![("follow.debounce_ms".to_string(), self.follow.debounce_ms)];
+        for (i, b) in self.bands.iter().enumerate() {
+            if let Some(d) = b.debounce_ms {
+                feeds.push((format!("band[{i}] ({}).debounce_ms", b.name), d));
+            }
+        }
+        match feeds.into_iter().min_by_key(|(_, d)| *d) {
+            Some((key, debounce)) if every >= debounce => Err(self.invalid(
+                "rig.poll_ms",
+                &format!(
+                    "a poll interval shorter than the debounce it feeds ({key} = {debounce}); otherwise each poll during a slow tune settles and moves on its own"
+                ),
+                format!(
+                    "poll_ms = {every}{}",
+                    if self.rig.poll_ms.is_none() { " (the default)" } else { "" }
+                ),
+            )),
+            _ => Ok(()),
+        }
     }
 
     /// How `[rig]` asks for the port to be used, with every rule about
@@ -891,6 +926,37 @@ guard_hz = 10000
             .to_string();
         assert!(msg.contains("key `band.guard_hz`"), "{msg}");
         assert!(msg.contains("\"wide\""), "{msg}");
+    }
+
+    #[test]
+    fn a_poll_not_shorter_than_the_debounce_it_feeds_is_refused() {
+        let check = |extra: &str| {
+            let text = format!("{MINIMAL}\n{extra}");
+            Config::parse(&text, Path::new("s.toml"))
+                .and_then(|c| c.validate())
+                .map_err(|e| e.to_string())
+        };
+        // The defaults pass: poll below the debounce.
+        assert!(DEFAULT_POLL_MS < default_debounce_ms());
+        check("[rig]\nmode = \"poll\"\n").unwrap();
+        let e = check("[rig]\nmode = \"poll\"\npoll_ms = 400\n").unwrap_err();
+        assert!(
+            e.contains("rig.poll_ms") && e.contains("follow.debounce_ms = 400"),
+            "{e}"
+        );
+        // The shortest debounce counts, a band's own included.
+        let e = check("[rig]\nmode = \"poll\"\n[follow]\ndebounce_ms = 200\n").unwrap_err();
+        assert!(e.contains("poll_ms = 250 (the default)"), "{e}");
+        let banded = MINIMAL.replace("guard_hz = 10000", "guard_hz = 10000\ndebounce_ms = 300");
+        let c = Config::parse(
+            &format!("{banded}\n[rig]\nmode = \"poll\"\npoll_ms = 300\n"),
+            Path::new("s.toml"),
+        )
+        .unwrap();
+        let e = c.validate().unwrap_err().to_string();
+        assert!(e.contains(").debounce_ms = 300"), "{e}");
+        // Listen and unpolled proxy feed nothing by polling.
+        check("[follow]\ndebounce_ms = 100\n").unwrap();
     }
 
     #[test]
