@@ -9,7 +9,10 @@
 //!
 //! It runs until `--duration` has passed or it is interrupted (Ctrl-C,
 //! SIGTERM); either way the file is flushed to disk before it exits. A
-//! progress line on stderr is refreshed at most once a second.
+//! progress line on stderr is refreshed at most once a second; it also
+//! decodes what the rig says with the configured dialect and, when only
+//! rejects have come for a few seconds, shows why that may be
+//! ([`crate::follow::quiet`]).
 
 use std::io::Write;
 use std::path::PathBuf;
@@ -45,10 +48,13 @@ pub struct CaptureCounts {
 
 /// Runs `tuneward capture` on the rig port `source` (the station layer
 /// makes it from `[rig]`: `station::rig_source`); `header` is the file's
-/// first comment, naming the port, protocol and mode.
+/// first comment, naming the port, protocol and mode; `decoder` (the
+/// station's dialect) only serves the progress line's hint when nothing the
+/// rig sends is readable.
 pub fn run_capture(
     source: RigSource,
     header: &str,
+    decoder: Option<Box<dyn crate::rig::Decode>>,
     args: &CaptureOptions,
 ) -> Result<CaptureCounts, String> {
     let file = std::fs::File::create(&args.out)
@@ -75,6 +81,7 @@ pub fn run_capture(
             &mut w,
             args.duration,
             &out,
+            decoder,
             crate::signals::interrupted(),
         )
         .await;
@@ -100,14 +107,18 @@ pub fn run_capture(
 }
 
 /// Writes link events into `w` until `duration` has passed, `stop`
-/// resolves or the link ends.
+/// resolves or the link ends. With a `decoder`, the rig's bytes are also
+/// decoded, only to tell in the progress line when nothing is readable.
 pub async fn record<W: Write>(
     mut events: mpsc::Receiver<LinkEvent>,
     w: &mut CaptureWriter<W>,
     duration: Option<Duration>,
     name: &str,
+    mut decoder: Option<Box<dyn crate::rig::Decode>>,
     stop: impl std::future::Future<Output = ()>,
 ) -> Result<CaptureCounts, String> {
+    let mut quiet = crate::follow::quiet::RejectWatch::new();
+    let mut decoded = Vec::new();
     let origin = Instant::now();
     let until = duration.map(|d| origin + d);
     let mut got = CaptureCounts::default();
@@ -127,13 +138,17 @@ pub async fn record<W: Write>(
             _ = &mut stop => break,
             _ = sleep_until_opt(until) => break,
             _ = progress.tick() => {
-                let line = format!(
+                let mut line = format!(
                     "capturing: {} s, {} records, {} bytes from the rig, {} to it",
                     origin.elapsed().as_secs(),
                     got.records,
                     got.rx_bytes,
                     got.tx_bytes
                 );
+                if let Some(hint) = quiet.hint(origin.elapsed()) {
+                    line.push_str("; ");
+                    line.push_str(&hint.to_string());
+                }
                 // One line rewritten in place on a terminal; whole lines in
                 // a log file.
                 if terminal {
@@ -158,6 +173,14 @@ pub async fn record<W: Write>(
                     match dir {
                         Direction::Rx => got.rx_bytes += bytes.len() as u64,
                         Direction::Tx => got.tx_bytes += bytes.len() as u64,
+                    }
+                    if let Some(d) = decoder.as_mut() {
+                        decoded.clear();
+                        d.feed(dir, &bytes, &mut decoded);
+                        if dir == Direction::Rx {
+                            // The hint goes in the progress line (below).
+                            let _ = quiet.chunk(t, bytes.len(), &decoded);
+                        }
                     }
                 }
                 Some(LinkEvent::Up { device }) => {

@@ -337,6 +337,11 @@ fn log(note: Note) {
         ),
         Note::PositionFailed { error } => error!(error = %error, "could not record the position"),
         Note::RigRejected { reason, bytes } => debug!(%reason, bytes, "rig bytes rejected"),
+        Note::OnlyRejects { hint } => warn!(
+            seconds = hint.lasted.as_secs(),
+            bytes = hint.bytes,
+            "{hint}"
+        ),
         Note::RigRejectedAtDrop { reason, bytes } => {
             debug!(%reason, bytes, "rig bytes rejected (held across a port drop)")
         }

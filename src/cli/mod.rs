@@ -167,7 +167,8 @@ fn capture(args: &CaptureArgs) -> Result<(), Failure> {
         rig.mode
     )
     .to_lowercase();
-    tuneward::recorder::run_capture(source, &header, &args.options())
+    let decoder = station.dialect.decoder(rig.address);
+    tuneward::recorder::run_capture(source, &header, Some(decoder), &args.options())
         .map(|_| ())
         .map_err(|e| plain(&e))
 }

@@ -24,6 +24,7 @@
 pub mod effects;
 pub mod peak;
 pub mod policy;
+pub mod quiet;
 pub mod session;
 pub mod swr_watch;
 

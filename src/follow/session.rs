@@ -167,6 +167,11 @@ pub enum Note {
         reason: &'static str,
         bytes: usize,
     },
+    /// Only rejects from the rig for a while: the likely causes, once per
+    /// spell (a warning).
+    OnlyRejects {
+        hint: super::quiet::QuietHint,
+    },
     LinkDown {
         reason: String,
     },
@@ -373,6 +378,7 @@ pub struct Session {
     core: Follower,
     decoder: Box<dyn Decode>,
     events: Vec<RigEvent>,
+    quiet: super::quiet::RejectWatch,
     st: Shell,
 }
 
@@ -423,6 +429,7 @@ impl Session {
             core,
             decoder,
             events: Vec::with_capacity(16),
+            quiet: super::quiet::RejectWatch::new(),
             st,
         }
     }
@@ -440,6 +447,14 @@ impl Session {
         let mut out = std::mem::take(&mut self.events);
         out.clear();
         self.decoder.feed(dir, bytes, &mut out);
+        if dir == Direction::Rx {
+            // Bytes from the rig and never a report: say why it may be
+            // (once a spell). The other program's unknown commands in
+            // proxy mode say nothing about the port's settings.
+            if let Some(hint) = self.quiet.chunk(now, bytes.len(), &out) {
+                self.st.note(Note::OnlyRejects { hint });
+            }
+        }
         for ev in &out {
             match *ev {
                 // Shutting down: no new targets (transmit still counts).
@@ -475,6 +490,8 @@ impl Session {
         // decide nothing; they are logged as on any read.
         let mut stale = Vec::new();
         self.decoder.finish(&mut stale);
+        // A new connection: its rejects start a spell of their own.
+        self.quiet.report();
         for ev in &stale {
             if let RigEvent::Reject { reason, bytes } = *ev {
                 self.st.note(Note::RigRejectedAtDrop {

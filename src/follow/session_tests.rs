@@ -682,3 +682,52 @@ fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
     assert_eq!(out.position, Some(1000));
     assert_eq!(out.faults, 0);
 }
+
+/// The warnings a session gives for `chunks` of rig bytes fed at their
+/// times (everything else it says is left aside).
+fn only_rejects_notes(chunks: &[(u64, &[u8])]) -> Vec<Note> {
+    let dialect = Dialect::builtin("text-semicolon").expect("built-in dialect");
+    let settings = SessionSettings {
+        steps_per_second: 20_000.0,
+        settle: ms(10),
+        reply_margin: ms(500),
+        relax_on_exit: false,
+    };
+    let core = Follower::new(policy(0), Arc::new(Line), None);
+    let mut s = Session::new(core, dialect.decoder(None), None, settings);
+    let mut notes = Vec::new();
+    for &(t, bytes) in chunks {
+        s.handle_rig_bytes(ms(t), Direction::Rx, bytes);
+        while let Some(o) = s.poll_output() {
+            match o {
+                Output::Log(n @ Note::OnlyRejects { .. }) => notes.push(n),
+                Output::Inhibit { .. } => s.handle_inhibit_result(ms(t), Ok(())),
+                Output::JournalIntent { .. } | Output::JournalPosition { .. } => {
+                    s.handle_journal_result(ms(t), Ok(()))
+                }
+                _ => {}
+            }
+        }
+    }
+    notes
+}
+
+#[test]
+fn rejects_alone_for_seconds_are_warned_of_once_with_the_counts() {
+    // What a port at the wrong speed hears: bytes, never a message.
+    let noise: &[u8] = b"\x8f\x03\xe7x;\x91\x7f;";
+    let chunks: Vec<(u64, &[u8])> = (0..20).map(|i| (i * 250, noise)).collect();
+    let notes = only_rejects_notes(&chunks);
+    assert_eq!(notes.len(), 1, "{notes:?}");
+    let Note::OnlyRejects { hint } = &notes[0] else {
+        unreachable!()
+    };
+    assert!(hint.lasted >= super::super::quiet::QUIET_AFTER);
+    // Every byte up to the warning is counted (13 chunks: 0 s to 3 s).
+    assert_eq!(hint.bytes, 13 * noise.len());
+    // A report among the noise: the port works; nothing to warn of.
+    let mut mixed = chunks.clone();
+    mixed.insert(8, (1_900, b"FA00007100000;"));
+    mixed.insert(16, (3_900, b"FA00007100000;"));
+    assert!(only_rejects_notes(&mixed).is_empty());
+}
