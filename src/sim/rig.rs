@@ -426,11 +426,9 @@ const BIN_VFO_FREQUENCY: u8 = 0x25;
 const BIN_FILTER: u8 = 0x01;
 
 // Text-family commands not in the dialect file (recalled from the family's
-// PC control command reference).
-/// Receive VFO: 0 A, 1 B.
-const TXT_RX_VFO: [u8; 2] = *b"FR";
-/// Transmit VFO: 0 A, 1 B.
-const TXT_TX_VFO: [u8; 2] = *b"FT";
+// PC control command reference); the receive and transmit VFO commands are
+// the dialect's (`frequency.receive_vfo`, `transmit_vfo`), their payloads
+// 0 for A and 1 for B in both built-in dialects.
 const TXT_MODE: [u8; 2] = *b"MD";
 /// Auto information: 0 off, 1 or 2 on.
 const TXT_AUTO_INFO: [u8; 2] = *b"AI";
@@ -707,13 +705,8 @@ impl SimRig {
             return;
         }
         if let Wire::Text(s) = &self.wire {
-            let code = if self.state.transmitting {
-                s.transmit_on
-            } else {
-                s.transmit_off
-            };
-            self.out.extend_from_slice(&code);
-            self.out.push(s.terminator);
+            let report = s.encode_transmit(self.state.transmitting);
+            self.out.extend_from_slice(&report);
         }
     }
 
@@ -986,7 +979,19 @@ impl SimRig {
         if cmd == s.status && payload.is_empty() {
             return Ok(Some(text_status(s, &self.state)));
         }
-        if cmd == s.transmit_on || cmd == s.transmit_off {
+        if let (true, Some(meaning)) = (cmd == s.transmit_on, &s.transmit_digits) {
+            // The transmit-state command whose digit says (recalled): alone
+            // a read, answered with the digit; with a digit a set.
+            return match payload {
+                [] if meaning.bare_is_read => Ok(Some(s.encode_transmit(self.state.transmitting))),
+                [d] => {
+                    self.state.transmitting = meaning.means_transmit(*d).ok_or(())?;
+                    Ok(None)
+                }
+                _ => Err(()),
+            };
+        }
+        if cmd == s.transmit_on || Some(cmd) == s.transmit_off {
             // An optional one-digit payload (which source keys: recalled).
             if !matches!(payload, [] | [b'0'..=b'9']) {
                 return Err(());
@@ -994,23 +999,24 @@ impl SimRig {
             self.state.transmitting = cmd == s.transmit_on;
             return Ok(None);
         }
+        let (rx_vfo, tx_vfo) = (s.receive_vfo, s.transmit_vfo);
         match (cmd, payload) {
-            (TXT_RX_VFO | TXT_TX_VFO, []) => {
-                let vfo = if cmd == TXT_RX_VFO {
+            (c, []) if c == rx_vfo || c == tx_vfo => {
+                let vfo = if cmd == rx_vfo {
                     self.state.rx_vfo
                 } else {
                     self.state.tx_vfo
                 };
                 Ok(Some(text_simple(s, cmd, vfo_digit(vfo))))
             }
-            (TXT_RX_VFO, [d @ (b'0' | b'1')]) => {
+            (c, [d @ (b'0' | b'1')]) if c == rx_vfo => {
                 // Choosing the receive VFO also transmits on it (recalled).
                 let vfo = digit_vfo(*d);
                 self.state.rx_vfo = vfo;
                 self.state.tx_vfo = vfo;
                 Ok(None)
             }
-            (TXT_TX_VFO, [d @ (b'0' | b'1')]) => {
+            (c, [d @ (b'0' | b'1')]) if c == tx_vfo => {
                 self.state.tx_vfo = digit_vfo(*d);
                 Ok(None)
             }
@@ -1102,7 +1108,14 @@ fn text_status(s: &TextSpec, state: &RigState) -> Vec<u8> {
     if let Some(field) = payload.get_mut(f..f + s.digits) {
         field.copy_from_slice(digits.as_bytes());
     }
-    let t = s.status_transmit_offset;
+    // A status answer without a transmit flag (the nine-digit family's)
+    // gets nothing past the frequency: its other fields are `0` here.
+    let Some(t) = s.status_transmit_offset else {
+        let mut msg = s.status.to_vec();
+        msg.extend_from_slice(&payload);
+        msg.push(s.terminator);
+        return msg;
+    };
     let extras = [
         (0, if state.transmitting { b'1' } else { b'0' }),
         (1, state.mode.text_code()),

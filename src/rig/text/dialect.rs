@@ -30,14 +30,21 @@ pub struct TextSpec {
     pub status_length: usize,
     /// Offset of the frequency field in the status payload.
     pub status_frequency_offset: usize,
-    /// Offset of the one-character transmit flag in the status payload.
-    pub status_transmit_offset: usize,
+    /// Offset of the one-character transmit flag in the status payload;
+    /// `None`: the family's status answer does not carry the transmit state.
+    pub status_transmit_offset: Option<usize>,
     /// Where the station decoder finds the status answer's other flags.
     pub status_station: StatusFlags,
-    /// Message meaning "transmitting" (optional one-digit payload).
+    /// Message meaning "transmitting" (optional one-digit payload), or, with
+    /// `transmit_digits`, the transmit-state message whose digit says.
     pub transmit_on: [u8; 2],
-    /// Message meaning "receiving" (optional one-digit payload).
-    pub transmit_off: [u8; 2],
+    /// Message meaning "receiving" (optional one-digit payload); `None`: the
+    /// family has none (its `transmit_on` message's digit says receive).
+    pub transmit_off: Option<[u8; 2]>,
+    /// What the digit of a `transmit_on` message means, where the family
+    /// gives it a meaning (`TX0;` can mean *receive*); `None`: any payload
+    /// means transmitting.
+    pub transmit_digits: Option<TransmitDigits>,
     pub poll_frequency: Vec<u8>,
     pub poll_transmit: Vec<u8>,
 }
@@ -45,16 +52,43 @@ pub struct TextSpec {
 /// Offsets in the status payload of what only the station decoder reads.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct StatusFlags {
-    /// One character naming the VFO in use (`select_a`/`select_b`).
-    pub vfo: usize,
-    /// One character: split off `0`, on `1`.
-    pub split: usize,
+    /// One character naming the VFO in use (`select_a`/`select_b`);
+    /// `None`: the family's status answer does not name it.
+    pub vfo: Option<usize>,
+    /// One character: split off `0`, on `1`; `None`: not carried.
+    pub split: Option<usize>,
     /// One character each: RIT, XIT off `0`, on `1`.
     pub rit: usize,
     pub xit: usize,
     /// The RIT/XIT offset: a sign then `offset_digits` digits, in Hz.
     pub offset: usize,
     pub offset_digits: usize,
+}
+
+/// The meaning of the one digit after the transmit-state command.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TransmitDigits {
+    /// Digits that mean the rig receives.
+    pub receive: Vec<u8>,
+    /// Digits that mean the rig transmits (whatever keyed it).
+    pub transmit: Vec<u8>,
+    /// The command with no digit is a read of the transmit state (answered
+    /// with a digit), not a key: it may be polled.
+    pub bare_is_read: bool,
+}
+
+impl TransmitDigits {
+    /// Whether `digit` means transmitting; `None` for a digit without a
+    /// meaning.
+    pub fn means_transmit(&self, digit: u8) -> Option<bool> {
+        if self.transmit.contains(&digit) {
+            Some(true)
+        } else if self.receive.contains(&digit) {
+            Some(false)
+        } else {
+            None
+        }
+    }
 }
 
 impl TextSpec {
@@ -75,13 +109,14 @@ impl TextSpec {
     /// Every command whose messages the reporting decoder understands.
     pub(crate) fn known_commands(&self) -> impl Iterator<Item = &[u8; 2]> {
         [
-            &self.vfo_a,
-            &self.vfo_b,
-            &self.status,
-            &self.transmit_on,
-            &self.transmit_off,
+            Some(&self.vfo_a),
+            Some(&self.vfo_b),
+            Some(&self.status),
+            Some(&self.transmit_on),
+            self.transmit_off.as_ref(),
         ]
         .into_iter()
+        .flatten()
     }
 
     /// The commands only the station decoder understands.
@@ -89,14 +124,19 @@ impl TextSpec {
         [&self.receive_vfo, &self.transmit_vfo].into_iter()
     }
 
-    /// The transmit or receive message.
+    /// The transmit or receive message a rig sends: with digit meanings,
+    /// the transmit-state command and the first digit of that meaning.
     pub fn encode_transmit(&self, on: bool) -> Vec<u8> {
-        let mut f = if on {
-            self.transmit_on
-        } else {
-            self.transmit_off
-        }
-        .to_vec();
+        let mut f = match (&self.transmit_digits, self.transmit_off) {
+            (Some(m), _) => {
+                let digits = if on { &m.transmit } else { &m.receive };
+                let mut f = self.transmit_on.to_vec();
+                f.extend(digits.first());
+                f
+            }
+            (None, Some(off)) if !on => off.to_vec(),
+            (None, _) => self.transmit_on.to_vec(),
+        };
         f.push(self.terminator);
         f
     }
@@ -154,7 +194,17 @@ impl TextSpec {
             ],
         )?;
         let transmit = r.table(t, "", "transmit")?;
-        r.only(transmit, "transmit", &["on", "off"])?;
+        r.only(
+            transmit,
+            "transmit",
+            &[
+                "on",
+                "off",
+                "receive_digits",
+                "transmit_digits",
+                "bare_is_read",
+            ],
+        )?;
         let poll = r.table(t, "", "poll")?;
         r.only(poll, "poll", &["frequency", "transmit"])?;
 
@@ -218,15 +268,33 @@ impl TextSpec {
                 status_frequency_offset.to_string(),
             ));
         }
-        let status_transmit_offset = r.int(status, "status", "transmit_offset", 0, 4094)? as usize;
-        if status_transmit_offset >= status_length
-            || (status_frequency_offset..status_frequency_offset + digits)
-                .contains(&status_transmit_offset)
-        {
+        let status_transmit_offset = match status.get("transmit_offset") {
+            None => None,
+            Some(_) => {
+                let at = r.int(status, "status", "transmit_offset", 0, 4094)? as usize;
+                if at >= status_length
+                    || (status_frequency_offset..status_frequency_offset + digits).contains(&at)
+                {
+                    return Err(r.err(
+                        "status.transmit_offset",
+                        &format!("an offset below {status_length}, outside the frequency field"),
+                        at.to_string(),
+                    ));
+                }
+                Some(at)
+            }
+        };
+        let transmit_on = r.code(transmit, "transmit", "on")?;
+        let transmit_off = match transmit.get("off") {
+            None => None,
+            Some(_) => Some(r.code(transmit, "transmit", "off")?),
+        };
+        let transmit_digits = transmit_digits(r, transmit)?;
+        if transmit_off.is_none() && transmit_digits.is_none() && status_transmit_offset.is_none() {
             return Err(r.err(
-                "status.transmit_offset",
-                &format!("an offset below {status_length}, outside the frequency field"),
-                status_transmit_offset.to_string(),
+                "transmit.off",
+                "a way to learn that the rig receives: `transmit.off`, `transmit.receive_digits` or `status.transmit_offset`",
+                "none of them".into(),
             ));
         }
         let freq_field = status_frequency_offset..status_frequency_offset + digits;
@@ -240,6 +308,12 @@ impl TextSpec {
                 ));
             }
             Ok(at)
+        };
+        let optional_flag = |key: &str| -> Result<Option<usize>, DialectError> {
+            match status.get(key) {
+                None => Ok(None),
+                Some(_) => flag(key).map(Some),
+            }
         };
         let offset_digits = r.int(status, "status", "offset_digits", 1, 9)? as usize;
         let offset = r.int(status, "status", "offset_offset", 0, 4094)? as usize;
@@ -255,24 +329,25 @@ impl TextSpec {
             ));
         }
         let status_station = StatusFlags {
-            vfo: flag("vfo_offset")?,
-            split: flag("split_offset")?,
+            vfo: optional_flag("vfo_offset")?,
+            split: optional_flag("split_offset")?,
             rit: flag("rit_offset")?,
             xit: flag("xit_offset")?,
             offset,
             offset_digits,
         };
-        let transmit_on = r.code(transmit, "transmit", "on")?;
-        let transmit_off = r.code(transmit, "transmit", "off")?;
-        let codes = [
+        let off_code = transmit_off.unwrap_or(transmit_on);
+        let mut codes = vec![
             ("frequency.vfo_a", vfo_a),
             ("frequency.vfo_b", vfo_b),
             ("status.command", status_cmd),
             ("transmit.on", transmit_on),
-            ("transmit.off", transmit_off),
             ("frequency.receive_vfo", receive_vfo),
             ("frequency.transmit_vfo", transmit_vfo),
         ];
+        if transmit_off.is_some() {
+            codes.push(("transmit.off", off_code));
+        }
         for (i, (key, c)) in codes.iter().enumerate() {
             if let Some((other, _)) = codes.iter().take(i).find(|(_, o)| o == c) {
                 return Err(r.err(
@@ -284,8 +359,14 @@ impl TextSpec {
         }
         let longest = 2 + status_length.max(digits);
         let max_message = r.int(message, "message", "max_length", longest as i64, 4096)? as usize;
-        let poll_frequency = text_query(r, poll, "poll.frequency", terminator, transmit_on)?;
-        let poll_transmit = text_query(r, poll, "poll.transmit", terminator, transmit_on)?;
+        let keys = Keying {
+            on: transmit_on,
+            off: transmit_off,
+            bare_is_read: transmit_digits.as_ref().is_some_and(|m| m.bare_is_read),
+            term: terminator,
+        };
+        let poll_frequency = text_query(r, poll, "poll.frequency", &keys)?;
+        let poll_transmit = text_query(r, poll, "poll.transmit", &keys)?;
         Ok(TextSpec {
             terminator,
             max_message,
@@ -304,24 +385,81 @@ impl TextSpec {
             status_station,
             transmit_on,
             transmit_off,
+            transmit_digits,
             poll_frequency,
             poll_transmit,
         })
     }
 }
 
-/// A text query: printable ASCII ending in the terminator; never the
-/// transmit command, which would key the rig.
+/// `[transmit] receive_digits`, `transmit_digits`, `bare_is_read`: all or
+/// none (the digits as strings of decimal digits, no digit in both).
+fn transmit_digits(
+    r: &Reader,
+    transmit: &toml::Table,
+) -> Result<Option<TransmitDigits>, DialectError> {
+    let present = ["receive_digits", "transmit_digits", "bare_is_read"]
+        .iter()
+        .filter(|k| transmit.contains_key(**k))
+        .count();
+    if present == 0 {
+        return Ok(None);
+    }
+    let digit_set = |key: &str| -> Result<Vec<u8>, DialectError> {
+        let s = r.string(transmit, "transmit", key)?;
+        let b = s.as_bytes().to_vec();
+        if b.is_empty() || !b.iter().all(u8::is_ascii_digit) {
+            return Err(r.err(
+                &format!("transmit.{key}"),
+                "one or more decimal digits, such as \"0\"",
+                format!("{s:?}"),
+            ));
+        }
+        Ok(b)
+    };
+    let receive = digit_set("receive_digits")?;
+    let transmit_set = digit_set("transmit_digits")?;
+    if let Some(d) = receive.iter().find(|d| transmit_set.contains(d)) {
+        return Err(r.err(
+            "transmit.transmit_digits",
+            "digits other than those of `transmit.receive_digits`",
+            format!("{:?} in both", *d as char),
+        ));
+    }
+    let bare_is_read = match r.get(transmit, "transmit", "bare_is_read", "true or false")? {
+        toml::Value::Boolean(b) => *b,
+        v => return Err(r.err("transmit.bare_is_read", "true or false", format!("{v}"))),
+    };
+    Ok(Some(TransmitDigits {
+        receive,
+        transmit: transmit_set,
+        bare_is_read,
+    }))
+}
+
+/// What keys or unkeys the rig in this family, for the poll check.
+struct Keying {
+    on: [u8; 2],
+    off: Option<[u8; 2]>,
+    /// The `on` command alone is a read.
+    bare_is_read: bool,
+    term: u8,
+}
+
+/// A text query: printable ASCII ending in the terminator; never a command
+/// that keys the rig or ends its transmission: the transmit command (with
+/// any digit; alone too, unless the family reads the state with it) and
+/// the receive command (which would cut the operator's over short).
 fn text_query(
     r: &Reader,
     poll: &toml::Table,
     key: &str,
-    term: u8,
-    transmit_on: [u8; 2],
+    keys: &Keying,
 ) -> Result<Vec<u8>, DialectError> {
     let short = key.trim_start_matches("poll.");
     let s = r.string(poll, "poll", short)?;
     let b = s.as_bytes();
+    let term = keys.term;
     let printable = b.iter().all(|c| (0x20..0x7F).contains(c));
     let one_message = b.iter().position(|&c| c == term) == Some(b.len().saturating_sub(1));
     if !printable || !one_message || b.len() < 3 {
@@ -331,10 +469,19 @@ fn text_query(
             format!("{s:?}"),
         ));
     }
-    if b.starts_with(&transmit_on) {
+    let bare_read = b.len() == 3 && keys.bare_is_read;
+    if b.starts_with(&keys.on) && !bare_read {
+        let why = if keys.bare_is_read {
+            "the transmit-state read alone (with a digit the transmit command keys the rig or ends its transmission)"
+        } else {
+            "a query that does not start with the transmit command (it would key the rig)"
+        };
+        return Err(r.err(key, why, format!("{s:?}")));
+    }
+    if keys.off.is_some_and(|off| b.starts_with(&off)) {
         return Err(r.err(
             key,
-            "a query that does not start with the transmit command (it would key the rig)",
+            "a query that does not start with the receive command (it would end the operator's transmission)",
             format!("{s:?}"),
         ));
     }

@@ -20,7 +20,7 @@ use nom::number::complete::be_u16;
 use nom::IResult;
 
 mod dialect;
-pub use dialect::{StatusFlags, TextSpec, Vfo};
+pub use dialect::{StatusFlags, TextSpec, TransmitDigits, Vfo};
 
 use super::swar::{ascii_digits, find_stop_or_unprintable};
 use super::RejectRun;
@@ -294,6 +294,20 @@ fn transmit_payload(payload: &[u8], on: bool) -> Outcome {
     }
 }
 
+/// A transmit-state message whose digit says (`TX0;` receive in a family
+/// that gives the digits meanings); no digit is a read, not a report.
+fn transmit_state(meaning: &TransmitDigits, payload: &[u8]) -> Outcome {
+    match payload {
+        [] if meaning.bare_is_read => Outcome::Ignored,
+        [] => Outcome::One(RigEvent::Transmit { on: true }),
+        [d] => match meaning.means_transmit(*d) {
+            Some(on) => Outcome::One(RigEvent::Transmit { on }),
+            None => Outcome::Reject(RejectReason::BadDigit),
+        },
+        _ => Outcome::Reject(RejectReason::BadLength),
+    }
+}
+
 /// What one complete message (printable, terminator stripped) amounts to.
 fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outcome {
     if msg.is_empty() {
@@ -367,20 +381,28 @@ fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outc
             Ok(e) => e,
             Err(reason) => return Outcome::Reject(reason),
         };
-        let on = match payload.get(spec.status_transmit_offset) {
-            Some(b'0') => false,
-            Some(b'1') => true,
-            _ => return Outcome::Reject(RejectReason::BadDigit),
+        // `None`: this family's status answer does not say.
+        let on = match spec.status_transmit_offset.map(|at| payload.get(at)) {
+            None => None,
+            Some(Some(b'0')) => Some(false),
+            Some(Some(b'1')) => Some(true),
+            Some(_) => return Outcome::Reject(RejectReason::BadDigit),
         };
         if station {
             return status_station(spec, payload, freq, on);
         }
-        return Outcome::Two(freq, RigEvent::Transmit { on });
+        return match on {
+            Some(on) => Outcome::Two(freq, RigEvent::Transmit { on }),
+            None => Outcome::One(freq),
+        };
     }
     if cmd == spec.transmit_on {
-        return transmit_payload(payload, true);
+        return match &spec.transmit_digits {
+            Some(meaning) => transmit_state(meaning, payload),
+            None => transmit_payload(payload, true),
+        };
     }
-    if cmd == spec.transmit_off {
+    if Some(cmd) == spec.transmit_off {
         return transmit_payload(payload, false);
     }
     Outcome::Ignored
@@ -391,10 +413,12 @@ fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outc
 /// flags say (the VFO in use and its frequency, split, RIT and XIT with
 /// their shared offset). A flag that is not one the dialect names is left
 /// out, never a reason to lose the frequency and transmit state.
-fn status_station(spec: &TextSpec, payload: &[u8], freq: RigEvent, on: bool) -> Outcome {
+fn status_station(spec: &TextSpec, payload: &[u8], freq: RigEvent, on: Option<bool>) -> Outcome {
     let mut b = Batch::new();
     b.push(freq);
-    b.push(RigEvent::Transmit { on });
+    if let Some(on) = on {
+        b.push(RigEvent::Transmit { on });
+    }
     let seen = Seen::Report;
     let flag = |at: usize| match payload.get(at) {
         Some(b'0') => Some(false),
@@ -402,7 +426,7 @@ fn status_station(spec: &TextSpec, payload: &[u8], freq: RigEvent, on: bool) -> 
         _ => None,
     };
     let st = &spec.status_station;
-    let vfo = match payload.get(st.vfo) {
+    let vfo = match st.vfo.and_then(|at| payload.get(at)) {
         Some(c) if *c == spec.select_a => Some(Vfo::A),
         Some(c) if *c == spec.select_b => Some(Vfo::B),
         _ => None,
@@ -411,7 +435,7 @@ fn status_station(spec: &TextSpec, payload: &[u8], freq: RigEvent, on: bool) -> 
         b.push(RigEvent::Vfo { vfo, hz, seen });
         b.push(RigEvent::ReceiveVfo { vfo, seen });
     }
-    if let Some(on) = flag(st.split) {
+    if let Some(on) = st.split.and_then(flag) {
         b.push(RigEvent::Split { on, seen });
     }
     let hz = offset_hz(payload, st.offset, st.offset_digits);
@@ -484,8 +508,14 @@ fn interpret_command(spec: &TextSpec, msg: &[u8]) -> Outcome {
     if let Some(e) = select_vfo(spec, cmd, payload, Seen::Command) {
         return Outcome::One(e);
     }
-    if cmd == spec.transmit_on || cmd == spec.transmit_off {
-        return match transmit_payload(payload, cmd == spec.transmit_on) {
+    if cmd == spec.transmit_on || Some(cmd) == spec.transmit_off {
+        // In a family whose digit says (`TX0;` receive, `TX;` a read), the
+        // digit decides here too.
+        let outcome = match (&spec.transmit_digits, cmd == spec.transmit_on) {
+            (Some(meaning), true) => transmit_state(meaning, payload),
+            (_, on) => transmit_payload(payload, on),
+        };
+        return match outcome {
             Outcome::One(RigEvent::Transmit { on }) => {
                 Outcome::One(RigEvent::TransmitCommand { on })
             }

@@ -290,7 +290,10 @@ fn text_reads_sets_and_refusals() {
 
 #[test]
 fn text_status_carries_frequency_and_transmit_flag_at_the_dialect_offsets() {
-    for dialect in ["text-semicolon", "text-semicolon-9"] {
+    // The nine-digit family's status has no transmit flag: its own test
+    // below.
+    {
+        let dialect = "text-semicolon";
         let Spec::Text(s) = Dialect::builtin(dialect).unwrap().spec else {
             panic!("{dialect} is a text dialect");
         };
@@ -303,7 +306,8 @@ fn text_status_carries_frequency_and_transmit_flag_at_the_dialect_offsets() {
         let f = s.status_frequency_offset;
         let digits = format!("{:0w$}", 14_074_000, w = s.digits);
         assert_eq!(&payload[f..f + s.digits], digits.as_bytes(), "{dialect}");
-        assert_eq!(payload[s.status_transmit_offset], b'1', "{dialect}");
+        let t = s.status_transmit_offset.expect("a transmit flag");
+        assert_eq!(payload[t], b'1', "{dialect}");
         let events = decoded(dialect, &got);
         assert!(
             events.contains(&RigEvent::Transmit { on: true })
@@ -523,4 +527,35 @@ mod props {
             }
         }
     }
+}
+
+/// The nine-digit family as its CAT operation reference lays it out
+/// (recalled): `TX;` reads the transmit state (`TX0;` receive, `TX1;`
+/// keyed over the port), `TX1;`/`TX0;` key and unkey silently, and `IF;`
+/// answers a 3-digit memory channel, then the 9-digit frequency, in 25
+/// characters with no transmit flag.
+#[test]
+fn nine_digit_rig_reads_its_transmit_state_with_tx_and_has_no_flag_in_its_status() {
+    let d = "text-semicolon-9";
+    let mut r = rig(d);
+    assert_eq!(exchange(&mut r, ms(1), b"TX;"), b"TX0;");
+    assert!(!r.state().transmitting, "a read must not key the rig");
+    assert!(exchange(&mut r, ms(2), b"TX1;").is_empty());
+    assert!(r.state().transmitting);
+    assert_eq!(exchange(&mut r, ms(3), b"TX;"), b"TX1;");
+    let status = exchange(&mut r, ms(4), b"IF;");
+    assert_eq!(status.len(), 2 + 25 + 1, "{status:?}");
+    // IF, memory channel 000, frequency 014074000, then the other fields.
+    assert_eq!(&status[..14], b"IF000014074000");
+    assert_eq!(
+        decoded(d, &status),
+        [RigEvent::Frequency { hz: 14_074_000 }]
+    );
+    assert!(exchange(&mut r, ms(5), b"TX0;").is_empty());
+    assert!(!r.state().transmitting);
+    // A digit without a meaning is refused the family's way.
+    assert_eq!(exchange(&mut r, ms(6), b"TX7;"), b"?;");
+    // VFO select: VS1; puts the rig on VFO B for receive and transmit.
+    assert!(exchange(&mut r, ms(7), b"VS1;").is_empty());
+    assert_eq!((r.state().rx_vfo, r.state().tx_vfo), (Vfo::B, Vfo::B));
 }
