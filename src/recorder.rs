@@ -176,7 +176,7 @@ pub async fn record<W: Write>(
                     }
                     if let Some(d) = decoder.as_mut() {
                         decoded.clear();
-                        d.feed(dir, &bytes, &mut decoded);
+                        d.feed_at(t, dir, &bytes, &mut decoded);
                         if dir == Direction::Rx {
                             // The hint goes in the progress line (below).
                             let _ = quiet.chunk(t, bytes.len(), &decoded);

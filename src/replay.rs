@@ -85,7 +85,7 @@ impl<'t> Replay<'t> {
         self.now = t;
         let mut events = std::mem::take(&mut self.events);
         events.clear();
-        self.decoder.feed(chunk.dir, chunk.bytes, &mut events);
+        self.decoder.feed_at(t, chunk.dir, chunk.bytes, &mut events);
         for ev in &events {
             self.rig_event(*ev)?;
         }

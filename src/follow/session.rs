@@ -446,7 +446,7 @@ impl Session {
         let now = self.clock(now);
         let mut out = std::mem::take(&mut self.events);
         out.clear();
-        self.decoder.feed(dir, bytes, &mut out);
+        self.decoder.feed_at(now, dir, bytes, &mut out);
         if dir == Direction::Rx {
             // Bytes from the rig and never a report: say why it may be
             // (once a spell). The other program's unknown commands in

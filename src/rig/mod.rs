@@ -10,6 +10,7 @@ use std::fmt;
 
 pub mod bcd;
 mod binary;
+pub mod block;
 pub mod dialect;
 mod keys;
 pub mod meter;
@@ -177,6 +178,19 @@ pub trait Decode: Send {
     /// Takes the next chunk of bytes travelling in `dir` and pushes whatever
     /// it completes onto `out`. Never panics, whatever the bytes.
     fn feed(&mut self, dir: Direction, chunk: &[u8], out: &mut Vec<RigEvent>);
+
+    /// [`Decode::feed`] with the time the chunk was read (a capture
+    /// record's time, a live read's): families framed by count need it to
+    /// resynchronise on a quiet gap. The others ignore it.
+    fn feed_at(
+        &mut self,
+        _at: std::time::Duration,
+        dir: Direction,
+        chunk: &[u8],
+        out: &mut Vec<RigEvent>,
+    ) {
+        self.feed(dir, chunk, out)
+    }
 
     /// End of input (a capture's last line, a closed port): reports what is
     /// still held, a pending reject run and any unfinished frame, and starts

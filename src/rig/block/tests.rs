@@ -1,0 +1,205 @@
+//! The block family against its published layout (recalled; see
+//! protocols/block-5.toml): five-byte blocks, opcode last; the frequency
+//! read `03` answered with four bytes of big-endian packed BCD in 10 Hz
+//! units and a mode byte; the transmit-status read `F7` answered with one
+//! byte whose bit 7 is clear while transmitting. Worked by hand:
+//! 14 074 000 Hz = 1 407 400 tens of Hz = digits 01 40 74 00.
+
+use super::*;
+
+fn ms(v: u64) -> Duration {
+    Duration::from_millis(v)
+}
+
+fn spec() -> BlockSpec {
+    BlockSpec::builtin().expect("the built-in block dialect loads")
+}
+
+const READ_F: [u8; 5] = [0, 0, 0, 0, 0x03];
+const READ_TX: [u8; 5] = [0, 0, 0, 0, 0xF7];
+
+fn run(dec: &mut BlockDecoder, steps: &[(u64, Direction, &[u8])]) -> Vec<RigEvent> {
+    let mut out = Vec::new();
+    for (t, dir, bytes) in steps {
+        dec.feed_at(ms(*t), *dir, bytes, &mut out);
+    }
+    dec.finish(&mut out);
+    out
+}
+
+use Direction::{Rx, Tx};
+
+#[test]
+fn answers_pair_with_their_requests() {
+    let mut d = BlockDecoder::new(spec());
+    let out = run(
+        &mut d,
+        &[
+            (0, Tx, &READ_F),
+            (10, Rx, &[0x01, 0x40, 0x74, 0x00, 0x01]),
+            (20, Tx, &READ_TX),
+            (30, Rx, &[0x80]),
+            (40, Tx, &READ_TX),
+            (50, Rx, &[0x1F]),
+            (60, Tx, &[READ_F, READ_TX].concat()),
+            // Both answers in one read, byte boundaries anywhere.
+            (70, Rx, &[0x00, 0x70, 0x30, 0x00, 0x00, 0x80]),
+        ],
+    );
+    assert_eq!(
+        out,
+        [
+            RigEvent::Frequency { hz: 14_074_000 },
+            RigEvent::Transmit { on: false },
+            RigEvent::Transmit { on: true },
+            RigEvent::Frequency { hz: 7_030_000 },
+            RigEvent::Transmit { on: false },
+        ]
+    );
+}
+
+#[test]
+fn chunks_split_anywhere_decode_the_same() {
+    let stream: Vec<(Direction, Vec<u8>)> = vec![
+        (Tx, READ_F.to_vec()),
+        (Rx, vec![0x01, 0x40, 0x74, 0x00, 0x01]),
+        (Tx, READ_TX.to_vec()),
+        (Rx, vec![0x00]),
+    ];
+    let whole = {
+        let mut d = BlockDecoder::new(spec());
+        let steps: Vec<(u64, Direction, &[u8])> = stream
+            .iter()
+            .map(|(dir, b)| (0, *dir, b.as_slice()))
+            .collect();
+        run(&mut d, &steps)
+    };
+    let mut d = BlockDecoder::new(spec());
+    let mut out = Vec::new();
+    for (dir, b) in &stream {
+        for byte in b {
+            d.feed_at(ms(0), *dir, std::slice::from_ref(byte), &mut out);
+        }
+    }
+    d.finish(&mut out);
+    assert_eq!(out, whole);
+    assert_eq!(whole.len(), 2);
+}
+
+#[test]
+fn a_lost_byte_costs_one_answer_and_the_gap_resynchronises() {
+    let mut d = BlockDecoder::new(spec());
+    let out = run(
+        &mut d,
+        &[
+            (0, Tx, &READ_F),
+            // Four of the five answer bytes, then nothing for 300 ms.
+            (10, Rx, &[0x01, 0x40, 0x74, 0x00]),
+            (310, Tx, &READ_F),
+            (320, Rx, &[0x01, 0x40, 0x75, 0x00, 0x01]),
+        ],
+    );
+    assert_eq!(
+        out,
+        [
+            RigEvent::Reject {
+                reason: RejectReason::Garbage,
+                bytes: 4
+            },
+            RigEvent::Frequency { hz: 14_075_000 },
+        ]
+    );
+}
+
+#[test]
+fn bytes_nobody_asked_for_and_bad_digits_are_rejected() {
+    let mut d = BlockDecoder::new(spec());
+    let out = run(
+        &mut d,
+        &[
+            (0, Rx, &[0x55, 0x66]),
+            (10, Tx, &READ_F),
+            (20, Rx, &[0x01, 0x4A, 0x74, 0x00, 0x01]),
+            // An answer long after its request: the request was given up.
+            (30, Tx, &READ_TX),
+            (500, Rx, &[0x00]),
+        ],
+    );
+    assert_eq!(
+        out,
+        [
+            RigEvent::Reject {
+                reason: RejectReason::Garbage,
+                bytes: 2
+            },
+            RigEvent::Reject {
+                reason: RejectReason::BadDigit,
+                bytes: 5
+            },
+            RigEvent::Reject {
+                reason: RejectReason::Garbage,
+                bytes: 1
+            },
+        ]
+    );
+}
+
+#[test]
+fn the_station_decoder_sees_the_other_programs_keying_at_once() {
+    let mut d = BlockDecoder::station(spec());
+    let out = run(
+        &mut d,
+        &[
+            // A frequency set (VFO unknown: nothing taken), then keying.
+            (0, Tx, &[0x01, 0x40, 0x74, 0x00, 0x01]),
+            (10, Tx, &[0, 0, 0, 0, 0x08]),
+            (500, Tx, &[0, 0, 0, 0, 0x88]),
+        ],
+    );
+    assert_eq!(
+        out,
+        [
+            RigEvent::TransmitCommand { on: true },
+            RigEvent::TransmitCommand { on: false },
+        ]
+    );
+    // The reporting decoder emits no station events.
+    let mut d = BlockDecoder::new(spec());
+    assert!(run(&mut d, &[(10, Tx, &[0, 0, 0, 0, 0x08])]).is_empty());
+}
+
+#[test]
+fn the_dialect_encodes_what_such_a_rig_answers() {
+    let s = spec();
+    assert_eq!(
+        s.encode_frequency(14_074_000),
+        [0x01, 0x40, 0x74, 0x00, 0x00]
+    );
+    assert_eq!(s.encode_transmit(true), [0x00]);
+    assert_eq!(s.encode_transmit(false), [0x80]);
+    assert_eq!(s.poll_frequency, READ_F);
+    assert_eq!(s.poll_transmit, READ_TX);
+}
+
+fn load(text: &str) -> Result<BlockSpec, String> {
+    BlockSpec::parse(text, std::path::Path::new("mine.toml")).map_err(|e| e.to_string())
+}
+
+#[test]
+fn the_loader_refuses_set_and_keying_opcodes_as_polls() {
+    let base = include_str!("../../../protocols/block-5.toml");
+    load(base).unwrap();
+    for op in ["0x08", "0x88", "0x01", "0x81"] {
+        let text = base.replace(
+            "transmit = [0x00, 0x00, 0x00, 0x00, 0xF7]",
+            &format!("transmit = [0x00, 0x00, 0x00, 0x00, {op}]"),
+        );
+        let e = load(&text).unwrap_err();
+        assert!(e.contains("poll.transmit"), "{op}: {e}");
+    }
+    let text = base.replace("read = 0x03", "read = 0x08");
+    let e = load(&text).unwrap_err();
+    assert!(e.contains("frequency.read"), "{e}");
+    let text = base.replace("opcode_offset = 4", "opcode_offset = 5");
+    assert!(load(&text).unwrap_err().contains("block.opcode_offset"));
+}
