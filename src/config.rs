@@ -317,6 +317,28 @@ pub struct FollowConfig {
     /// for jumps.
     #[serde(default = "default_jump_quiet_ms")]
     pub jump_quiet_ms: u64,
+    /// Which frequency the loop is tuned for: `"transmit"` (default: the
+    /// transmit VFO, XIT included, where the power goes) or `"receive"`.
+    #[serde(default)]
+    pub tune_for: TuneForConfig,
+}
+
+/// `[follow] tune_for`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum TuneForConfig {
+    #[default]
+    Transmit,
+    Receive,
+}
+
+impl From<TuneForConfig> for crate::follow::station::TuneFor {
+    fn from(t: TuneForConfig) -> Self {
+        match t {
+            TuneForConfig::Transmit => crate::follow::station::TuneFor::Transmit,
+            TuneForConfig::Receive => crate::follow::station::TuneFor::Receive,
+        }
+    }
 }
 
 /// The shortest `follow.jump_quiet_ms`: a knob reports every 20 to 100 ms
@@ -365,6 +387,7 @@ impl Default for FollowConfig {
             inhibit_while_detuned: true,
             jump_hz: default_jump_hz(),
             jump_quiet_ms: default_jump_quiet_ms(),
+            tune_for: TuneForConfig::Transmit,
         }
     }
 }

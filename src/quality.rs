@@ -454,6 +454,10 @@ fn run_policy(
 ) -> std::io::Result<()> {
     let mut setup = station.replay_setup(Some(start_steps(station, policy, sc)));
     setup.policy = policy.clone();
+    // The bench counts the inhibit as wired (transmit time under it is
+    // reported apart), so a move may go ahead under it while the rig's
+    // transmit state is unknown, as at a station with its line wired.
+    setup.policy.while_unknown = crate::follow::WhileUnknown::MoveUnderInhibit;
     let mut log = InhibitLog(Vec::new());
     let mut replay = Replay::new(setup, &mut log);
     let mut hz = 0u64;

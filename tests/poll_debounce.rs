@@ -36,6 +36,10 @@ fn moves_for_slow_tune(poll_ms: u64) -> usize {
     config.validate().unwrap();
     let policy = policy_from_config(&config, |_| None).unwrap();
     let mut core = Follower::new(policy, Arc::new(Line), Some(9_500));
+    // Polling reads the transmit state too: the first answer says receive
+    // (without it this station, with no inhibit line, would hold every move
+    // while the transmit state is unknown).
+    core.handle_transmit(Duration::ZERO, false);
     let mut moves = 0;
     let mut next_poll = 0u64;
     for t_ms in (0..15_000u64).step_by(5) {

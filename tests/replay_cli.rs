@@ -274,6 +274,10 @@ inhibit_tail_ms = 200
 # quiet spell would otherwise be a jump, settled at once (jumps have their
 # own tests in src/follow/jump_tests.rs).
 jump_hz = 0
+# Broadcasts of this family carry no transmit state and nothing is wired:
+# this station has written down that moves may go ahead regardless.
+[inhibit]
+unprotected_ok = true
 {}"#,
         common::forty_metres(&[(7_100_000, 1000), (7_200_000, 2000)])
     );

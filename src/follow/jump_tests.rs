@@ -42,6 +42,11 @@ fn policy() -> Policy {
             min_hz: 10_000,
             quiet: ms(300),
         }),
+        // A station with its inhibit wired; the hold until tuned has
+        // tests of its own (truth_tests.rs).
+        tune_for: TuneFor::Transmit,
+        while_unknown: WhileUnknown::MoveUnderInhibit,
+        inhibit_until_tuned: false,
     }
 }
 

@@ -26,6 +26,7 @@ pub mod peak;
 pub mod policy;
 pub mod quiet;
 pub mod session;
+pub mod station;
 pub mod swr_watch;
 
 use std::collections::VecDeque;
@@ -35,7 +36,10 @@ use std::time::Duration;
 
 use crate::calibrate::StepMap;
 pub use effects::{apply, Effects};
-pub use policy::{Approach, Band, Jump, Legs, Placement, Policy};
+pub use policy::{Approach, Band, Jump, Legs, Placement, Policy, WhileUnknown};
+pub use station::{
+    Source, Station, StationEvent, TransmitKnowledge, TransmitState, TuneFor, Vfo, Which,
+};
 
 /// Why the core decided not to move (or not to move as asked).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -60,6 +64,9 @@ pub enum HoldReason {
     /// The rig's port is down: a transmission could start unheard, so the
     /// move waits for the port to come back.
     RigSilent,
+    /// Nothing says whether the rig transmits, no inhibit line is wired and
+    /// the station has not written down that moves may go ahead unprotected.
+    TransmitUnknown,
 }
 
 impl HoldReason {
@@ -74,6 +81,7 @@ impl HoldReason {
             HoldReason::Paused => "paused",
             HoldReason::Calibration => "calibration",
             HoldReason::RigSilent => "rig-silent",
+            HoldReason::TransmitUnknown => "transmit-unknown",
         }
     }
 }
@@ -170,7 +178,12 @@ pub struct Follower {
     policy: Policy,
     map: Arc<dyn StepMap>,
     profile: Option<String>,
-    transmitting: bool,
+    /// What the rig is doing: VFOs, split, the transmit state.
+    station: Station,
+    /// The inhibit is held until the loop is known to be tuned for the
+    /// rig's frequency (at start, after a fault, after a rig-port
+    /// reconnect), with `policy.inhibit_until_tuned`.
+    untuned: bool,
     /// The rig's port is down (see [`Follower::handle_rig_link`]).
     rig_silent: bool,
     paused: bool,
@@ -206,7 +219,7 @@ impl fmt::Debug for Follower {
             .field("tuned_hz", &self.tuned_hz)
             .field("motion", &self.motion)
             .field("inhibit", &self.inhibit)
-            .field("transmitting", &self.transmitting)
+            .field("transmit", &self.station.transmit().state)
             .finish_non_exhaustive()
     }
 }
@@ -220,7 +233,8 @@ impl Follower {
             policy,
             map,
             profile: None,
-            transmitting: false,
+            station: Station::new(false),
+            untuned: false,
             rig_silent: false,
             paused: false,
             fault: false,
@@ -243,20 +257,33 @@ impl Follower {
         if position.is_none() {
             f.set_inhibit(true);
         }
+        if f.policy.inhibit_until_tuned {
+            f.untuned = true;
+            f.set_inhibit(true);
+        }
         f
+    }
+
+    /// A hardware transmit-sense line will report (it is the authority for
+    /// "the rig transmits"). Call before the first event.
+    pub fn expect_sense_line(&mut self) {
+        self.station = Station::new(true);
     }
 
     // ----- events in -------------------------------------------------------
 
-    /// The rig reported its frequency. A report that is part of a sweep
-    /// waits for the debounce; a jump (see [`Jump`]) is acted on at once.
+    /// The rig reported its (receive VFO's) frequency. A report that is
+    /// part of a sweep waits for the debounce; a jump (see [`Jump`]) is
+    /// acted on at once.
     pub fn handle_frequency(&mut self, now: Duration, hz: u64) {
-        let jump = self.policy.is_jump(now, hz, self.last_report);
-        self.note_report(now, hz);
-        if jump && self.pending.is_none_or(|p| p.hz != hz) && self.settled_hz != Some(hz) {
-            self.stats.jumps += 1;
-        }
-        self.report(now, hz, jump);
+        self.handle_station(
+            now,
+            StationEvent::Frequency {
+                which: Which::Receive,
+                hz,
+                source: Source::RigReport,
+            },
+        );
     }
 
     /// A frequency known to be where the operator is going, not a step of a
@@ -264,8 +291,55 @@ impl Follower {
     /// an operator's command. Acted on at once, under the same rules as a
     /// settled report (bands, dead band, limits, transmit deferral, inhibit).
     pub fn handle_frequency_set(&mut self, now: Duration, hz: u64) {
-        self.note_report(now, hz);
-        self.report(now, hz, true);
+        self.handle_station(
+            now,
+            StationEvent::Frequency {
+                which: Which::Receive,
+                hz,
+                source: Source::CommandSeen,
+            },
+        );
+    }
+
+    /// Something was learnt about the station: a VFO's frequency, the VFO
+    /// selection, split, XIT/RIT, the transmit state, from any source. The
+    /// loop follows the frequency `policy.tune_for` names (the transmit
+    /// frequency by default), so a change of the other one moves nothing.
+    /// A set seen going to the rig that changes that frequency is acted on
+    /// at once; a report, after the debounce unless it is a jump.
+    pub fn handle_station(&mut self, now: Duration, ev: StationEvent) {
+        let before = self.station.tune_hz(self.policy.tune_for);
+        let changed = self.station.apply(now, ev);
+        if changed.transmit {
+            self.transmit_changed(now);
+        }
+        let about_transmit = matches!(
+            ev,
+            StationEvent::Transmit { .. } | StationEvent::TransmitUnknown
+        );
+        if !about_transmit {
+            if let Some(hz) = self.station.tune_hz(self.policy.tune_for) {
+                let set = matches!(
+                    ev,
+                    StationEvent::Frequency {
+                        source: Source::CommandSeen,
+                        ..
+                    }
+                ) && before != Some(hz);
+                let jump = set || self.policy.is_jump(now, hz, self.last_report);
+                self.note_report(now, hz);
+                if jump
+                    && !set
+                    && self.pending.is_none_or(|p| p.hz != hz)
+                    && self.settled_hz != Some(hz)
+                {
+                    self.stats.jumps += 1;
+                }
+                self.report(now, hz, jump);
+                return;
+            }
+        }
+        self.handle_timeout(now);
     }
 
     fn note_report(&mut self, now: Duration, hz: u64) {
@@ -274,7 +348,8 @@ impl Follower {
         }
     }
 
-    /// A report of `hz`, settled after the debounce or (`at_once`) now.
+    /// A report that the loop is to be tuned for `hz`, settled after the
+    /// debounce or (`at_once`) now.
     fn report(&mut self, now: Duration, hz: u64, at_once: bool) {
         match self.pending {
             Some(p) if p.hz == hz && !at_once => return,
@@ -288,7 +363,7 @@ impl Follower {
         };
         self.pending = Some(Pending { hz, deadline });
         if self.policy.inhibit_while_detuned
-            && !self.transmitting
+            && self.station.transmit().state != TransmitState::Transmit
             && self.position.is_some()
             && self.detuned_for(hz)
         {
@@ -310,25 +385,53 @@ impl Follower {
             Placement::Outside => return false,
         };
         let hysteresis = self.policy.bands.get(band).map_or(0, |b| b.hysteresis_hz);
-        let heading = match self.motion {
+        self.heading()
+            .is_none_or(|t| t.abs_diff(tune_hz) > hysteresis)
+    }
+
+    /// What the loop is tuned for, or will be when the move under way
+    /// arrives: derived from where the capacitor rests (a move's target
+    /// counts only once the controller says it is there).
+    fn heading(&self) -> Option<u64> {
+        match self.motion {
             Motion::Moving { target, .. } => Some(target.tune_hz),
             _ => self.tuned_hz,
-        };
-        heading.is_none_or(|t| t.abs_diff(tune_hz) > hysteresis)
+        }
     }
 
     /// The rig reported that it started (`true`) or stopped transmitting.
     pub fn handle_transmit(&mut self, now: Duration, on: bool) {
-        if on == self.transmitting {
-            return;
+        self.handle_station(
+            now,
+            StationEvent::Transmit {
+                on,
+                source: Source::RigReport,
+            },
+        );
+    }
+
+    fn transmit_changed(&mut self, now: Duration) {
+        match self.station.transmit().state {
+            TransmitState::Transmit => self.stand_down(HoldReason::Transmitting),
+            TransmitState::Receive => self.try_start(now),
+            TransmitState::Unknown => {
+                if !self.policy.while_unknown.moves() {
+                    self.stand_down(HoldReason::TransmitUnknown);
+                }
+            }
         }
-        self.transmitting = on;
-        if on {
-            self.stand_down(HoldReason::Transmitting);
-        } else {
-            self.try_start(now);
+    }
+
+    /// What keeps a move from starting on the rig's side, if anything.
+    fn rig_blocks(&self) -> Option<HoldReason> {
+        match self.station.transmit().state {
+            TransmitState::Transmit => Some(HoldReason::Transmitting),
+            TransmitState::Unknown if !self.policy.while_unknown.moves() => {
+                Some(HoldReason::TransmitUnknown)
+            }
+            _ if self.rig_silent => Some(HoldReason::RigSilent),
+            _ => None,
         }
-        self.handle_timeout(now);
     }
 
     /// The rig's port went down (`up == false`) or came back. While it is
@@ -341,6 +444,18 @@ impl Follower {
         }
         self.rig_silent = !up;
         if up {
+            if self.policy.inhibit_until_tuned {
+                // The rig's state is unknown again: inhibit until its
+                // frequency has been heard and the loop is tuned for it.
+                // The next report settles afresh even if unchanged.
+                self.untuned = true;
+                self.release_at = None;
+                self.pending = None;
+                self.settled_hz = None;
+                if self.station.transmit().state != TransmitState::Transmit {
+                    self.set_inhibit(true);
+                }
+            }
             self.try_start(now);
         } else {
             self.stand_down(HoldReason::RigSilent);
@@ -366,6 +481,13 @@ impl Follower {
                 self.actions.push_back(Action::Goto { steps: next });
             }
             Motion::Moving { then: None, .. } | Motion::Stopping => {
+                if let Motion::Moving { target, .. } = self.motion {
+                    if target.steps == steps {
+                        // Tuned for the target only once it is reached.
+                        self.tuned_hz = Some(target.tune_hz);
+                        self.untuned = false;
+                    }
+                }
                 self.motion = Motion::Idle;
                 if let Some(t) = &mut self.touchup {
                     if t.due.is_none() {
@@ -391,6 +513,10 @@ impl Follower {
     pub fn handle_fault(&mut self, now: Duration) {
         self.fault = true;
         self.position = None;
+        self.tuned_hz = None;
+        if self.policy.inhibit_until_tuned {
+            self.untuned = true;
+        }
         self.motion = Motion::Idle;
         self.release_at = None;
         self.assert_inhibit(now);
@@ -469,7 +595,7 @@ impl Follower {
             }
         }
         if let Some(at) = self.release_at {
-            if now >= at && !self.detune_hold {
+            if now >= at && !self.detune_hold && !self.untuned {
                 self.release_at = None;
                 self.set_inhibit(false);
             }
@@ -520,7 +646,7 @@ impl Follower {
     }
     /// The frequency the tuner is tuned (or being tuned) for.
     pub fn tuned_hz(&self) -> Option<u64> {
-        self.tuned_hz
+        self.heading()
     }
     pub fn is_moving(&self) -> bool {
         !matches!(self.motion, Motion::Idle)
@@ -528,8 +654,31 @@ impl Follower {
     pub fn inhibit(&self) -> bool {
         self.inhibit
     }
+    /// The rig is known to transmit.
     pub fn transmitting(&self) -> bool {
-        self.transmitting
+        self.station.transmit().state == TransmitState::Transmit
+    }
+    /// What the core knows of the rig.
+    pub fn station(&self) -> &Station {
+        &self.station
+    }
+    /// The transmit state, its source and since when.
+    pub fn transmit(&self) -> TransmitKnowledge {
+        self.station.transmit()
+    }
+    /// Whether nothing may move for want of knowing whether the rig
+    /// transmits, or because it does: what the controller link's own
+    /// interlock is told.
+    pub fn rig_may_transmit(&self) -> bool {
+        match self.station.transmit().state {
+            TransmitState::Transmit => true,
+            TransmitState::Unknown => !self.policy.while_unknown.moves(),
+            TransmitState::Receive => false,
+        }
+    }
+    /// The inhibit is held until the loop is tuned for the rig's frequency.
+    pub fn untuned(&self) -> bool {
+        self.untuned
     }
     /// The rig's port is down.
     pub fn rig_silent(&self) -> bool {
@@ -554,7 +703,9 @@ impl Follower {
         self.settled_hz = Some(hz);
         self.actions.push_back(Action::Settled { hz });
         let held = std::mem::take(&mut self.detune_hold);
+        let was_untuned = self.untuned;
         self.decide(now, hz);
+        let held = held || (was_untuned && !self.untuned);
         // Asserted for a detuned report, and no move came of it (dead band,
         // out of band, paused): let the rig transmit again, at once or when
         // a running tail ends.
@@ -579,17 +730,21 @@ impl Follower {
                 // Listening outside the bands must not drive the tuner; a
                 // move still waiting for receive is dropped too.
                 self.want = None;
+                self.untuned = false;
                 self.hold(hz, HoldReason::OutOfBand);
                 return;
             }
         };
         let hysteresis = self.policy.bands.get(band).map_or(0, |b| b.hysteresis_hz);
         if self
-            .tuned_hz
+            .heading()
             .is_some_and(|t| t.abs_diff(tune_hz) <= hysteresis)
             && self.position.is_some()
         {
             self.want = None;
+            if !self.is_moving() {
+                self.untuned = false;
+            }
             self.hold(hz, HoldReason::DeadBand);
             return;
         }
@@ -611,7 +766,10 @@ impl Follower {
         if let Some(r) = reference {
             if r.abs_diff(steps) < self.policy.min_move_steps.unsigned_abs() || r == steps {
                 self.want = None;
-                self.tuned_hz = Some(tune_hz);
+                if !self.is_moving() {
+                    self.tuned_hz = Some(tune_hz);
+                    self.untuned = false;
+                }
                 self.hold(hz, HoldReason::DeadBand);
                 return;
             }
@@ -642,12 +800,8 @@ impl Follower {
             // Picked up when the motor comes to rest.
             return;
         }
-        if self.transmitting {
-            self.defer(HoldReason::Transmitting);
-            return;
-        }
-        if self.rig_silent {
-            self.defer(HoldReason::RigSilent);
+        if let Some(reason) = self.rig_blocks() {
+            self.defer(reason);
             return;
         }
         if self.inhibit {
@@ -676,15 +830,16 @@ impl Follower {
             self.motion = Motion::Idle;
             return;
         };
-        if self.transmitting || self.rig_silent || !self.inhibit {
+        if self.rig_blocks().is_some() || !self.inhibit {
             // Not reachable through the public events; kept as a last guard.
             self.want = Some(target);
             self.motion = Motion::Idle;
             return;
         }
         let to = self.policy.clamp(target.steps);
-        self.tuned_hz = Some(target.tune_hz);
         if to == from {
+            self.tuned_hz = Some(target.tune_hz);
+            self.untuned = false;
             self.motion = Motion::Idle;
             self.release_at = None;
             self.set_inhibit(false);
@@ -701,6 +856,9 @@ impl Follower {
             tune_hz: target.tune_hz,
         });
         self.actions.push_back(Action::Goto { steps: legs.first });
+        // The capacitor leaves where it was tuned; what it is tuned for is
+        // known again when the controller says it reached the target.
+        self.tuned_hz = None;
         self.motion = Motion::Moving {
             then: legs.then,
             target: Target {
@@ -713,7 +871,7 @@ impl Follower {
     /// The motor is at rest: start the next wanted move, or begin the
     /// inhibit tail.
     fn after_rest(&mut self, now: Duration) {
-        if self.want.is_some() && !self.transmitting && !self.rig_silent && !self.paused {
+        if self.want.is_some() && self.rig_blocks().is_none() && !self.paused {
             self.try_start(now);
             if self.is_moving() {
                 return;
@@ -723,7 +881,8 @@ impl Follower {
         // fell silent): the loop is detuned, so with `inhibit_while_detuned`
         // the inhibit stays on until the move is done.
         let stopped_short = self.policy.inhibit_while_detuned && self.want.is_some();
-        if self.inhibit && self.position.is_some() && !self.fault && !stopped_short {
+        if self.inhibit && self.position.is_some() && !self.fault && !stopped_short && !self.untuned
+        {
             self.release_at = Some(now + self.policy.inhibit_tail);
         }
     }
@@ -738,8 +897,13 @@ impl Follower {
             Motion::Arming { .. } => {
                 self.motion = Motion::Idle;
                 // Nothing has moved; with `inhibit_while_detuned` the loop
-                // is still wrong for the frequency, so the inhibit stays.
-                if !self.policy.inhibit_while_detuned {
+                // is still wrong for the frequency, so the inhibit stays;
+                // so it does while the loop is known untuned (start, fault,
+                // reconnect) or the transmit state is unknown.
+                if !self.policy.inhibit_while_detuned
+                    && !self.untuned
+                    && reason != HoldReason::TransmitUnknown
+                {
                     self.set_inhibit(false);
                 }
                 self.defer(reason);
@@ -791,3 +955,5 @@ impl Follower {
 mod jump_tests;
 #[cfg(test)]
 mod tests;
+#[cfg(test)]
+mod truth_tests;

@@ -5,6 +5,8 @@
 
 use std::time::Duration;
 
+use super::station::TuneFor;
+
 /// Which side the final approach to a position comes from (`tuner.approach`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Deserialize, serde::Serialize)]
 #[serde(rename_all = "lowercase")]
@@ -58,6 +60,14 @@ pub struct Policy {
     /// Reports that are jumps, not part of a knob sweep, are acted on at
     /// once instead of after the debounce; `None`: every report waits.
     pub jump: Option<Jump>,
+    /// Which frequency the loop is tuned for (`[follow] tune_for`).
+    pub tune_for: TuneFor,
+    /// Whether a move may go ahead while the transmit state is unknown.
+    pub while_unknown: WhileUnknown,
+    /// Keep the inhibit asserted from start (and from a rig-port
+    /// reconnect) until the loop is known to be tuned for the rig's
+    /// frequency; the live service and replays of a station turn it on.
+    pub inhibit_until_tuned: bool,
 }
 
 /// When a report counts as a jump (a band change, a memory recall, a
@@ -71,6 +81,25 @@ pub struct Policy {
 pub struct Jump {
     pub min_hz: u64,
     pub quiet: Duration,
+}
+
+/// What a move may do while nothing says whether the rig transmits.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum WhileUnknown {
+    /// An inhibit line is wired: the move goes ahead under it.
+    MoveUnderInhibit,
+    /// No line is wired, and the station has written down that moves may
+    /// go ahead unprotected (`[inhibit] unprotected_ok = true`).
+    MoveUnprotected,
+    /// Nothing protects the rig: the move waits until the state is known.
+    Hold,
+}
+
+impl WhileUnknown {
+    /// Whether a move may start while the transmit state is unknown.
+    pub fn moves(self) -> bool {
+        !matches!(self, WhileUnknown::Hold)
+    }
 }
 
 impl Policy {
@@ -202,6 +231,9 @@ mod tests {
             jump: None,
             inhibit_tail: Duration::from_millis(100),
             candidate_dwell: Duration::from_secs(10),
+            tune_for: TuneFor::Transmit,
+            while_unknown: WhileUnknown::MoveUnderInhibit,
+            inhibit_until_tuned: false,
         }
     }
 

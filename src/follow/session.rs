@@ -32,7 +32,7 @@ use std::collections::VecDeque;
 use std::time::Duration;
 
 use super::Approach;
-use super::{Effects, Follower, HoldReason};
+use super::{Effects, Follower, HoldReason, Source, StationEvent};
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::tuner::{TunerCommand, TunerEvent};
@@ -425,6 +425,11 @@ impl Session {
                 text: "journal: none yet; the controller's count will be taken",
             },
         });
+        if core.rig_may_transmit() {
+            // Nothing says the rig receives and nothing protects a move:
+            // the controller link's own interlock refuses moves too.
+            st.push(Output::Transmit { on: true });
+        }
         Session {
             core,
             decoder,
@@ -500,10 +505,14 @@ impl Session {
                 });
             }
         }
-        // A transmission that ended while the port was down went unheard:
-        // the rig is taken to be receiving until it says otherwise.
-        self.set_transmit(now, false);
+        // Whatever the rig did while the port was down went unheard: its
+        // transmit state is unknown (never taken as receive) until a report,
+        // a poll answer or the sense line says otherwise.
+        self.core.handle_station(now, StationEvent::TransmitUnknown);
         self.core.handle_rig_link(now, true);
+        self.st.push(Output::Transmit {
+            on: self.core.rig_may_transmit(),
+        });
     }
 
     /// The rig's source ended for good: nothing moves from now on.
@@ -516,8 +525,24 @@ impl Session {
     }
 
     fn set_transmit(&mut self, now: Duration, on: bool) {
-        self.st.push(Output::Transmit { on });
-        self.core.handle_transmit(now, on);
+        self.set_station(
+            now,
+            StationEvent::Transmit {
+                on,
+                source: Source::RigReport,
+            },
+        );
+    }
+
+    /// Hands the core what was learnt of the station; the controller
+    /// link's own interlock is told whether the rig transmits, or may.
+    fn set_station(&mut self, now: Duration, ev: StationEvent) {
+        let before = self.core.rig_may_transmit();
+        self.core.handle_station(now, ev);
+        let after = self.core.rig_may_transmit();
+        if matches!(ev, StationEvent::Transmit { .. }) || before != after {
+            self.st.push(Output::Transmit { on: after });
+        }
     }
 
     /// An event from the controller link.
@@ -1019,10 +1044,10 @@ impl Session {
             });
             return;
         }
-        if self.core.transmitting() {
+        if self.core.rig_may_transmit() {
             self.st.push(plain(
                 Level::Info,
-                "relax on exit: skipped, the rig is transmitting",
+                "relax on exit: skipped, the rig is transmitting (or may be)",
             ));
             return;
         }

@@ -4,6 +4,7 @@
 //! session's own view). The calibration is an invented straight line:
 //! steps = (hz - 7 000 000) / 100, so 7.1 MHz is 1000 steps.
 
+use crate::follow::{TuneFor, WhileUnknown};
 use std::sync::Arc;
 use std::time::Duration;
 
@@ -42,6 +43,11 @@ fn policy(backlash: i64) -> Policy {
         inhibit_lead: ms(5),
         inhibit_tail: ms(50),
         candidate_dwell: ms(5_000),
+        // These rules model a station with an inhibit line wired; the
+        // start-up hold until tuned has tests of its own.
+        tune_for: TuneFor::Transmit,
+        while_unknown: WhileUnknown::MoveUnderInhibit,
+        inhibit_until_tuned: false,
         inhibit_while_detuned: false,
         jump: None,
     }

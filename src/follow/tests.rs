@@ -44,6 +44,11 @@ fn policy() -> Policy {
         inhibit_lead: ms(20),
         inhibit_tail: ms(100),
         candidate_dwell: ms(5_000),
+        // These rules model a station with an inhibit line wired; the
+        // start-up hold until tuned has tests of its own.
+        tune_for: TuneFor::Transmit,
+        while_unknown: WhileUnknown::MoveUnderInhibit,
+        inhibit_until_tuned: false,
         // Off for most rules below, which time the inhibit around moves;
         // the tests of the detuned inhibit turn it on.
         inhibit_while_detuned: false,

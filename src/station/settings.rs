@@ -18,7 +18,7 @@ use crate::config::{
     RigUse, SerialFlow, SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
 use crate::error::{Located, Place};
-use crate::follow::{Band, Follower, Jump, Policy};
+use crate::follow::{Band, Follower, Jump, Policy, WhileUnknown};
 use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
 use crate::port::link::LinkConfig;
@@ -83,7 +83,21 @@ pub fn policy_from_config(
             min_hz: f.jump_hz,
             quiet: Duration::from_millis(f.jump_quiet_ms),
         }),
+        tune_for: f.tune_for.into(),
+        while_unknown: while_unknown(&config.inhibit),
+        inhibit_until_tuned: true,
     })
+}
+
+/// What a move may do while the transmit state is unknown: go ahead under a
+/// wired inhibit line, go ahead unprotected where the station wrote that
+/// down (`[inhibit] unprotected_ok = true`), or wait.
+pub fn while_unknown(inhibit: &InhibitConfig) -> WhileUnknown {
+    match (inhibit.line, inhibit.unprotected_ok) {
+        (InhibitKind::None, true) => WhileUnknown::MoveUnprotected,
+        (InhibitKind::None, false) => WhileUnknown::Hold,
+        _ => WhileUnknown::MoveUnderInhibit,
+    }
 }
 
 /// How `[calibration]` asks for its points to be fitted.

@@ -16,7 +16,7 @@ use tokio::sync::mpsc;
 use tokio_serial::{SerialPort, SerialStream};
 use tuneward::calibrate::StepMap;
 use tuneward::config::Approach;
-use tuneward::follow::{Band, Policy};
+use tuneward::follow::{Band, Policy, TuneFor, WhileUnknown};
 use tuneward::port::link::LinkEvent;
 use tuneward::rig::Direction;
 
@@ -56,6 +56,11 @@ pub fn policy(debounce: Duration) -> Policy {
         candidate_dwell: Duration::from_secs(60),
         inhibit_while_detuned: false,
         jump: None,
+        // A station with its inhibit wired; the hold until tuned is tested
+        // on the real binary with a config.
+        tune_for: TuneFor::Transmit,
+        while_unknown: WhileUnknown::MoveUnderInhibit,
+        inhibit_until_tuned: false,
     }
 }
 
@@ -114,6 +119,12 @@ debounce_ms = 30
 hysteresis_hz = 100
 inhibit_lead_ms = 5
 inhibit_tail_ms = 20
+
+# No inhibit line on this test bench, and its rig scripts do not always say
+# whether the rig transmits: moves may go ahead while that is unknown. The
+# tests of the transmit truth write configs of their own.
+[inhibit]
+unprotected_ok = true
 {bands}"#,
         rig = rig_link.display(),
         bands = forty_metres(&[(7_000_000, 0), (7_300_000, 3000)]),

@@ -1,0 +1,344 @@
+//! Core tests of the station model: tuning for the transmit frequency,
+//! unknown never taken as receive, the inhibit held until the loop is
+//! tuned, and a stopped move never counted as arrived. The calibration is
+//! the invented straight line of `tests.rs` (100 Hz a step); every expected
+//! position below is worked from it by hand: steps = 10 000 - (hz - 7 MHz)/100.
+
+use super::*;
+
+struct Line;
+impl StepMap for Line {
+    fn steps_at(&self, hz: f64) -> f64 {
+        10_000.0 - (hz - 7_000_000.0) / 100.0
+    }
+}
+
+fn ms(v: u64) -> Duration {
+    Duration::from_millis(v)
+}
+
+fn policy() -> Policy {
+    Policy {
+        bands: vec![Band {
+            name: "40m".into(),
+            low_hz: 7_000_000,
+            high_hz: 7_200_000,
+            guard_hz: 0,
+            hysteresis_hz: 1_000,
+            debounce: ms(300),
+        }],
+        min_steps: 0,
+        max_steps: 12_000,
+        backlash_steps: 0,
+        approach: Approach::Up,
+        debounce: ms(300),
+        min_move_steps: 3,
+        inhibit_lead: ms(20),
+        inhibit_tail: ms(100),
+        candidate_dwell: ms(5_000),
+        inhibit_while_detuned: true,
+        jump: None,
+        tune_for: TuneFor::Transmit,
+        while_unknown: WhileUnknown::MoveUnderInhibit,
+        inhibit_until_tuned: true,
+    }
+}
+
+fn drain(f: &mut Follower) -> Vec<Action> {
+    std::iter::from_fn(|| f.poll_action())
+        .filter(|a| !matches!(a, Action::Settled { .. }))
+        .collect()
+}
+
+fn gotos(a: &[Action]) -> Vec<i64> {
+    a.iter()
+        .filter_map(|a| match a {
+            Action::Goto { steps } => Some(*steps),
+            _ => None,
+        })
+        .collect()
+}
+
+fn holds(a: &[Action]) -> Vec<HoldReason> {
+    a.iter()
+        .filter_map(|a| match a {
+            Action::Hold { reason, .. } => Some(*reason),
+            _ => None,
+        })
+        .collect()
+}
+
+fn vfo(f: &mut Follower, t: u64, v: Vfo, hz: u64) {
+    f.handle_station(
+        ms(t),
+        StationEvent::Frequency {
+            which: Which::Vfo(v),
+            hz,
+            source: Source::RigReport,
+        },
+    );
+}
+
+fn tx(f: &mut Follower, t: u64, on: bool, source: Source) {
+    f.handle_station(ms(t), StationEvent::Transmit { on, source });
+}
+
+fn split(f: &mut Follower, t: u64, on: bool) {
+    f.handle_station(
+        ms(t),
+        StationEvent::Split {
+            on,
+            source: Source::RigReport,
+        },
+    );
+}
+
+/// Runs the core's clock from `from` to `to` in 10 ms ticks, answering
+/// each `Goto` with an arrival `travel` ms later; returns every action.
+fn run(f: &mut Follower, from: u64, to: u64, travel: u64) -> Vec<Action> {
+    let mut all = Vec::new();
+    let mut arrive: Option<(u64, i64)> = None;
+    let mut t = from;
+    while t <= to {
+        if let Some((at, steps)) = arrive {
+            if t >= at {
+                arrive = None;
+                f.handle_arrived(ms(t), steps);
+            }
+        }
+        f.handle_timeout(ms(t));
+        for a in drain(f) {
+            if let Action::Goto { steps } = a {
+                arrive = Some((t + travel, steps));
+            }
+            all.push(a);
+        }
+        t += 10;
+    }
+    all
+}
+
+fn known_at(position: i64) -> Follower {
+    let mut f = Follower::new(policy(), Arc::new(Line), None);
+    f.handle_arrived(ms(0), position);
+    f
+}
+
+#[test]
+fn the_inhibit_stays_on_from_start_until_the_loop_is_tuned() {
+    // The position is known at once; nothing has been heard from the rig.
+    let mut f = known_at(10_000);
+    let a = run(&mut f, 0, 2_000, 50);
+    assert!(f.inhibit(), "released before the rig's frequency was known");
+    assert!(!a.contains(&Action::Inhibit { on: false }));
+    // 7.1 MHz: 9 000 steps, worked by hand.
+    vfo(&mut f, 2_000, Vfo::A, 7_100_000);
+    let a = run(&mut f, 2_000, 4_000, 50);
+    assert_eq!(gotos(&a), vec![9_000]);
+    let moved = a.iter().position(|x| matches!(x, Action::Goto { .. }));
+    let freed = a.iter().position(|x| *x == Action::Inhibit { on: false });
+    assert!(freed > moved, "released before arrival: {a:?}");
+    assert!(!f.inhibit());
+}
+
+#[test]
+fn a_start_already_tuned_releases_at_the_settle() {
+    // 7.1 MHz is 9 000 steps: nothing to move, the loop is tuned.
+    let mut f = known_at(9_000);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    let a = run(&mut f, 0, 1_000, 50);
+    assert!(gotos(&a).is_empty());
+    assert_eq!(a.last(), Some(&Action::Inhibit { on: false }));
+}
+
+#[test]
+fn split_tunes_for_the_transmit_vfo_and_ignores_receive_changes() {
+    let mut f = known_at(9_000);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    // The other station listens 5 kHz up: VFO B, split on.
+    vfo(&mut f, 1_000, Vfo::B, 7_105_000);
+    split(&mut f, 1_010, true);
+    let a = run(&mut f, 1_010, 3_000, 50);
+    // 7.105 MHz: 8 950 steps.
+    assert_eq!(gotos(&a), vec![8_950]);
+    assert_eq!(f.tuned_hz(), Some(7_105_000));
+    // Tuning the receive VFO around moves nothing, even well beyond the
+    // dead band of where the loop is.
+    for (i, hz) in [7_101_000, 7_098_000, 7_090_000].into_iter().enumerate() {
+        vfo(&mut f, 3_000 + i as u64 * 500, Vfo::A, hz);
+    }
+    let a = run(&mut f, 3_000, 6_000, 50);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(!f.inhibit());
+    // The transmit VFO moved inside the dead band: nothing either.
+    vfo(&mut f, 6_000, Vfo::B, 7_105_500);
+    assert!(gotos(&run(&mut f, 6_000, 7_000, 50)).is_empty());
+    // Split off: the transmit frequency is VFO A's again.
+    split(&mut f, 7_000, false);
+    let a = run(&mut f, 7_000, 9_000, 50);
+    // 7.090 MHz: 9 100 steps.
+    assert_eq!(gotos(&a), vec![9_100]);
+}
+
+#[test]
+fn tune_for_receive_follows_the_receive_vfo() {
+    let mut p = policy();
+    p.tune_for = TuneFor::Receive;
+    let mut f = Follower::new(p, Arc::new(Line), Some(9_000));
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    vfo(&mut f, 0, Vfo::B, 7_150_000);
+    split(&mut f, 0, true);
+    let a = run(&mut f, 0, 2_000, 50);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+}
+
+#[test]
+fn xit_moves_the_transmit_frequency() {
+    let mut f = known_at(9_000);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    f.handle_station(
+        ms(1_000),
+        StationEvent::Xit {
+            offset_hz: Some(2_000),
+        },
+    );
+    // 7.102 MHz: 8 980 steps.
+    assert_eq!(gotos(&run(&mut f, 1_000, 3_000, 50)), vec![8_980]);
+}
+
+#[test]
+fn unknown_transmit_state_is_never_receive_without_protection() {
+    let mut p = policy();
+    p.while_unknown = WhileUnknown::Hold;
+    let mut f = Follower::new(p, Arc::new(Line), None);
+    f.handle_arrived(ms(0), 10_000);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    let a = run(&mut f, 0, 2_000, 50);
+    assert!(gotos(&a).is_empty());
+    assert_eq!(holds(&a), vec![HoldReason::TransmitUnknown]);
+    assert!(f.rig_may_transmit());
+    assert!(f.inhibit());
+    // A poll answer says receive: the move goes.
+    tx(&mut f, 2_000, false, Source::PollAnswer);
+    assert_eq!(gotos(&run(&mut f, 2_000, 3_000, 50)), vec![9_000]);
+    assert_eq!(f.transmit().source, Some(Source::PollAnswer));
+    assert!(!f.rig_may_transmit());
+}
+
+#[test]
+fn under_a_wired_inhibit_an_unknown_state_moves() {
+    let mut f = known_at(10_000);
+    assert_eq!(f.transmit().state, TransmitState::Unknown);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    assert_eq!(gotos(&run(&mut f, 0, 2_000, 50)), vec![9_000]);
+    assert!(!f.rig_may_transmit());
+}
+
+#[test]
+fn a_transmit_command_seen_going_to_the_rig_defers_at_once() {
+    let mut f = known_at(9_000);
+    tx(&mut f, 0, false, Source::RigReport);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    // A logging program sets 7.150 and keys the rig 40 ms later, before
+    // the debounce is over.
+    f.handle_station(
+        ms(1_000),
+        StationEvent::Frequency {
+            which: Which::Receive,
+            hz: 7_150_000,
+            source: Source::CommandSeen,
+        },
+    );
+    tx(&mut f, 1_040, true, Source::CommandSeen);
+    let a = run(&mut f, 1_040, 5_000, 50);
+    assert!(gotos(&a).is_empty(), "moved during the over: {a:?}");
+    assert!(holds(&a).contains(&HoldReason::Transmitting));
+    // A receive report from the rig ends it; 7.15 MHz: 8 500 steps.
+    tx(&mut f, 5_000, false, Source::RigReport);
+    assert_eq!(gotos(&run(&mut f, 5_000, 7_000, 50)), vec![8_500]);
+}
+
+#[test]
+fn a_stopped_move_is_not_counted_as_arrived() {
+    // The regression: a transmission stops a long move; while the rig is
+    // on the air the operator settles near the old target. The loop is
+    // where the motor stopped, not at the target, so the move must resume.
+    let mut f = known_at(10_000);
+    tx(&mut f, 0, false, Source::RigReport);
+    vfo(&mut f, 0, Vfo::A, 7_150_000); // 8 500 steps
+    f.handle_timeout(ms(300));
+    f.handle_timeout(ms(320));
+    assert_eq!(gotos(&drain(&mut f)), vec![8_500]);
+    tx(&mut f, 400, true, Source::RigReport);
+    assert_eq!(drain(&mut f).first(), Some(&Action::Stop));
+    f.handle_arrived(ms(450), 9_800);
+    assert_eq!(f.tuned_hz(), None, "a target not reached counted as tuned");
+    vfo(&mut f, 600, Vfo::A, 7_150_500); // inside the old target's dead band
+    let a = run(&mut f, 600, 3_000, 50);
+    assert!(gotos(&a).is_empty(), "moved while transmitting");
+    assert!(
+        f.inhibit(),
+        "released with the capacitor short of the target"
+    );
+    tx(&mut f, 3_000, false, Source::RigReport);
+    let a = run(&mut f, 3_000, 6_000, 50);
+    // 7.1505 MHz: 8 495 steps.
+    assert_eq!(gotos(&a), vec![8_495]);
+    assert_eq!(f.position(), Some(8_495));
+    assert_eq!(f.tuned_hz(), Some(7_150_500));
+}
+
+#[test]
+fn after_a_rig_port_reconnect_the_inhibit_waits_for_the_rig() {
+    let mut f = known_at(9_000);
+    tx(&mut f, 0, false, Source::RigReport);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    assert!(!f.inhibit());
+    f.handle_rig_link(ms(1_000), false);
+    f.handle_station(ms(1_500), StationEvent::TransmitUnknown);
+    f.handle_rig_link(ms(1_500), true);
+    assert!(f.inhibit());
+    assert_eq!(f.transmit().state, TransmitState::Unknown);
+    assert!(run(&mut f, 1_500, 4_000, 50)
+        .iter()
+        .all(|a| *a != Action::Inhibit { on: false }));
+    // The same frequency again: the loop is still tuned for it.
+    vfo(&mut f, 4_000, Vfo::A, 7_100_000);
+    let a = run(&mut f, 4_000, 5_000, 50);
+    assert!(gotos(&a).is_empty());
+    assert_eq!(a.last(), Some(&Action::Inhibit { on: false }));
+}
+
+#[test]
+fn a_fault_keeps_the_inhibit_until_tuned_again() {
+    let mut f = known_at(9_000);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    assert!(!f.inhibit());
+    f.handle_fault(ms(1_000));
+    assert!(f.inhibit());
+    f.handle_arrived(ms(1_500), 9_000);
+    let a = run(&mut f, 1_500, 3_000, 50);
+    assert!(
+        f.inhibit(),
+        "released after a fault without a decision: {a:?}"
+    );
+}
+
+#[test]
+fn the_sense_line_defers_every_move() {
+    let mut f = known_at(10_000);
+    f.expect_sense_line();
+    tx(&mut f, 0, true, Source::SenseLine);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    // The rig's own report says receive: the line says otherwise.
+    tx(&mut f, 100, false, Source::RigReport);
+    let a = run(&mut f, 0, 3_000, 50);
+    assert!(gotos(&a).is_empty());
+    tx(&mut f, 3_000, false, Source::SenseLine);
+    assert_eq!(gotos(&run(&mut f, 3_000, 4_000, 50)), vec![9_000]);
+}
