@@ -15,7 +15,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use crate::calibrate::StepMap;
-use crate::follow::{Effects, Follower, HoldReason, Policy};
+use crate::follow::{station, Effects, Follower, HoldReason, Policy};
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::timeline::{Entry, Summary, Timeline};
 use crate::tuner::sim::{SimParams, SimTuner};
@@ -86,8 +86,8 @@ impl<'t> Replay<'t> {
         let mut events = std::mem::take(&mut self.events);
         events.clear();
         self.decoder.feed_at(t, chunk.dir, chunk.bytes, &mut events);
-        for ev in &events {
-            self.rig_event(*ev)?;
+        for (i, ev) in events.iter().enumerate() {
+            self.rig_event(*ev, events.get(i + 1))?;
         }
         self.events = events;
         self.apply_actions()
@@ -101,8 +101,8 @@ impl<'t> Replay<'t> {
         let mut events = std::mem::take(&mut self.events);
         events.clear();
         self.decoder.finish(&mut events);
-        for ev in &events {
-            self.rig_event(*ev)?;
+        for (i, ev) in events.iter().enumerate() {
+            self.rig_event(*ev, events.get(i + 1))?;
         }
         self.events = events;
         self.apply_actions()?;
@@ -195,15 +195,14 @@ impl<'t> Replay<'t> {
         !self.core.is_moving()
     }
 
-    fn rig_event(&mut self, ev: RigEvent) -> std::io::Result<()> {
+    fn rig_event(&mut self, ev: RigEvent, next: Option<&RigEvent>) -> std::io::Result<()> {
         let now = self.now;
         match ev {
             RigEvent::Frequency { hz } => {
                 self.summary.frames += 1;
                 self.timeline.entry(now, &Entry::Frequency { hz })?;
-                self.core.handle_frequency(now, hz);
             }
-            RigEvent::Transmit { on } => {
+            RigEvent::Transmit { on } | RigEvent::TransmitCommand { on } => {
                 self.summary.frames += 1;
                 self.timeline.entry(now, &Entry::Transmit { on })?;
                 if on != self.transmitting {
@@ -214,7 +213,6 @@ impl<'t> Replay<'t> {
                         self.summary.transmit_s += now.saturating_sub(since).as_secs_f64();
                     }
                 }
-                self.core.handle_transmit(now, on);
             }
             RigEvent::Reject { reason, bytes } => {
                 self.summary.rejected += 1;
@@ -227,9 +225,11 @@ impl<'t> Replay<'t> {
                     },
                 )?;
             }
-            // Station events come only from the station decoder, which
-            // replay does not use (yet).
+            // Station events: counted with the report they came with.
             _ => {}
+        }
+        if let Some(sev) = station::from_rig(&ev, next, false) {
+            self.core.handle_station(now, sev);
         }
         self.apply_actions()
     }

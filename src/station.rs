@@ -123,7 +123,7 @@ impl Station {
         ReplaySetup {
             policy: self.policy.clone(),
             map: Arc::clone(&self.map),
-            decoder: self.dialect.decoder(self.config.rig.address),
+            decoder: self.dialect.station_decoder(self.config.rig.address),
             tuner: self.sim_params(),
             start_steps: Some(start_steps.unwrap_or(self.config.tuner.min_steps)),
         }

@@ -31,8 +31,9 @@
 use std::collections::VecDeque;
 use std::time::Duration;
 
+use super::station::{self, StationEvent};
 use super::Approach;
-use super::{Effects, Follower, HoldReason, Source, StationEvent};
+use super::{Effects, Follower, HoldReason};
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::tuner::{TunerCommand, TunerEvent};
@@ -460,20 +461,23 @@ impl Session {
                 self.st.note(Note::OnlyRejects { hint });
             }
         }
-        for ev in &out {
-            match *ev {
-                // Shutting down: no new targets (transmit still counts).
-                RigEvent::Frequency { .. } if self.st.stopping => {}
-                RigEvent::Frequency { hz } => self.core.handle_frequency(now, hz),
-                RigEvent::Transmit { on } => self.set_transmit(now, on),
-                RigEvent::Reject { reason, bytes } => self.st.note(Note::RigRejected {
+        for (i, ev) in out.iter().enumerate() {
+            if let RigEvent::Reject { reason, bytes } = *ev {
+                self.st.note(Note::RigRejected {
                     reason: reason.as_str(),
                     bytes,
-                }),
-                // Station events come only from the station decoder, which
-                // this session does not use (yet).
-                _ => {}
+                });
+                continue;
             }
+            let Some(sev) = station::from_rig(ev, out.get(i + 1), false) else {
+                continue;
+            };
+            // Shutting down: no new targets (what the rig transmits, and
+            // which VFO transmits, still counts).
+            if self.st.stopping && matches!(sev, StationEvent::Frequency { .. }) {
+                continue;
+            }
+            self.set_station(now, sev);
         }
         self.events = out;
     }
@@ -522,16 +526,6 @@ impl Session {
             "rig source ended; nothing moves from now on",
         ));
         self.handle_rig_down(now);
-    }
-
-    fn set_transmit(&mut self, now: Duration, on: bool) {
-        self.set_station(
-            now,
-            StationEvent::Transmit {
-                on,
-                source: Source::RigReport,
-            },
-        );
     }
 
     /// Hands the core what was learnt of the station; the controller

@@ -20,34 +20,21 @@
 use std::fmt;
 use std::time::Duration;
 
-/// One of the rig's two VFOs.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-pub enum Vfo {
-    A,
-    B,
+pub use crate::rig::Vfo;
+use crate::rig::{OffsetKind, RigEvent, Seen};
+
+/// The other VFO.
+fn other(v: Vfo) -> Vfo {
+    match v {
+        Vfo::A => Vfo::B,
+        Vfo::B => Vfo::A,
+    }
 }
 
-impl Vfo {
-    /// The other VFO.
-    pub fn other(self) -> Vfo {
-        match self {
-            Vfo::A => Vfo::B,
-            Vfo::B => Vfo::A,
-        }
-    }
-
-    fn index(self) -> usize {
-        match self {
-            Vfo::A => 0,
-            Vfo::B => 1,
-        }
-    }
-
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Vfo::A => "A",
-            Vfo::B => "B",
-        }
+fn index(v: Vfo) -> usize {
+    match v {
+        Vfo::A => 0,
+        Vfo::B => 1,
     }
 }
 
@@ -228,22 +215,30 @@ impl Station {
         match ev {
             StationEvent::Frequency { which, hz, .. } => {
                 let vfo = match which {
+                    // While transmitting split, a rig's "operating
+                    // frequency" is the transmit VFO's, as its display
+                    // shows: not news about the receive VFO.
+                    Which::Receive
+                        if self.split() && self.transmit.state == TransmitState::Transmit =>
+                    {
+                        self.tx
+                    }
                     Which::Receive => self.rx,
-                    Which::Other => self.rx.other(),
+                    Which::Other => other(self.rx),
                     Which::Vfo(v) => v,
                 };
-                if let Some(slot) = self.vfo.get_mut(vfo.index()) {
+                if let Some(slot) = self.vfo.get_mut(index(vfo)) {
                     *slot = Some(hz);
                 }
             }
             StationEvent::ReceiveVfo { vfo, .. } => {
                 let split = self.split();
                 self.rx = vfo;
-                self.tx = if split { vfo.other() } else { vfo };
+                self.tx = if split { other(vfo) } else { vfo };
             }
             StationEvent::TransmitVfo { vfo, .. } => self.tx = vfo,
             StationEvent::Split { on, .. } => {
-                self.tx = if on { self.rx.other() } else { self.rx };
+                self.tx = if on { other(self.rx) } else { self.rx };
             }
             StationEvent::Xit { offset_hz } => self.xit = offset_hz,
             StationEvent::Rit { offset_hz } => self.rit = offset_hz,
@@ -301,7 +296,7 @@ impl Station {
 
     /// The VFO's frequency, if reported.
     pub fn vfo_hz(&self, vfo: Vfo) -> Option<u64> {
-        self.vfo.get(vfo.index()).copied().flatten()
+        self.vfo.get(index(vfo)).copied().flatten()
     }
     pub fn receive_vfo(&self) -> Vfo {
         self.rx
@@ -334,6 +329,79 @@ impl Station {
     pub fn sense_wired(&self) -> bool {
         self.sense.is_some()
     }
+}
+
+/// What a decoder's event says about the station, if anything. `next` is
+/// the event after it: the station decoder follows the active VFO's
+/// `Frequency` with the `Vfo` event of the same message, and then the VFO
+/// event alone says which VFO it was (the operator may be on the other).
+/// `polled`: the session polls the rig, so reports are poll answers.
+pub fn from_rig(ev: &RigEvent, next: Option<&RigEvent>, polled: bool) -> Option<StationEvent> {
+    let report = if polled {
+        Source::PollAnswer
+    } else {
+        Source::RigReport
+    };
+    let source = |seen: Seen| match seen {
+        Seen::Report => report,
+        Seen::Command => Source::CommandSeen,
+    };
+    Some(match *ev {
+        RigEvent::Frequency { hz } => {
+            if matches!(next, Some(RigEvent::Vfo { hz: h, .. } | RigEvent::SelectedFrequency { hz: h, .. }) if *h == hz)
+            {
+                return None;
+            }
+            StationEvent::Frequency {
+                which: Which::Receive,
+                hz,
+                source: report,
+            }
+        }
+        RigEvent::Transmit { on } => StationEvent::Transmit { on, source: report },
+        RigEvent::TransmitCommand { on } => StationEvent::Transmit {
+            on,
+            source: Source::CommandSeen,
+        },
+        RigEvent::Vfo { vfo: v, hz, seen } => StationEvent::Frequency {
+            which: Which::Vfo(v),
+            hz,
+            source: source(seen),
+        },
+        RigEvent::SelectedFrequency { hz, seen } => StationEvent::Frequency {
+            which: Which::Receive,
+            hz,
+            source: source(seen),
+        },
+        RigEvent::UnselectedFrequency { hz, seen } => StationEvent::Frequency {
+            which: Which::Other,
+            hz,
+            source: source(seen),
+        },
+        RigEvent::ReceiveVfo { vfo: v, seen } => StationEvent::ReceiveVfo {
+            vfo: v,
+            source: source(seen),
+        },
+        RigEvent::TransmitVfo { vfo: v, seen } => StationEvent::TransmitVfo {
+            vfo: v,
+            source: source(seen),
+        },
+        RigEvent::Split { on, seen } => StationEvent::Split {
+            on,
+            source: source(seen),
+        },
+        RigEvent::Offset { kind, on, hz, .. } => {
+            // On without the offset carried: taken as zero until a message
+            // carries it (the loop's dead band is wider than a RIT/XIT
+            // step on every band we follow).
+            let offset_hz = on.then(|| i64::from(hz.unwrap_or(0)));
+            match kind {
+                OffsetKind::Xit => StationEvent::Xit { offset_hz },
+                OffsetKind::Rit => StationEvent::Rit { offset_hz },
+            }
+        }
+        RigEvent::Reject { .. } => return None,
+    })
 }
 
 fn offset(hz: u64, by: Option<i64>) -> Option<u64> {
@@ -412,6 +480,24 @@ mod tests {
         );
         assert_eq!(s.receive_hz(), Some(14_200_000));
         assert_eq!(s.transmit_vfo(), Vfo::A);
+        // Transmitting split, the operating frequency is the transmit VFO's.
+        s.apply(
+            T0,
+            StationEvent::Transmit {
+                on: true,
+                source: Source::RigReport,
+            },
+        );
+        s.apply(T0, freq(Which::Receive, 14_200_100));
+        assert_eq!(s.vfo_hz(Vfo::A), Some(14_200_100));
+        assert_eq!(s.receive_hz(), Some(14_200_000));
+        s.apply(
+            T0,
+            StationEvent::Transmit {
+                on: false,
+                source: Source::RigReport,
+            },
+        );
         // "Other" is the VFO not receiving.
         s.apply(T0, freq(Which::Other, 14_190_000));
         assert_eq!(s.vfo_hz(Vfo::A), Some(14_190_000));

@@ -433,7 +433,7 @@ impl ServiceParts {
                 std::sync::Arc::clone(&station.map),
                 None,
             ),
-            decoder: station.dialect.decoder(config.rig.address),
+            decoder: station.dialect.station_decoder(config.rig.address),
             rig,
             controller,
             inhibit,
