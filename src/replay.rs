@@ -89,6 +89,9 @@ impl<'t> Replay<'t> {
         for (i, ev) in events.iter().enumerate() {
             self.rig_event(*ev, events.get(i + 1))?;
         }
+        // A set seen going to the rig is due now: it settles once, on where
+        // the chunk's messages left the station.
+        self.core.handle_timeout(self.now);
         self.events = events;
         self.apply_actions()
     }

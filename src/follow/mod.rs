@@ -41,6 +41,15 @@ pub use station::{
     Source, Station, StationEvent, TransmitKnowledge, TransmitState, TuneFor, Vfo, Which,
 };
 
+/// How long a frequency set seen going to the rig (another program's)
+/// waits before it settles: such a set is often followed at once by the
+/// program keying the rig (a band-map click, then a call), and the proxy
+/// forwards those bytes to the rig before the core has seen them, so a
+/// move started at the set could be under way when the rig keys. Common
+/// practice for logging programs, no source; the sets of one burst (VFO A,
+/// VFO B, split) settle once, on where they end.
+pub const SET_GRACE: Duration = Duration::from_millis(100);
+
 /// Why the core decided not to move (or not to move as asked).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum HoldReason {
@@ -291,7 +300,7 @@ impl Follower {
     /// an operator's command. Acted on at once, under the same rules as a
     /// settled report (bands, dead band, limits, transmit deferral, inhibit).
     pub fn handle_frequency_set(&mut self, now: Duration, hz: u64) {
-        self.handle_station(
+        self.station.apply(
             now,
             StationEvent::Frequency {
                 which: Which::Receive,
@@ -299,14 +308,20 @@ impl Follower {
                 source: Source::CommandSeen,
             },
         );
+        if let Some(hz) = self.station.tune_hz(self.policy.tune_for) {
+            self.note_report(now, hz);
+            self.report(now, hz, Some(now));
+        }
+        self.handle_timeout(now);
     }
 
     /// Something was learnt about the station: a VFO's frequency, the VFO
     /// selection, split, XIT/RIT, the transmit state, from any source. The
     /// loop follows the frequency `policy.tune_for` names (the transmit
     /// frequency by default), so a change of the other one moves nothing.
-    /// A set seen going to the rig that changes that frequency is acted on
-    /// at once; a report, after the debounce unless it is a jump.
+    /// A set seen going to the rig that changes that frequency settles
+    /// [`SET_GRACE`] later (unless a report's debounce would be shorter);
+    /// a report, after the debounce unless it is a jump.
     pub fn handle_station(&mut self, now: Duration, ev: StationEvent) {
         let before = self.station.tune_hz(self.policy.tune_for);
         let changed = self.station.apply(now, ev);
@@ -335,7 +350,13 @@ impl Follower {
                 {
                     self.stats.jumps += 1;
                 }
-                self.report(now, hz, jump);
+                let due = if set {
+                    Some(now + SET_GRACE.min(self.policy.debounce_for(hz)))
+                } else {
+                    jump.then_some(now)
+                };
+                self.report(now, hz, due);
+                self.handle_timeout(now);
                 return;
             }
         }
@@ -350,17 +371,14 @@ impl Follower {
 
     /// A report that the loop is to be tuned for `hz`, settled after the
     /// debounce or (`at_once`) now.
-    fn report(&mut self, now: Duration, hz: u64, at_once: bool) {
+    fn report(&mut self, now: Duration, hz: u64, due: Option<Duration>) {
+        let at_once = due.is_some();
         match self.pending {
             Some(p) if p.hz == hz && !at_once => return,
             None if self.settled_hz == Some(hz) => return,
             _ => {}
         }
-        let deadline = if at_once {
-            now
-        } else {
-            now + self.policy.debounce_for(hz)
-        };
+        let deadline = due.unwrap_or_else(|| now + self.policy.debounce_for(hz));
         self.pending = Some(Pending { hz, deadline });
         if self.policy.inhibit_while_detuned
             && self.station.transmit().state != TransmitState::Transmit
@@ -373,7 +391,6 @@ impl Follower {
             self.detune_hold = true;
             self.assert_inhibit(now);
         }
-        self.handle_timeout(now);
     }
 
     /// Whether the loop, tuned for `tuned_hz`, is outside its dead band for

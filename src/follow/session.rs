@@ -479,6 +479,9 @@ impl Session {
             }
             self.set_station(now, sev);
         }
+        // Whatever the chunk made due now (a set seen going to the rig)
+        // settles once, on where the chunk's messages left the station.
+        self.core.handle_timeout(now);
         self.events = out;
     }
 
