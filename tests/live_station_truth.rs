@@ -1,0 +1,378 @@
+//! The whole station's truth, end to end on the real binary: `tuneward run`
+//! in proxy mode, `tuneward sim-rig` behind it, a scripted client (the
+//! station's other program) in front, and a controller of this test's own
+//! on loopback TCP that logs every line it is sent.
+//!
+//! The invariants are checked from the simulator's truth log (what the rig
+//! really did) and from this controller's log (what the motor really did),
+//! never from tuneward's own account of itself; only the inhibit, which has
+//! no wired line on this bench, is read from tuneward's log.
+//!
+//! Text-family messages are written from the family's published PC control
+//! command reference (`FA`/`FB` with eleven digits in Hz, `FT1;` transmit on
+//! VFO B, `TX;`/`RX;`, `IF;` the status read; recalled).
+
+use std::io::Write as _;
+use std::io::{BufRead, BufReader};
+use std::net::{TcpListener, TcpStream};
+use std::path::{Path, PathBuf};
+use std::process::{Command, Stdio};
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+use tokio::io::AsyncWriteExt;
+use tokio_serial::SerialStream;
+
+mod common;
+
+use common::{forty_metres, open_port, Proc, BIN};
+
+/// Motor speed of the test controller (and of the config, which times the
+/// controller's answers from it).
+const SPEED: f64 = 2_000.0;
+
+/// What the test controller saw and did, with the rig's truth at that time.
+#[derive(Debug, Default)]
+struct Motor {
+    /// Every `GOTO` target, in order.
+    gotos: Vec<i64>,
+    /// Where the motor is (at rest) or is heading.
+    at: i64,
+    moving: bool,
+    /// The rig transmitted (per its truth log) while the motor moved, or a
+    /// `GOTO` came while it transmitted: each such moment, described.
+    violations: Vec<String>,
+}
+
+/// The rig's state as its truth log last said.
+fn last_truth(path: &Path) -> Option<serde_json::Value> {
+    let text = std::fs::read_to_string(path).ok()?;
+    text.lines()
+        .rev()
+        .find_map(|l| serde_json::from_str::<serde_json::Value>(l).ok())
+}
+
+fn rig_transmits(truth: &Path) -> bool {
+    last_truth(truth).is_some_and(|v| v["transmitting"] == true)
+}
+
+/// A controller speaking protocols/tuner-line.md at `SPEED`, starting at
+/// `start`; every 2 ms of a move it checks the rig's truth log.
+fn controller(start: i64, truth: PathBuf) -> (String, Arc<Mutex<Motor>>) {
+    let listener = TcpListener::bind("127.0.0.1:0").unwrap();
+    let addr = listener.local_addr().unwrap().to_string();
+    let motor = Arc::new(Mutex::new(Motor {
+        at: start,
+        ..Motor::default()
+    }));
+    let m = Arc::clone(&motor);
+    std::thread::spawn(move || {
+        for conn in listener.incoming() {
+            let Ok(conn) = conn else { return };
+            serve(conn, &m, &truth);
+        }
+    });
+    (addr, motor)
+}
+
+fn serve(conn: TcpStream, motor: &Mutex<Motor>, truth: &Path) {
+    conn.set_read_timeout(Some(Duration::from_millis(2)))
+        .unwrap();
+    let mut out = conn.try_clone().unwrap();
+    let mut reader = BufReader::new(conn);
+    let mut line = String::new();
+    // Where a move started, its target and when it started.
+    let mut run: Option<(i64, i64, Instant)> = None;
+    loop {
+        if let Some((from, to, since)) = run {
+            let done = (to - from).unsigned_abs() as f64 / SPEED;
+            let mut m = motor.lock().unwrap();
+            if rig_transmits(truth) {
+                m.violations
+                    .push(format!("moving {from}->{to} while transmitting"));
+            }
+            if since.elapsed().as_secs_f64() >= done {
+                run = None;
+                m.at = to;
+                m.moving = false;
+                if writeln!(out, "AT {to}").is_err() {
+                    return;
+                }
+            }
+        }
+        match reader.read_line(&mut line) {
+            Ok(0) => return,
+            Ok(_) => {}
+            Err(e)
+                if matches!(
+                    e.kind(),
+                    std::io::ErrorKind::WouldBlock | std::io::ErrorKind::TimedOut
+                ) =>
+            {
+                continue
+            }
+            Err(_) => return,
+        }
+        if !line.ends_with('\n') {
+            continue;
+        }
+        let words: Vec<String> = line.split_whitespace().map(str::to_string).collect();
+        line.clear();
+        let mut m = motor.lock().unwrap();
+        let answer = match words.iter().map(String::as_str).collect::<Vec<_>>()[..] {
+            ["WHERE"] => match run {
+                Some((_, to, _)) => format!("MOVING {to}"),
+                None => format!("AT {}", m.at),
+            },
+            ["GOTO", n] => {
+                let to: i64 = n.parse().unwrap();
+                if rig_transmits(truth) {
+                    m.violations.push(format!("GOTO {to} while transmitting"));
+                }
+                m.gotos.push(to);
+                m.moving = true;
+                run = Some((m.at, to, Instant::now()));
+                format!("MOVING {to}")
+            }
+            ["STOP"] => {
+                // Stops where it is: worked out from the time run.
+                if let Some((from, to, since)) = run.take() {
+                    let gone = (since.elapsed().as_secs_f64() * SPEED) as i64;
+                    let d = (to - from).clamp(-gone, gone);
+                    m.at = from + d;
+                }
+                m.moving = false;
+                format!("AT {}", m.at)
+            }
+            ["ZERO", n] => {
+                m.at = n.parse().unwrap();
+                format!("AT {}", m.at)
+            }
+            _ => "ERR unknown".to_string(),
+        };
+        drop(m);
+        if writeln!(out, "{answer}").is_err() {
+            return;
+        }
+    }
+}
+
+/// `tuneward sim-rig` speaking `protocol` on a pty at `dir/rig`, truth log
+/// at `dir/truth.jsonl`, no operator script of its own.
+fn sim_rig(dir: &Path, protocol: &str) -> (Proc, PathBuf, PathBuf) {
+    let link = dir.join("rig");
+    let truth = dir.join("truth.jsonl");
+    let script = dir.join("script.jsonl");
+    std::fs::write(&script, "# the operator works through the other program\n").unwrap();
+    let child = Command::new(BIN)
+        .args(["sim-rig", "--protocol", protocol, "--pty"])
+        .arg(&link)
+        .arg("--script")
+        .arg(&script)
+        .arg("--truth")
+        .arg(&truth)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let proc = Proc(child);
+    wait_for(&link);
+    (proc, link, truth)
+}
+
+fn wait_for(path: &Path) {
+    let until = Instant::now() + Duration::from_secs(10);
+    while std::fs::symlink_metadata(path).is_err() {
+        assert!(Instant::now() < until, "no {}", path.display());
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
+/// `tuneward run` in proxy mode between the rig at `rig` and the other
+/// program's link `dir/shared`; the log lines are collected.
+struct Run {
+    _proc: Proc,
+    lines: Arc<Mutex<Vec<String>>>,
+}
+
+fn run(dir: &Path, rig: &Path, controller: &str) -> (Run, PathBuf) {
+    let shared = dir.join("shared");
+    let config = dir.join("station.toml");
+    // 40 m, 100 Hz a step from 7.000 MHz (invented); no inhibit line wired
+    // and nothing written down about moving unprotected: while the rig's
+    // transmit state is unknown, nothing moves.
+    std::fs::write(
+        &config,
+        format!(
+            r#"
+[rig]
+protocol = "text-semicolon"
+port = "{rig}"
+baud = 38400
+mode = "proxy"
+proxy_link = "{shared}"
+
+[tuner]
+link = "tcp://{controller}"
+min_steps = 0
+max_steps = 3000
+steps_per_second = {SPEED}
+settle_ms = 0
+state_file = "motor.state"
+
+[follow]
+debounce_ms = 150
+hysteresis_hz = 100
+inhibit_lead_ms = 5
+inhibit_tail_ms = 20
+{bands}"#,
+            rig = rig.display(),
+            shared = shared.display(),
+            bands = forty_metres(&[(7_000_000, 0), (7_300_000, 3000)]),
+        ),
+    )
+    .unwrap();
+    let mut child = Command::new(BIN)
+        .args(["run", "--config"])
+        .arg(&config)
+        .env("RUST_LOG", "info")
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let err = child.stderr.take().unwrap();
+    let lines = Arc::new(Mutex::new(Vec::new()));
+    let sink = Arc::clone(&lines);
+    std::thread::spawn(move || {
+        for line in BufReader::new(err).lines().map_while(Result::ok) {
+            eprintln!("  | {line}");
+            sink.lock().unwrap().push(line);
+        }
+    });
+    wait_for(&shared);
+    (
+        Run {
+            _proc: Proc(child),
+            lines,
+        },
+        shared,
+    )
+}
+
+impl Run {
+    fn log(&self) -> Vec<String> {
+        self.lines.lock().unwrap().clone()
+    }
+}
+
+async fn say(port: &mut SerialStream, bytes: &[u8]) {
+    AsyncWriteExt::write_all(port, bytes).await.unwrap();
+    AsyncWriteExt::flush(port).await.unwrap();
+}
+
+/// Waits (10 s at most) until `done` holds for the motor.
+fn wait_motor(motor: &Mutex<Motor>, what: &str, done: impl Fn(&Motor) -> bool) {
+    let until = Instant::now() + Duration::from_secs(10);
+    loop {
+        {
+            let m = motor.lock().unwrap();
+            if done(&m) {
+                return;
+            }
+            assert!(Instant::now() < until, "{what}: {m:?}");
+        }
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn split_tunes_for_the_transmit_vfo_before_the_first_over() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    let (addr, motor) = controller(0, truth.clone());
+    let (run, shared) = run(dir.path(), &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    // The other program: VFO A 7.100 MHz, VFO B 7.105 MHz, transmit on B,
+    // then it reads the status (the rig says receive).
+    say(&mut client, b"FA00007100000;FB00007105000;FT1;IF;").await;
+    // 7.105 MHz: (7 105 000 - 7 000 000) / 100 = 1050 steps, by hand.
+    wait_motor(&motor, "tuned for the transmit VFO", |m| {
+        m.at == 1050 && !m.moving
+    });
+    std::thread::sleep(Duration::from_millis(300));
+    // The rig, by its own account, is split as the program set it.
+    let t = last_truth(&truth).unwrap();
+    assert_eq!(t["rx_hz"], 7_100_000, "{t}");
+    assert_eq!(t["tx_hz"], 7_105_000, "{t}");
+    say(&mut client, b"TX;").await;
+    std::thread::sleep(Duration::from_millis(500));
+    say(&mut client, b"RX;").await;
+    std::thread::sleep(Duration::from_millis(300));
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    // The motor went for the transmit VFO and never for the receive one
+    // (1000 steps).
+    assert_eq!(m.gotos.last(), Some(&1050), "{:?}", m.gotos);
+    assert!(!m.gotos.contains(&1000), "{:?}", m.gotos);
+    drop(m);
+    // The inhibit was on from start until the loop was tuned: no release
+    // before the move.
+    let log = run.log();
+    let first_release = log
+        .iter()
+        .position(|l| l.contains("transmit inhibit") && l.contains("on=false"));
+    let the_move = log.iter().position(|l| l.contains("INFO move")).unwrap();
+    assert!(
+        first_release.is_none_or(|r| r > the_move),
+        "inhibit released before the loop was tuned:\n{}",
+        log.join("\n")
+    );
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_set_then_a_cat_transmit_moves_nothing_until_the_over_ends() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    // At rest at 1000 (7.100 MHz).
+    let (addr, motor) = controller(1000, truth.clone());
+    let (_run, shared) = run(dir.path(), &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    say(&mut client, b"FA00007100000;IF;").await;
+    std::thread::sleep(Duration::from_millis(600));
+    assert!(motor.lock().unwrap().gotos.is_empty());
+    // A band-map click: a set, and the program keys the rig 20 ms later,
+    // well inside the debounce.
+    say(&mut client, b"FA00007150000;").await;
+    std::thread::sleep(Duration::from_millis(20));
+    say(&mut client, b"TX;").await;
+    std::thread::sleep(Duration::from_millis(1_000));
+    {
+        let m = motor.lock().unwrap();
+        assert!(m.gotos.is_empty(), "moved during the over: {m:?}");
+    }
+    assert!(rig_transmits(&truth), "the rig should be on the air");
+    say(&mut client, b"RX;").await;
+    // 7.150 MHz: 1500 steps, by hand.
+    wait_motor(&motor, "tuned after the over", |m| {
+        m.at == 1500 && !m.moving
+    });
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos, vec![1500]);
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn vfo_b_is_followed() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    let (addr, motor) = controller(1000, truth.clone());
+    let (_run, shared) = run(dir.path(), &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    // The operator works on VFO B: receive and transmit there.
+    say(&mut client, b"FA00007100000;FB00007220000;FR1;FT1;IF;").await;
+    // 7.220 MHz: 2200 steps, by hand.
+    wait_motor(&motor, "VFO B followed", |m| m.at == 2200 && !m.moving);
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos, vec![2200]);
+}
