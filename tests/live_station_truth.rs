@@ -9,8 +9,11 @@
 //! no wired line on this bench, is read from tuneward's log.
 //!
 //! Text-family messages are written from the family's published PC control
-//! command reference (`FA`/`FB` with eleven digits in Hz, `FT1;` transmit on
-//! VFO B, `TX;`/`RX;`, `IF;` the status read; recalled).
+//! command reference (`FA`/`FB` with eleven digits in Hz, `FR1;`/`FT1;`
+//! receive/transmit on VFO B, `TX;`/`RX;`, `IF;` the status read;
+//! recalled); binary-family frames from its published CI-V reference guide
+//! (`05` set frequency, `07` VFO select, `0F` split, `25 01` unselected VFO
+//! frequency, `1C 00` transmit state; recalled).
 
 use std::io::Write as _;
 use std::io::{BufRead, BufReader};
@@ -36,6 +39,8 @@ const SPEED: f64 = 2_000.0;
 struct Motor {
     /// Every `GOTO` target, in order.
     gotos: Vec<i64>,
+    /// When each `GOTO` arrived.
+    goto_times: Vec<Instant>,
     /// Where the motor is (at rest) or is heading.
     at: i64,
     moving: bool,
@@ -130,6 +135,7 @@ fn serve(conn: TcpStream, motor: &Mutex<Motor>, truth: &Path) {
                     m.violations.push(format!("GOTO {to} while transmitting"));
                 }
                 m.gotos.push(to);
+                m.goto_times.push(Instant::now());
                 m.moving = true;
                 run = Some((m.at, to, Instant::now()));
                 format!("MOVING {to}")
@@ -195,7 +201,7 @@ struct Run {
     lines: Arc<Mutex<Vec<String>>>,
 }
 
-fn run(dir: &Path, rig: &Path, controller: &str) -> (Run, PathBuf) {
+fn run(dir: &Path, protocol: &str, rig: &Path, controller: &str) -> (Run, PathBuf) {
     let shared = dir.join("shared");
     let config = dir.join("station.toml");
     // 40 m, 100 Hz a step from 7.000 MHz (invented); no inhibit line wired
@@ -206,7 +212,7 @@ fn run(dir: &Path, rig: &Path, controller: &str) -> (Run, PathBuf) {
         format!(
             r#"
 [rig]
-protocol = "text-semicolon"
+protocol = "{protocol}"
 port = "{rig}"
 baud = 38400
 mode = "proxy"
@@ -285,16 +291,103 @@ fn wait_motor(motor: &Mutex<Motor>, what: &str, done: impl Fn(&Motor) -> bool) {
     }
 }
 
-#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn split_tunes_for_the_transmit_vfo_before_the_first_over() {
+/// What the other program sends, in each family's words.
+#[derive(Clone, Copy)]
+enum Family {
+    Text,
+    Binary,
+}
+
+/// A binary-family frame from the program (address E0) to the rig (94):
+/// `FE FE <to> <from> <command> [data] FD` (recalled).
+fn frame(body: &[u8]) -> Vec<u8> {
+    [&[0xFE, 0xFE, 0x94, 0xE0][..], body, &[0xFD]].concat()
+}
+
+/// Packed BCD, ten digits, least significant pair first, low nibble the
+/// lower digit (the binary family's frequency field; recalled), worked
+/// here digit by digit rather than with tuneward's own encoder.
+fn bcd(hz: u64) -> Vec<u8> {
+    let digits: Vec<u8> = format!("{hz:010}").bytes().map(|b| b - b'0').collect();
+    digits.chunks(2).rev().map(|p| (p[0] << 4) | p[1]).collect()
+}
+
+impl Family {
+    fn protocol(self) -> &'static str {
+        match self {
+            Family::Text => "text-semicolon",
+            Family::Binary => "binary-bcd",
+        }
+    }
+    /// Sets the VFO the rig receives on (text: VFO A).
+    fn set_receive(self, hz: u64) -> Vec<u8> {
+        match self {
+            Family::Text => format!("FA{hz:011};").into_bytes(),
+            // 0x05: set the operating (selected) VFO's frequency.
+            Family::Binary => frame(&[&[0x05][..], &bcd(hz)].concat()),
+        }
+    }
+    /// Split with the other VFO (text: VFO B) at `hz` for transmit.
+    fn split_up(self, hz: u64) -> Vec<u8> {
+        match self {
+            Family::Text => format!("FB{hz:011};FT1;").into_bytes(),
+            // 0x25 01: the unselected VFO's frequency; 0x0F 01: split on.
+            Family::Binary => [
+                frame(&[&[0x25, 0x01][..], &bcd(hz)].concat()),
+                frame(&[0x0F, 0x01]),
+            ]
+            .concat(),
+        }
+    }
+    /// Operate on VFO B at `hz`.
+    fn vfo_b(self, hz: u64) -> Vec<u8> {
+        match self {
+            Family::Text => format!("FB{hz:011};FR1;FT1;").into_bytes(),
+            // 0x07 01: select VFO B; then set its frequency.
+            Family::Binary => [
+                frame(&[0x07, 0x01]),
+                frame(&[&[0x05][..], &bcd(hz)].concat()),
+            ]
+            .concat(),
+        }
+    }
+    /// A read whose answer carries the transmit state.
+    fn read_state(self) -> Vec<u8> {
+        match self {
+            Family::Text => b"IF;".to_vec(),
+            Family::Binary => frame(&[0x1C, 0x00]),
+        }
+    }
+    fn key(self, on: bool) -> Vec<u8> {
+        match (self, on) {
+            (Family::Text, true) => b"TX;".to_vec(),
+            (Family::Text, false) => b"RX;".to_vec(),
+            (Family::Binary, on) => frame(&[0x1C, 0x00, u8::from(on)]),
+        }
+    }
+}
+
+#[test]
+fn bcd_is_worked_as_the_reference_shows() {
+    // 7 105 000 Hz = digits 0007105000 -> 00 50 10 07 00, by hand.
+    assert_eq!(bcd(7_105_000), vec![0x00, 0x50, 0x10, 0x07, 0x00]);
+}
+
+async fn split_case(family: Family) {
     let dir = tempfile::tempdir().unwrap();
-    let (_rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
     let (addr, motor) = controller(0, truth.clone());
-    let (run, shared) = run(dir.path(), &rig_link, &addr);
+    let (run, shared) = run(dir.path(), family.protocol(), &rig_link, &addr);
     let mut client = open_port(&shared, 38400);
-    // The other program: VFO A 7.100 MHz, VFO B 7.105 MHz, transmit on B,
-    // then it reads the status (the rig says receive).
-    say(&mut client, b"FA00007100000;FB00007105000;FT1;IF;").await;
+    // The other program: receive 7.100 MHz, transmit 7.105 MHz on the
+    // other VFO, then it reads the state (the rig says receive).
+    let script = [
+        family.set_receive(7_100_000),
+        family.split_up(7_105_000),
+        family.read_state(),
+    ]
+    .concat();
+    say(&mut client, &script).await;
     // 7.105 MHz: (7 105 000 - 7 000 000) / 100 = 1050 steps, by hand.
     wait_motor(&motor, "tuned for the transmit VFO", |m| {
         m.at == 1050 && !m.moving
@@ -304,16 +397,19 @@ async fn split_tunes_for_the_transmit_vfo_before_the_first_over() {
     let t = last_truth(&truth).unwrap();
     assert_eq!(t["rx_hz"], 7_100_000, "{t}");
     assert_eq!(t["tx_hz"], 7_105_000, "{t}");
-    say(&mut client, b"TX;").await;
+    say(&mut client, &family.key(true)).await;
     std::thread::sleep(Duration::from_millis(500));
-    say(&mut client, b"RX;").await;
+    assert!(rig_transmits(&truth), "the rig should be on the air");
+    say(&mut client, &family.key(false)).await;
     std::thread::sleep(Duration::from_millis(300));
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
-    // The motor went for the transmit VFO and never for the receive one
-    // (1000 steps).
+    // The motor ended on the transmit VFO before the over and stayed
+    // there. (A set is acted on at once and the proxy hands the program's
+    // messages over one by one, so the receive VFO's set, before split was
+    // on, may have started a move of its own.)
     assert_eq!(m.gotos.last(), Some(&1050), "{:?}", m.gotos);
-    assert!(!m.gotos.contains(&1000), "{:?}", m.gotos);
+    assert_eq!(m.at, 1050);
     drop(m);
     // The inhibit was on from start until the loop was tuned: no release
     // before the move.
@@ -329,50 +425,96 @@ async fn split_tunes_for_the_transmit_vfo_before_the_first_over() {
     );
 }
 
-#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn a_set_then_a_cat_transmit_moves_nothing_until_the_over_ends() {
+async fn set_then_key_case(family: Family) {
     let dir = tempfile::tempdir().unwrap();
-    let (_rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
     // At rest at 1000 (7.100 MHz).
     let (addr, motor) = controller(1000, truth.clone());
-    let (_run, shared) = run(dir.path(), &rig_link, &addr);
+    let (_run, shared) = run(dir.path(), family.protocol(), &rig_link, &addr);
     let mut client = open_port(&shared, 38400);
-    say(&mut client, b"FA00007100000;IF;").await;
+    say(
+        &mut client,
+        &[family.set_receive(7_100_000), family.read_state()].concat(),
+    )
+    .await;
     std::thread::sleep(Duration::from_millis(600));
     assert!(motor.lock().unwrap().gotos.is_empty());
-    // A band-map click: a set, and the program keys the rig 20 ms later,
-    // well inside the debounce.
-    say(&mut client, b"FA00007150000;").await;
+    // A band-map click: a set, and the program keys the rig 20 ms later.
+    // The set may start a move at once; the transmit command must stop it
+    // before the rig is on the air, and nothing may start until the over
+    // ends.
+    say(&mut client, &family.set_receive(7_150_000)).await;
     std::thread::sleep(Duration::from_millis(20));
-    say(&mut client, b"TX;").await;
+    let keyed = Instant::now();
+    say(&mut client, &family.key(true)).await;
     std::thread::sleep(Duration::from_millis(1_000));
-    {
-        let m = motor.lock().unwrap();
-        assert!(m.gotos.is_empty(), "moved during the over: {m:?}");
-    }
     assert!(rig_transmits(&truth), "the rig should be on the air");
-    say(&mut client, b"RX;").await;
+    let unkeyed = Instant::now();
+    say(&mut client, &family.key(false)).await;
     // 7.150 MHz: 1500 steps, by hand.
     wait_motor(&motor, "tuned after the over", |m| {
         m.at == 1500 && !m.moving
     });
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
-    assert_eq!(m.gotos, vec![1500]);
+    assert!(
+        !m.goto_times.iter().any(|t| *t >= keyed && *t <= unkeyed),
+        "a GOTO during the over: {m:?}"
+    );
+    assert!(m.gotos.iter().all(|g| *g == 1500), "{:?}", m.gotos);
+}
+
+async fn vfo_b_case(family: Family) {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
+    let (addr, motor) = controller(1000, truth.clone());
+    let (_run, shared) = run(dir.path(), family.protocol(), &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    say(
+        &mut client,
+        &[
+            family.set_receive(7_100_000),
+            family.vfo_b(7_220_000),
+            family.read_state(),
+        ]
+        .concat(),
+    )
+    .await;
+    // 7.220 MHz: 2200 steps, by hand.
+    wait_motor(&motor, "VFO B followed", |m| m.at == 2200 && !m.moving);
+    let t = last_truth(&truth).unwrap();
+    assert_eq!(t["rx_vfo"], "b", "{t}");
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos.last(), Some(&2200), "{:?}", m.gotos);
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn vfo_b_is_followed() {
-    let dir = tempfile::tempdir().unwrap();
-    let (_rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
-    let (addr, motor) = controller(1000, truth.clone());
-    let (_run, shared) = run(dir.path(), &rig_link, &addr);
-    let mut client = open_port(&shared, 38400);
-    // The operator works on VFO B: receive and transmit there.
-    say(&mut client, b"FA00007100000;FB00007220000;FR1;FT1;IF;").await;
-    // 7.220 MHz: 2200 steps, by hand.
-    wait_motor(&motor, "VFO B followed", |m| m.at == 2200 && !m.moving);
-    let m = motor.lock().unwrap();
-    assert!(m.violations.is_empty(), "{:?}", m.violations);
-    assert_eq!(m.gotos, vec![2200]);
+async fn text_split_tunes_for_the_transmit_vfo_before_the_first_over() {
+    split_case(Family::Text).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn binary_split_tunes_for_the_transmit_vfo_before_the_first_over() {
+    split_case(Family::Binary).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn text_set_then_cat_transmit_moves_nothing_until_the_over_ends() {
+    set_then_key_case(Family::Text).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn binary_set_then_cat_transmit_moves_nothing_until_the_over_ends() {
+    set_then_key_case(Family::Binary).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn text_vfo_b_is_followed() {
+    vfo_b_case(Family::Text).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn binary_vfo_b_is_followed() {
+    vfo_b_case(Family::Binary).await;
 }
