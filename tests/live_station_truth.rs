@@ -518,3 +518,75 @@ async fn text_vfo_b_is_followed() {
 async fn binary_vfo_b_is_followed() {
     vfo_b_case(Family::Binary).await;
 }
+
+/// Every `rig port up` line so far.
+fn ups(run: &Run) -> usize {
+    run.log()
+        .iter()
+        .filter(|l| l.contains("rig port up"))
+        .count()
+}
+
+fn wait_ups(run: &Run, n: usize) {
+    let until = Instant::now() + Duration::from_secs(10);
+    while ups(run) < n {
+        assert!(Instant::now() < until, "{}", run.log().join("\n"));
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
+    let dir = tempfile::tempdir().unwrap();
+    let (rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    let (addr, motor) = controller(1000, truth.clone());
+    let (run, shared) = run(dir.path(), "text-semicolon", &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    say(&mut client, b"FA00007100000;IF;").await;
+    std::thread::sleep(Duration::from_millis(400));
+    say(&mut client, b"TX;").await;
+    std::thread::sleep(Duration::from_millis(200));
+    assert!(rig_transmits(&truth));
+    // The USB cable drops mid-over: the rig (and its port) is gone.
+    drop(rig);
+    let _ = std::fs::remove_file(&rig_link);
+    std::thread::sleep(Duration::from_millis(300));
+    // It comes back (a fresh simulator writing the truth log afresh: it
+    // starts receiving, but tuneward cannot know that).
+    let truth2 = truth.clone();
+    let script = dir.path().join("script.jsonl");
+    let _rig2 = Proc(
+        Command::new(BIN)
+            .args(["sim-rig", "--protocol", "text-semicolon", "--pty"])
+            .arg(&rig_link)
+            .arg("--script")
+            .arg(&script)
+            .arg("--truth")
+            .arg(&truth2)
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .spawn()
+            .unwrap(),
+    );
+    wait_ups(&run, 2);
+    // The program sets a new frequency; nothing says whether the rig
+    // transmits, no inhibit is wired: nothing may move.
+    say(&mut client, b"FA00007150000;").await;
+    std::thread::sleep(Duration::from_millis(1_000));
+    assert!(
+        motor.lock().unwrap().gotos.is_empty(),
+        "moved with the transmit state unknown: {:?}",
+        motor.lock().unwrap()
+    );
+    // The program reads the status: the rig says receive. Now it moves;
+    // 7.150 MHz is 1500 steps, by hand.
+    say(&mut client, b"IF;").await;
+    wait_motor(&motor, "tuned once the state is known", |m| {
+        m.at == 1500 && !m.moving
+    });
+    let t = last_truth(&truth2).unwrap();
+    assert_eq!(t["transmitting"], false, "{t}");
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos, vec![1500]);
+}
