@@ -186,6 +186,9 @@ pub struct Follower {
     /// from then, however the inhibit came to be on.
     inhibit_since: Duration,
     release_at: Option<Duration>,
+    /// The running tail (`release_at`) follows a move's arrival (not the
+    /// first report of a position).
+    tail_after_move: bool,
     /// The inhibit is held for a detuned report that has not settled yet.
     detune_hold: bool,
     touchup: Option<Touchup>,
@@ -233,6 +236,7 @@ impl Follower {
             inhibit: false,
             inhibit_since: Duration::ZERO,
             release_at: None,
+            tail_after_move: false,
             detune_hold: false,
             touchup: None,
             last_report: None,
@@ -287,7 +291,11 @@ impl Follower {
             now + self.policy.debounce_for(hz)
         };
         self.pending = Some(Pending { hz, deadline });
-        if self.policy.inhibit_while_detuned
+        // In the tail of a move the inhibit is still on: a detuned report
+        // then keeps it on (whatever `inhibit_while_detuned` says), so that
+        // the rig is not let go onto a loop tuned for the old frequency.
+        let in_tail = self.inhibit && self.release_at.is_some() && self.tail_after_move;
+        if (self.policy.inhibit_while_detuned || in_tail)
             && !self.transmitting
             && self.position.is_some()
             && self.detuned_for(hz)
@@ -367,6 +375,7 @@ impl Follower {
             }
             Motion::Moving { then: None, .. } | Motion::Stopping => {
                 self.motion = Motion::Idle;
+                self.tail_after_move = true;
                 if let Some(t) = &mut self.touchup {
                     if t.due.is_none() {
                         t.due = Some(now + self.policy.candidate_dwell);
@@ -376,6 +385,7 @@ impl Follower {
             }
             Motion::Idle | Motion::Arming { .. } => {
                 if was_unknown || self.fault {
+                    self.tail_after_move = false;
                     self.fault = false;
                     self.tuned_hz = None;
                     self.after_rest(now);
