@@ -28,7 +28,7 @@ pub use crate::follow::session::RunSummary;
 use crate::follow::session::{Level, Note, Output, Session, SessionSettings};
 use crate::follow::Follower;
 use crate::inhibit::InhibitLine;
-use crate::journal::Journal;
+use crate::journal::{Journal, Recorded};
 use crate::port::link::{LinkConfig, LinkEvent};
 use crate::port::proxy::{Boundary, ProxyConfig};
 use crate::port::{link, proxy};
@@ -101,6 +101,11 @@ pub fn init_logging(format: LogFormat) {
         LogFormat::Json => builder.json().try_init(),
     };
 }
+
+/// The exit status of `tuneward run` when it stopped without the
+/// controller confirming where the motor is: the journal keeps the
+/// unfinished move (and the inhibit stays asserted).
+pub const EXIT_UNCONFIRMED: u8 = 3;
 
 /// Runs the live service from its parts (the station layer assembles them:
 /// `ServiceParts::from_station`) until interrupted (Ctrl-C or SIGTERM), on
@@ -218,6 +223,7 @@ pub async fn run(
         position = ?result.position,
         moves = result.moves,
         faults = result.faults,
+        unconfirmed = result.unconfirmed,
         "stopped"
     );
     Ok(result)
@@ -255,9 +261,9 @@ impl Io {
                     let r = self.inhibit.set(on).map_err(|e| e.to_string());
                     session.handle_inhibit_result(self.now(), r);
                 }
-                Output::JournalIntent { from, to } => {
+                Output::JournalIntent(intent) => {
                     let r = match &self.journal {
-                        Some(j) => j.record_intent(from, to).map_err(|e| e.to_string()),
+                        Some(j) => j.record(&intent).map_err(|e| e.to_string()),
                         None => Ok(()),
                     };
                     session.handle_journal_result(self.now(), r);
@@ -291,6 +297,25 @@ impl Io {
     }
 }
 
+/// An unfinished move's start, final target, overshoot and leg, for the log.
+fn unfinished_parts(r: Recorded) -> (i64, i64, Option<i64>, &'static str) {
+    match r {
+        Recorded::Known(p) => (p, p, None, "none"),
+        Recorded::Unknown { from, to } => (from, to, None, "only"),
+        Recorded::Approach {
+            from,
+            via,
+            to,
+            final_leg,
+        } => (
+            from,
+            to,
+            Some(via),
+            if final_leg { "final" } else { "first" },
+        ),
+    }
+}
+
 /// Writes one of the session's notes with tracing, its fields as fields.
 fn log(note: Note) {
     use tracing::{debug, error, info, warn};
@@ -302,10 +327,20 @@ fn log(note: Note) {
             Level::Error => error!("{text}"),
         },
         Note::JournalKnown { position } => info!(position, "journal: motor at rest"),
-        Note::JournalUnfinished { from, to } => warn!(
-            from,
-            to,
-            "journal: a move did not finish; the position is unknown unless the controller reports its target"
+        Note::JournalUnfinished { unfinished } => warn!(
+            from = unfinished_parts(unfinished).0,
+            to = unfinished_parts(unfinished).1,
+            via = ?unfinished_parts(unfinished).2,
+            leg = unfinished_parts(unfinished).3,
+            "journal: a move did not finish; the position is unknown unless the controller reports a target of its legs or a point on the leg's path"
+        ),
+        Note::Trusted { steps, why } => info!(steps, why, "position trusted after the unfinished move"),
+        Note::OnPathStopping { steps } => info!(
+            steps,
+            "controller reports a position on the unfinished leg's path: STOP, then check it at rest"
+        ),
+        Note::InhibitKept => error!(
+            "the motor was not confirmed at rest: the transmit inhibit stays asserted (wire it fail-safe, see README)"
         ),
         Note::Inhibit { on } => info!(on, "transmit inhibit"),
         Note::InhibitFailed { on, error } => {

@@ -83,8 +83,10 @@ pub enum Command {
     ///
     /// Runs until SIGINT (Ctrl-C) or SIGTERM, then lets the move under way
     /// finish, records the position and releases the transmit inhibit; exit
-    /// status 0 after a clean shutdown. Logs one line per decision on
-    /// stderr.
+    /// status 0 after a clean shutdown. Exit status 3: it stopped without
+    /// the controller confirming where the motor is (the journal keeps the
+    /// unfinished move, the inhibit stays asserted); 1: it could not start;
+    /// 130: a second interrupt. Logs one line per decision on stderr.
     Run(RunArgs),
     /// Record the rig's control port into a capture file for `replay`.
     Capture(CaptureArgs),
@@ -149,7 +151,16 @@ fn run_live(args: &RunArgs) -> Result<(), Failure> {
     let plain = |e: &dyn std::fmt::Display| Failure::plain(e.to_string());
     let station = tuneward::station::Station::load(&args.config).map_err(|e| plain(&e))?;
     let parts = ServiceParts::from_station(&station).map_err(|e| plain(&e))?;
-    run_until_signal(parts).map(|_| ()).map_err(|e| plain(&e))
+    let summary = run_until_signal(parts).map_err(|e| plain(&e))?;
+    if summary.unconfirmed {
+        return Err(Failure {
+            status: tuneward::service::EXIT_UNCONFIRMED,
+            ..Failure::plain(
+                "stopped without the controller confirming where the motor is: the journal keeps the unfinished move and the next start checks it".to_string(),
+            )
+        });
+    }
+    Ok(())
 }
 
 /// `tuneward capture`: the station's rig port from its config, recorded
