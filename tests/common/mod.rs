@@ -6,6 +6,8 @@
 // Every test binary compiles this file and uses only some of it.
 #![allow(dead_code)]
 
+pub mod controller;
+
 use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, ExitStatus, Output, Stdio};
