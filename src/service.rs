@@ -162,6 +162,7 @@ pub async fn run(
         settle: service.controller.settle,
         reply_margin: service.controller.reply_margin,
         relax_on_exit: service.relax_on_exit,
+        restart_counts: restart_counts(&service.controller),
     };
     let client = client::spawn(
         service.controller,
@@ -227,6 +228,17 @@ pub async fn run(
         "stopped"
     );
     Ok(result)
+}
+
+/// The counts the controller can have after a restart: a board counts from
+/// 0 (`protocols/tuner-line.md`), the direct drive from the lower limit,
+/// the in-process simulator from its start.
+fn restart_counts(c: &ClientConfig) -> [i64; 3] {
+    let sim = match c.url {
+        client::ControllerUrl::Sim => c.sim_start,
+        _ => 0,
+    };
+    [0, c.min_steps, sim]
 }
 
 /// How long the driver waits for a link task to close its port at the end.
@@ -391,6 +403,14 @@ fn log(note: Note) {
             got, "controller did not take the journal's position; asking again"
         ),
         Note::Untrusted { steps } => debug!(steps, "position reported while untrusted; ignored"),
+        Note::CountNoRestart {
+            journal,
+            controller,
+        } => error!(
+            journal,
+            controller,
+            "position unknown: the controller's count differs from the journal and is not one it restarts from (steps lost, or moved by hand?); nothing will move. Check the antenna, run `tuneward set-position STEPS`, then restart"
+        ),
         Note::CountDiffers {
             journal,
             controller,

@@ -56,6 +56,11 @@ pub struct SessionSettings {
     /// At a clean shutdown after a completed approach, back off half the
     /// backlash toward the approach side.
     pub relax_on_exit: bool,
+    /// The counts this controller can report after a restart (power-on
+    /// counts: 0 for a controller board, the lower limit for the direct
+    /// drive, the simulator's start). Only a differing count among these
+    /// is taken for a restart and given the journal's position with `ZERO`.
+    pub restart_counts: [i64; 3],
 }
 
 impl SessionSettings {
@@ -201,6 +206,12 @@ pub enum Note {
         steps: i64,
     },
     CountDiffers {
+        journal: i64,
+        controller: i64,
+    },
+    /// The controller's count differs from a clean journal and is no count
+    /// it restarts from: position unknown.
+    CountNoRestart {
         journal: i64,
         controller: i64,
     },
@@ -425,14 +436,13 @@ impl Shell {
 
     /// `steps` lies on the straight path of `r`'s leg under way, past its
     /// start, and is no count a controller starts from after a restart
-    /// (0, or the lower limit a direct drive starts at): a controller that
+    /// ([`SessionSettings::restart_counts`]): a controller that
     /// reports the leg's start never moved or lost its count, and one that
     /// reports a power-on count may have restarted, so neither is proof.
     fn on_leg_path(&self, r: Recorded, steps: i64) -> bool {
         r.leg_path()
             .is_some_and(|p| p.contains(steps) && steps != p.start)
-            && steps != 0
-            && steps != self.policy.min_steps
+            && !self.settings.restart_counts.contains(&steps)
     }
 
     /// Sends a leg's `GOTO`, or holds it back until `inhibit_lead` has
@@ -897,7 +907,8 @@ impl Session {
         RunSummary {
             position: self.core.position(),
             moves: self.core.stats().moves,
-            unconfirmed: self.st.recorded.is_some_and(|r| r.is_unfinished()),
+            unconfirmed: self.st.recorded.is_some_and(|r| r.is_unfinished())
+                || self.st.resync == Resync::Blocked,
             ..self.st.outcome.clone()
         }
     }
@@ -1005,13 +1016,27 @@ impl Session {
     fn resync_where(&mut self, now: Duration, steps: i64) {
         self.st.resync = Resync::Idle;
         match self.st.recorded {
-            Some(Recorded::Known(p)) if p != steps => {
+            Some(Recorded::Known(p))
+                if p != steps && self.st.settings.restart_counts.contains(&steps) =>
+            {
                 self.st.note(Note::CountDiffers {
                     journal: p,
                     controller: steps,
                 });
                 self.st.resync = Resync::AwaitZero(p);
                 self.st.push(Output::Command(TunerCommand::Zero(p)));
+            }
+            Some(Recorded::Known(p)) if p != steps => {
+                // Not a count it restarts from: it lost steps, or the motor
+                // was moved while we were away. No ZERO: nothing moves.
+                self.st.resync = Resync::Blocked;
+                if !self.st.unknown_reported {
+                    self.st.unknown_reported = true;
+                    self.st.note(Note::CountNoRestart {
+                        journal: p,
+                        controller: steps,
+                    });
+                }
             }
             Some(r) if r.is_unfinished() => {
                 let on_path = self.st.on_leg_path(r, steps);

@@ -85,6 +85,8 @@ impl Bench {
             settle: ms(10),
             reply_margin: ms(500),
             relax_on_exit: relax,
+            // A controller board counts from 0 after power-on.
+            restart_counts: [0, 0, 0],
         };
         let core = Follower::new(policy(backlash), Arc::new(Line), None);
         let s = Session::new(core, dialect.decoder(None), journal, settings);
@@ -730,6 +732,7 @@ fn only_rejects_notes(chunks: &[(u64, &[u8])]) -> Vec<Note> {
         settle: ms(10),
         reply_margin: ms(500),
         relax_on_exit: false,
+        restart_counts: [0, 0, 0],
     };
     let core = Follower::new(policy(0), Arc::new(Line), None);
     let mut s = Session::new(core, dialect.decoder(None), None, settings);
@@ -1066,4 +1069,20 @@ fn a_retune_in_the_tail_keeps_the_inhibit_on_until_the_new_target() {
         .collect();
     assert_eq!(released.len(), 1, "{:?}", b.timed);
     assert!(released[0] >= reached + TAIL, "{:?}", b.timed);
+}
+
+#[test]
+fn a_differing_count_that_is_no_restart_count_is_unknown_not_zeroed() {
+    // The journal says 2000; the controller says 1234, not its power-on 0:
+    // it lost steps or was moved by hand, and ZERO would hide that.
+    let mut b = Bench::linked(Some(Recorded::Known(2000)), 1234);
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.levels, vec![true]);
+    assert_eq!(b.journal, Some(Recorded::Known(2000)));
+    b.shutdown();
+    assert!(b.s.outcome().unconfirmed);
 }
