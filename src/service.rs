@@ -24,9 +24,12 @@ use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
 
 use crate::calibrate::{append_candidate, Point};
+use crate::control::protocol::{Ask, StateView};
+use crate::control::OperatorPort;
 pub use crate::follow::session::RunSummary;
 use crate::follow::session::{Level, Note, Output, Session, SessionSettings};
 use crate::follow::Follower;
+use crate::follow::{Calibrations, Command};
 use crate::inhibit::InhibitLine;
 use crate::journal::{Journal, Recorded};
 use crate::port::link::{LinkConfig, LinkEvent};
@@ -107,16 +110,63 @@ pub fn init_logging(format: LogFormat) {
 /// unfinished move (and the inhibit stays asserted).
 pub const EXIT_UNCONFIRMED: u8 = 3;
 
+/// Where the operator's front ends listen, and how `reload` reads the
+/// calibration again (the station layer builds it: `station::control_setup`).
+pub struct ControlSetup {
+    /// The Unix control socket (created 0600, removed at the end).
+    pub socket: PathBuf,
+    /// Also TCP here (loopback only).
+    pub listen: Option<std::net::SocketAddr>,
+    pub reload: Option<Reloader>,
+}
+
 /// Runs the live service from its parts (the station layer assembles them:
-/// `ServiceParts::from_station`) until interrupted (Ctrl-C or SIGTERM), on
-/// a runtime of its own.
-pub fn run_until_signal(service: ServiceParts) -> Result<RunSummary, String> {
+/// `ServiceParts::from_station`) until interrupted (Ctrl-C, SIGTERM or
+/// SIGHUP), on a runtime of its own; with `control`, the control socket
+/// (and loopback TCP) take the operator's commands.
+pub fn run_until_signal(
+    service: ServiceParts,
+    control: Option<ControlSetup>,
+) -> Result<RunSummary, String> {
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
         .build()
         .map_err(|e| format!("cannot start the runtime: {e}"))?;
-    rt.block_on(async move { run(service, signals::stop_flag()).await })
+    rt.block_on(async move {
+        let Some(control) = control else {
+            return run(service, signals::stop_flag()).await;
+        };
+        let (link, port) = crate::control::operator_channel();
+        let (fronts_stop, fronts) = shutdown::channel();
+        let socket = control.socket;
+        let unix = crate::control::socket::serve_unix(socket.clone(), link.clone(), fronts.clone())
+            .map_err(|e| e.to_string())?;
+        tracing::info!(socket = %socket.display(), "control socket ready (`tuneward ctl`)");
+        let tcp = match control.listen {
+            Some(addr) => {
+                let (bound, task) =
+                    crate::control::socket::serve_tcp(addr, link.clone(), fronts.clone())
+                        .await
+                        .map_err(|e| format!("cannot listen for control on {addr}: {e}"))?;
+                tracing::info!(address = %bound, "control on TCP (loopback)");
+                Some(task)
+            }
+            None => None,
+        };
+        drop(link);
+        let operator = Operator {
+            port,
+            reload: control.reload,
+        };
+        let result = run_with_operator(service, Some(operator), signals::stop_flag()).await;
+        fronts_stop.trigger();
+        let _ = tokio::time::timeout(TASK_END_WAIT, unix).await;
+        if let Some(t) = tcp {
+            let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
+        }
+        result
+    })
 }
 
 /// Runs the service until `shutdown` becomes true. Errors only for what
@@ -129,7 +179,34 @@ pub async fn run(
     service: ServiceParts,
     shutdown: impl Into<Shutdown>,
 ) -> Result<RunSummary, String> {
+    run_with_operator(service, None, shutdown).await
+}
+
+/// Reads the calibration again (for `reload`): IO the driver does before
+/// the core decides on what it read.
+pub type Reloader = Box<dyn Fn() -> Result<Calibrations, String> + Send>;
+
+/// The operator's front ends, joined to the driver.
+pub struct Operator {
+    pub port: OperatorPort,
+    /// `None`: `reload` is answered with a refusal saying there is nothing
+    /// to read again.
+    pub reload: Option<Reloader>,
+}
+
+/// [`run`], with the operator's commands taken from `operator`: each is
+/// handed to the session as a core event and its reply sent back; the
+/// state is published after every event.
+pub async fn run_with_operator(
+    service: ServiceParts,
+    operator: Option<Operator>,
+    shutdown: impl Into<Shutdown>,
+) -> Result<RunSummary, String> {
     let mut shutdown = shutdown.into();
+    let (mut asks, state, reload) = match operator {
+        Some(op) => (Some(op.port.asks), Some(op.port.state), op.reload),
+        None => (None, None, None),
+    };
     let recorded = match &service.journal {
         Some(j) => j.load().map_err(|e| e.to_string())?,
         None => None,
@@ -181,6 +258,7 @@ pub async fn run(
     };
     let mut tuner = client.events;
     io.carry_out(&mut session).await;
+    publish(&state, &session);
     let (mut rig_open, mut tuner_open, mut asked) = (true, true, false);
     while !session.is_finished() {
         let origin = io.origin;
@@ -209,9 +287,27 @@ pub async fn run(
                     session.handle_tuner_gone(io.now());
                 }
             },
+            ask = next_ask(&mut asks) => match ask {
+                Some((ask, answer)) => {
+                    let cmd = match ask {
+                        Ask::Command(c) => c.into_command(),
+                        Ask::Reload => Command::Reload {
+                            calibrations: match &reload {
+                                Some(read) => read(),
+                                None => Err("this service was started without a calibration to read again".into()),
+                            },
+                        },
+                    };
+                    let reply = session.handle_command(io.now(), cmd);
+                    // The asker may have gone; the command stands.
+                    let _ = answer.send(reply);
+                }
+                None => asks = None,
+            },
             _ = sleep_until_precise(wake) => session.handle_timeout(io.now()),
         }
         io.carry_out(&mut session).await;
+        publish(&state, &session);
     }
     let result = session.outcome();
     tasks_stop.trigger();
@@ -221,7 +317,7 @@ pub async fn run(
         let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
     }
     tracing::info!(
-        position = ?result.position,
+        position = result.position,
         moves = result.moves,
         faults = result.faults,
         unconfirmed = result.unconfirmed,
@@ -239,6 +335,30 @@ fn restart_counts(c: &ClientConfig) -> [i64; 3] {
         _ => 0,
     };
     [0, c.min_steps, sim]
+}
+
+/// The next operator ask, or never without front ends.
+async fn next_ask(
+    asks: &mut Option<tokio::sync::mpsc::Receiver<crate::control::AskWithReply>>,
+) -> Option<crate::control::AskWithReply> {
+    match asks {
+        Some(rx) => rx.recv().await,
+        None => std::future::pending().await,
+    }
+}
+
+/// Publishes the session's state to the front ends when it changed.
+fn publish(state: &Option<watch::Sender<Option<StateView>>>, session: &Session) {
+    if let Some(tx) = state {
+        let view = Some(StateView::from_status(&session.status()));
+        tx.send_if_modified(|s| {
+            let changed = *s != view;
+            if changed {
+                *s = view;
+            }
+            changed
+        });
+    }
 }
 
 /// How long the driver waits for a link task to close its port at the end.
@@ -450,6 +570,15 @@ fn log(note: Note) {
         ),
         Note::RelaxBegin { from, to } => {
             info!(from, to, "relax on exit: backing off half the backlash")
+        }
+        Note::Command { name, reply } => {
+            let answer = crate::control::Answer::from_reply(&reply);
+            let reason = answer.reason.as_deref();
+            if answer.ok {
+                info!(command = name, outcome = %answer.outcome, reason, "operator command")
+            } else {
+                warn!(command = name, refused = answer.refused.as_deref(), reason, "operator command refused")
+            }
         }
     }
 }

@@ -32,7 +32,7 @@ use std::collections::VecDeque;
 use std::time::Duration;
 
 use super::Approach;
-use super::{Effects, Follower, HoldReason, Policy};
+use super::{Command, Effects, Follower, HoldReason, Policy, Refusal, Reply};
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::tuner::{TunerCommand, TunerEvent};
@@ -239,6 +239,11 @@ pub enum Note {
     RelaxBegin {
         from: i64,
         to: i64,
+    },
+    /// An operator command and what became of it (`Status` is not noted).
+    Command {
+        name: &'static str,
+        reply: Reply,
     },
 }
 
@@ -667,13 +672,34 @@ impl Session {
             return;
         }
         self.st.stopping = true;
-        self.core.handle_pause(now, true);
+        self.core.handle_closing(now);
         if matches!(self.st.phase, Phase::Starting | Phase::Running) {
             self.st.phase = Phase::Finishing {
                 since: now,
                 announced: false,
             };
         }
+    }
+
+    /// An operator command, from any front end: the core decides it (see
+    /// [`Follower::handle_command`]); once shutdown was asked only `Status`
+    /// is answered. Drain [`Session::poll_output`] afterwards as after any
+    /// event: a move it asked for comes out as the same outputs as any other.
+    pub fn handle_command(&mut self, now: Duration, cmd: Command) -> Reply {
+        let now = self.clock(now);
+        let name = cmd.name();
+        let reply = match cmd {
+            Command::Status => return Reply::Status(Box::new(self.status())),
+            _ if self.st.stopping || !self.st.phase.follows() => {
+                Reply::Refused(Refusal::ShuttingDown)
+            }
+            cmd => self.core.handle_command(now, cmd),
+        };
+        self.st.note(Note::Command {
+            name,
+            reply: reply.clone(),
+        });
+        reply
     }
 
     /// Time has passed: act on whatever is due.
@@ -911,6 +937,13 @@ impl Session {
                 || self.st.resync == Resync::Blocked,
             ..self.st.outcome.clone()
         }
+    }
+
+    /// The state, as `Status` answers it.
+    pub fn status(&self) -> super::Status {
+        let mut s = self.core.status();
+        s.shutting_down |= self.st.stopping;
+        s
     }
 
     /// The core, for inspection.
