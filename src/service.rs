@@ -474,9 +474,14 @@ fn log(note: Note) {
         Note::InhibitKept => error!(
             "the motor was not confirmed at rest: the transmit inhibit stays asserted (wire it fail-safe, see README)"
         ),
-        Note::Inhibit { on } => info!(on, "transmit inhibit"),
+        Note::Inhibit { on: true } => info!("transmit inhibit asserted"),
+        Note::Inhibit { on: false } => info!("transmit inhibit released"),
+        Note::Transmit { on: true } => info!("rig transmitting"),
+        Note::Transmit { on: false } => info!("rig back on receive"),
+        Note::Arrived { steps } => info!(steps, "arrived"),
         Note::InhibitFailed { on, error } => {
-            error!(on, error = %error, "transmit inhibit output failed")
+            let doing = if on { "asserting" } else { "releasing" };
+            error!(error = %error, "transmit inhibit output failed while {doing} it")
         }
         Note::ReleaseFailed { error } => {
             error!(error = %error, "could not release the transmit inhibit at shutdown")

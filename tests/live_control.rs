@@ -262,6 +262,19 @@ async fn every_command_through_ctl_under_the_cores_rules() {
     let _ = watch.kill();
     let _ = watch.wait();
 
+    // The log says what happened in words: transmissions, arrivals.
+    s.run.wait_log(&["rig transmitting"]);
+    s.run.wait_log(&["rig back on receive"]);
+    s.run.wait_log(&["arrived", "steps=1200"]);
+    s.run.wait_log(&["transmit inhibit released"]);
+    assert!(
+        !s.run
+            .log()
+            .iter()
+            .any(|l| l.contains("Some(") || l.contains("None")),
+        "Debug formatting in the log"
+    );
+
     // The log names the commands and their outcomes.
     s.run
         .wait_log(&["operator command refused", "outside-limits"]);

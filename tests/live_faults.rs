@@ -91,10 +91,12 @@ async fn sigterm_with_a_silent_controller_keeps_the_move_and_exits_non_zero() {
     // The inhibit was not released after the move began.
     let inhibit: Vec<&str> = text
         .lines()
-        .filter(|l| l.contains("transmit inhibit on="))
+        .filter(|l| {
+            l.contains("transmit inhibit asserted") || l.contains("transmit inhibit released")
+        })
         .collect();
     assert!(
-        inhibit.last().is_some_and(|l| l.contains("on=true")),
+        inhibit.last().is_some_and(|l| l.contains("asserted")),
         "{inhibit:?}"
     );
     assert!(text.contains("stays asserted"), "{text}");
@@ -158,7 +160,7 @@ async fn kill_9_at_seeded_points_of_a_move_is_never_wrong_after_the_next_start()
         let log = dir.path().join("run1.log");
         let first = run(&config, &log);
         eventually("the controller's count checked", || {
-            log_text(&log).contains("transmit inhibit on=false")
+            log_text(&log).contains("transmit inhibit released")
         });
         rig.write_all(&dialect.encode_frequency(hz, 0))
             .await
@@ -181,7 +183,7 @@ async fn kill_9_at_seeded_points_of_a_move_is_never_wrong_after_the_next_start()
         let mut second = run(&config, &log2);
         eventually("a verdict on the position", || {
             let t = log_text(&log2);
-            t.contains("transmit inhibit on=false") || t.contains("position unknown")
+            t.contains("transmit inhibit released") || t.contains("position unknown")
         });
         match journal.load().unwrap() {
             Some(Recorded::Known(p)) => {

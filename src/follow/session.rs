@@ -240,6 +240,14 @@ pub enum Note {
         from: i64,
         to: i64,
     },
+    /// The rig started or stopped transmitting (as its reports say).
+    Transmit {
+        on: bool,
+    },
+    /// A move ended with the motor at rest here.
+    Arrived {
+        steps: i64,
+    },
     /// An operator command and what became of it (`Status` is not noted).
     Command {
         name: &'static str,
@@ -618,6 +626,9 @@ impl Session {
     }
 
     fn set_transmit(&mut self, now: Duration, on: bool) {
+        if on != self.core.transmitting() {
+            self.st.note(Note::Transmit { on });
+        }
         self.st.push(Output::Transmit { on });
         self.core.handle_transmit(now, on);
     }
@@ -1032,6 +1043,9 @@ impl Session {
                 Resync::Idle => {
                     let was_moving = self.core.is_moving();
                     self.core.handle_arrived(now, steps);
+                    if was_moving && !self.core.is_moving() {
+                        self.st.note(Note::Arrived { steps });
+                    }
                     if !self.core.is_moving() {
                         if was_moving {
                             self.st.last_arrival = Some(now);
