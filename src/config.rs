@@ -37,6 +37,13 @@ pub struct Config {
     /// The transmit-inhibit output.
     #[serde(default)]
     pub inhibit: InhibitConfig,
+    /// Named places the operator can send the capacitor to
+    /// (`tuneward ctl preset NAME`).
+    #[serde(default, rename = "preset")]
+    pub presets: Vec<PresetConfig>,
+    /// The operator's control socket.
+    #[serde(default)]
+    pub control: ControlConfig,
     /// Where the config was read from; relative paths inside it are resolved
     /// against this file's folder.
     #[serde(skip)]
@@ -420,6 +427,32 @@ pub struct CalibrationConfig {
     pub max_loo_error_hz: Option<f64>,
 }
 
+/// `[[preset]]`: a name and either a frequency (`hz`, tuned through the
+/// calibration in use) or a step position (`steps`).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PresetConfig {
+    pub name: String,
+    #[serde(default)]
+    pub hz: Option<u64>,
+    #[serde(default)]
+    pub steps: Option<i64>,
+}
+
+/// `[control]`: the operator's control socket (JSON lines, see
+/// protocols/control.md).
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ControlConfig {
+    /// The Unix socket's path (relative to the config); by default beside
+    /// the journal, named after it with `.sock`.
+    #[serde(default)]
+    pub socket: Option<PathBuf>,
+    /// Also listen on TCP at this address; loopback addresses only.
+    #[serde(default)]
+    pub listen: Option<String>,
+}
+
 /// One measured calibration point: at `hz` the loop was resonant at `steps`.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -766,7 +799,81 @@ impl Config {
             }
         }
         self.calibration_points()?;
+        self.validate_presets()?;
+        self.control_listen()?;
         Ok(())
+    }
+
+    /// `[[preset]]`: unique names, exactly one of `hz` and `steps`, steps
+    /// within the travel limits.
+    fn validate_presets(&self) -> Result<(), ConfigError> {
+        let t = &self.tuner;
+        for (i, p) in self.presets.iter().enumerate() {
+            let key = format!("preset[{i}] ({})", p.name);
+            if p.name.trim().is_empty() {
+                return Err(self.invalid(
+                    &format!("preset[{i}].name"),
+                    "a name",
+                    "an empty one".into(),
+                ));
+            }
+            if self.presets[..i].iter().any(|q| q.name == p.name) {
+                return Err(self.invalid(
+                    &key,
+                    "a name used by one preset only",
+                    format!("`{}` twice", p.name),
+                ));
+            }
+            match (p.hz, p.steps) {
+                (Some(_), None) => {}
+                (None, Some(steps)) if (t.min_steps..=t.max_steps).contains(&steps) => {}
+                (None, Some(steps)) => {
+                    return Err(self.invalid(
+                        &format!("{key}.steps"),
+                        &format!(
+                            "a position within tuner.min_steps..=max_steps ({}..={})",
+                            t.min_steps, t.max_steps
+                        ),
+                        steps.to_string(),
+                    ))
+                }
+                (hz, steps) => {
+                    return Err(self.invalid(
+                        &key,
+                        "exactly one of `hz` and `steps`",
+                        if hz.is_some() && steps.is_some() {
+                            "both"
+                        } else {
+                            "neither"
+                        }
+                        .to_string(),
+                    ))
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// `[control] listen`, parsed; only loopback addresses are taken (the
+    /// control socket has no token: beyond loopback anyone could move the
+    /// motor).
+    pub fn control_listen(&self) -> Result<Option<std::net::SocketAddr>, ConfigError> {
+        let Some(text) = &self.control.listen else {
+            return Ok(None);
+        };
+        match text.parse::<std::net::SocketAddr>() {
+            Ok(addr) if addr.ip().is_loopback() => Ok(Some(addr)),
+            Ok(addr) => Err(self.invalid(
+                "control.listen",
+                "a loopback address such as \"127.0.0.1:7719\" (the control socket takes no token)",
+                addr.to_string(),
+            )),
+            Err(_) => Err(self.invalid(
+                "control.listen",
+                "an address and port such as \"127.0.0.1:7719\"",
+                format!("\"{text}\""),
+            )),
+        }
     }
 
     /// `[rig]`: the mode and the keys that go with it.

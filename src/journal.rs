@@ -5,19 +5,40 @@
 //! # Format
 //!
 //! Plain text, one `key=value` per line; lines starting with `#` and blank
-//! lines are ignored. Every file has `format=1` and a `state`:
+//! lines are ignored. Every file has `format=2` (files written before legs
+//! were recorded say `format=1`, and are read as before) and a `state`:
 //!
 //! ```text
 //! # tuneward position journal (change it with `tuneward set-position`)
-//! format=1
+//! format=2
 //! state=at
 //! position=4200
 //! ```
 //!
-//! `state=at` with `position=N`: the motor came to rest at step `N`.
-//! `state=moving` with `from=A` and `to=B`: a move from `A` to `B` was
-//! started and its arrival was never recorded, so the position is somewhere
-//! between (or anywhere, if the controller lost steps).
+//! `state=at` with `position=N`: the controller said the motor came to rest
+//! at step `N` (a position is never written from a command sent or a
+//! timeout, only from the controller's `AT`).
+//!
+//! `state=moving`: a leg of a move was sent and its end never recorded.
+//! `from=A` is where the move started (at rest, confirmed), `to=B` its final
+//! target, `direction=up|down` the direction of the leg under way. A move
+//! with a backlash approach has two legs: `via=O` is the overshoot target
+//! (the first leg goes `A`→`O`, the final one `O`→`B`) and `leg=first|final`
+//! says which was under way. Without `via` the move is one leg, `A`→`B`.
+//! The motor is then at a target of a leg, or somewhere on the straight
+//! path of the leg under way (or anywhere, if the controller lost steps):
+//!
+//! ```text
+//! format=2
+//! state=moving
+//! from=4982
+//! to=971
+//! via=911
+//! leg=first
+//! direction=down
+//! ```
+//!
+//! A `format=1` file has no `via`, `leg` or `direction`.
 //!
 //! # Crash safety
 //!
@@ -39,8 +60,105 @@ use crate::error::{Located, Place};
 pub enum Recorded {
     /// At rest at this position.
     Known(i64),
-    /// A move was under way and did not finish (as far as the file knows).
+    /// A one-leg move from `from` to `to` was under way and did not finish
+    /// (as far as the file knows). A `format=1` intent reads as this.
     Unknown { from: i64, to: i64 },
+    /// A two-leg (backlash) approach from `from` over `via` to `to` was under
+    /// way and did not finish; `final_leg`: the second leg (`via`→`to`) had
+    /// been sent, after the controller confirmed the motor at `via`.
+    Approach {
+        from: i64,
+        via: i64,
+        to: i64,
+        final_leg: bool,
+    },
+}
+
+/// One straight stretch of travel a leg covers, `start` to `end`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Stretch {
+    pub start: i64,
+    pub end: i64,
+}
+
+impl Stretch {
+    /// `steps` lies on the stretch (its ends included).
+    pub fn contains(&self, steps: i64) -> bool {
+        let (lo, hi) = (self.start.min(self.end), self.start.max(self.end));
+        (lo..=hi).contains(&steps)
+    }
+}
+
+impl Recorded {
+    /// The targets of an unfinished move's legs (empty for a position).
+    pub fn leg_targets(&self) -> Vec<i64> {
+        match *self {
+            Recorded::Known(_) => Vec::new(),
+            Recorded::Unknown { to, .. } => vec![to],
+            Recorded::Approach { via, to, .. } => vec![via, to],
+        }
+    }
+
+    /// The straight stretch of the leg that was under way, if a move was.
+    pub fn leg_path(&self) -> Option<Stretch> {
+        match *self {
+            Recorded::Known(_) => None,
+            Recorded::Unknown { from, to } => Some(Stretch {
+                start: from,
+                end: to,
+            }),
+            Recorded::Approach {
+                from,
+                via,
+                final_leg: false,
+                ..
+            } => Some(Stretch {
+                start: from,
+                end: via,
+            }),
+            Recorded::Approach {
+                via,
+                to,
+                final_leg: true,
+                ..
+            } => Some(Stretch {
+                start: via,
+                end: to,
+            }),
+        }
+    }
+
+    /// The move did not finish (the position is not known).
+    pub fn is_unfinished(&self) -> bool {
+        !matches!(self, Recorded::Known(_))
+    }
+
+    /// The file's body for this record (after the `format` line).
+    fn body(&self) -> String {
+        let direction = |a: i64, b: i64| if b >= a { "up" } else { "down" };
+        match *self {
+            Recorded::Known(p) => format!("state=at\nposition={p}\n"),
+            Recorded::Unknown { from, to } => format!(
+                "state=moving\nfrom={from}\nto={to}\ndirection={}\n",
+                direction(from, to)
+            ),
+            Recorded::Approach {
+                from,
+                via,
+                to,
+                final_leg,
+            } => {
+                let (leg, dir) = if final_leg {
+                    ("final", direction(via, to))
+                } else {
+                    ("first", direction(from, via))
+                };
+                format!(
+                    "state=moving\nfrom={from}\nto={to}\nvia={via}\nleg={leg}\ndirection={dir}\n"
+                )
+            }
+        }
+    }
 }
 
 /// A journal that could not be read or written.
@@ -101,14 +219,20 @@ impl Journal {
         }
     }
 
-    /// Records that a move from `from` to `to` is starting.
+    /// Records that a one-leg move from `from` to `to` is starting.
     pub fn record_intent(&self, from: i64, to: i64) -> Result<(), JournalError> {
-        self.write(&format!("state=moving\nfrom={from}\nto={to}\n"))
+        self.record(&Recorded::Unknown { from, to })
     }
 
     /// Records that the motor is at rest at `steps`.
     pub fn record_position(&self, steps: i64) -> Result<(), JournalError> {
-        self.write(&format!("state=at\nposition={steps}\n"))
+        self.record(&Recorded::Known(steps))
+    }
+
+    /// Records `what` (a position, or the intent of the leg about to be
+    /// sent), flushed to disk before it returns.
+    pub fn record(&self, what: &Recorded) -> Result<(), JournalError> {
+        self.write(&what.body())
     }
 
     fn temp_path(&self) -> PathBuf {
@@ -130,7 +254,7 @@ impl Journal {
             }
         };
         let text = format!(
-            "# tuneward position journal (change it with `tuneward set-position`)\nformat=1\n{body}"
+            "# tuneward position journal (change it with `tuneward set-position`)\nformat=2\n{body}"
         );
         let tmp = self.temp_path();
         let mut f = OpenOptions::new()
@@ -176,6 +300,9 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
     let mut position = None;
     let mut from = None;
     let mut to = None;
+    let mut via = None;
+    let mut leg = None;
+    let mut direction = None;
     for (i, raw) in text.lines().enumerate() {
         let n = i + 1;
         let line = raw.trim();
@@ -192,10 +319,13 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
             "position" => &mut position,
             "from" => &mut from,
             "to" => &mut to,
+            "via" => &mut via,
+            "leg" => &mut leg,
+            "direction" => &mut direction,
             _ => {
                 return Err(corrupt(
                     Some(n),
-                    "one of the keys format, state, position, from, to",
+                    "one of the keys format, state, position, from, to, via, leg, direction",
                     format!("`{}`", clip(key)),
                 ))
             }
@@ -209,23 +339,24 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
         }
         *slot = Some((n, value.to_string()));
     }
-    match &format {
-        Some((_, v)) if v == "1" => {}
+    let version = match &format {
+        Some((_, v)) if v == "1" => 1,
+        Some((_, v)) if v == "2" => 2,
         Some((n, v)) => {
             return Err(corrupt(
                 Some(*n),
-                "`format=1`",
+                "`format=1` or `format=2`",
                 format!("`format={}`", clip(v)),
             ))
         }
         None => {
             return Err(corrupt(
                 None,
-                "a `format=1` line",
+                "a `format=1` or `format=2` line",
                 "none (empty or truncated file?)".to_string(),
             ))
         }
-    }
+    };
     let number = |slot: &Option<(usize, String)>, key: &str| -> Result<i64, JournalError> {
         match slot {
             Some((n, v)) => v.parse::<i64>().map_err(|_| {
@@ -250,18 +381,81 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
         )),
         None => Ok(()),
     };
+    if version == 1 {
+        for (slot, key) in [(&via, "via"), (&leg, "leg"), (&direction, "direction")] {
+            if let Some((n, _)) = slot {
+                return Err(corrupt(
+                    Some(*n),
+                    &format!("no `{key}` in a `format=1` file"),
+                    format!("`{key}`"),
+                ));
+            }
+        }
+    }
     match state.as_ref().map(|(n, v)| (*n, v.as_str())) {
         Some((_, "at")) => {
-            unexpected(&from, "from", "at")?;
-            unexpected(&to, "to", "at")?;
+            for (slot, key) in [
+                (&from, "from"),
+                (&to, "to"),
+                (&via, "via"),
+                (&leg, "leg"),
+                (&direction, "direction"),
+            ] {
+                unexpected(slot, key, "at")?;
+            }
             Ok(Recorded::Known(number(&position, "position")?))
         }
         Some((_, "moving")) => {
             unexpected(&position, "position", "moving")?;
-            Ok(Recorded::Unknown {
-                from: number(&from, "from")?,
-                to: number(&to, "to")?,
-            })
+            let (from_n, to_n) = (number(&from, "from")?, number(&to, "to")?);
+            let recorded = match (&via, &leg) {
+                (None, None) => Recorded::Unknown {
+                    from: from_n,
+                    to: to_n,
+                },
+                (Some(_), Some((n, l))) => Recorded::Approach {
+                    from: from_n,
+                    via: number(&via, "via")?,
+                    to: to_n,
+                    final_leg: match l.as_str() {
+                        "first" => false,
+                        "final" => true,
+                        other => {
+                            return Err(corrupt(
+                                Some(*n),
+                                "`leg=first` or `leg=final`",
+                                format!("`leg={}`", clip(other)),
+                            ))
+                        }
+                    },
+                },
+                (Some((n, _)), None) => {
+                    return Err(corrupt(Some(*n), "a `leg=` line with `via`", "none".into()))
+                }
+                (None, Some((n, _))) => {
+                    return Err(corrupt(Some(*n), "a `via=` line with `leg`", "none".into()))
+                }
+            };
+            if version == 2 {
+                // The direction is written for a reader; it must agree with
+                // the leg it describes, or the file is not what we wrote.
+                let want = match recorded.leg_path() {
+                    Some(p) if p.end < p.start => "down",
+                    _ => "up",
+                };
+                match &direction {
+                    Some((_, d)) if d == want => {}
+                    Some((n, d)) => {
+                        return Err(corrupt(
+                            Some(*n),
+                            &format!("`direction={want}` (the leg under way)"),
+                            format!("`direction={}`", clip(d)),
+                        ))
+                    }
+                    None => return Err(corrupt(None, "a `direction=` line", "none".into())),
+                }
+            }
+            Ok(recorded)
         }
         Some((n, other)) => Err(corrupt(
             Some(n),
@@ -358,7 +552,7 @@ mod tests {
             (b"", "`format=1`", "none"),
             (b"format=1\nstate=at\nposition=12a\n", ":3", "`12a`"),
             (b"format=1\nstate=parked\n", ":2", "state=parked"),
-            (b"format=2\nstate=at\nposition=1\n", ":1", "format=2"),
+            (b"format=3\nstate=at\nposition=1\n", ":1", "format=3"),
             (b"format=1\nstate=at\n", "position", "none"),
             (b"format=1\nstate=moving\nfrom=1\n", "`to=`", "none"),
             (
@@ -377,6 +571,119 @@ mod tests {
             assert!(e.contains(want1) && e.contains(want2), "{e}");
             assert!(e.contains("set-position"), "{e}");
         }
+    }
+
+    #[test]
+    fn every_leg_record_reads_back_as_written() {
+        let dir = tempfile::tempdir().unwrap();
+        let j = Journal::new(dir.path().join("p.state"));
+        let records = [
+            Recorded::Known(-7),
+            Recorded::Unknown {
+                from: 4982,
+                to: 9004,
+            },
+            Recorded::Unknown {
+                from: 9004,
+                to: 4982,
+            },
+            Recorded::Approach {
+                from: 4982,
+                via: 911,
+                to: 971,
+                final_leg: false,
+            },
+            Recorded::Approach {
+                from: 4982,
+                via: 911,
+                to: 971,
+                final_leg: true,
+            },
+        ];
+        for r in records {
+            j.record(&r).unwrap();
+            assert_eq!(j.load().unwrap(), Some(r));
+        }
+        let text = fs::read_to_string(j.path()).unwrap();
+        assert!(text.contains("format=2\n"), "{text}");
+        // The final leg 911 -> 971 goes up.
+        assert!(text.contains("leg=final\ndirection=up\n"), "{text}");
+    }
+
+    #[test]
+    fn a_format_1_journal_still_loads() {
+        let p = Path::new("old");
+        assert_eq!(
+            parse(b"format=1\nstate=moving\nfrom=-30\nto=900\n", p).unwrap(),
+            Recorded::Unknown { from: -30, to: 900 }
+        );
+        assert_eq!(
+            parse(b"format=1\nstate=at\nposition=12\n", p).unwrap(),
+            Recorded::Known(12)
+        );
+        let e = parse(
+            b"format=1\nstate=moving\nfrom=1\nto=5\nvia=0\nleg=first\n",
+            p,
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(e.contains(":5") && e.contains("format=1"), "{e}");
+    }
+
+    #[test]
+    fn format_2_leg_records_are_checked() {
+        let p = Path::new("/s/p.state");
+        let cases: &[(&[u8], &str, &str)] = &[
+            (
+                b"format=2\nstate=moving\nfrom=1\nto=5\ndirection=down\n",
+                ":5",
+                "direction=down",
+            ),
+            (
+                b"format=2\nstate=moving\nfrom=1\nto=5\n",
+                "direction=",
+                "none",
+            ),
+            (
+                b"format=2\nstate=moving\nfrom=9\nto=5\nvia=3\ndirection=down\n",
+                ":5",
+                "leg=",
+            ),
+            (
+                b"format=2\nstate=moving\nfrom=9\nto=5\nvia=3\nleg=second\ndirection=down\n",
+                ":6",
+                "leg=second",
+            ),
+            (b"format=2\nstate=at\nposition=3\nvia=3\n", ":4", "`via`"),
+        ];
+        for (bytes, want1, want2) in cases {
+            let e = parse(bytes, p).unwrap_err().to_string();
+            assert!(e.contains(want1) && e.contains(want2), "{e}");
+        }
+    }
+
+    #[test]
+    fn a_legs_path_and_targets() {
+        let r = Recorded::Approach {
+            from: 2000,
+            via: 940,
+            to: 1000,
+            final_leg: false,
+        };
+        assert_eq!(r.leg_targets(), vec![940, 1000]);
+        let path = r.leg_path().unwrap();
+        assert!(path.contains(2000) && path.contains(940) && path.contains(1500));
+        assert!(!path.contains(939) && !path.contains(2001));
+        let last = Recorded::Approach {
+            from: 2000,
+            via: 940,
+            to: 1000,
+            final_leg: true,
+        };
+        let path = last.leg_path().unwrap();
+        assert!(path.contains(940) && path.contains(970) && path.contains(1000));
+        assert!(!path.contains(2000) && !path.contains(1001));
+        assert_eq!(Recorded::Known(5).leg_path(), None);
     }
 
     #[test]

@@ -24,11 +24,14 @@ use tokio::sync::{mpsc, watch};
 use tokio::time::Instant;
 
 use crate::calibrate::{append_candidate, Point};
+use crate::control::protocol::{Ask, StateView};
+use crate::control::OperatorPort;
 pub use crate::follow::session::RunSummary;
 use crate::follow::session::{Level, Note, Output, Session, SessionSettings};
 use crate::follow::Follower;
+use crate::follow::{Calibrations, Command};
 use crate::inhibit::InhibitLine;
-use crate::journal::Journal;
+use crate::journal::{Journal, Recorded};
 use crate::port::link::{LinkConfig, LinkEvent};
 use crate::port::proxy::{Boundary, ProxyConfig};
 use crate::port::{link, proxy};
@@ -102,16 +105,68 @@ pub fn init_logging(format: LogFormat) {
     };
 }
 
+/// The exit status of `tuneward run` when it stopped without the
+/// controller confirming where the motor is: the journal keeps the
+/// unfinished move (and the inhibit stays asserted).
+pub const EXIT_UNCONFIRMED: u8 = 3;
+
+/// Where the operator's front ends listen, and how `reload` reads the
+/// calibration again (the station layer builds it: `station::control_setup`).
+pub struct ControlSetup {
+    /// The Unix control socket (created 0600, removed at the end).
+    pub socket: PathBuf,
+    /// Also TCP here (loopback only).
+    pub listen: Option<std::net::SocketAddr>,
+    pub reload: Option<Reloader>,
+}
+
 /// Runs the live service from its parts (the station layer assembles them:
-/// `ServiceParts::from_station`) until interrupted (Ctrl-C or SIGTERM), on
-/// a runtime of its own.
-pub fn run_until_signal(service: ServiceParts) -> Result<RunSummary, String> {
+/// `ServiceParts::from_station`) until interrupted (Ctrl-C, SIGTERM or
+/// SIGHUP), on a runtime of its own; with `control`, the control socket
+/// (and loopback TCP) take the operator's commands.
+pub fn run_until_signal(
+    service: ServiceParts,
+    control: Option<ControlSetup>,
+) -> Result<RunSummary, String> {
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
         .build()
         .map_err(|e| format!("cannot start the runtime: {e}"))?;
-    rt.block_on(async move { run(service, signals::stop_flag()).await })
+    rt.block_on(async move {
+        let Some(control) = control else {
+            return run(service, signals::stop_flag()).await;
+        };
+        let (link, port) = crate::control::operator_channel();
+        let (fronts_stop, fronts) = shutdown::channel();
+        let socket = control.socket;
+        let unix = crate::control::socket::serve_unix(socket.clone(), link.clone(), fronts.clone())
+            .map_err(|e| e.to_string())?;
+        tracing::info!(socket = %socket.display(), "control socket ready (`tuneward ctl`)");
+        let tcp = match control.listen {
+            Some(addr) => {
+                let (bound, task) =
+                    crate::control::socket::serve_tcp(addr, link.clone(), fronts.clone())
+                        .await
+                        .map_err(|e| format!("cannot listen for control on {addr}: {e}"))?;
+                tracing::info!(address = %bound, "control on TCP (loopback)");
+                Some(task)
+            }
+            None => None,
+        };
+        drop(link);
+        let operator = Operator {
+            port,
+            reload: control.reload,
+        };
+        let result = run_with_operator(service, Some(operator), signals::stop_flag()).await;
+        fronts_stop.trigger();
+        let _ = tokio::time::timeout(TASK_END_WAIT, unix).await;
+        if let Some(t) = tcp {
+            let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
+        }
+        result
+    })
 }
 
 /// Runs the service until `shutdown` becomes true. Errors only for what
@@ -124,7 +179,34 @@ pub async fn run(
     service: ServiceParts,
     shutdown: impl Into<Shutdown>,
 ) -> Result<RunSummary, String> {
+    run_with_operator(service, None, shutdown).await
+}
+
+/// Reads the calibration again (for `reload`): IO the driver does before
+/// the core decides on what it read.
+pub type Reloader = Box<dyn Fn() -> Result<Calibrations, String> + Send>;
+
+/// The operator's front ends, joined to the driver.
+pub struct Operator {
+    pub port: OperatorPort,
+    /// `None`: `reload` is answered with a refusal saying there is nothing
+    /// to read again.
+    pub reload: Option<Reloader>,
+}
+
+/// [`run`], with the operator's commands taken from `operator`: each is
+/// handed to the session as a core event and its reply sent back; the
+/// state is published after every event.
+pub async fn run_with_operator(
+    service: ServiceParts,
+    operator: Option<Operator>,
+    shutdown: impl Into<Shutdown>,
+) -> Result<RunSummary, String> {
     let mut shutdown = shutdown.into();
+    let (mut asks, state, reload) = match operator {
+        Some(op) => (Some(op.port.asks), Some(op.port.state), op.reload),
+        None => (None, None, None),
+    };
     let recorded = match &service.journal {
         Some(j) => j.load().map_err(|e| e.to_string())?,
         None => None,
@@ -157,6 +239,7 @@ pub async fn run(
         settle: service.controller.settle,
         reply_margin: service.controller.reply_margin,
         relax_on_exit: service.relax_on_exit,
+        restart_counts: restart_counts(&service.controller),
     };
     let client = client::spawn(
         service.controller,
@@ -175,6 +258,7 @@ pub async fn run(
     };
     let mut tuner = client.events;
     io.carry_out(&mut session).await;
+    publish(&state, &session);
     let (mut rig_open, mut tuner_open, mut asked) = (true, true, false);
     while !session.is_finished() {
         let origin = io.origin;
@@ -203,9 +287,27 @@ pub async fn run(
                     session.handle_tuner_gone(io.now());
                 }
             },
+            ask = next_ask(&mut asks) => match ask {
+                Some((ask, answer)) => {
+                    let cmd = match ask {
+                        Ask::Command(c) => c.into_command(),
+                        Ask::Reload => Command::Reload {
+                            calibrations: match &reload {
+                                Some(read) => read(),
+                                None => Err("this service was started without a calibration to read again".into()),
+                            },
+                        },
+                    };
+                    let reply = session.handle_command(io.now(), cmd);
+                    // The asker may have gone; the command stands.
+                    let _ = answer.send(reply);
+                }
+                None => asks = None,
+            },
             _ = sleep_until_precise(wake) => session.handle_timeout(io.now()),
         }
         io.carry_out(&mut session).await;
+        publish(&state, &session);
     }
     let result = session.outcome();
     tasks_stop.trigger();
@@ -215,12 +317,48 @@ pub async fn run(
         let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
     }
     tracing::info!(
-        position = ?result.position,
+        position = result.position,
         moves = result.moves,
         faults = result.faults,
+        unconfirmed = result.unconfirmed,
         "stopped"
     );
     Ok(result)
+}
+
+/// The counts the controller can have after a restart: a board counts from
+/// 0 (`protocols/tuner-line.md`), the direct drive from the lower limit,
+/// the in-process simulator from its start.
+fn restart_counts(c: &ClientConfig) -> [i64; 3] {
+    let sim = match c.url {
+        client::ControllerUrl::Sim => c.sim_start,
+        _ => 0,
+    };
+    [0, c.min_steps, sim]
+}
+
+/// The next operator ask, or never without front ends.
+async fn next_ask(
+    asks: &mut Option<tokio::sync::mpsc::Receiver<crate::control::AskWithReply>>,
+) -> Option<crate::control::AskWithReply> {
+    match asks {
+        Some(rx) => rx.recv().await,
+        None => std::future::pending().await,
+    }
+}
+
+/// Publishes the session's state to the front ends when it changed.
+fn publish(state: &Option<watch::Sender<Option<StateView>>>, session: &Session) {
+    if let Some(tx) = state {
+        let view = Some(StateView::from_status(&session.status()));
+        tx.send_if_modified(|s| {
+            let changed = *s != view;
+            if changed {
+                *s = view;
+            }
+            changed
+        });
+    }
 }
 
 /// How long the driver waits for a link task to close its port at the end.
@@ -255,9 +393,9 @@ impl Io {
                     let r = self.inhibit.set(on).map_err(|e| e.to_string());
                     session.handle_inhibit_result(self.now(), r);
                 }
-                Output::JournalIntent { from, to } => {
+                Output::JournalIntent(intent) => {
                     let r = match &self.journal {
-                        Some(j) => j.record_intent(from, to).map_err(|e| e.to_string()),
+                        Some(j) => j.record(&intent).map_err(|e| e.to_string()),
                         None => Ok(()),
                     };
                     session.handle_journal_result(self.now(), r);
@@ -291,6 +429,25 @@ impl Io {
     }
 }
 
+/// An unfinished move's start, final target, overshoot and leg, for the log.
+fn unfinished_parts(r: Recorded) -> (i64, i64, Option<i64>, &'static str) {
+    match r {
+        Recorded::Known(p) => (p, p, None, "none"),
+        Recorded::Unknown { from, to } => (from, to, None, "only"),
+        Recorded::Approach {
+            from,
+            via,
+            to,
+            final_leg,
+        } => (
+            from,
+            to,
+            Some(via),
+            if final_leg { "final" } else { "first" },
+        ),
+    }
+}
+
 /// Writes one of the session's notes with tracing, its fields as fields.
 fn log(note: Note) {
     use tracing::{debug, error, info, warn};
@@ -302,14 +459,29 @@ fn log(note: Note) {
             Level::Error => error!("{text}"),
         },
         Note::JournalKnown { position } => info!(position, "journal: motor at rest"),
-        Note::JournalUnfinished { from, to } => warn!(
-            from,
-            to,
-            "journal: a move did not finish; the position is unknown unless the controller reports its target"
+        Note::JournalUnfinished { unfinished } => warn!(
+            from = unfinished_parts(unfinished).0,
+            to = unfinished_parts(unfinished).1,
+            via = ?unfinished_parts(unfinished).2,
+            leg = unfinished_parts(unfinished).3,
+            "journal: a move did not finish; the position is unknown unless the controller reports a target of its legs or a point on the leg's path"
         ),
-        Note::Inhibit { on } => info!(on, "transmit inhibit"),
+        Note::Trusted { steps, why } => info!(steps, why, "position trusted after the unfinished move"),
+        Note::OnPathStopping { steps } => info!(
+            steps,
+            "controller reports a position on the unfinished leg's path: STOP, then check it at rest"
+        ),
+        Note::InhibitKept => error!(
+            "the motor was not confirmed at rest: the transmit inhibit stays asserted (wire it fail-safe, see README)"
+        ),
+        Note::Inhibit { on: true } => info!("transmit inhibit asserted"),
+        Note::Inhibit { on: false } => info!("transmit inhibit released"),
+        Note::Transmit { on: true } => info!("rig transmitting"),
+        Note::Transmit { on: false } => info!("rig back on receive"),
+        Note::Arrived { steps } => info!(steps, "arrived"),
         Note::InhibitFailed { on, error } => {
-            error!(on, error = %error, "transmit inhibit output failed")
+            let doing = if on { "asserting" } else { "releasing" };
+            error!(error = %error, "transmit inhibit output failed while {doing} it")
         }
         Note::ReleaseFailed { error } => {
             error!(error = %error, "could not release the transmit inhibit at shutdown")
@@ -356,6 +528,14 @@ fn log(note: Note) {
             got, "controller did not take the journal's position; asking again"
         ),
         Note::Untrusted { steps } => debug!(steps, "position reported while untrusted; ignored"),
+        Note::CountNoRestart {
+            journal,
+            controller,
+        } => error!(
+            journal,
+            controller,
+            "position unknown: the controller's count differs from the journal and is not one it restarts from (steps lost, or moved by hand?); nothing will move. Check the antenna, run `tuneward set-position STEPS`, then restart"
+        ),
         Note::CountDiffers {
             journal,
             controller,
@@ -395,6 +575,15 @@ fn log(note: Note) {
         ),
         Note::RelaxBegin { from, to } => {
             info!(from, to, "relax on exit: backing off half the backlash")
+        }
+        Note::Command { name, reply } => {
+            let answer = crate::control::Answer::from_reply(&reply);
+            let reason = answer.reason.as_deref();
+            if answer.ok {
+                info!(command = name, outcome = %answer.outcome, reason, "operator command")
+            } else {
+                warn!(command = name, refused = answer.refused.as_deref(), reason, "operator command refused")
+            }
         }
     }
 }

@@ -1,4 +1,4 @@
-//! Shutdown requests from outside: Ctrl-C (SIGINT) or SIGTERM, the one
+//! Shutdown requests from outside: Ctrl-C (SIGINT), SIGTERM or SIGHUP, the one
 //! place every long-running command (`run`, `capture`, `sim-tuner`) waits
 //! for them.
 
@@ -21,8 +21,11 @@ pub async fn interrupted() {
     }
 }
 
-/// A [`Shutdown`] that is set on Ctrl-C or SIGTERM, for tasks that watch
-/// one. Spawns its waiting task on the current tokio runtime.
+/// A [`Shutdown`] that is set on Ctrl-C, SIGTERM or SIGHUP, for tasks
+/// that watch one. SIGHUP (the terminal or SSH session that started the
+/// command closed) is a request to stop like SIGTERM: the default action
+/// would kill the process mid-move like a crash, and ignoring it would
+/// leave a service nobody started on purpose running unseen. Spawns its waiting task on the current tokio runtime.
 ///
 /// A second Ctrl-C or SIGTERM during the shutdown ends the process at once
 /// with status 130, as an operator who presses Ctrl-C twice expects. Nothing
@@ -35,9 +38,10 @@ pub fn stop_flag() -> Shutdown {
     tokio::spawn(async move {
         // Both streams exist before the first signal, so the second one
         // cannot slip through between the two waits.
-        let (Ok(mut int), Ok(mut term)) = (
+        let (Ok(mut int), Ok(mut term), Ok(mut hup)) = (
             signal(SignalKind::interrupt()),
             signal(SignalKind::terminate()),
+            signal(SignalKind::hangup()),
         ) else {
             interrupted().await;
             tracing::info!("shutting down");
@@ -48,6 +52,7 @@ pub fn stop_flag() -> Shutdown {
             tokio::select! {
                 _ = int.recv() => {}
                 _ = term.recv() => {}
+                _ = hup.recv() => {}
             }
             if round == 0 {
                 tracing::info!("shutting down (interrupt again to stop at once)");

@@ -21,8 +21,8 @@ pub mod error;
 pub mod settings;
 pub use check::{check, check_with, CheckOptions, Finding, Grade};
 pub use settings::{
-    check_base_points, fit_base, fit_options, journal_for, policy_from_config, port_settings,
-    rig_source,
+    calibrations_of, check_base_points, control_setup, control_socket_for, fit_base, fit_options,
+    journal_for, lock_path_for, policy_from_config, port_settings, presets_from_config, rig_source,
 };
 
 /// Anything that stops a command, worded for the operator.

@@ -31,6 +31,7 @@ const PURE_FILES: &[&str] = &[
     "src/error.rs",
     "src/replay.rs",
     "src/sim/meters.rs",
+    "src/control/protocol.rs",
 ];
 
 /// The drivers (IO and timers: the live service, the recorder, the replay,

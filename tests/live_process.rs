@@ -6,8 +6,7 @@
 
 use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
-use std::sync::{Arc, Mutex};
+use std::process::Command;
 use std::time::{Duration, Instant};
 
 use tokio::io::AsyncWriteExt;
@@ -17,7 +16,7 @@ use tuneward::rig::dialect::Dialect;
 
 mod common;
 
-use common::{assert_success, pty_pair, read_exactly, rig_behind_symlink, Proc, BIN};
+use common::{assert_success, pty_pair, read_exactly, rig_behind_symlink, Logged, Proc, BIN};
 
 /// `tuneward sim-tuner` on `listen` (port 0: a free one), 1000 steps/s,
 /// 0 to 3000, counting from `start`; its address.
@@ -44,69 +43,6 @@ fn controller_where(addr: &str) -> String {
     let mut line = String::new();
     BufReader::new(s).read_line(&mut line).unwrap();
     line.trim_end().to_string()
-}
-
-/// A child whose stderr is collected line by line.
-struct Logged {
-    proc: Proc,
-    lines: Arc<Mutex<Vec<String>>>,
-}
-
-impl Logged {
-    fn start(args: &[&str]) -> Logged {
-        let mut child = Command::new(BIN)
-            .args(args)
-            .env("RUST_LOG", "info")
-            .stdout(Stdio::null())
-            .stderr(Stdio::piped())
-            .spawn()
-            .unwrap();
-        let err = child.stderr.take().unwrap();
-        let lines = Arc::new(Mutex::new(Vec::new()));
-        let sink = Arc::clone(&lines);
-        std::thread::spawn(move || {
-            for line in BufReader::new(err).lines().map_while(Result::ok) {
-                eprintln!("  | {line}");
-                sink.lock().unwrap().push(line);
-            }
-        });
-        Logged {
-            proc: Proc(child),
-            lines,
-        }
-    }
-    /// `tuneward run --config <config>`.
-    fn run(config: &Path) -> Logged {
-        Logged::start(&["run", "--config", config.to_str().unwrap()])
-    }
-    /// `tuneward capture --config <config> --out <out>` with `extra` flags.
-    fn capture(config: &Path, out: &Path, extra: &[&str]) -> Logged {
-        let args = ["capture", "--config", config.to_str().unwrap()];
-        let out = ["--out", out.to_str().unwrap()];
-        Logged::start(&[&args[..], &out, extra].concat())
-    }
-    fn log(&self) -> Vec<String> {
-        self.lines.lock().unwrap().clone()
-    }
-    /// Waits until a log line contains every one of `words`.
-    fn wait_log(&self, words: &[&str]) -> String {
-        let until = Instant::now() + Duration::from_secs(10);
-        loop {
-            if let Some(l) = self
-                .log()
-                .into_iter()
-                .find(|l| words.iter().all(|w| l.contains(w)))
-            {
-                return l;
-            }
-            assert!(
-                Instant::now() < until,
-                "no log line with {words:?} in:\n{}",
-                self.log().join("\n")
-            );
-            std::thread::sleep(Duration::from_millis(20));
-        }
-    }
 }
 
 /// The demo station at 1000 steps/s: the rig on `rig`, the controller at
@@ -195,7 +131,7 @@ async fn sigterm_mid_move_finishes_it_and_exits_cleanly() {
         .rev()
         .find(|l| l.contains("transmit inhibit"))
         .unwrap();
-    assert!(last.contains("on=false"), "{last}");
+    assert!(last.contains("released"), "{last}");
 }
 
 /// A second interrupt during the shutdown stops at once (status 130),
@@ -257,7 +193,7 @@ async fn killed_mid_move_restarts_with_the_position_unknown() {
         .filter(|l| l.contains("transmit inhibit"))
         .collect();
     assert!(
-        inhibit.len() == 1 && inhibit[0].contains("on=true"),
+        inhibit.len() == 1 && inhibit[0].contains("asserted"),
         "{inhibit:?}"
     );
 
@@ -414,7 +350,7 @@ async fn rig_unplug_and_controller_drop_both_recover() {
     // move after the controller came back.
     let first_release = log[since..]
         .iter()
-        .position(|l| l.contains("transmit inhibit") && l.contains("on=false"));
+        .position(|l| l.contains("transmit inhibit released"));
     let the_move = log[since..]
         .iter()
         .position(|l| l.contains("INFO move"))
@@ -427,7 +363,7 @@ async fn rig_unplug_and_controller_drop_both_recover() {
         .iter()
         .rev()
         .find(|l| l.contains("transmit inhibit"))
-        .is_some_and(|l| l.contains("on=true")));
+        .is_some_and(|l| l.contains("asserted")));
     run.proc.signal(libc::SIGTERM);
     assert_eq!(run.proc.wait_exit(Duration::from_secs(10)).code(), Some(0));
 }

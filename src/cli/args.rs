@@ -221,6 +221,127 @@ impl From<SetPositionArgs> for SetPositionOptions {
     }
 }
 
+/// Arguments of `tuneward ctl`.
+#[derive(Debug, clap::Args)]
+pub struct CtlArgs {
+    /// The station's config: the control socket is found from it (beside
+    /// the journal, or `[control] socket`).
+    #[arg(long, short, global = true, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+    /// Print the service's answer (and, with `watch`, each state) as JSON
+    /// lines (protocols/control.md) instead of words.
+    #[arg(long, global = true)]
+    pub json: bool,
+    #[command(subcommand)]
+    pub what: CtlCommand,
+}
+
+/// What `tuneward ctl` asks of the running service.
+#[derive(Debug, Clone, clap::Subcommand)]
+pub enum CtlCommand {
+    /// Show the rig's frequency, what the loop is tuned for, the capacitor
+    /// and the state.
+    Status,
+    /// Show the state now and at every change, until Ctrl-C.
+    Watch,
+    /// Stop following the rig (operator moves still go).
+    Pause,
+    /// Follow the rig again.
+    Resume,
+    /// Move the capacitor by this many steps (`+20`, `-5`).
+    Nudge {
+        #[arg(allow_hyphen_values = true)]
+        steps: i64,
+    },
+    /// Move the capacitor to this step position.
+    Goto {
+        #[arg(allow_hyphen_values = true)]
+        steps: i64,
+    },
+    /// Go to a `[[preset]]` by name.
+    Preset { name: String },
+    /// Switch the calibration profile (`base` for the base).
+    Profile { name: String },
+    /// The loop is resonant now: store the rig's frequency at this position
+    /// as a calibration point candidate (review with `tuneward fit`).
+    Mark,
+    /// Read the calibration again (after `fit --accept`).
+    Reload,
+}
+
+impl CtlCommand {
+    pub fn request(&self) -> tuneward::control::Request {
+        use tuneward::control::Request;
+        match self {
+            CtlCommand::Status => Request::Status,
+            CtlCommand::Watch => Request::Watch,
+            CtlCommand::Pause => Request::Pause,
+            CtlCommand::Resume => Request::Resume,
+            CtlCommand::Nudge { steps } => Request::Nudge { steps: *steps },
+            CtlCommand::Goto { steps } => Request::Goto { steps: *steps },
+            CtlCommand::Preset { name } => Request::Preset { name: name.clone() },
+            CtlCommand::Profile { name } => Request::Profile { name: name.clone() },
+            CtlCommand::Mark => Request::Mark,
+            CtlCommand::Reload => Request::Reload,
+        }
+    }
+}
+
+/// `tuneward ctl`: `Ok(false)` when the service refused.
+pub fn run_ctl(args: CtlArgs, out: &mut dyn std::io::Write) -> Result<bool, String> {
+    use std::io::Write;
+    use tuneward::control::client::{describe, describe_state, Client};
+    let Some(config) = &args.config else {
+        return Err("ctl: expected `-c CONFIG` (the station's config, which says where the control socket is)".into());
+    };
+    let config = tuneward::config::Config::load(config).map_err(|e| e.to_string())?;
+    let socket = tuneward::station::control_socket_for(&config);
+    let mut client = Client::connect(&socket).map_err(|e| e.to_string())?;
+    let request = args.what.request();
+    let json = args.json;
+    if let CtlCommand::Watch = args.what {
+        // Both callbacks print as the lines come, through stdout itself.
+        let print = |line: String| {
+            let stdout = std::io::stdout();
+            let mut lock = stdout.lock();
+            let _ = writeln!(lock, "{line}");
+            let _ = lock.flush();
+        };
+        let mut ok = true;
+        client
+            .watch(
+                |a| {
+                    ok = a.ok;
+                    print(if json { to_json(a) } else { describe(a) });
+                },
+                |s| {
+                    print(if json {
+                        to_json(&tuneward::control::protocol::StateLine { state: s.clone() })
+                    } else {
+                        format!("--\n{}", describe_state(s))
+                    });
+                    true
+                },
+            )
+            .map_err(|e| e.to_string())?;
+        let _ = out.flush();
+        return Ok(ok);
+    }
+    let answer = client.request(&request).map_err(|e| e.to_string())?;
+    let text = if json {
+        to_json(&answer)
+    } else {
+        describe(&answer)
+    };
+    let _ = writeln!(out, "{text}");
+    Ok(answer.ok)
+}
+
+fn to_json<T: serde::Serialize>(v: &T) -> String {
+    // Our own plain types: serialising cannot fail.
+    serde_json::to_string(v).unwrap_or_default()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

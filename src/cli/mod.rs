@@ -12,7 +12,7 @@ use clap::{Parser, Subcommand};
 
 use tuneward::timeline::{Human, JsonLines, Timeline};
 
-use args::{CaptureArgs, FitArgs, RunArgs, SetPositionArgs, SimRigArgs, SimTunerArgs};
+use args::{CaptureArgs, CtlArgs, FitArgs, RunArgs, SetPositionArgs, SimRigArgs, SimTunerArgs};
 
 /// Keeps a remotely tuned antenna (a small transmitting loop, say) tuned to
 /// wherever the operator puts the transceiver's VFO.
@@ -83,8 +83,10 @@ pub enum Command {
     ///
     /// Runs until SIGINT (Ctrl-C) or SIGTERM, then lets the move under way
     /// finish, records the position and releases the transmit inhibit; exit
-    /// status 0 after a clean shutdown. Logs one line per decision on
-    /// stderr.
+    /// status 0 after a clean shutdown. Exit status 3: it stopped without
+    /// the controller confirming where the motor is (the journal keeps the
+    /// unfinished move, the inhibit stays asserted); 1: it could not start;
+    /// 130: a second interrupt. Logs one line per decision on stderr.
     Run(RunArgs),
     /// Record the rig's control port into a capture file for `replay`.
     Capture(CaptureArgs),
@@ -138,18 +140,40 @@ pub enum Command {
     /// the position journal, e.g. after the journal reported a move that
     /// never finished.
     SetPosition(SetPositionArgs),
+    /// Talk to the running service: see its state, nudge, go to a preset,
+    /// switch profile, pause, mark a calibration point.
+    ///
+    /// Speaks the control protocol (protocols/control.md) on the station's
+    /// control socket, found from its config. Exit status 1 when the
+    /// service refused (the reason is printed) or none is running.
+    Ctl(CtlArgs),
 }
 
-/// `tuneward run`: logging, the station from its config, then the live
-/// driver on the station's parts until SIGINT/SIGTERM.
+/// `tuneward run`: logging, the station from its config, its instance
+/// lock and control socket, then the live driver on the station's parts
+/// until SIGINT, SIGTERM or SIGHUP.
 fn run_live(args: &RunArgs) -> Result<(), Failure> {
     use tuneward::service::{init_logging, run_until_signal, ServiceParts};
     init_logging(args.log_format.into());
     tracing::info!(config = %args.config.display(), version = env!("CARGO_PKG_VERSION"), "starting");
     let plain = |e: &dyn std::fmt::Display| Failure::plain(e.to_string());
     let station = tuneward::station::Station::load(&args.config).map_err(|e| plain(&e))?;
+    // One instance per station: before anything is opened.
+    let _lock = tuneward::lock::acquire(&tuneward::station::lock_path_for(&station.config))
+        .map_err(|e| plain(&e))?;
+    let control =
+        tuneward::station::control_setup(&station, &args.config).map_err(|e| plain(&e))?;
     let parts = ServiceParts::from_station(&station).map_err(|e| plain(&e))?;
-    run_until_signal(parts).map(|_| ()).map_err(|e| plain(&e))
+    let summary = run_until_signal(parts, Some(control)).map_err(|e| plain(&e))?;
+    if summary.unconfirmed {
+        return Err(Failure {
+            status: tuneward::service::EXIT_UNCONFIRMED,
+            ..Failure::plain(
+                "stopped without the controller confirming where the motor is: the journal keeps the unfinished move and the next start checks it".to_string(),
+            )
+        });
+    }
+    Ok(())
 }
 
 /// `tuneward capture`: the station's rig port from its config, recorded
@@ -338,6 +362,16 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
         Command::SimRig(args) => args::run_sim_rig(args).map_err(Failure::plain),
         Command::Run(args) => run_live(&args),
         Command::Capture(args) => capture(&args),
+        Command::Ctl(args) => match args::run_ctl(args, &mut out) {
+            Ok(true) => Ok(()),
+            Ok(false) => Err(Failure {
+                prefix: "tuneward ctl",
+                status: 1,
+                message: "refused (see above)".into(),
+                closed_pipe: false,
+            }),
+            Err(e) => Err(Failure::plain(e)),
+        },
         Command::SetPosition(args) => tuneward::station::settings::run_set_position(&args.into())
             .map_err(|e| Failure::with_causes(&e)),
     };

@@ -21,6 +21,7 @@
 //!   final arrival;
 //! - while the position is unknown nothing moves and the inhibit stays on.
 
+pub mod command;
 pub mod effects;
 pub mod peak;
 pub mod policy;
@@ -35,6 +36,9 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use crate::calibrate::StepMap;
+pub use command::{
+    Calibrations, Command, Preset, PresetGoal, Refusal, Reply, Status, Wait, BASE_PROFILE,
+};
 pub use effects::{apply, Effects};
 pub use policy::{Approach, Band, Jump, Legs, Placement, Policy, WhileUnknown};
 pub use station::{
@@ -142,6 +146,12 @@ struct Target {
     /// The frequency the tuner is tuned for there (a band edge in a guard).
     tune_hz: u64,
     steps: i64,
+    /// Asked by the operator (a command), not by a settled frequency: it
+    /// goes while following is paused, but not once the core is closing.
+    manual: bool,
+    /// Reaching it tunes the loop for `tune_hz` (not so for an operator
+    /// move while the loop was tuned for nothing known).
+    retunes: bool,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -196,6 +206,8 @@ pub struct Follower {
     /// The rig's port is down (see [`Follower::handle_rig_link`]).
     rig_silent: bool,
     paused: bool,
+    /// Shutting down: nothing new moves, not even for the operator.
+    closing: bool,
     fault: bool,
     pending: Option<Pending>,
     settled_hz: Option<u64>,
@@ -208,6 +220,9 @@ pub struct Follower {
     /// from then, however the inhibit came to be on.
     inhibit_since: Duration,
     release_at: Option<Duration>,
+    /// The running tail (`release_at`) follows a move's arrival (not the
+    /// first report of a position).
+    tail_after_move: bool,
     /// The inhibit is held for a detuned report that has not settled yet.
     detune_hold: bool,
     touchup: Option<Touchup>,
@@ -219,6 +234,8 @@ pub struct Follower {
     last_hold: Option<(u64, HoldReason)>,
     actions: VecDeque<Action>,
     stats: Stats,
+    presets: Vec<Preset>,
+    calibrations: Calibrations,
 }
 
 impl fmt::Debug for Follower {
@@ -246,6 +263,7 @@ impl Follower {
             untuned: false,
             rig_silent: false,
             paused: false,
+            closing: false,
             fault: false,
             pending: None,
             settled_hz: None,
@@ -256,12 +274,15 @@ impl Follower {
             inhibit: false,
             inhibit_since: Duration::ZERO,
             release_at: None,
+            tail_after_move: false,
             detune_hold: false,
             touchup: None,
             last_report: None,
             last_hold: None,
             actions: VecDeque::new(),
             stats: Stats::default(),
+            presets: Vec::new(),
+            calibrations: Calibrations::default(),
         };
         if position.is_none() {
             f.set_inhibit(true);
@@ -380,7 +401,11 @@ impl Follower {
         }
         let deadline = due.unwrap_or_else(|| now + self.policy.debounce_for(hz));
         self.pending = Some(Pending { hz, deadline });
-        if self.policy.inhibit_while_detuned
+        // In the tail of a move the inhibit is still on: a detuned report
+        // then keeps it on (whatever `inhibit_while_detuned` says), so that
+        // the rig is not let go onto a loop tuned for the old frequency.
+        let in_tail = self.inhibit && self.release_at.is_some() && self.tail_after_move;
+        if (self.policy.inhibit_while_detuned || in_tail)
             && self.station.transmit().state != TransmitState::Transmit
             && self.position.is_some()
             && self.detuned_for(hz)
@@ -499,13 +524,15 @@ impl Follower {
             }
             Motion::Moving { then: None, .. } | Motion::Stopping => {
                 if let Motion::Moving { target, .. } = self.motion {
-                    if target.steps == steps {
-                        // Tuned for the target only once it is reached.
+                    if target.steps == steps && target.retunes {
+                        // Tuned for the target only once it is reached (an
+                        // operator's move by steps tunes for nothing known).
                         self.tuned_hz = Some(target.tune_hz);
                         self.untuned = false;
                     }
                 }
                 self.motion = Motion::Idle;
+                self.tail_after_move = true;
                 if let Some(t) = &mut self.touchup {
                     if t.due.is_none() {
                         t.due = Some(now + self.policy.candidate_dwell);
@@ -515,6 +542,7 @@ impl Follower {
             }
             Motion::Idle | Motion::Arming { .. } => {
                 if was_unknown || self.fault {
+                    self.tail_after_move = false;
                     self.fault = false;
                     self.tuned_hz = None;
                     self.after_rest(now);
@@ -592,10 +620,273 @@ impl Follower {
             hz,
             tune_hz: self.tuned_hz.unwrap_or(hz),
             steps,
+            manual: true,
+            retunes: true,
         });
         self.touchup = (hz != 0).then_some(Touchup { hz, due: None });
         self.try_start(now);
         self.handle_timeout(now);
+    }
+
+    /// The service is shutting down: following stops and no operator
+    /// move starts any more (one still waiting for receive is dropped).
+    pub fn handle_closing(&mut self, now: Duration) {
+        self.closing = true;
+        if self.want.is_some_and(|t| t.manual) {
+            self.want = None;
+        }
+        self.handle_pause(now, true);
+    }
+
+    /// An operator command (see [`command`]): decided here, under the same
+    /// rules as the rig's reports; a move it asks for comes out as the
+    /// same actions. The reply says what became of it.
+    pub fn handle_command(&mut self, now: Duration, cmd: Command) -> Reply {
+        let reply = match cmd {
+            Command::Status => return Reply::Status(Box::new(self.status())),
+            Command::Pause => {
+                self.handle_pause(now, true);
+                Reply::Done
+            }
+            Command::Resume => {
+                self.handle_pause(now, false);
+                self.pending_reply()
+            }
+            Command::Nudge { steps } => match self.move_base() {
+                Err(r) => Reply::Refused(r),
+                Ok(base) => {
+                    let hz = self.settled_hz.or(self.tuned_hz);
+                    let reply = self.operator_move(now, base.saturating_add(steps), hz, None);
+                    if matches!(reply, Reply::Done | Reply::Queued { .. }) {
+                        self.touchup = hz.map(|hz| Touchup { hz, due: None });
+                    }
+                    reply
+                }
+            },
+            Command::Goto { steps } => {
+                let hz = self.settled_hz.or(self.tuned_hz);
+                self.operator_move(now, steps, hz, None)
+            }
+            Command::Preset { name } => self.preset(now, &name),
+            Command::Profile { name } => {
+                let profile = (name != BASE_PROFILE).then_some(name);
+                match self.calibrations.get(profile.as_deref()) {
+                    None => Reply::Refused(Refusal::UnknownProfile {
+                        name: profile.unwrap_or_else(|| BASE_PROFILE.to_string()),
+                        known: self.calibrations.names(),
+                    }),
+                    Some(map) => {
+                        self.handle_calibration(now, profile, map);
+                        self.pending_reply()
+                    }
+                }
+            }
+            Command::Mark => self.mark(),
+            Command::Reload { calibrations } => match calibrations {
+                Err(error) => Reply::Refused(Refusal::Reload { error }),
+                Ok(cals) => match cals.get(self.profile.as_deref()) {
+                    None => Reply::Refused(Refusal::Reload {
+                        error: format!(
+                            "the profile in use, `{}`, is no longer in it",
+                            self.profile.as_deref().unwrap_or(BASE_PROFILE)
+                        ),
+                    }),
+                    Some(map) => {
+                        self.calibrations = cals;
+                        let profile = self.profile.clone();
+                        self.handle_calibration(now, profile, map);
+                        self.pending_reply()
+                    }
+                },
+            },
+        };
+        self.handle_timeout(now);
+        reply
+    }
+
+    /// Where an operator move counts from: where the motor is heading, or
+    /// resting.
+    fn move_base(&self) -> Result<i64, Refusal> {
+        if self.closing {
+            return Err(Refusal::ShuttingDown);
+        }
+        match (
+            self.want.filter(|t| t.manual).map(|t| t.steps),
+            self.position,
+        ) {
+            (_, None) if self.fault => Err(Refusal::Fault),
+            (_, None) => Err(Refusal::PositionUnknown),
+            (Some(w), Some(_)) => Ok(w),
+            (None, Some(p)) => Ok(match self.motion {
+                Motion::Moving { target, .. } => target.steps,
+                _ => p,
+            }),
+        }
+    }
+
+    /// A move the operator asked for, to `steps`, for `hz` (the rig's
+    /// frequency, if known) tuning the loop for `tune_hz` (`None`: it stays
+    /// tuned for what it was).
+    fn operator_move(
+        &mut self,
+        now: Duration,
+        steps: i64,
+        hz: Option<u64>,
+        tune_hz: Option<u64>,
+    ) -> Reply {
+        if let Err(r) = self.move_base() {
+            return Reply::Refused(r);
+        }
+        let (min, max) = (self.policy.min_steps, self.policy.max_steps);
+        if !(min..=max).contains(&steps) {
+            return Reply::Refused(Refusal::OutsideLimits {
+                wanted: steps,
+                min,
+                max,
+            });
+        }
+        let hz = hz.unwrap_or(0);
+        self.touchup = None;
+        self.last_hold = None;
+        let tune = tune_hz.or(self.tuned_hz);
+        self.want = Some(Target {
+            hz,
+            tune_hz: tune.unwrap_or(hz),
+            steps,
+            manual: true,
+            retunes: tune.is_some(),
+        });
+        if tune_hz.is_some() {
+            // Tuned for the preset from now on; the rig's next settled
+            // frequency is decided against it.
+            self.tuned_hz = tune_hz;
+        }
+        self.try_start(now);
+        self.pending_reply()
+    }
+
+    fn preset(&mut self, now: Duration, name: &str) -> Reply {
+        let Some(preset) = self.presets.iter().find(|p| p.name == name).cloned() else {
+            return Reply::Refused(Refusal::UnknownPreset {
+                name: name.to_string(),
+                known: self.presets.iter().map(|p| p.name.clone()).collect(),
+            });
+        };
+        match preset.goal {
+            PresetGoal::Steps(steps) => {
+                let hz = self.settled_hz.or(self.tuned_hz);
+                self.operator_move(now, steps, hz, None)
+            }
+            PresetGoal::Hz(hz) => {
+                let tune_hz = match self.policy.place(hz) {
+                    Placement::Inside { .. } => hz,
+                    Placement::Guard { edge_hz, .. } => edge_hz,
+                    Placement::Outside => return Reply::Refused(Refusal::OutOfBand { hz }),
+                };
+                let raw = self.map.steps_at(tune_hz as f64);
+                if !raw.is_finite() || raw.abs() > 1e15 {
+                    return Reply::Refused(Refusal::Calibration { hz });
+                }
+                self.operator_move(now, raw.round() as i64, Some(hz), Some(tune_hz))
+            }
+        }
+    }
+
+    fn mark(&mut self) -> Reply {
+        let Some(steps) = self.position else {
+            return Reply::Refused(if self.fault {
+                Refusal::Fault
+            } else {
+                Refusal::PositionUnknown
+            });
+        };
+        if self.is_moving() {
+            return Reply::Refused(Refusal::Moving);
+        }
+        let Some(hz) = self.pending.map(|p| p.hz).or(self.settled_hz) else {
+            return Reply::Refused(Refusal::NoFrequency);
+        };
+        self.actions.push_back(Action::Candidate {
+            hz,
+            steps,
+            profile: self.profile.clone(),
+        });
+        Reply::Done
+    }
+
+    /// What a move just asked for waits for, if anything.
+    fn pending_reply(&self) -> Reply {
+        let Some(t) = self.want else {
+            return Reply::Done;
+        };
+        let until = if self.paused && !t.manual {
+            Wait::Resume
+        } else if matches!(self.motion, Motion::Moving { .. } | Motion::Stopping) {
+            Wait::Rest
+        } else if let Some(blocked) = self.rig_blocks() {
+            match blocked {
+                HoldReason::RigSilent => Wait::RigHeard,
+                _ => Wait::Receive,
+            }
+        } else if self.position.is_none() {
+            return Reply::Refused(if self.fault {
+                Refusal::Fault
+            } else {
+                Refusal::PositionUnknown
+            });
+        } else {
+            // Arming: the inhibit's lead runs, the first step follows.
+            return Reply::Done;
+        };
+        Reply::Queued { until }
+    }
+
+    /// The state, for the operator.
+    pub fn status(&self) -> Status {
+        let rig_hz = self.pending.map(|p| p.hz).or(self.settled_hz);
+        let band = rig_hz.and_then(|hz| match self.policy.place(hz) {
+            Placement::Inside { band } | Placement::Guard { band, .. } => {
+                self.policy.bands.get(band).map(|b| b.name.clone())
+            }
+            Placement::Outside => None,
+        });
+        Status {
+            position: self.position,
+            heading: match self.motion {
+                Motion::Moving { target, .. } => Some(target.steps),
+                _ => None,
+            },
+            min_steps: self.policy.min_steps,
+            max_steps: self.policy.max_steps,
+            rig_hz,
+            band,
+            tuned_hz: self.tuned_hz,
+            moving: self.is_moving(),
+            inhibit: self.inhibit,
+            transmitting: self.transmitting(),
+            rig_silent: self.rig_silent,
+            paused: self.paused,
+            fault: self.fault,
+            profile: self.profile.clone(),
+            profiles: self.calibrations.names(),
+            presets: self.presets.clone(),
+            shutting_down: self.closing,
+        }
+    }
+
+    /// The presets and calibrations the operator's commands can choose from,
+    /// and the profile in use at start (its map is the one given to
+    /// [`Follower::new`]).
+    pub fn with_operator(
+        mut self,
+        presets: Vec<Preset>,
+        calibrations: Calibrations,
+        profile: Option<String>,
+    ) -> Self {
+        self.presets = presets;
+        self.calibrations = calibrations;
+        self.profile = profile;
+        self
     }
 
     /// Time has passed: act on whatever deadline is due.
@@ -791,14 +1082,20 @@ impl Follower {
                 return;
             }
         }
-        self.want = Some(Target { hz, tune_hz, steps });
+        self.want = Some(Target {
+            hz,
+            tune_hz,
+            steps,
+            manual: false,
+            retunes: true,
+        });
         self.try_start(now);
     }
 
     /// Starts the wanted move if everything allows it now.
     fn try_start(&mut self, now: Duration) {
         let Some(target) = self.want else { return };
-        if self.paused {
+        if self.paused && (!target.manual || self.closing) {
             self.hold(target.hz, HoldReason::Paused);
             return;
         }
@@ -888,7 +1185,10 @@ impl Follower {
     /// The motor is at rest: start the next wanted move, or begin the
     /// inhibit tail.
     fn after_rest(&mut self, now: Duration) {
-        if self.want.is_some() && self.rig_blocks().is_none() && !self.paused {
+        let may_go = self
+            .want
+            .is_some_and(|t| !self.paused || (t.manual && !self.closing));
+        if may_go && self.rig_blocks().is_none() {
             self.try_start(now);
             if self.is_moving() {
                 return;
@@ -974,3 +1274,7 @@ mod jump_tests;
 mod tests;
 #[cfg(test)]
 mod truth_tests;
+
+#[cfg(test)]
+#[path = "command_tests.rs"]
+mod command_tests;

@@ -33,7 +33,7 @@ use std::time::Duration;
 
 use super::station::{self, StationEvent};
 use super::Approach;
-use super::{Effects, Follower, HoldReason};
+use super::{Command, Effects, Follower, HoldReason, Policy, Refusal, Reply};
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::tuner::{TunerCommand, TunerEvent};
@@ -57,6 +57,11 @@ pub struct SessionSettings {
     /// At a clean shutdown after a completed approach, back off half the
     /// backlash toward the approach side.
     pub relax_on_exit: bool,
+    /// The counts this controller can report after a restart (power-on
+    /// counts: 0 for a controller board, the lower limit for the direct
+    /// drive, the simulator's start). Only a differing count among these
+    /// is taken for a restart and given the journal's position with `ZERO`.
+    pub restart_counts: [i64; 3],
 }
 
 impl SessionSettings {
@@ -75,9 +80,10 @@ pub enum Output {
     Command(TunerCommand),
     /// Set the inhibit output; answer with [`Session::handle_inhibit_result`].
     Inhibit { on: bool },
-    /// Record (fsync) a move's intent; answer with
-    /// [`Session::handle_journal_result`].
-    JournalIntent { from: i64, to: i64 },
+    /// Record (fsync) the intent of the leg about to be sent (always an
+    /// unfinished move: [`Recorded::Unknown`] or [`Recorded::Approach`]);
+    /// answer with [`Session::handle_journal_result`].
+    JournalIntent(Recorded),
     /// Record (fsync) the position at rest; answer with
     /// [`Session::handle_journal_result`].
     JournalPosition { steps: i64 },
@@ -116,9 +122,20 @@ pub enum Note {
         position: i64,
     },
     JournalUnfinished {
-        from: i64,
-        to: i64,
+        unfinished: Recorded,
     },
+    /// The controller's report after an unfinished move is trusted.
+    Trusted {
+        steps: i64,
+        why: &'static str,
+    },
+    /// The controller's report lies on the path of the leg under way: a
+    /// `STOP` makes sure the motor is at rest before it is trusted.
+    OnPathStopping {
+        steps: i64,
+    },
+    /// At exit the motor was not confirmed at rest: the inhibit stays on.
+    InhibitKept,
     Inhibit {
         on: bool,
     },
@@ -193,6 +210,12 @@ pub enum Note {
         journal: i64,
         controller: i64,
     },
+    /// The controller's count differs from a clean journal and is no count
+    /// it restarts from: position unknown.
+    CountNoRestart {
+        journal: i64,
+        controller: i64,
+    },
     PositionUnknown {
         from: i64,
         to: i64,
@@ -218,6 +241,19 @@ pub enum Note {
         from: i64,
         to: i64,
     },
+    /// The rig started or stopped transmitting (as its reports say).
+    Transmit {
+        on: bool,
+    },
+    /// A move ended with the motor at rest here.
+    Arrived {
+        steps: i64,
+    },
+    /// An operator command and what became of it (`Status` is not noted).
+    Command {
+        name: &'static str,
+        reply: Reply,
+    },
 }
 
 fn plain(level: Level, text: &'static str) -> Output {
@@ -236,6 +272,9 @@ pub struct RunSummary {
     /// Times a timer of the session's own was due (a core deadline or a
     /// `WHERE` retry); with no traffic and nothing due this stays 0.
     pub timer_wakeups: u64,
+    /// The journal keeps an unfinished move: where the motor is was not
+    /// confirmed by the controller (the exit status says so).
+    pub unconfirmed: bool,
 }
 
 /// Where the session is in bringing its position in line with the
@@ -251,6 +290,9 @@ enum Resync {
     },
     /// `ZERO p` was sent; waiting for `At p`.
     AwaitZero(i64),
+    /// The controller reported a position on the path of the unfinished
+    /// move's leg; `STOP` was sent, and its `At` is checked again.
+    AwaitStop,
     /// The position cannot be trusted (unfinished move in the journal):
     /// positions reported are ignored until the link comes up again.
     Blocked,
@@ -267,12 +309,27 @@ struct Leg {
 /// The write whose result the session waits for.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum Awaiting {
-    CoreInhibit { on: bool },
+    CoreInhibit {
+        on: bool,
+    },
     StartRelease,
-    MoveIntent { from: i64, to: i64 },
-    Position { steps: i64 },
-    RelaxInhibit { from: i64, to: i64 },
-    RelaxIntent { from: i64, to: i64 },
+    MoveIntent(Recorded),
+    /// The final leg's intent; its `GOTO` goes once it is on disk.
+    LegIntent {
+        intent: Recorded,
+        steps: i64,
+    },
+    Position {
+        steps: i64,
+    },
+    RelaxInhibit {
+        from: i64,
+        to: i64,
+    },
+    RelaxIntent {
+        from: i64,
+        to: i64,
+    },
     FinalRelease,
 }
 
@@ -311,6 +368,10 @@ enum Phase {
     },
     /// Record the position.
     Closing,
+    /// The inhibit tail of the last move's arrival runs out.
+    Tail {
+        until: Duration,
+    },
     /// Release the inhibit.
     Release,
     Finished,
@@ -331,7 +392,21 @@ impl Phase {
 /// applied to it through [`Effects`] while the core is borrowed).
 struct Shell {
     settings: SessionSettings,
+    /// The core's policy (for a move's legs).
+    policy: Policy,
     inhibit_lead: Duration,
+    /// When the inhibit output last returned from being set *on*: no
+    /// `GOTO` leaves earlier than `inhibit_lead` after it.
+    inhibit_set_at: Option<Duration>,
+    /// A `GOTO` held back until the inhibit's lead has passed.
+    pending_goto: Option<(i64, Duration)>,
+    /// The controller's last word was `AT` (the motor at rest) and no
+    /// `GOTO` has been sent since.
+    at_rest: bool,
+    /// When the last move of the core ended with its arrival.
+    last_arrival: Option<Duration>,
+    /// The `STOP` of the start-up check has been sent.
+    resync_stopped: bool,
     /// The inhibit output has accepted *on* and not been set off since.
     inhibit_on: bool,
     /// What the journal says (kept in step with every write).
@@ -372,6 +447,34 @@ impl Shell {
     fn note(&mut self, n: Note) {
         self.push(Output::Log(n));
     }
+
+    /// `steps` lies on the straight path of `r`'s leg under way, past its
+    /// start, and is no count a controller starts from after a restart
+    /// ([`SessionSettings::restart_counts`]): a controller that
+    /// reports the leg's start never moved or lost its count, and one that
+    /// reports a power-on count may have restarted, so neither is proof.
+    fn on_leg_path(&self, r: Recorded, steps: i64) -> bool {
+        r.leg_path()
+            .is_some_and(|p| p.contains(steps) && steps != p.start)
+            && !self.settings.restart_counts.contains(&steps)
+    }
+
+    /// Sends a leg's `GOTO`, or holds it back until `inhibit_lead` has
+    /// passed since the inhibit line was actually set.
+    fn send_goto(&mut self, now: Duration, steps: i64) {
+        let due = self.inhibit_set_at.map_or(now, |t| t + self.inhibit_lead);
+        if now < due {
+            self.pending_goto = Some((steps, due));
+            return;
+        }
+        self.leg = Some(Leg {
+            from: self.core_position.unwrap_or(steps),
+            to: steps,
+            sent: now,
+        });
+        self.at_rest = false;
+        self.push(Output::Command(TunerCommand::Goto(steps)));
+    }
 }
 
 /// The live service's decisions. See the module documentation.
@@ -398,7 +501,14 @@ impl Session {
         let inhibit_lead = core.policy().inhibit_lead;
         let mut st = Shell {
             settings,
+            policy: core.policy().clone(),
             inhibit_lead,
+            // Opened asserted before the session began.
+            inhibit_set_at: Some(Duration::ZERO),
+            pending_goto: None,
+            at_rest: false,
+            last_arrival: None,
+            resync_stopped: false,
             inhibit_on: true,
             recorded,
             resync: Resync::Idle,
@@ -420,7 +530,7 @@ impl Session {
         };
         st.note(match recorded {
             Some(Recorded::Known(p)) => Note::JournalKnown { position: p },
-            Some(Recorded::Unknown { from, to }) => Note::JournalUnfinished { from, to },
+            Some(unfinished) => Note::JournalUnfinished { unfinished },
             None => Note::Plain {
                 level: Level::Info,
                 text: "journal: none yet; the controller's count will be taken",
@@ -535,8 +645,13 @@ impl Session {
     /// link's own interlock is told whether the rig transmits, or may.
     fn set_station(&mut self, now: Duration, ev: StationEvent) {
         let before = self.core.rig_may_transmit();
+        let was_transmitting = self.core.transmitting();
         self.core.handle_station(now, ev);
         let after = self.core.rig_may_transmit();
+        let transmitting = self.core.transmitting();
+        if transmitting != was_transmitting {
+            self.st.note(Note::Transmit { on: transmitting });
+        }
         if matches!(ev, StationEvent::Transmit { .. }) || before != after {
             self.st.push(Output::Transmit { on: after });
         }
@@ -545,6 +660,11 @@ impl Session {
     /// An event from the controller link.
     pub fn handle_tuner(&mut self, now: Duration, ev: TunerEvent) {
         let now = self.clock(now);
+        match ev {
+            TunerEvent::At { .. } => self.st.at_rest = true,
+            TunerEvent::Accepted { .. } => self.st.at_rest = false,
+            _ => {}
+        }
         match self.st.phase {
             p if p.follows() => self.tuner_event(now, ev),
             Phase::StopWait { .. } | Phase::RelaxMoving { .. } | Phase::RelaxStopWait { .. } => {
@@ -587,13 +707,34 @@ impl Session {
             return;
         }
         self.st.stopping = true;
-        self.core.handle_pause(now, true);
+        self.core.handle_closing(now);
         if matches!(self.st.phase, Phase::Starting | Phase::Running) {
             self.st.phase = Phase::Finishing {
                 since: now,
                 announced: false,
             };
         }
+    }
+
+    /// An operator command, from any front end: the core decides it (see
+    /// [`Follower::handle_command`]); once shutdown was asked only `Status`
+    /// is answered. Drain [`Session::poll_output`] afterwards as after any
+    /// event: a move it asked for comes out as the same outputs as any other.
+    pub fn handle_command(&mut self, now: Duration, cmd: Command) -> Reply {
+        let now = self.clock(now);
+        let name = cmd.name();
+        let reply = match cmd {
+            Command::Status => return Reply::Status(Box::new(self.status())),
+            _ if self.st.stopping || !self.st.phase.follows() => {
+                Reply::Refused(Refusal::ShuttingDown)
+            }
+            cmd => self.core.handle_command(now, cmd),
+        };
+        self.st.note(Note::Command {
+            name,
+            reply: reply.clone(),
+        });
+        reply
     }
 
     /// Time has passed: act on whatever is due.
@@ -606,6 +747,15 @@ impl Session {
                     self.st.retry_where = None;
                     self.st.push(Output::Command(TunerCommand::Where));
                     woke = true;
+                }
+                if let Some((steps, due)) = self.st.pending_goto {
+                    if now >= due {
+                        self.st.pending_goto = None;
+                        woke = true;
+                        if self.core.is_moving() && self.st.inhibit_on && !self.st.block_gotos {
+                            self.st.send_goto(now, steps);
+                        }
+                    }
                 }
                 if self.core.poll_timeout().is_some_and(|t| now >= t) {
                     self.core.handle_timeout(now);
@@ -631,10 +781,11 @@ impl Session {
             Phase::RelaxLead { until, from, to } if now >= until => {
                 self.st.phase = Phase::RelaxAsked;
                 self.st.ask(
-                    Output::JournalIntent { from, to },
+                    Output::JournalIntent(Recorded::Unknown { from, to }),
                     Awaiting::RelaxIntent { from, to },
                 );
             }
+            Phase::Tail { until } if now >= until => self.st.phase = Phase::Release,
             _ => {}
         }
     }
@@ -647,6 +798,10 @@ impl Session {
         };
         match (a, result) {
             (Awaiting::CoreInhibit { on }, Ok(())) => {
+                if on && !self.st.inhibit_on {
+                    // The lead counts from here, when the line is set.
+                    self.st.inhibit_set_at = Some(now);
+                }
                 self.st.inhibit_on = on;
                 self.st.note(Note::Inhibit { on });
             }
@@ -668,6 +823,7 @@ impl Session {
             (Awaiting::FinalRelease, Err(error)) => self.st.note(Note::ReleaseFailed { error }),
             (Awaiting::RelaxInhibit { from, to }, Ok(())) => {
                 self.st.inhibit_on = true;
+                self.st.inhibit_set_at = Some(now);
                 self.st.note(Note::Inhibit { on: true });
                 self.st.phase = Phase::RelaxLead {
                     until: now + self.st.inhibit_lead,
@@ -692,8 +848,8 @@ impl Session {
             return;
         };
         match (a, result) {
-            (Awaiting::MoveIntent { from, to }, Ok(())) => {
-                self.st.recorded = Some(Recorded::Unknown { from, to });
+            (Awaiting::MoveIntent(intent), Ok(())) => {
+                self.st.recorded = Some(intent);
                 if self.st.inhibit_on {
                     self.st.block_gotos = false;
                 } else {
@@ -705,10 +861,20 @@ impl Session {
                     self.fault(now, true);
                 }
             }
-            (Awaiting::MoveIntent { .. }, Err(error)) => {
+            (Awaiting::MoveIntent(_) | Awaiting::LegIntent { .. }, Err(error)) => {
                 self.st.note(Note::IntentFailed { error });
                 self.st.block_gotos = true;
                 self.fault(now, true);
+            }
+            (Awaiting::LegIntent { intent, steps }, Ok(())) => {
+                self.st.recorded = Some(intent);
+                if self.st.inhibit_on && !self.st.block_gotos && self.core.is_moving() {
+                    self.st.send_goto(now, steps);
+                } else if !self.st.inhibit_on {
+                    self.st.note(Note::GotoWithoutInhibit { steps });
+                    self.st.block_gotos = true;
+                    self.fault(now, true);
+                }
             }
             (Awaiting::Position { steps }, Ok(())) => {
                 self.st.recorded = Some(Recorded::Known(steps))
@@ -720,6 +886,7 @@ impl Session {
                 self.st.recorded = Some(Recorded::Unknown { from, to });
                 self.st.note(Note::RelaxBegin { from, to });
                 self.st.tensioned = false;
+                self.st.at_rest = false;
                 self.st.push(Output::Command(TunerCommand::Goto(to)));
                 self.st.phase = Phase::RelaxMoving {
                     until: now + self.st.settings.travel(from.abs_diff(to)),
@@ -771,15 +938,21 @@ impl Session {
                     Phase::Finishing { .. } if self.core.is_moving() => Some(self.move_deadline()),
                     _ => None,
                 };
-                [self.core.poll_timeout(), self.st.retry_where, finishing]
-                    .into_iter()
-                    .flatten()
-                    .min()
+                [
+                    self.core.poll_timeout(),
+                    self.st.retry_where,
+                    finishing,
+                    self.st.pending_goto.map(|(_, due)| due),
+                ]
+                .into_iter()
+                .flatten()
+                .min()
             }
             Phase::StopWait { until }
             | Phase::RelaxMoving { until }
             | Phase::RelaxStopWait { until }
-            | Phase::RelaxLead { until, .. } => Some(until),
+            | Phase::RelaxLead { until, .. }
+            | Phase::Tail { until } => Some(until),
             _ => None,
         }
     }
@@ -795,8 +968,17 @@ impl Session {
         RunSummary {
             position: self.core.position(),
             moves: self.core.stats().moves,
+            unconfirmed: self.st.recorded.is_some_and(|r| r.is_unfinished())
+                || self.st.resync == Resync::Blocked,
             ..self.st.outcome.clone()
         }
+    }
+
+    /// The state, as `Status` answers it.
+    pub fn status(&self) -> super::Status {
+        let mut s = self.core.status();
+        s.shutting_down |= self.st.stopping;
+        s
     }
 
     /// The core, for inspection.
@@ -845,7 +1027,13 @@ impl Session {
                     self.fault(now, true);
                 }
             }
-            TunerEvent::At { steps } => match self.st.resync {
+            TunerEvent::At { steps } => self.tuner_at(now, steps),
+        }
+    }
+
+    fn tuner_at(&mut self, now: Duration, steps: i64) {
+        {
+            match self.st.resync {
                 Resync::AwaitWhere {
                     after_link_up: true,
                 } => self.resync_where(now, steps),
@@ -871,24 +1059,37 @@ impl Session {
                         self.fault(now, true);
                     }
                 }
+                Resync::AwaitStop => {
+                    self.st.resync = Resync::Idle;
+                    self.check_unfinished(now, steps);
+                }
                 Resync::Blocked => self.st.note(Note::Untrusted { steps }),
                 Resync::Idle => {
+                    let was_moving = self.core.is_moving();
                     self.core.handle_arrived(now, steps);
+                    if was_moving && !self.core.is_moving() {
+                        self.st.note(Note::Arrived { steps });
+                    }
                     if !self.core.is_moving() {
+                        if was_moving {
+                            self.st.last_arrival = Some(now);
+                        }
                         self.st.tensioned = self.st.final_to == Some(steps);
                         self.st.leg = None;
                         self.st.final_to = None;
                         self.record_position(steps);
                     }
                 }
-            },
+            }
         }
     }
 
     fn resync_where(&mut self, now: Duration, steps: i64) {
         self.st.resync = Resync::Idle;
         match self.st.recorded {
-            Some(Recorded::Known(p)) if p != steps => {
+            Some(Recorded::Known(p))
+                if p != steps && self.st.settings.restart_counts.contains(&steps) =>
+            {
                 self.st.note(Note::CountDiffers {
                     journal: p,
                     controller: steps,
@@ -896,18 +1097,79 @@ impl Session {
                 self.st.resync = Resync::AwaitZero(p);
                 self.st.push(Output::Command(TunerCommand::Zero(p)));
             }
-            Some(Recorded::Unknown { from, to }) if steps != to => {
+            Some(Recorded::Known(p)) if p != steps => {
+                // Not a count it restarts from: it lost steps, or the motor
+                // was moved while we were away. No ZERO: nothing moves.
                 self.st.resync = Resync::Blocked;
                 if !self.st.unknown_reported {
                     self.st.unknown_reported = true;
-                    self.st.note(Note::PositionUnknown {
-                        from,
-                        to,
+                    self.st.note(Note::CountNoRestart {
+                        journal: p,
                         controller: steps,
                     });
                 }
             }
+            Some(r) if r.is_unfinished() => {
+                let on_path = self.st.on_leg_path(r, steps);
+                if r.leg_targets().contains(&steps) {
+                    self.st.note(Note::Trusted {
+                        steps,
+                        why: "the controller reports a target of the unfinished move's legs",
+                    });
+                    self.accept(now, steps);
+                } else if on_path && !self.st.resync_stopped {
+                    // Between the leg's start and its target: trusted only
+                    // at rest, so make sure it is.
+                    self.st.resync_stopped = true;
+                    self.st.note(Note::OnPathStopping { steps });
+                    self.st.resync = Resync::AwaitStop;
+                    self.st.push(Output::Command(TunerCommand::Stop));
+                } else {
+                    self.check_unfinished(now, steps);
+                }
+            }
             _ => self.accept(now, steps),
+        }
+    }
+
+    /// The controller, at rest (after a `STOP`, or as it reported), says
+    /// `steps`; the journal holds an unfinished move. A target of its legs
+    /// or a point on the straight path of the leg under way is where the
+    /// motor can be; anything else is evidence that counts were lost (or
+    /// the controller restarted), and the position stays unknown.
+    fn check_unfinished(&mut self, now: Duration, steps: i64) {
+        let Some(r) = self.st.recorded.filter(|r| r.is_unfinished()) else {
+            self.accept(now, steps);
+            return;
+        };
+        if r.leg_targets().contains(&steps) {
+            self.st.note(Note::Trusted {
+                steps,
+                why: "the controller reports a target of the unfinished move's legs",
+            });
+            self.accept(now, steps);
+        } else if self.st.resync_stopped && self.st.on_leg_path(r, steps) {
+            self.st.note(Note::Trusted {
+                steps,
+                why: "at rest after STOP on the straight path of the leg under way",
+            });
+            self.accept(now, steps);
+        } else {
+            self.st.resync = Resync::Blocked;
+            if !self.st.unknown_reported {
+                self.st.unknown_reported = true;
+                let (from, to) = match r {
+                    Recorded::Unknown { from, to } | Recorded::Approach { from, to, .. } => {
+                        (from, to)
+                    }
+                    Recorded::Known(p) => (p, p),
+                };
+                self.st.note(Note::PositionUnknown {
+                    from,
+                    to,
+                    controller: steps,
+                });
+            }
         }
     }
 
@@ -934,6 +1196,7 @@ impl Session {
     fn fault(&mut self, now: Duration, ask_again: bool) {
         let st = &mut self.st;
         st.outcome.faults += 1;
+        st.pending_goto = None;
         st.leg = None;
         st.final_to = None;
         st.tensioned = false;
@@ -974,9 +1237,17 @@ impl Session {
             "shutting down: the move did not finish in time; stopping the motor",
         ));
         self.st.tensioned = false;
+        self.st.pending_goto = None;
         self.st.push(Output::Command(TunerCommand::Stop));
+        // A controller that does not take the STOP may still finish the
+        // leg and say so: wait out the leg's remaining travel time plus the
+        // margin (at least STOP_WAIT) before giving up on knowing.
+        let s = self.st.settings;
+        let leg_end = self.st.leg.map_or(Duration::ZERO, |leg| {
+            leg.sent + s.travel(leg.from.abs_diff(leg.to)) + s.reply_margin
+        });
         self.st.phase = Phase::StopWait {
-            until: self.st.now + STOP_WAIT,
+            until: (self.st.now + STOP_WAIT).max(leg_end),
         };
     }
 
@@ -1057,7 +1328,7 @@ impl Session {
         }
         if self.st.inhibit_on {
             self.st.ask(
-                Output::JournalIntent { from: p, to },
+                Output::JournalIntent(Recorded::Unknown { from: p, to }),
                 Awaiting::RelaxIntent { from: p, to },
             );
         } else {
@@ -1132,15 +1403,32 @@ impl Session {
                 true
             }
             Phase::Closing => {
-                self.st.phase = Phase::Release;
+                // The tail after the last move's arrival is honoured.
+                let tail = self
+                    .st
+                    .last_arrival
+                    .map(|t| t + self.core.policy().inhibit_tail)
+                    .filter(|until| *until > now);
+                self.st.phase = match tail {
+                    Some(until) if self.st.inhibit_on => Phase::Tail { until },
+                    _ => Phase::Release,
+                };
                 if let Some(p) = self.core.position() {
                     self.record_position(p);
                 }
                 true
             }
+            Phase::Tail { .. } if self.st.link_gone => {
+                self.st.phase = Phase::Release;
+                true
+            }
             Phase::Release => {
                 self.st.phase = Phase::Finished;
-                if self.st.inhibit_on || self.core.inhibit() {
+                if (self.st.inhibit_on || self.core.inhibit()) && !self.st.at_rest {
+                    // The motor may still be turning: a fail-safe line
+                    // stays asserted when the process lets go of it.
+                    self.st.note(Note::InhibitKept);
+                } else if self.st.inhibit_on || self.core.inhibit() {
                     self.st
                         .ask(Output::Inhibit { on: false }, Awaiting::FinalRelease);
                 }
@@ -1186,10 +1474,18 @@ impl Effects for Shell {
         });
         self.final_to = Some(to);
         self.tensioned = false;
-        self.ask(
-            Output::JournalIntent { from, to },
-            Awaiting::MoveIntent { from, to },
-        );
+        // The first leg's intent: every leg target and the move's start.
+        let legs = self.policy.legs(from, to);
+        let intent = match legs.then {
+            Some(_) => Recorded::Approach {
+                from,
+                via: legs.first,
+                to,
+                final_leg: false,
+            },
+            None => Recorded::Unknown { from, to },
+        };
+        self.ask(Output::JournalIntent(intent), Awaiting::MoveIntent(intent));
         Ok(())
     }
 
@@ -1200,19 +1496,34 @@ impl Effects for Shell {
             self.note(Note::GotoWithoutInhibit { steps });
             self.block_gotos = true;
             self.fault_request = Some(true);
+        } else if let Some(Recorded::Approach {
+            from,
+            via,
+            to,
+            final_leg: false,
+        }) = self.recorded.filter(|_| self.final_to == Some(steps))
+        {
+            // The final leg: the controller has said the motor is at the
+            // overshoot; that goes on disk before the leg is sent.
+            let intent = Recorded::Approach {
+                from,
+                via,
+                to,
+                final_leg: true,
+            };
+            self.ask(
+                Output::JournalIntent(intent),
+                Awaiting::LegIntent { intent, steps },
+            );
         } else {
-            self.leg = Some(Leg {
-                from: self.core_position.unwrap_or(steps),
-                to: steps,
-                sent: now,
-            });
-            self.push(Output::Command(TunerCommand::Goto(steps)));
+            self.send_goto(now, steps);
         }
         Ok(())
     }
 
     fn stop(&mut self, _now: Duration) -> Result<(), Self::Error> {
         self.tensioned = false;
+        self.pending_goto = None;
         self.leg = None;
         self.push(Output::Command(TunerCommand::Stop));
         Ok(())

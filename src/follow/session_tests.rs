@@ -20,6 +20,9 @@ impl StepMap for Line {
     }
 }
 
+/// The policy's inhibit tail.
+const TAIL: Duration = Duration::from_millis(50);
+
 fn ms(v: u64) -> Duration {
     Duration::from_millis(v)
 }
@@ -41,7 +44,7 @@ fn policy(backlash: i64) -> Policy {
         debounce: ms(30),
         min_move_steps: 3,
         inhibit_lead: ms(5),
-        inhibit_tail: ms(50),
+        inhibit_tail: TAIL,
         candidate_dwell: ms(5_000),
         // These rules model a station with an inhibit line wired; the
         // start-up hold until tuned has tests of its own.
@@ -65,6 +68,19 @@ struct Bench {
     /// Every command sent to the controller, in order.
     commands: Vec<TunerCommand>,
     transmit: Vec<bool>,
+    /// How long the inhibit line takes to set (the bench's clock moves on
+    /// by this before the write returns).
+    inhibit_delay: Duration,
+    /// Every command with when it went, and every inhibit level with when
+    /// its write returned, in order.
+    timed: Vec<(Duration, Wire)>,
+}
+
+/// What the bench saw on its wires, with [`Bench::timed`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Wire {
+    Command(TunerCommand),
+    Level(bool),
 }
 
 impl Bench {
@@ -75,6 +91,8 @@ impl Bench {
             settle: ms(10),
             reply_margin: ms(500),
             relax_on_exit: relax,
+            // A controller board counts from 0 after power-on.
+            restart_counts: [0, 0, 0],
         };
         let core = Follower::new(policy(backlash), Arc::new(Line), None);
         let s = Session::new(core, dialect.decoder(None), journal, settings);
@@ -88,6 +106,8 @@ impl Bench {
             levels: Vec::new(),
             commands: Vec::new(),
             transmit: Vec::new(),
+            inhibit_delay: Duration::ZERO,
+            timed: Vec::new(),
         };
         b.pump();
         b
@@ -111,8 +131,13 @@ impl Bench {
     fn pump(&mut self) {
         while let Some(o) = self.s.poll_output() {
             match o {
-                Output::Command(c) => self.commands.push(c),
+                Output::Command(c) => {
+                    self.timed.push((self.now, Wire::Command(c)));
+                    self.commands.push(c)
+                }
                 Output::Inhibit { on } => {
+                    self.now += self.inhibit_delay;
+                    self.timed.push((self.now, Wire::Level(on)));
                     self.levels.push(on);
                     let r = if self.fail_inhibit {
                         Err("line stuck".to_string())
@@ -121,8 +146,8 @@ impl Bench {
                     };
                     self.s.handle_inhibit_result(self.now, r);
                 }
-                Output::JournalIntent { from, to } => {
-                    let r = self.write(Recorded::Unknown { from, to });
+                Output::JournalIntent(intent) => {
+                    let r = self.write(intent);
                     self.s.handle_journal_result(self.now, r);
                 }
                 Output::JournalPosition { steps } => {
@@ -301,7 +326,10 @@ fn shutdown_without_an_answer_to_stop_keeps_the_unfinished_move() {
     b.wait(ms(310) + STOP_WAIT);
     assert!(b.s.is_finished());
     assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 1000 }));
-    assert_eq!(b.levels.last(), Some(&false));
+    // Changed by issue 11: the motor was never confirmed at rest, so the
+    // inhibit stays asserted at exit (it was released here before).
+    assert_eq!(b.levels.last(), Some(&true));
+    assert!(b.s.outcome().unconfirmed);
 }
 
 #[test]
@@ -422,6 +450,8 @@ fn follows_the_vfo_with_the_inhibit_around_the_move_and_journals_it() {
     b.tuner(TunerEvent::At { steps: 1000 });
     b.wait(ms(100));
     b.shutdown();
+    // Shutdown honours the inhibit tail after the arrival (issue 11).
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     let out = b.s.outcome();
     assert_eq!(out.position, Some(1000));
@@ -449,6 +479,8 @@ fn no_move_while_transmitting_then_the_move_on_receive() {
     b.tuner(TunerEvent::At { steps: 500 });
     assert_eq!(b.journal, Some(Recorded::Known(500)));
     b.shutdown();
+    // Shutdown honours the inhibit tail after the arrival (issue 11).
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     assert_eq!(b.s.outcome().position, Some(500));
 }
@@ -483,6 +515,8 @@ fn transmitting_mid_move_stops_the_motor_and_receive_finishes_the_move() {
     b.tuner(TunerEvent::At { steps: 1000 });
     assert_eq!(b.journal, Some(Recorded::Known(1000)));
     b.shutdown();
+    // Shutdown honours the inhibit tail after the arrival (issue 11).
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     let out = b.s.outcome();
     assert_eq!(out.position, Some(1000));
@@ -510,6 +544,8 @@ fn a_restarted_controller_is_given_the_journal_position() {
     b.tuner(TunerEvent::At { steps: 2500 });
     assert_eq!(b.journal, Some(Recorded::Known(2500)));
     b.shutdown();
+    // Shutdown honours the inhibit tail after the arrival (issue 11).
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     let out = b.s.outcome();
     assert_eq!(out.position, Some(2500));
@@ -579,6 +615,8 @@ fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
     b.tuner(TunerEvent::At { steps: 0 });
     assert_eq!(b.journal, Some(Recorded::Known(0)));
     b.shutdown();
+    // Shutdown honours the inhibit tail after the arrival (issue 11).
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     let out = b.s.outcome();
     assert_eq!(out.position, Some(0));
@@ -683,6 +721,8 @@ fn rig_port_down_mid_move_stops_it_and_the_move_finishes_when_back() {
     b.tuner(TunerEvent::At { steps: 1000 });
     assert_eq!(b.journal, Some(Recorded::Known(1000)));
     b.shutdown();
+    // Shutdown honours the inhibit tail after the arrival (issue 11).
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     let out = b.s.outcome();
     assert_eq!(out.position, Some(1000));
@@ -698,6 +738,7 @@ fn only_rejects_notes(chunks: &[(u64, &[u8])]) -> Vec<Note> {
         settle: ms(10),
         reply_margin: ms(500),
         relax_on_exit: false,
+        restart_counts: [0, 0, 0],
     };
     let core = Follower::new(policy(0), Arc::new(Line), None);
     let mut s = Session::new(core, dialect.decoder(None), None, settings);
@@ -736,4 +777,318 @@ fn rejects_alone_for_seconds_are_warned_of_once_with_the_counts() {
     mixed.insert(8, (1_900, b"FA00007100000;"));
     mixed.insert(16, (3_900, b"FA00007100000;"));
     assert!(only_rejects_notes(&mixed).is_empty());
+}
+
+// ---------------------------------------------------------------------
+// Issue 11: every leg journalled, nothing trusted unconfirmed, the inhibit
+// honest at the edges. Invariants are read from the bench's own records.
+// ---------------------------------------------------------------------
+
+/// A bench with a backlash approach upward (`backlash` steps), linked with
+/// the controller reporting `controller`.
+fn approach_bench(journal: Option<Recorded>, backlash: i64, controller: i64) -> Bench {
+    let mut b = Bench::new(journal, backlash, false);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: controller });
+    b.wait(ms(100));
+    b
+}
+
+#[test]
+fn each_leg_of_an_approach_is_journalled_before_its_goto() {
+    // Approach up, backlash 60: 2000 -> 1000 goes 2000 -> 940 -> 1000.
+    let mut b = approach_bench(Some(Recorded::Known(2000)), 60, 2000);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![940]);
+    let first = Recorded::Approach {
+        from: 2000,
+        via: 940,
+        to: 1000,
+        final_leg: false,
+    };
+    assert_eq!(b.journal, Some(first));
+    b.tuner(TunerEvent::At { steps: 940 });
+    assert_eq!(b.gotos(), vec![940, 1000]);
+    assert_eq!(
+        b.journal,
+        Some(Recorded::Approach {
+            from: 2000,
+            via: 940,
+            to: 1000,
+            final_leg: true,
+        })
+    );
+    b.tuner(TunerEvent::At { steps: 1000 });
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+}
+
+#[test]
+fn a_failed_final_leg_intent_sends_no_final_goto() {
+    let mut b = approach_bench(Some(Recorded::Known(2000)), 60, 2000);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.fail_journal = true;
+    b.tuner(TunerEvent::At { steps: 940 });
+    assert_eq!(b.gotos(), vec![940]);
+    assert!(b.s.outcome().faults >= 1);
+}
+
+#[test]
+fn at_start_a_leg_target_is_trusted_and_nothing_is_zeroed() {
+    let first = Recorded::Approach {
+        from: 2000,
+        via: 940,
+        to: 1000,
+        final_leg: false,
+    };
+    for controller in [940, 1000] {
+        let b = approach_bench(Some(first), 60, controller);
+        assert_eq!(b.s.core().position(), Some(controller));
+        assert_eq!(b.journal, Some(Recorded::Known(controller)));
+        assert!(
+            !b.commands
+                .iter()
+                .any(|c| matches!(c, TunerCommand::Zero(_))),
+            "{:?}",
+            b.commands
+        );
+    }
+}
+
+#[test]
+fn at_start_a_point_on_the_legs_path_is_trusted_only_at_rest_after_stop() {
+    let first = Recorded::Approach {
+        from: 2000,
+        via: 940,
+        to: 1000,
+        final_leg: false,
+    };
+    let mut b = approach_bench(Some(first), 60, 1500);
+    // Not yet: a STOP first.
+    assert_eq!(b.commands, vec![TunerCommand::Stop]);
+    assert_eq!(b.s.core().position(), None);
+    b.tuner(TunerEvent::At { steps: 1480 });
+    assert_eq!(b.s.core().position(), Some(1480));
+    assert_eq!(b.journal, Some(Recorded::Known(1480)));
+    b.wait(ms(100));
+    assert_eq!(b.levels.last(), Some(&false));
+}
+
+#[test]
+fn at_start_a_position_off_every_legs_path_is_unknown_and_never_zeroed() {
+    // The final leg (940 -> 1000) was under way: the move's start (2000)
+    // is off its path, and so is a restarted controller's 0.
+    let last = Recorded::Approach {
+        from: 2000,
+        via: 940,
+        to: 1000,
+        final_leg: true,
+    };
+    for controller in [0, 2000, 900, 1001] {
+        let mut b = approach_bench(Some(last), 60, controller);
+        b.frequency(7_200_000);
+        b.wait(ms(400));
+        assert_eq!(b.s.core().position(), None, "controller {controller}");
+        assert!(b.commands.is_empty(), "{:?}", b.commands);
+        assert_eq!(b.journal, Some(last));
+        assert_eq!(b.levels, vec![true]);
+    }
+    // After a STOP, a position that moved off the path is unknown too.
+    let mut b = approach_bench(Some(last), 60, 970);
+    assert_eq!(b.commands, vec![TunerCommand::Stop]);
+    b.tuner(TunerEvent::At { steps: 1200 });
+    assert_eq!(b.s.core().position(), None);
+    assert_eq!(b.journal, Some(last));
+}
+
+#[test]
+fn a_format_1_intent_is_checked_along_its_one_leg() {
+    let old = Recorded::Unknown {
+        from: 498,
+        to: 2900,
+    };
+    let b = approach_bench(Some(old), 0, 2900);
+    assert_eq!(b.s.core().position(), Some(2900));
+    let mut b = approach_bench(Some(old), 0, 1600);
+    b.tuner(TunerEvent::At { steps: 1600 });
+    assert_eq!(b.s.core().position(), Some(1600));
+}
+
+#[test]
+fn a_controller_at_the_legs_start_or_a_power_on_count_is_no_proof() {
+    // Killed mid-move from 0 and the controller power-cycled: it counts 0
+    // again, the move's start. That is no evidence of where the motor is.
+    let from_zero = Recorded::Unknown { from: 0, to: 1500 };
+    let mut b = approach_bench(Some(from_zero), 0, 0);
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    b.shutdown();
+    assert!(b.s.outcome().unconfirmed);
+    // The same for a move that started elsewhere.
+    let b = approach_bench(
+        Some(Recorded::Unknown {
+            from: 700,
+            to: 1500,
+        }),
+        0,
+        700,
+    );
+    assert_eq!(b.s.core().position(), None);
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+}
+
+#[test]
+fn shutdown_waits_the_legs_remaining_travel_for_a_controller_that_ignores_stop() {
+    // A slow leg: 2000 steps at 20 000 steps/s is 100 ms; shutdown at once.
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_200_000);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![2000]);
+    let sent = b
+        .timed
+        .iter()
+        .find(|(_, w)| *w == Wire::Command(TunerCommand::Goto(2000)))
+        .map(|(t, _)| *t)
+        .unwrap();
+    b.shutdown();
+    // The controller says nothing, STOP included, past STOP_WAIT ...
+    b.run_until(sent + ms(100 + 10 + 250) + STOP_WAIT - ms(1));
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Stop));
+    assert!(!b.s.is_finished());
+    // ... then reports where the motor is (it finished the move).
+    b.tuner(TunerEvent::At { steps: 2000 });
+    b.wait(TAIL);
+    assert!(b.s.is_finished());
+    assert_eq!(b.journal, Some(Recorded::Known(2000)));
+    assert!(!b.s.outcome().unconfirmed);
+}
+
+#[test]
+fn shutdown_with_a_silent_controller_keeps_the_move_and_the_inhibit() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_200_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::Accepted { target: 2000 });
+    b.shutdown();
+    b.wait(Duration::from_secs(10));
+    assert!(b.s.is_finished());
+    assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 2000 }));
+    assert_eq!(b.levels.last(), Some(&true), "released while it may move");
+    let out = b.s.outcome();
+    assert!(out.unconfirmed);
+    assert_eq!(out.position, None);
+}
+
+#[test]
+fn a_link_that_drops_in_shutdown_keeps_the_move_and_the_inhibit() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_200_000);
+    b.wait(ms(40));
+    b.shutdown();
+    b.tuner(TunerEvent::LinkDown {
+        reason: "gone".into(),
+    });
+    b.s.handle_tuner_gone(b.now);
+    b.pump();
+    b.wait(Duration::from_secs(10));
+    assert!(b.s.is_finished());
+    assert!(b.s.outcome().unconfirmed);
+    assert_eq!(b.levels.last(), Some(&true));
+    assert_eq!(b.journal, Some(Recorded::Unknown { from: 0, to: 2000 }));
+}
+
+#[test]
+fn shutdown_releases_the_inhibit_no_earlier_than_the_tail_after_the_arrival() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    let arrived = b.now;
+    b.wait(ms(10));
+    b.shutdown();
+    b.wait(ms(200));
+    assert!(b.s.is_finished());
+    let released = b
+        .timed
+        .iter()
+        .rev()
+        .find(|(_, w)| *w == Wire::Level(false))
+        .map(|(t, _)| *t)
+        .unwrap();
+    assert!(released >= arrived + TAIL, "{released:?} vs {arrived:?}");
+}
+
+#[test]
+fn a_goto_never_leaves_before_the_lead_after_the_line_was_set() {
+    // The line takes 4 ms to set (a slow relay driver); the lead is 5 ms.
+    let mut b = Bench::linked(None, 0);
+    b.inhibit_delay = ms(4);
+    b.frequency(7_100_000);
+    b.wait(ms(60));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(100));
+    // Twice: from a settle, and after a transmission deferred the move.
+    b.transmit(true);
+    b.frequency(7_200_000);
+    b.wait(ms(100));
+    b.transmit(false);
+    b.wait(ms(60));
+    assert_eq!(b.gotos(), vec![1000, 2000]);
+    let mut set_on = None;
+    for (t, w) in &b.timed {
+        match w {
+            Wire::Level(true) => set_on = Some(*t),
+            Wire::Level(false) => set_on = None,
+            Wire::Command(TunerCommand::Goto(n)) => {
+                let on = set_on.unwrap_or_else(|| panic!("GOTO {n} without the inhibit"));
+                assert!(*t >= on + ms(5), "GOTO {n} at {t:?}, line set at {on:?}");
+            }
+            Wire::Command(_) => {}
+        }
+    }
+}
+
+#[test]
+fn a_retune_in_the_tail_keeps_the_inhibit_on_until_the_new_target() {
+    let mut b = Bench::linked(None, 0);
+    b.frequency(7_100_000);
+    b.wait(ms(40));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    let arrived = b.now;
+    // 30 ms after the arrival, inside the 50 ms tail: another frequency.
+    b.wait(ms(30));
+    b.frequency(7_250_000);
+    b.wait(ms(100));
+    // A call now (130 ms after the arrival) must find the inhibit on: the
+    // loop is not tuned for the new frequency yet (checked below: one
+    // release after the arrival, once the new target is reached).
+    assert_eq!(b.gotos(), vec![1000, 2500]);
+    b.tuner(TunerEvent::At { steps: 2500 });
+    let reached = b.now;
+    b.wait(ms(200));
+    let released: Vec<Duration> = b
+        .timed
+        .iter()
+        .filter(|(t, w)| *w == Wire::Level(false) && *t > arrived)
+        .map(|(t, _)| *t)
+        .collect();
+    assert_eq!(released.len(), 1, "{:?}", b.timed);
+    assert!(released[0] >= reached + TAIL, "{:?}", b.timed);
+}
+
+#[test]
+fn a_differing_count_that_is_no_restart_count_is_unknown_not_zeroed() {
+    // The journal says 2000; the controller says 1234, not its power-on 0:
+    // it lost steps or was moved by hand, and ZERO would hide that.
+    let mut b = Bench::linked(Some(Recorded::Known(2000)), 1234);
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.levels, vec![true]);
+    assert_eq!(b.journal, Some(Recorded::Known(2000)));
+    b.shutdown();
+    assert!(b.s.outcome().unconfirmed);
 }

@@ -176,16 +176,50 @@ fn a_new_move_in_the_tail_keeps_the_inhibit_and_needs_no_lead() {
 
 #[test]
 fn a_move_after_the_tail_asserts_the_inhibit_afresh() {
+    // The report comes after the tail (1 000..1 100) has ended. (Issue 11
+    // moved it here from 1 010 ms: a report inside the tail now keeps the
+    // inhibit on, see the next test.)
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_arrived(ms(1_000), 9_500);
+    f.handle_timeout(ms(1_100));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+    f.handle_frequency(ms(1_110), 7_040_000);
+    f.handle_timeout(ms(1_410));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
+    f.handle_timeout(ms(1_430));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_600]);
+}
+
+#[test]
+fn a_detuned_report_inside_the_tail_keeps_the_inhibit_until_the_new_target() {
     let mut f = core(Some(9_000));
     settle(&mut f, 0, 7_050_000);
     f.handle_arrived(ms(1_000), 9_500);
     f.handle_frequency(ms(1_010), 7_040_000);
     f.handle_timeout(ms(1_100));
-    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+    assert_eq!(drain(&mut f), vec![]);
+    assert!(f.inhibit());
+    // At the settle the move goes at once (the line has been on all along).
     f.handle_timeout(ms(1_310));
-    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: true }]);
-    f.handle_timeout(ms(1_330));
-    assert_eq!(gotos(&drain(&mut f)), vec![9_600]);
+    let a = drain(&mut f);
+    assert_eq!(gotos(&a), vec![9_600]);
+    assert!(!a.contains(&Action::Inhibit { on: false }), "{a:?}");
+    f.handle_arrived(ms(1_400), 9_600);
+    assert!(f.inhibit());
+    f.handle_timeout(ms(1_500));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
+}
+
+#[test]
+fn a_report_back_in_the_dead_band_inside_the_tail_lets_the_tail_end_as_usual() {
+    let mut f = core(Some(9_000));
+    settle(&mut f, 0, 7_050_000);
+    f.handle_arrived(ms(1_000), 9_500);
+    // The same frequency again: not detuned, nothing held.
+    f.handle_frequency(ms(1_010), 7_050_010);
+    f.handle_timeout(ms(1_100));
+    assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
 }
 
 #[test]

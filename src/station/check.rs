@@ -399,11 +399,11 @@ fn describe_journal(station: &Station, findings: &mut Vec<Finding>, text: &mut V
     let state = match journal.load() {
         Ok(None) => "none yet".to_string(),
         Ok(Some(Recorded::Known(n))) => format!("at rest at {n} steps"),
-        Ok(Some(Recorded::Unknown { from, to })) => {
+        Ok(Some(Recorded::Unknown { from, to } | Recorded::Approach { from, to, .. })) => {
             findings.push(Finding::new(
                 Grade::Warning,
                 "tuner.state_file",
-                format!("{} records a move from {from} to {to} steps that never finished: `run` will not move the tuner until the position is known", path.display()),
+                format!("{} records a move from {from} to {to} steps that never finished: `run` will not move the tuner until the controller reports a point of that move's legs or the position is known", path.display()),
                 "check the antenna, establish where the motor is, then `tuneward set-position STEPS -c CONFIG`",
             ));
             format!("unfinished move from {from} to {to} steps: position unknown")

@@ -12,13 +12,14 @@ use std::time::Duration;
 
 use crate::antenna::BandSpan;
 use crate::calibrate::cli::FitStation;
+use crate::calibrate::CalibrationSet;
 use crate::calibrate::{Calibration, FitOptions, Point};
 use crate::config::{
     Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, ModemLineSetting, RigConfig,
     RigUse, SerialFlow, SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
 use crate::error::{Located, Place};
-use crate::follow::{Band, Follower, Jump, Policy, WhileUnknown};
+use crate::follow::{Band, Calibrations, Follower, Jump, Policy, Preset, PresetGoal, WhileUnknown};
 use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
 use crate::port::link::LinkConfig;
@@ -145,6 +146,79 @@ pub fn journal_for(config: &Config) -> Journal {
         .clone()
         .unwrap_or_else(|| PathBuf::from(DEFAULT_STATE_FILE));
     Journal::new(config.resolve_path(&name))
+}
+
+/// The presets of `[[preset]]` (validated: one of `hz` and `steps` each).
+pub fn presets_from_config(config: &Config) -> Vec<Preset> {
+    config
+        .presets
+        .iter()
+        .filter_map(|p| {
+            let goal = match (p.hz, p.steps) {
+                (Some(hz), None) => PresetGoal::Hz(hz),
+                (None, Some(steps)) => PresetGoal::Steps(steps),
+                _ => return None,
+            };
+            Some(Preset {
+                name: p.name.clone(),
+                goal,
+            })
+        })
+        .collect()
+}
+
+/// Every calibration of a fitted set, for the core's profile switch.
+pub fn calibrations_of(set: &CalibrationSet) -> Calibrations {
+    Calibrations {
+        base: set.map(None).ok(),
+        profiles: set
+            .profiles()
+            .into_iter()
+            .filter_map(|name| set.map(Some(&name)).ok().map(|m| (name, m)))
+            .collect(),
+    }
+}
+
+/// The operator's control for `run`: the socket, `[control] listen`, and
+/// `reload` reading the station's config at `config_path` again.
+pub fn control_setup(
+    station: &Station,
+    config_path: &Path,
+) -> Result<crate::service::ControlSetup, ConfigError> {
+    let config = &station.config;
+    let listen = config.control_listen()?;
+    let path = config_path.to_path_buf();
+    Ok(crate::service::ControlSetup {
+        socket: control_socket_for(config),
+        listen,
+        reload: Some(Box::new(move || {
+            Station::load(&path)
+                .map(|s| calibrations_of(&s.profiles))
+                .map_err(|e| e.to_string())
+        })),
+    })
+}
+
+/// A path beside the journal: its name with `suffix` added.
+fn beside_journal(config: &Config, suffix: &str) -> PathBuf {
+    let journal = journal_for(config);
+    let mut name = journal.path().as_os_str().to_owned();
+    name.push(suffix);
+    PathBuf::from(name)
+}
+
+/// The control socket: `[control] socket`, or the journal's name with
+/// `.sock` beside it.
+pub fn control_socket_for(config: &Config) -> PathBuf {
+    match &config.control.socket {
+        Some(p) => config.resolve_path(p),
+        None => beside_journal(config, ".sock"),
+    }
+}
+
+/// The one-instance lock: the journal's name with `.lock`, beside it.
+pub fn lock_path_for(config: &Config) -> PathBuf {
+    beside_journal(config, ".lock")
 }
 
 /// What `tuneward fit --config` takes from a station: the loop and the bands.
@@ -305,6 +379,18 @@ pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, Error> {
             "position {steps}: expected a value within tuner.min_steps..tuner.max_steps ({min}..{max})"
         )));
     }
+    let lock = lock_path_for(config);
+    match crate::lock::holder(&lock) {
+        Ok(None) => {}
+        Ok(Some(pid)) => {
+            return Err(Error::Failed(format!(
+                "tuneward run (pid {}) is driving this station (lock {}); its journal is not written behind its back: stop it first, or move the capacitor with `tuneward ctl goto STEPS`",
+                pid.map_or("unknown".to_string(), |p| p.to_string()),
+                lock.display()
+            )))
+        }
+        Err(e) => return Err(Error::Failed(e.to_string())),
+    }
     let journal = journal_for(config);
     journal
         .record_position(steps)
@@ -432,6 +518,11 @@ impl ServiceParts {
                 station.policy.clone(),
                 std::sync::Arc::clone(&station.map),
                 None,
+            )
+            .with_operator(
+                presets_from_config(config),
+                calibrations_of(&station.profiles),
+                config.calibration.profile.clone(),
             ),
             decoder: station.dialect.station_decoder(config.rig.address),
             rig,

@@ -507,7 +507,7 @@ impl Link {
                             self.transmit = None;
                         }
                         Ok(true) if w.arrival.is_some() => {
-                            tracing::warn!("rig transmitting while the motor moves: stopping it");
+                            tracing::warn!("the rig transmits (or cannot be heard) while the motor moves: stopping it");
                             self.emit(TunerEvent::InterlockStop).await;
                             if let Err(e) = self.send(&mut wr, &mut w, Request::Stop).await {
                                 return End::Fault(e);
@@ -551,7 +551,7 @@ impl Link {
                 Some(format!("ZERO {t} refused: outside limits {min}..{max}"))
             }
             TunerCommand::Goto(t) if self.transmitting() => {
-                Some(format!("GOTO {t} refused: rig transmitting"))
+                Some(format!("GOTO {t} refused: rig transmitting or not heard"))
             }
             _ => None,
         };

@@ -6,9 +6,12 @@
 // Every test binary compiles this file and uses only some of it.
 #![allow(dead_code)]
 
+pub mod controller;
+
 use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, ExitStatus, Output, Stdio};
+use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
 use tokio::io::AsyncReadExt;
@@ -253,4 +256,67 @@ pub async fn collect(ev: &mut mpsc::Receiver<LinkEvent>, dir: Direction, n: usiz
         }
     }
     got
+}
+
+/// A child whose stderr is collected line by line.
+pub struct Logged {
+    pub proc: Proc,
+    lines: Arc<Mutex<Vec<String>>>,
+}
+
+impl Logged {
+    pub fn start(args: &[&str]) -> Logged {
+        let mut child = Command::new(BIN)
+            .args(args)
+            .env("RUST_LOG", "info")
+            .stdout(Stdio::null())
+            .stderr(Stdio::piped())
+            .spawn()
+            .unwrap();
+        let err = child.stderr.take().unwrap();
+        let lines = Arc::new(Mutex::new(Vec::new()));
+        let sink = Arc::clone(&lines);
+        std::thread::spawn(move || {
+            for line in BufReader::new(err).lines().map_while(Result::ok) {
+                eprintln!("  | {line}");
+                sink.lock().unwrap().push(line);
+            }
+        });
+        Logged {
+            proc: Proc(child),
+            lines,
+        }
+    }
+    /// `tuneward run --config <config>`.
+    pub fn run(config: &Path) -> Logged {
+        Logged::start(&["run", "--config", config.to_str().unwrap()])
+    }
+    /// `tuneward capture --config <config> --out <out>` with `extra` flags.
+    pub fn capture(config: &Path, out: &Path, extra: &[&str]) -> Logged {
+        let args = ["capture", "--config", config.to_str().unwrap()];
+        let out = ["--out", out.to_str().unwrap()];
+        Logged::start(&[&args[..], &out, extra].concat())
+    }
+    pub fn log(&self) -> Vec<String> {
+        self.lines.lock().unwrap().clone()
+    }
+    /// Waits until a log line contains every one of `words`.
+    pub fn wait_log(&self, words: &[&str]) -> String {
+        let until = Instant::now() + Duration::from_secs(10);
+        loop {
+            if let Some(l) = self
+                .log()
+                .into_iter()
+                .find(|l| words.iter().all(|w| l.contains(w)))
+            {
+                return l;
+            }
+            assert!(
+                Instant::now() < until,
+                "no log line with {words:?} in:\n{}",
+                self.log().join("\n")
+            );
+            std::thread::sleep(Duration::from_millis(20));
+        }
+    }
 }

@@ -1,0 +1,220 @@
+//! Faults at the edges, on the real `tuneward run`: a controller double of
+//! the tests' own (`common::controller`) that misbehaves, a rig on a
+//! pseudo-terminal. What is checked is read from outside the binary: the
+//! double's own record of the motor and of the lines it received, the
+//! journal file, the exit status.
+
+use std::path::Path;
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
+
+use tokio::io::AsyncWriteExt;
+use tuneward::journal::{Journal, Recorded};
+use tuneward::rig::dialect::Dialect;
+
+mod common;
+
+use common::controller::{Fault, FaultyController};
+use common::{rig_behind_symlink, Proc, BIN};
+
+/// `tuneward run --config <config>`, its log in `log`.
+fn run(config: &Path, log: &Path) -> Proc {
+    let err = std::fs::File::create(log).unwrap();
+    Proc(
+        Command::new(BIN)
+            .args(["run", "--config", config.to_str().unwrap()])
+            .env("RUST_LOG", "info")
+            .stdout(Stdio::null())
+            .stderr(err)
+            .spawn()
+            .unwrap(),
+    )
+}
+
+fn log_text(log: &Path) -> String {
+    std::fs::read_to_string(log).unwrap_or_default()
+}
+
+/// Waits (with a bound) until `ready` holds.
+fn eventually(what: &str, mut ready: impl FnMut() -> bool) {
+    let until = Instant::now() + Duration::from_secs(15);
+    while !ready() {
+        assert!(Instant::now() < until, "gave up waiting for {what}");
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
+
+/// Issue 11, first failure: SIGTERM during a move while the controller has
+/// gone silent (it ignores every line, STOP included, but finishes the
+/// move). The journal keeps the unfinished move, the exit status says so,
+/// the inhibit is not released; the next start does not `ZERO` the
+/// controller to the move's start, and trusts the move's target.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn sigterm_with_a_silent_controller_keeps_the_move_and_exits_non_zero() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
+    let ctl = FaultyController::start(0, 1000.0, Fault::SilentAfterGoto);
+    let config = common::station_config(dir.path(), &rig_link, &ctl.addr, 1000, "");
+    let journal = Journal::new(dir.path().join("motor.state"));
+    let log = dir.path().join("run1.log");
+    let mut first = run(&config, &log);
+    eventually("the first position", || {
+        journal.load().ok().flatten() == Some(Recorded::Known(0))
+    });
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    // 7.15 MHz: 1500 steps, 1.5 s at 1000 steps/s.
+    rig.write_all(&dialect.encode_frequency(7_150_000, 0))
+        .await
+        .unwrap();
+    rig.flush().await.unwrap();
+    eventually("the move's intent", || {
+        journal.load().ok().flatten() == Some(Recorded::Unknown { from: 0, to: 1500 })
+    });
+    first.signal(libc::SIGTERM);
+    let status = first.wait_exit(Duration::from_secs(20));
+    let text = log_text(&log);
+    assert_eq!(status.code(), Some(3), "{text}");
+    // Nothing the controller did not say.
+    assert_eq!(
+        journal.load().unwrap(),
+        Some(Recorded::Unknown { from: 0, to: 1500 }),
+        "{text}"
+    );
+    assert!(
+        ctl.received().iter().any(|l| l == "STOP"),
+        "{:?}",
+        ctl.received()
+    );
+    // The double finished the move it accepted.
+    eventually("the double's motor at rest", || ctl.at_rest());
+    assert_eq!(ctl.position(), 1500);
+    // The inhibit was not released after the move began.
+    let inhibit: Vec<&str> = text
+        .lines()
+        .filter(|l| {
+            l.contains("transmit inhibit asserted") || l.contains("transmit inhibit released")
+        })
+        .collect();
+    assert!(
+        inhibit.last().is_some_and(|l| l.contains("asserted")),
+        "{inhibit:?}"
+    );
+    assert!(text.contains("stays asserted"), "{text}");
+
+    // The next start, with the controller speaking again.
+    ctl.set_fault(Fault::None);
+    let before = ctl.received().len();
+    let log = dir.path().join("run2.log");
+    let mut second = run(&config, &log);
+    eventually("the move's target trusted", || {
+        journal.load().ok().flatten() == Some(Recorded::Known(1500))
+    });
+    let said = ctl.received();
+    assert!(
+        !said[before..].iter().any(|l| l.starts_with("ZERO")),
+        "{said:?}"
+    );
+    assert!(
+        log_text(&log).contains("position trusted"),
+        "{}",
+        log_text(&log)
+    );
+    assert_eq!(ctl.position(), 1500);
+    second.signal(libc::SIGTERM);
+    let status = second.wait_exit(Duration::from_secs(20));
+    assert_eq!(status.code(), Some(0), "{}", log_text(&log));
+}
+
+/// The station config with a backlash approach from below (60 steps).
+fn approach_config(dir: &Path, rig: &Path, addr: &str) -> std::path::PathBuf {
+    let config = common::station_config(dir, rig, addr, 1000, "");
+    let text = std::fs::read_to_string(&config).unwrap().replace(
+        "[tuner]\n",
+        "[tuner]\nbacklash_steps = 60\napproach = \"up\"\n",
+    );
+    std::fs::write(&config, text).unwrap();
+    config
+}
+
+/// Issue 11: `kill -9` at seeded points of a move (down: two legs,
+/// 2000 -> 940 -> 1000; up: one leg, 2000 -> 2500), the controller moving
+/// on to the end of the leg it was given. After the next start the
+/// journal holds the double's true position or says the position is
+/// unknown; never another position. (The long version is the soak
+/// example; this runs a few points.)
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn kill_9_at_seeded_points_of_a_move_is_never_wrong_after_the_next_start() {
+    let mut rng = fastrand::Rng::with_seed(11);
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    // (frequency, time the whole move takes at 1000 steps/s, in ms)
+    let moves = [(7_100_000u64, 1_120u64), (7_250_000, 500)];
+    let mut exact = 0;
+    for point in 0..4 {
+        let (hz, took_ms) = moves[point % 2];
+        let dir = tempfile::tempdir().unwrap();
+        let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
+        let ctl = FaultyController::start(2000, 1000.0, Fault::None);
+        let config = approach_config(dir.path(), &rig_link, &ctl.addr);
+        let journal = Journal::new(dir.path().join("motor.state"));
+        journal.record_position(2000).unwrap();
+        let log = dir.path().join("run1.log");
+        let first = run(&config, &log);
+        // The service is up and has asked the controller where it is (the
+        // inhibit now stays on until the rig's frequency is known, so it is
+        // no sign of readiness any more).
+        eventually("the controller's count asked", || {
+            ctl.received().iter().any(|l| l == "WHERE")
+        });
+        rig.write_all(&dialect.encode_frequency(hz, 0))
+            .await
+            .unwrap();
+        rig.flush().await.unwrap();
+        eventually("the move's intent", || {
+            journal
+                .load()
+                .ok()
+                .flatten()
+                .is_some_and(|r| r.is_unfinished())
+        });
+        let kill_after = Duration::from_millis(rng.u64(0..took_ms + 100));
+        std::thread::sleep(kill_after);
+        drop(first); // SIGKILL
+        eventually("the double's motor at rest", || ctl.at_rest());
+        let truth = ctl.position();
+
+        let log2 = dir.path().join("run2.log");
+        let mut second = run(&config, &log2);
+        eventually("a verdict on the position", || {
+            let t = log_text(&log2);
+            let on_disk = journal.load().ok().flatten();
+            t.contains("position unknown") || matches!(on_disk, Some(Recorded::Known(_)))
+        });
+        match journal.load().unwrap() {
+            Some(Recorded::Known(p)) => {
+                assert_eq!(
+                    p,
+                    truth,
+                    "point {point} ({kill_after:?}): {}",
+                    log_text(&log2)
+                );
+                exact += 1;
+            }
+            Some(r) => {
+                assert!(r.is_unfinished(), "{r:?}");
+                eprintln!("point {point} ({kill_after:?}): unknown, truth {truth}, {r:?}");
+            }
+            None => panic!("journal gone"),
+        }
+        assert!(
+            !ctl.received().iter().any(|l| l.starts_with("ZERO")),
+            "{:?}",
+            ctl.received()
+        );
+        second.signal(libc::SIGTERM);
+        let _ = second.wait_exit(Duration::from_secs(20));
+    }
+    // Killed before a leg's GOTO left, the motor is at the leg's start,
+    // which is no proof (see the session): unknown is a right answer then.
+    // But a controller that keeps its count is mostly trusted again.
+    assert!(exact >= 2, "only {exact} of 4 exact");
+}
