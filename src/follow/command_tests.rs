@@ -5,60 +5,13 @@
 //! outside the limits, none while the rig transmits, none without the
 //! inhibit asserted.
 
+use super::test_support::{ms, policy, Line};
 use super::*;
-
-struct Line;
-impl StepMap for Line {
-    fn steps_at(&self, hz: f64) -> f64 {
-        10_000.0 - (hz - 7_000_000.0) / 100.0
-    }
-}
 
 struct Shifted(f64);
 impl StepMap for Shifted {
     fn steps_at(&self, hz: f64) -> f64 {
         Line.steps_at(hz) + self.0
-    }
-}
-
-fn ms(v: u64) -> Duration {
-    Duration::from_millis(v)
-}
-
-fn policy() -> Policy {
-    Policy {
-        bands: vec![
-            Band {
-                name: "40m".into(),
-                low_hz: 7_000_000,
-                high_hz: 7_200_000,
-                guard_hz: 10_000,
-                hysteresis_hz: 1_000,
-                debounce: ms(300),
-            },
-            Band {
-                name: "30m".into(),
-                low_hz: 10_100_000,
-                high_hz: 10_150_000,
-                guard_hz: 0,
-                hysteresis_hz: 500,
-                debounce: ms(300),
-            },
-        ],
-        min_steps: 0,
-        max_steps: 12_000,
-        backlash_steps: 30,
-        approach: Approach::Up,
-        debounce: ms(500),
-        min_move_steps: 3,
-        inhibit_lead: ms(20),
-        inhibit_tail: ms(100),
-        candidate_dwell: ms(5_000),
-        inhibit_while_detuned: false,
-        jump: None,
-        tune_for: TuneFor::Transmit,
-        while_unknown: WhileUnknown::MoveUnderInhibit,
-        inhibit_until_tuned: false,
     }
 }
 

@@ -3,50 +3,21 @@
 //! event. The calibration is the invented straight line of `tests.rs`
 //! (100 Hz is one step), for the rules only.
 
+use super::test_support::{self, band_40m, ms, Line};
 use super::*;
-
-struct Line;
-impl StepMap for Line {
-    fn steps_at(&self, hz: f64) -> f64 {
-        10_000.0 - (hz - 7_000_000.0) / 100.0
-    }
-}
-
-fn ms(v: u64) -> Duration {
-    Duration::from_millis(v)
-}
 
 /// One 40 m band with a 300 ms debounce and a 1 kHz dead band; jumps are
 /// 10 kHz or more after 300 ms without another frequency.
 fn policy() -> Policy {
     Policy {
-        bands: vec![Band {
-            name: "40m".into(),
-            low_hz: 7_000_000,
-            high_hz: 7_200_000,
-            guard_hz: 10_000,
-            hysteresis_hz: 1_000,
-            debounce: ms(300),
-        }],
-        min_steps: 0,
-        max_steps: 12_000,
+        bands: vec![band_40m()],
         backlash_steps: 0,
-        approach: Approach::Up,
-        debounce: ms(500),
-        min_move_steps: 3,
-        inhibit_lead: ms(20),
-        inhibit_tail: ms(100),
-        candidate_dwell: ms(5_000),
         inhibit_while_detuned: true,
         jump: Some(Jump {
             min_hz: 10_000,
             quiet: ms(300),
         }),
-        // A station with its inhibit wired; the hold until tuned has
-        // tests of its own (truth_tests.rs).
-        tune_for: TuneFor::Transmit,
-        while_unknown: WhileUnknown::MoveUnderInhibit,
-        inhibit_until_tuned: false,
+        ..test_support::policy()
     }
 }
 

@@ -1271,6 +1271,8 @@ impl Follower {
 #[cfg(test)]
 mod jump_tests;
 #[cfg(test)]
+mod test_support;
+#[cfg(test)]
 mod tests;
 #[cfg(test)]
 mod truth_tests;

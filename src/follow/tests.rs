@@ -2,59 +2,8 @@
 //! calibration here is a straight line (invented, for the rules only):
 //! steps = 10 000 - (hz - 7 000 000) / 100, so 100 Hz is one step.
 
+use super::test_support::{ms, policy, Line};
 use super::*;
-
-struct Line;
-impl StepMap for Line {
-    fn steps_at(&self, hz: f64) -> f64 {
-        10_000.0 - (hz - 7_000_000.0) / 100.0
-    }
-}
-
-fn ms(v: u64) -> Duration {
-    Duration::from_millis(v)
-}
-
-fn policy() -> Policy {
-    Policy {
-        bands: vec![
-            Band {
-                name: "40m".into(),
-                low_hz: 7_000_000,
-                high_hz: 7_200_000,
-                guard_hz: 10_000,
-                hysteresis_hz: 1_000,
-                debounce: ms(300),
-            },
-            Band {
-                name: "30m".into(),
-                low_hz: 10_100_000,
-                high_hz: 10_150_000,
-                guard_hz: 0,
-                hysteresis_hz: 500,
-                debounce: ms(300),
-            },
-        ],
-        min_steps: 0,
-        max_steps: 12_000,
-        backlash_steps: 30,
-        approach: Approach::Up,
-        debounce: ms(500),
-        min_move_steps: 3,
-        inhibit_lead: ms(20),
-        inhibit_tail: ms(100),
-        candidate_dwell: ms(5_000),
-        // These rules model a station with an inhibit line wired; the
-        // start-up hold until tuned has tests of its own.
-        tune_for: TuneFor::Transmit,
-        while_unknown: WhileUnknown::MoveUnderInhibit,
-        inhibit_until_tuned: false,
-        // Off for most rules below, which time the inhibit around moves;
-        // the tests of the detuned inhibit turn it on.
-        inhibit_while_detuned: false,
-        jump: None,
-    }
-}
 
 fn detune_core(position: Option<i64>) -> Follower {
     let mut p = policy();

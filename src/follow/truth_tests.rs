@@ -4,43 +4,20 @@
 //! the invented straight line of `tests.rs` (100 Hz a step); every expected
 //! position below is worked from it by hand: steps = 10 000 - (hz - 7 MHz)/100.
 
+use super::test_support::{self, band_40m, ms, Line};
 use super::*;
-
-struct Line;
-impl StepMap for Line {
-    fn steps_at(&self, hz: f64) -> f64 {
-        10_000.0 - (hz - 7_000_000.0) / 100.0
-    }
-}
-
-fn ms(v: u64) -> Duration {
-    Duration::from_millis(v)
-}
 
 fn policy() -> Policy {
     Policy {
         bands: vec![Band {
-            name: "40m".into(),
-            low_hz: 7_000_000,
-            high_hz: 7_200_000,
             guard_hz: 0,
-            hysteresis_hz: 1_000,
-            debounce: ms(300),
+            ..band_40m()
         }],
-        min_steps: 0,
-        max_steps: 12_000,
         backlash_steps: 0,
-        approach: Approach::Up,
         debounce: ms(300),
-        min_move_steps: 3,
-        inhibit_lead: ms(20),
-        inhibit_tail: ms(100),
-        candidate_dwell: ms(5_000),
         inhibit_while_detuned: true,
-        jump: None,
-        tune_for: TuneFor::Transmit,
-        while_unknown: WhileUnknown::MoveUnderInhibit,
         inhibit_until_tuned: true,
+        ..test_support::policy()
     }
 }
 
