@@ -19,7 +19,7 @@ use tuneward::rig::dialect::Dialect;
 
 mod common;
 
-use common::{rig_behind_symlink, Logged, BIN};
+use common::{rig_behind_symlink, wait_journal, Logged, BIN};
 
 fn ctl(config: &Path, args: &[&str]) -> Output {
     Command::new(BIN)
@@ -49,18 +49,6 @@ fn state(config: &Path) -> serde_json::Value {
     let (ok, v) = ctl_json(config, &["status"]);
     assert!(ok, "{v}");
     v["state"].clone()
-}
-
-fn wait_journal(journal: &Journal, want: Recorded) {
-    let until = Instant::now() + Duration::from_secs(10);
-    loop {
-        let got = journal.load().ok().flatten();
-        if got == Some(want) {
-            return;
-        }
-        assert!(Instant::now() < until, "journal {got:?}, wanted {want:?}");
-        std::thread::sleep(Duration::from_millis(10));
-    }
 }
 
 fn controller_where(addr: &str) -> String {

@@ -16,7 +16,9 @@ use tuneward::rig::dialect::Dialect;
 
 mod common;
 
-use common::{assert_success, pty_pair, read_exactly, rig_behind_symlink, Logged, Proc, BIN};
+use common::{
+    assert_success, pty_pair, read_exactly, rig_behind_symlink, wait_journal, Logged, Proc, BIN,
+};
 
 /// `tuneward sim-tuner` on `listen` (port 0: a free one), 1000 steps/s,
 /// 0 to 3000, counting from `start`; its address.
@@ -49,18 +51,6 @@ fn controller_where(addr: &str) -> String {
 /// `controller`.
 fn write_config(dir: &Path, rig: &Path, controller: &str, extra_rig: &str) -> PathBuf {
     common::station_config(dir, rig, controller, 1000, extra_rig)
-}
-
-fn wait_journal(journal: &Journal, want: Recorded) {
-    let until = Instant::now() + Duration::from_secs(10);
-    loop {
-        let got = journal.load().ok().flatten();
-        if got == Some(want) {
-            return;
-        }
-        assert!(Instant::now() < until, "journal {got:?}, wanted {want:?}");
-        std::thread::sleep(Duration::from_millis(10));
-    }
 }
 
 async fn say(rig: &mut tokio_serial::SerialStream, bytes: &[u8]) {

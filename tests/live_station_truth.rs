@@ -28,7 +28,7 @@ use tokio_serial::SerialStream;
 
 mod common;
 
-use common::{forty_metres, open_port, Proc, BIN};
+use common::{forty_metres, open_port, Logged, Proc, BIN};
 
 /// Motor speed of the test controller (and of the config, which times the
 /// controller's answers from it).
@@ -195,11 +195,9 @@ fn wait_for(path: &Path) {
 }
 
 /// `tuneward run` in proxy mode between the rig at `rig` and the other
-/// program's link `dir/shared`; the log lines are collected.
-struct Run {
-    _proc: Proc,
-    lines: Arc<Mutex<Vec<String>>>,
-}
+/// program's link `dir/shared`; the log lines are collected (the shared
+/// `Logged` child of tests/common).
+type Run = Logged;
 
 fn run(dir: &Path, protocol: &str, rig: &Path, controller: &str) -> (Run, PathBuf) {
     let shared = dir.join("shared");
@@ -238,37 +236,9 @@ inhibit_tail_ms = 20
         ),
     )
     .unwrap();
-    let mut child = Command::new(BIN)
-        .args(["run", "--config"])
-        .arg(&config)
-        .env("RUST_LOG", "info")
-        .stdout(Stdio::null())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    let err = child.stderr.take().unwrap();
-    let lines = Arc::new(Mutex::new(Vec::new()));
-    let sink = Arc::clone(&lines);
-    std::thread::spawn(move || {
-        for line in BufReader::new(err).lines().map_while(Result::ok) {
-            eprintln!("  | {line}");
-            sink.lock().unwrap().push(line);
-        }
-    });
+    let run = Logged::run(&config);
     wait_for(&shared);
-    (
-        Run {
-            _proc: Proc(child),
-            lines,
-        },
-        shared,
-    )
-}
-
-impl Run {
-    fn log(&self) -> Vec<String> {
-        self.lines.lock().unwrap().clone()
-    }
+    (run, shared)
 }
 
 async fn say(port: &mut SerialStream, bytes: &[u8]) {

@@ -320,3 +320,16 @@ impl Logged {
         }
     }
 }
+
+/// Waits (10 s at most) until the journal on disk says `want`.
+pub fn wait_journal(journal: &tuneward::journal::Journal, want: tuneward::journal::Recorded) {
+    let until = Instant::now() + Duration::from_secs(10);
+    loop {
+        let got = journal.load().ok().flatten();
+        if got == Some(want) {
+            return;
+        }
+        assert!(Instant::now() < until, "journal {got:?}, wanted {want:?}");
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
