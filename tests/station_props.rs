@@ -85,7 +85,7 @@ fn chunked(bytes: &[u8], size: usize) -> Vec<Vec<u8>> {
 proptest! {
     #[test]
     fn station_decoder_decides_like_the_reporting_one(
-        name in proptest::sample::select(Dialect::builtin_names().to_vec()),
+        name in proptest::sample::select(Dialect::builtin_names().iter().copied().filter(|n| !n.starts_with("block")).collect::<Vec<_>>()),
         rx in any::<bool>(),
         bytes in stream(true),
         size in 1usize..50,
@@ -109,7 +109,7 @@ proptest! {
 
     #[test]
     fn station_decoder_rejects_like_the_reporting_one_on_its_messages(
-        name in proptest::sample::select(Dialect::builtin_names().to_vec()),
+        name in proptest::sample::select(Dialect::builtin_names().iter().copied().filter(|n| !n.starts_with("block")).collect::<Vec<_>>()),
         bytes in stream(false),
         size in 1usize..50,
     ) {
@@ -123,7 +123,7 @@ proptest! {
 proptest! {
     #[test]
     fn station_decoder_takes_any_bytes_and_stays_bounded(
-        name in proptest::sample::select(Dialect::builtin_names().to_vec()),
+        name in proptest::sample::select(Dialect::builtin_names().iter().copied().filter(|n| !n.starts_with("block")).collect::<Vec<_>>()),
         rx in any::<bool>(),
         bytes in proptest::collection::vec(any::<u8>(), 0..600),
         size in 1usize..40,

@@ -56,6 +56,17 @@ pub fn ends_with(end: u8) -> impl Boundary {
     move |chunk: &[u8]| chunk.last() == Some(&end)
 }
 
+/// A boundary after every `n` bytes (the block family: framed by count,
+/// with no end byte).
+pub fn every(n: usize) -> impl Boundary {
+    let n = n.max(1);
+    let mut seen = 0usize;
+    move |chunk: &[u8]| {
+        seen = (seen + chunk.len()) % n;
+        seen == 0
+    }
+}
+
 /// The proxy's settings.
 #[derive(Debug, Clone)]
 pub struct ProxyConfig {

@@ -12,19 +12,24 @@ use std::path::Path;
 
 use super::binary::BinaryDecoder;
 pub use super::binary::{BinarySpec, Slot, StationCodes};
+use super::block::BlockDecoder;
+pub use super::block::BlockSpec;
 pub use super::keys::DialectError;
 use super::keys::Reader;
 use super::text::TextDecoder;
 pub use super::text::{StatusFlags, TextSpec, Vfo};
 use super::Decode;
 
-/// The two wire-protocol families tuneward understands.
+/// The wire-protocol families tuneward understands.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Family {
     /// Framed binary: preamble, addresses, command, packed BCD, terminator.
     Binary,
     /// ASCII messages: two upper-case letters, a payload, a terminator.
     Text,
+    /// Fixed-length command blocks, no framing bytes, polled only: framed
+    /// by count, answers paired with their requests.
+    Block,
 }
 
 /// One rig dialect, loaded and checked.
@@ -41,6 +46,7 @@ pub struct Dialect {
 pub enum Spec {
     Binary(BinarySpec),
     Text(TextSpec),
+    Block(BlockSpec),
 }
 
 const BUILTINS: &[(&str, &str)] = &[
@@ -60,6 +66,7 @@ const BUILTINS: &[(&str, &str)] = &[
         "text-semicolon-9",
         include_str!("../../protocols/text-semicolon-9.toml"),
     ),
+    ("block-5", include_str!("../../protocols/block-5.toml")),
 ];
 
 const BUILTIN_NAMES: &[&str] = &[
@@ -67,6 +74,7 @@ const BUILTIN_NAMES: &[&str] = &[
     "binary-bcd-4",
     "text-semicolon",
     "text-semicolon-9",
+    "block-5",
 ];
 
 impl Dialect {
@@ -133,6 +141,18 @@ impl Dialect {
             }
         })?;
         let r = Reader { file };
+        if table.get("family").and_then(|v| v.as_str()) == Some("block") {
+            // The block family has its own top-level tables.
+            let spec = BlockSpec::from_toml(&r, &table)?;
+            let name = r.string(&table, "", "name")?;
+            if name.is_empty() {
+                return Err(r.err("name", "a non-empty name", "\"\"".into()));
+            }
+            return Ok(Dialect {
+                name,
+                spec: Spec::Block(spec),
+            });
+        }
         r.only(
             &table,
             "",
@@ -155,7 +175,13 @@ impl Dialect {
         let spec = match family.as_str() {
             "binary" => Spec::Binary(BinarySpec::from_toml(&r, &table)?),
             "text" => Spec::Text(TextSpec::from_toml(&r, &table)?),
-            other => return Err(r.err("family", "\"binary\" or \"text\"", format!("{other:?}"))),
+            other => {
+                return Err(r.err(
+                    "family",
+                    "\"binary\", \"text\" or \"block\"",
+                    format!("{other:?}"),
+                ))
+            }
         };
         if name.is_empty() {
             return Err(r.err("name", "a non-empty name", "\"\"".into()));
@@ -167,6 +193,7 @@ impl Dialect {
         match self.spec {
             Spec::Binary(_) => Family::Binary,
             Spec::Text(_) => Family::Text,
+            Spec::Block(_) => Family::Block,
         }
     }
 
@@ -176,6 +203,7 @@ impl Dialect {
         match &self.spec {
             Spec::Binary(s) => Box::new(BinaryDecoder::new(s.clone(), rig_address)),
             Spec::Text(s) => Box::new(TextDecoder::new(s.clone())),
+            Spec::Block(s) => Box::new(BlockDecoder::new(s.clone())),
         }
     }
 
@@ -191,6 +219,7 @@ impl Dialect {
         match &self.spec {
             Spec::Binary(s) => Box::new(BinaryDecoder::station(s.clone(), rig_address)),
             Spec::Text(s) => Box::new(TextDecoder::station(s.clone())),
+            Spec::Block(s) => Box::new(BlockDecoder::station(s.clone())),
         }
     }
 
@@ -202,6 +231,7 @@ impl Dialect {
         match &self.spec {
             Spec::Binary(s) => s.encode_frequency(hz, rig_address),
             Spec::Text(s) => s.encode_frequency(hz),
+            Spec::Block(s) => s.encode_frequency(hz),
         }
     }
 
@@ -211,6 +241,7 @@ impl Dialect {
         match &self.spec {
             Spec::Binary(s) => s.encode_transmit(on, rig_address),
             Spec::Text(s) => s.encode_transmit(on),
+            Spec::Block(s) => s.encode_transmit(on),
         }
     }
 
@@ -219,6 +250,7 @@ impl Dialect {
         match &self.spec {
             Spec::Binary(s) => s.query(&s.poll_frequency, rig_address),
             Spec::Text(s) => s.poll_frequency.clone(),
+            Spec::Block(s) => s.poll_frequency.clone(),
         }
     }
 
@@ -227,6 +259,7 @@ impl Dialect {
         match &self.spec {
             Spec::Binary(s) => s.query(&s.poll_transmit, rig_address),
             Spec::Text(s) => s.poll_transmit.clone(),
+            Spec::Block(s) => s.poll_transmit.clone(),
         }
     }
 }
@@ -284,6 +317,33 @@ mod tests {
         assert_eq!(d.poll_transmit(0), b"IF;".to_vec());
         let d9 = Dialect::builtin("text-semicolon-9").unwrap();
         assert_eq!(d9.encode_frequency(7_074_000, 0), b"FA007074000;".to_vec());
+    }
+
+    #[test]
+    fn block_dialect_is_selectable_and_encodes_by_hand() {
+        // Recalled published layout (protocols/block-5.toml): 14 074 000 Hz
+        // = 1 407 400 tens of Hz = BCD 01 40 74 00, big-endian, mode byte
+        // after; reads are 00 00 00 00 03 and 00 00 00 00 F7.
+        let d = Dialect::builtin("block-5").unwrap();
+        assert_eq!(d.family(), Family::Block);
+        assert_eq!(
+            d.encode_frequency(14_074_000, 0),
+            vec![0x01, 0x40, 0x74, 0x00, 0x00]
+        );
+        assert_eq!(d.poll_frequency(0), vec![0, 0, 0, 0, 0x03]);
+        assert_eq!(d.poll_transmit(0), vec![0, 0, 0, 0, 0xF7]);
+        let mut out = Vec::new();
+        let mut dec = d.decoder(None);
+        dec.feed(crate::rig::Direction::Tx, &d.poll_frequency(0), &mut out);
+        dec.feed(
+            crate::rig::Direction::Rx,
+            &[0x01, 0x40, 0x74, 0x00, 0x01],
+            &mut out,
+        );
+        assert_eq!(
+            out,
+            vec![crate::rig::RigEvent::Frequency { hz: 14_074_000 }]
+        );
     }
 
     fn text_with(from: &str, to: &str) -> String {

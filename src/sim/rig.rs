@@ -22,7 +22,7 @@ use std::time::Duration;
 use serde::{Deserialize, Serialize};
 
 use crate::rig::bcd;
-use crate::rig::dialect::{BinarySpec, Dialect, Spec, TextSpec};
+use crate::rig::dialect::{BinarySpec, BlockSpec, Dialect, Spec, TextSpec};
 
 /// One of the rig's two VFOs.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -407,6 +407,8 @@ impl Script {
 enum Wire {
     Binary(BinarySpec),
     Text(TextSpec),
+    /// Answers reads only; never reports on its own.
+    Block(BlockSpec),
 }
 
 // Binary-family command codes not in the dialect file (recalled from the
@@ -465,6 +467,7 @@ impl SimRig {
         let wire = match &dialect.spec {
             Spec::Binary(s) => Wire::Binary(s.clone()),
             Spec::Text(s) => Wire::Text(s.clone()),
+            Spec::Block(s) => Wire::Block(s.clone()),
         };
         let (min_hz, max_hz) = (
             options.min_hz.min(options.max_hz),
@@ -549,6 +552,7 @@ impl SimRig {
         match self.wire.clone() {
             Wire::Binary(s) => self.binary_frames(now, &s),
             Wire::Text(s) => self.text_messages(now, &s),
+            Wire::Block(s) => self.block_frames(now, &s),
         }
     }
 
@@ -695,6 +699,8 @@ impl SimRig {
                 let msg = text_frequency(&s, code, self.state.hz(vfo));
                 self.out.extend_from_slice(&msg);
             }
+            // The block family never reports on its own.
+            Wire::Block(_) => {}
         }
     }
 
@@ -720,6 +726,45 @@ impl SimRig {
             Wire::Text(s) => {
                 let msg = text_status(&s, &self.state);
                 self.out.extend_from_slice(&msg);
+            }
+            Wire::Block(_) => {}
+        }
+    }
+
+    // ---- the block family ----
+
+    /// Whole blocks, framed by count (the family has no framing bytes):
+    /// reads answered from the published layout (see
+    /// protocols/block-5.toml), the frequency set and keying obeyed, other
+    /// opcodes taken silently.
+    fn block_frames(&mut self, now: Duration, s: &BlockSpec) {
+        let n = s.block_length.max(1);
+        while self.inbuf.len() >= n {
+            let block: Vec<u8> = self.inbuf.drain(..n).collect();
+            let op = block.get(s.opcode_offset).copied().unwrap_or(0);
+            let before = self.state;
+            if op == s.read_frequency {
+                let answer = s.encode_frequency(self.state.operating_hz());
+                self.out.extend_from_slice(&answer);
+            } else if op == s.read_transmit {
+                let answer = s.encode_transmit(self.state.transmitting);
+                self.out.extend_from_slice(&answer);
+            } else if op == s.transmit_on {
+                self.state.transmitting = true;
+            } else if op == s.transmit_off {
+                self.state.transmitting = false;
+            } else if op == s.set_frequency {
+                let field = block.get(..s.frequency_bytes).unwrap_or_default();
+                if let Some(v) = s.read_bcd(field) {
+                    let hz = v.saturating_mul(s.unit_hz);
+                    if (self.min_hz..=self.max_hz).contains(&hz) {
+                        let vfo = self.state.rx_vfo;
+                        self.state.set_hz(vfo, hz);
+                    }
+                }
+            }
+            if self.state != before {
+                self.record(now, Cause::Cat);
             }
         }
     }

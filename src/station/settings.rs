@@ -449,7 +449,14 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
     // Which queries (if any) go to the rig is the mode's business:
     // `listen` never writes to the port. The rules are the config's
     // (checked once, in `Config::rig_use`).
-    let (every_ms, proxy_link) = match config.rig_use()? {
+    let rig_use = config.rig_use()?;
+    if station.dialect.family() == crate::rig::Family::Block && matches!(rig_use, RigUse::Listen) {
+        return Err(Error::Failed(format!(
+            "{file}: key `rig.mode`: expected \"poll\" or \"proxy\" for the block-family dialect `{}`, found \"listen\" (this family never reports on its own)",
+            station.dialect.name
+        )));
+    }
+    let (every_ms, proxy_link) = match rig_use {
         RigUse::Listen => (None, None),
         RigUse::Poll { every_ms } => (Some(every_ms), None),
         RigUse::Proxy { link, poll_ms } => (poll_ms, Some(link)),
@@ -478,9 +485,16 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
     let rig = match &proxy_link {
         Some(link) => {
             let link = link.clone();
-            let end = match &station.dialect.spec {
-                crate::rig::dialect::Spec::Binary(b) => b.terminator,
-                crate::rig::dialect::Spec::Text(t) => t.terminator,
+            let boundary: Box<dyn crate::port::proxy::Boundary> = match &station.dialect.spec {
+                crate::rig::dialect::Spec::Binary(b) => {
+                    Box::new(crate::port::proxy::ends_with(b.terminator))
+                }
+                crate::rig::dialect::Spec::Text(t) => {
+                    Box::new(crate::port::proxy::ends_with(t.terminator))
+                }
+                crate::rig::dialect::Spec::Block(k) => {
+                    Box::new(crate::port::proxy::every(k.block_length))
+                }
             };
             RigSource::Proxy {
                 config: ProxyConfig {
@@ -489,7 +503,7 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
                     poll,
                     backoff_cap: Duration::from_secs(2),
                 },
-                boundary: Box::new(crate::port::proxy::ends_with(end)),
+                boundary,
             }
         }
         None => RigSource::Link(LinkConfig {
