@@ -218,3 +218,41 @@ async fn kill_9_at_seeded_points_of_a_move_is_never_wrong_after_the_next_start()
     // But a controller that keeps its count is mostly trusted again.
     assert!(exact >= 2, "only {exact} of 4 exact");
 }
+
+/// Issue 11, a controller that restarted with another count: the journal
+/// says 2000 (clean), the double says 1234, which is no count a controller
+/// restarts from (0, the lower limit). The service says the position is
+/// unknown and neither `ZERO`s the controller to the journal's count nor
+/// adopts the controller's; nothing moves.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_controller_back_with_a_foreign_count_is_not_zeroed_nor_trusted() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, _far, rig_link) = rig_behind_symlink(dir.path());
+    let ctl = FaultyController::start(1234, 1000.0, Fault::None);
+    let config = common::station_config(dir.path(), &rig_link, &ctl.addr, 1000, "");
+    let journal = Journal::new(dir.path().join("motor.state"));
+    journal.record_position(2000).unwrap();
+    let log = dir.path().join("run.log");
+    let mut service = run(&config, &log);
+    eventually("the verdict on the position", || {
+        log_text(&log).contains("position unknown")
+    });
+    service.signal(libc::SIGTERM);
+    let _ = service.wait_exit(Duration::from_secs(20));
+    let said = ctl.received();
+    assert!(said.iter().any(|l| l == "WHERE"), "{said:?}");
+    assert!(
+        !said
+            .iter()
+            .any(|l| l.starts_with("ZERO") || l.starts_with("GOTO")),
+        "{said:?}"
+    );
+    // The double's truth: the motor never moved.
+    assert_eq!(ctl.position(), 1234);
+    assert_ne!(
+        journal.load().unwrap(),
+        Some(Recorded::Known(1234)),
+        "{}",
+        log_text(&log)
+    );
+}
