@@ -329,9 +329,7 @@ pub fn inhibit_settings(cfg: &InhibitConfig) -> Result<InhibitSettings, Error> {
                 )
             })?;
             if cfg!(not(target_os = "linux")) {
-                return Err(Error::Failed(
-                    "key `inhibit.line`: `gpio` needs Linux".to_string(),
-                ));
+                return Err(gpio_needs_linux());
             }
             Ok(InhibitSettings::Gpio {
                 chip,
@@ -340,6 +338,15 @@ pub fn inhibit_settings(cfg: &InhibitConfig) -> Result<InhibitSettings, Error> {
             })
         }
     }
+}
+
+/// `inhibit.line = "gpio"` on a system without GPIO character devices.
+fn gpio_needs_linux() -> Error {
+    Error::invalid(
+        Place::bare_key("inhibit.line"),
+        "`none`, `rts` or `dtr` (`gpio` needs Linux)",
+        "`gpio`",
+    )
 }
 
 /// Opens the line `[inhibit]` describes, driven on (inhibited).
@@ -351,8 +358,13 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
             signal,
             active_high,
         } => Ok(Box::new(
-            inhibit::open_modem_line(&port, signal, active_high)
-                .map_err(|e| Error::Failed(e.to_string()))?,
+            inhibit::open_modem_line(&port, signal, active_high).map_err(|e| {
+                Error::invalid(
+                    Place::Named(format!("inhibit port {port}")),
+                    "a serial device whose modem line can be driven",
+                    e.to_string(),
+                )
+            })?,
         )),
         #[cfg(target_os = "linux")]
         InhibitSettings::Gpio {
@@ -360,13 +372,16 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
             offset,
             active_high,
         } => Ok(Box::new(
-            inhibit::GpioLine::open(&chip, offset, active_high)
-                .map_err(|e| Error::Failed(e.to_string()))?,
+            inhibit::GpioLine::open(&chip, offset, active_high).map_err(|e| {
+                Error::invalid(
+                    Place::Named(format!("inhibit GPIO {chip} line {offset}")),
+                    "a GPIO line this user may drive",
+                    e.to_string(),
+                )
+            })?,
         )),
         #[cfg(not(target_os = "linux"))]
-        InhibitSettings::Gpio { .. } => Err(Error::Failed(
-            "key `inhibit.line`: `gpio` needs Linux".to_string(),
-        )),
+        InhibitSettings::Gpio { .. } => Err(gpio_needs_linux()),
     }
 }
 
@@ -375,26 +390,41 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
 pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, Error> {
     let (min, max) = (config.tuner.min_steps, config.tuner.max_steps);
     if !(min..=max).contains(&steps) {
-        return Err(Error::Failed(format!(
-            "position {steps}: expected a value within tuner.min_steps..tuner.max_steps ({min}..{max})"
-        )));
+        return Err(Error::invalid(
+            Place::Named("position".to_string()),
+            format!("a value within tuner.min_steps..tuner.max_steps ({min}..{max})"),
+            steps.to_string(),
+        ));
     }
     let lock = lock_path_for(config);
     match crate::lock::holder(&lock) {
         Ok(None) => {}
         Ok(Some(pid)) => {
-            return Err(Error::Failed(format!(
-                "tuneward run (pid {}) is driving this station (lock {}); its journal is not written behind its back: stop it first, or move the capacitor with `tuneward ctl goto STEPS`",
-                pid.map_or("unknown".to_string(), |p| p.to_string()),
-                lock.display()
-            )))
+            return Err(Error::invalid(
+                Place::Named(format!("lock {}", lock.display())),
+                "no tuneward run driving this station (its journal is not written behind its back: stop it first, or move the capacitor with `tuneward ctl goto STEPS`)",
+                format!(
+                    "tuneward run (pid {}) holding it",
+                    pid.map_or("unknown".to_string(), |p| p.to_string())
+                ),
+            ))
         }
-        Err(e) => return Err(Error::Failed(e.to_string())),
+        Err(e) => {
+            return Err(Error::invalid(
+                Place::Named(format!("lock {}", lock.display())),
+                "a readable lock file or none",
+                e.to_string(),
+            ))
+        }
     }
     let journal = journal_for(config);
-    journal
-        .record_position(steps)
-        .map_err(|e| Error::Failed(e.to_string()))?;
+    journal.record_position(steps).map_err(|e| {
+        Error::invalid(
+            Place::Named(format!("position journal {}", journal.path().display())),
+            "a journal the record can be written to",
+            e.to_string(),
+        )
+    })?;
     Ok(journal.path().to_path_buf())
 }
 
@@ -411,9 +441,11 @@ pub fn run_set_position(args: &SetPositionOptions) -> Result<(), Error> {
         args.steps,
         path.display()
     ) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::Failed(format!(
-            "cannot write to standard output: {e}"
-        ))),
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::invalid(
+            Place::Named("standard output".to_string()),
+            "a writable output",
+            e.to_string(),
+        )),
         _ => Ok(()),
     }
 }
@@ -466,9 +498,11 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
         Some(ms) => {
             let address = match (station.dialect.family(), config.rig.address) {
                 (crate::rig::Family::Binary, None) => {
-                    return Err(Error::Failed(format!(
-                        "{file}: key `rig.address`: polling a binary-family rig needs its address, found none"
-                    )))
+                    return Err(Error::invalid(
+                        Place::key(&file, "rig.address"),
+                        "the rig's address (polling a binary-family rig needs it)",
+                        "none",
+                    ))
                 }
                 (_, a) => a.unwrap_or(0),
             };
