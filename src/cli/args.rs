@@ -57,6 +57,9 @@ pub struct CaptureArgs {
     pub duration: Option<Duration>,
 }
 
+// clap's `value_parser` takes a function whose error is displayable and
+// prints it beside the argument's name; a String is what it expects, so the
+// clap value parsers stay String while the rest of the crate is typed.
 fn parse_duration(s: &str) -> Result<Duration, String> {
     tuneward::capture::parse_seconds(s).map_err(|e| format!("expected {e}, found `{s}`"))
 }
@@ -421,6 +424,7 @@ pub struct SimRigArgs {
     vfo_b: u64,
 }
 
+// A clap value parser: String error, as for `parse_duration`.
 fn parse_byte(s: &str) -> Result<u8, String> {
     let parsed = match s.strip_prefix("0x").or_else(|| s.strip_prefix("0X")) {
         Some(hex) => u8::from_str_radix(hex, 16),
