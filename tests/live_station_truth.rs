@@ -505,16 +505,19 @@ fn wait_ups(run: &Run, n: usize) {
     }
 }
 
-#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
+async fn unplugged_case(family: Family) {
     let dir = tempfile::tempdir().unwrap();
-    let (rig, rig_link, truth) = sim_rig(dir.path(), "text-semicolon");
+    let (rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
     let (addr, motor) = controller(1000, truth.clone());
-    let (run, shared) = run(dir.path(), "text-semicolon", &rig_link, &addr);
+    let (run, shared) = run(dir.path(), family.protocol(), &rig_link, &addr);
     let mut client = open_port(&shared, 38400);
-    say(&mut client, b"FA00007100000;IF;").await;
+    say(
+        &mut client,
+        &[family.set_receive(7_100_000), family.read_state()].concat(),
+    )
+    .await;
     std::thread::sleep(Duration::from_millis(400));
-    say(&mut client, b"TX;").await;
+    say(&mut client, &family.key(true)).await;
     std::thread::sleep(Duration::from_millis(200));
     assert!(rig_transmits(&truth));
     // The USB cable drops mid-over: the rig (and its port) is gone.
@@ -527,7 +530,7 @@ async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_know
     let script = dir.path().join("script.jsonl");
     let _rig2 = Proc(
         Command::new(BIN)
-            .args(["sim-rig", "--protocol", "text-semicolon", "--pty"])
+            .args(["sim-rig", "--protocol", family.protocol(), "--pty"])
             .arg(&rig_link)
             .arg("--script")
             .arg(&script)
@@ -541,16 +544,16 @@ async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_know
     wait_ups(&run, 2);
     // The program sets a new frequency; nothing says whether the rig
     // transmits, no inhibit is wired: nothing may move.
-    say(&mut client, b"FA00007150000;").await;
+    say(&mut client, &family.set_receive(7_150_000)).await;
     std::thread::sleep(Duration::from_millis(1_000));
     assert!(
         motor.lock().unwrap().gotos.is_empty(),
         "moved with the transmit state unknown: {:?}",
         motor.lock().unwrap()
     );
-    // The program reads the status: the rig says receive. Now it moves;
-    // 7.150 MHz is 1500 steps, by hand.
-    say(&mut client, b"IF;").await;
+    // The program reads the transmit state: the rig says receive. Now it
+    // moves; 7.150 MHz is 1500 steps, by hand.
+    say(&mut client, &family.read_state()).await;
     wait_motor(&motor, "tuned once the state is known", |m| {
         m.at == 1500 && !m.moving
     });
@@ -559,4 +562,14 @@ async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_know
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
     assert_eq!(m.gotos, vec![1500]);
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
+    unplugged_case(Family::Text).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn binary_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
+    unplugged_case(Family::Binary).await;
 }
