@@ -483,10 +483,14 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
     // (checked once, in `Config::rig_use`).
     let rig_use = config.rig_use()?;
     if station.dialect.family() == crate::rig::Family::Block && matches!(rig_use, RigUse::Listen) {
-        return Err(Error::Failed(format!(
-            "{file}: key `rig.mode`: expected \"poll\" or \"proxy\" for the block-family dialect `{}`, found \"listen\" (this family never reports on its own)",
-            station.dialect.name
-        )));
+        return Err(Error::invalid(
+            Place::key(&file, "rig.mode"),
+            format!(
+                "\"poll\" or \"proxy\" for the block-family dialect `{}`",
+                station.dialect.name
+            ),
+            "\"listen\" (this family never reports on its own)",
+        ));
     }
     let (every_ms, proxy_link) = match rig_use {
         RigUse::Listen => (None, None),
@@ -526,9 +530,10 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
                 crate::rig::dialect::Spec::Text(t) => {
                     Box::new(crate::port::proxy::ends_with(t.terminator))
                 }
-                crate::rig::dialect::Spec::Block(k) => {
-                    Box::new(crate::port::proxy::every(k.block_length))
-                }
+                crate::rig::dialect::Spec::Block(k) => Box::new(crate::port::proxy::every(
+                    k.block_length,
+                    Duration::from_millis(k.gap_ms),
+                )),
             };
             RigSource::Proxy {
                 config: ProxyConfig {

@@ -7,6 +7,7 @@
 #![allow(dead_code)]
 
 pub mod controller;
+pub mod truth;
 
 use std::io::{BufRead, BufReader};
 use std::path::{Path, PathBuf};
