@@ -9,7 +9,7 @@ use tokio::sync::{mpsc, watch};
 use tokio::time::timeout;
 use tokio_serial::{SerialPort, SerialStream};
 use tuneward::port::link::{LinkEvent, PollConfig, PortSettings};
-use tuneward::port::proxy::{ends_with, spawn, ProxyConfig};
+use tuneward::port::proxy::{ends_with, every, spawn, Boundary, ProxyConfig};
 use tuneward::rig::Direction;
 
 mod common;
@@ -26,6 +26,10 @@ struct Setup {
 }
 
 async fn setup(poll: Option<PollConfig>) -> Setup {
+    setup_with(poll, Box::new(ends_with(b';'))).await
+}
+
+async fn setup_with(poll: Option<PollConfig>, boundary: Box<dyn Boundary>) -> Setup {
     let dir = tempfile::tempdir().unwrap();
     let (rig, rig_far) = SerialStream::pair().unwrap();
     let rig_path = rig_far.name().unwrap();
@@ -38,7 +42,7 @@ async fn setup(poll: Option<PollConfig>) -> Setup {
         poll,
         backoff_cap: Duration::from_millis(200),
     };
-    spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
+    spawn(cfg, boundary, tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
     // The other program opens the symlink like any serial port.
     let other = open_port(&link, 19_200);
@@ -128,6 +132,68 @@ async fn poll_queries_wait_for_the_end_of_the_other_programs_message() {
     // message unchanged.
     let tx = collect(&mut s.events, Direction::Tx, text.len()).await;
     assert_eq!(String::from_utf8(tx).unwrap(), text);
+}
+
+/// Framing by count (the block family): the other program loses a byte of
+/// a block. Our queries wait while the block is unfinished, go again once
+/// it is given up after the dialect's quiet gap, and the program's next
+/// whole block is counted as one (the count resynchronised), so our
+/// queries keep going between its blocks.
+#[tokio::test]
+async fn block_framing_resynchronises_after_a_lost_byte() {
+    let query = vec![0, 0, 0, 0, 0x03];
+    let mut s = setup_with(
+        Some(PollConfig {
+            query: query.clone(),
+            every: Duration::from_millis(20),
+            max_every: Duration::from_millis(40),
+        }),
+        Box::new(every(5, Duration::from_millis(100))),
+    )
+    .await;
+    tokio::time::sleep(Duration::from_millis(100)).await;
+    // The transmit-status read 00 00 00 00 F7 with one 00 lost.
+    let fragment = [0u8, 0, 0, 0xF7];
+    s.other.write_all(&fragment).await.unwrap();
+    tokio::time::sleep(Duration::from_millis(400)).await;
+    // A whole block (00 00 00 00 F7), then time for queries after it.
+    let whole = [0u8, 0, 0, 0, 0xF7];
+    s.other.write_all(&whole).await.unwrap();
+    tokio::time::sleep(Duration::from_millis(300)).await;
+    let mut wire = Vec::new();
+    let mut b = [0u8; 4096];
+    while let Ok(r) = timeout(Duration::from_millis(100), s.rig.read(&mut b)).await {
+        wire.extend_from_slice(&b[..r.unwrap()]);
+    }
+    // Before the fragment: whole queries only.
+    let at = wire
+        .windows(4)
+        .position(|w| w == fragment)
+        .unwrap_or_else(|| panic!("no fragment in {wire:02X?}"));
+    assert_eq!(at % 5, 0, "{wire:02X?}");
+    assert!(wire[..at].chunks(5).all(|c| c == query), "{wire:02X?}");
+    // After it: whole blocks, our queries and the program's one block.
+    let rest = &wire[at + 4..];
+    assert_eq!(rest.len() % 5, 0, "{wire:02X?}");
+    let blocks: Vec<&[u8]> = rest.chunks(5).collect();
+    let w = blocks
+        .iter()
+        .position(|c| *c == whole)
+        .unwrap_or_else(|| panic!("no whole block after the fragment: {wire:02X?}"));
+    assert!(
+        blocks.iter().all(|c| *c == query || *c == whole),
+        "{wire:02X?}"
+    );
+    // Queries went while the program was quiet after the lost byte (the
+    // fragment given up) and between its blocks afterwards.
+    assert!(
+        w >= 2,
+        "no query after the fragment was given up: {wire:02X?}"
+    );
+    assert!(
+        blocks.len() > w + 2,
+        "no query after the whole block: {wire:02X?}"
+    );
 }
 
 #[tokio::test]

@@ -21,7 +21,7 @@
 //! dropped and logged at debug level) until the rig is back.
 
 use std::path::PathBuf;
-use std::time::Duration;
+use std::time::{Duration, Instant as StdInstant};
 
 use bytes::{Bytes, BytesMut};
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
@@ -39,13 +39,22 @@ use crate::shutdown::Shutdown;
 use crate::timing::sleep_until_opt;
 
 /// Says whether the other program's byte stream is at a message boundary
-/// after `chunk` (the latest bytes it wrote).
+/// after `chunk` (the latest bytes it wrote, read at `at`).
 pub trait Boundary: Send {
-    fn at_boundary(&mut self, chunk: &[u8]) -> bool;
+    fn at_boundary(&mut self, at: StdInstant, chunk: &[u8]) -> bool;
+    /// When, with nothing more from the other program, a message it left
+    /// unfinished is given up (its stream counts as at a boundary again):
+    /// `None` when nothing is unfinished or the framing never gives up.
+    fn gives_up_at(&self) -> Option<StdInstant> {
+        None
+    }
+    /// Called at [`gives_up_at`](Boundary::gives_up_at): the unfinished
+    /// message is given up.
+    fn give_up(&mut self) {}
 }
 
 impl<F: FnMut(&[u8]) -> bool + Send> Boundary for F {
-    fn at_boundary(&mut self, chunk: &[u8]) -> bool {
+    fn at_boundary(&mut self, _at: StdInstant, chunk: &[u8]) -> bool {
         self(chunk)
     }
 }
@@ -57,13 +66,57 @@ pub fn ends_with(end: u8) -> impl Boundary {
 }
 
 /// A boundary after every `n` bytes (the block family: framed by count,
-/// with no end byte).
-pub fn every(n: usize) -> impl Boundary {
-    let n = n.max(1);
-    let mut seen = 0usize;
-    move |chunk: &[u8]| {
-        seen = (seen + chunk.len()) % n;
-        seen == 0
+/// with no end byte), counted afresh after a quiet gap longer than `gap`
+/// inside a block: a block cut short by a lost byte is given up, as the
+/// decoder gives it up (`block.gap_ms`, the same rule), instead of the
+/// count staying one byte off for ever. The gap is the dialect's, not one
+/// block's time at the baud (1.3 ms at 38 400 baud): a USB adapter or a
+/// pseudo-terminal hands a block over in pieces that far apart (common
+/// practice, no source), which would resynchronise in the middle of whole
+/// blocks.
+pub fn every(n: usize, gap: Duration) -> Every {
+    Every {
+        n: n.max(1),
+        gap,
+        seen: 0,
+        last: None,
+    }
+}
+
+/// [`every`]'s counter.
+#[derive(Debug, Clone)]
+pub struct Every {
+    n: usize,
+    gap: Duration,
+    /// Bytes of the block under way.
+    seen: usize,
+    /// When its latest byte came.
+    last: Option<StdInstant>,
+}
+
+impl Boundary for Every {
+    fn at_boundary(&mut self, at: StdInstant, chunk: &[u8]) -> bool {
+        if self.seen != 0
+            && self
+                .last
+                .is_some_and(|l| at.saturating_duration_since(l) > self.gap)
+        {
+            self.seen = 0;
+        }
+        self.last = Some(at);
+        self.seen = (self.seen + chunk.len()) % self.n;
+        self.seen == 0
+    }
+
+    fn gives_up_at(&self) -> Option<StdInstant> {
+        match (self.seen, self.last) {
+            (0, _) | (_, None) => None,
+            (_, Some(l)) => l.checked_add(self.gap),
+        }
+    }
+
+    fn give_up(&mut self) {
+        self.seen = 0;
     }
 }
 
@@ -192,6 +245,13 @@ impl Proxy {
             } else {
                 poll.as_ref().map(|p| p.due)
             };
+            // A query waiting on a message the other program left
+            // unfinished goes once that message is given up.
+            let give_up = if pending {
+                self.boundary.gives_up_at().map(Instant::from_std)
+            } else {
+                None
+            };
             tokio::select! {
                 _ = self.shutdown.wait() => return End::Shutdown,
                 r = rig.read_buf(&mut from_rig) => {
@@ -230,7 +290,7 @@ impl Proxy {
                     if let Err(e) = write_all_timeout(&mut rig, &bytes).await {
                         return End::RigDown(e);
                     }
-                    self.other_at_boundary = self.boundary.at_boundary(&bytes);
+                    self.other_at_boundary = self.boundary.at_boundary(StdInstant::now(), &bytes);
                     if !self.emit(Direction::Tx, bytes).await {
                         return End::Shutdown;
                     }
@@ -240,6 +300,17 @@ impl Proxy {
                             if let Err(e) = self.inject(&mut rig, p).await {
                                 return e;
                             }
+                        }
+                    }
+                }
+                _ = sleep_until_opt(give_up) => {
+                    self.boundary.give_up();
+                    self.other_at_boundary = true;
+                    pending = false;
+                    tracing::debug!("the other program's unfinished message given up: polling");
+                    if let Some(p) = poll.as_mut() {
+                        if let Err(e) = self.inject(&mut rig, p).await {
+                            return e;
                         }
                     }
                 }
@@ -266,5 +337,54 @@ impl Proxy {
         } else {
             Err(End::Shutdown)
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ms(n: u64) -> Duration {
+        Duration::from_millis(n)
+    }
+
+    #[test]
+    fn every_counts_blocks_in_any_pieces() {
+        let t0 = StdInstant::now();
+        let mut b = every(5, ms(100));
+        assert!(!b.at_boundary(t0, &[0, 0]));
+        assert!(!b.at_boundary(t0 + ms(2), &[0, 0]));
+        assert!(b.at_boundary(t0 + ms(4), &[3]));
+        assert_eq!(b.gives_up_at(), None);
+        // Two blocks at once, then one and a half.
+        assert!(b.at_boundary(t0 + ms(5), &[0; 10]));
+        assert!(!b.at_boundary(t0 + ms(6), &[0; 7]));
+        assert!(b.at_boundary(t0 + ms(7), &[0; 3]));
+    }
+
+    #[test]
+    fn a_lost_byte_is_forgotten_after_a_quiet_gap() {
+        let t0 = StdInstant::now();
+        let mut b = every(5, ms(100));
+        // A block with a byte lost on the way: four bytes, then quiet.
+        assert!(!b.at_boundary(t0, &[0, 0, 0, 0xF7]));
+        assert_eq!(b.gives_up_at(), Some(t0 + ms(100)));
+        // The next whole block, after the gap, is a block again.
+        assert!(b.at_boundary(t0 + ms(101), &[0, 0, 0, 0, 3]));
+        assert!(b.at_boundary(t0 + ms(102), &[0, 0, 0, 0, 3]));
+        // Without the gap the count stays one byte off.
+        let mut b = every(5, ms(100));
+        assert!(!b.at_boundary(t0, &[0, 0, 0, 0xF7]));
+        assert!(!b.at_boundary(t0 + ms(50), &[0, 0, 0, 0, 3]));
+    }
+
+    #[test]
+    fn giving_up_puts_the_stream_at_a_boundary() {
+        let t0 = StdInstant::now();
+        let mut b = every(5, ms(100));
+        assert!(!b.at_boundary(t0, &[0, 0]));
+        b.give_up();
+        assert_eq!(b.gives_up_at(), None);
+        assert!(b.at_boundary(t0 + ms(1), &[0, 0, 0, 0, 3]));
     }
 }
