@@ -201,7 +201,7 @@ async fn proxied_block_rig_is_followed_from_the_other_programs_reads() {
         "# the operator works through the other program\n",
     );
     let (addr, motor) = controller(0, SPEED, truth.clone());
-    let (_run, shared) = run_proxy(dir.path(), &link, &addr);
+    let (run, shared) = run_proxy(dir.path(), &link, &addr);
     let mut client = open_port(&shared, 38400);
     // The other program sets 7.150 MHz, then reads frequency and status.
     say(&mut client, &set_frequency(7_150_000)).await;
@@ -217,6 +217,48 @@ async fn proxied_block_rig_is_followed_from_the_other_programs_reads() {
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
     assert_eq!(m.gotos, vec![1500]);
+    drop(m);
+    // The log said once why the set alone moved nothing.
+    let said = run
+        .log()
+        .iter()
+        .filter(|l| l.contains("does not say which VFO"))
+        .count();
+    assert_eq!(said, 1, "{}", run.log().join("\n"));
+}
+
+#[test]
+fn check_notes_once_that_the_other_programs_sets_are_not_taken() {
+    let dir = tempfile::tempdir().unwrap();
+    let shared = dir.path().join("shared");
+    let keys = format!("mode = \"proxy\"\nproxy_link = \"{}\"", shared.display());
+    let proxied = config(dir.path(), Path::new("/dev/null"), "127.0.0.1:1", &keys);
+    let out = Command::new(BIN)
+        .args(["check", "--config"])
+        .arg(&proxied)
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&out.stdout);
+    let notes: Vec<&str> = text
+        .lines()
+        .filter(|l| l.contains("does not say which VFO"))
+        .collect();
+    assert_eq!(notes.len(), 1, "{text}");
+    assert!(notes[0].contains("rig.mode"), "{text}");
+    // In poll mode there is no other program: nothing to say.
+    let polled = config(
+        dir.path(),
+        Path::new("/dev/null"),
+        "127.0.0.1:1",
+        "mode = \"poll\"",
+    );
+    let out = Command::new(BIN)
+        .args(["check", "--config"])
+        .arg(&polled)
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(!text.contains("does not say which VFO"), "{text}");
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]

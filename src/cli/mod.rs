@@ -164,6 +164,9 @@ fn run_live(args: &RunArgs) -> Result<(), Failure> {
     let control =
         tuneward::station::control_setup(&station, &args.config).map_err(|e| plain(&e))?;
     let parts = ServiceParts::from_station(&station).map_err(|e| plain(&e))?;
+    if let Some(caveat) = tuneward::station::settings::rig_caveat(&station) {
+        tracing::info!("{caveat}");
+    }
     let summary = run_until_signal(parts, Some(control)).map_err(|e| plain(&e))?;
     if summary.unconfirmed {
         return Err(Failure {

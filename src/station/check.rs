@@ -212,7 +212,7 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
                 Grade::Note,
                 "rig.address",
                 format!(
-                    "`{}` is a text-family dialect, which has no addresses: the key is ignored",
+                    "`{}` is not a binary-family dialect, and only that family has addresses: the key is ignored",
                     station.dialect.name
                 ),
                 "remove it",
@@ -255,6 +255,14 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
         None if family == Family::Binary => "only what the rig reports on its own: turn its auto-report (transceive) on; the binary family's reports carry the frequency, not the transmit state, so only the inhibit line stops a transmission during a move".to_string(),
         None => "only what the rig reports on its own: turn its auto-report (transceive) on".to_string(),
     };
+    if let Some(caveat) = settings::rig_caveat(station) {
+        findings.push(Finding::new(
+            Grade::Note,
+            "rig.mode",
+            caveat,
+            "set rig.poll_ms (below the debounce) so that a set is followed without waiting for the program's own read",
+        ));
+    }
     let mode = match c.rig.mode {
         crate::config::RigMode::Listen => "listen",
         crate::config::RigMode::Poll => "poll",

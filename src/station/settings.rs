@@ -455,6 +455,19 @@ fn config_name(config: &Config) -> String {
     config.path_for_errors().display().to_string()
 }
 
+/// What the rig's family cannot tell tuneward in the configured mode, said
+/// once by `check` (a note) and by `run` (its log) from this one sentence:
+/// in proxy mode the block family's frequency set does not say which VFO
+/// it is for, and the family cannot read the other VFO without switching
+/// the operator's, so the other program's sets are not taken; the next
+/// frequency read tells.
+pub fn rig_caveat(station: &Station) -> Option<&'static str> {
+    let proxy = matches!(station.config.rig_use(), Ok(RigUse::Proxy { .. }));
+    (proxy && station.dialect.family() == crate::rig::Family::Block).then_some(
+        "the block family's frequency set does not say which VFO it is for, so tuneward takes nothing from the other program's sets: the next frequency read (the program's own, or rig.poll_ms) tells",
+    )
+}
+
 /// The rig's port as `[rig]` describes it: `port`, `baud` and framing, and
 /// the `mode`: `listen` (read only), `poll` (queries every `poll_ms`) or
 /// `proxy` (shared through a pseudo-terminal at `proxy_link`, which is
