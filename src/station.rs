@@ -18,6 +18,7 @@ use crate::tuner::sim::SimParams;
 
 pub mod check;
 pub mod error;
+pub mod probe;
 pub mod settings;
 pub use check::{check, check_with, CheckOptions, Finding, Grade};
 pub use settings::{

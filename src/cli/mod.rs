@@ -79,6 +79,20 @@ pub enum Command {
         #[arg(long)]
         strict: bool,
     },
+    /// Find the rig's port speed (and a binary-family rig's address): open
+    /// `rig.port` at the configured speed, then at the other common ones,
+    /// send the dialect's reads only (never a set or a keying command) and
+    /// listen; print what each speed gave and the `[rig]` lines to use.
+    ///
+    /// Exit status 0 when a speed gave a clean answer, 1 when none did.
+    Probe {
+        /// The station's config (TOML).
+        #[arg(long, short)]
+        config: PathBuf,
+        /// How long to listen at each speed, in ms.
+        #[arg(long, default_value_t = 400, value_name = "MS")]
+        listen_ms: u64,
+    },
     /// Follow the rig and drive the tuner controller: the live service.
     ///
     /// Runs until SIGINT (Ctrl-C) or SIGTERM, then lets the move under way
@@ -335,6 +349,18 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             tuneward::quality::run_bench(config.as_deref(), &options, json, &mut out)
                 .map(|_| ())
                 .map_err(|e| Failure::with_causes(&e))
+        }
+        Command::Probe { config, listen_ms } => {
+            let plain = |e: &dyn std::fmt::Display| Failure::plain(e.to_string());
+            let station = tuneward::station::Station::load(&config).map_err(|e| plain(&e))?;
+            let listen = std::time::Duration::from_millis(listen_ms);
+            match tuneward::station::probe::probe(&station, listen, &mut out) {
+                Ok(true) => Ok(()),
+                Ok(false) => Err(Failure::plain(
+                    "probe: the rig was not found at any speed tried".to_string(),
+                )),
+                Err(e) => Err(plain(&e)),
+            }
         }
         Command::Check { config, strict } => {
             let options = tuneward::station::CheckOptions { strict };

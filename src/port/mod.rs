@@ -3,5 +3,6 @@
 //! bytes mean is decided in [`crate::rig`], which knows nothing of ports.
 
 pub mod link;
+pub mod probe;
 pub mod proxy;
 pub mod pty;

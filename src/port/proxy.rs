@@ -10,9 +10,11 @@
 //!
 //! If the rig needs polling, the proxy's own query is only sent between the
 //! other program's messages: a [`Boundary`] (from the decoder's family: a
-//! text frame ends in `;`, a binary frame in its end byte) says after each
-//! chunk whether that program's stream is at a message boundary. A query
-//! that falls due in the middle of a message waits until it is complete.
+//! text frame ends in `;`, a binary frame in its end byte, a block is a
+//! count of bytes) says after each chunk whether that program's stream is
+//! at a message boundary. A query that falls due in the middle of a
+//! message waits until it is complete, or, for framing by count, until
+//! the message is given up after a quiet gap ([`every`]).
 //! The rig's answer to our query reaches the other program too (the proxy
 //! changes nothing on the wire); programs that share a port expect that.
 //!

@@ -14,6 +14,7 @@ pub mod block;
 pub mod dialect;
 mod keys;
 pub mod meter;
+pub mod probe;
 mod swar;
 mod text;
 
