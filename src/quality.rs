@@ -498,12 +498,18 @@ fn run_policy(
     setup.policy.while_unknown = crate::follow::WhileUnknown::MoveUnderInhibit;
     let mut log = InhibitLog(Vec::new());
     let mut replay = Replay::new(setup, &mut log);
+    // A polled-only family's reads go to the rig just before each answer.
+    let asks = DialectWire {
+        dialect: &station.dialect,
+        address: station.config.rig.address.unwrap_or(0x94),
+    };
+    let request = |what: &Happening| crate::scenario::Wire::request(&asks, what);
     let mut hz = 0u64;
     // The operator holds the key.
     let mut keyed = false;
     // Keyed under the inhibit: the rig is held off in receive; its
     // transmit report, kept here, goes out when the inhibit is released.
-    let mut held: Option<&[u8]> = None;
+    let mut held: Option<(&Happening, &[u8])> = None;
     let mut prev = Duration::ZERO;
     // The last SWR worked out, by capacitor position and frequency.
     let mut cache: Option<(f64, u64, f64)> = None;
@@ -512,10 +518,18 @@ fn run_policy(
             let mut ts = prev;
             while ts < *t {
                 replay.advance(ts)?;
-                if let Some(report) = held {
+                if let Some((what, report)) = held {
                     if !replay.core().inhibit() {
                         // Released: the rig goes on the air now.
                         held = None;
+                        let asked = request(what);
+                        if !asked.is_empty() {
+                            replay.feed(Chunk {
+                                t: ts,
+                                dir: Direction::Tx,
+                                bytes: &asked,
+                            })?;
+                        }
                         replay.feed(Chunk {
                             t: ts,
                             dir: *dir,
@@ -563,7 +577,7 @@ fn run_policy(
                 keyed = true;
                 replay.advance(*t)?;
                 if replay.core().inhibit() {
-                    held = Some(bytes);
+                    held = Some((what, bytes));
                     feed = false;
                 }
             }
@@ -575,6 +589,14 @@ fn run_policy(
             Happening::Noise { .. } => {}
         }
         if feed {
+            let asked = request(what);
+            if !asked.is_empty() {
+                replay.feed(Chunk {
+                    t: *t,
+                    dir: Direction::Tx,
+                    bytes: &asked,
+                })?;
+            }
             replay.feed(Chunk {
                 t: *t,
                 dir: *dir,
@@ -692,7 +714,7 @@ pub fn bench_follow(
         for &seed in &options.seeds {
             let sc = family.evening(seed, options.hours, &bands);
             family_dwells += sc.dwells.len();
-            let chunks = sc.chunks(&wire);
+            let chunks = sc.answers(&wire);
             let floors = optimum(station, &physics, &sc, &mut t[2]);
             for (i, policy) in [&ours, &plain].into_iter().enumerate() {
                 let mut one = Tally::default();
@@ -964,7 +986,7 @@ mod tests {
         };
         for seed in [3, 4] {
             let sc = random_evening(seed, 2.0, &bands);
-            let chunks = sc.chunks(&wire);
+            let chunks = sc.answers(&wire);
             run_policy(&st, &fixed, &sc, &chunks, &sim_loop, &mut tally).unwrap();
         }
         assert!(tally.radiated - tally.ok_1_5 > 0.0);
@@ -988,7 +1010,7 @@ mod tests {
             address: 0x94,
         };
         let mut tally = Tally::default();
-        run_policy(st, policy, sc, &sc.chunks(&wire), &sim_loop, &mut tally).unwrap();
+        run_policy(st, policy, sc, &sc.answers(&wire), &sim_loop, &mut tally).unwrap();
         tally
     }
 

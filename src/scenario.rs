@@ -23,6 +23,23 @@ pub enum Happening {
 pub trait Wire {
     fn frequency(&self, hz: u64) -> Vec<u8>;
     fn transmit(&self, on: bool) -> Vec<u8>;
+    /// The read that prompts `what`, sent to the rig just before its
+    /// answer, for a family that never speaks unasked (the block family
+    /// pairs each answer with its request); empty for a family that
+    /// reports on its own.
+    fn request(&self, what: &Happening) -> Vec<u8> {
+        let _ = what;
+        Vec::new()
+    }
+}
+
+/// The bytes a rig of `wire`'s family sends for `what`.
+fn answer(wire: &dyn Wire, what: &Happening) -> Vec<u8> {
+    match what {
+        Happening::Report { hz } => wire.frequency(*hz),
+        Happening::Transmit { on } => wire.transmit(*on),
+        Happening::Noise { bytes } => bytes.clone(),
+    }
 }
 
 /// A span of time the operator stayed on one frequency.
@@ -218,7 +235,8 @@ impl Script {
     }
 }
 
-/// Writes `scenario` as a capture file (all bytes as received from the rig),
+/// Writes `scenario` as a capture file (the rig's bytes, each after the
+/// read that prompted it where the family is polled only),
 /// one record at a time: nothing but the scenario itself is held. Returns
 /// the number of records written.
 pub fn write_capture<W: std::io::Write>(
@@ -230,15 +248,17 @@ pub fn write_capture<W: std::io::Write>(
     w.comment("an invented scenario, generated")?;
     let mut records = 0;
     for (t, what) in &scenario.steps {
-        let bytes = match what {
-            Happening::Report { hz } => wire.frequency(*hz),
-            Happening::Transmit { on } => wire.transmit(*on),
-            Happening::Noise { bytes } => bytes.clone(),
-        };
-        if !bytes.is_empty() {
-            w.write_record(*t, Direction::Rx, &bytes)?;
+        let bytes = answer(wire, what);
+        if bytes.is_empty() {
+            continue;
+        }
+        let request = wire.request(what);
+        if !request.is_empty() {
+            w.write_record(*t, Direction::Tx, &request)?;
             records += 1;
         }
+        w.write_record(*t, Direction::Rx, &bytes)?;
+        records += 1;
     }
     w.flush()?;
     Ok(records)
@@ -259,18 +279,28 @@ pub struct Scenario {
 
 impl Scenario {
     /// The bytes on the rig port, in time order, as a rig of `wire`'s family
-    /// would send them.
+    /// would send them, each answer after the read that prompted it where
+    /// the family is polled only ([`Wire::request`], at the same time).
     pub fn chunks(&self, wire: &dyn Wire) -> Vec<(Duration, Direction, Vec<u8>)> {
+        let mut out = Vec::with_capacity(self.steps.len());
+        for (t, what) in &self.steps {
+            let bytes = answer(wire, what);
+            let request = wire.request(what);
+            if !request.is_empty() && !bytes.is_empty() {
+                out.push((*t, Direction::Tx, request));
+            }
+            out.push((*t, Direction::Rx, bytes));
+        }
+        out
+    }
+
+    /// The rig's bytes only, one chunk per step (`steps[i]` gave
+    /// `answers[i]`), for a driver that decides step by step when each
+    /// goes out (bench-follow); [`Wire::request`] gives the read before it.
+    pub fn answers(&self, wire: &dyn Wire) -> Vec<(Duration, Direction, Vec<u8>)> {
         self.steps
             .iter()
-            .map(|(t, what)| {
-                let bytes = match what {
-                    Happening::Report { hz } => wire.frequency(*hz),
-                    Happening::Transmit { on } => wire.transmit(*on),
-                    Happening::Noise { bytes } => bytes.clone(),
-                };
-                (*t, Direction::Rx, bytes)
-            })
+            .map(|(t, what)| (*t, Direction::Rx, answer(wire, what)))
             .collect()
     }
 }
@@ -749,5 +779,61 @@ mod tests {
         let b = demo_evening();
         assert_eq!(a.steps, b.steps);
         assert!(a.end > Duration::from_secs(1_800), "{:?}", a.end);
+    }
+
+    /// A polled-only family: `?` before a frequency, `!` before a transmit
+    /// state, nothing before noise.
+    struct Asked;
+    impl Wire for Asked {
+        fn frequency(&self, hz: u64) -> Vec<u8> {
+            Plain.frequency(hz)
+        }
+        fn transmit(&self, on: bool) -> Vec<u8> {
+            Plain.transmit(on)
+        }
+        fn request(&self, what: &Happening) -> Vec<u8> {
+            match what {
+                Happening::Report { .. } => b"?".to_vec(),
+                Happening::Transmit { .. } => b"!".to_vec(),
+                Happening::Noise { .. } => Vec::new(),
+            }
+        }
+    }
+
+    #[test]
+    fn a_polled_familys_reads_go_just_before_each_answer() {
+        let sc = random_evening(6, 0.5, &[(7_000_000, 7_200_000)]);
+        let chunks = sc.chunks(&Asked);
+        let answers = sc.answers(&Asked);
+        // Every answer as before, each report's after its read, same time.
+        let rx: Vec<_> = chunks
+            .iter()
+            .filter(|c| c.1 == Direction::Rx)
+            .cloned()
+            .collect();
+        assert_eq!(rx, answers);
+        assert_eq!(answers, sc.chunks(&Plain));
+        for (t, what) in &sc.steps {
+            let want: &[u8] = match what {
+                Happening::Report { .. } => b"?",
+                Happening::Transmit { .. } => b"!",
+                Happening::Noise { .. } => continue,
+            };
+            let at = chunks
+                .iter()
+                .position(|c| c.0 == *t && c.1 == Direction::Rx && c.2 == answer(&Asked, what))
+                .unwrap();
+            assert!(at > 0);
+            assert_eq!(chunks[at - 1], (*t, Direction::Tx, want.to_vec()));
+        }
+        // The capture writer writes the same.
+        let mut file = Vec::new();
+        write_capture(&sc, &Asked, &mut file).unwrap();
+        let back: Vec<(Duration, Direction, Vec<u8>)> =
+            crate::capture::CaptureReader::new(file.as_slice(), "s.cap")
+                .map(|r| r.map(|r| (r.t, r.dir, r.bytes)))
+                .collect::<Result<_, _>>()
+                .unwrap();
+        assert_eq!(back, chunks);
     }
 }

@@ -264,4 +264,17 @@ impl crate::scenario::Wire for DialectWire<'_> {
     fn transmit(&self, on: bool) -> Vec<u8> {
         self.dialect.encode_transmit(on, self.address)
     }
+    /// The block family answers only when asked: its frequency read before
+    /// a frequency, its transmit-status read before a transmit state.
+    fn request(&self, what: &crate::scenario::Happening) -> Vec<u8> {
+        use crate::scenario::Happening;
+        if self.dialect.family() != crate::rig::Family::Block {
+            return Vec::new();
+        }
+        match what {
+            Happening::Report { .. } => self.dialect.poll_frequency(self.address),
+            Happening::Transmit { .. } => self.dialect.poll_transmit(self.address),
+            Happening::Noise { .. } => Vec::new(),
+        }
+    }
 }

@@ -95,3 +95,71 @@ fn a_station_without_a_described_loop_is_refused_with_the_key() {
     assert!(err.contains("antenna"), "{err}");
     assert!(err.contains("expected") && err.contains("found"), "{err}");
 }
+
+/// The rig family is how the reports travel, not what the operator did:
+/// the bundled quality station measured with its rig speaking the block
+/// family (each report an answer to a read the writer puts before it)
+/// scores as with its own binary-family rig. The block family reports in
+/// 10 Hz units (its published table, recalled), the binary one in 1 Hz,
+/// so a report may be up to 9 Hz lower: a target a step or so apart, and
+/// for the naive policy (a move per differing report) two reports that
+/// became equal. What our policy decides and how well the loop is tuned
+/// are the same.
+#[test]
+fn the_block_family_scores_as_the_binary_family_on_the_same_evenings() {
+    let dir = tempfile::tempdir().unwrap();
+    let here = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let text = std::fs::read_to_string(here.join("fixtures/quality/station.toml")).unwrap();
+    assert!(
+        text.contains("protocol = \"binary-bcd\""),
+        "the fixture changed"
+    );
+    let block = dir.path().join("station.toml");
+    std::fs::write(
+        &block,
+        text.replace("protocol = \"binary-bcd\"", "protocol = \"block-5\""),
+    )
+    .unwrap();
+    let run = |config: &Path| -> serde_json::Value {
+        let out = tuneward(&[
+            "bench-follow",
+            "--evenings",
+            "1",
+            "--hours",
+            "1",
+            "--json",
+            "--config",
+            config.to_str().unwrap(),
+        ]);
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        serde_json::from_slice(&out.stdout).unwrap()
+    };
+    let binary = run(&here.join("fixtures/quality/station.toml"));
+    let blocks = run(&block);
+    let (b, k) = (&binary["rows"][0], &blocks["rows"][0]);
+    assert_eq!(k["policy"], "follow");
+    for same in [
+        "moves",
+        "swr_1_5_pct",
+        "swr_2_pct",
+        "violations",
+        "jump_calls",
+        "sweep_calls",
+    ] {
+        assert_eq!(k[same], b[same], "{same}: block {k}\nbinary {b}");
+    }
+    assert!(k["moves"].as_u64().unwrap() > 0, "{k}");
+    let travel = |r: &serde_json::Value| r["travel_steps"].as_f64().unwrap();
+    assert!(
+        (travel(k) - travel(b)).abs() <= travel(b) * 1e-4,
+        "travel: block {k}\nbinary {b}"
+    );
+    let naive = |r: &serde_json::Value| r["rows"][1]["moves"].as_f64().unwrap();
+    assert!((naive(&blocks) - naive(&binary)).abs() <= naive(&binary) * 0.01);
+    // The optimum knows the evening, not the wire: identical.
+    assert_eq!(blocks["rows"][2], binary["rows"][2]);
+}

@@ -13,6 +13,10 @@ const RIG: u8 = 0x5A;
 
 /// The self-reporting families' built-ins: the block family answers only
 /// requests, so its properties live with its decoder (src/rig/block/).
+/// The scenario writer's reads (`Wire::request`) do not make these
+/// applicable: they feed the rig's bytes alone, and a block answer means
+/// nothing without the read before it and its time (the family's only
+/// resynchronisation is a quiet gap).
 fn reporting() -> Vec<&'static str> {
     Dialect::builtin_names()
         .iter()

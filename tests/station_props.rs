@@ -3,6 +3,9 @@
 //! in the same order, whatever else the station decoder adds, and rejects
 //! are the same too on rig streams made of the reporting decoder's own
 //! messages and noise. Both stay bounded and chunking-independent.
+//! The block family is left out, as in tests/rig_props.rs: these streams
+//! run in one direction, and a block answer means nothing without the read
+//! before it (its properties are in src/rig/block/tests.rs).
 
 use proptest::prelude::*;
 use tuneward::rig::{Decode, Dialect, Direction, RigEvent};
