@@ -186,3 +186,34 @@ fn a_configured_binary_address_is_the_only_one_asked() {
     let want = [d.poll_frequency(0x5A), d.poll_transmit(0x5A)].concat();
     assert!(sent.iter().all(|(_, b)| *b == want), "{sent:02X?}");
 }
+
+#[test]
+fn a_one_wire_bus_echo_of_our_reads_is_not_noise() {
+    // On the binary family's shared one-wire bus every frame sent comes
+    // back as it went (recalled); the rig at 5A answers after it.
+    let d = Dialect::builtin("binary-bcd").unwrap();
+    let rig = |speed: u32, sent: &[u8]| -> Vec<u8> {
+        if speed != 9_600 {
+            return noise(sent);
+        }
+        let mut out = sent.to_vec();
+        if sent
+            .windows(6)
+            .any(|w| w == [0xFE, 0xFE, 0x5A, 0xE0, 0x03, 0xFD])
+        {
+            out.extend(
+                [
+                    &[0xFE, 0xFE, 0xE0, 0x5A, 0x03][..],
+                    &bcd10(3_573_000),
+                    &[0xFD],
+                ]
+                .concat(),
+            );
+        }
+        out
+    };
+    let (f, _) = run(Probe::new(d, 9_600, None, ms(300)), rig);
+    let found = f.found.unwrap();
+    assert_eq!((found.baud, found.address), (9_600, Some(0x5A)));
+    assert_eq!(found.rejected, 0, "{found:?}");
+}
