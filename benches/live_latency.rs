@@ -117,7 +117,7 @@ struct Live {
     rig: mpsc::Sender<LinkEvent>,
     gotos: mpsc::UnboundedReceiver<Instant>,
     stop: watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, tuneward::service::ServiceError>>,
     _dir: tempfile::TempDir,
 }
 

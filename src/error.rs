@@ -83,6 +83,16 @@ impl Located {
         }
     }
 
+    /// A value read at a place put in words (a device, a file, a URL, a
+    /// command-line option).
+    pub fn named(
+        at: impl Into<String>,
+        expected: impl Into<String>,
+        found: impl Into<String>,
+    ) -> Located {
+        Located::new(Place::Named(at.into()), expected, found)
+    }
+
     /// The message for an error that keeps its own fields (a variant that
     /// callers destructure): the same words as a `Located`.
     pub fn render(at: Place, expected: &str, found: &str) -> String {
@@ -97,6 +107,26 @@ impl Located {
             other => other,
         };
         Located { at, ..self }
+    }
+}
+
+/// An operation a driver carried out for a pure layer (an output line set,
+/// a journal written, a config read again) that failed: what it acted on
+/// and what went wrong, worded by the driver. The sans-IO core takes its
+/// driver's failures in this shape and never holds an `io::Error`.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{what}: {detail}")]
+pub struct IoFailure {
+    pub what: String,
+    pub detail: String,
+}
+
+impl IoFailure {
+    pub fn new(what: impl Into<String>, detail: impl fmt::Display) -> IoFailure {
+        IoFailure {
+            what: what.into(),
+            detail: detail.to_string(),
+        }
     }
 }
 
@@ -136,6 +166,12 @@ mod tests {
                 format!("{words}: expected a positive baud rate, found 0")
             );
         }
+    }
+
+    #[test]
+    fn an_io_failure_names_what_it_acted_on_first() {
+        let e = IoFailure::new("inhibit line", "permission denied");
+        assert_eq!(e.to_string(), "inhibit line: permission denied");
     }
 
     #[test]

@@ -22,6 +22,7 @@ use tokio::sync::mpsc;
 use tokio::time::Instant;
 
 use crate::capture::CaptureWriter;
+use crate::error::Located;
 use crate::port::link::LinkEvent;
 use crate::rig::Direction;
 use crate::service::RigSource;
@@ -56,14 +57,19 @@ pub fn run_capture(
     header: &str,
     decoder: Option<Box<dyn crate::rig::Decode>>,
     args: &CaptureOptions,
-) -> Result<CaptureCounts, String> {
-    let file = std::fs::File::create(&args.out)
-        .map_err(|e| format!("cannot create capture file {}: {e}", args.out.display()))?;
+) -> Result<CaptureCounts, Located> {
+    let out = args.out.display().to_string();
+    let file = std::fs::File::create(&args.out).map_err(|e| {
+        Located::named(
+            format!("capture file {out}"),
+            "a file that can be created",
+            e.to_string(),
+        )
+    })?;
     let rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()
-        .map_err(|e| format!("cannot start the runtime: {e}"))?;
-    let out = args.out.display().to_string();
+        .map_err(|e| Located::named("capture", "a tokio runtime that starts", e.to_string()))?;
     rt.block_on(async move {
         let (stop_trigger, stop) = shutdown::channel();
         let (tx, rx) = mpsc::channel(256);
@@ -72,10 +78,16 @@ pub fn run_capture(
             RigSource::Proxy { config, boundary } => {
                 crate::port::proxy::spawn(config, boundary, tx, stop)?
             }
-            RigSource::Events(_) => return Err("no rig port to capture".to_string()),
+            RigSource::Events(_) => {
+                return Err(Located::named(
+                    "capture",
+                    "a rig port to capture",
+                    "events from inside the program",
+                ))
+            }
         };
         let mut w = CaptureWriter::new(std::io::BufWriter::new(file));
-        w.comment(header).map_err(|e| format!("{out}: {e}"))?;
+        w.comment(header).map_err(|e| write_failure(&out, e))?;
         let result = record(
             rx,
             &mut w,
@@ -95,7 +107,13 @@ pub fn run_capture(
                     .map_err(|e| e.into_error())?
                     .sync_all()
             })
-            .map_err(|e| format!("{out}: cannot flush the capture: {e}"));
+            .map_err(|e| {
+                Located::named(
+                    format!("capture file {out}"),
+                    "the capture flushed to disk",
+                    e.to_string(),
+                )
+            });
         let got = result?;
         flushed?;
         eprintln!(
@@ -104,6 +122,15 @@ pub fn run_capture(
         );
         Ok(got)
     })
+}
+
+/// A write to the capture file `name` that failed.
+fn write_failure(name: &str, e: std::io::Error) -> Located {
+    Located::named(
+        format!("capture file {name}"),
+        "a record written",
+        e.to_string(),
+    )
 }
 
 /// Writes link events into `w` until `duration` has passed, `stop`
@@ -116,7 +143,7 @@ pub async fn record<W: Write>(
     name: &str,
     mut decoder: Option<Box<dyn crate::rig::Decode>>,
     stop: impl std::future::Future<Output = ()>,
-) -> Result<CaptureCounts, String> {
+) -> Result<CaptureCounts, Located> {
     let mut quiet = crate::follow::quiet::RejectWatch::new();
     let mut decoded = Vec::new();
     let origin = Instant::now();
@@ -132,7 +159,7 @@ pub async fn record<W: Write>(
         std::io::stderr().is_terminal()
     };
     tokio::pin!(stop);
-    let io = |e: std::io::Error| format!("{name}: cannot write the capture: {e}");
+    let io = |e: std::io::Error| write_failure(name, e);
     loop {
         tokio::select! {
             _ = &mut stop => break,

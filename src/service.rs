@@ -26,12 +26,13 @@ use tokio::time::Instant;
 use crate::calibrate::{append_candidate, Point};
 use crate::control::protocol::{Ask, StateView};
 use crate::control::OperatorPort;
+use crate::error::{IoFailure, Located};
 pub use crate::follow::session::RunSummary;
 use crate::follow::session::{Level, Note, Output, Session, SessionSettings};
 use crate::follow::Follower;
 use crate::follow::{Calibrations, Command};
 use crate::inhibit::InhibitLine;
-use crate::journal::{Journal, Recorded};
+use crate::journal::{Journal, JournalError, Recorded};
 use crate::port::link::{LinkConfig, LinkEvent};
 use crate::port::proxy::{Boundary, ProxyConfig};
 use crate::port::{link, proxy};
@@ -127,12 +128,12 @@ pub struct ControlSetup {
 pub fn run_until_signal(
     service: ServiceParts,
     control: Option<ControlSetup>,
-) -> Result<RunSummary, String> {
+) -> Result<RunSummary, ServiceError> {
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
         .build()
-        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+        .map_err(|e| Located::named("the service", "a tokio runtime that starts", e.to_string()))?;
     rt.block_on(async move {
         let Some(control) = control else {
             return run(service, signals::stop_flag()).await;
@@ -140,15 +141,13 @@ pub fn run_until_signal(
         let (link, port) = crate::control::operator_channel();
         let (fronts_stop, fronts) = shutdown::channel();
         let socket = control.socket;
-        let unix = crate::control::socket::serve_unix(socket.clone(), link.clone(), fronts.clone())
-            .map_err(|e| e.to_string())?;
+        let unix =
+            crate::control::socket::serve_unix(socket.clone(), link.clone(), fronts.clone())?;
         tracing::info!(socket = %socket.display(), "control socket ready (`tuneward ctl`)");
         let tcp = match control.listen {
             Some(addr) => {
                 let (bound, task) =
-                    crate::control::socket::serve_tcp(addr, link.clone(), fronts.clone())
-                        .await
-                        .map_err(|e| format!("cannot listen for control on {addr}: {e}"))?;
+                    crate::control::socket::serve_tcp(addr, link.clone(), fronts.clone()).await?;
                 tracing::info!(address = %bound, "control on TCP (loopback)");
                 Some(task)
             }
@@ -178,13 +177,25 @@ pub fn run_until_signal(
 pub async fn run(
     service: ServiceParts,
     shutdown: impl Into<Shutdown>,
-) -> Result<RunSummary, String> {
+) -> Result<RunSummary, ServiceError> {
     run_with_operator(service, None, shutdown).await
+}
+
+/// What stops the live service from starting.
+#[derive(Debug, thiserror::Error)]
+pub enum ServiceError {
+    /// A part that could not be started, opened or bound (the runtime, the
+    /// control socket, the proxy's symlink): where, expected, found.
+    #[error(transparent)]
+    Invalid(#[from] Located),
+    /// The position journal could not be read.
+    #[error(transparent)]
+    Journal(#[from] JournalError),
 }
 
 /// Reads the calibration again (for `reload`): IO the driver does before
 /// the core decides on what it read.
-pub type Reloader = Box<dyn Fn() -> Result<Calibrations, String> + Send>;
+pub type Reloader = Box<dyn Fn() -> Result<Calibrations, IoFailure> + Send>;
 
 /// The operator's front ends, joined to the driver.
 pub struct Operator {
@@ -201,14 +212,14 @@ pub async fn run_with_operator(
     service: ServiceParts,
     operator: Option<Operator>,
     shutdown: impl Into<Shutdown>,
-) -> Result<RunSummary, String> {
+) -> Result<RunSummary, ServiceError> {
     let mut shutdown = shutdown.into();
     let (mut asks, state, reload) = match operator {
         Some(op) => (Some(op.port.asks), Some(op.port.state), op.reload),
         None => (None, None, None),
     };
     let recorded = match &service.journal {
-        Some(j) => j.load().map_err(|e| e.to_string())?,
+        Some(j) => j.load()?,
         None => None,
     };
     // The link tasks outlive the shutdown request: the move under way must
@@ -294,7 +305,10 @@ pub async fn run_with_operator(
                         Ask::Reload => Command::Reload {
                             calibrations: match &reload {
                                 Some(read) => read(),
-                                None => Err("this service was started without a calibration to read again".into()),
+                                None => Err(IoFailure::new(
+                                    "reload",
+                                    "this service was started without a calibration to read again",
+                                )),
                             },
                         },
                     };
@@ -390,19 +404,22 @@ impl Io {
                     }
                 }
                 Output::Inhibit { on } => {
-                    let r = self.inhibit.set(on).map_err(|e| e.to_string());
+                    let r = self
+                        .inhibit
+                        .set(on)
+                        .map_err(|e| IoFailure::new("transmit-inhibit line", e));
                     session.handle_inhibit_result(self.now(), r);
                 }
                 Output::JournalIntent(intent) => {
                     let r = match &self.journal {
-                        Some(j) => j.record(&intent).map_err(|e| e.to_string()),
+                        Some(j) => j.record(&intent).map_err(|e| journal_failure(j, e)),
                         None => Ok(()),
                     };
                     session.handle_journal_result(self.now(), r);
                 }
                 Output::JournalPosition { steps } => {
                     let r = match &self.journal {
-                        Some(j) => j.record_position(steps).map_err(|e| e.to_string()),
+                        Some(j) => j.record_position(steps).map_err(|e| journal_failure(j, e)),
                         None => Ok(()),
                     };
                     session.handle_journal_result(self.now(), r);
@@ -585,5 +602,17 @@ fn log(note: Note) {
                 warn!(command = name, refused = answer.refused.as_deref(), reason, "operator command refused")
             }
         }
+    }
+}
+
+/// A journal write that failed, for the session: the journal named once.
+fn journal_failure(journal: &Journal, e: JournalError) -> IoFailure {
+    let what = format!("position journal {}", journal.path().display());
+    match e {
+        JournalError::Io { action, source, .. } => {
+            IoFailure::new(what, format!("{action}: {source}"))
+        }
+        // A write never finds the file corrupt; said as the journal words it.
+        corrupt => IoFailure::new("position journal", corrupt),
     }
 }

@@ -255,3 +255,59 @@ fn capture_errors_name_file_line_expected_and_found() {
         &["absent.cap", "cannot read the capture", "No such file"],
     );
 }
+
+/// The one line `tuneward` prints for `args`, with a failure exit.
+fn one_line(args: &[&str]) -> String {
+    let err = fails(args);
+    assert_eq!(err.lines().count(), 1, "one line expected: {err}");
+    err.trim_end().to_string()
+}
+
+#[test]
+fn command_line_and_start_up_errors_say_where_expected_and_found() {
+    assert_eq!(
+        one_line(&["ctl", "status"]),
+        "tuneward: ctl: expected `-c CONFIG` (the station's config, which says where the control socket is), found none"
+    );
+    // The simulator's limits default to 0..10000.
+    assert_eq!(
+        one_line(&["sim-tuner", "--listen", "127.0.0.1:0", "--start", "20000"]),
+        "tuneward: sim-tuner: start: expected a position within 0..10000, found 20000"
+    );
+    assert_eq!(
+        one_line(&["sim-tuner", "--listen", "127.0.0.1:0", "--backlash=-1"]),
+        "tuneward: --backlash: expected 0 or more steps, found -1"
+    );
+    let err = one_line(&[
+        "sim-rig",
+        "--protocol",
+        "morse",
+        "--pty",
+        "/nonexistent/rig",
+    ]);
+    assert!(
+        err.starts_with(
+            "tuneward: --protocol: unknown dialect `morse`: expected a built-in dialect ("
+        ),
+        "{err}"
+    );
+
+    // A family that never reports on its own cannot be only listened to:
+    // `run` refuses before it opens the port, naming the file and key.
+    let dir = tempfile::tempdir().unwrap();
+    let config = config_with(
+        dir.path(),
+        "block.toml",
+        "protocol = \"binary-bcd\"",
+        "protocol = \"block-5\"\nport = \"/dev/null\"",
+    );
+    let err = fails(&["run", "-c", config.to_str().unwrap()]);
+    let last = err.lines().last().unwrap_or_default();
+    assert_eq!(
+        last,
+        format!(
+            "tuneward: {}: key `rig.mode`: expected \"poll\" or \"proxy\" for the block-family dialect `block-5`, found \"listen\" (this family never reports on its own)",
+            config.display()
+        )
+    );
+}

@@ -142,7 +142,11 @@ async fn a_move_that_never_ends_is_a_fault_and_the_link_recovers() {
         }
     });
     let (_stop_tx, stop) = watch::channel(false);
-    let mut h = spawn(config(ControllerUrl::Tcp { addr }), None, stop);
+    let mut h = spawn(
+        config(ControllerUrl::Tcp { addr: addr.clone() }),
+        None,
+        stop,
+    );
     assert_eq!(next(&mut h.events).await, TunerEvent::LinkUp);
     assert_eq!(next(&mut h.events).await, TunerEvent::At { steps: 100 });
     assert_eq!(seen.recv().await.unwrap(), (1, "WHERE".to_string()));
@@ -154,7 +158,10 @@ async fn a_move_that_never_ends_is_a_fault_and_the_link_recovers() {
     // 500 steps at 5000 steps/s + 20 ms + 400 ms margin = 520 ms: then a fault.
     let t0 = tokio::time::Instant::now();
     match next(&mut h.events).await {
-        TunerEvent::Error { text } => assert!(text.contains("did not end"), "{text}"),
+        TunerEvent::Error { text } => assert!(
+            text.starts_with(&format!("controller fault: tcp://{addr}: expected the move to 600 to end in time, found it still under way")),
+            "{text}"
+        ),
         other => panic!("expected a fault, got {other:?}"),
     }
     assert!(

@@ -263,6 +263,27 @@ async fn every_command_through_ctl_under_the_cores_rules() {
         "Debug formatting in the log"
     );
 
+    // A line that is not a request: the `error` answer says where, what
+    // was expected and what was found (protocols/control.md).
+    let socket = s.journal.path().with_file_name("motor.state.sock");
+    let mut raw = std::os::unix::net::UnixStream::connect(&socket).unwrap();
+    std::io::Write::write_all(&mut raw, b"{\"do\":\"mark\",\"extra\":1}\n").unwrap();
+    let mut answer = String::new();
+    std::io::BufRead::read_line(&mut std::io::BufReader::new(&raw), &mut answer).unwrap();
+    let a: serde_json::Value = serde_json::from_str(&answer).unwrap();
+    assert_eq!(a["ok"], false, "{a}");
+    assert_eq!(a["outcome"], "error", "{a}");
+    let reason = a["reason"].as_str().unwrap();
+    assert!(
+        reason.starts_with(
+            "request line: expected a request such as {\"do\":\"nudge\",\"steps\":20}"
+        ) && reason.ends_with(
+            ", found `{\"do\":\"mark\",\"extra\":1}`: field `extra` is not one `mark` takes"
+        ),
+        "{reason}"
+    );
+    drop(raw);
+
     // The log names the commands and their outcomes.
     s.run
         .wait_log(&["operator command refused", "outside-limits"]);

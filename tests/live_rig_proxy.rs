@@ -209,8 +209,14 @@ async fn an_existing_file_at_the_link_path_is_not_replaced() {
         poll: None,
         backoff_cap: Duration::from_millis(200),
     };
-    let e = spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap_err();
-    assert!(e.contains("ttyUSB-config") && e.contains("refusing"), "{e}");
+    let e = spawn(cfg, Box::new(ends_with(b';')), tx, stop)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.starts_with(&format!("proxy link {}: expected ", link.display()))
+            && e.contains("refusing"),
+        "{e}"
+    );
     assert_eq!(std::fs::read(&link).unwrap(), b"precious");
 }
 

@@ -49,7 +49,7 @@ fn controller(start: i64) -> ClientConfig {
 /// Asks the service to stop and waits (5 s at most) for its outcome.
 async fn stop_and_join(
     stop: &watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, tuneward::service::ServiceError>>,
 ) -> RunSummary {
     stop.send_replace(true);
     tokio::time::timeout(Duration::from_secs(5), task)
@@ -62,7 +62,7 @@ async fn stop_and_join(
 struct Running {
     rig: mpsc::Sender<LinkEvent>,
     stop: watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, tuneward::service::ServiceError>>,
     inhibit: RecordingLine,
     journal: Journal,
     dialect: Dialect,
@@ -181,7 +181,7 @@ struct FromConfig {
     station: tuneward::station::Station,
     journal: Journal,
     stop: watch::Sender<bool>,
-    task: tokio::task::JoinHandle<Result<RunSummary, String>>,
+    task: tokio::task::JoinHandle<Result<RunSummary, tuneward::service::ServiceError>>,
     _rig_far: tokio_serial::SerialStream,
     _sim: watch::Sender<bool>,
     dir: tempfile::TempDir,

@@ -67,10 +67,21 @@ const CANDIDATE: RGBColor = RGBColor(40, 40, 40);
 /// The title's wording for the leave-one-out error.
 pub const LOO_TITLE: &str = "leave-one-out error";
 
-fn plot_error(path: &Path, e: impl std::fmt::Display) -> CalibrationError {
+/// Why a plot could not be drawn.
+#[derive(Debug, thiserror::Error)]
+pub enum PlotError {
+    /// Nothing with a finite value to draw.
+    #[error("expected {expected} to plot, found none")]
+    Nothing { expected: &'static str },
+    /// The drawing library refused.
+    #[error("cannot draw the plot: {0}")]
+    Draw(#[from] DrawingAreaErrorKind<std::io::Error>),
+}
+
+fn plot_error(path: &Path, e: PlotError) -> CalibrationError {
     CalibrationError::Write {
         path: path.to_path_buf(),
-        source: std::io::Error::other(e.to_string()),
+        source: std::io::Error::other(e),
     }
 }
 
@@ -219,12 +230,16 @@ pub fn write_svg(
 }
 
 /// The plot as SVG text.
-pub fn render_svg(cal: &Calibration, report: &Report, ctx: &PlotContext) -> Result<String, String> {
+pub fn render_svg(
+    cal: &Calibration,
+    report: &Report,
+    ctx: &PlotContext,
+) -> Result<String, PlotError> {
     let mut svg = String::new();
     {
         let root = SVGBackend::with_string(&mut svg, (960, 1040)).into_drawing_area();
-        draw(&root, cal, report, ctx).map_err(|e| e.to_string())?;
-        root.present().map_err(|e| e.to_string())?;
+        draw(&root, cal, report, ctx)?;
+        root.present()?;
     }
     Ok(svg)
 }
@@ -238,8 +253,8 @@ fn draw(
     cal: &Calibration,
     report: &Report,
     ctx: &PlotContext,
-) -> Result<(), String> {
-    let err = |e: DrawingAreaErrorKind<std::io::Error>| e.to_string();
+) -> Result<(), PlotError> {
+    let err = PlotError::Draw;
     // The x range covers the points, the candidates and the bands.
     let point_hz = report
         .rows
@@ -252,8 +267,9 @@ fn draw(
                 .flat_map(|p| p.points.iter().map(|q| q.0)),
         );
     let band_hz = ctx.bands.iter().flat_map(|b| [b.low_hz, b.high_hz]);
-    let (fmin, fmax) =
-        finite_range(point_hz.chain(band_hz)).ok_or_else(|| "no points to plot".to_string())?;
+    let (fmin, fmax) = finite_range(point_hz.chain(band_hz)).ok_or(PlotError::Nothing {
+        expected: "points or bands",
+    })?;
     let (x0, x1) = padded(fmin / 1e6, fmax / 1e6);
     let sample = |map: &dyn StepMap| -> Vec<(f64, f64)> {
         (0..=400)
@@ -305,7 +321,9 @@ fn draw(
             .map(|r| r.steps)
             .chain(series.iter().flat_map(|s| s.points.iter().map(|p| p.1))),
     )
-    .ok_or_else(|| "no finite points to plot".to_string())?;
+    .ok_or(PlotError::Nothing {
+        expected: "finite step counts",
+    })?;
     let in_span = |mhz: f64| mhz * 1e6 >= fmin && mhz * 1e6 <= fmax;
     let (cmin, cmax) = finite_range(
         series

@@ -291,15 +291,19 @@ impl CtlCommand {
 }
 
 /// `tuneward ctl`: `Ok(false)` when the service refused.
-pub fn run_ctl(args: CtlArgs, out: &mut dyn std::io::Write) -> Result<bool, String> {
+pub fn run_ctl(args: CtlArgs, out: &mut dyn std::io::Write) -> Result<bool, tuneward::Error> {
     use std::io::Write;
     use tuneward::control::client::{describe, describe_state, Client};
     let Some(config) = &args.config else {
-        return Err("ctl: expected `-c CONFIG` (the station's config, which says where the control socket is)".into());
+        return Err(tuneward::Error::invalid(
+            tuneward::error::Place::Named("ctl".into()),
+            "`-c CONFIG` (the station's config, which says where the control socket is)",
+            "none",
+        ));
     };
-    let config = tuneward::config::Config::load(config).map_err(|e| e.to_string())?;
+    let config = tuneward::config::Config::load(config)?;
     let socket = tuneward::station::control_socket_for(&config);
-    let mut client = Client::connect(&socket).map_err(|e| e.to_string())?;
+    let mut client = Client::connect(&socket)?;
     let request = args.what.request();
     let json = args.json;
     if let CtlCommand::Watch = args.what {
@@ -311,26 +315,24 @@ pub fn run_ctl(args: CtlArgs, out: &mut dyn std::io::Write) -> Result<bool, Stri
             let _ = lock.flush();
         };
         let mut ok = true;
-        client
-            .watch(
-                |a| {
-                    ok = a.ok;
-                    print(if json { to_json(a) } else { describe(a) });
-                },
-                |s| {
-                    print(if json {
-                        to_json(&tuneward::control::protocol::StateLine { state: s.clone() })
-                    } else {
-                        format!("--\n{}", describe_state(s))
-                    });
-                    true
-                },
-            )
-            .map_err(|e| e.to_string())?;
+        client.watch(
+            |a| {
+                ok = a.ok;
+                print(if json { to_json(a) } else { describe(a) });
+            },
+            |s| {
+                print(if json {
+                    to_json(&tuneward::control::protocol::StateLine { state: s.clone() })
+                } else {
+                    format!("--\n{}", describe_state(s))
+                });
+                true
+            },
+        )?;
         let _ = out.flush();
         return Ok(ok);
     }
-    let answer = client.request(&request).map_err(|e| e.to_string())?;
+    let answer = client.request(&request)?;
     let text = if json {
         to_json(&answer)
     } else {
@@ -434,9 +436,13 @@ fn parse_byte(s: &str) -> Result<u8, String> {
 }
 
 /// `tuneward sim-rig`: the arguments mapped onto the simulator's settings.
-pub fn run_sim_rig(args: SimRigArgs) -> Result<(), String> {
-    let dialect = tuneward::rig::Dialect::resolve(&args.protocol, None)
-        .map_err(|e| format!("--protocol: {e}"))?;
+pub fn run_sim_rig(args: SimRigArgs) -> Result<(), tuneward::Error> {
+    let dialect = tuneward::rig::Dialect::resolve(&args.protocol, None).map_err(|source| {
+        tuneward::Error::Dialect {
+            option: "--protocol",
+            source,
+        }
+    })?;
     let options = tuneward::sim::rig::SimOptions {
         address: args.address,
         vfo_a_hz: args.vfo_a,
@@ -452,5 +458,6 @@ pub fn run_sim_rig(args: SimRigArgs) -> Result<(), String> {
         truth: args.truth,
         baud: args.baud,
         options,
-    })
+    })?;
+    Ok(())
 }

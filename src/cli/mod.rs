@@ -385,10 +385,9 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
                     .map_err(failure),
             }
         }
-        Command::SimTuner(args) => {
-            tuneward::tuner::server::run_sim_tuner(&args.into()).map_err(Failure::plain)
-        }
-        Command::SimRig(args) => args::run_sim_rig(args).map_err(Failure::plain),
+        Command::SimTuner(args) => tuneward::tuner::server::run_sim_tuner(&args.into())
+            .map_err(|e| Failure::plain(e.to_string())),
+        Command::SimRig(args) => args::run_sim_rig(args).map_err(|e| Failure::with_causes(&e)),
         Command::Run(args) => run_live(&args),
         Command::Capture(args) => capture(&args),
         Command::Ctl(args) => match args::run_ctl(args, &mut out) {
@@ -399,7 +398,7 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
                 message: "refused (see above)".into(),
                 closed_pipe: false,
             }),
-            Err(e) => Err(Failure::plain(e)),
+            Err(e) => Err(Failure::with_causes(&e)),
         },
         Command::SetPosition(args) => tuneward::station::settings::run_set_position(&args.into())
             .map_err(|e| Failure::with_causes(&e)),

@@ -4,6 +4,7 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::error::Located;
 use crate::follow::{Command, PresetGoal, Refusal, Reply, Status};
 
 /// The longest request line taken; a longer one is answered with an error
@@ -92,29 +93,42 @@ impl Request {
     }
 }
 
-/// Reads one request line. The error says what was expected and what was
-/// found.
-pub fn parse_request(line: &str) -> Result<Request, String> {
+/// Where a request's error is: the place every `error` answer names.
+pub const REQUEST_PLACE: &str = "request line";
+
+/// A request line that is not one: `request line: expected …, found …`.
+pub fn bad_request(expected: impl Into<String>, found: impl Into<String>) -> Located {
+    Located::named(REQUEST_PLACE, expected, found)
+}
+
+/// Reads one request line. The error says where (the request line), what
+/// was expected and what was found; the control socket answers with its
+/// words.
+pub fn parse_request(line: &str) -> Result<Request, Located> {
     let line = line.trim();
     if line.is_empty() {
-        return Err(
-            "expected a JSON object such as {\"do\":\"status\"}, found an empty line".into(),
-        );
+        return Err(bad_request(
+            "a JSON object such as {\"do\":\"status\"}",
+            "an empty line",
+        ));
     }
     let shown: String = line.chars().take(80).collect();
-    let expected = "expected a request such as {\"do\":\"nudge\",\"steps\":20} (do: status, watch, pause, resume, nudge, goto, preset, profile, mark, reload)";
+    let expected = "a request such as {\"do\":\"nudge\",\"steps\":20} (do: status, watch, pause, resume, nudge, goto, preset, profile, mark, reload)";
     let value: serde_json::Value =
-        serde_json::from_str(line).map_err(|e| format!("{expected}, found `{shown}`: {e}"))?;
+        serde_json::from_str(line).map_err(|e| bad_request(expected, format!("`{shown}`: {e}")))?;
     let request: Request = serde_json::from_value(value.clone())
-        .map_err(|e| format!("{expected}, found `{shown}`: {e}"))?;
+        .map_err(|e| bad_request(expected, format!("`{shown}`: {e}")))?;
     // serde lets a command without fields pass with extra ones; the
     // contract does not: every field given must be one the command takes.
     let taken = serde_json::to_value(&request).unwrap_or_default();
     if let (Some(given), Some(taken)) = (value.as_object(), taken.as_object()) {
         if let Some(extra) = given.keys().find(|k| !taken.contains_key(*k)) {
-            return Err(format!(
-                "{expected}, found `{shown}`: field `{extra}` is not one `{}` takes",
-                given.get("do").and_then(|d| d.as_str()).unwrap_or("?")
+            return Err(bad_request(
+                expected,
+                format!(
+                    "`{shown}`: field `{extra}` is not one `{}` takes",
+                    given.get("do").and_then(|d| d.as_str()).unwrap_or("?")
+                ),
             ));
         }
     }
@@ -302,6 +316,7 @@ impl StateView {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::error::Place;
     use crate::follow::Wait;
 
     #[test]
@@ -334,9 +349,23 @@ mod tests {
             "\u{0}\u{ffff}",
         ] {
             let e = parse_request(bad).unwrap_err();
-            assert!(e.contains("expected"), "{bad}: {e}");
-            assert!(e.contains("found"), "{bad}: {e}");
+            assert_eq!(e.at, Place::Named(REQUEST_PLACE.into()), "{bad}: {e}");
+            assert!(!e.expected.is_empty() && !e.found.is_empty(), "{bad}: {e}");
         }
+        assert_eq!(
+            parse_request("").unwrap_err().to_string(),
+            "request line: expected a JSON object such as {\"do\":\"status\"}, found an empty line"
+        );
+        let e = parse_request(r#"{"do":"mark","extra":1}"#)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.starts_with("request line: expected a request such as")
+                && e.ends_with(
+                    r#"found `{"do":"mark","extra":1}`: field `extra` is not one `mark` takes"#
+                ),
+            "{e}"
+        );
     }
 
     #[test]

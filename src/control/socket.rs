@@ -14,8 +14,9 @@ use tokio::io::{AsyncBufReadExt, AsyncRead, AsyncReadExt, AsyncWrite, AsyncWrite
 use tokio::net::{TcpListener, UnixListener};
 use tokio::task::JoinHandle;
 
-use super::protocol::{parse_request, Answer, Request, StateLine, MAX_REQUEST_BYTES};
+use super::protocol::{bad_request, parse_request, Answer, Request, StateLine, MAX_REQUEST_BYTES};
 use super::OperatorLink;
+use crate::error::Located;
 use crate::shutdown::Shutdown;
 
 /// Binds the Unix socket at `path` (a stale socket file left by a crash is
@@ -25,15 +26,18 @@ pub fn serve_unix(
     path: PathBuf,
     link: OperatorLink,
     shutdown: Shutdown,
-) -> io::Result<JoinHandle<()>> {
-    remove_stale(&path)?;
-    let listener = UnixListener::bind(&path).map_err(|e| {
-        io::Error::new(
-            e.kind(),
-            format!("cannot listen on control socket {}: {e}", path.display()),
+) -> Result<JoinHandle<()>, Located> {
+    let at = || format!("control socket {}", path.display());
+    remove_stale(&path, at())?;
+    let listener = UnixListener::bind(&path)
+        .map_err(|e| Located::named(at(), "a Unix socket to listen on", e.to_string()))?;
+    std::fs::set_permissions(&path, std::fs::Permissions::from_mode(0o600)).map_err(|e| {
+        Located::named(
+            at(),
+            "a socket this user may restrict to mode 0600",
+            e.to_string(),
         )
     })?;
-    std::fs::set_permissions(&path, std::fs::Permissions::from_mode(0o600))?;
     Ok(tokio::spawn(async move {
         let mut stop = shutdown.clone();
         loop {
@@ -60,15 +64,18 @@ pub async fn serve_tcp(
     addr: SocketAddr,
     link: OperatorLink,
     shutdown: Shutdown,
-) -> io::Result<(SocketAddr, JoinHandle<()>)> {
+) -> Result<(SocketAddr, JoinHandle<()>), Located> {
+    let at = || format!("control TCP {addr}");
     if !addr.ip().is_loopback() {
-        return Err(io::Error::new(
-            io::ErrorKind::PermissionDenied,
-            format!("control TCP listens on loopback only, not {addr}"),
+        return Err(Located::named(
+            at(),
+            "a loopback address",
+            addr.ip().to_string(),
         ));
     }
-    let listener = TcpListener::bind(addr).await?;
-    let bound = listener.local_addr()?;
+    let listening = |e: io::Error| Located::named(at(), "an address to listen on", e.to_string());
+    let listener = TcpListener::bind(addr).await.map_err(listening)?;
+    let bound = listener.local_addr().map_err(listening)?;
     Ok((
         bound,
         tokio::spawn(async move {
@@ -92,20 +99,20 @@ pub async fn serve_tcp(
     ))
 }
 
-fn remove_stale(path: &Path) -> io::Result<()> {
+/// Removes a socket file a crash left at `path` (named `at` in errors);
+/// anything else there is an error.
+fn remove_stale(path: &Path, at: String) -> Result<(), Located> {
     use std::os::unix::fs::FileTypeExt;
-    match std::fs::symlink_metadata(path) {
-        Ok(m) if m.file_type().is_socket() => std::fs::remove_file(path),
-        Ok(_) => Err(io::Error::new(
-            io::ErrorKind::AlreadyExists,
-            format!(
-                "control socket {}: something other than a socket is there",
-                path.display()
-            ),
-        )),
-        Err(e) if e.kind() == io::ErrorKind::NotFound => Ok(()),
-        Err(e) => Err(e),
-    }
+    let found = match std::fs::symlink_metadata(path) {
+        Ok(m) if m.file_type().is_socket() => match std::fs::remove_file(path) {
+            Ok(()) => return Ok(()),
+            Err(e) => format!("a socket that cannot be removed ({e})"),
+        },
+        Ok(_) => "something other than a socket".to_string(),
+        Err(e) if e.kind() == io::ErrorKind::NotFound => return Ok(()),
+        Err(e) => format!("a path that cannot be read ({e})"),
+    };
+    Err(Located::named(at, "a stale socket or nothing", found))
 }
 
 /// One connection: requests in, answers out, until the peer closes, a line
@@ -133,7 +140,11 @@ async fn converse<S: AsyncRead + AsyncWrite + Unpin>(
             let _ = send(
                 &mut w,
                 &Answer::error(format!(
-                    "expected a request line of at most {MAX_REQUEST_BYTES} bytes, found a longer one; closing"
+                    "{}; closing",
+                    bad_request(
+                        format!("at most {MAX_REQUEST_BYTES} bytes"),
+                        "a longer line"
+                    )
                 )),
             )
             .await;
@@ -141,12 +152,12 @@ async fn converse<S: AsyncRead + AsyncWrite + Unpin>(
         }
         let request = match std::str::from_utf8(&buf) {
             Ok(text) => parse_request(text),
-            Err(_) => Err("expected a line of UTF-8 text, found other bytes".into()),
+            Err(_) => Err(bad_request("UTF-8 text", "other bytes")),
         };
         let request = match request {
             Ok(r) => r,
             Err(e) => {
-                if send(&mut w, &Answer::error(e)).await.is_err() {
+                if send(&mut w, &Answer::error(e.to_string())).await.is_err() {
                     return;
                 }
                 continue;

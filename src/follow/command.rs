@@ -13,6 +13,7 @@ use std::fmt;
 use std::sync::Arc;
 
 use crate::calibrate::StepMap;
+use crate::error::IoFailure;
 
 /// A named place to go: a frequency (tuned through the calibration in use)
 /// or a step position.
@@ -94,7 +95,7 @@ pub enum Command {
     /// The calibration file read again (by the driver); an `Err` says why
     /// it could not be.
     Reload {
-        calibrations: Result<Calibrations, String>,
+        calibrations: Result<Calibrations, IoFailure>,
     },
 }
 

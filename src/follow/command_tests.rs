@@ -7,6 +7,7 @@
 
 use super::test_support::{ms, policy, Line};
 use super::*;
+use crate::error::IoFailure;
 
 struct Shifted(f64);
 impl StepMap for Shifted {
@@ -425,10 +426,16 @@ fn reload_retunes_through_the_new_file_or_keeps_the_old() {
     let (reply, a) = r.cmd(
         2_000,
         Command::Reload {
-            calibrations: Err("points.csv line 3: expected a number".into()),
+            calibrations: Err(IoFailure::new(
+                "the station's config",
+                "points.csv, line 3: expected a number, found x",
+            )),
         },
     );
-    assert!(matches!(reply, Reply::Refused(Refusal::Reload { .. })));
+    assert!(
+        matches!(&reply, Reply::Refused(Refusal::Reload { error }) if error.contains("points.csv, line 3")),
+        "{reply:?}"
+    );
     assert!(a.is_empty());
     let mut fresh = calibrations();
     fresh.base = Some(Arc::new(Shifted(-25.0)));

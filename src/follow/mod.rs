@@ -683,7 +683,9 @@ impl Follower {
             }
             Command::Mark => self.mark(),
             Command::Reload { calibrations } => match calibrations {
-                Err(error) => Reply::Refused(Refusal::Reload { error }),
+                Err(error) => Reply::Refused(Refusal::Reload {
+                    error: error.to_string(),
+                }),
                 Ok(cals) => match cals.get(self.profile.as_deref()) {
                     None => Reply::Refused(Refusal::Reload {
                         error: format!(

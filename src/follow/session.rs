@@ -34,6 +34,7 @@ use std::time::Duration;
 use super::station::{self, StationEvent};
 use super::Approach;
 use super::{Command, Effects, Follower, HoldReason, Policy, Refusal, Reply};
+use crate::error::IoFailure;
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::tuner::{TunerCommand, TunerEvent};
@@ -141,10 +142,10 @@ pub enum Note {
     },
     InhibitFailed {
         on: bool,
-        error: String,
+        error: IoFailure,
     },
     ReleaseFailed {
-        error: String,
+        error: IoFailure,
     },
     Settled {
         hz: u64,
@@ -160,7 +161,7 @@ pub enum Note {
         tune_hz: u64,
     },
     IntentFailed {
-        error: String,
+        error: IoFailure,
     },
     GotoBlocked {
         steps: i64,
@@ -174,7 +175,7 @@ pub enum Note {
         profile: Option<String>,
     },
     PositionFailed {
-        error: String,
+        error: IoFailure,
     },
     /// Bytes the decoder held when the port dropped.
     RigRejectedAtDrop {
@@ -232,10 +233,10 @@ pub enum Note {
         backlash: i64,
     },
     RelaxInhibitFailed {
-        error: String,
+        error: IoFailure,
     },
     RelaxIntentFailed {
-        error: String,
+        error: IoFailure,
     },
     RelaxBegin {
         from: i64,
@@ -791,7 +792,7 @@ impl Session {
     }
 
     /// The result of the last [`Output::Inhibit`].
-    pub fn handle_inhibit_result(&mut self, now: Duration, result: Result<(), String>) {
+    pub fn handle_inhibit_result(&mut self, now: Duration, result: Result<(), IoFailure>) {
         let now = self.clock(now);
         let Some(a) = self.st.awaiting.take() else {
             return;
@@ -842,7 +843,7 @@ impl Session {
 
     /// The result of the last [`Output::JournalIntent`] or
     /// [`Output::JournalPosition`].
-    pub fn handle_journal_result(&mut self, now: Duration, result: Result<(), String>) {
+    pub fn handle_journal_result(&mut self, now: Duration, result: Result<(), IoFailure>) {
         let now = self.clock(now);
         let Some(a) = self.st.awaiting.take() else {
             return;

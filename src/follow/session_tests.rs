@@ -140,7 +140,7 @@ impl Bench {
                     self.timed.push((self.now, Wire::Level(on)));
                     self.levels.push(on);
                     let r = if self.fail_inhibit {
-                        Err("line stuck".to_string())
+                        Err(IoFailure::new("inhibit line", "line stuck"))
                     } else {
                         Ok(())
                     };
@@ -160,9 +160,9 @@ impl Bench {
         }
     }
 
-    fn write(&mut self, r: Recorded) -> Result<(), String> {
+    fn write(&mut self, r: Recorded) -> Result<(), IoFailure> {
         if self.fail_journal {
-            return Err("disk full".to_string());
+            return Err(IoFailure::new("position journal", "disk full"));
         }
         self.journal = Some(r);
         Ok(())

@@ -31,6 +31,7 @@ use tokio::sync::mpsc;
 use tokio::task::JoinHandle;
 use tokio::time::Instant;
 
+use crate::error::Located;
 use crate::shutdown::Shutdown;
 use crate::timing::sleep_until_opt;
 pub use tokio_serial::{DataBits, FlowControl, Parity, StopBits};
@@ -93,7 +94,7 @@ pub enum LinesSet {
 pub fn set_modem_lines(
     port: &mut impl ModemControl,
     settings: &PortSettings,
-) -> Result<LinesSet, String> {
+) -> Result<LinesSet, Located> {
     let steps = [("DTR", settings.dtr), ("RTS", settings.rts)];
     for (name, want) in steps {
         let Some(level) = want.level() else { continue };
@@ -106,10 +107,10 @@ pub fn set_modem_lines(
             if !port.has_lines() {
                 return Ok(LinesSet::NoLines);
             }
-            return Err(format!(
-                "{}: expected to drive {name} {}, found the device refusing it ({e}); not using the port with {name} in an unknown state",
-                settings.path.display(),
-                if level { "on" } else { "off" },
+            return Err(Located::named(
+                settings.path.display().to_string(),
+                format!("to drive {name} {}", if level { "on" } else { "off" }),
+                format!("the device refusing it ({e}); not using the port with {name} in an unknown state"),
             ));
         }
     }
@@ -134,19 +135,26 @@ impl PortSettings {
 
 /// Opens the port at `settings.path`, resolving a symlink first. Returns the
 /// stream and the device it resolved to.
-pub fn open_port(settings: &PortSettings) -> Result<(tokio_serial::SerialStream, PathBuf), String> {
-    let device = std::fs::canonicalize(&settings.path)
-        .map_err(|e| format!("cannot resolve {}: {e}", settings.path.display()))?;
+pub fn open_port(
+    settings: &PortSettings,
+) -> Result<(tokio_serial::SerialStream, PathBuf), Located> {
+    let device = std::fs::canonicalize(&settings.path).map_err(|e| {
+        Located::named(
+            settings.path.display().to_string(),
+            "a path to a device",
+            format!("none ({e})"),
+        )
+    })?;
     let builder = tokio_serial::new(device.to_string_lossy(), settings.baud)
         .data_bits(settings.data_bits)
         .parity(settings.parity)
         .stop_bits(settings.stop_bits)
         .flow_control(settings.flow);
     let mut stream = tokio_serial::SerialStream::open(&builder).map_err(|e| {
-        format!(
-            "cannot open {} ({}): {e}",
-            settings.path.display(),
-            device.display()
+        Located::named(
+            format!("{} ({})", settings.path.display(), device.display()),
+            "a serial port that opens",
+            e.to_string(),
         )
     })?;
     // Before anything is written: an interface that keys by DTR or RTS
@@ -266,7 +274,7 @@ async fn keep_link(config: LinkConfig, events: mpsc::Sender<LinkEvent>, mut shut
             }
             Err(reason) => reason,
         };
-        if let Some(ev) = state.down(&name, &reason) {
+        if let Some(ev) = state.down(&name, &reason.to_string()) {
             if events.send(ev).await.is_err() {
                 return;
             }
@@ -286,7 +294,8 @@ async fn session(
     mut stream: tokio_serial::SerialStream,
     events: &mpsc::Sender<LinkEvent>,
     shutdown: &mut Shutdown,
-) -> Result<(), String> {
+) -> Result<(), Located> {
+    let path = config.port.path.as_path();
     let mut buf = BytesMut::with_capacity(1024);
     let mut poll = config.poll.as_ref().map(|p| Poller::new(p.clone()));
     loop {
@@ -295,7 +304,7 @@ async fn session(
             _ = shutdown.wait() => return Ok(()),
             r = stream.read_buf(&mut buf) => {
                 match r {
-                    Ok(0) => return Err("port closed (end of file)".to_string()),
+                    Ok(0) | Err(_) => return Err(read_failure(path, r)),
                     Ok(_) => {
                         let at = Instant::now();
                         if let Some(p) = poll.as_mut() {
@@ -309,13 +318,12 @@ async fn session(
                             buf.reserve(1024);
                         }
                     }
-                    Err(e) => return Err(format!("read error: {e}")),
                 }
             }
             _ = sleep_until_opt(next_poll) => {
                 if let Some(p) = poll.as_mut() {
                     let query = p.fire(Instant::now());
-                    write_all_timeout(&mut stream, &query).await?;
+                    write_all_timeout(&mut stream, path, &query).await?;
                     let ev = LinkEvent::Bytes { dir: Direction::Tx, bytes: Bytes::from(query), at: Instant::now() };
                     if events.send(ev).await.is_err() {
                         return Ok(());
@@ -326,12 +334,23 @@ async fn session(
     }
 }
 
-/// Writes, giving up after a second (a port stuck in hardware flow control
-/// must not hang the task).
+/// Why a read of the port at `path` that gave `r` (an end of file or an
+/// error) ends the session.
+pub(crate) fn read_failure(path: &Path, r: std::io::Result<usize>) -> Located {
+    let found = match r {
+        Err(e) => format!("a read error ({e})"),
+        Ok(_) => "the port closed (end of file)".to_string(),
+    };
+    Located::named(path.display().to_string(), "bytes or a quiet port", found)
+}
+
+/// Writes to the port at `path`, giving up after a second (a port stuck in
+/// hardware flow control must not hang the task).
 pub(crate) async fn write_all_timeout(
     stream: &mut tokio_serial::SerialStream,
+    path: &Path,
     bytes: &[u8],
-) -> Result<(), String> {
+) -> Result<(), Located> {
     match tokio::time::timeout(Duration::from_secs(1), async {
         stream.write_all(bytes).await?;
         stream.flush().await
@@ -339,8 +358,16 @@ pub(crate) async fn write_all_timeout(
     .await
     {
         Ok(Ok(())) => Ok(()),
-        Ok(Err(e)) => Err(format!("write error: {e}")),
-        Err(_) => Err("write did not complete within 1 s (flow control?)".to_string()),
+        Ok(Err(e)) => Err(Located::named(
+            path.display().to_string(),
+            "a write that completes",
+            format!("a write error ({e})"),
+        )),
+        Err(_) => Err(Located::named(
+            path.display().to_string(),
+            "a write that completes within 1 s",
+            "none (flow control?)",
+        )),
     }
 }
 
@@ -474,7 +501,10 @@ mod tests {
     fn a_refused_line_change_fails_the_open_unless_the_device_has_no_lines() {
         let s = PortSettings::new("/dev/x", 9600);
         let e = set_modem_lines(&mut double(true, true), &s).unwrap_err();
-        assert!(e.contains("/dev/x") && e.contains("DTR off"), "{e}");
+        assert_eq!(
+            e.to_string(),
+            "/dev/x: expected to drive DTR off, found the device refusing it (refused); not using the port with DTR in an unknown state"
+        );
         assert_eq!(
             set_modem_lines(&mut double(true, false), &s),
             Ok(LinesSet::NoLines)

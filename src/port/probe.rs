@@ -9,20 +9,27 @@ use tokio::io::AsyncReadExt;
 use tokio::time::Instant;
 
 use super::link::{open_port, write_all_timeout, PortSettings};
+use crate::error::Located;
 use crate::rig::probe::{Finding, Probe, ProbeOutput};
 use crate::timing::sleep_until_opt;
 
 /// Runs `probe` on the port `settings` names (its speed replaced by each
 /// the probe asks for; modem lines as configured) until it has a finding.
-pub fn probe_port(settings: &PortSettings, probe: Probe) -> Result<Finding, String> {
+pub fn probe_port(settings: &PortSettings, probe: Probe) -> Result<Finding, Located> {
     let rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()
-        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+        .map_err(|e| {
+            Located::named(
+                "the probe's runtime",
+                "a started tokio runtime",
+                e.to_string(),
+            )
+        })?;
     rt.block_on(drive(settings, probe))
 }
 
-async fn drive(settings: &PortSettings, mut probe: Probe) -> Result<Finding, String> {
+async fn drive(settings: &PortSettings, mut probe: Probe) -> Result<Finding, Located> {
     let start = Instant::now();
     let mut port: Option<tokio_serial::SerialStream> = None;
     let mut buf = [0u8; 1024];
@@ -40,7 +47,7 @@ async fn drive(settings: &PortSettings, mut probe: Probe) -> Result<Finding, Str
                 }
                 ProbeOutput::Send(bytes) => {
                     if let Some(p) = port.as_mut() {
-                        write_all_timeout(p, &bytes).await?;
+                        write_all_timeout(p, &settings.path, &bytes).await?;
                     }
                 }
             }
@@ -62,7 +69,13 @@ async fn drive(settings: &PortSettings, mut probe: Probe) -> Result<Finding, Str
                         probe.handle_bytes(start.elapsed(), chunk);
                     }
                 }
-                Err(e) => return Err(format!("reading {}: {e}", settings.path.display())),
+                Err(e) => {
+                    return Err(Located::named(
+                        settings.path.display().to_string(),
+                        "bytes from the rig's port",
+                        format!("a read error: {e}"),
+                    ))
+                }
             },
             _ = sleep_until_opt(deadline) => probe.handle_timeout(start.elapsed()),
         }

@@ -33,9 +33,11 @@ use tokio::time::Instant;
 use tokio_serial::SerialStream;
 
 use super::link::{
-    open_port, write_all_timeout, LinkEvent, PollConfig, Poller, PortSettings, Transitions,
+    open_port, read_failure, write_all_timeout, LinkEvent, PollConfig, Poller, PortSettings,
+    Transitions,
 };
 use super::pty::PtyLink;
+use crate::error::Located;
 use crate::rig::Direction;
 use crate::shutdown::Shutdown;
 use crate::timing::sleep_until_opt;
@@ -142,9 +144,14 @@ pub fn spawn(
     boundary: Box<dyn Boundary>,
     events: mpsc::Sender<LinkEvent>,
     shutdown: impl Into<Shutdown>,
-) -> Result<JoinHandle<()>, String> {
-    let (pty, master) = PtyLink::create(&config.link)
-        .map_err(|e| format!("proxy link {}: {e}", config.link.display()))?;
+) -> Result<JoinHandle<()>, Located> {
+    let (pty, master) = PtyLink::create(&config.link).map_err(|e| {
+        Located::named(
+            format!("proxy link {}", config.link.display()),
+            "a pseudo-terminal and its symlink",
+            e.to_string(),
+        )
+    })?;
     tracing::info!(link = %config.link.display(), device = %pty.slave_path().display(), "proxy port ready for the other program");
     let proxy = Proxy {
         config,
@@ -170,7 +177,7 @@ struct Proxy {
 
 enum End {
     Shutdown,
-    RigDown(String),
+    RigDown(Located),
 }
 
 impl Proxy {
@@ -194,7 +201,7 @@ impl Proxy {
                 }
                 Err(reason) => reason,
             };
-            if let Some(ev) = state.down(&name, &reason) {
+            if let Some(ev) = state.down(&name, &reason.to_string()) {
                 if self.events.send(ev).await.is_err() {
                     return;
                 }
@@ -258,8 +265,9 @@ impl Proxy {
                 _ = self.shutdown.wait() => return End::Shutdown,
                 r = rig.read_buf(&mut from_rig) => {
                     match r {
-                        Ok(0) => return End::RigDown("rig port closed (end of file)".into()),
-                        Err(e) => return End::RigDown(format!("read error: {e}")),
+                        Ok(0) | Err(_) => {
+                            return End::RigDown(read_failure(&self.config.port.path, r))
+                        }
                         Ok(_) => {}
                     }
                     let bytes = from_rig.split().freeze();
@@ -289,7 +297,7 @@ impl Proxy {
                         Ok(_) => {}
                     }
                     let bytes = from_other.split().freeze();
-                    if let Err(e) = write_all_timeout(&mut rig, &bytes).await {
+                    if let Err(e) = write_all_timeout(&mut rig, &self.config.port.path, &bytes).await {
                         return End::RigDown(e);
                     }
                     self.other_at_boundary = self.boundary.at_boundary(StdInstant::now(), &bytes);
@@ -333,7 +341,9 @@ impl Proxy {
 
     async fn inject(&mut self, rig: &mut SerialStream, p: &mut Poller) -> Result<(), End> {
         let query = p.fire(Instant::now());
-        write_all_timeout(rig, &query).await.map_err(End::RigDown)?;
+        write_all_timeout(rig, &self.config.port.path, &query)
+            .await
+            .map_err(End::RigDown)?;
         if self.emit(Direction::Tx, Bytes::from(query)).await {
             Ok(())
         } else {

@@ -13,6 +13,7 @@ use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio::time::Instant;
 
 use super::rig::{misclocked, Script, SimOptions, SimRig};
+use crate::error::Located;
 use crate::port::pty::PtyLink;
 use crate::rig::Dialect;
 use crate::shutdown::Shutdown;
@@ -36,30 +37,43 @@ pub struct SimRigSettings {
 }
 
 /// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
-pub fn run_sim_rig(settings: &SimRigSettings) -> Result<(), String> {
+pub fn run_sim_rig(settings: &SimRigSettings) -> Result<(), Located> {
     let script = match &settings.script {
         Some(path) => {
-            let text = std::fs::read_to_string(path)
-                .map_err(|e| format!("--script {}: cannot read it: {e}", path.display()))?;
+            let text = std::fs::read_to_string(path).map_err(|e| {
+                Located::named(
+                    format!("--script {}", path.display()),
+                    "a script file that can be read",
+                    e.to_string(),
+                )
+            })?;
             Script::parse(&text, &path.display().to_string())?
         }
         None => Script::demo(),
     };
     let mut truth: Box<dyn io::Write> = match &settings.truth {
-        Some(path) => Box::new(
-            std::fs::File::create(path)
-                .map_err(|e| format!("--truth {}: cannot create it: {e}", path.display()))?,
-        ),
+        Some(path) => Box::new(std::fs::File::create(path).map_err(|e| {
+            Located::named(
+                format!("--truth {}", path.display()),
+                "a truth log that can be created",
+                e.to_string(),
+            )
+        })?),
         None => Box::new(io::stderr()),
     };
     let rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()
-        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+        .map_err(|e| Located::named("sim-rig", "a tokio runtime that starts", e.to_string()))?;
     rt.block_on(async move {
         let stop = crate::signals::stop_flag();
-        let (pty, master) = PtyLink::create(&settings.link)
-            .map_err(|e| format!("--pty {}: {e}", settings.link.display()))?;
+        let (pty, master) = PtyLink::create(&settings.link).map_err(|e| {
+            Located::named(
+                format!("--pty {}", settings.link.display()),
+                "a pseudo-terminal and its symlink",
+                e.to_string(),
+            )
+        })?;
         println!(
             "sim-rig: {} at {} ({})",
             settings.dialect.name,
@@ -80,7 +94,13 @@ pub fn run_sim_rig(settings: &SimRigSettings) -> Result<(), String> {
             stop,
         )
         .await
-        .map_err(|e| format!("sim-rig on {}: {e}", settings.link.display()))
+        .map_err(|e| {
+            Located::named(
+                format!("sim-rig on {}", settings.link.display()),
+                "the rig served until stopped",
+                e.to_string(),
+            )
+        })
     })
 }
 

@@ -21,6 +21,7 @@ use std::time::Duration;
 
 use serde::{Deserialize, Serialize};
 
+use crate::error::{Located, Place};
 use crate::rig::bcd;
 use crate::rig::dialect::{BinarySpec, BlockSpec, Dialect, Spec, TextSpec};
 
@@ -333,18 +334,28 @@ pub const DEFAULT_SCRIPT: &str = r#"# The built-in demo operator (JSON lines; pr
 impl Script {
     /// Parses JSON lines: one action per line; blank lines and lines
     /// starting with `#` are skipped. `file` only names errors.
-    pub fn parse(text: &str, file: &str) -> Result<Script, String> {
+    pub fn parse(text: &str, file: &str) -> Result<Script, Located> {
         let mut steps = Vec::new();
         for (n, raw) in text.lines().enumerate() {
             let line = raw.trim();
             if line.is_empty() || line.starts_with('#') {
                 continue;
             }
-            let at = |what: &str| format!("{file}: line {}: {what}", n + 1);
+            let at = |expected: &str, found: String| {
+                Located::new(
+                    Place::Line {
+                        file: file.into(),
+                        line: n + 1,
+                    },
+                    expected,
+                    found,
+                )
+            };
             let parsed: Line = serde_json::from_str(line).map_err(|e| {
-                at(&format!(
-                    "expected an object like {{\"at_ms\": 1200, \"op\": \"tune\", \"hz\": 14074000}}: {e}"
-                ))
+                at(
+                    "an object like {\"at_ms\": 1200, \"op\": \"tune\", \"hz\": 14074000}",
+                    format!("`{line}` ({e})"),
+                )
             })?;
             let (at_ms, action) = match parsed {
                 Line::Tune { at_ms, vfo, hz } => (at_ms, Action::Tune { vfo, hz }),
@@ -358,14 +369,15 @@ impl Script {
                 } => {
                     let step_hz = step_hz.unwrap_or(DEFAULT_SWEEP_STEP_HZ);
                     if step_hz == 0 {
-                        return Err(at("sweep: expected step_hz of 1 or more, found 0"));
+                        return Err(at("a sweep's step_hz of 1 or more", "0".into()));
                     }
                     if let Some(from) = from_hz {
                         let steps = from.abs_diff(to_hz).div_ceil(step_hz);
                         if steps > MAX_SWEEP_STEPS {
-                            return Err(at(&format!(
-                                "sweep: expected at most {MAX_SWEEP_STEPS} knob steps, found {steps} (raise step_hz)"
-                            )));
+                            return Err(at(
+                                &format!("a sweep of at most {MAX_SWEEP_STEPS} knob steps (raise step_hz)"),
+                                steps.to_string(),
+                            ));
                         }
                     }
                     let over = Duration::from_millis(over_ms);

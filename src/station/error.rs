@@ -5,7 +5,9 @@
 //! the shape it shares with every layer is [`crate::error::Located`].
 
 use crate::config::ConfigError;
+use crate::control::client::ClientError;
 use crate::error::{Located, Place};
+use crate::rig::DialectError;
 use crate::station::StationError;
 
 /// Anything that stops a command, worded for the operator.
@@ -18,10 +20,16 @@ pub enum Error {
     Config(#[from] ConfigError),
     #[error(transparent)]
     Station(#[from] StationError),
-    /// A failure already worded by the layer it came from (a port that did
-    /// not open, a task that ended), with its place in the message.
-    #[error("{0}")]
-    Failed(String),
+    /// The running service's control socket did not answer as it should.
+    #[error(transparent)]
+    Control(#[from] ClientError),
+    /// A dialect named on the command line (`option`) that is not one.
+    #[error("{option}: {source}")]
+    Dialect {
+        option: &'static str,
+        #[source]
+        source: DialectError,
+    },
 }
 
 impl Error {
@@ -29,19 +37,14 @@ impl Error {
         Error::Invalid(Located::new(at, expected, found))
     }
 
-    /// The same error, placed in `file` (named first, as every message about
-    /// a config names its file first).
+    /// The same error, a bare key placed in `file` (named first, as every
+    /// message about a config names its file first). The config's and the
+    /// station's errors already name their file and are left as they are.
     pub fn within(self, file: &str) -> Error {
         match self {
             Error::Invalid(located) => Error::Invalid(located.within(file)),
-            other => Error::Failed(format!("{file}: {other}")),
+            other => other,
         }
-    }
-}
-
-impl From<String> for Error {
-    fn from(message: String) -> Error {
-        Error::Failed(message)
     }
 }
 
@@ -60,7 +63,16 @@ mod tests {
             e.within("s.toml").to_string(),
             "s.toml: key `rig.baud`: expected a positive baud rate, found 0"
         );
-        let e = Error::from("port gone".to_string()).within("s.toml");
-        assert_eq!(e.to_string(), "s.toml: port gone");
+        // A place already put in words keeps its words.
+        let e = Error::from(Located::named(
+            "/dev/ttyUSB0",
+            "a serial port that opens",
+            "no such file",
+        ))
+        .within("s.toml");
+        assert_eq!(
+            e.to_string(),
+            "/dev/ttyUSB0: expected a serial port that opens, found no such file"
+        );
     }
 }

@@ -46,7 +46,7 @@ pub fn probe(station: &Station, listen: Duration, out: &mut dyn Write) -> Result
             speeds.join(", ")
         ),
     )?;
-    let finding = crate::port::probe::probe_port(&settings, p).map_err(Error::Failed)?;
+    let finding = crate::port::probe::probe_port(&settings, p)?;
     for h in &finding.tried {
         write(out, format!("  {}", describe(h)))?;
     }

@@ -194,7 +194,7 @@ pub fn control_setup(
         reload: Some(Box::new(move || {
             Station::load(&path)
                 .map(|s| calibrations_of(&s.profiles))
-                .map_err(|e| e.to_string())
+                .map_err(|e| crate::error::IoFailure::new("the station's config", e))
         })),
     })
 }
@@ -254,7 +254,7 @@ pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, Error> {
     let url = t
         .link
         .parse()
-        .map_err(|e| Error::Failed(format!("key `tuner.link`: {e}")))?;
+        .map_err(|e: crate::tuner::client::UrlError| e.at(Place::bare_key("tuner.link")))?;
     Ok(ClientConfig {
         url,
         min_steps: t.min_steps,

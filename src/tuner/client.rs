@@ -37,6 +37,7 @@ use tokio::time::Instant;
 use super::line::{LineFramer, Reply, Request};
 use super::server::{serve_connection, SharedController, SimController};
 use super::sim::SimParams;
+use crate::error::{Located, Place};
 use crate::shutdown::Shutdown;
 use crate::timing::sleep_until_opt;
 
@@ -75,12 +76,38 @@ pub struct GpioWiring {
 /// Baud rate of a `serial://` URL without `?baud=`.
 pub const DEFAULT_CONTROLLER_BAUD: u32 = 115_200;
 
-impl FromStr for ControllerUrl {
-    type Err = String;
+/// A `tuner.link` that is not a controller URL: what was expected and what
+/// was found. Where it was read (a config's key) is the reader's to add:
+/// [`UrlError::at`].
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("expected {expected}, found {found}")]
+pub struct UrlError {
+    pub expected: String,
+    pub found: String,
+}
 
-    fn from_str(s: &str) -> Result<ControllerUrl, String> {
-        let expected =
-            "expected `serial:///dev/PORT?baud=N`, `tcp://HOST:PORT`, `gpio://CHIP?step=N&dir=N` or `sim`";
+impl UrlError {
+    fn new(expected: impl Into<String>, found: impl Into<String>) -> UrlError {
+        UrlError {
+            expected: expected.into(),
+            found: found.into(),
+        }
+    }
+
+    /// The located error, read at `at`.
+    pub fn at(self, at: Place) -> Located {
+        Located::new(at, self.expected, self.found)
+    }
+}
+
+/// Every form of controller URL, for the error that finds none of them.
+const URL_FORMS: &str =
+    "`serial:///dev/PORT?baud=N`, `tcp://HOST:PORT`, `gpio://CHIP?step=N&dir=N` or `sim`";
+
+impl FromStr for ControllerUrl {
+    type Err = UrlError;
+
+    fn from_str(s: &str) -> Result<ControllerUrl, UrlError> {
         if s == "sim" {
             return Ok(ControllerUrl::Sim);
         }
@@ -90,8 +117,9 @@ impl FromStr for ControllerUrl {
         if let Some(rest) = s.strip_prefix("serial://") {
             let (path, query) = rest.split_once('?').unwrap_or((rest, ""));
             if !path.starts_with('/') {
-                return Err(format!(
-                    "{expected}; found `{s}` (the port path must be absolute)"
+                return Err(UrlError::new(
+                    format!("{URL_FORMS} (the port path must be absolute)"),
+                    format!("`{s}`"),
                 ));
             }
             let mut baud = DEFAULT_CONTROLLER_BAUD;
@@ -99,10 +127,18 @@ impl FromStr for ControllerUrl {
                 match pair.split_once('=') {
                     Some(("baud", v)) => {
                         baud = v.parse().ok().filter(|b| *b > 0).ok_or_else(|| {
-                            format!("`{s}`: expected a positive baud rate, found `{v}`")
+                            UrlError::new(
+                                format!("a positive baud rate in `{s}`"),
+                                format!("`{v}`"),
+                            )
                         })?
                     }
-                    _ => return Err(format!("`{s}`: expected only `baud=N`, found `{pair}`")),
+                    _ => {
+                        return Err(UrlError::new(
+                            format!("only `baud=N` after `?` in `{s}`"),
+                            format!("`{pair}`"),
+                        ))
+                    }
                 }
             }
             return Ok(ControllerUrl::Serial {
@@ -115,21 +151,25 @@ impl FromStr for ControllerUrl {
                 .rsplit_once(':')
                 .is_some_and(|(host, port)| !host.is_empty() && port.parse::<u16>().is_ok());
             if !ok {
-                return Err(format!("{expected}; found `{s}` (expected HOST:PORT)"));
+                return Err(UrlError::new(
+                    format!("{URL_FORMS} (expected HOST:PORT)"),
+                    format!("`{s}`"),
+                ));
             }
             return Ok(ControllerUrl::Tcp {
                 addr: addr.to_string(),
             });
         }
-        Err(format!("{expected}; found `{s}`"))
+        Err(UrlError::new(URL_FORMS, format!("`{s}`")))
     }
 }
 
-fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, String> {
+fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
     let (chip, query) = rest.split_once('?').unwrap_or((rest, ""));
     if chip.is_empty() {
-        return Err(format!(
-            "`{whole}`: expected a GPIO chip such as `gpiochip0` after gpio://, found nothing"
+        return Err(UrlError::new(
+            format!("a GPIO chip such as `gpiochip0` after gpio:// in `{whole}`"),
+            "nothing",
         ));
     }
     let mut w = GpioWiring {
@@ -143,12 +183,15 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, String> {
     };
     let (mut step, mut dir) = (None, None);
     for pair in query.split('&').filter(|p| !p.is_empty()) {
-        let (key, value) = pair
-            .split_once('=')
-            .ok_or_else(|| format!("`{whole}`: expected `key=value`, found `{pair}`"))?;
+        let (key, value) = pair.split_once('=').ok_or_else(|| {
+            UrlError::new(format!("`key=value` in `{whole}`"), format!("`{pair}`"))
+        })?;
         let number = || {
             value.parse::<u32>().map_err(|_| {
-                format!("`{whole}`: key `{key}`: expected a whole number, found `{value}`")
+                UrlError::new(
+                    format!("a whole number for `{key}` in `{whole}`"),
+                    format!("`{value}`"),
+                )
             })
         };
         match key {
@@ -162,27 +205,28 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, String> {
                     "high" => true,
                     "low" => false,
                     _ => {
-                        return Err(format!(
-                            "`{whole}`: key `up`: expected `high` or `low`, found `{value}`"
+                        return Err(UrlError::new(
+                            format!("`high` or `low` for `up` in `{whole}`"),
+                            format!("`{value}`"),
                         ))
                     }
                 }
             }
             _ => {
-                return Err(format!(
-                "`{whole}`: expected keys step, dir, up, accel, pulse_us, setup_us; found `{key}`"
-            ))
+                return Err(UrlError::new(
+                    format!("keys step, dir, up, accel, pulse_us, setup_us in `{whole}`"),
+                    format!("`{key}`"),
+                ))
             }
         }
     }
-    w.step =
-        step.ok_or_else(|| format!("`{whole}`: expected `step=N` (the step line's offset)"))?;
-    w.dir =
-        dir.ok_or_else(|| format!("`{whole}`: expected `dir=N` (the direction line's offset)"))?;
+    let missing = |what: &str| UrlError::new(format!("{what} in `{whole}`"), "none");
+    w.step = step.ok_or_else(|| missing("`step=N` (the step line's offset)"))?;
+    w.dir = dir.ok_or_else(|| missing("`dir=N` (the direction line's offset)"))?;
     if w.step == w.dir {
-        return Err(format!(
-            "`{whole}`: expected different lines for step and dir, found {} for both",
-            w.step
+        return Err(UrlError::new(
+            format!("different lines for step and dir in `{whole}`"),
+            format!("{} for both", w.step),
         ));
     }
     Ok(w)
@@ -312,7 +356,7 @@ struct Link {
 
 enum End {
     Shutdown,
-    Fault(String),
+    Fault(Located),
 }
 
 /// What the open connection is waiting for.
@@ -347,10 +391,11 @@ impl Link {
                     self.set_up(true, "").await;
                     match self.session(stream).await {
                         End::Shutdown => return,
-                        End::Fault(reason) => self.set_up(false, &reason).await,
+                        End::Fault(reason) => self.set_up(false, &reason.to_string()).await,
                     }
                 }
                 Err(reason) => {
+                    let reason = reason.to_string();
                     self.set_up(false, &reason).await;
                     tracing::debug!(url = %self.config.url, %reason, "controller still unreachable");
                 }
@@ -395,7 +440,12 @@ impl Link {
         }
     }
 
-    async fn open(&self) -> Result<Box<dyn ByteStream>, String> {
+    /// A failure of the link to the controller: at its URL.
+    fn failure(&self, expected: impl Into<String>, found: impl Into<String>) -> Located {
+        Located::named(self.config.url.to_string(), expected, found)
+    }
+
+    async fn open(&self) -> Result<Box<dyn ByteStream>, Located> {
         let timeout = self.config.reply_margin.max(Duration::from_millis(500));
         match &self.config.url {
             ControllerUrl::Gpio(w) => {
@@ -416,13 +466,13 @@ impl Link {
                     .connect()
                     .await
                     .map(|s| Box::new(s) as Box<dyn ByteStream>)
-                    .map_err(|e| e.to_string())
+                    .map_err(|e| self.failure("a connection to the direct drive", e.to_string()))
             }
             ControllerUrl::Serial { path, baud } => {
                 let builder = tokio_serial::new(path.to_string_lossy(), *baud);
                 tokio_serial::SerialStream::open(&builder)
                     .map(|s| Box::new(s) as Box<dyn ByteStream>)
-                    .map_err(|e| format!("cannot open {}: {e}", path.display()))
+                    .map_err(|e| self.failure("a serial port that opens", e.to_string()))
             }
             ControllerUrl::Tcp { addr } => {
                 match tokio::time::timeout(timeout, tokio::net::TcpStream::connect(addr)).await {
@@ -430,17 +480,21 @@ impl Link {
                         let _ = s.set_nodelay(true);
                         Ok(Box::new(s))
                     }
-                    Ok(Err(e)) => Err(format!("cannot connect to {addr}: {e}")),
-                    Err(_) => Err(format!(
-                        "cannot connect to {addr}: no answer in {timeout:?}"
+                    Ok(Err(e)) => Err(self.failure("a controller that accepts", e.to_string())),
+                    Err(_) => Err(self.failure(
+                        "a controller that accepts",
+                        format!("no answer in {timeout:?}"),
                     )),
                 }
             }
             ControllerUrl::Sim => {
                 let Some(ctl) = self.sim.clone() else {
-                    return Err(format!(
-                        "simulator: start {} outside limits {}..{}",
-                        self.config.sim_start, self.config.min_steps, self.config.max_steps
+                    return Err(self.failure(
+                        format!(
+                            "a simulator start within the limits {}..{}",
+                            self.config.min_steps, self.config.max_steps
+                        ),
+                        self.config.sim_start.to_string(),
                     ));
                 };
                 let (ours, theirs) = tokio::io::duplex(1024);
@@ -486,8 +540,8 @@ impl Link {
                 _ = self.shutdown.wait() => return End::Shutdown,
                 n = rd.read_buf(&mut inbuf) => {
                     match n {
-                        Ok(0) => return End::Fault("controller closed the connection".to_string()),
-                        Err(e) => return End::Fault(format!("read error: {e}")),
+                        Ok(0) => return End::Fault(self.failure("lines from the controller", "the connection closed")),
+                        Err(e) => return End::Fault(self.failure("lines from the controller", format!("a read error ({e})"))),
                         Ok(_) => {}
                     }
                     while let Some(line) = framer.next_line(&mut inbuf) {
@@ -517,16 +571,19 @@ impl Link {
                     }
                 }
                 _ = sleep_until_opt(deadline) => {
-                    let what = match (w.reply_due, w.arrival) {
+                    let (expected, found) = match (w.reply_due, w.arrival) {
                         (Some(due), _) if Instant::now() >= due => {
-                            format!("no answer within {:?}", self.config.reply_margin)
+                            (format!("an answer within {:?}", self.config.reply_margin), "none")
                         }
-                        (_, Some((target, _))) => format!("move to {target} did not end in time"),
-                        _ => "no answer in time".to_string(),
+                        (_, Some((target, _))) => {
+                            (format!("the move to {target} to end in time"), "it still under way")
+                        }
+                        _ => ("an answer in time".to_string(), "none"),
                     };
-                    let text = format!("controller fault: {what}; reconnecting");
-                    self.emit(TunerEvent::Error { text: text.clone() }).await;
-                    return End::Fault(text);
+                    let fault = self.failure(expected, found);
+                    let text = format!("controller fault: {fault}; reconnecting");
+                    self.emit(TunerEvent::Error { text }).await;
+                    return End::Fault(fault);
                 }
             }
         }
@@ -541,7 +598,7 @@ impl Link {
         wr: &mut (impl AsyncWrite + Unpin),
         w: &mut Waiting,
         cmd: TunerCommand,
-    ) -> Result<(), String> {
+    ) -> Result<(), Located> {
         let (min, max) = (self.config.min_steps, self.config.max_steps);
         let refuse = match cmd {
             TunerCommand::Goto(t) if !(min..=max).contains(&t) => {
@@ -568,7 +625,7 @@ impl Link {
         wr: &mut (impl AsyncWrite + Unpin),
         w: &mut Waiting,
         req: Request,
-    ) -> Result<(), String> {
+    ) -> Result<(), Located> {
         let mut out = BytesMut::with_capacity(32);
         req.encode(&mut out);
         let margin = self.config.reply_margin;
@@ -579,8 +636,15 @@ impl Link {
         .await
         {
             Ok(Ok(())) => {}
-            Ok(Err(e)) => return Err(format!("write error sending {req}: {e}")),
-            Err(_) => return Err(format!("could not send {req} within {margin:?}")),
+            Ok(Err(e)) => {
+                return Err(self.failure(format!("{req} sent"), format!("a write error ({e})")))
+            }
+            Err(_) => {
+                return Err(self.failure(
+                    format!("{req} sent within {margin:?}"),
+                    "the write still waiting",
+                ))
+            }
         }
         tracing::debug!(%req, "sent");
         w.unanswered += 1;
@@ -640,14 +704,25 @@ impl Link {
 fn open_direct(
     config: &ClientConfig,
     w: &GpioWiring,
-) -> Result<super::gpio::DirectController, String> {
+) -> Result<super::gpio::DirectController, Located> {
     use super::gpio::{DirectController, GpioPins, PulseTiming, RealPause, StepDirDriver};
-    let pins = GpioPins::open(&w.chip, w.step, w.dir, w.up_is_high).map_err(|e| e.to_string())?;
+    let url = config.url.to_string();
+    let pins = GpioPins::open(&w.chip, w.step, w.dir, w.up_is_high).map_err(|e| {
+        Located::named(
+            &url,
+            "step and direction lines this user may drive",
+            e.to_string(),
+        )
+    })?;
     let accel = w
         .accel
         .map(f64::from)
         .unwrap_or(config.steps_per_second * 4.0);
-    let profile = super::ramp::RampProfile::new(accel, config.steps_per_second)?;
+    let profile =
+        super::ramp::RampProfile::new(accel, config.steps_per_second).map_err(|e| Located {
+            at: Place::Named(format!("{url}: {}", e.at)),
+            ..e
+        })?;
     let timing = PulseTiming {
         step_pulse: Duration::from_micros(w.pulse_us.into()),
         dir_setup: Duration::from_micros(w.setup_us.into()),
@@ -660,7 +735,7 @@ fn open_direct(
         (config.min_steps, config.max_steps),
         config.min_steps,
     )
-    .map_err(|e| e.to_string())?;
+    .map_err(|e| Located::named(&url, "a direct drive within its limits", e.to_string()))?;
     Ok(DirectController::start(driver, config.settle))
 }
 
@@ -668,8 +743,12 @@ fn open_direct(
 fn open_direct(
     _config: &ClientConfig,
     _w: &GpioWiring,
-) -> Result<super::gpio::DirectController, String> {
-    Err("direct GPIO drive needs Linux".to_string())
+) -> Result<super::gpio::DirectController, Located> {
+    Err(Located::named(
+        _config.url.to_string(),
+        "Linux, for a direct GPIO drive",
+        std::env::consts::OS,
+    ))
 }
 
 impl From<TunerCommand> for Request {
@@ -734,22 +813,46 @@ mod tests {
                 setup_us: 20,
             }))
         );
-        for bad in [
-            "serial://ttyACM0",
-            "serial:///dev/x?baud=fast",
-            "serial:///dev/x?parity=odd",
-            "tcp://127.0.0.1",
-            "tcp://:80",
-            "udp://1.2.3.4:5",
-            "gpio://gpiochip0?step=17",
-            "gpio://gpiochip0?step=4&dir=4",
-            "gpio://?step=1&dir=2",
-            "gpio://gpiochip0?step=1&dir=2&up=sideways",
-            "gpio://gpiochip0?step=1&dir=2&speed=9",
-            "",
+        // Each refusal: (URL, words of what was expected, what was found).
+        for (bad, expected, found) in [
+            ("serial://ttyACM0", "must be absolute", "`serial://ttyACM0`"),
+            ("serial:///dev/x?baud=fast", "positive baud rate", "`fast`"),
+            (
+                "serial:///dev/x?parity=odd",
+                "only `baud=N`",
+                "`parity=odd`",
+            ),
+            ("tcp://127.0.0.1", "HOST:PORT", "`tcp://127.0.0.1`"),
+            ("tcp://:80", "HOST:PORT", "`tcp://:80`"),
+            ("udp://1.2.3.4:5", "`sim`", "`udp://1.2.3.4:5`"),
+            ("gpio://gpiochip0?step=17", "`dir=N`", "none"),
+            (
+                "gpio://gpiochip0?step=4&dir=4",
+                "different lines",
+                "4 for both",
+            ),
+            ("gpio://?step=1&dir=2", "GPIO chip", "nothing"),
+            (
+                "gpio://gpiochip0?step=1&dir=2&up=sideways",
+                "`high` or `low`",
+                "`sideways`",
+            ),
+            (
+                "gpio://gpiochip0?step=1&dir=2&speed=9",
+                "keys step, dir",
+                "`speed`",
+            ),
+            ("", "`tcp://HOST:PORT`", "``"),
         ] {
             let e = bad.parse::<ControllerUrl>().unwrap_err();
-            assert!(e.contains("expected"), "{bad}: {e}");
+            assert!(e.expected.contains(expected), "{bad}: {e}");
+            assert_eq!(e.found, found, "{bad}: {e}");
+            let located = e.at(Place::bare_key("tuner.link")).to_string();
+            assert!(
+                located.starts_with("key `tuner.link`: expected ")
+                    && located.ends_with(&format!(", found {found}")),
+                "{bad}: {located}"
+            );
         }
     }
 

@@ -20,6 +20,8 @@
 
 use std::time::Duration;
 
+use crate::error::Located;
+
 /// Austin's correction of the first delay (see the module docs).
 pub const FIRST_STEP_FACTOR: f64 = 0.676;
 
@@ -34,10 +36,10 @@ pub struct RampProfile {
 
 impl RampProfile {
     /// Checks both are positive and finite.
-    pub fn new(accel: f64, max_speed: f64) -> Result<RampProfile, String> {
+    pub fn new(accel: f64, max_speed: f64) -> Result<RampProfile, Located> {
         for (name, v) in [("acceleration", accel), ("maximum speed", max_speed)] {
             if !(v.is_finite() && v > 0.0) {
-                return Err(format!("{name}: expected a positive number, found {v}"));
+                return Err(Located::named(name, "a positive number", v.to_string()));
             }
         }
         Ok(RampProfile { accel, max_speed })
@@ -354,10 +356,17 @@ mod tests {
 
     #[test]
     fn bad_profiles_are_refused() {
-        assert!(RampProfile::new(0.0, 10.0).is_err());
-        assert!(RampProfile::new(10.0, f64::NAN).is_err());
-        assert!(RampProfile::new(-1.0, 10.0)
-            .unwrap_err()
-            .contains("acceleration"));
+        assert_eq!(
+            RampProfile::new(0.0, 10.0).unwrap_err().to_string(),
+            "acceleration: expected a positive number, found 0"
+        );
+        assert_eq!(
+            RampProfile::new(10.0, f64::NAN).unwrap_err().to_string(),
+            "maximum speed: expected a positive number, found NaN"
+        );
+        assert_eq!(
+            RampProfile::new(-1.0, 10.0).unwrap_err().to_string(),
+            "acceleration: expected a positive number, found -1"
+        );
     }
 }

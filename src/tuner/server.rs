@@ -22,6 +22,7 @@ use tokio::time::Instant;
 
 use super::line::{LineFramer, Reply, Request};
 use super::sim::{SimParams, SimTuner};
+use crate::error::{Located, Place};
 use crate::port::pty::PtyLink;
 use crate::shutdown::Shutdown;
 use crate::timing::sleep_until_opt;
@@ -36,32 +37,42 @@ pub struct SimController {
 
 impl SimController {
     /// A controller at rest at `start`; `start` must be within the limits.
-    pub fn new(params: SimParams, start: i64) -> Result<SimController, String> {
+    pub fn new(params: SimParams, start: i64) -> Result<SimController, Located> {
         if params.min_steps >= params.max_steps {
-            return Err(format!(
-                "limits: expected min below max, found {}..{}",
-                params.min_steps, params.max_steps
+            return Err(Located::named(
+                "limits",
+                "min below max",
+                format!("{}..{}", params.min_steps, params.max_steps),
             ));
         }
         if !(params.steps_per_second.is_finite() && params.steps_per_second >= 0.001) {
-            return Err(format!(
-                "steps per second: expected a number of at least 0.001, found {}",
-                params.steps_per_second
+            return Err(Located::named(
+                "steps per second",
+                "a number of at least 0.001",
+                params.steps_per_second.to_string(),
             ));
         }
         // The mechanics compute travel times as Durations; keep the longest
         // travel representable (and sane: under a year).
         let longest = params.min_steps.abs_diff(params.max_steps) as f64 / params.steps_per_second;
         if longest > 3.0e7 {
-            return Err(format!(
-                "limits and speed: expected a full travel under a year, found {longest:.3e} s for {}..{} at {} steps/s",
-                params.min_steps, params.max_steps, params.steps_per_second
+            return Err(Located::named(
+                "limits and speed",
+                "a full travel under a year",
+                format!(
+                    "{longest:.3e} s for {}..{} at {} steps/s",
+                    params.min_steps, params.max_steps, params.steps_per_second
+                ),
             ));
         }
         if !(params.min_steps..=params.max_steps).contains(&start) {
-            return Err(format!(
-                "start: expected a position within {}..{}, found {start}",
-                params.min_steps, params.max_steps
+            return Err(Located::named(
+                "start",
+                format!(
+                    "a position within {}..{}",
+                    params.min_steps, params.max_steps
+                ),
+                start.to_string(),
             ));
         }
         Ok(SimController {
@@ -292,7 +303,7 @@ pub struct SimTunerOptions {
 }
 
 /// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
-pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), String> {
+pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), Located> {
     let params = SimParams {
         steps_per_second: args.steps_per_second,
         settle_ms: args.settle_ms,
@@ -301,37 +312,58 @@ pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), String> {
         max_steps: args.max,
     };
     if args.backlash < 0 {
-        return Err(format!(
-            "--backlash: expected 0 or more steps, found {}",
-            args.backlash
+        return Err(Located::named(
+            "--backlash",
+            "0 or more steps",
+            args.backlash.to_string(),
         ));
     }
-    let ctl = SimController::new(params, args.start).map_err(|e| format!("sim-tuner: {e}"))?;
+    let ctl = SimController::new(params, args.start).map_err(|e| Located {
+        at: Place::Named(format!("sim-tuner: {}", e.at)),
+        ..e
+    })?;
     let _ = tracing_subscriber::fmt()
         .with_writer(std::io::stderr)
         .try_init();
     let rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()
-        .map_err(|e| format!("cannot start the runtime: {e}"))?;
+        .map_err(|e| Located::named("sim-tuner", "a tokio runtime that starts", e.to_string()))?;
     rt.block_on(async move {
         let stop_rx = crate::signals::stop_flag();
         if let Some(addr) = args.listen {
-            let listener = TcpListener::bind(addr)
-                .await
-                .map_err(|e| format!("--listen {addr}: cannot listen: {e}"))?;
-            let local = listener
-                .local_addr()
-                .map_err(|e| format!("--listen {addr}: {e}"))?;
+            let listening = |e: io::Error| {
+                Located::named(
+                    format!("--listen {addr}"),
+                    "an address to listen on",
+                    e.to_string(),
+                )
+            };
+            let listener = TcpListener::bind(addr).await.map_err(listening)?;
+            let local = listener.local_addr().map_err(listening)?;
             println!("listening on {local}");
-            run_tcp(listener, ctl, stop_rx)
-                .await
-                .map_err(|e| format!("sim-tuner on {local}: {e}"))
+            run_tcp(listener, ctl, stop_rx).await.map_err(|e| {
+                Located::named(
+                    format!("sim-tuner on {local}"),
+                    "connections served until stopped",
+                    e.to_string(),
+                )
+            })
         } else if let Some(link) = &args.pty {
             let r = run_pty(link, ctl, stop_rx).await;
-            r.map_err(|e| format!("--pty {}: {e}", link.display()))
+            r.map_err(|e| {
+                Located::named(
+                    format!("--pty {}", link.display()),
+                    "a pseudo-terminal served until stopped",
+                    e.to_string(),
+                )
+            })
         } else {
-            Err("sim-tuner: expected --listen ADDR or --pty LINK".to_string())
+            Err(Located::named(
+                "sim-tuner",
+                "--listen ADDR or --pty LINK",
+                "neither",
+            ))
         }
     })
 }
@@ -413,18 +445,28 @@ mod tests {
 
     #[test]
     fn bad_start_or_limits_are_refused() {
-        assert!(SimController::new(params(), 20_000).is_err());
+        assert_eq!(
+            SimController::new(params(), 20_000)
+                .unwrap_err()
+                .to_string(),
+            "start: expected a position within 0..10000, found 20000"
+        );
         let mut slow = params();
         slow.steps_per_second = 1e-300;
-        assert!(SimController::new(slow, 0).is_err());
+        assert_eq!(
+            SimController::new(slow, 0).unwrap_err().at,
+            Place::Named("steps per second".into())
+        );
         let mut wide = params();
         wide.min_steps = i64::MIN;
         wide.max_steps = i64::MAX;
-        assert!(SimController::new(wide, 0)
-            .unwrap_err()
-            .contains("under a year"));
+        let e = SimController::new(wide, 0).unwrap_err();
+        assert_eq!(e.expected, "a full travel under a year", "{e}");
         let mut p = params();
         p.max_steps = p.min_steps;
-        assert!(SimController::new(p, 0).is_err());
+        assert_eq!(
+            SimController::new(p, 0).unwrap_err().to_string(),
+            "limits: expected min below max, found 0..0"
+        );
     }
 }

@@ -459,9 +459,9 @@ fn scripts_are_checked_with_line_numbers() {
         ("{\"at_ms\": 0, \"op\": \"sweep\", \"to_hz\": 3, \"over_ms\": 1, \"step_hz\": 0}", "step_hz"),
     ];
     for (text, want) in bad {
-        let e = Script::parse(text, "s.jsonl").unwrap_err();
+        let e = Script::parse(text, "s.jsonl").unwrap_err().to_string();
         assert!(
-            e.starts_with("s.jsonl: line") && e.contains(want),
+            e.starts_with("s.jsonl, line ") && e.contains(": expected ") && e.contains(want),
             "{text}: {e}"
         );
     }
