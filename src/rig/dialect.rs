@@ -141,40 +141,33 @@ impl Dialect {
             }
         })?;
         let r = Reader { file };
-        if table.get("family").and_then(|v| v.as_str()) == Some("block") {
-            // The block family has its own top-level tables.
-            let spec = BlockSpec::from_toml(&r, &table)?;
-            let name = r.string(&table, "", "name")?;
-            if name.is_empty() {
-                return Err(r.err("name", "a non-empty name", "\"\"".into()));
-            }
-            return Ok(Dialect {
-                name,
-                spec: Spec::Block(spec),
-            });
+        // The block family has its own top-level tables: the others' key
+        // list is not its list.
+        if table.get("family").and_then(|v| v.as_str()) != Some("block") {
+            r.only(
+                &table,
+                "",
+                &[
+                    "name",
+                    "family",
+                    "frame",
+                    "address",
+                    "command",
+                    "frequency",
+                    "message",
+                    "status",
+                    "transmit",
+                    "poll",
+                    "station",
+                ],
+            )?;
         }
-        r.only(
-            &table,
-            "",
-            &[
-                "name",
-                "family",
-                "frame",
-                "address",
-                "command",
-                "frequency",
-                "message",
-                "status",
-                "transmit",
-                "poll",
-                "station",
-            ],
-        )?;
         let name = r.string(&table, "", "name")?;
         let family = r.string(&table, "", "family")?;
         let spec = match family.as_str() {
             "binary" => Spec::Binary(BinarySpec::from_toml(&r, &table)?),
             "text" => Spec::Text(TextSpec::from_toml(&r, &table)?),
+            "block" => Spec::Block(BlockSpec::from_toml(&r, &table)?),
             other => {
                 return Err(r.err(
                     "family",
@@ -277,6 +270,25 @@ mod tests {
             Dialect::parse(text, Path::new(name)).unwrap();
         }
         assert_eq!(BUILTINS.len(), BUILTIN_NAMES.len());
+    }
+
+    #[test]
+    fn every_family_refuses_an_empty_name_and_only_block_has_its_own_keys() {
+        for name in ["block-5", "binary-bcd", "text-semicolon"] {
+            let (_, text) = BUILTINS.iter().find(|(n, _)| *n == name).unwrap();
+            let unnamed = text.replacen(&format!("name = \"{name}\""), "name = \"\"", 1);
+            let e = Dialect::parse(&unnamed, Path::new("mine.toml")).unwrap_err();
+            assert_eq!(
+                e.to_string(),
+                "mine.toml: key `name`: expected a non-empty name, found \"\"",
+                "{name}"
+            );
+        }
+        // A key the binary and text families do not know is refused there.
+        let (_, text) = BUILTINS.iter().find(|(n, _)| *n == "binary-bcd").unwrap();
+        let extra = format!("{text}\n[block]\nlength = 5\n");
+        let e = Dialect::parse(&extra, Path::new("mine.toml")).unwrap_err();
+        assert!(e.to_string().contains("`block`"), "{e}");
     }
 
     #[test]
