@@ -71,21 +71,15 @@ pub fn run_capture(
         .build()
         .map_err(|e| Located::named("capture", "a tokio runtime that starts", e.to_string()))?;
     rt.block_on(async move {
+        if let RigSource::Events(_) = source {
+            return Err(Located::named(
+                "capture",
+                "a rig port to capture",
+                "events from inside the program",
+            ));
+        }
         let (stop_trigger, stop) = shutdown::channel();
-        let (tx, rx) = mpsc::channel(256);
-        let task = match source {
-            RigSource::Link(cfg) => crate::port::link::spawn(cfg, tx, stop),
-            RigSource::Proxy { config, boundary } => {
-                crate::port::proxy::spawn(config, boundary, tx, stop)?
-            }
-            RigSource::Events(_) => {
-                return Err(Located::named(
-                    "capture",
-                    "a rig port to capture",
-                    "events from inside the program",
-                ))
-            }
-        };
+        let (task, rx) = source.spawn(stop)?;
         let mut w = CaptureWriter::new(std::io::BufWriter::new(file));
         w.comment(header).map_err(|e| write_failure(&out, e))?;
         let result = record(
@@ -98,7 +92,9 @@ pub fn run_capture(
         )
         .await;
         stop_trigger.trigger();
-        let _ = tokio::time::timeout(Duration::from_secs(3), task).await;
+        if let Some(task) = task {
+            let _ = tokio::time::timeout(Duration::from_secs(3), task).await;
+        }
         let flushed = w
             .flush()
             .and_then(|()| {

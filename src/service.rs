@@ -21,6 +21,7 @@ use std::path::PathBuf;
 use std::time::Duration;
 
 use tokio::sync::{mpsc, watch};
+use tokio::task::JoinHandle;
 use tokio::time::Instant;
 
 use crate::calibrate::{append_candidate, Point};
@@ -53,6 +54,24 @@ pub enum RigSource {
     },
     /// Events from elsewhere (tests, or a driver that owns the port itself).
     Events(mpsc::Receiver<LinkEvent>),
+}
+
+impl RigSource {
+    /// Starts the task that watches the rig's port (none for
+    /// [`RigSource::Events`]) and returns it with the receiver of what it
+    /// hears. Errs when the proxy's symlink cannot be placed.
+    pub fn spawn(
+        self,
+        shutdown: Shutdown,
+    ) -> Result<(Option<JoinHandle<()>>, mpsc::Receiver<LinkEvent>), Located> {
+        let (tx, rx) = mpsc::channel(256);
+        let task = match self {
+            RigSource::Link(cfg) => link::spawn(cfg, tx, shutdown),
+            RigSource::Proxy { config, boundary } => proxy::spawn(config, boundary, tx, shutdown)?,
+            RigSource::Events(rx) => return Ok((None, rx)),
+        };
+        Ok((Some(task), rx))
+    }
 }
 
 /// Everything the live service drives.
@@ -227,23 +246,7 @@ pub async fn run_with_operator(
     // still be heard (a transmission stops the motor; a proxied program
     // keeps its port) until the session has persisted and released.
     let (tasks_stop, tasks_shutdown) = shutdown::channel();
-    let (rig_tx, rig_rx) = mpsc::channel(256);
-    let (rig_task, mut rig_rx) = match service.rig {
-        RigSource::Link(cfg) => (
-            Some(link::spawn(cfg, rig_tx, tasks_shutdown.clone())),
-            rig_rx,
-        ),
-        RigSource::Proxy { config, boundary } => (
-            Some(proxy::spawn(
-                config,
-                boundary,
-                rig_tx,
-                tasks_shutdown.clone(),
-            )?),
-            rig_rx,
-        ),
-        RigSource::Events(rx) => (None, rx),
-    };
+    let (rig_task, mut rig_rx) = service.rig.spawn(tasks_shutdown.clone())?;
     let (transmit_tx, transmit_rx) = watch::channel(false);
     let settings = SessionSettings {
         steps_per_second: service.controller.steps_per_second,

@@ -17,6 +17,7 @@ use crate::error::Located;
 use crate::port::pty::PtyLink;
 use crate::rig::Dialect;
 use crate::shutdown::Shutdown;
+use crate::timing::sleep_until_opt;
 
 /// What `sim-rig` was asked to do.
 #[derive(Debug, Clone)]
@@ -159,12 +160,5 @@ async fn serve(
             _ = sleep_until_opt(deadline) => rig.handle_timeout(start.elapsed()),
             _ = stop.wait() => return Ok(()),
         }
-    }
-}
-
-async fn sleep_until_opt(deadline: Option<Instant>) {
-    match deadline {
-        Some(d) => tokio::time::sleep_until(d).await,
-        None => std::future::pending().await,
     }
 }
