@@ -44,6 +44,9 @@ pub struct Config {
     /// The operator's control socket.
     #[serde(default)]
     pub control: ControlConfig,
+    /// State and commands on an MQTT broker (off unless configured).
+    #[serde(default)]
+    pub mqtt: Option<MqttConfig>,
     /// Where the config was read from; relative paths inside it are resolved
     /// against this file's folder.
     #[serde(skip)]
@@ -453,6 +456,41 @@ pub struct ControlConfig {
     pub listen: Option<String>,
 }
 
+/// `[mqtt]`: the state on an MQTT broker, and optionally its commands
+/// (topics and payloads: protocols/mqtt.md).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MqttConfig {
+    /// The broker: `mqtt://HOST:PORT` (or `tcp://`; port 1883 when left
+    /// out). No TLS: a broker beyond this machine is reached through a
+    /// tunnel or on a trusted network.
+    pub url: String,
+    /// The topic prefix; by default `tuneward/` and the config file's
+    /// name without its extension.
+    #[serde(default)]
+    pub topic: Option<String>,
+    /// The client id; by default `tuneward-` and the config file's name.
+    #[serde(default)]
+    pub client_id: Option<String>,
+    /// Take commands on `<topic>/command` (false by default: the topic is
+    /// not even subscribed to).
+    #[serde(default)]
+    pub commands: bool,
+    /// A user name for the broker; with `password_file`.
+    #[serde(default)]
+    pub username: Option<String>,
+    /// A file holding the broker password (its first line).
+    #[serde(default)]
+    pub password_file: Option<PathBuf>,
+}
+
+/// `[mqtt] url`, read: the broker's host and port.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct MqttBroker {
+    pub host: String,
+    pub port: u16,
+}
+
 /// One measured calibration point: at `hz` the loop was resonant at `steps`.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -801,6 +839,7 @@ impl Config {
         self.calibration_points()?;
         self.validate_presets()?;
         self.control_listen()?;
+        self.mqtt_broker()?;
         Ok(())
     }
 
@@ -874,6 +913,130 @@ impl Config {
                 format!("\"{text}\""),
             )),
         }
+    }
+
+    /// `[mqtt]`, checked: the broker's address, the topic prefix and client
+    /// id in force (defaults filled in), and the credentials' keys. A
+    /// command topic on a broker beyond loopback needs a user name and
+    /// password (the broker's login stands in for the control token).
+    pub fn mqtt_broker(&self) -> Result<Option<(MqttBroker, String, String)>, ConfigError> {
+        let Some(m) = &self.mqtt else {
+            return Ok(None);
+        };
+        let shown = format!("\"{}\"", m.url);
+        let rest = ["mqtt://", "tcp://"]
+            .iter()
+            .find_map(|scheme| m.url.strip_prefix(scheme))
+            .ok_or_else(|| {
+                self.invalid(
+                    "mqtt.url",
+                    "a broker URL such as \"mqtt://127.0.0.1:1883\" (mqtt:// or tcp://; no TLS)",
+                    shown.clone(),
+                )
+            })?;
+        let rest = rest.strip_suffix('/').unwrap_or(rest);
+        // `[v6]:port`, `host:port`, or either without the port.
+        let (host, port) = match rest.strip_prefix('[') {
+            Some(v6) => match v6.split_once(']') {
+                Some((h, "")) => (h, None),
+                Some((h, p)) => (h, Some(p.strip_prefix(':').unwrap_or(p))),
+                None => ("", None),
+            },
+            None => match rest.rsplit_once(':') {
+                Some((h, p)) => (h, Some(p)),
+                None => (rest, None),
+            },
+        };
+        let port = match port {
+            None => 1883,
+            Some(p) => match p.parse::<u16>() {
+                Ok(port) if port > 0 => port,
+                _ => {
+                    return Err(self.invalid(
+                        "mqtt.url",
+                        "a port from 1 to 65535 after the host",
+                        shown,
+                    ))
+                }
+            },
+        };
+        if host.is_empty() || host.contains(['/', '@', '?', '#', ' ']) {
+            return Err(self.invalid(
+                "mqtt.url",
+                "a host name or address after mqtt:// (no user, path or query)",
+                shown,
+            ));
+        }
+        let stem = self
+            .source
+            .as_deref()
+            .and_then(Path::file_stem)
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "station".to_string());
+        let topic = m
+            .topic
+            .clone()
+            .unwrap_or_else(|| format!("tuneward/{stem}"));
+        if topic.is_empty()
+            || topic.starts_with('/')
+            || topic.ends_with('/')
+            || topic.contains(['+', '#', '\0'])
+            || topic.len() > 1000
+        {
+            return Err(self.invalid(
+                "mqtt.topic",
+                "a topic prefix such as \"tuneward/shack\" (no wildcards, no leading or trailing /)",
+                format!("\"{topic}\""),
+            ));
+        }
+        let client_id = m
+            .client_id
+            .clone()
+            .unwrap_or_else(|| format!("tuneward-{stem}"));
+        if client_id.is_empty() || client_id.len() > 256 || client_id.contains('\0') {
+            return Err(self.invalid(
+                "mqtt.client_id",
+                "a client id of 1 to 256 bytes",
+                format!("\"{client_id}\""),
+            ));
+        }
+        match (&m.username, &m.password_file) {
+            (Some(_), Some(_)) | (None, None) => {}
+            (Some(_), None) => {
+                return Err(self.invalid(
+                    "mqtt.password_file",
+                    "a password file with `username`",
+                    "none".into(),
+                ))
+            }
+            (None, Some(_)) => {
+                return Err(self.invalid(
+                    "mqtt.username",
+                    "a user name with `password_file`",
+                    "none".into(),
+                ))
+            }
+        }
+        let loopback = host == "localhost"
+            || host
+                .parse::<std::net::IpAddr>()
+                .map(|ip| ip.is_loopback())
+                .unwrap_or(false);
+        if m.commands && !loopback && m.username.is_none() {
+            return Err(self.invalid(
+                "mqtt.username",
+                "a broker login (`username` and `password_file`) for commands from a broker beyond loopback",
+                format!("commands = true on {host} without one"),
+            ));
+        }
+        Ok(Some((
+            MqttBroker {
+                host: host.to_string(),
+                port,
+            },
+            topic,
+            client_id,
+        )))
     }
 
     /// `[rig]`: the mode and the keys that go with it.
@@ -1158,5 +1321,78 @@ guard_hz = 10000
         assert_eq!(line_col("ab\ncd", 0), (1, 1));
         assert_eq!(line_col("ab\ncd", 4), (2, 2));
         assert_eq!(line_col("ab", 99), (1, 3));
+    }
+
+    fn mqtt(table: &str) -> Result<Option<(MqttBroker, String, String)>, ConfigError> {
+        let text = format!("{MINIMAL}\n[mqtt]\n{table}\n");
+        let mut c = Config::parse(&text, Path::new("/etc/tuneward/shack.toml"))?;
+        c.source = Some("/etc/tuneward/shack.toml".into());
+        c.mqtt_broker()
+    }
+
+    #[test]
+    fn mqtt_defaults_follow_the_config_file_name() {
+        let (broker, topic, id) = mqtt(r#"url = "mqtt://127.0.0.1""#).unwrap().unwrap();
+        assert_eq!(
+            broker,
+            MqttBroker {
+                host: "127.0.0.1".into(),
+                port: 1883
+            }
+        );
+        assert_eq!(topic, "tuneward/shack");
+        assert_eq!(id, "tuneward-shack");
+        let (broker, _, _) = mqtt(r#"url = "tcp://[::1]:1884/""#).unwrap().unwrap();
+        assert_eq!((broker.host.as_str(), broker.port), ("::1", 1884));
+        let c = Config::parse(MINIMAL, Path::new("t.toml")).unwrap();
+        assert!(c.mqtt_broker().unwrap().is_none());
+    }
+
+    #[test]
+    fn bad_mqtt_tables_are_refused_with_the_key() {
+        for (table, key, words) in [
+            (r#"url = "mqtts://broker:8883""#, "mqtt.url", "no TLS"),
+            (r#"url = "127.0.0.1:1883""#, "mqtt.url", "mqtt://"),
+            (r#"url = "mqtt://broker:0""#, "mqtt.url", "port"),
+            (r#"url = "mqtt://broker:http""#, "mqtt.url", "port"),
+            (r#"url = "mqtt://user@broker""#, "mqtt.url", "no user"),
+            (r#"url = "mqtt://""#, "mqtt.url", "host"),
+            (
+                "url = \"mqtt://b\"\ntopic = \"tuneward/#\"",
+                "mqtt.topic",
+                "wildcards",
+            ),
+            (
+                "url = \"mqtt://b\"\ntopic = \"tuneward/\"",
+                "mqtt.topic",
+                "trailing",
+            ),
+            (
+                "url = \"mqtt://b\"\nclient_id = \"\"",
+                "mqtt.client_id",
+                "1 to 256",
+            ),
+            (
+                "url = \"mqtt://b\"\nusername = \"u\"",
+                "mqtt.password_file",
+                "password file",
+            ),
+            (
+                "url = \"mqtt://192.0.2.7\"\ncommands = true",
+                "mqtt.username",
+                "broker login",
+            ),
+        ] {
+            let msg = mqtt(table).unwrap_err().to_string();
+            assert!(msg.contains(key), "{table}: {msg}");
+            assert!(msg.contains(words), "{table}: {msg}");
+            assert!(msg.contains("shack.toml"), "{table}: {msg}");
+        }
+        // Commands from a loopback broker need no login; beyond it, with one.
+        assert!(mqtt("url = \"mqtt://localhost\"\ncommands = true").is_ok());
+        assert!(mqtt(
+            "url = \"mqtt://192.0.2.7\"\ncommands = true\nusername = \"u\"\npassword_file = \"p\""
+        )
+        .is_ok());
     }
 }

@@ -138,6 +138,8 @@ pub struct ControlSetup {
     /// Also TCP here (loopback only).
     pub listen: Option<std::net::SocketAddr>,
     pub reload: Option<Reloader>,
+    /// The MQTT front end (`[mqtt]`), if configured.
+    pub mqtt: Option<crate::control::mqtt::MqttSettings>,
 }
 
 /// Runs the live service from its parts (the station layer assembles them:
@@ -172,6 +174,15 @@ pub fn run_until_signal(
             }
             None => None,
         };
+        let mqtt = control.mqtt.map(|settings| {
+            tracing::info!(
+                broker = %format!("{}:{}", settings.host, settings.port),
+                prefix = %settings.prefix,
+                commands = settings.commands,
+                "mqtt: front end started"
+            );
+            crate::control::mqtt::spawn(settings, link.clone(), fronts.clone())
+        });
         drop(link);
         let operator = Operator {
             port,
@@ -181,6 +192,9 @@ pub fn run_until_signal(
         fronts_stop.trigger();
         let _ = tokio::time::timeout(TASK_END_WAIT, unix).await;
         if let Some(t) = tcp {
+            let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
+        }
+        if let Some(t) = mqtt {
             let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
         }
         result

@@ -1,5 +1,6 @@
 //! The operator's front ends to the running service: one command set
-//! ([`protocol`]), served on a local socket ([`socket`]) for `tuneward ctl`.
+//! ([`protocol`]), served on a local socket ([`socket`]) for `tuneward ctl`
+//! and on an MQTT broker ([`mqtt`]).
 //!
 //! Front ends decide nothing. Each request becomes an [`Ask`] sent to the
 //! live driver with a one-shot for the answer; the driver hands it to the
@@ -7,6 +8,7 @@
 //! the front ends show is a `watch` the driver updates after each event.
 
 pub mod client;
+pub mod mqtt;
 pub mod protocol;
 pub mod socket;
 

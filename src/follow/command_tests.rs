@@ -503,3 +503,147 @@ fn status_shows_what_the_core_knows() {
     r.report(100, 14_000_000);
     assert_eq!(r.f.status().band, None);
 }
+
+/// The shared table of operator actions (`fixtures/control/actions.toml`),
+/// read by the same file the end-to-end tests read it with.
+#[path = "../../tests/common/actions_table.rs"]
+mod actions_table;
+
+/// A straight calibration through two points of the table.
+struct Through([(u64, i64); 2]);
+impl StepMap for Through {
+    fn steps_at(&self, hz: f64) -> f64 {
+        let [(h0, s0), (h1, s1)] = self.0;
+        s0 as f64 + (hz - h0 as f64) * (s1 - s0) as f64 / (h1 as f64 - h0 as f64)
+    }
+}
+
+fn two_points(points: &[(u64, i64)]) -> [(u64, i64); 2] {
+    match points {
+        [a, b] => [*a, *b],
+        other => panic!("the table's calibration is two points, found {other:?}"),
+    }
+}
+
+#[test]
+fn the_shared_action_table_holds_in_the_core() {
+    use crate::control::protocol::{parse_request, Answer, Ask};
+    use actions_table::RigSays;
+
+    let table = actions_table::table();
+    let st = &table.station;
+    let base = Arc::new(Through(two_points(&st.base_points)));
+    let wet = Arc::new(Through(two_points(&st.wet_points)));
+    let calibrations = || {
+        let mut profiles: std::collections::BTreeMap<String, Arc<dyn StepMap>> = Default::default();
+        profiles.insert("wet".into(), wet.clone());
+        Calibrations {
+            base: Some(base.clone()),
+            profiles,
+        }
+    };
+    // The end-to-end station's policy (tests/common/mod.rs: debounce 30 ms,
+    // dead band 100 Hz, lead 5 ms, tail 20 ms, no backlash).
+    let mut p = policy();
+    p.bands = vec![Band {
+        name: st.band.name.clone(),
+        low_hz: st.band.low_hz,
+        high_hz: st.band.high_hz,
+        guard_hz: 0,
+        hysteresis_hz: 100,
+        debounce: ms(30),
+    }];
+    p.min_steps = st.min_steps;
+    p.max_steps = st.max_steps;
+    p.backlash_steps = 0;
+    p.debounce = ms(30);
+    p.min_move_steps = 1;
+    p.inhibit_lead = ms(5);
+    p.inhibit_tail = ms(20);
+    p.inhibit_until_tuned = true;
+    p.inhibit_while_detuned = true;
+    let presets = st
+        .presets
+        .iter()
+        .map(|q| Preset {
+            name: q.name.clone(),
+            goal: match (q.hz, q.steps) {
+                (Some(hz), None) => PresetGoal::Hz(hz),
+                (None, Some(s)) => PresetGoal::Steps(s),
+                other => panic!("preset {}: {other:?}", q.name),
+            },
+        })
+        .collect();
+    let mut f = Follower::new(p, base.clone(), Some(st.start_steps)).with_operator(
+        presets,
+        calibrations(),
+        None,
+    );
+    let (min, max) = (st.min_steps, st.max_steps);
+    let (mut t, mut transmitting, mut inhibit) = (ms(0), false, f.inhibit());
+    for (i, step) in table.steps.iter().enumerate() {
+        let label = step.label(i);
+        if let Some(line) = &step.ask {
+            let request = parse_request(line).unwrap_or_else(|e| panic!("{label}: {e}"));
+            let cmd = match request.ask() {
+                Some(Ask::Command(c)) => c.into_command(),
+                Some(Ask::Reload) => Command::Reload {
+                    calibrations: Ok(calibrations()),
+                },
+                None => panic!("{label}: not a command"),
+            };
+            let answer = Answer::from_reply(&f.handle_command(t, cmd));
+            assert_eq!(Some(&answer.outcome), step.outcome.as_ref(), "{label}");
+            assert_eq!(answer.waits_for, step.waits_for, "{label}");
+            assert_eq!(answer.refused, step.refused, "{label}: {answer:?}");
+        }
+        match (step.rig, step.rig_hz) {
+            (Some(RigSays::Frequency), Some(hz)) => f.handle_frequency(t, hz),
+            (Some(RigSays::Transmit), _) => {
+                transmitting = true;
+                f.handle_transmit(t, true)
+            }
+            (Some(RigSays::Receive), _) => {
+                transmitting = false;
+                f.handle_transmit(t, false)
+            }
+            _ => {}
+        }
+        // Two seconds of virtual time: deadlines met, every leg arriving
+        // 10 ms after its GOTO; the GOTOs are checked against the rules.
+        let end = t + ms(2_000);
+        let mut gotos = Vec::new();
+        let mut arriving: Option<(Duration, i64)> = None;
+        while t < end {
+            while let Some(a) = f.poll_action() {
+                match a {
+                    Action::Inhibit { on } => inhibit = on,
+                    Action::Goto { steps } => {
+                        assert!((min..=max).contains(&steps), "{label}: GOTO {steps}");
+                        assert!(!transmitting, "{label}: GOTO {steps} while transmitting");
+                        assert!(inhibit, "{label}: GOTO {steps} without the inhibit");
+                        gotos.push(steps);
+                        arriving = Some((t + ms(10), steps));
+                    }
+                    _ => {}
+                }
+            }
+            t += ms(1);
+            if let Some((at, steps)) = arriving {
+                if t >= at {
+                    arriving = None;
+                    f.handle_arrived(t, steps);
+                    continue;
+                }
+            }
+            if f.poll_timeout().is_some_and(|d| d <= t) {
+                f.handle_timeout(t);
+            }
+        }
+        let want: Vec<i64> = step.moves_to.into_iter().collect();
+        assert_eq!(gotos, want, "{label}: the controller's GOTOs");
+        if let Some(n) = step.moves_to {
+            assert_eq!(f.position(), Some(n), "{label}");
+        }
+    }
+}

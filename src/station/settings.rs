@@ -191,12 +191,46 @@ pub fn control_setup(
     Ok(crate::service::ControlSetup {
         socket: control_socket_for(config),
         listen,
+        mqtt: mqtt_settings(config)?,
         reload: Some(Box::new(move || {
             Station::load(&path)
                 .map(|s| calibrations_of(&s.profiles))
                 .map_err(|e| crate::error::IoFailure::new("the station's config", e))
         })),
     })
+}
+
+/// `[mqtt]` as the MQTT front end takes it (`None`: not configured); the
+/// password is read from `password_file` here, at start.
+pub fn mqtt_settings(
+    config: &Config,
+) -> Result<Option<crate::control::mqtt::MqttSettings>, ConfigError> {
+    let (Some(m), Some((broker, prefix, client_id))) = (&config.mqtt, config.mqtt_broker()?) else {
+        return Ok(None);
+    };
+    let login = match (&m.username, &m.password_file) {
+        (Some(user), Some(file)) => {
+            let path = config.resolve_path(file);
+            let text = std::fs::read_to_string(&path).map_err(|e| {
+                config.invalid(
+                    "mqtt.password_file",
+                    "a readable file holding the broker password",
+                    format!("{}: {e}", path.display()),
+                )
+            })?;
+            let password = text.lines().next().unwrap_or_default().to_string();
+            Some((user.clone(), password))
+        }
+        _ => None,
+    };
+    Ok(Some(crate::control::mqtt::MqttSettings {
+        host: broker.host,
+        port: broker.port,
+        prefix,
+        client_id,
+        commands: m.commands,
+        login,
+    }))
 }
 
 /// A path beside the journal: its name with `suffix` added.
