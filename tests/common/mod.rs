@@ -6,6 +6,9 @@
 // Every test binary compiles this file and uses only some of it.
 #![allow(dead_code)]
 
+pub mod actions;
+pub mod actions_table;
+pub mod broker;
 pub mod controller;
 pub mod truth;
 
