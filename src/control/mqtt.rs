@@ -148,6 +148,7 @@ async fn keep_connected(settings: MqttSettings, link: OperatorLink, mut shutdown
     // or the client's queue full): the latest is sent when it can be.
     let mut unsent = true;
     let mut was_down = false;
+    let mut ever_connected = false;
     loop {
         let retry = if unsent && connected {
             Some(tokio::time::Instant::now() + STATE_RETRY)
@@ -172,6 +173,7 @@ async fn keep_connected(settings: MqttSettings, link: OperatorLink, mut shutdown
                         "mqtt: connected to the broker"
                     );
                     connected = true;
+                    ever_connected = true;
                     was_down = false;
                     backoff = BACKOFF_START;
                     unsent = true;
@@ -197,11 +199,12 @@ async fn keep_connected(settings: MqttSettings, link: OperatorLink, mut shutdown
                 Err(e) => {
                     connected = false;
                     if !was_down {
-                        tracing::warn!(
-                            broker = %format!("{}:{}", settings.host, settings.port),
-                            error = %e,
-                            "mqtt: broker connection lost; retrying"
-                        );
+                        let broker = format!("{}:{}", settings.host, settings.port);
+                        if ever_connected {
+                            tracing::warn!(%broker, error = %e, "mqtt: broker connection lost; retrying (0.5 s, doubling to 30 s)");
+                        } else {
+                            tracing::warn!(%broker, error = %e, "mqtt: cannot reach the broker; retrying (0.5 s, doubling to 30 s)");
+                        }
                         was_down = true;
                     } else {
                         tracing::debug!(error = %e, retry_in_ms = backoff.as_millis() as u64, "mqtt: broker still unreachable");

@@ -774,4 +774,26 @@ mod tests {
         c.line = InhibitKind::None;
         assert!(open_inhibit(&c).unwrap().set(true).is_ok());
     }
+
+    #[test]
+    fn mqtt_settings_read_the_password_file_or_say_which_is_missing() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("shack.toml");
+        let text = "[calibration]\npoints = [{ hz = 7000000, steps = 4000 }, { hz = 7200000, steps = 3000 }]\n\
+                    [[band]]\nname = \"40m\"\nlow_hz = 7000000\nhigh_hz = 7200000\n\
+                    [mqtt]\nurl = \"mqtt://192.0.2.7:1884\"\ncommands = true\n\
+                    username = \"shack\"\npassword_file = \"mqtt.password\"\n";
+        std::fs::write(&path, text).unwrap();
+        let config = Config::load(&path).unwrap();
+        let e = mqtt_settings(&config).unwrap_err().to_string();
+        assert!(e.contains("mqtt.password_file"), "{e}");
+        assert!(e.contains("mqtt.password"), "{e}");
+        std::fs::write(dir.path().join("mqtt.password"), "s3cret\nignored\n").unwrap();
+        let m = mqtt_settings(&config).unwrap().unwrap();
+        assert_eq!((m.host.as_str(), m.port), ("192.0.2.7", 1884));
+        assert_eq!(m.prefix, "tuneward/shack");
+        assert_eq!(m.state_topic(), "tuneward/shack/state");
+        assert_eq!(m.login, Some(("shack".into(), "s3cret".into())));
+        assert!(m.commands);
+    }
 }
