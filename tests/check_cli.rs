@@ -440,3 +440,27 @@ fn a_closed_pipe_ends_every_printing_command_quietly() {
         assert!(err.is_empty(), "{args:?}: {err}");
     }
 }
+
+#[test]
+fn check_reads_the_mqtt_table_as_run_does() {
+    let dir = tempfile::tempdir().unwrap();
+    let config = dir.path().join("shack.toml");
+    std::fs::write(
+        &config,
+        "[calibration]\npoints = [{ hz = 7000000, steps = 4000 }, { hz = 7200000, steps = 3000 }]\n\
+         [[band]]\nname = \"40m\"\nlow_hz = 7000000\nhigh_hz = 7200000\n\
+         [mqtt]\nurl = \"mqtt://127.0.0.1:1884\"\nusername = \"shack\"\npassword_file = \"gone.txt\"\n",
+    )
+    .unwrap();
+    let (code, out, _) = check(&config, &[]);
+    assert_eq!(code, Some(1), "{out}");
+    assert!(out.contains("mqtt.password_file"), "{out}");
+    std::fs::write(dir.path().join("gone.txt"), "pw\n").unwrap();
+    let (_, out, _) = check(&config, &[]);
+    assert!(
+        out.contains(
+            "mqtt      127.0.0.1:1884 as tuneward-shack, topics tuneward/shack/..., commands off"
+        ),
+        "{out}"
+    );
+}

@@ -191,6 +191,7 @@ fn describe(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<Strin
     describe_tuner(station, findings, text);
     describe_inhibit(station, findings, text);
     describe_journal(station, findings, text);
+    describe_mqtt(station, findings, text);
     let p = &station.policy;
     text.push(format!(
         "follow    debounce {} ms, min move {} steps",
@@ -292,6 +293,27 @@ fn describe_tuner(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec
             "tuner.link",
             "write the controller's URL in one of the forms expected (config/example.toml lists them)",
         ));
+    }
+}
+
+/// `[mqtt]`: what `run` connects to, read as `run` reads it (the password
+/// file included); no connection is made.
+fn describe_mqtt(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<String>) {
+    match settings::mqtt_settings(&station.config) {
+        Ok(None) => {}
+        Ok(Some(m)) => text.push(format!(
+            "mqtt      {}:{} as {}, topics {}/..., commands {}",
+            m.host,
+            m.port,
+            m.client_id,
+            m.prefix,
+            if m.commands { "taken" } else { "off" }
+        )),
+        Err(e) => findings.push(settings_error(
+            &e.into(),
+            "mqtt",
+            "fix the [mqtt] table as the message says (protocols/mqtt.md lists the keys)",
+        )),
     }
 }
 
