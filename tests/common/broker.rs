@@ -40,14 +40,23 @@ pub struct Broker {
 impl Broker {
     pub fn start() -> Broker {
         let dir = tempfile::tempdir().unwrap();
-        // A free port: bind, read it, let it go (mosquitto binds it next).
-        let port = std::net::TcpListener::bind("127.0.0.1:0")
-            .unwrap()
-            .local_addr()
-            .unwrap()
-            .port();
-        let proc = Some(Broker::launch(dir.path(), port));
-        Broker { port, proc, dir }
+        // A free port: bind, read it, let it go (mosquitto binds it next);
+        // if something else took it meanwhile, mosquitto exits: another.
+        for _ in 0..5 {
+            let port = std::net::TcpListener::bind("127.0.0.1:0")
+                .unwrap()
+                .local_addr()
+                .unwrap()
+                .port();
+            if let Some(proc) = Broker::launch(dir.path(), port) {
+                return Broker {
+                    port,
+                    proc: Some(proc),
+                    dir,
+                };
+            }
+        }
+        panic!("mosquitto did not stay up on five free loopback ports");
     }
 
     /// Kills the broker (SIGKILL): its clients lose the connection.
@@ -58,10 +67,17 @@ impl Broker {
     /// A new broker on the same port (nothing retained survives).
     pub fn restart(&mut self) {
         self.proc = None;
-        self.proc = Some(Broker::launch(self.dir.path(), self.port));
+        let proc = Broker::launch(self.dir.path(), self.port);
+        assert!(
+            proc.is_some(),
+            "mosquitto did not start again on {}",
+            self.port
+        );
+        self.proc = proc;
     }
 
-    fn launch(dir: &std::path::Path, port: u16) -> Proc {
+    /// Starts mosquitto on `port`; `None` if it exited (port taken).
+    fn launch(dir: &std::path::Path, port: u16) -> Option<Proc> {
         let bin = mosquitto();
         let conf = dir.join("mosquitto.conf");
         std::fs::write(
@@ -76,16 +92,24 @@ impl Broker {
             .stderr(Stdio::null())
             .spawn()
             .expect("mosquitto starts");
-        let proc = Proc(child);
+        let mut proc = Proc(child);
         let until = Instant::now() + Duration::from_secs(10);
-        while std::net::TcpStream::connect(("127.0.0.1", port)).is_err() {
+        loop {
+            if proc.0.try_wait().unwrap().is_some() {
+                return None;
+            }
+            if std::net::TcpStream::connect(("127.0.0.1", port)).is_ok() {
+                // Listening, and it is mosquitto that listens (a broker that
+                // lost the port to another program exits at once).
+                std::thread::sleep(Duration::from_millis(50));
+                return proc.0.try_wait().unwrap().is_none().then_some(proc);
+            }
             assert!(
                 Instant::now() < until,
                 "mosquitto did not listen on 127.0.0.1:{port}"
             );
             std::thread::sleep(Duration::from_millis(20));
         }
-        proc
     }
 
     pub fn url(&self) -> String {
