@@ -145,6 +145,7 @@ async fn start(journal: bool) -> Live {
             sim_backlash: 0,
         },
         inhibit: Box::new(RecordingLine::new()),
+        sense: None,
         journal: journal.then(|| Journal::new(dir.path().join("pos.state"))),
         relax_on_exit: false,
         candidates: None,

@@ -35,6 +35,38 @@ pub struct Record {
     pub line: usize,
 }
 
+/// A reading of the hardware transmit-sense line (`<seconds> sense on|off`):
+/// the line said the rig transmits (`on`) or not, at `t`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SenseRecord {
+    pub t: Duration,
+    pub on: bool,
+    /// 1-based line number in the file.
+    pub line: usize,
+}
+
+/// Any record of a capture: bytes on the port, or a sense-line reading.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Item {
+    Bytes(Record),
+    Sense(SenseRecord),
+}
+
+impl Item {
+    pub fn t(&self) -> Duration {
+        match self {
+            Item::Bytes(r) => r.t,
+            Item::Sense(s) => s.t,
+        }
+    }
+    pub fn line(&self) -> usize {
+        match self {
+            Item::Bytes(r) => r.line,
+            Item::Sense(s) => s.line,
+        }
+    }
+}
+
 /// Why a capture could not be read.
 #[derive(Debug, thiserror::Error)]
 pub enum CaptureError {
@@ -147,7 +179,7 @@ impl<R: BufRead> CaptureReader<R> {
     }
 
     /// Parses `self.line`; `Ok(None)` for blank and comment lines.
-    fn parse_line(&self) -> Result<Option<Record>, CaptureError> {
+    fn parse_line(&self) -> Result<Option<Item>, CaptureError> {
         let text = match std::str::from_utf8(&self.line) {
             Ok(t) => t,
             Err(e) => {
@@ -174,11 +206,13 @@ impl<R: BufRead> CaptureReader<R> {
         let mut fields = body.split(' ');
         let seconds = fields.next().unwrap_or_default();
         let t = parse_seconds(seconds).map_err(|why| self.err(why, quote(seconds)))?;
+        let kind = "`rx` or `tx` (or `sense`) after the time";
         let dir = match fields.next() {
             Some("rx") => Direction::Rx,
             Some("tx") => Direction::Tx,
-            Some(other) => return Err(self.err("`rx` or `tx` after the time", quote(other))),
-            None => return Err(self.err("`rx` or `tx` after the time", "the end of the line")),
+            Some("sense") => return self.sense_record(t, fields).map(Some),
+            Some(other) => return Err(self.err(kind, quote(other))),
+            None => return Err(self.err(kind, "the end of the line")),
         };
         let mut bytes = Vec::new();
         for (i, field) in fields.enumerate() {
@@ -205,6 +239,16 @@ impl<R: BufRead> CaptureReader<R> {
                 "the end of the line",
             ));
         }
+        self.in_order(t)?;
+        Ok(Some(Item::Bytes(Record {
+            t,
+            dir,
+            bytes,
+            line: self.line_no,
+        })))
+    }
+
+    fn in_order(&self, t: Duration) -> Result<(), CaptureError> {
         if let Some((last, line)) = self.last {
             if t < last {
                 return Err(self.err(
@@ -213,19 +257,38 @@ impl<R: BufRead> CaptureReader<R> {
                 ));
             }
         }
-        Ok(Some(Record {
+        Ok(())
+    }
+
+    /// The rest of a `sense` record: exactly `on` or `off`.
+    fn sense_record<'a>(
+        &self,
+        t: Duration,
+        mut fields: impl Iterator<Item = &'a str>,
+    ) -> Result<Item, CaptureError> {
+        let want = "`on` or `off` after `sense`";
+        let on = match fields.next() {
+            Some("on") => true,
+            Some("off") => false,
+            Some("") => {
+                return Err(self.err("fields separated by single spaces", "two spaces in a row"))
+            }
+            Some(other) => return Err(self.err(want, quote(other))),
+            None => return Err(self.err(want, "the end of the line")),
+        };
+        if let Some(extra) = fields.next() {
+            return Err(self.err("the end of the line after a sense reading", quote(extra)));
+        }
+        self.in_order(t)?;
+        Ok(Item::Sense(SenseRecord {
             t,
-            dir,
-            bytes,
+            on,
             line: self.line_no,
         }))
     }
-}
 
-impl<R: BufRead> Iterator for CaptureReader<R> {
-    type Item = Result<Record, CaptureError>;
-
-    fn next(&mut self) -> Option<Self::Item> {
+    /// The next record of any kind (bytes or a sense reading).
+    fn next_item(&mut self) -> Option<Result<Item, CaptureError>> {
         while !self.done {
             match self.next_line() {
                 Err(source) => {
@@ -244,15 +307,48 @@ impl<R: BufRead> Iterator for CaptureReader<R> {
                 }
                 Ok(Got::Line) => match self.parse_line() {
                     Ok(None) => {}
-                    Ok(Some(r)) => {
-                        self.last = Some((r.t, r.line));
-                        return Some(Ok(r));
+                    Ok(Some(item)) => {
+                        self.last = Some((item.t(), item.line()));
+                        return Some(Ok(item));
                     }
                     Err(e) => return Some(Err(e)),
                 },
             }
         }
         None
+    }
+
+    /// Every record, sense readings included (a replay wants them; the
+    /// plain iterator yields the byte records only).
+    pub fn items(self) -> Items<R> {
+        Items(self)
+    }
+}
+
+/// [`CaptureReader::items`]: every record of a capture.
+pub struct Items<R>(CaptureReader<R>);
+
+impl<R: BufRead> Iterator for Items<R> {
+    type Item = Result<Item, CaptureError>;
+
+    fn next(&mut self) -> Option<Self::Item> {
+        self.0.next_item()
+    }
+}
+
+/// The byte records only; sense readings are passed over (use
+/// [`CaptureReader::items`] for them).
+impl<R: BufRead> Iterator for CaptureReader<R> {
+    type Item = Result<Record, CaptureError>;
+
+    fn next(&mut self) -> Option<Self::Item> {
+        loop {
+            match self.next_item()? {
+                Ok(Item::Bytes(r)) => return Some(Ok(r)),
+                Ok(Item::Sense(_)) => {}
+                Err(e) => return Some(Err(e)),
+            }
+        }
     }
 }
 
@@ -328,6 +424,37 @@ impl<W: Write> CaptureWriter<W> {
                 "a capture record needs at least one byte",
             ));
         }
+        self.order(t)?;
+        let mut line = String::with_capacity(20 + bytes.len() * 3);
+        line.push_str(&format!(
+            "{}.{:06} {}",
+            t.as_secs(),
+            t.subsec_micros(),
+            dir.as_str()
+        ));
+        for b in bytes {
+            line.push_str(&format!(" {b:02X}"));
+        }
+        line.push('\n');
+        self.w.write_all(line.as_bytes())
+    }
+
+    /// A sense-line reading (`<seconds> sense on|off`), the time with 6
+    /// decimals. Refuses, as `InvalidInput`, a time earlier than the
+    /// previous record's.
+    pub fn write_sense(&mut self, t: Duration, on: bool) -> io::Result<()> {
+        let t = Duration::new(t.as_secs(), t.subsec_micros() * 1000);
+        self.order(t)?;
+        writeln!(
+            self.w,
+            "{}.{:06} sense {}",
+            t.as_secs(),
+            t.subsec_micros(),
+            if on { "on" } else { "off" }
+        )
+    }
+
+    fn order(&mut self, t: Duration) -> io::Result<()> {
         if let Some(last) = self.last {
             if t < last {
                 return Err(io::Error::new(
@@ -341,18 +468,7 @@ impl<W: Write> CaptureWriter<W> {
             }
         }
         self.last = Some(t);
-        let mut line = String::with_capacity(20 + bytes.len() * 3);
-        line.push_str(&format!(
-            "{}.{:06} {}",
-            t.as_secs(),
-            t.subsec_micros(),
-            dir.as_str()
-        ));
-        for b in bytes {
-            line.push_str(&format!(" {b:02X}"));
-        }
-        line.push('\n');
-        self.w.write_all(line.as_bytes())
+        Ok(())
     }
 
     /// A comment; each line of `text` becomes one `# ` line.
@@ -413,6 +529,66 @@ mod tests {
         assert_eq!(recs[1].dir, Direction::Tx);
         assert_eq!(recs[1].bytes, vec![0xFE, 0xFE, 0x5A, 0xE0, 0x03, 0xFD]);
         assert_eq!((recs[2].t, recs[2].line), (Duration::from_secs(13), 5));
+    }
+
+    #[test]
+    fn sense_readings_are_records_of_their_own() {
+        let text = "1 sense on\n1.5 rx 00\n2.25 sense off\n";
+        let items: Vec<Item> = CaptureReader::new(text.as_bytes(), "s.cap")
+            .items()
+            .map(|r| r.unwrap())
+            .collect();
+        assert_eq!(
+            items[0],
+            Item::Sense(SenseRecord {
+                t: Duration::from_secs(1),
+                on: true,
+                line: 1
+            })
+        );
+        assert!(matches!(&items[1], Item::Bytes(r) if r.bytes == [0]));
+        assert!(matches!(
+            items[2],
+            Item::Sense(SenseRecord {
+                on: false,
+                line: 3,
+                ..
+            })
+        ));
+        // The byte iterator passes them over.
+        let recs: Vec<Record> = read_all(text).into_iter().map(|r| r.unwrap()).collect();
+        assert_eq!(recs.len(), 1);
+        // Malformed ones are named; order holds across kinds.
+        let (line, expected, found) = line_error("1 sense maybe\n");
+        assert_eq!((line, found.as_str()), (1, "`maybe`"));
+        assert!(expected.contains("`on` or `off`"), "{expected}");
+        let (_, _, found) = line_error("1 sense on 00\n");
+        assert_eq!(found, "`00`");
+        let (_, _, found) = line_error("1 sense\n");
+        assert_eq!(found, "the end of the line");
+        let (line, expected, _) = line_error("2 rx 00\n1 sense on\n");
+        assert_eq!(line, 2);
+        assert!(expected.contains("no earlier than 2 s"), "{expected}");
+    }
+
+    #[test]
+    fn written_sense_readings_read_back() {
+        let mut w = CaptureWriter::new(Vec::new());
+        w.write_sense(Duration::from_millis(1500), true).unwrap();
+        w.write_record(Duration::from_secs(2), Direction::Rx, &[0xFD])
+            .unwrap();
+        w.write_sense(Duration::from_secs(3), false).unwrap();
+        assert!(w.write_sense(Duration::from_secs(1), true).is_err());
+        let text = w.into_inner();
+        assert_eq!(
+            String::from_utf8(text.clone()).unwrap(),
+            "1.500000 sense on\n2.000000 rx FD\n3.000000 sense off\n"
+        );
+        let back: Vec<Item> = CaptureReader::new(text.as_slice(), "w.cap")
+            .items()
+            .map(|r| r.unwrap())
+            .collect();
+        assert_eq!(back.len(), 3);
     }
 
     #[test]

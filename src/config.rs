@@ -37,6 +37,10 @@ pub struct Config {
     /// The transmit-inhibit output.
     #[serde(default)]
     pub inhibit: InhibitConfig,
+    /// The hardware transmit-sense input (the rig's send/amplifier-key
+    /// output), when wired.
+    #[serde(default)]
+    pub transmit_sense: SenseConfig,
     /// Named places the operator can send the capacitor to
     /// (`tuneward ctl preset NAME`).
     #[serde(default, rename = "preset")]
@@ -611,6 +615,74 @@ impl Default for InhibitConfig {
             offset: None,
             active_high: true,
             unprotected_ok: false,
+        }
+    }
+}
+
+/// Which input tells tuneward that the rig transmits.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SenseKind {
+    /// No sense input: only what the rig's port says.
+    #[default]
+    None,
+    /// CTS of the serial device `port`.
+    Cts,
+    /// DSR of the serial device `port`.
+    Dsr,
+    /// DCD (carrier detect) of the serial device `port`.
+    Dcd,
+    /// RI (ring indicator) of the serial device `port`.
+    Ri,
+    /// Line `offset` of GPIO `chip`, as an input.
+    Gpio,
+}
+
+impl SenseKind {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            SenseKind::None => "none",
+            SenseKind::Cts => "cts",
+            SenseKind::Dsr => "dsr",
+            SenseKind::Dcd => "dcd",
+            SenseKind::Ri => "ri",
+            SenseKind::Gpio => "gpio",
+        }
+    }
+}
+
+/// `[transmit_sense]`: an input wired to the rig's transmit ("send",
+/// amplifier-key) output. When set, it is the authority for "the rig
+/// transmits": any source saying transmit means transmit, and only this
+/// line may end a transmission early (see `follow::station`).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SenseConfig {
+    #[serde(default)]
+    pub line: SenseKind,
+    /// Serial device whose modem-status input is read (`cts` … `ri`).
+    #[serde(default)]
+    pub port: Option<String>,
+    /// GPIO chip (`gpio`).
+    #[serde(default)]
+    pub chip: Option<String>,
+    /// Line number on the chip (`gpio`).
+    #[serde(default)]
+    pub offset: Option<u32>,
+    /// `true` (default): the rig transmits while the input is asserted /
+    /// high; `false`: while it is released / low.
+    #[serde(default = "default_active_high")]
+    pub active_high: bool,
+}
+
+impl Default for SenseConfig {
+    fn default() -> Self {
+        SenseConfig {
+            line: SenseKind::None,
+            port: None,
+            chip: None,
+            offset: None,
+            active_high: true,
         }
     }
 }

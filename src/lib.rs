@@ -24,6 +24,7 @@ pub mod recorder;
 pub mod replay;
 pub mod rig;
 pub mod scenario;
+pub mod sense;
 pub mod service;
 pub mod shutdown;
 pub mod signals;

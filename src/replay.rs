@@ -28,6 +28,9 @@ pub struct ReplaySetup {
     pub tuner: SimParams,
     /// Where the motor starts; `None` = unknown (nothing will move).
     pub start_steps: Option<i64>,
+    /// The station has a hardware transmit-sense line (`[transmit_sense]`):
+    /// the capture's `sense` records are the authority for transmissions.
+    pub sense_wired: bool,
 }
 
 /// One chunk of bytes on the rig port, at a time since any origin.
@@ -53,6 +56,9 @@ pub struct Replay<'t> {
     summary: Summary,
     inhibit: bool,
     transmitting: bool,
+    /// The sense line's last reading, for the independent count: while it
+    /// reads transmitting, nothing else ends the transmission.
+    sense_on: bool,
     transmit_since: Option<Duration>,
 }
 
@@ -60,8 +66,12 @@ impl<'t> Replay<'t> {
     pub fn new(setup: ReplaySetup, timeline: &'t mut dyn Timeline) -> Self {
         let start = setup.start_steps;
         let tuner = SimTuner::new(setup.tuner, start.unwrap_or(setup.policy.min_steps));
+        let mut core = Follower::new(setup.policy, setup.map, start);
+        if setup.sense_wired {
+            core.expect_sense_line();
+        }
         Replay {
-            core: Follower::new(setup.policy, setup.map, start),
+            core,
             decoder: setup.decoder,
             tuner,
             arrival: None,
@@ -72,7 +82,44 @@ impl<'t> Replay<'t> {
             summary: Summary::default(),
             inhibit: false,
             transmitting: false,
+            sense_on: false,
             transmit_since: None,
+        }
+    }
+
+    /// A reading of the hardware sense line at capture time `t` (a
+    /// capture's `sense` record): the rig transmits (`on`) or not.
+    pub fn feed_sense(&mut self, t: Duration, on: bool) -> std::io::Result<()> {
+        let origin = *self.origin.get_or_insert(t);
+        let t = t.saturating_sub(origin).max(self.now);
+        self.advance_to(t)?;
+        self.now = t;
+        self.sense_on = on;
+        self.timeline.entry(t, &Entry::Transmit { on })?;
+        self.count_transmit(on);
+        self.core.handle_station(
+            t,
+            station::StationEvent::Transmit {
+                on,
+                source: station::Source::SenseLine,
+            },
+        );
+        self.apply_actions()
+    }
+
+    /// Keeps the independent count of time on the air: a transmission
+    /// starts on any source's word and ends on a receive, except that while
+    /// the sense line reads transmitting only the line ends it.
+    fn count_transmit(&mut self, on: bool) {
+        let now = self.now;
+        let on = on || self.sense_on;
+        if on != self.transmitting {
+            self.transmitting = on;
+            if on {
+                self.transmit_since = Some(now);
+            } else if let Some(since) = self.transmit_since.take() {
+                self.summary.transmit_s += now.saturating_sub(since).as_secs_f64();
+            }
         }
     }
 
@@ -208,14 +255,7 @@ impl<'t> Replay<'t> {
             RigEvent::Transmit { on } | RigEvent::TransmitCommand { on } => {
                 self.summary.frames += 1;
                 self.timeline.entry(now, &Entry::Transmit { on })?;
-                if on != self.transmitting {
-                    self.transmitting = on;
-                    if on {
-                        self.transmit_since = Some(now);
-                    } else if let Some(since) = self.transmit_since.take() {
-                        self.summary.transmit_s += now.saturating_sub(since).as_secs_f64();
-                    }
-                }
+                self.count_transmit(on);
             }
             RigEvent::Reject { reason, bytes } => {
                 self.summary.rejected += 1;

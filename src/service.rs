@@ -38,6 +38,7 @@ use crate::port::link::{LinkConfig, LinkEvent};
 use crate::port::proxy::{Boundary, ProxyConfig};
 use crate::port::{link, proxy};
 use crate::rig::Decode;
+use crate::sense::{SenseChange, SenseInput, SenseWatch};
 use crate::shutdown::{self, Shutdown};
 use crate::signals;
 use crate::timing::sleep_until_precise;
@@ -83,6 +84,9 @@ pub struct ServiceParts {
     pub rig: RigSource,
     pub controller: ClientConfig,
     pub inhibit: Box<dyn InhibitLine>,
+    /// The hardware transmit-sense input, when one is wired: read every
+    /// [`crate::sense::POLL_EVERY`], each change handed to the session.
+    pub sense: Option<Box<dyn SenseInput>>,
     /// `None`: no journal (the position is never trusted across restarts
     /// beyond what the controller says). Meant for tests and demos.
     pub journal: Option<Journal>,
@@ -274,7 +278,15 @@ pub async fn run_with_operator(
         Some(transmit_rx),
         tasks_shutdown.clone(),
     );
-    let mut session = Session::new(service.follower, service.decoder, recorded, settings);
+    let mut follower = service.follower;
+    let (sense_tx, mut sense_rx) = mpsc::channel(16);
+    let sense_task = service.sense.map(|input| {
+        follower.expect_sense_line();
+        tracing::info!(input = %input.describe(), "transmit sense line read");
+        tokio::spawn(watch_sense(input, sense_tx, tasks_shutdown.clone()))
+    });
+    let mut sense_open = sense_task.is_some();
+    let mut session = Session::new(follower, service.decoder, recorded, settings);
     let mut io = Io {
         // Lines are opened asserted (fail-safe); the session syncs them.
         inhibit: service.inhibit,
@@ -306,6 +318,21 @@ pub async fn run_with_operator(
                 None => {
                     rig_open = false;
                     session.handle_rig_ended(io.now());
+                }
+            },
+            ev = sense_rx.recv(), if sense_open => match ev {
+                Some((at, change)) => {
+                    let at = at.saturating_duration_since(origin);
+                    session.handle_sense(at, match change {
+                        SenseChange::Level(on) => Ok(on),
+                        SenseChange::Failed(e) => Err(e),
+                    });
+                }
+                None => {
+                    // The reader ended (only at shutdown): nothing reads
+                    // the line any more, so the rig may transmit.
+                    sense_open = false;
+                    session.handle_sense(io.now(), Err("the sense line's reader ended".into()));
                 }
             },
             ev = tuner.recv(), if tuner_open => match ev {
@@ -347,6 +374,9 @@ pub async fn run_with_operator(
     if let Some(t) = rig_task {
         let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
     }
+    if let Some(t) = sense_task {
+        let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
+    }
     tracing::info!(
         position = result.position,
         moves = result.moves,
@@ -355,6 +385,32 @@ pub async fn run_with_operator(
         "stopped"
     );
     Ok(result)
+}
+
+/// Reads the sense input every [`crate::sense::POLL_EVERY`] until
+/// `shutdown`, sending the first reading and every change (a failed read
+/// as [`SenseChange::Failed`]) with the time it was read.
+async fn watch_sense(
+    mut input: Box<dyn SenseInput>,
+    tx: mpsc::Sender<(Instant, SenseChange)>,
+    mut shutdown: Shutdown,
+) {
+    let mut watch = SenseWatch::new();
+    let mut tick = tokio::time::interval(crate::sense::POLL_EVERY);
+    tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
+    loop {
+        tokio::select! {
+            _ = shutdown.wait() => return,
+            _ = tick.tick() => {
+                let at = Instant::now();
+                if let Some(change) = watch.reading(input.transmitting()) {
+                    if tx.send((at, change)).await.is_err() {
+                        return;
+                    }
+                }
+            }
+        }
+    }
 }
 
 /// The counts the controller can have after a restart: a board counts from
@@ -517,6 +573,10 @@ fn log(note: Note) {
             let doing = if on { "asserting" } else { "releasing" };
             error!(error = %error, "transmit inhibit output failed while {doing} it")
         }
+        Note::SenseFailed { error } => error!(
+            error = %error,
+            "transmit sense line cannot be read: taken as transmitting until it reads again"
+        ),
         Note::ReleaseFailed { error } => {
             error!(error = %error, "could not release the transmit inhibit at shutdown")
         }

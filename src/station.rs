@@ -8,7 +8,7 @@ use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
 use crate::calibrate::{Calibration, CalibrationSet, StepMap};
-use crate::capture::{CaptureError, CaptureReader};
+use crate::capture::{CaptureError, CaptureReader, Item};
 use crate::config::{Config, ConfigError};
 use crate::follow::Policy;
 use crate::replay::{Chunk, Replay, ReplaySetup};
@@ -127,6 +127,7 @@ impl Station {
             decoder: self.dialect.station_decoder(self.config.rig.address),
             tuner: self.sim_params(),
             start_steps: Some(start_steps.unwrap_or(self.config.tuner.min_steps)),
+            sense_wired: self.config.transmit_sense.line != crate::config::SenseKind::None,
         }
     }
 }
@@ -170,7 +171,7 @@ pub fn replay_file_with(
     let station = Station::load(config)?;
     let reader = CaptureReader::open(capture)?;
     let mut replay = Replay::new(station.replay_setup(options.start_steps), timeline);
-    for record in reader {
+    for record in reader.items() {
         let record = match record {
             Ok(r) => r,
             Err(e @ CaptureError::Line { .. }) if options.skip_bad_lines => {
@@ -180,11 +181,14 @@ pub fn replay_file_with(
             }
             Err(e) => return Err(e.into()),
         };
-        replay.feed(Chunk {
-            t: record.t,
-            dir: record.dir,
-            bytes: &record.bytes,
-        })?;
+        match record {
+            Item::Bytes(record) => replay.feed(Chunk {
+                t: record.t,
+                dir: record.dir,
+                bytes: &record.bytes,
+            })?,
+            Item::Sense(s) => replay.feed_sense(s.t, s.on)?,
+        }
     }
     Ok(replay.finish()?)
 }

@@ -464,3 +464,58 @@ fn check_reads_the_mqtt_table_as_run_does() {
         "{out}"
     );
 }
+
+/// `[transmit_sense]`: check prints the input as what tells tuneward about
+/// transmissions, and names the key of an input that `run` would refuse.
+#[test]
+fn the_sense_line_is_printed_and_its_keys_judged() {
+    let dir = tempfile::tempdir().unwrap();
+    let sense = |keys: &str| format!("[transmit_sense]\n{keys}\n\n[[band]]");
+    let ok = sense("line = \"dsr\"\nport = \"/dev/null-sense\"\nactive_high = false");
+    let config = demo_with(dir.path(), "ok.toml", &[("[[band]]", &ok)]);
+    let (code, out, _) = check(&config, &[]);
+    assert_eq!(code, Some(0), "{out}");
+    assert!(
+        out.contains("sense     DSR of /dev/null-sense, transmitting = DSR released"),
+        "{out}"
+    );
+    assert!(out.contains("the authority for transmissions"), "{out}");
+
+    let (code, out, _) = check(&repo("config/demo.toml"), &[]);
+    assert_eq!(code, Some(0), "{out}");
+    assert!(out.contains("sense     none"), "{out}");
+
+    let noport = sense("line = \"cts\"");
+    let config = demo_with(dir.path(), "noport.toml", &[("[[band]]", &noport)]);
+    let (code, out, _) = check(&config, &[]);
+    assert_eq!(code, Some(1), "{out}");
+    let f = finding(&out, "error", "transmit_sense.port");
+    assert!(f.contains("CTS"), "{f}");
+
+    let nochip = sense("line = \"gpio\"\noffset = 4");
+    let config = demo_with(dir.path(), "nochip.toml", &[("[[band]]", &nochip)]);
+    let (code, out, _) = check(&config, &[]);
+    assert_eq!(code, Some(1), "{out}");
+    finding(&out, "error", "transmit_sense.chip");
+
+    // One device for the rig's port and the sense: refused, both named.
+    let same = sense("line = \"cts\"\nport = \"/dev/ttyUSB7\"");
+    let config = demo_with(
+        dir.path(),
+        "same.toml",
+        &[
+            ("[rig]", "[rig]\nport = \"/dev/ttyUSB7\""),
+            ("[[band]]", &same),
+        ],
+    );
+    let (code, out, _) = check(&config, &[]);
+    assert_eq!(code, Some(1), "{out}");
+    let f = finding(&out, "error", "transmit_sense.port");
+    assert!(f.contains("rig.port"), "{f}");
+
+    let typo = sense("line = \"cts\"\nport = \"/dev/x\"\nactive_hi = true");
+    let config = demo_with(dir.path(), "typo.toml", &[("[[band]]", &typo)]);
+    let (code, _, err) = check(&config, &[]);
+    assert_ne!(code, Some(0));
+    assert!(err.contains("active_hi"), "{err}");
+}

@@ -202,7 +202,7 @@ fn capture_errors_name_file_line_expected_and_found() {
         &err,
         &[
             "dir.cap, line 3",
-            "expected `rx` or `tx` after the time",
+            "expected `rx` or `tx` (or `sense`) after the time",
             "found `to`",
         ],
     );

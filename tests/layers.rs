@@ -25,6 +25,7 @@ const PURE_FILES: &[&str] = &[
     "src/journal.rs",
     "src/antenna.rs",
     "src/inhibit.rs",
+    "src/sense.rs",
     "src/capture.rs",
     "src/timeline.rs",
     "src/devices.rs",
@@ -48,9 +49,10 @@ const DRIVER_FILES: &[&str] = &[
     "src/tuner/server.rs",
 ];
 
-/// The serial library (used synchronously, to drive RTS/DTR) is allowed
-/// only where the inhibit's modem line is opened.
-const SERIAL_ALLOWED: &[&str] = &["src/inhibit.rs"];
+/// The serial library (used synchronously, to drive RTS/DTR and read the
+/// sense line's status inputs) is allowed only where the inhibit's modem
+/// line and the sense input are opened.
+const SERIAL_ALLOWED: &[&str] = &["src/inhibit.rs", "src/sense.rs"];
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))

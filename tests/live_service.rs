@@ -20,6 +20,7 @@ use tuneward::journal::{Journal, Recorded};
 use tuneward::port::link::LinkEvent;
 use tuneward::rig::dialect::Dialect;
 use tuneward::rig::Direction;
+use tuneward::sense::ScriptedSense;
 use tuneward::service::{run, RigSource, RunSummary, ServiceParts};
 use tuneward::tuner::client::{ClientConfig, ControllerUrl};
 
@@ -72,6 +73,11 @@ struct Running {
 /// The service on a first start (no journal yet), the in-process
 /// controller simulator counting 0, a working inhibit line.
 async fn start(policy: Policy) -> Running {
+    start_with(policy, None).await
+}
+
+/// [`start`], with `sense` as the station's transmit-sense line.
+async fn start_with(policy: Policy, sense: Option<ScriptedSense>) -> Running {
     let dir = tempfile::tempdir().unwrap();
     let journal = Journal::new(dir.path().join("pos.state"));
     let dialect = Dialect::builtin("text-semicolon").unwrap();
@@ -84,6 +90,7 @@ async fn start(policy: Policy) -> Running {
         rig: RigSource::Events(rig_rx),
         controller: controller(0),
         inhibit: Box::new(inhibit.clone()),
+        sense: sense.map(|s| Box::new(s) as Box<dyn tuneward::sense::SenseInput>),
         journal: Some(journal.clone()),
         relax_on_exit: false,
         candidates: None,
@@ -355,4 +362,36 @@ async fn a_report_stamped_before_the_driver_started_still_waits_its_debounce() {
     let (out, levels, _) = r.finish().await;
     assert_eq!(out.moves, 1);
     assert_eq!(levels, vec![true, false, true, false]);
+}
+
+/// A transmission seen only on the hardware sense line (the rig's own
+/// report says receive) defers every move, through the live driver with the
+/// sense line's trait double; a line that cannot be read defers them too
+/// (fail-safe). On the paused clock, "no move for 3 s" is a fact about
+/// virtual time, not a wait.
+#[tokio::test(start_paused = true)]
+async fn a_transmission_seen_only_on_the_sense_line_defers_every_move() {
+    let sense = ScriptedSense::new();
+    sense.set(true);
+    let r = start_with(demo_policy(), Some(sense.clone())).await;
+    r.wait_journal(Recorded::Known(0)).await;
+    // The rig says receive, then where it is: only the line says transmit.
+    let mut chunk = r.dialect.encode_transmit(false, 0);
+    chunk.extend(r.dialect.encode_frequency(7_100_000, 0));
+    r.rig_says(chunk).await;
+    tokio::time::sleep(Duration::from_secs(3)).await;
+    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(0)));
+    // The line drops: the move goes ahead.
+    sense.set(false);
+    r.wait_journal(Recorded::Known(1000)).await;
+    // A line that cannot be read is taken as transmitting.
+    sense.set_failing(true);
+    tokio::time::sleep(Duration::from_millis(500)).await;
+    r.frequency(7_150_000).await;
+    tokio::time::sleep(Duration::from_secs(3)).await;
+    assert_eq!(r.journal.load().unwrap(), Some(Recorded::Known(1000)));
+    sense.set_failing(false);
+    r.wait_journal(Recorded::Known(1500)).await;
+    let (out, _, _) = r.finish().await;
+    assert_eq!(out.moves, 2);
 }

@@ -330,6 +330,70 @@ unprotected_ok = true
     assert_eq!(summary["transmit_s"], 10.0);
 }
 
+/// A capture with the hardware sense line's readings (`sense` records)
+/// replays with the line as the authority: the rig's own report of receive
+/// does not end a transmission the line sees, so the move waits for the
+/// line to drop. Hand-made records of an invented moment.
+#[test]
+fn a_capture_with_sense_records_replays_with_the_move_deferred() {
+    let dir = tempfile::tempdir().unwrap();
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    let config = dir.path().join("sense.toml");
+    let toml = format!(
+        "{}\n[transmit_sense]\nline = \"cts\"\nport = \"/dev/ttyUSB-sense\"\n",
+        station_toml("text-semicolon", "interpolate")
+    );
+    std::fs::write(&config, toml).unwrap();
+    let capture = dir.path().join("sense.cap");
+    let mut w = CaptureWriter::new(Vec::new());
+    w.write_sense(Duration::ZERO, true).unwrap();
+    w.write_record(
+        Duration::from_millis(100),
+        Direction::Rx,
+        &dialect.encode_transmit(false, 0),
+    )
+    .unwrap();
+    w.write_record(
+        Duration::from_millis(200),
+        Direction::Rx,
+        &dialect.encode_frequency(14_100_000, 0),
+    )
+    .unwrap();
+    w.write_sense(Duration::from_secs(3), false).unwrap();
+    w.write_record(
+        Duration::from_secs(5),
+        Direction::Rx,
+        &dialect.encode_frequency(14_100_000, 0),
+    )
+    .unwrap();
+    std::fs::write(&capture, w.into_inner()).unwrap();
+    let timeline = replay_json(&capture, &config, 20_000);
+    let moves: Vec<f64> = timeline
+        .iter()
+        .filter(|e| e["kind"] == "move")
+        .map(|e| e["t"].as_f64().unwrap())
+        .collect();
+    assert!(!moves.is_empty(), "never moved: {timeline:?}");
+    assert!(
+        moves.iter().all(|t| *t >= 3.0),
+        "moved while the sense line read transmitting: {moves:?}"
+    );
+    let summary = timeline.last().unwrap();
+    assert_eq!(summary["violations"], 0);
+    // Without the line in the config the same capture moves at once: the
+    // rig's report of receive is believed, and the line's readings only
+    // count when they say transmit.
+    let plain = dir.path().join("plain.toml");
+    std::fs::write(&plain, station_toml("text-semicolon", "interpolate")).unwrap();
+    let early = replay_json(&capture, &plain, 20_000)
+        .iter()
+        .filter(|e| e["kind"] == "move")
+        .filter_map(|e| e["t"].as_f64())
+        .filter(|t| *t < 3.0)
+        .count();
+    assert_eq!(early, 1);
+}
+
 #[test]
 fn replay_names_the_file_and_line_of_a_malformed_capture() {
     let dir = tempfile::tempdir().unwrap();

@@ -144,6 +144,10 @@ pub enum Note {
         on: bool,
         error: IoFailure,
     },
+    /// The sense line could not be read: taken as transmitting.
+    SenseFailed {
+        error: String,
+    },
     ReleaseFailed {
         error: IoFailure,
     },
@@ -631,6 +635,28 @@ impl Session {
         self.st.push(Output::Transmit {
             on: self.core.rig_may_transmit(),
         });
+    }
+
+    /// The hardware transmit-sense line read at `now`: `Ok(on)` its level
+    /// (transmitting or not), `Err` a failed read, taken as transmitting
+    /// until the line reads again (fail-safe). The core takes the line as
+    /// the authority for "the rig transmits" (see `follow::station`).
+    pub fn handle_sense(&mut self, now: Duration, reading: Result<bool, String>) {
+        let now = self.clock(now);
+        let on = match reading {
+            Ok(on) => on,
+            Err(error) => {
+                self.st.note(Note::SenseFailed { error });
+                true
+            }
+        };
+        self.set_station(
+            now,
+            StationEvent::Transmit {
+                on,
+                source: station::Source::SenseLine,
+            },
+        );
     }
 
     /// The rig's source ended for good: nothing moves from now on.

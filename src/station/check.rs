@@ -20,7 +20,7 @@ use crate::journal::Recorded;
 use crate::rig::Family;
 use crate::timeline;
 
-use settings::InhibitSettings;
+use settings::{InhibitSettings, SenseSettings};
 
 /// How much a finding matters.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
@@ -189,6 +189,7 @@ fn settings_error(e: &crate::Error, fallback_key: &str, fix: &str) -> Finding {
 fn describe(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<String>) {
     describe_rig(station, findings, text);
     describe_tuner(station, findings, text);
+    describe_sense(station, findings, text);
     describe_inhibit(station, findings, text);
     describe_journal(station, findings, text);
     describe_mqtt(station, findings, text);
@@ -270,6 +271,51 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
         crate::config::RigMode::Proxy => "proxy",
     };
     text.push(format!("          mode {mode}: {how}"));
+}
+
+/// What the hardware sense line adds to what tells tuneward about
+/// transmissions.
+fn describe_sense(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<String>) {
+    let every = crate::sense::POLL_EVERY.as_millis();
+    let line = match settings::sense_settings(&station.config) {
+        Err(e) => {
+            findings.push(settings_error(
+                &e,
+                "transmit_sense.line",
+                "give the key the input needs (see config/example.toml, [transmit_sense])",
+            ));
+            return text.push("sense     not usable (see the findings)".to_string());
+        }
+        Ok(SenseSettings::None) => {
+            return text.push(
+                "sense     none: transmissions are known only from the rig's port (above)"
+                    .to_string(),
+            )
+        }
+        Ok(SenseSettings::Modem {
+            port,
+            signal,
+            active_high,
+        }) => format!(
+            "{} of {port}, transmitting = {} {}",
+            signal.name(),
+            signal.name(),
+            if active_high { "asserted" } else { "released" }
+        ),
+        Ok(SenseSettings::Gpio {
+            chip,
+            offset,
+            active_high,
+        }) => format!(
+            "GPIO {chip} line {offset}, transmitting = line {}",
+            if active_high { "high" } else { "low" }
+        ),
+    };
+    text.push(format!("sense     {line}, read every {every} ms"));
+    text.push(
+        "          the authority for transmissions: any source saying transmit means transmit, only this line ends one early; an unreadable line counts as transmitting"
+            .to_string(),
+    );
 }
 
 fn describe_tuner(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<String>) {

@@ -16,7 +16,7 @@ use crate::calibrate::CalibrationSet;
 use crate::calibrate::{Calibration, FitOptions, Point};
 use crate::config::{
     Config, ConfigError, Hysteresis, InhibitConfig, InhibitKind, ModemLineSetting, RigConfig,
-    RigUse, SerialFlow, SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
+    RigUse, SenseConfig, SenseKind, SerialFlow, SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
 use crate::error::{Located, Place};
 use crate::follow::{Band, Calibrations, Follower, Jump, Policy, Preset, PresetGoal, WhileUnknown};
@@ -24,6 +24,7 @@ use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
 use crate::port::link::LinkConfig;
 use crate::port::proxy::ProxyConfig;
+use crate::sense::{self, SenseInput, StatusSignal};
 use crate::service::{RigSource, ServiceParts};
 use crate::station::error::Error;
 use crate::tuner::client::ClientConfig;
@@ -419,6 +420,140 @@ pub fn open_inhibit(cfg: &InhibitConfig) -> Result<Box<dyn InhibitLine>, Error> 
     }
 }
 
+/// The sense input `[transmit_sense]` describes, checked but not opened:
+/// what `run` opens and `check` reports.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum SenseSettings {
+    /// No sense input: only the rig's port tells about transmissions.
+    None,
+    /// A modem-status input (CTS, DSR, DCD or RI) of a serial device.
+    Modem {
+        port: String,
+        signal: StatusSignal,
+        active_high: bool,
+    },
+    /// A GPIO line read as an input.
+    Gpio {
+        chip: String,
+        offset: u32,
+        active_high: bool,
+    },
+}
+
+/// Checks `[transmit_sense]` (its keys, and that its serial device is
+/// neither the rig's port nor the inhibit's: one device is opened once)
+/// and says which input `run` will read, without opening it.
+pub fn sense_settings(config: &Config) -> Result<SenseSettings, Error> {
+    let cfg: &SenseConfig = &config.transmit_sense;
+    let active_high = cfg.active_high;
+    let signal = match cfg.line {
+        SenseKind::None => return Ok(SenseSettings::None),
+        SenseKind::Gpio => {
+            let chip = cfg.chip.clone().ok_or_else(|| {
+                Error::invalid(
+                    Place::bare_key("transmit_sense.chip"),
+                    "a GPIO chip such as `gpiochip0`",
+                    "none",
+                )
+            })?;
+            let offset = cfg.offset.ok_or_else(|| {
+                Error::invalid(
+                    Place::bare_key("transmit_sense.offset"),
+                    "the line number on the chip",
+                    "none",
+                )
+            })?;
+            if cfg!(not(target_os = "linux")) {
+                return Err(Error::invalid(
+                    Place::bare_key("transmit_sense.line"),
+                    "`none`, `cts`, `dsr`, `dcd` or `ri` (`gpio` needs Linux)",
+                    "`gpio`",
+                ));
+            }
+            return Ok(SenseSettings::Gpio {
+                chip,
+                offset,
+                active_high,
+            });
+        }
+        SenseKind::Cts => StatusSignal::Cts,
+        SenseKind::Dsr => StatusSignal::Dsr,
+        SenseKind::Dcd => StatusSignal::Dcd,
+        SenseKind::Ri => StatusSignal::Ri,
+    };
+    let port = cfg.port.clone().ok_or_else(|| {
+        Error::invalid(
+            Place::bare_key("transmit_sense.port"),
+            format!(
+                "the serial device whose {} the rig's transmit output drives",
+                signal.name()
+            ),
+            "none",
+        )
+    })?;
+    let inhibit_port = match config.inhibit.line {
+        InhibitKind::Rts | InhibitKind::Dtr => config.inhibit.port.as_deref(),
+        _ => None,
+    };
+    for (key, other) in [
+        ("rig.port", config.rig.port.as_deref()),
+        ("inhibit.port", inhibit_port),
+    ] {
+        if other == Some(port.as_str()) {
+            return Err(Error::invalid(
+                Place::bare_key("transmit_sense.port"),
+                format!("a serial device other than {key} (a device is opened once, and tuneward cannot share it yet)"),
+                format!("`{port}`, the same as {key}"),
+            ));
+        }
+    }
+    Ok(SenseSettings::Modem {
+        port,
+        signal,
+        active_high,
+    })
+}
+
+/// Opens the input `[transmit_sense]` describes; `None` when there is none.
+pub fn open_sense(config: &Config) -> Result<Option<Box<dyn SenseInput>>, Error> {
+    match sense_settings(config)? {
+        SenseSettings::None => Ok(None),
+        SenseSettings::Modem {
+            port,
+            signal,
+            active_high,
+        } => Ok(Some(Box::new(
+            sense::open_modem_sense(&port, signal, active_high).map_err(|e| {
+                Error::invalid(
+                    Place::Named(format!("sense port {port}")),
+                    format!("a serial device whose {} can be read", signal.name()),
+                    e.to_string(),
+                )
+            })?,
+        ))),
+        #[cfg(target_os = "linux")]
+        SenseSettings::Gpio {
+            chip,
+            offset,
+            active_high,
+        } => Ok(Some(Box::new(
+            sense::GpioSense::open(&chip, offset, active_high).map_err(|e| {
+                Error::invalid(
+                    Place::Named(format!("sense GPIO {chip} line {offset}")),
+                    "a GPIO line this user may read",
+                    e.to_string(),
+                )
+            })?,
+        ))),
+        #[cfg(not(target_os = "linux"))]
+        SenseSettings::Gpio { .. } => Err(Error::invalid(
+            Place::bare_key("transmit_sense.line"),
+            "`none`, `cts`, `dsr`, `dcd` or `ri` (`gpio` needs Linux)",
+            "`gpio`",
+        )),
+    }
+}
+
 /// Writes a clean record of `steps` to the journal `config` names, after
 /// checking `steps` against the config's limits. Returns the journal's path.
 pub fn set_position(config: &Config, steps: i64) -> Result<PathBuf, Error> {
@@ -613,6 +748,7 @@ impl ServiceParts {
         let rig = rig_source(station)?;
         let controller = controller_settings(&config.tuner).map_err(|e| e.within(&file))?;
         let inhibit = open_inhibit(&config.inhibit).map_err(|e| e.within(&file))?;
+        let sense = open_sense(config).map_err(|e| e.within(&file))?;
         Ok(ServiceParts {
             follower: Follower::new(
                 station.policy.clone(),
@@ -628,6 +764,7 @@ impl ServiceParts {
             rig,
             controller,
             inhibit,
+            sense,
             journal: Some(journal_for(config)),
             relax_on_exit: config.tuner.relax_on_exit,
             candidates: config
