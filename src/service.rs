@@ -264,7 +264,14 @@ pub async fn run_with_operator(
     // still be heard (a transmission stops the motor; a proxied program
     // keeps its port) until the session has persisted and released.
     let (tasks_stop, tasks_shutdown) = shutdown::channel();
-    let (rig_task, mut rig_rx) = service.rig.spawn(tasks_shutdown.clone())?;
+    // The poll reads the other VFO while the session knows the rig works
+    // split; the link task is kept told.
+    let (split_tx, split_rx) = watch::channel(false);
+    let mut rig = service.rig;
+    if let RigSource::Link(cfg) = &mut rig {
+        cfg.split = Some(split_rx);
+    }
+    let (rig_task, mut rig_rx) = rig.spawn(tasks_shutdown.clone())?;
     let (transmit_tx, transmit_rx) = watch::channel(false);
     let settings = SessionSettings {
         steps_per_second: service.controller.steps_per_second,
@@ -366,6 +373,8 @@ pub async fn run_with_operator(
         }
         io.carry_out(&mut session).await;
         publish(&state, &session);
+        let split = session.poll_other_vfo();
+        split_tx.send_if_modified(|s| std::mem::replace(s, split) != split);
     }
     let result = session.outcome();
     tasks_stop.trigger();

@@ -83,6 +83,7 @@ async fn polls_stretch_while_the_rig_is_silent_and_reset_when_it_answers() {
         query: b"FA;".to_vec(),
         every: Duration::from_millis(40),
         max_every: Duration::from_millis(160),
+        while_split: Vec::new(),
     });
     let _task = spawn(cfg, tx, stop);
     assert!(matches!(next(&mut ev).await, LinkEvent::Up { .. }));

@@ -90,6 +90,7 @@ async fn poll_queries_wait_for_the_end_of_the_other_programs_message() {
         query: b"IF;".to_vec(),
         every: Duration::from_millis(20),
         max_every: Duration::from_millis(40),
+        while_split: Vec::new(),
     }))
     .await;
     // Let a few queries go out, then half a message, then a pause long
@@ -147,6 +148,7 @@ async fn block_framing_resynchronises_after_a_lost_byte() {
             query: query.clone(),
             every: Duration::from_millis(20),
             max_every: Duration::from_millis(40),
+            while_split: Vec::new(),
         }),
         Box::new(every(5, Duration::from_millis(100))),
     )

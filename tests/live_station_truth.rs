@@ -166,10 +166,19 @@ fn serve(conn: TcpStream, motor: &Mutex<Motor>, truth: &Path) {
 /// `tuneward sim-rig` speaking `protocol` on a pty at `dir/rig`, truth log
 /// at `dir/truth.jsonl`, no operator script of its own.
 fn sim_rig(dir: &Path, protocol: &str) -> (Proc, PathBuf, PathBuf) {
+    sim_rig_scripted(
+        dir,
+        protocol,
+        "# the operator works through the other program\n",
+    )
+}
+
+/// [`sim_rig`], with an operator script (protocols/sim-rig.md) of its own.
+fn sim_rig_scripted(dir: &Path, protocol: &str, operator: &str) -> (Proc, PathBuf, PathBuf) {
     let link = dir.join("rig");
     let truth = dir.join("truth.jsonl");
     let script = dir.join("script.jsonl");
-    std::fs::write(&script, "# the operator works through the other program\n").unwrap();
+    std::fs::write(&script, operator).unwrap();
     let child = Command::new(BIN)
         .args(["sim-rig", "--protocol", protocol, "--pty"])
         .arg(&link)
@@ -239,6 +248,50 @@ inhibit_tail_ms = 20
     let run = Logged::run(&config);
     wait_for(&shared);
     (run, shared)
+}
+
+/// `tuneward run` in poll mode on the rig at `rig` (binary family: the
+/// simulator's address 0x94), polling every 50 ms; nothing else on the
+/// port.
+fn run_polled(dir: &Path, family: Family, rig: &Path, controller: &str) -> Run {
+    let config = dir.join("station.toml");
+    let address = match family {
+        Family::Binary => "address = 0x94",
+        Family::Text => "",
+    };
+    std::fs::write(
+        &config,
+        format!(
+            r#"
+[rig]
+protocol = "{protocol}"
+port = "{rig}"
+baud = 38400
+mode = "poll"
+poll_ms = 50
+{address}
+
+[tuner]
+link = "tcp://{controller}"
+min_steps = 0
+max_steps = 3000
+steps_per_second = {SPEED}
+settle_ms = 0
+state_file = "motor.state"
+
+[follow]
+debounce_ms = 150
+hysteresis_hz = 100
+inhibit_lead_ms = 5
+inhibit_tail_ms = 20
+{bands}"#,
+            protocol = family.protocol(),
+            rig = rig.display(),
+            bands = forty_metres(&[(7_000_000, 0), (7_300_000, 3000)]),
+        ),
+    )
+    .unwrap();
+    Logged::run(&config)
 }
 
 async fn say(port: &mut SerialStream, bytes: &[u8]) {
@@ -457,6 +510,64 @@ async fn vfo_b_case(family: Family) {
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
     assert_eq!(m.gotos.last(), Some(&2200), "{:?}", m.gotos);
+}
+
+/// Split set on the rig itself (the simulator's operator script; no other
+/// program, its reports off), tuneward polling: the poll learns split (the
+/// text family's status answer, the binary family's `0F` read) and then
+/// reads the other VFO (`FB;`, `25 01`), so the loop is tuned for the
+/// transmit VFO, 5 kHz up, before the first over.
+fn polled_split_case(family: Family) {
+    let dir = tempfile::tempdir().unwrap();
+    let operator = r#"{"at_ms": 0, "op": "reports", "on": false}
+{"at_ms": 300, "op": "tune", "hz": 7100000}
+{"at_ms": 300, "op": "tune", "vfo": "b", "hz": 7105000}
+{"at_ms": 1500, "op": "split", "on": true}
+{"at_ms": 6000, "op": "key"}
+{"at_ms": 7000, "op": "unkey"}
+"#;
+    let (_rig, rig_link, truth) = sim_rig_scripted(dir.path(), family.protocol(), operator);
+    let (addr, motor) = controller(0, truth.clone());
+    let _run = run_polled(dir.path(), family, &rig_link, &addr);
+    // 7.105 MHz: (7 105 000 - 7 000 000) / 100 = 1050 steps, by hand.
+    wait_motor(&motor, "tuned for the transmit VFO", |m| {
+        m.at == 1050 && !m.moving
+    });
+    let transmitted = |truth: &Path| {
+        std::fs::read_to_string(truth).unwrap().lines().any(|l| {
+            serde_json::from_str::<serde_json::Value>(l).is_ok_and(|v| v["transmitting"] == true)
+        })
+    };
+    assert!(
+        !transmitted(&truth),
+        "tuned for the transmit VFO only after the first over"
+    );
+    let t = last_truth(&truth).unwrap();
+    assert_eq!(
+        (t["rx_hz"].clone(), t["tx_hz"].clone()),
+        (7_100_000.into(), 7_105_000.into()),
+        "{t}"
+    );
+    // The over comes and goes; nothing moves.
+    let until = Instant::now() + Duration::from_secs(15);
+    while !transmitted(&truth) || rig_transmits(&truth) {
+        assert!(Instant::now() < until, "the scripted over never ended");
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos.last(), Some(&1050), "{:?}", m.gotos);
+    assert_eq!(m.at, 1050);
+}
+
+#[test]
+fn text_polled_split_set_on_the_rig_tunes_for_the_transmit_vfo() {
+    polled_split_case(Family::Text);
+}
+
+#[test]
+fn binary_polled_split_set_on_the_rig_tunes_for_the_transmit_vfo() {
+    polled_split_case(Family::Binary);
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]

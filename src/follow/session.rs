@@ -659,6 +659,12 @@ impl Session {
         );
     }
 
+    /// Whether a poll should read the other VFO too: the rig works split,
+    /// so the transmit VFO is not the one the plain poll reads.
+    pub fn poll_other_vfo(&self) -> bool {
+        self.core.station().split()
+    }
+
     /// The rig's source ended for good: nothing moves from now on.
     pub fn handle_rig_ended(&mut self, now: Duration) {
         self.st.push(plain(

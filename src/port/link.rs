@@ -189,6 +189,9 @@ pub struct PollConfig {
     pub every: Duration,
     /// Longest interval while it does not.
     pub max_every: Duration,
+    /// Sent after `query` while the rig works split (the other VFO's
+    /// frequency read, where the dialect has one); empty: nothing.
+    pub while_split: Vec<u8>,
 }
 
 /// The link task's settings.
@@ -198,6 +201,10 @@ pub struct LinkConfig {
     pub poll: Option<PollConfig>,
     /// Longest wait between reopening attempts.
     pub backoff_cap: Duration,
+    /// Whether the rig works split, as the session knows it (the driver
+    /// keeps it current): then the poll adds [`PollConfig::while_split`].
+    /// `None`: never.
+    pub split: Option<tokio::sync::watch::Receiver<bool>>,
 }
 
 impl LinkConfig {
@@ -206,6 +213,7 @@ impl LinkConfig {
             port,
             poll: None,
             backoff_cap: Duration::from_secs(2),
+            split: None,
         }
     }
 }
@@ -322,7 +330,8 @@ async fn session(
             }
             _ = sleep_until_opt(next_poll) => {
                 if let Some(p) = poll.as_mut() {
-                    let query = p.fire(Instant::now());
+                    let split = config.split.as_ref().is_some_and(|s| *s.borrow());
+                    let query = p.fire(Instant::now(), split);
                     write_all_timeout(&mut stream, path, &query).await?;
                     let ev = LinkEvent::Bytes { dir: Direction::Tx, bytes: Bytes::from(query), at: Instant::now() };
                     if events.send(ev).await.is_err() {
@@ -401,8 +410,9 @@ impl Poller {
         self.answered = true;
     }
 
-    /// A query is being sent at `now`: returns it and plans the next one.
-    pub(crate) fn fire(&mut self, now: Instant) -> Vec<u8> {
+    /// A query is being sent at `now` (`split`: the rig works split, so the
+    /// other VFO is read too): returns it and plans the next one.
+    pub(crate) fn fire(&mut self, now: Instant, split: bool) -> Vec<u8> {
         self.interval = if self.answered {
             self.config.every
         } else {
@@ -417,7 +427,11 @@ impl Poller {
         };
         self.answered = false;
         self.due = now + self.interval;
-        self.config.query.clone()
+        let mut q = self.config.query.clone();
+        if split {
+            q.extend_from_slice(&self.config.while_split);
+        }
+        q
     }
 }
 
@@ -432,19 +446,22 @@ mod tests {
             query: b"Q;".to_vec(),
             every: Duration::from_millis(100),
             max_every: Duration::from_millis(500),
+            while_split: b"B;".to_vec(),
         });
         let mut gaps = Vec::new();
         let mut now = t0;
         for _ in 0..5 {
-            assert_eq!(p.fire(now), b"Q;");
+            assert_eq!(p.fire(now, false), b"Q;");
             gaps.push(p.due - now);
             now = p.due;
         }
         let ms: Vec<u128> = gaps.iter().map(|g| g.as_millis()).collect();
         assert_eq!(ms, vec![100, 200, 400, 500, 500]);
         p.answered();
-        p.fire(now);
+        p.fire(now, false);
         assert_eq!(p.due - now, Duration::from_millis(100));
+        // While split, the other VFO's read follows the query.
+        assert_eq!(p.fire(now, true), b"Q;B;");
     }
 
     /// A port double: records every line change in order; can refuse

@@ -340,7 +340,7 @@ impl Proxy {
     }
 
     async fn inject(&mut self, rig: &mut SerialStream, p: &mut Poller) -> Result<(), End> {
-        let query = p.fire(Instant::now());
+        let query = p.fire(Instant::now(), false);
         write_all_timeout(rig, &self.config.port.path, &query)
             .await
             .map_err(End::RigDown)?;

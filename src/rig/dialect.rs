@@ -255,6 +255,26 @@ impl Dialect {
             Spec::Block(s) => s.poll_transmit.clone(),
         }
     }
+
+    /// The query for the split state, sent with every poll, where the
+    /// dialect names one (`[poll] split`).
+    pub fn poll_split(&self, rig_address: u8) -> Option<Vec<u8>> {
+        match &self.spec {
+            Spec::Binary(s) => s.poll_split.as_ref().map(|q| s.query(q, rig_address)),
+            Spec::Text(s) => s.poll_split.clone(),
+            Spec::Block(_) => None,
+        }
+    }
+
+    /// The query for the other VFO's frequency, sent while the rig works
+    /// split, where the dialect names one (`[poll] other_vfo`).
+    pub fn poll_other_vfo(&self, rig_address: u8) -> Option<Vec<u8>> {
+        match &self.spec {
+            Spec::Binary(s) => s.poll_other_vfo.as_ref().map(|q| s.query(q, rig_address)),
+            Spec::Text(s) => s.poll_other_vfo.clone(),
+            Spec::Block(_) => None,
+        }
+    }
 }
 
 #[cfg(test)]
@@ -441,6 +461,41 @@ mod tests {
     fn poll_that_would_key_the_rig_is_refused() {
         let t = text_with("transmit = \"IF;\"", "transmit = \"TX;\"");
         assert_eq!(key_error(&t).0, "poll.transmit");
+    }
+
+    /// The split-state and other-VFO reads are dialect data: bytes as the
+    /// files give them (the binary family's `0F` and `25 01` reads, the
+    /// text family's `FB;`; recalled from the families' command
+    /// references), refused like any poll when they would key the rig or
+    /// carry data, and absent where a dialect leaves them out.
+    #[test]
+    fn split_and_other_vfo_polls_come_from_the_dialect() {
+        let b = Dialect::builtin("binary-bcd").unwrap();
+        assert_eq!(
+            b.poll_split(0x94),
+            Some(vec![0xFE, 0xFE, 0x94, 0xE0, 0x0F, 0xFD])
+        );
+        assert_eq!(
+            b.poll_other_vfo(0x94),
+            Some(vec![0xFE, 0xFE, 0x94, 0xE0, 0x25, 0x01, 0xFD])
+        );
+        let t = Dialect::builtin("text-semicolon").unwrap();
+        assert_eq!(t.poll_split(0), None);
+        assert_eq!(t.poll_other_vfo(0), Some(b"FB;".to_vec()));
+        let nine = Dialect::builtin("text-semicolon-9").unwrap();
+        assert_eq!(nine.poll_split(0), Some(b"FT;".to_vec()));
+        assert_eq!(Dialect::builtin("block-5").unwrap().poll_other_vfo(0), None);
+        let keyed = text_with("other_vfo = \"FB;\"", "other_vfo = \"TX1;\"");
+        assert_eq!(key_error(&keyed).0, "poll.other_vfo");
+        let data = BUILTINS[0].1.replacen(
+            "other_vfo = \"FE FE rig controller 25 01 FD\"",
+            "other_vfo = \"FE FE rig controller 25 01 00 FD\"",
+            1,
+        );
+        assert_eq!(key_error(&data).0, "poll.other_vfo");
+        let without = text_with("other_vfo = \"FB;\"\n", "");
+        let d = Dialect::parse(&without, Path::new("mine.toml")).unwrap();
+        assert_eq!(d.poll_other_vfo(0), None);
     }
 
     #[test]

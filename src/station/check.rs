@@ -249,7 +249,20 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
         ));
     }
     let how = match c.rig.poll_every_ms() {
-        Some(ms) => format!("polled every {ms} ms (frequency and transmit state)"),
+        Some(ms) => {
+            let d = &station.dialect;
+            let split = if d.poll_split(0).is_some() {
+                ", split state"
+            } else {
+                ""
+            };
+            let other = if d.poll_other_vfo(0).is_some() {
+                "; the other VFO too while split"
+            } else {
+                "; not the other VFO while split (the dialect names no read for it): split is followed only as far as the reads above show it"
+            };
+            format!("polled every {ms} ms (frequency, transmit state{split}{other})")
+        }
         None if c.rig.mode == crate::config::RigMode::Proxy => {
             "what the other program's reads bring back (set rig.poll_ms to poll between them)"
                 .to_string()

@@ -694,11 +694,13 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
             };
             let mut query = station.dialect.poll_frequency(address);
             query.extend(station.dialect.poll_transmit(address));
+            query.extend(station.dialect.poll_split(address).unwrap_or_default());
             let every = Duration::from_millis(ms);
             Some(crate::port::link::PollConfig {
                 query,
                 every,
                 max_every: every.max(Duration::from_secs(4)),
+                while_split: station.dialect.poll_other_vfo(address).unwrap_or_default(),
             })
         }
     };
@@ -731,6 +733,7 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
             port: settings,
             poll,
             backoff_cap: Duration::from_secs(2),
+            split: None,
         }),
     };
     Ok(rig)

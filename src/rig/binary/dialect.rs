@@ -38,6 +38,12 @@ pub struct BinarySpec {
     pub poll_frequency: Vec<Slot>,
     /// Poll query for the transmit state.
     pub poll_transmit: Vec<Slot>,
+    /// Poll query for the split state (`[poll] split`), sent with every
+    /// poll where the rig has it: split set on the rig itself is learnt.
+    pub poll_split: Option<Vec<Slot>>,
+    /// Poll query for the other VFO's frequency (`[poll] other_vfo`), sent
+    /// only while the rig works split.
+    pub poll_other_vfo: Option<Vec<Slot>>,
     /// Commands only the station decoder reads.
     pub station: StationCodes,
 }
@@ -203,7 +209,11 @@ impl BinarySpec {
         let frequency = r.table(t, "", "frequency")?;
         r.only(frequency, "frequency", &["bytes"])?;
         let poll = r.table(t, "", "poll")?;
-        r.only(poll, "poll", &["frequency", "transmit"])?;
+        r.only(
+            poll,
+            "poll",
+            &["frequency", "transmit", "split", "other_vfo"],
+        )?;
 
         let preamble = r.byte(frame, "frame", "preamble")?;
         let terminator = r.byte(frame, "frame", "terminator")?;
@@ -247,6 +257,28 @@ impl BinarySpec {
                 max_frame,
             )?,
             poll_transmit: binary_query(r, poll, "poll.transmit", preamble, terminator, max_frame)?,
+            poll_split: match poll.contains_key("split") {
+                true => Some(binary_query(
+                    r,
+                    poll,
+                    "poll.split",
+                    preamble,
+                    terminator,
+                    max_frame,
+                )?),
+                false => None,
+            },
+            poll_other_vfo: match poll.contains_key("other_vfo") {
+                true => Some(binary_query(
+                    r,
+                    poll,
+                    "poll.other_vfo",
+                    preamble,
+                    terminator,
+                    max_frame,
+                )?),
+                false => None,
+            },
             station,
         };
         Ok(spec)

@@ -47,6 +47,12 @@ pub struct TextSpec {
     pub transmit_digits: Option<TransmitDigits>,
     pub poll_frequency: Vec<u8>,
     pub poll_transmit: Vec<u8>,
+    /// Poll query for the split state (`[poll] split`), with every poll,
+    /// where the status answer does not carry it.
+    pub poll_split: Option<Vec<u8>>,
+    /// Poll query for the other VFO's frequency (`[poll] other_vfo`), sent
+    /// only while the rig works split.
+    pub poll_other_vfo: Option<Vec<u8>>,
 }
 
 /// Offsets in the status payload of what only the station decoder reads.
@@ -206,7 +212,11 @@ impl TextSpec {
             ],
         )?;
         let poll = r.table(t, "", "poll")?;
-        r.only(poll, "poll", &["frequency", "transmit"])?;
+        r.only(
+            poll,
+            "poll",
+            &["frequency", "transmit", "split", "other_vfo"],
+        )?;
 
         let term_s = r.string(message, "message", "terminator")?;
         let terminator = match term_s.as_bytes() {
@@ -367,6 +377,14 @@ impl TextSpec {
         };
         let poll_frequency = text_query(r, poll, "poll.frequency", &keys)?;
         let poll_transmit = text_query(r, poll, "poll.transmit", &keys)?;
+        let optional = |key: &str| -> Result<Option<Vec<u8>>, DialectError> {
+            match poll.contains_key(key.trim_start_matches("poll.")) {
+                true => Ok(Some(text_query(r, poll, key, &keys)?)),
+                false => Ok(None),
+            }
+        };
+        let poll_split = optional("poll.split")?;
+        let poll_other_vfo = optional("poll.other_vfo")?;
         Ok(TextSpec {
             terminator,
             max_message,
@@ -388,6 +406,8 @@ impl TextSpec {
             transmit_digits,
             poll_frequency,
             poll_transmit,
+            poll_split,
+            poll_other_vfo,
         })
     }
 }
