@@ -209,7 +209,8 @@ fn capture(args: &CaptureArgs) -> Result<(), Failure> {
     )
     .to_lowercase();
     let decoder = station.dialect.decoder(rig.address);
-    tuneward::recorder::run_capture(source, &header, Some(decoder), &args.options())
+    let sense = tuneward::station::settings::open_sense(&station.config).map_err(|e| plain(&e))?;
+    tuneward::recorder::run_capture(source, &header, Some(decoder), sense, &args.options())
         .map(|_| ())
         .map_err(|e| plain(&e))
 }
