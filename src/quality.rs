@@ -165,6 +165,23 @@ pub struct Row {
     pub violations: u64,
 }
 
+/// A dwell where the station's policy left the loop above 1.5:1 while the
+/// rig was on the air: when the operator arrived, where, for how long on
+/// the air above 1.5:1, the worst SWR, and why (the core's last hold from
+/// the dwell's arrival on, else "at rest outside the window").
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ShortDwell {
+    pub family: &'static str,
+    pub seed: u64,
+    /// When the operator arrived on the frequency, s from the evening's start.
+    pub at_s: f64,
+    pub hz: u64,
+    /// Time on the air above 1.5:1 in this dwell, in s.
+    pub over_1_5_s: f64,
+    pub worst_swr: f64,
+    pub why: String,
+}
+
 /// One family's rows.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FamilyReport {
@@ -186,6 +203,9 @@ pub struct BenchReport {
     pub rows: Vec<Row>,
     /// Each family on its own.
     pub families: Vec<FamilyReport>,
+    /// Every dwell where the station's policy (`follow`) fell short of
+    /// 1.5:1 on the air, in the order met.
+    pub short_dwells: Vec<ShortDwell>,
 }
 
 fn find_row<'a>(rows: &'a [Row], policy: &str) -> Option<&'a Row> {
@@ -356,6 +376,7 @@ struct Tally {
     jump_excess: Vec<f64>,
     sweep_waits: Vec<f64>,
     violations: u64,
+    short: Vec<ShortDwell>,
 }
 
 /// The nearest-rank percentile `p` (0 to 1) of `xs`; 0 for none.
@@ -412,6 +433,7 @@ impl Tally {
         self.jump_excess.extend(&o.jump_excess);
         self.sweep_waits.extend(&o.sweep_waits);
         self.violations += o.violations;
+        self.short.extend(o.short.iter().cloned());
     }
 }
 
@@ -448,19 +470,30 @@ fn retunes_with_calls(sc: &Scenario) -> Vec<Retune> {
         .collect()
 }
 
-/// Records when the inhibit went on and off.
-struct InhibitLog(Vec<(Duration, bool)>);
+/// Records when the inhibit went on and off, and the core's holds.
+struct InhibitLog(Vec<(Duration, bool)>, Vec<(Duration, &'static str)>);
 
 impl crate::timeline::Timeline for InhibitLog {
     fn entry(&mut self, t: Duration, entry: &crate::timeline::Entry) -> std::io::Result<()> {
-        if let crate::timeline::Entry::Inhibit { on } = entry {
-            self.0.push((t, *on));
+        match entry {
+            crate::timeline::Entry::Inhibit { on } => self.0.push((t, *on)),
+            crate::timeline::Entry::Hold { reason, .. } => self.1.push((t, reason)),
+            _ => {}
         }
         Ok(())
     }
 }
 
 impl InhibitLog {
+    /// The core's last hold at or after `since`, if any.
+    fn hold_since(&self, since: Duration) -> Option<&'static str> {
+        self.1
+            .iter()
+            .rev()
+            .find(|(t, _)| *t >= since)
+            .map(|(_, r)| *r)
+    }
+
     /// How long after `at` the inhibit was first off (counting what
     /// happened at `at` itself); to `end` if it never was.
     fn wait_from(&self, at: Duration, end: Duration) -> Duration {
@@ -496,8 +529,7 @@ fn run_policy(
     // reported apart), so a move may go ahead under it while the rig's
     // transmit state is unknown, as at a station with its line wired.
     setup.policy.while_unknown = crate::follow::WhileUnknown::MoveUnderInhibit;
-    let mut log = InhibitLog(Vec::new());
-    let mut replay = Replay::new(setup, &mut log);
+    let mut log = InhibitLog(Vec::new(), Vec::new());
     // A polled-only family's reads go to the rig just before each answer.
     let asks = DialectWire {
         dialect: &station.dialect,
@@ -505,6 +537,10 @@ fn run_policy(
     };
     let request = |what: &Happening| crate::scenario::Wire::request(&asks, what);
     let mut hz = 0u64;
+    // When the operator arrived on `hz`.
+    let mut dwell_at = Duration::ZERO;
+    let mut short: Vec<ShortDwell> = Vec::new();
+    let mut replay = Replay::new(setup, &mut log);
     // The operator holds the key.
     let mut keyed = false;
     // Keyed under the inhibit: the rig is held off in receive; its
@@ -561,6 +597,23 @@ fn run_policy(
                     tally.radiated += dur;
                     if swr <= 1.5 {
                         tally.ok_1_5 += dur;
+                    } else {
+                        let at_s = dwell_at.as_secs_f64();
+                        match short.last_mut() {
+                            Some(d) if d.at_s == at_s && d.hz == hz => {
+                                d.over_1_5_s += dur;
+                                d.worst_swr = d.worst_swr.max(swr);
+                            }
+                            _ => short.push(ShortDwell {
+                                family: "",
+                                seed: 0,
+                                at_s,
+                                hz,
+                                over_1_5_s: dur,
+                                worst_swr: swr,
+                                why: String::new(),
+                            }),
+                        }
                     }
                     if swr <= 2.0 {
                         tally.ok_2 += dur;
@@ -572,7 +625,12 @@ fn run_policy(
         }
         let mut feed = true;
         match what {
-            Happening::Report { hz: f } => hz = *f,
+            Happening::Report { hz: f } => {
+                if *f != hz {
+                    dwell_at = *t;
+                }
+                hz = *f;
+            }
             Happening::Transmit { on: true } => {
                 keyed = true;
                 replay.advance(*t)?;
@@ -606,6 +664,17 @@ fn run_policy(
         prev = *t;
     }
     let summary = replay.finish()?;
+    // Why each fell short: a hold of the core during the dwell, else the
+    // loop was left where it was (the dead band or the calibration's error
+    // kept it outside the window).
+    for d in &mut short {
+        let since = Duration::from_secs_f64(d.at_s);
+        d.why = match log.hold_since(since) {
+            Some(reason) => format!("held ({reason})"),
+            None => "at rest outside the 1.5:1 window (dead band or calibration error)".to_string(),
+        };
+    }
+    tally.short.extend(short);
     tally.moves += summary.moves;
     tally.travel += summary.steps;
     tally.violations += summary.violations;
@@ -719,6 +788,14 @@ pub fn bench_follow(
             for (i, policy) in [&ours, &plain].into_iter().enumerate() {
                 let mut one = Tally::default();
                 run_policy(station, policy, &sc, &chunks, &sim_loop, &mut one)?;
+                if i == 0 {
+                    for d in &mut one.short {
+                        d.family = family.name();
+                        d.seed = seed;
+                    }
+                } else {
+                    one.short.clear();
+                }
                 one.jump_excess = one
                     .jump_waits
                     .iter()
@@ -748,6 +825,7 @@ pub fn bench_follow(
         dwells,
         rows: rows(&all),
         families,
+        short_dwells: std::mem::take(&mut all[0].short),
     })
 }
 
@@ -905,6 +983,42 @@ pub fn write_table(report: &BenchReport, out: &mut dyn Write) -> std::io::Result
             if report.target_met() { "met" } else { "missed" }
         )?;
     }
+    write_short_dwells(&report.short_dwells, out)
+}
+
+/// How many short dwells the table names; JSON has them all.
+const SHORT_SHOWN: usize = 20;
+
+/// Each dwell where `follow` fell short of 1.5:1 on the air.
+fn write_short_dwells(short: &[ShortDwell], out: &mut dyn Write) -> std::io::Result<()> {
+    if short.is_empty() {
+        return writeln!(out, "follow: no dwell fell short of 1.5:1 on the air");
+    }
+    writeln!(
+        out,
+        "follow fell short of 1.5:1 on the air in {} dwells (family, seed, arrival, frequency, time above 1.5:1, worst SWR, why):",
+        short.len()
+    )?;
+    for d in short.iter().take(SHORT_SHOWN) {
+        writeln!(
+            out,
+            "  {:<8} seed {:<4} {:>8.1} s  {:>10.6} MHz  {:>6.2} s  SWR {:>8.2}  {}",
+            d.family,
+            d.seed,
+            d.at_s,
+            d.hz as f64 / 1e6,
+            d.over_1_5_s,
+            d.worst_swr,
+            d.why
+        )?;
+    }
+    if short.len() > SHORT_SHOWN {
+        writeln!(
+            out,
+            "  ... and {} more (--json lists them all)",
+            short.len() - SHORT_SHOWN
+        )?;
+    }
     Ok(())
 }
 
@@ -989,7 +1103,25 @@ mod tests {
             let chunks = sc.answers(&wire);
             run_policy(&st, &fixed, &sc, &chunks, &sim_loop, &mut tally).unwrap();
         }
-        assert!(tally.radiated - tally.ok_1_5 > 0.0);
+        let over = tally.radiated - tally.ok_1_5;
+        assert!(over > 0.0);
+        // Each short dwell is named, and together they are all the time
+        // above 1.5:1 (counted step by step apart from the total).
+        assert!(!tally.short.is_empty());
+        let named: f64 = tally.short.iter().map(|d| d.over_1_5_s).sum();
+        assert!((named - over).abs() < 1e-6, "{named} vs {over}");
+        for d in &tally.short {
+            assert!(d.worst_swr > 1.5 && d.over_1_5_s > 0.0, "{d:?}");
+            assert!(
+                bands
+                    .iter()
+                    .any(|(lo, hi)| (lo - 5_000..=hi + 5_000).contains(&d.hz)),
+                "{d:?}"
+            );
+            assert!(!d.why.is_empty());
+        }
+        // The default policy's evenings above had none to name.
+        assert!(r.short_dwells.is_empty(), "{:?}", r.short_dwells);
     }
 
     /// A hand-built evening: 60 s on 7.050 MHz, a memory recall to 14.200
@@ -1095,6 +1227,15 @@ mod tests {
             dwells: 2,
             rows: good.clone(),
             families: vec![fam("classic", good.clone()), fam("spotting", slow)],
+            short_dwells: vec![ShortDwell {
+                family: "spotting",
+                seed: 7,
+                at_s: 12.5,
+                hz: 7_074_000,
+                over_1_5_s: 0.25,
+                worst_swr: 2.5,
+                why: "held (transmitting)".into(),
+            }],
         };
         assert!(report.target_met() && report.wait_target_met());
         assert!(report.families[0].wait_target_met());
@@ -1107,6 +1248,13 @@ mod tests {
         assert!(
             text.contains("targets on spotting: held off 1.50x naive")
                 && text.contains("waits missed"),
+            "{text}"
+        );
+        assert!(
+            text.contains("in 1 dwells")
+                && text.contains("spotting seed 7")
+                && text.contains("7.074000 MHz")
+                && text.contains("held (transmitting)"),
             "{text}"
         );
     }

@@ -76,6 +76,12 @@ fn table_names_its_columns_and_the_target() {
         assert!(text.lines().any(|l| l.starts_with(policy)), "{text}");
     }
     assert!(text.contains("target: 100% with at most 1.3x"), "{text}");
+    // The dwells that fell short are named (or their absence said).
+    assert!(
+        text.contains("follow: no dwell fell short of 1.5:1 on the air")
+            || text.contains("follow fell short of 1.5:1 on the air in"),
+        "{text}"
+    );
 }
 
 #[test]
