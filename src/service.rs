@@ -332,14 +332,14 @@ pub async fn run_with_operator(
                     let at = at.saturating_duration_since(origin);
                     session.handle_sense(at, match change {
                         SenseChange::Level(on) => Ok(on),
-                        SenseChange::Failed(e) => Err(e),
+                        SenseChange::Failed(e) => Err(IoFailure::new("transmit-sense line", e)),
                     });
                 }
                 None => {
                     // The reader ended (only at shutdown): nothing reads
                     // the line any more, so the rig may transmit.
                     sense_open = false;
-                    session.handle_sense(io.now(), Err("the sense line's reader ended".into()));
+                    session.handle_sense(io.now(), Err(IoFailure::new("transmit-sense line", "its reader ended")));
                 }
             },
             ev = tuner.recv(), if tuner_open => match ev {

@@ -146,7 +146,7 @@ pub enum Note {
     },
     /// The sense line could not be read: taken as transmitting.
     SenseFailed {
-        error: String,
+        error: IoFailure,
     },
     ReleaseFailed {
         error: IoFailure,
@@ -641,7 +641,7 @@ impl Session {
     /// (transmitting or not), `Err` a failed read, taken as transmitting
     /// until the line reads again (fail-safe). The core takes the line as
     /// the authority for "the rig transmits" (see `follow::station`).
-    pub fn handle_sense(&mut self, now: Duration, reading: Result<bool, String>) {
+    pub fn handle_sense(&mut self, now: Duration, reading: Result<bool, IoFailure>) {
         let now = self.clock(now);
         let on = match reading {
             Ok(on) => on,
