@@ -123,3 +123,15 @@ fn the_block_fixture_follows_the_rig_and_sees_every_transmission() {
     assert_eq!(summary["violations"], 0);
     assert_eq!(summary["holds"]["transmitting"], 2, "{summary}");
 }
+
+#[test]
+fn the_block_fixture_with_the_status_unheard_at_first_holds_until_it_is_known() {
+    // fixtures/rig/block-5-unknown-start.cap: the status answers lost
+    // until 1.025 s (receive); an over read 1.425 to 2.025 s.
+    common::assert_holds_on_unknown(
+        "block-5",
+        "block-5-unknown-start.cap",
+        1.025,
+        (1.425, 2.025),
+    );
+}

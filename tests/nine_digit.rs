@@ -13,6 +13,8 @@ use tuneward::capture::CaptureReader;
 use tuneward::rig::RejectReason::{BadDigit, BadLength, Overlong};
 use tuneward::rig::{Decode, Dialect, RigEvent, Seen, Vfo};
 
+mod common;
+
 const D9: &str = "text-semicolon-9";
 
 fn fixture(station: bool) -> Vec<RigEvent> {
@@ -162,4 +164,12 @@ fn the_dialect_writes_what_such_a_rig_sends() {
         [d.poll_frequency(0), d.poll_transmit(0)].concat(),
         b"FA;TX;"
     );
+}
+
+#[test]
+fn a_replay_with_the_transmit_state_unheard_at_first_holds_until_it_is_known() {
+    // fixtures/rig/text-semicolon-9-unknown-start.cap, through the binary:
+    // TX answers lost until 1.02 s (TX0, receive); the rig's PTT keyed
+    // (TX2) 1.42 to 2.02 s.
+    common::assert_holds_on_unknown(D9, "text-semicolon-9-unknown-start.cap", 1.02, (1.42, 2.02));
 }

@@ -337,3 +337,97 @@ pub fn wait_journal(journal: &tuneward::journal::Journal, want: tuneward::journa
         std::thread::sleep(Duration::from_millis(10));
     }
 }
+
+/// `tuneward replay --json --start-steps 0` of `fixtures/rig/<fixture>`
+/// with `protocol` on the invented 40 m calibration (100 Hz a step from
+/// 7.000 MHz), a 300 ms debounce and `extra` config text appended (an
+/// `[inhibit]` table, say): the timeline, one JSON value a line.
+pub fn replay_fixture(protocol: &str, fixture: &str, extra: &str) -> Vec<serde_json::Value> {
+    let dir = tempfile::tempdir().unwrap();
+    let config = dir.path().join("station.toml");
+    std::fs::write(
+        &config,
+        format!(
+            "[rig]\nprotocol = \"{protocol}\"\n\n[tuner]\nmin_steps = 0\nmax_steps = 3000\nsteps_per_second = 10000\nsettle_ms = 0\n\n[follow]\ndebounce_ms = 300\nhysteresis_hz = 100\njump_hz = 0\ninhibit_lead_ms = 5\ninhibit_tail_ms = 20\n{}\n{extra}",
+            forty_metres(&[(7_000_000, 0), (7_300_000, 3000)])
+        ),
+    )
+    .unwrap();
+    let capture = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/rig")
+        .join(fixture);
+    let out = Command::new(BIN)
+        .args(["replay", "--json", "--start-steps", "0", "--config"])
+        .arg(&config)
+        .arg(&capture)
+        .output()
+        .unwrap();
+    assert_success(&out);
+    String::from_utf8(out.stdout)
+        .unwrap()
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect()
+}
+
+/// The timeline's moves: (t, hz, to).
+pub fn replay_moves(tl: &[serde_json::Value]) -> Vec<(f64, i64, i64)> {
+    tl.iter()
+        .filter(|v| v["kind"] == "move")
+        .map(|v| {
+            (
+                v["t"].as_f64().unwrap(),
+                v["hz"].as_i64().unwrap(),
+                v["to"].as_i64().unwrap(),
+            )
+        })
+        .collect()
+}
+
+/// Checks a start-unknown fixture's replay (fixtures/rig/*-unknown-start.cap):
+/// with nothing protecting the rig, the settled 7.100 MHz is held as
+/// `transmit-unknown` until the first receive report at `known` s, then
+/// followed (1000 steps, by hand); the over `over` is seen and moves
+/// nothing; 7.150 MHz (1500 steps) follows after it. With
+/// `unprotected_ok = true` written down the same 7.100 MHz goes at once,
+/// before `known`: the hold was the unknown state's, not the debounce's.
+pub fn assert_holds_on_unknown(protocol: &str, fixture: &str, known: f64, over: (f64, f64)) {
+    let tl = replay_fixture(protocol, fixture, "");
+    let moves = replay_moves(&tl);
+    let targets: Vec<(i64, i64)> = moves.iter().map(|m| (m.1, m.2)).collect();
+    assert_eq!(
+        targets,
+        vec![(7_100_000, 1000), (7_150_000, 1500)],
+        "{tl:#?}"
+    );
+    assert!(moves[0].0 >= known, "moved while unknown: {moves:?}");
+    assert!(moves[1].0 >= over.1, "moved during the over: {moves:?}");
+    let holds: Vec<&serde_json::Value> = tl
+        .iter()
+        .filter(|v| v["kind"] == "hold" && v["reason"] == "transmit-unknown")
+        .collect();
+    assert_eq!(holds.len(), 1, "{tl:#?}");
+    assert_eq!(holds[0]["hz"], 7_100_000);
+    let held_at = holds[0]["t"].as_f64().unwrap();
+    assert!(held_at < known, "{held_at}");
+    // The transmission seen: on at the first TX report, off at receive.
+    let txs: Vec<(f64, bool)> = tl
+        .iter()
+        .filter(|v| v["kind"] == "transmit")
+        .map(|v| (v["t"].as_f64().unwrap(), v["on"].as_bool().unwrap()))
+        .collect();
+    assert!(txs.contains(&(over.0, true)), "{txs:?}");
+    assert!(txs.contains(&(over.1, false)), "{txs:?}");
+    let summary = tl.last().unwrap();
+    assert_eq!(summary["kind"], "summary");
+    assert_eq!(summary["violations"], 0, "{summary}");
+    // Unprotected moves written down: nothing waits for the state.
+    let tl = replay_fixture(protocol, fixture, "[inhibit]\nunprotected_ok = true\n");
+    let moves = replay_moves(&tl);
+    assert_eq!(moves.first().map(|m| (m.1, m.2)), Some((7_100_000, 1000)));
+    assert!(moves[0].0 < known, "{moves:?}");
+    assert!(
+        !tl.iter().any(|v| v["reason"] == "transmit-unknown"),
+        "{tl:#?}"
+    );
+}
