@@ -13,7 +13,15 @@
 //! receive/transmit on VFO B, `TX;`/`RX;`, `IF;` the status read;
 //! recalled); binary-family frames from its published CI-V reference guide
 //! (`05` set frequency, `07` VFO select, `0F` split, `25 01` unselected VFO
-//! frequency, `1C 00` transmit state; recalled).
+//! frequency, `1C 00` transmit state; recalled). Nine-digit text messages
+//! from that family's CAT operation reference (`FA`/`FB` with nine digits,
+//! `VS1;` receive on VFO B, `FT1;` transmit on VFO B, `TX;` the transmit
+//! state read answered `TX0;` receive, `TX1;`/`TX0;` keying; recalled, as
+//! protocols/text-semicolon-9.toml says); fixed-block commands from the
+//! published CAT command table of that family (five bytes, four parameters
+//! then the opcode: `01` set frequency, `03` read frequency, `F7` read
+//! transmit status, `08`/`88` key and unkey; recalled, as
+//! protocols/block-5.toml says).
 
 use std::io::Write as _;
 use std::io::{BufRead, BufReader};
@@ -257,7 +265,7 @@ fn run_polled(dir: &Path, family: Family, rig: &Path, controller: &str) -> Run {
     let config = dir.join("station.toml");
     let address = match family {
         Family::Binary => "address = 0x94",
-        Family::Text => "",
+        Family::Text | Family::Nine | Family::Block => "",
     };
     std::fs::write(
         &config,
@@ -319,6 +327,36 @@ fn wait_motor(motor: &Mutex<Motor>, what: &str, done: impl Fn(&Motor) -> bool) {
 enum Family {
     Text,
     Binary,
+    /// The nine-digit text dialect, `text-semicolon-9`.
+    Nine,
+    /// The fixed-block family, `block-5`.
+    Block,
+}
+
+/// A fixed-block command: four parameter bytes, then the opcode.
+fn block(params: [u8; 4], opcode: u8) -> Vec<u8> {
+    [&params[..], &[opcode]].concat()
+}
+
+/// The block family's frequency field: packed BCD of the frequency in
+/// 10 Hz units, eight digits, most significant pair first, high nibble the
+/// higher digit (recalled), worked digit by digit: 7 150 000 Hz is
+/// 00715000 tens, 00 71 50 00.
+fn bcd_be(hz: u64) -> [u8; 4] {
+    let digits: Vec<u8> = format!("{:08}", hz / 10)
+        .bytes()
+        .map(|b| b - b'0')
+        .collect();
+    let mut out = [0; 4];
+    for (o, p) in out.iter_mut().zip(digits.chunks(2)) {
+        *o = (p[0] << 4) | p[1];
+    }
+    out
+}
+
+/// The block family's two reads: the frequency, then the transmit status.
+fn block_reads() -> Vec<u8> {
+    [block([0; 4], 0x03), block([0; 4], 0xF7)].concat()
 }
 
 /// A binary-family frame from the program (address E0) to the rig (94):
@@ -340,6 +378,8 @@ impl Family {
         match self {
             Family::Text => "text-semicolon",
             Family::Binary => "binary-bcd",
+            Family::Nine => "text-semicolon-9",
+            Family::Block => "block-5",
         }
     }
     /// Sets the VFO the rig receives on (text: VFO A).
@@ -348,6 +388,10 @@ impl Family {
             Family::Text => format!("FA{hz:011};").into_bytes(),
             // 0x05: set the operating (selected) VFO's frequency.
             Family::Binary => frame(&[&[0x05][..], &bcd(hz)].concat()),
+            Family::Nine => format!("FA{hz:09};").into_bytes(),
+            // 01: set the frequency (of the VFO in use; the block says no
+            // more, so tuneward takes nothing from it).
+            Family::Block => block(bcd_be(hz), 0x01),
         }
     }
     /// Split with the other VFO (text: VFO B) at `hz` for transmit.
@@ -360,6 +404,8 @@ impl Family {
                 frame(&[0x0F, 0x01]),
             ]
             .concat(),
+            Family::Nine => format!("FB{hz:09};FT1;").into_bytes(),
+            Family::Block => unreachable!("the block family has no split case"),
         }
     }
     /// Operate on VFO B at `hz`.
@@ -372,6 +418,9 @@ impl Family {
                 frame(&[&[0x05][..], &bcd(hz)].concat()),
             ]
             .concat(),
+            // VS1: receive (and so transmit) on VFO B.
+            Family::Nine => format!("FB{hz:09};VS1;").into_bytes(),
+            Family::Block => unreachable!("the block family has no VFO B case"),
         }
     }
     /// A read whose answer carries the transmit state.
@@ -379,6 +428,19 @@ impl Family {
         match self {
             Family::Text => b"IF;".to_vec(),
             Family::Binary => frame(&[0x1C, 0x00]),
+            // The bare TX is a read in this family; IF carries no flag.
+            Family::Nine => b"TX;".to_vec(),
+            // The frequency read too: nothing else tells it.
+            Family::Block => block_reads(),
+        }
+    }
+    /// What the other program reads after an unkey: the block family's
+    /// sets give no frequency, so its reads tell the one set during the
+    /// over; the other families have heard it from the set.
+    fn after_unkey(self) -> Vec<u8> {
+        match self {
+            Family::Block => block_reads(),
+            _ => Vec::new(),
         }
     }
     fn key(self, on: bool) -> Vec<u8> {
@@ -386,6 +448,10 @@ impl Family {
             (Family::Text, true) => b"TX;".to_vec(),
             (Family::Text, false) => b"RX;".to_vec(),
             (Family::Binary, on) => frame(&[0x1C, 0x00, u8::from(on)]),
+            (Family::Nine, true) => b"TX1;".to_vec(),
+            (Family::Nine, false) => b"TX0;".to_vec(),
+            (Family::Block, true) => block([0; 4], 0x08),
+            (Family::Block, false) => block([0; 4], 0x88),
         }
     }
 }
@@ -394,6 +460,11 @@ impl Family {
 fn bcd_is_worked_as_the_reference_shows() {
     // 7 105 000 Hz = digits 0007105000 -> 00 50 10 07 00, by hand.
     assert_eq!(bcd(7_105_000), vec![0x00, 0x50, 0x10, 0x07, 0x00]);
+    // Block family: 7 150 000 Hz = 715 000 tens = 00715000 -> 00 71 50 00,
+    // by hand (and 01 40 74 00 is 14 074 000 Hz, the dialect file's
+    // example).
+    assert_eq!(bcd_be(7_150_000), [0x00, 0x71, 0x50, 0x00]);
+    assert_eq!(bcd_be(14_074_000), [0x01, 0x40, 0x74, 0x00]);
 }
 
 async fn split_case(family: Family) {
@@ -473,7 +544,11 @@ async fn set_then_key_case(family: Family) {
     std::thread::sleep(Duration::from_millis(1_000));
     assert!(rig_transmits(&truth), "the rig should be on the air");
     let unkeyed = Instant::now();
-    say(&mut client, &family.key(false)).await;
+    say(
+        &mut client,
+        &[family.key(false), family.after_unkey()].concat(),
+    )
+    .await;
     // 7.150 MHz: 1500 steps, by hand.
     wait_motor(&motor, "tuned after the over", |m| {
         m.at == 1500 && !m.moving
@@ -683,4 +758,34 @@ async fn text_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_know
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn binary_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
     unplugged_case(Family::Binary).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn nine_digit_split_tunes_for_the_transmit_vfo_before_the_first_over() {
+    split_case(Family::Nine).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn nine_digit_set_then_cat_transmit_moves_nothing_until_the_over_ends() {
+    set_then_key_case(Family::Nine).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn nine_digit_vfo_b_is_followed() {
+    vfo_b_case(Family::Nine).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn nine_digit_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
+    unplugged_case(Family::Nine).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn block_set_then_cat_transmit_moves_nothing_until_the_over_ends() {
+    set_then_key_case(Family::Block).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn block_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
+    unplugged_case(Family::Block).await;
 }
