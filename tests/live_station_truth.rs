@@ -405,7 +405,9 @@ impl Family {
             ]
             .concat(),
             Family::Nine => format!("FB{hz:09};FT1;").into_bytes(),
-            Family::Block => unreachable!("the block family has no split case"),
+            // 02: split on (the program set the other VFO beforehand by
+            // switching to it, which this family's reads cannot see).
+            Family::Block => block([0; 4], 0x02),
         }
     }
     /// Operate on VFO B at `hz`.
@@ -788,4 +790,71 @@ async fn block_set_then_cat_transmit_moves_nothing_until_the_over_ends() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn block_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
     unplugged_case(Family::Block).await;
+}
+
+/// Split on the block family: the rig now transmits on the other VFO,
+/// which this family cannot read without switching the operator's VFO.
+/// Issue 14: say so and hold rather than guess. The loop stays where it
+/// was tuned for the receive VFO, the inhibit is asserted, the log says it
+/// once, and split off lets it go again.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn block_split_holds_with_the_inhibit_on_rather_than_guess() {
+    let family = Family::Block;
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
+    let (addr, motor) = controller(0, truth.clone());
+    let (run, shared) = run(dir.path(), family.protocol(), &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    say(
+        &mut client,
+        &[family.set_receive(7_100_000), family.read_state()].concat(),
+    )
+    .await;
+    // 7.100 MHz: 1000 steps, by hand.
+    wait_motor(&motor, "tuned for 7.100", |m| m.at == 1000 && !m.moving);
+    run.wait_log(&["transmit inhibit released"]);
+    // Split on, then the program keeps reading (the receive VFO).
+    say(&mut client, &family.split_up(7_105_000)).await;
+    for _ in 0..4 {
+        say(&mut client, &family.read_state()).await;
+        std::thread::sleep(Duration::from_millis(150));
+    }
+    // The rig, by its own account, is split: it would transmit on VFO B,
+    // far from the receive VFO the loop is tuned for.
+    let t = last_truth(&truth).unwrap();
+    assert_eq!(t["split"], true, "{t}");
+    assert_ne!(t["tx_hz"], 7_100_000, "{t}");
+    let log = run.log();
+    let said: Vec<&String> = log
+        .iter()
+        .filter(|l| l.contains("transmit-vfo-unknown"))
+        .collect();
+    assert_eq!(said.len(), 1, "{}", log.join("\n"));
+    let last_inhibit = log
+        .iter()
+        .rev()
+        .find(|l| l.contains("transmit inhibit"))
+        .unwrap();
+    assert!(last_inhibit.contains("asserted"), "{}", log.join("\n"));
+    assert_eq!(motor.lock().unwrap().gotos, vec![1000]);
+    // Split off (82): the receive VFO is the transmit VFO again; the loop
+    // is tuned for it, so the inhibit goes and nothing moves.
+    say(
+        &mut client,
+        &[block([0; 4], 0x82), family.read_state()].concat(),
+    )
+    .await;
+    let until = Instant::now() + Duration::from_secs(10);
+    loop {
+        let log = run.log();
+        let last = log.iter().rev().find(|l| l.contains("transmit inhibit"));
+        if last.is_some_and(|l| l.contains("released")) {
+            break;
+        }
+        assert!(Instant::now() < until, "{}", log.join("\n"));
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos, vec![1000]);
 }

@@ -80,6 +80,11 @@ pub enum HoldReason {
     /// Nothing says whether the rig transmits, no inhibit line is wired and
     /// the station has not written down that moves may go ahead unprotected.
     TransmitUnknown,
+    /// The rig transmits split on a VFO whose frequency nothing has told
+    /// (the block family cannot read the other VFO without switching the
+    /// operator's): held, inhibit asserted, rather than tuned for a guess,
+    /// until split is off or that VFO's frequency is known.
+    TransmitVfoUnknown,
 }
 
 impl HoldReason {
@@ -95,6 +100,7 @@ impl HoldReason {
             HoldReason::Calibration => "calibration",
             HoldReason::RigSilent => "rig-silent",
             HoldReason::TransmitUnknown => "transmit-unknown",
+            HoldReason::TransmitVfoUnknown => "transmit-vfo-unknown",
         }
     }
 }
@@ -380,8 +386,30 @@ impl Follower {
                 self.handle_timeout(now);
                 return;
             }
+            if before.is_some() && self.station.split() {
+                self.transmit_vfo_lost(now);
+            }
         }
         self.handle_timeout(now);
+    }
+
+    /// Split went on to a VFO whose frequency nothing has told: where the
+    /// rig transmits is not known, so nothing is guessed. A settle still
+    /// waiting is dropped, a move under way stops, and the loop counts as
+    /// untuned (the inhibit asserted where the policy holds it until tuned)
+    /// until the tuned-for frequency is known again and settles.
+    fn transmit_vfo_lost(&mut self, now: Duration) {
+        self.pending = None;
+        self.settled_hz = None;
+        self.stand_down(HoldReason::TransmitVfoUnknown);
+        self.want = self.want.filter(|t| t.manual);
+        self.untuned = true;
+        self.release_at = None;
+        if self.policy.inhibit_until_tuned {
+            self.assert_inhibit(now);
+        }
+        let hz = self.station.receive_hz().unwrap_or(0);
+        self.hold(hz, HoldReason::TransmitVfoUnknown);
     }
 
     fn note_report(&mut self, now: Duration, hz: u64) {

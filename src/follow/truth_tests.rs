@@ -159,6 +159,33 @@ fn split_tunes_for_the_transmit_vfo_and_ignores_receive_changes() {
 }
 
 #[test]
+fn split_to_a_vfo_never_heard_holds_with_the_inhibit_on_rather_than_guess() {
+    // The block family's case: split on, the other VFO never read.
+    let mut f = known_at(9_000);
+    vfo(&mut f, 0, Vfo::A, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    assert!(!f.inhibit());
+    // A retune of the receive VFO waits for its debounce ...
+    vfo(&mut f, 1_000, Vfo::A, 7_150_000);
+    // ... when split goes on: where the rig transmits is not known.
+    split(&mut f, 1_100, true);
+    let a = run(&mut f, 1_100, 3_000, 50);
+    assert!(gotos(&a).is_empty(), "moved to a guess: {a:?}");
+    assert_eq!(holds(&a), vec![HoldReason::TransmitVfoUnknown], "{a:?}");
+    assert!(f.inhibit());
+    // More receive reports: still nothing, said once.
+    vfo(&mut f, 3_000, Vfo::A, 7_160_000);
+    let a = run(&mut f, 3_000, 5_000, 50);
+    assert!(gotos(&a).is_empty() && holds(&a).is_empty(), "{a:?}");
+    assert!(f.inhibit());
+    // Split off: VFO A again, 7.160 MHz: 8 400 steps, by hand.
+    split(&mut f, 5_000, false);
+    let a = run(&mut f, 5_000, 7_000, 50);
+    assert_eq!(gotos(&a), vec![8_400]);
+    assert!(!f.inhibit());
+}
+
+#[test]
 fn tune_for_receive_follows_the_receive_vfo() {
     let mut p = policy();
     p.tune_for = TuneFor::Receive;

@@ -765,6 +765,11 @@ impl SimRig {
                 self.state.transmitting = true;
             } else if op == s.transmit_off {
                 self.state.transmitting = false;
+            } else if s.split_on == Some(op) {
+                // Split: transmit on the VFO not received on.
+                self.state.tx_vfo = self.state.rx_vfo.other();
+            } else if s.split_off == Some(op) {
+                self.state.tx_vfo = self.state.rx_vfo;
             } else if op == s.set_frequency {
                 let field = block.get(..s.frequency_bytes).unwrap_or_default();
                 if let Some(v) = s.read_bcd(field) {

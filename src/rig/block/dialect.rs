@@ -46,6 +46,10 @@ pub struct BlockSpec {
     /// Opcodes keying and unkeying the transmitter.
     pub transmit_on: u8,
     pub transmit_off: u8,
+    /// Split on and off (`opcodes.split_on`/`split_off`, optional): seen
+    /// from another program, the station decoder reports split.
+    pub split_on: Option<u8>,
+    pub split_off: Option<u8>,
     /// Other opcodes that change the rig (never polled).
     pub other_sets: Vec<u8>,
     /// The blocks we send in poll mode (checked to be the reads).
@@ -180,7 +184,11 @@ impl BlockSpec {
             &["read", "answer_length", "mask", "active_high", "on", "off"],
         )?;
         let opcodes = r.table(t, "", "opcodes")?;
-        r.only(opcodes, "opcodes", &["set_frequency", "other_sets"])?;
+        r.only(
+            opcodes,
+            "opcodes",
+            &["set_frequency", "split_on", "split_off", "other_sets"],
+        )?;
         let poll = r.table(t, "", "poll")?;
         r.only(poll, "poll", &["frequency", "transmit"])?;
 
@@ -235,6 +243,14 @@ impl BlockSpec {
         let transmit_on = r.byte(transmit, "transmit", "on")?;
         let transmit_off = r.byte(transmit, "transmit", "off")?;
         let set_frequency = r.byte(opcodes, "opcodes", "set_frequency")?;
+        let optional = |key: &str| -> Result<Option<u8>, DialectError> {
+            match opcodes.get(key) {
+                None => Ok(None),
+                Some(_) => r.byte(opcodes, "opcodes", key).map(Some),
+            }
+        };
+        let split_on = optional("split_on")?;
+        let split_off = optional("split_off")?;
         let other_sets = match r.get(opcodes, "opcodes", "other_sets", "a list of opcodes")? {
             toml::Value::Array(a) => a
                 .iter()
@@ -275,6 +291,8 @@ impl BlockSpec {
             set_frequency,
             transmit_on,
             transmit_off,
+            split_on,
+            split_off,
             other_sets,
             poll_frequency: Vec::new(),
             poll_transmit: Vec::new(),
@@ -323,6 +341,8 @@ impl BlockSpec {
         opcode == self.set_frequency
             || opcode == self.transmit_on
             || opcode == self.transmit_off
+            || self.split_on == Some(opcode)
+            || self.split_off == Some(opcode)
             || self.other_sets.contains(&opcode)
     }
 }

@@ -13,9 +13,12 @@
 //! the dialect) then a mode byte; the transmit-status read gives one byte,
 //! whose masked bit(s) and polarity say whether the rig transmits.
 //! Going to the rig (proxy mode, station decoder): the keying opcodes are
-//! transmit commands. A frequency set does not say which VFO it is for and
+//! transmit commands, the split opcodes (where the dialect names them) split
+//! on and off. A frequency set does not say which VFO it is for and
 //! the family cannot read the other VFO without switching the operator's
-//! VFO, so nothing is taken from it: the next frequency read tells.
+//! VFO, so nothing is taken from it: the next frequency read tells. With
+//! split on, the transmit VFO's frequency is not known at all: the core
+//! holds (see `Follower::handle_station`).
 
 use std::collections::VecDeque;
 use std::time::Duration;
@@ -23,7 +26,7 @@ use std::time::Duration;
 mod dialect;
 pub use dialect::{BlockSpec, DigitOrder};
 
-use super::{plausible, Decode, DecodeStats, Direction, RejectReason, RejectRun, RigEvent};
+use super::{plausible, Decode, DecodeStats, Direction, RejectReason, RejectRun, RigEvent, Seen};
 
 /// Requests awaiting their answers, at most (older ones are given up).
 const MAX_PENDING: usize = 8;
@@ -103,6 +106,12 @@ impl BlockDecoder {
         } else if self.station && (op == spec.transmit_on || op == spec.transmit_off) {
             out.push(RigEvent::TransmitCommand {
                 on: op == spec.transmit_on,
+            });
+            self.stats.reports += 1;
+        } else if self.station && (spec.split_on == Some(op) || spec.split_off == Some(op)) {
+            out.push(RigEvent::Split {
+                on: spec.split_on == Some(op),
+                seen: Seen::Command,
             });
             self.stats.reports += 1;
         } else {

@@ -203,3 +203,29 @@ fn the_loader_refuses_set_and_keying_opcodes_as_polls() {
     let text = base.replace("opcode_offset = 4", "opcode_offset = 5");
     assert!(load(&text).unwrap_err().contains("block.opcode_offset"));
 }
+
+#[test]
+fn the_station_decoder_reports_the_other_programs_split() {
+    // 02 split on, 82 split off (recalled, protocols/block-5.toml).
+    let mut d = BlockDecoder::station(spec());
+    let out = run(
+        &mut d,
+        &[(0, Tx, &[0, 0, 0, 0, 0x02]), (50, Tx, &[0, 0, 0, 0, 0x82])],
+    );
+    assert_eq!(
+        out,
+        [
+            RigEvent::Split {
+                on: true,
+                seen: crate::rig::Seen::Command
+            },
+            RigEvent::Split {
+                on: false,
+                seen: crate::rig::Seen::Command
+            },
+        ]
+    );
+    // The reporting decoder takes nothing from them.
+    let mut d = BlockDecoder::new(spec());
+    assert!(run(&mut d, &[(0, Tx, &[0, 0, 0, 0, 0x02])]).is_empty());
+}
