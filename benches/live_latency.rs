@@ -148,6 +148,7 @@ async fn start(journal: bool) -> Live {
         sense: None,
         journal: journal.then(|| Journal::new(dir.path().join("pos.state"))),
         relax_on_exit: false,
+        home: None,
         candidates: None,
     };
     let task = tokio::spawn(run(service, shutdown));

@@ -255,6 +255,46 @@ pub struct TunerConfig {
     /// drive train does not stand under tension while the service is off.
     #[serde(default)]
     pub relax_on_exit: bool,
+    /// A home switch: with it, a position found unknown at start (or after
+    /// an end stop) is recovered by a slow run to the switch, the inhibit
+    /// held.
+    #[serde(default)]
+    pub home: Option<HomeConfig>,
+}
+
+/// `[tuner] home = { switch = …, side = "low" | "high", position = N }`.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct HomeConfig {
+    /// `"controller"`: the controller has the switch and homes when asked
+    /// (`HOME`, line protocol version 2). A number: the GPIO line the
+    /// switch is on, on the direct drive's chip (`gpio://` links only).
+    pub switch: HomeSwitch,
+    /// The end of the travel the switch is at.
+    pub side: HomeSideConfig,
+    /// The count the switch's position is given (within the limits).
+    pub position: i64,
+    /// Homing speed in steps/s; default a quarter of `steps_per_second`.
+    #[serde(default)]
+    pub speed: Option<u32>,
+}
+
+/// Where the home switch is read.
+#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[serde(untagged)]
+pub enum HomeSwitch {
+    /// A GPIO line offset on the direct drive's chip.
+    Line(u32),
+    /// `"controller"`.
+    Named(String),
+}
+
+/// `"low"` or `"high"`.
+#[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum HomeSideConfig {
+    Low,
+    High,
 }
 
 fn default_link() -> String {
@@ -285,6 +325,7 @@ impl Default for TunerConfig {
             settle_ms: default_settle_ms(),
             state_file: None,
             relax_on_exit: false,
+            home: None,
         }
     }
 }
@@ -855,6 +896,9 @@ impl Config {
                 t.backlash_steps.to_string(),
             ));
         }
+        if let Some(h) = &t.home {
+            self.validate_home(h)?;
+        }
         self.validate_rig()?;
         if self.follow.min_move_steps < 0 {
             return Err(self.invalid(
@@ -917,6 +961,49 @@ impl Config {
 
     /// `[[preset]]`: unique names, exactly one of `hz` and `steps`, steps
     /// within the travel limits.
+    fn validate_home(&self, h: &HomeConfig) -> Result<(), ConfigError> {
+        let t = &self.tuner;
+        if !(t.min_steps..=t.max_steps).contains(&h.position) {
+            return Err(self.invalid(
+                "tuner.home.position",
+                &format!("a count within {}..{}", t.min_steps, t.max_steps),
+                h.position.to_string(),
+            ));
+        }
+        if h.speed == Some(0) {
+            return Err(self.invalid(
+                "tuner.home.speed",
+                "a positive number of steps/s",
+                "0".to_string(),
+            ));
+        }
+        let gpio = t.link.starts_with("gpio://");
+        match &h.switch {
+            HomeSwitch::Named(n) if n == "controller" && !gpio => Ok(()),
+            HomeSwitch::Named(n) if n == "controller" => Err(self.invalid(
+                "tuner.home.switch",
+                "the GPIO line the switch is on (a number) with a `gpio://` link",
+                "\"controller\"".to_string(),
+            )),
+            HomeSwitch::Named(n) => Err(self.invalid(
+                "tuner.home.switch",
+                "\"controller\" or a GPIO line number",
+                format!("\"{n}\""),
+            )),
+            HomeSwitch::Line(n) if !gpio => Err(self.invalid(
+                "tuner.home.switch",
+                "\"controller\" (a line number needs a `gpio://` link)",
+                n.to_string(),
+            )),
+            // The direct drive reads no switch input yet.
+            HomeSwitch::Line(n) => Err(self.invalid(
+                "tuner.home.switch",
+                "\"controller\" (the direct drive does not read a home switch yet)",
+                n.to_string(),
+            )),
+        }
+    }
+
     fn validate_presets(&self) -> Result<(), ConfigError> {
         let t = &self.tuner;
         for (i, p) in self.presets.iter().enumerate() {
@@ -1257,6 +1344,65 @@ low_hz = 7000000
 high_hz = 7300000
 guard_hz = 10000
 "#;
+
+    #[test]
+    fn a_home_switch_is_read_and_checked_with_the_key_named() {
+        let with = |home: &str, link: &str| {
+            let text = format!("{MINIMAL}\n[tuner]\nlink = \"{link}\"\nhome = {home}\n");
+            Config::parse(&text, Path::new("s.toml")).and_then(|c| c.validate().map(|()| c))
+        };
+        let c = with(
+            r#"{ switch = "controller", side = "high", position = 10000 }"#,
+            "tcp://127.0.0.1:7300",
+        )
+        .unwrap();
+        let h = c.tuner.home.unwrap();
+        assert_eq!(h.side, HomeSideConfig::High);
+        assert_eq!((h.position, h.speed), (10_000, None));
+        for (home, link, key, found) in [
+            (
+                r#"{ switch = "controller", side = "low", position = -1 }"#,
+                "sim",
+                "tuner.home.position",
+                "-1",
+            ),
+            (
+                r#"{ switch = "controller", side = "low", position = 0, speed = 0 }"#,
+                "sim",
+                "tuner.home.speed",
+                "0",
+            ),
+            (
+                r#"{ switch = "relay", side = "low", position = 0 }"#,
+                "sim",
+                "tuner.home.switch",
+                "relay",
+            ),
+            (
+                r#"{ switch = 22, side = "low", position = 0 }"#,
+                "tcp://127.0.0.1:1",
+                "tuner.home.switch",
+                "22",
+            ),
+            (
+                r#"{ switch = "controller", side = "low", position = 0 }"#,
+                "gpio://gpiochip0?step=1&dir=2",
+                "tuner.home.switch",
+                "controller",
+            ),
+        ] {
+            let msg = with(home, link).unwrap_err().to_string();
+            assert!(msg.contains(key) && msg.contains(found), "{home}: {msg}");
+            assert!(msg.contains("expected"), "{msg}");
+        }
+        let msg = with(
+            r#"{ switch = "controller", side = "up", position = 0 }"#,
+            "sim",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(msg.contains("up"), "{msg}");
+    }
 
     #[test]
     fn minimal_config_gets_defaults() {

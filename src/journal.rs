@@ -40,6 +40,11 @@
 //!
 //! A `format=1` file has no `via`, `leg` or `direction`.
 //!
+//! `state=lost` (no other keys): the count cannot be trusted whatever the
+//! controller says: an end-stop switch stopped the motor, or a homing run
+//! was started and its end (`HOMED`) never recorded. Only a homing run (or
+//! `tuneward set-position`) gives a position again.
+//!
 //! # Crash safety
 //!
 //! Before each move the service records the intent (`moving`), after the
@@ -72,6 +77,9 @@ pub enum Recorded {
         to: i64,
         final_leg: bool,
     },
+    /// The count is not to be trusted (`state=lost`): an end stop was hit,
+    /// or a homing run was under way.
+    Lost,
 }
 
 /// One straight stretch of travel a leg covers, `start` to `end`.
@@ -93,7 +101,7 @@ impl Recorded {
     /// The targets of an unfinished move's legs (empty for a position).
     pub fn leg_targets(&self) -> Vec<i64> {
         match *self {
-            Recorded::Known(_) => Vec::new(),
+            Recorded::Known(_) | Recorded::Lost => Vec::new(),
             Recorded::Unknown { to, .. } => vec![to],
             Recorded::Approach { via, to, .. } => vec![via, to],
         }
@@ -102,7 +110,7 @@ impl Recorded {
     /// The straight stretch of the leg that was under way, if a move was.
     pub fn leg_path(&self) -> Option<Stretch> {
         match *self {
-            Recorded::Known(_) => None,
+            Recorded::Known(_) | Recorded::Lost => None,
             Recorded::Unknown { from, to } => Some(Stretch {
                 start: from,
                 end: to,
@@ -138,6 +146,7 @@ impl Recorded {
         let direction = |a: i64, b: i64| if b >= a { "up" } else { "down" };
         match *self {
             Recorded::Known(p) => format!("state=at\nposition={p}\n"),
+            Recorded::Lost => "state=lost\n".to_string(),
             Recorded::Unknown { from, to } => format!(
                 "state=moving\nfrom={from}\nto={to}\ndirection={}\n",
                 direction(from, to)
@@ -405,6 +414,20 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
             }
             Ok(Recorded::Known(number(&position, "position")?))
         }
+        Some((n, "lost")) if version == 2 => {
+            for (slot, key) in [
+                (&position, "position"),
+                (&from, "from"),
+                (&to, "to"),
+                (&via, "via"),
+                (&leg, "leg"),
+                (&direction, "direction"),
+            ] {
+                unexpected(slot, key, "lost")?;
+            }
+            let _ = n;
+            Ok(Recorded::Lost)
+        }
         Some((_, "moving")) => {
             unexpected(&position, "position", "moving")?;
             let (from_n, to_n) = (number(&from, "from")?, number(&to, "to")?);
@@ -459,7 +482,7 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
         }
         Some((n, other)) => Err(corrupt(
             Some(n),
-            "`state=at` or `state=moving`",
+            "`state=at`, `state=moving` or (format 2) `state=lost`",
             format!("`state={}`", clip(other)),
         )),
         None => Err(corrupt(None, "a `state=` line", "none".to_string())),
@@ -579,6 +602,7 @@ mod tests {
         let j = Journal::new(dir.path().join("p.state"));
         let records = [
             Recorded::Known(-7),
+            Recorded::Lost,
             Recorded::Unknown {
                 from: 4982,
                 to: 9004,

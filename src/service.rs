@@ -93,6 +93,8 @@ pub struct ServiceParts {
     /// `tuner.relax_on_exit`: at a clean shutdown after a completed
     /// approach, back off half the backlash toward the approach side.
     pub relax_on_exit: bool,
+    /// `tuner.home`: the station's home switch, if it has one.
+    pub home: Option<crate::follow::session::HomeSettings>,
     /// Where touch-up candidates go (beside `[calibration] file`); `None`
     /// with inline points: candidates are only logged.
     pub candidates: Option<PathBuf>,
@@ -279,6 +281,7 @@ pub async fn run_with_operator(
         reply_margin: service.controller.reply_margin,
         relax_on_exit: service.relax_on_exit,
         restart_counts: restart_counts(&service.controller),
+        home: service.home,
     };
     let client = client::spawn(
         service.controller,
@@ -532,6 +535,7 @@ impl Io {
 fn unfinished_parts(r: Recorded) -> (i64, i64, Option<i64>, &'static str) {
     match r {
         Recorded::Known(p) => (p, p, None, "none"),
+        Recorded::Lost => (0, 0, None, "lost"),
         Recorded::Unknown { from, to } => (from, to, None, "only"),
         Recorded::Approach {
             from,
@@ -564,6 +568,28 @@ fn log(note: Note) {
             via = ?unfinished_parts(unfinished).2,
             leg = unfinished_parts(unfinished).3,
             "journal: a move did not finish; the position is unknown unless the controller reports a target of its legs or a point on the leg's path"
+        ),
+        Note::HomeBegin {
+            side,
+            position,
+            speed,
+            attempt,
+        } => warn!(
+            side = %side,
+            position,
+            speed,
+            attempt,
+            "position unknown: homing toward the home switch, the transmit inhibit held"
+        ),
+        Note::Homed { steps } => info!(steps, "homed: the controller found the home switch; position confirmed"),
+        Note::HomeGivenUp { why } => error!(
+            %why,
+            "homing given up: position unknown; nothing will move. Run `tuneward set-position STEPS`, then restart"
+        ),
+        Note::LimitHit { side, steps } => error!(
+            side = %side,
+            steps,
+            "an end-stop switch stopped the motor: the count is not trusted (journal: lost)"
         ),
         Note::Trusted { steps, why } => info!(steps, why, "position trusted after the unfinished move"),
         Note::OnPathStopping { steps } => info!(

@@ -118,6 +118,16 @@ fn accepted_keys(example: &toml::Value) -> BTreeSet<String> {
                     all.insert(format!("{key}.{sub}"));
                 }
             }
+            // A single inline table (`home = { … }`).
+            let inline = example
+                .get(&top)
+                .and_then(|t| t.get(&field))
+                .is_some_and(|v| v.is_table());
+            if inline {
+                for sub in accepted(&format!("[{top}]\n{field} = {{ {PROBE} = 1 }}\n")) {
+                    all.insert(format!("{key}.{sub}"));
+                }
+            }
         }
     }
     all

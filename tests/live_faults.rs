@@ -256,3 +256,117 @@ async fn a_controller_back_with_a_foreign_count_is_not_zeroed_nor_trusted() {
         log_text(&log)
     );
 }
+
+/// The station config with a home switch on the controller at the low end
+/// (the count it is given: 0), homing at 500 steps/s.
+fn homing_config(dir: &Path, rig: &Path, addr: &str) -> std::path::PathBuf {
+    let config = common::station_config(dir, rig, addr, 1000, "");
+    let text = std::fs::read_to_string(&config).unwrap().replace(
+        "[tuner]\n",
+        "[tuner]\nhome = { switch = \"controller\", side = \"low\", position = 0, speed = 500 }\n",
+    );
+    std::fs::write(&config, text).unwrap();
+    config
+}
+
+/// Asks a line-protocol controller on `addr` where it is (a connection of
+/// the test's own, after the service has let go of it).
+fn ask_where(addr: &str) -> String {
+    use std::io::{BufRead, BufReader, Write};
+    let mut conn = std::net::TcpStream::connect(addr).unwrap();
+    conn.set_read_timeout(Some(Duration::from_secs(5))).unwrap();
+    conn.write_all(b"WHERE\n").unwrap();
+    let mut line = String::new();
+    BufReader::new(conn).read_line(&mut line).unwrap();
+    line.trim().to_string()
+}
+
+/// Issue 11, item 4, on the real binary with `sim-tuner`'s simulated
+/// switch: the journal says 2000 (clean) but the controller counts 1234,
+/// no count it restarts from: the position is unknown. With a home switch
+/// the service homes by itself (the journal saying `lost` meanwhile), the
+/// homed count is journalled, and the rig's frequency is followed from it.
+/// The controller's own answer, asked by the test afterwards, agrees with
+/// the journal.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn unknown_at_start_homes_on_the_switch_then_follows() {
+    let dir = tempfile::tempdir().unwrap();
+    let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
+    let (_tuner, addr) = common::sim_tuner(&[
+        "--listen",
+        "127.0.0.1:0",
+        "--steps-per-second",
+        "1000",
+        "--settle-ms",
+        "10",
+        "--min",
+        "0",
+        "--max",
+        "3000",
+        "--start",
+        "1234",
+        "--home-switch",
+        "300",
+    ]);
+    let config = homing_config(dir.path(), &rig_link, &addr);
+    let journal = Journal::new(dir.path().join("motor.state"));
+    journal.record_position(2000).unwrap();
+    let log = dir.path().join("run.log");
+    let mut service = run(&config, &log);
+    eventually("the journal saying the count is lost", || {
+        journal.load().ok().flatten() == Some(Recorded::Lost)
+    });
+    eventually("the homed position journalled", || {
+        journal.load().ok().flatten() == Some(Recorded::Known(0))
+    });
+    let text = log_text(&log);
+    assert!(text.contains("homing toward the home switch"), "{text}");
+    assert!(text.contains("homed"), "{text}");
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    rig.write_all(&dialect.encode_frequency(7_150_000, 0))
+        .await
+        .unwrap();
+    rig.flush().await.unwrap();
+    eventually("the move after homing", || {
+        journal.load().ok().flatten() == Some(Recorded::Known(1500))
+    });
+    service.signal(libc::SIGTERM);
+    let status = service.wait_exit(Duration::from_secs(20));
+    assert_eq!(status.code(), Some(0), "{}", log_text(&log));
+    assert_eq!(ask_where(&addr), "AT 1500");
+}
+
+/// A version 1 controller (the double answers `ERR` to `HOME`): the
+/// station's home switch is not there after all; the position stays
+/// unknown, nothing moves, and `HOME` is asked once.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_controller_without_home_answers_err_and_nothing_moves() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, _far, rig_link) = rig_behind_symlink(dir.path());
+    let ctl = FaultyController::start(1234, 1000.0, Fault::None);
+    let config = homing_config(dir.path(), &rig_link, &ctl.addr);
+    let journal = Journal::new(dir.path().join("motor.state"));
+    journal.record_position(2000).unwrap();
+    let log = dir.path().join("run.log");
+    let mut service = run(&config, &log);
+    eventually("homing given up", || {
+        log_text(&log).contains("homing given up")
+    });
+    service.signal(libc::SIGTERM);
+    let status = service.wait_exit(Duration::from_secs(20));
+    let said = ctl.received();
+    assert_eq!(
+        said.iter().filter(|l| l.starts_with("HOME")).count(),
+        1,
+        "{said:?}"
+    );
+    assert!(
+        !said
+            .iter()
+            .any(|l| l.starts_with("GOTO") || l.starts_with("ZERO")),
+        "{said:?}"
+    );
+    assert_eq!(ctl.position(), 1234);
+    assert_eq!(status.code(), Some(3), "{}", log_text(&log));
+    assert_eq!(journal.load().unwrap(), Some(Recorded::Lost));
+}

@@ -93,6 +93,7 @@ async fn start_with(policy: Policy, sense: Option<ScriptedSense>) -> Running {
         sense: sense.map(|s| Box::new(s) as Box<dyn tuneward::sense::SenseInput>),
         journal: Some(journal.clone()),
         relax_on_exit: false,
+        home: None,
         candidates: None,
     };
     let task = tokio::spawn(run(service, shutdown));

@@ -185,6 +185,29 @@ pub struct SimTunerArgs {
     /// Where the motor is when the simulator starts.
     #[arg(long, default_value_t = 0, allow_hyphen_values = true)]
     pub start: i64,
+    /// Simulate a home switch closing at this count (as the simulator
+    /// counts at start): `HOME` runs to it and gives it the host's
+    /// position. Without it `HOME` is answered `ERR` (no switch).
+    #[arg(long, value_name = "COUNT", allow_hyphen_values = true)]
+    pub home_switch: Option<i64>,
+    /// Simulate end-stop switches at these counts (`LOW,HIGH`, as the
+    /// simulator counts at start): a move that reaches one stops there and
+    /// is reported `LIMIT`.
+    #[arg(long, value_name = "LOW,HIGH", allow_hyphen_values = true, value_parser = parse_end_stops)]
+    pub end_stops: Option<(i64, i64)>,
+}
+
+/// `LOW,HIGH`, two counts with LOW below HIGH. (A clap value parser: its
+/// error is the message clap prints after the argument's name.)
+fn parse_end_stops(s: &str) -> Result<(i64, i64), String> {
+    let bad = || format!("expected two counts `LOW,HIGH` with LOW below HIGH, found `{s}`");
+    let (lo, hi) = s.split_once(',').ok_or_else(bad)?;
+    let lo: i64 = lo.trim().parse().map_err(|_| bad())?;
+    let hi: i64 = hi.trim().parse().map_err(|_| bad())?;
+    if lo >= hi {
+        return Err(bad());
+    }
+    Ok((lo, hi))
 }
 
 impl From<SimTunerArgs> for SimTunerOptions {
@@ -194,6 +217,8 @@ impl From<SimTunerArgs> for SimTunerOptions {
             pty: a.pty,
             steps_per_second: a.steps_per_second,
             settle_ms: a.settle_ms,
+            home_switch: a.home_switch,
+            end_stops: a.end_stops,
             backlash: a.backlash,
             min: a.min,
             max: a.max,

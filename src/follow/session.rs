@@ -37,7 +37,7 @@ use super::{Command, Effects, Follower, HoldReason, Policy, Refusal, Reply};
 use crate::error::IoFailure;
 use crate::journal::Recorded;
 use crate::rig::{Decode, Direction, RigEvent};
-use crate::tuner::{TunerCommand, TunerEvent};
+use crate::tuner::{HomeSide, TunerCommand, TunerEvent};
 
 /// How long after a fault the session asks `WHERE` again.
 pub const RETRY_AFTER: Duration = Duration::from_secs(2);
@@ -63,7 +63,26 @@ pub struct SessionSettings {
     /// drive, the simulator's start). Only a differing count among these
     /// is taken for a restart and given the journal's position with `ZERO`.
     pub restart_counts: [i64; 3],
+    /// The station's home switch (`[tuner] home`), if it has one: with it,
+    /// a position found unknown is recovered by a homing run.
+    pub home: Option<HomeSettings>,
 }
+
+/// A home switch: where it is and how to run to it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct HomeSettings {
+    /// The end of the travel the switch is at.
+    pub side: HomeSide,
+    /// The count the switch's position is given.
+    pub position: i64,
+    /// Homing speed, steps/s (slow: the switch must not be overrun).
+    pub speed: u32,
+}
+
+/// How many homing runs the session tries before it leaves the position
+/// to the operator (a run that fails by a fault, not by `ERR`: a
+/// controller answering `ERR` has no switch and is not asked again).
+pub const HOME_ATTEMPTS: u32 = 3;
 
 impl SessionSettings {
     /// Time to travel `distance` steps and settle, plus the reply margin.
@@ -81,8 +100,9 @@ pub enum Output {
     Command(TunerCommand),
     /// Set the inhibit output; answer with [`Session::handle_inhibit_result`].
     Inhibit { on: bool },
-    /// Record (fsync) the intent of the leg about to be sent (always an
-    /// unfinished move: [`Recorded::Unknown`] or [`Recorded::Approach`]);
+    /// Record (fsync) the intent of the leg about to be sent (an unfinished
+    /// move: [`Recorded::Unknown`] or [`Recorded::Approach`]), or
+    /// [`Recorded::Lost`] before a homing run and after an end stop;
     /// answer with [`Session::handle_journal_result`].
     JournalIntent(Recorded),
     /// Record (fsync) the position at rest; answer with
@@ -137,6 +157,28 @@ pub enum Note {
     },
     /// At exit the motor was not confirmed at rest: the inhibit stays on.
     InhibitKept,
+    /// The position is unknown and the station has a home switch: a
+    /// homing run starts (the inhibit held).
+    HomeBegin {
+        side: HomeSide,
+        position: i64,
+        speed: u32,
+        attempt: u32,
+    },
+    /// The controller says the home switch closed: the count is `steps`.
+    Homed {
+        steps: i64,
+    },
+    /// The controller has no home switch (it answered `ERR`), or the
+    /// homing runs failed: the position stays unknown.
+    HomeGivenUp {
+        why: String,
+    },
+    /// An end-stop switch stopped the motor: the count is not trusted.
+    LimitHit {
+        side: HomeSide,
+        steps: i64,
+    },
     Inhibit {
         on: bool,
     },
@@ -327,6 +369,11 @@ enum Awaiting {
     Position {
         steps: i64,
     },
+    /// `state=lost` before a homing run (its `HOME` goes once on disk), or
+    /// after an end stop (`home: false`).
+    LostIntent {
+        home: bool,
+    },
     RelaxInhibit {
         from: i64,
         to: i64,
@@ -429,6 +476,16 @@ struct Shell {
     tensioned: bool,
     /// Shutdown requested: frequencies are no longer acted on.
     stopping: bool,
+    /// The position is unknown and a homing run is to start as soon as the
+    /// rig is known to receive, the inhibit is on and its lead has passed.
+    home_wanted: bool,
+    /// A `HOME` was sent; its `HOMED` is awaited.
+    homing: bool,
+    /// Homing runs started.
+    home_attempts: u32,
+    /// The controller answered `ERR` to `HOME` (it has no switch), or every
+    /// attempt failed: not asked again.
+    home_refused: bool,
     /// The controller link's task is gone.
     link_gone: bool,
     phase: Phase,
@@ -524,6 +581,10 @@ impl Session {
             final_to: None,
             tensioned: false,
             stopping: false,
+            home_wanted: false,
+            homing: false,
+            home_attempts: 0,
+            home_refused: false,
             link_gone: false,
             phase: Phase::Starting,
             now: Duration::ZERO,
@@ -694,8 +755,10 @@ impl Session {
     pub fn handle_tuner(&mut self, now: Duration, ev: TunerEvent) {
         let now = self.clock(now);
         match ev {
-            TunerEvent::At { .. } => self.st.at_rest = true,
-            TunerEvent::Accepted { .. } => self.st.at_rest = false,
+            TunerEvent::At { .. } | TunerEvent::Homed { .. } | TunerEvent::Limit { .. } => {
+                self.st.at_rest = true
+            }
+            TunerEvent::Accepted { .. } | TunerEvent::Homing => self.st.at_rest = false,
             _ => {}
         }
         match self.st.phase {
@@ -909,6 +972,35 @@ impl Session {
                     self.fault(now, true);
                 }
             }
+            (Awaiting::LostIntent { home }, Ok(())) => {
+                self.st.recorded = Some(Recorded::Lost);
+                if let Some(h) = self.st.settings.home.filter(|_| home) {
+                    self.st.home_attempts += 1;
+                    self.st.note(Note::HomeBegin {
+                        side: h.side,
+                        position: h.position,
+                        speed: h.speed,
+                        attempt: self.st.home_attempts,
+                    });
+                    self.st.homing = true;
+                    self.st.at_rest = false;
+                    self.st.push(Output::Command(TunerCommand::Home {
+                        side: h.side,
+                        position: h.position,
+                        speed: h.speed,
+                    }));
+                }
+            }
+            (Awaiting::LostIntent { home }, Err(error)) => {
+                self.st.note(Note::IntentFailed { error });
+                if home {
+                    // No homing run without its record on disk.
+                    self.st.home_refused = true;
+                    self.st.note(Note::HomeGivenUp {
+                        why: "the journal could not be written".to_string(),
+                    });
+                }
+            }
             (Awaiting::Position { steps }, Ok(())) => {
                 self.st.recorded = Some(Recorded::Known(steps))
             }
@@ -957,6 +1049,9 @@ impl Session {
                     continue;
                 }
             }
+            if self.maybe_home() {
+                continue;
+            }
             if !self.advance() {
                 return None;
             }
@@ -976,6 +1071,7 @@ impl Session {
                     self.st.retry_where,
                     finishing,
                     self.st.pending_goto.map(|(_, due)| due),
+                    self.home_due().filter(|due| *due > self.st.now),
                 ]
                 .into_iter()
                 .flatten()
@@ -1045,6 +1141,9 @@ impl Session {
             }
             TunerEvent::LinkDown { reason } => {
                 self.st.note(Note::LinkDown { reason });
+                // A homing run cut short is tried again once the link is
+                // back and the journal (`lost`) is checked again.
+                self.st.homing = false;
                 self.fault(now, false);
             }
             TunerEvent::Accepted { target } => self.st.note(Note::Accepted { target }),
@@ -1052,6 +1151,16 @@ impl Session {
                 Level::Warn,
                 "rig transmitted during a move; the controller link stopped the motor",
             )),
+            TunerEvent::Error { text }
+                if self.st.homing && text.starts_with("controller refused") =>
+            {
+                // A version 1 controller, or one without a switch.
+                self.st.homing = false;
+                self.st.home_refused = true;
+                self.st.note(Note::HomeGivenUp {
+                    why: format!("the controller has no home switch ({text})"),
+                });
+            }
             TunerEvent::Error { text } => {
                 self.st.note(Note::LinkError { text });
                 if self.core.is_moving() {
@@ -1061,6 +1170,9 @@ impl Session {
                 }
             }
             TunerEvent::At { steps } => self.tuner_at(now, steps),
+            ev @ (TunerEvent::Homing | TunerEvent::Homed { .. } | TunerEvent::Limit { .. }) => {
+                self.home_event(now, ev)
+            }
         }
     }
 
@@ -1133,7 +1245,6 @@ impl Session {
             Some(Recorded::Known(p)) if p != steps => {
                 // Not a count it restarts from: it lost steps, or the motor
                 // was moved while we were away. No ZERO: nothing moves.
-                self.st.resync = Resync::Blocked;
                 if !self.st.unknown_reported {
                     self.st.unknown_reported = true;
                     self.st.note(Note::CountNoRestart {
@@ -1141,6 +1252,7 @@ impl Session {
                         controller: steps,
                     });
                 }
+                self.position_lost();
             }
             Some(r) if r.is_unfinished() => {
                 let on_path = self.st.on_leg_path(r, steps);
@@ -1188,21 +1300,108 @@ impl Session {
             });
             self.accept(now, steps);
         } else {
-            self.st.resync = Resync::Blocked;
             if !self.st.unknown_reported {
                 self.st.unknown_reported = true;
-                let (from, to) = match r {
+                match r {
                     Recorded::Unknown { from, to } | Recorded::Approach { from, to, .. } => {
-                        (from, to)
+                        self.st.note(Note::PositionUnknown {
+                            from,
+                            to,
+                            controller: steps,
+                        })
                     }
-                    Recorded::Known(p) => (p, p),
-                };
-                self.st.note(Note::PositionUnknown {
-                    from,
-                    to,
-                    controller: steps,
-                });
+                    Recorded::Known(_) | Recorded::Lost => self.st.push(plain(
+                        Level::Error,
+                        "position unknown: the journal says the count was lost (an end stop, or a homing run that did not finish)",
+                    )),
+                }
             }
+            self.position_lost();
+        }
+    }
+
+    /// The position cannot be trusted: nothing moves until the operator
+    /// says where the motor is, or, with a home switch, a homing run has.
+    fn position_lost(&mut self) {
+        self.st.resync = Resync::Blocked;
+        if self.st.settings.home.is_none() || self.st.home_refused || self.st.homing {
+            return;
+        }
+        if self.st.home_attempts >= HOME_ATTEMPTS {
+            self.st.home_refused = true;
+            self.st.note(Note::HomeGivenUp {
+                why: format!("{HOME_ATTEMPTS} homing runs did not end with HOMED"),
+            });
+            return;
+        }
+        self.st.home_wanted = true;
+    }
+
+    /// When a wanted homing run may go: the inhibit's lead after the line
+    /// was set.
+    fn home_due(&self) -> Option<Duration> {
+        self.st
+            .home_wanted
+            .then(|| self.st.inhibit_set_at.map(|t| t + self.st.inhibit_lead))
+            .flatten()
+    }
+
+    /// Starts the wanted homing run once it may go ahead: running, not
+    /// shutting down, the inhibit on (and its lead passed), the rig known
+    /// not to transmit (or moves allowed while that is unknown), no move
+    /// under way. The journal says `lost` before the `HOME` leaves.
+    fn maybe_home(&mut self) -> bool {
+        let st = &self.st;
+        if !st.home_wanted
+            || st.stopping
+            || st.link_gone
+            || st.phase != Phase::Running
+            || !st.inhibit_on
+            || self.core.rig_may_transmit()
+            || self.core.is_moving()
+            || self.home_due().is_some_and(|due| st.now < due)
+        {
+            return false;
+        }
+        self.st.home_wanted = false;
+        self.st.ask(
+            Output::JournalIntent(Recorded::Lost),
+            Awaiting::LostIntent { home: true },
+        );
+        true
+    }
+
+    /// The controller's word on a homing run, or an end stop.
+    fn home_event(&mut self, now: Duration, ev: TunerEvent) {
+        match ev {
+            TunerEvent::Homing => self.st.push(plain(
+                Level::Info,
+                "homing: the controller runs toward the home switch",
+            )),
+            TunerEvent::Homed { steps } if self.st.homing => {
+                self.st.homing = false;
+                self.st.resync = Resync::Idle;
+                self.st.unknown_reported = false;
+                self.st.home_attempts = 0;
+                self.st.note(Note::Homed { steps });
+                // The homed position goes on disk, confirmed, before the
+                // core acts on it.
+                self.st.block_gotos = false;
+                self.record_position(steps);
+                self.core.handle_arrived(now, steps);
+            }
+            TunerEvent::Homed { steps } => self.st.note(Note::Untrusted { steps }),
+            TunerEvent::Limit { side, steps } => {
+                self.st.homing = false;
+                self.st.note(Note::LimitHit { side, steps });
+                self.fault(now, false);
+                self.st.ask(
+                    Output::JournalIntent(Recorded::Lost),
+                    Awaiting::LostIntent { home: false },
+                );
+                self.position_lost();
+            }
+            _ => {}
         }
     }
 

@@ -74,6 +74,8 @@ struct Bench {
     /// Every command with when it went, and every inhibit level with when
     /// its write returned, in order.
     timed: Vec<(Duration, Wire)>,
+    /// Every record written to the journal, in order.
+    written: Vec<Recorded>,
 }
 
 /// What the bench saw on its wires, with [`Bench::timed`].
@@ -85,6 +87,15 @@ enum Wire {
 
 impl Bench {
     fn new(journal: Option<Recorded>, backlash: i64, relax: bool) -> Bench {
+        Bench::with_home(journal, backlash, relax, None)
+    }
+
+    fn with_home(
+        journal: Option<Recorded>,
+        backlash: i64,
+        relax: bool,
+        home: Option<HomeSettings>,
+    ) -> Bench {
         let dialect = Dialect::builtin("text-semicolon").expect("built-in dialect");
         let settings = SessionSettings {
             steps_per_second: 20_000.0,
@@ -93,6 +104,7 @@ impl Bench {
             relax_on_exit: relax,
             // A controller board counts from 0 after power-on.
             restart_counts: [0, 0, 0],
+            home,
         };
         let core = Follower::new(policy(backlash), Arc::new(Line), None);
         let s = Session::new(core, dialect.decoder(None), journal, settings);
@@ -108,6 +120,7 @@ impl Bench {
             transmit: Vec::new(),
             inhibit_delay: Duration::ZERO,
             timed: Vec::new(),
+            written: Vec::new(),
         };
         b.pump();
         b
@@ -164,6 +177,7 @@ impl Bench {
         if self.fail_journal {
             return Err(IoFailure::new("position journal", "disk full"));
         }
+        self.written.push(r);
         self.journal = Some(r);
         Ok(())
     }
@@ -739,6 +753,7 @@ fn only_rejects_notes(chunks: &[(u64, &[u8])]) -> Vec<Note> {
         reply_margin: ms(500),
         relax_on_exit: false,
         restart_counts: [0, 0, 0],
+        home: None,
     };
     let core = Follower::new(policy(0), Arc::new(Line), None);
     let mut s = Session::new(core, dialect.decoder(None), None, settings);
@@ -1090,5 +1105,221 @@ fn a_differing_count_that_is_no_restart_count_is_unknown_not_zeroed() {
     assert_eq!(b.levels, vec![true]);
     assert_eq!(b.journal, Some(Recorded::Known(2000)));
     b.shutdown();
+    assert!(b.s.outcome().unconfirmed);
+}
+
+// ---------------------------------------------------------------------
+// Homing (issue 11, item 4): with a home switch, "position unknown" is
+// recovered by a slow run to the switch, the inhibit held, the journal
+// saying `lost` until the controller's `HOMED`.
+// ---------------------------------------------------------------------
+
+const HOME: HomeSettings = HomeSettings {
+    side: HomeSide::Low,
+    position: 0,
+    speed: 200,
+};
+
+fn home_command() -> TunerCommand {
+    TunerCommand::Home {
+        side: HomeSide::Low,
+        position: 0,
+        speed: 200,
+    }
+}
+
+/// A bench with a home switch whose link came up reporting `controller`.
+fn homed_bench(journal: Option<Recorded>, controller: i64) -> Bench {
+    let mut b = Bench::with_home(journal, 0, false, Some(HOME));
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: controller });
+    b.wait(ms(100));
+    b
+}
+
+impl Bench {
+    /// The inhibit level the bench's line had when `cmd` first went (the
+    /// line opens asserted).
+    fn level_when(&self, cmd: TunerCommand) -> Option<bool> {
+        let mut level = true;
+        for (_, w) in &self.timed {
+            match *w {
+                Wire::Level(on) => level = on,
+                Wire::Command(c) if c == cmd => return Some(level),
+                Wire::Command(_) => {}
+            }
+        }
+        None
+    }
+
+    fn homes(&self) -> usize {
+        self.commands
+            .iter()
+            .filter(|c| matches!(c, TunerCommand::Home { .. }))
+            .count()
+    }
+}
+
+#[test]
+fn unknown_at_start_with_a_home_switch_homes_under_the_inhibit_then_follows() {
+    // Off the unfinished leg's path: position unknown.
+    let unfinished = Recorded::Unknown { from: 100, to: 900 };
+    let mut b = homed_bench(Some(unfinished), 2500);
+    assert_eq!(b.commands, vec![home_command()]);
+    // The journal says `lost` before the HOME left, and the inhibit is on.
+    assert_eq!(b.journal, Some(Recorded::Lost));
+    assert_eq!(b.level_when(home_command()), Some(true));
+    assert!(b.levels.iter().all(|on| *on), "{:?}", b.levels);
+    // Nothing moves for a frequency while homing.
+    b.tuner(TunerEvent::Homing);
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    // HOMED: the switch's position, confirmed, is journalled; then the
+    // frequency that settled meanwhile is followed from it.
+    b.tuner(TunerEvent::Homed { steps: 0 });
+    b.wait(ms(100));
+    assert_eq!(
+        b.written,
+        vec![
+            Recorded::Lost,
+            Recorded::Known(0),
+            Recorded::Unknown { from: 0, to: 1000 }
+        ]
+    );
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.level_when(TunerCommand::Goto(1000)), Some(true));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(200));
+    assert_eq!(b.journal, Some(Recorded::Known(1000)));
+    assert_eq!(b.homes(), 1);
+    assert!(!b.s.outcome().unconfirmed);
+}
+
+#[test]
+fn a_foreign_count_or_a_lost_journal_homes_too() {
+    // A clean journal, a count no controller restarts from.
+    let b = homed_bench(Some(Recorded::Known(2000)), 1234);
+    assert_eq!(b.commands, vec![home_command()]);
+    assert_eq!(b.journal, Some(Recorded::Lost));
+    // Killed while homing: the next start finds `lost` and homes again,
+    // whatever the controller's count (it may have finished the run).
+    for controller in [0, 700, 3000] {
+        let b = homed_bench(Some(Recorded::Lost), controller);
+        assert_eq!(b.commands, vec![home_command()], "{controller}");
+    }
+    // A restart count over a clean journal is still given ZERO, not homed.
+    let b = homed_bench(Some(Recorded::Known(2000)), 0);
+    assert_eq!(b.commands, vec![TunerCommand::Zero(2000)]);
+}
+
+#[test]
+fn without_a_switch_a_lost_journal_stays_unknown() {
+    let mut b = Bench::linked(Some(Recorded::Lost), 0);
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    assert_eq!(b.journal, Some(Recorded::Lost));
+    assert!(b.s.outcome().unconfirmed);
+}
+
+#[test]
+fn a_controller_answering_err_to_home_has_no_switch_and_is_not_asked_again() {
+    let mut b = homed_bench(Some(Recorded::Known(2000)), 1234);
+    assert_eq!(b.homes(), 1);
+    b.tuner(TunerEvent::Error {
+        text: "controller refused: unknown keyword HOME".into(),
+    });
+    // The link drops and comes back: still unknown, no second HOME.
+    b.tuner(TunerEvent::LinkDown {
+        reason: "test".into(),
+    });
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 1234 });
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert_eq!(b.homes(), 1);
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+}
+
+#[test]
+fn homing_waits_for_receive() {
+    let mut b = Bench::with_home(Some(Recorded::Lost), 0, false, Some(HOME));
+    b.transmit(true);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 500 });
+    b.wait(ms(500));
+    assert_eq!(b.homes(), 0, "{:?}", b.commands);
+    b.transmit(false);
+    b.wait(ms(10));
+    assert_eq!(b.homes(), 1, "{:?}", b.commands);
+    assert_eq!(b.level_when(home_command()), Some(true));
+}
+
+#[test]
+fn homing_cut_short_is_tried_again_a_bounded_number_of_times() {
+    let mut b = homed_bench(Some(Recorded::Lost), 500);
+    for attempt in 1..=HOME_ATTEMPTS {
+        assert_eq!(b.homes() as u32, attempt);
+        b.tuner(TunerEvent::Homing);
+        b.tuner(TunerEvent::Error {
+            text: "controller fault: homing did not end in time; reconnecting".into(),
+        });
+        b.tuner(TunerEvent::LinkDown {
+            reason: "fault".into(),
+        });
+        b.tuner(TunerEvent::LinkUp);
+        b.tuner(TunerEvent::At { steps: 500 });
+        b.wait(ms(100));
+    }
+    assert_eq!(b.homes() as u32, HOME_ATTEMPTS);
+    assert_eq!(b.journal, Some(Recorded::Lost));
+    assert!(b.gotos().is_empty());
+}
+
+#[test]
+fn an_end_stop_faults_the_link_journals_lost_and_homes() {
+    let mut b = Bench::with_home(None, 0, false, Some(HOME));
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
+    b.frequency(7_250_000);
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![2500]);
+    b.tuner(TunerEvent::Accepted { target: 2500 });
+    // The end stop closes at a count inside the limits: the count is off.
+    b.tuner(TunerEvent::Limit {
+        side: HomeSide::High,
+        steps: 2100,
+    });
+    assert_eq!(b.s.core().position(), None);
+    assert_eq!(b.journal, Some(Recorded::Lost));
+    b.wait(ms(50));
+    assert_eq!(b.homes(), 1, "{:?}", b.commands);
+    assert_eq!(b.level_when(home_command()), Some(true));
+    // An AT now (a stray answer) is not trusted; HOMED is.
+    b.tuner(TunerEvent::At { steps: 2100 });
+    assert_eq!(b.s.core().position(), None);
+    b.tuner(TunerEvent::Homed { steps: 0 });
+    assert_eq!(b.journal, Some(Recorded::Known(0)));
+    // The rig's next retune is followed from the confirmed position (the
+    // core decides again on a new frequency, as after any fault).
+    b.frequency(7_200_000);
+    b.wait(ms(100));
+    assert_eq!(b.gotos(), vec![2500, 2000]);
+}
+
+#[test]
+fn shutdown_while_homing_keeps_the_inhibit_and_says_unconfirmed() {
+    let mut b = homed_bench(Some(Recorded::Lost), 500);
+    b.tuner(TunerEvent::Homing);
+    b.shutdown();
+    b.wait(ms(5000));
+    assert!(b.s.is_finished());
+    assert_eq!(b.journal, Some(Recorded::Lost));
+    assert!(b.levels.iter().all(|on| *on), "{:?}", b.levels);
     assert!(b.s.outcome().unconfirmed);
 }

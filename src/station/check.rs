@@ -488,6 +488,15 @@ fn describe_journal(station: &Station, findings: &mut Vec<Finding>, text: &mut V
     let state = match journal.load() {
         Ok(None) => "none yet".to_string(),
         Ok(Some(Recorded::Known(n))) => format!("at rest at {n} steps"),
+        Ok(Some(Recorded::Lost)) => {
+            findings.push(Finding::new(
+                Grade::Warning,
+                "tuner.state_file",
+                format!("{} says the count was lost (an end stop, or a homing run that did not finish): `run` will not move the tuner until a homing run (`tuner.home`) or the operator gives the position", path.display()),
+                "with a home switch `run` homes by itself; otherwise establish where the motor is, then `tuneward set-position STEPS -c CONFIG`",
+            ));
+            "count lost: position unknown".to_string()
+        }
         Ok(Some(Recorded::Unknown { from, to } | Recorded::Approach { from, to, .. })) => {
             findings.push(Finding::new(
                 Grade::Warning,

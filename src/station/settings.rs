@@ -19,6 +19,7 @@ use crate::config::{
     RigUse, SenseConfig, SenseKind, SerialFlow, SerialParity, TunerConfig, DEFAULT_HYSTERESIS_HZ,
 };
 use crate::error::{Located, Place};
+use crate::follow::session::HomeSettings;
 use crate::follow::{Band, Calibrations, Follower, Jump, Policy, Preset, PresetGoal, WhileUnknown};
 use crate::inhibit::{self, InhibitLine};
 use crate::journal::{Journal, SetPositionOptions, DEFAULT_STATE_FILE};
@@ -300,6 +301,21 @@ pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, Error> {
         backoff_cap: Duration::from_secs(2),
         sim_start: t.min_steps,
         sim_backlash: t.backlash_steps,
+    })
+}
+
+/// The home switch `tuner.home` describes, as the session takes it (the
+/// config is validated: the position is within the limits).
+pub fn home_settings(t: &TunerConfig) -> Option<HomeSettings> {
+    let h = t.home.as_ref()?;
+    let quarter = (t.steps_per_second / 4.0).clamp(1.0, f64::from(u32::MAX)) as u32;
+    Some(HomeSettings {
+        side: match h.side {
+            crate::config::HomeSideConfig::Low => crate::tuner::HomeSide::Low,
+            crate::config::HomeSideConfig::High => crate::tuner::HomeSide::High,
+        },
+        position: h.position,
+        speed: h.speed.unwrap_or(quarter).max(1),
     })
 }
 
@@ -770,6 +786,7 @@ impl ServiceParts {
             sense,
             journal: Some(journal_for(config)),
             relax_on_exit: config.tuner.relax_on_exit,
+            home: home_settings(&config.tuner),
             candidates: config
                 .calibration_file()
                 .map(|points| crate::calibrate::candidates_path(&points)),

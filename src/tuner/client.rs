@@ -369,6 +369,8 @@ struct Waiting {
     arrival: Option<(i64, Instant)>,
     /// Last position reported at rest.
     position: Option<i64>,
+    /// The speed of the `HOME` under way, if one was sent.
+    home_speed: Option<f64>,
 }
 
 impl Link {
@@ -575,6 +577,9 @@ impl Link {
                         (Some(due), _) if Instant::now() >= due => {
                             (format!("an answer within {:?}", self.config.reply_margin), "none")
                         }
+                        (_, Some((i64::MIN, _))) => {
+                            ("the homing run to end in time".to_string(), "it still under way")
+                        }
                         (_, Some((target, _))) => {
                             (format!("the move to {target} to end in time"), "it still under way")
                         }
@@ -610,12 +615,21 @@ impl Link {
             TunerCommand::Goto(t) if self.transmitting() => {
                 Some(format!("GOTO {t} refused: rig transmitting or not heard"))
             }
+            TunerCommand::Home { position, .. } if !(min..=max).contains(&position) => Some(
+                format!("HOME refused: position {position} outside limits {min}..{max}"),
+            ),
+            TunerCommand::Home { .. } if self.transmitting() => {
+                Some("HOME refused: rig transmitting or not heard".to_string())
+            }
             _ => None,
         };
         if let Some(text) = refuse {
             tracing::warn!(%text);
             self.emit(TunerEvent::Error { text }).await;
             return Ok(());
+        }
+        if let TunerCommand::Home { speed, .. } = cmd {
+            w.home_speed = Some(f64::from(speed));
         }
         self.send(wr, w, Request::from(cmd)).await
     }
@@ -665,7 +679,8 @@ impl Link {
             }
         };
         tracing::debug!(%reply, "received");
-        if w.unanswered > 0 {
+        // `LIMIT` answers nothing: the controller says it of its own accord.
+        if w.unanswered > 0 && !matches!(reply, Reply::Limit { .. }) {
             w.unanswered -= 1;
             w.reply_due = (w.unanswered > 0).then(|| Instant::now() + self.config.reply_margin);
         }
@@ -692,6 +707,28 @@ impl Link {
             Reply::Err(text) => TunerEvent::Error {
                 text: format!("controller refused: {text}"),
             },
+            Reply::Homing => {
+                // The switch may be anywhere on the travel: the whole
+                // travel at the homing speed, plus settle and margin.
+                let speed = w.home_speed.unwrap_or(self.config.steps_per_second);
+                let whole = self.config.min_steps.abs_diff(self.config.max_steps);
+                let run = super::travel_time(whole, speed, Duration::MAX / 4);
+                let due = Instant::now() + run + self.config.settle + self.config.reply_margin;
+                w.arrival = Some((i64::MIN, due));
+                TunerEvent::Homing
+            }
+            Reply::Homed(steps) => {
+                w.arrival = None;
+                w.home_speed = None;
+                w.position = Some(steps);
+                TunerEvent::Homed { steps }
+            }
+            Reply::Limit { side, steps } => {
+                // Unsolicited: the controller stopped the motor itself.
+                w.arrival = None;
+                w.position = None;
+                TunerEvent::Limit { side, steps }
+            }
         };
         self.emit(ev).await;
     }
@@ -758,6 +795,15 @@ impl From<TunerCommand> for Request {
             TunerCommand::Where => Request::Where,
             TunerCommand::Stop => Request::Stop,
             TunerCommand::Zero(s) => Request::Zero(s),
+            TunerCommand::Home {
+                side,
+                position,
+                speed,
+            } => Request::Home {
+                side,
+                position,
+                speed,
+            },
         }
     }
 }

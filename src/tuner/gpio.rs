@@ -490,6 +490,7 @@ impl DirectTask {
                     Some(Reply::At(self.position))
                 }
             }
+            Request::Home { .. } => Some(Reply::Err("no home switch".to_string())),
             Request::Zero(_) if busy => {
                 Some(Reply::Err("busy: ZERO refused while moving".to_string()))
             }

@@ -1,4 +1,5 @@
-//! The controller line protocol, version 1 (see `protocols/tuner-line.md`):
+//! The controller line protocol, version 2 (see `protocols/tuner-line.md`;
+//! version 2 adds `HOME` and the `HOMING`, `HOMED` and `LIMIT` answers):
 //! sans-IO encoding and decoding of lines, and framing over a [`BytesMut`].
 //!
 //! Framing is check-then-parse: [`LineFramer::next_line`] looks for a `\n`
@@ -10,6 +11,8 @@
 use std::fmt;
 
 use bytes::{BufMut, BytesMut};
+
+pub use super::HomeSide;
 
 /// Longest line (without its terminator) either side accepts.
 pub const MAX_LINE: usize = 80;
@@ -27,6 +30,14 @@ pub enum Request {
     Stop,
     /// `ZERO <steps>`: define the current position.
     Zero(i64),
+    /// `HOME <LOW|HIGH> <steps> <speed>`: run toward `side` at `speed`
+    /// steps/s (or the controller's own homing speed, if lower) until the
+    /// home switch closes, and call that position `steps`.
+    Home {
+        side: HomeSide,
+        position: i64,
+        speed: u32,
+    },
 }
 
 /// A line from the controller to the host.
@@ -38,6 +49,15 @@ pub enum Reply {
     At(i64),
     /// `ERR <text>`: a line was refused.
     Err(String),
+    /// `HOMING`: a `HOME` was accepted; the motor runs toward the switch.
+    Homing,
+    /// `HOMED <steps>`: the home switch closed; the motor is at rest and its
+    /// count is now `steps` (the `HOME` request's position).
+    Homed(i64),
+    /// `LIMIT <LOW|HIGH> <steps>`: an end-stop switch closed; the motor was
+    /// stopped at once at the count `steps` (which may be wrong: the motor
+    /// went where no target should have taken it).
+    Limit { side: HomeSide, steps: i64 },
 }
 
 /// Why bytes were not a line of the protocol.
@@ -59,6 +79,11 @@ pub enum LineError {
         keyword: &'static str,
         found: String,
     },
+    #[error("`{keyword}` expects a side, `LOW` or `HIGH`, found `{found}`")]
+    BadSide {
+        keyword: &'static str,
+        found: String,
+    },
     #[error("`{keyword}` takes {takes}, found extra `{found}`")]
     Extra {
         keyword: &'static str,
@@ -74,6 +99,11 @@ impl fmt::Display for Request {
             Request::Where => f.write_str("WHERE"),
             Request::Stop => f.write_str("STOP"),
             Request::Zero(s) => write!(f, "ZERO {s}"),
+            Request::Home {
+                side,
+                position,
+                speed,
+            } => write!(f, "HOME {side} {position} {speed}"),
         }
     }
 }
@@ -84,6 +114,9 @@ impl fmt::Display for Reply {
             Reply::Moving(s) => write!(f, "MOVING {s}"),
             Reply::At(s) => write!(f, "AT {s}"),
             Reply::Err(text) => write!(f, "ERR {}", sanitize_err_text(text)),
+            Reply::Homing => f.write_str("HOMING"),
+            Reply::Homed(s) => write!(f, "HOMED {s}"),
+            Reply::Limit { side, steps } => write!(f, "LIMIT {side} {steps}"),
         }
     }
 }
@@ -114,7 +147,7 @@ impl Request {
         let mut words = line.split_ascii_whitespace();
         let Some(keyword) = words.next() else {
             return Err(LineError::UnknownKeyword {
-                expected: "GOTO, WHERE, STOP, ZERO",
+                expected: "GOTO, WHERE, STOP, ZERO, HOME",
                 found: String::new(),
             });
         };
@@ -123,9 +156,26 @@ impl Request {
             "ZERO" => Request::Zero(number("ZERO", words.next())?),
             "WHERE" => Request::Where,
             "STOP" => Request::Stop,
+            "HOME" => {
+                let side = side("HOME", words.next())?;
+                let position = number("HOME", words.next())?;
+                let speed = number("HOME", words.next())?;
+                let speed = u32::try_from(speed)
+                    .ok()
+                    .filter(|s| *s > 0)
+                    .ok_or_else(|| LineError::BadNumber {
+                        keyword: "HOME",
+                        found: speed.to_string(),
+                    })?;
+                Request::Home {
+                    side,
+                    position,
+                    speed,
+                }
+            }
             other => {
                 return Err(LineError::UnknownKeyword {
-                    expected: "GOTO, WHERE, STOP, ZERO",
+                    expected: "GOTO, WHERE, STOP, ZERO, HOME",
                     found: clip(other),
                 })
             }
@@ -136,6 +186,7 @@ impl Request {
                 Request::Zero(_) => ("ZERO", "one number"),
                 Request::Where => ("WHERE", "no arguments"),
                 Request::Stop => ("STOP", "no arguments"),
+                Request::Home { .. } => ("HOME", "a side, a position and a speed"),
             };
             return Err(LineError::Extra {
                 keyword,
@@ -160,8 +211,33 @@ impl Reply {
         let (keyword, rest) = trimmed.split_once(' ').unwrap_or((trimmed, ""));
         match keyword {
             "ERR" => Ok(Reply::Err(rest.trim().to_string())),
-            "MOVING" | "AT" => {
-                let kw: &'static str = if keyword == "AT" { "AT" } else { "MOVING" };
+            "HOMING" => match rest.split_ascii_whitespace().next() {
+                None => Ok(Reply::Homing),
+                Some(extra) => Err(LineError::Extra {
+                    keyword: "HOMING",
+                    takes: "no arguments",
+                    found: clip(extra),
+                }),
+            },
+            "LIMIT" => {
+                let mut words = rest.split_ascii_whitespace();
+                let side = side("LIMIT", words.next())?;
+                let steps = number("LIMIT", words.next())?;
+                if let Some(extra) = words.next() {
+                    return Err(LineError::Extra {
+                        keyword: "LIMIT",
+                        takes: "a side and a number",
+                        found: clip(extra),
+                    });
+                }
+                Ok(Reply::Limit { side, steps })
+            }
+            "MOVING" | "AT" | "HOMED" => {
+                let kw: &'static str = match keyword {
+                    "AT" => "AT",
+                    "HOMED" => "HOMED",
+                    _ => "MOVING",
+                };
                 let mut words = rest.split_ascii_whitespace();
                 let n = number(kw, words.next())?;
                 if let Some(extra) = words.next() {
@@ -171,17 +247,33 @@ impl Reply {
                         found: clip(extra),
                     });
                 }
-                Ok(if kw == "AT" {
-                    Reply::At(n)
-                } else {
-                    Reply::Moving(n)
+                Ok(match kw {
+                    "AT" => Reply::At(n),
+                    "HOMED" => Reply::Homed(n),
+                    _ => Reply::Moving(n),
                 })
             }
             other => Err(LineError::UnknownKeyword {
-                expected: "MOVING, AT, ERR",
+                expected: "MOVING, AT, ERR, HOMING, HOMED, LIMIT",
                 found: clip(other),
             }),
         }
+    }
+}
+
+/// `LOW` or `HIGH`.
+fn side(keyword: &'static str, word: Option<&str>) -> Result<HomeSide, LineError> {
+    match word {
+        Some("LOW") => Ok(HomeSide::Low),
+        Some("HIGH") => Ok(HomeSide::High),
+        Some(other) => Err(LineError::BadSide {
+            keyword,
+            found: clip(other),
+        }),
+        None => Err(LineError::BadSide {
+            keyword,
+            found: String::new(),
+        }),
     }
 }
 
@@ -295,6 +387,16 @@ mod tests {
             Request::Stop,
             Request::Zero(0),
             Request::Zero(-999_999_999_999_999_999),
+            Request::Home {
+                side: HomeSide::Low,
+                position: 0,
+                speed: 200,
+            },
+            Request::Home {
+                side: HomeSide::High,
+                position: -40,
+                speed: 1,
+            },
         ] {
             let mut buf = BytesMut::new();
             r.encode(&mut buf);
@@ -311,6 +413,12 @@ mod tests {
             Reply::Moving(10),
             Reply::At(-3),
             Reply::Err("target 99999 outside limits 0..10000".into()),
+            Reply::Homing,
+            Reply::Homed(-12),
+            Reply::Limit {
+                side: HomeSide::High,
+                steps: 3001,
+            },
         ] {
             let mut buf = BytesMut::new();
             r.encode(&mut buf);
@@ -358,6 +466,32 @@ mod tests {
         assert!(Reply::parse("AT").is_err());
         assert!(Reply::parse("MOVING 1 2").is_err());
         assert!(Reply::parse("HELLO").is_err());
+    }
+
+    #[test]
+    fn home_lines_say_what_was_expected() {
+        let e = Request::parse("HOME UP 0 100").unwrap_err().to_string();
+        assert!(e.contains("LOW") && e.contains("UP"), "{e}");
+        let e = Request::parse("HOME LOW 0").unwrap_err();
+        assert_eq!(e, LineError::MissingNumber { keyword: "HOME" });
+        for bad in ["HOME LOW 0 0", "HOME LOW 0 -5", "HOME LOW 0 99999999999"] {
+            assert!(
+                matches!(Request::parse(bad), Err(LineError::BadNumber { .. })),
+                "{bad}"
+            );
+        }
+        assert!(Request::parse("HOME LOW 0 10 fast").is_err());
+        assert!(Reply::parse("HOMING now").is_err());
+        assert!(Reply::parse("HOMED").is_err());
+        assert!(Reply::parse("LIMIT 5").is_err());
+        assert!(Reply::parse("LIMIT LOW 5 6").is_err());
+        assert_eq!(
+            Reply::parse("LIMIT LOW -3"),
+            Ok(Reply::Limit {
+                side: HomeSide::Low,
+                steps: -3
+            })
+        );
     }
 
     #[test]

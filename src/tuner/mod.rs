@@ -9,7 +9,25 @@ pub mod ramp;
 pub mod server;
 pub mod sim;
 
+use std::fmt;
 use std::time::Duration;
+
+/// Which end of the travel a switch is at: `LOW` (the lower limit's side)
+/// or `HIGH`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum HomeSide {
+    Low,
+    High,
+}
+
+impl fmt::Display for HomeSide {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            HomeSide::Low => "LOW",
+            HomeSide::High => "HIGH",
+        })
+    }
+}
 
 /// What the service asks of the controller.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -18,6 +36,13 @@ pub enum TunerCommand {
     Where,
     Stop,
     Zero(i64),
+    /// Run toward the home switch on `side` at `speed` steps/s and call the
+    /// switch's position `position` (protocol version 2).
+    Home {
+        side: HomeSide,
+        position: i64,
+        speed: u32,
+    },
 }
 
 /// What the controller link reports.
@@ -37,6 +62,13 @@ pub enum TunerEvent {
     /// The rig started transmitting during a move and this layer sent
     /// `STOP`; an `At` with where the motor stopped follows.
     InterlockStop,
+    /// A `HOME` was accepted (`HOMING`): the motor runs toward the switch.
+    Homing,
+    /// The home switch closed: at rest, the count is now `steps` (`HOMED`).
+    Homed { steps: i64 },
+    /// An end-stop switch closed and the motor was stopped (`LIMIT`): the
+    /// count cannot be trusted.
+    Limit { side: HomeSide, steps: i64 },
 }
 
 /// Time to travel `distance` steps at `steps_per_second`, at most `cap`.

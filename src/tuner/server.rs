@@ -20,7 +20,7 @@ use tokio::net::TcpListener;
 use tokio::sync::watch;
 use tokio::time::Instant;
 
-use super::line::{LineFramer, Reply, Request};
+use super::line::{HomeSide, LineFramer, Reply, Request};
 use super::sim::{SimParams, SimTuner};
 use crate::error::{Located, Place};
 use crate::port::pty::PtyLink;
@@ -31,8 +31,44 @@ use crate::timing::sleep_until_opt;
 #[derive(Debug, Clone)]
 pub struct SimController {
     tuner: SimTuner,
-    /// The move under way: its target and when it will have settled.
-    moving: Option<(i64, Duration)>,
+    /// The move under way: how it ends and when it will have settled.
+    moving: Option<(Ending, Duration)>,
+    /// The simulated switches, as counts in the controller's present count
+    /// (they move with it on `ZERO` and `HOMED`: the switches stay where
+    /// they are on the mechanics, the count is what changes).
+    switches: Switches,
+}
+
+/// How the move under way ends.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Ending {
+    /// `AT target`.
+    Arrive(i64),
+    /// At the home switch: the count becomes `position`, `HOMED position`.
+    Homed { position: i64 },
+    /// Stopped by an end-stop switch: `LIMIT side count`.
+    Limit(HomeSide, i64),
+}
+
+/// Where the simulated switches close, in the controller's count.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Switches {
+    /// The home switch (`None`: this controller has none and answers `HOME`
+    /// with `ERR`, as a version 1 controller does).
+    pub home: Option<i64>,
+    /// The end-stop switches below and above the travel.
+    pub end_stops: Option<(i64, i64)>,
+}
+
+impl Switches {
+    fn shifted(self, by: i64) -> Switches {
+        Switches {
+            home: self.home.map(|h| h.saturating_add(by)),
+            end_stops: self
+                .end_stops
+                .map(|(lo, hi)| (lo.saturating_add(by), hi.saturating_add(by))),
+        }
+    }
 }
 
 impl SimController {
@@ -78,7 +114,40 @@ impl SimController {
         Ok(SimController {
             tuner: SimTuner::new(params, start),
             moving: None,
+            switches: Switches::default(),
         })
+    }
+
+    /// The same controller with simulated switches.
+    pub fn with_switches(mut self, switches: Switches) -> SimController {
+        self.switches = switches;
+        self
+    }
+
+    /// Where the switches are now, in the present count.
+    pub fn switches(&self) -> Switches {
+        self.switches
+    }
+
+    /// Redefines the count at rest: the switches keep their place.
+    fn recount(&mut self, now: Duration, steps: i64) {
+        let by = steps.saturating_sub(self.tuner.position_at(now));
+        self.switches = self.switches.shifted(by);
+        self.tuner = SimTuner::new(*self.tuner.params(), steps);
+    }
+
+    /// How a move from `from` to `target` ends: at the target, or at an
+    /// end stop on the way.
+    fn ending(&self, from: i64, target: i64) -> (i64, Ending) {
+        match self.switches.end_stops {
+            Some((lo, _)) if target < from && target <= lo => {
+                (lo, Ending::Limit(HomeSide::Low, lo))
+            }
+            Some((_, hi)) if target > from && target >= hi => {
+                (hi, Ending::Limit(HomeSide::High, hi))
+            }
+            _ => (target, Ending::Arrive(target)),
+        }
     }
 
     fn within(&self, steps: i64) -> bool {
@@ -99,14 +168,40 @@ impl SimController {
                 if !self.within(target) {
                     return Reply::Err(format!("target {target} outside limits {}", self.limits()));
                 }
-                let arrive = self.tuner.goto(now, target);
-                self.moving = Some((target, arrive));
+                let from = self.tuner.position_at(now);
+                let (to, ending) = self.ending(from, target);
+                let arrive = self.tuner.goto(now, to);
+                self.moving = Some((ending, arrive));
                 Reply::Moving(target)
             }
             Request::Where => match self.moving {
-                Some((target, _)) => Reply::Moving(target),
+                Some((Ending::Arrive(target), _)) => Reply::Moving(target),
+                Some((Ending::Homed { .. }, _)) => Reply::Homing,
+                Some((Ending::Limit(..), _)) => Reply::Moving(self.tuner.position_at(now)),
                 None => Reply::At(self.tuner.position_at(now)),
             },
+            Request::Home {
+                side,
+                position,
+                speed,
+            } => {
+                let Some(switch) = self.switches.home else {
+                    return Reply::Err("no home switch".to_string());
+                };
+                if !self.within(position) {
+                    return Reply::Err(format!(
+                        "home position {position} outside limits {}",
+                        self.limits()
+                    ));
+                }
+                // Toward the side named; a switch found closed already is
+                // left and found again (the simulator goes straight to it).
+                let _ = side;
+                self.tuner.stop(now);
+                let arrive = self.tuner.goto_at_speed(now, switch, f64::from(speed));
+                self.moving = Some((Ending::Homed { position }, arrive));
+                Reply::Homing
+            }
             Request::Stop => {
                 self.moving = None;
                 Reply::At(self.tuner.stop(now))
@@ -121,7 +216,7 @@ impl SimController {
                         self.limits()
                     ));
                 }
-                self.tuner = SimTuner::new(*self.tuner.params(), steps);
+                self.recount(now, steps);
                 Reply::At(steps)
             }
         }
@@ -130,9 +225,16 @@ impl SimController {
     /// The `AT` of a move that has settled by `now`, once.
     pub fn poll_arrival(&mut self, now: Duration) -> Option<Reply> {
         match self.moving {
-            Some((target, arrive)) if now >= arrive => {
+            Some((ending, arrive)) if now >= arrive => {
                 self.moving = None;
-                Some(Reply::At(target))
+                Some(match ending {
+                    Ending::Arrive(target) => Reply::At(target),
+                    Ending::Homed { position } => {
+                        self.recount(now, position);
+                        Reply::Homed(position)
+                    }
+                    Ending::Limit(side, steps) => Reply::Limit { side, steps },
+                })
             }
             _ => None,
         }
@@ -300,6 +402,10 @@ pub struct SimTunerOptions {
     pub max: i64,
     /// Where the motor is when the simulator starts.
     pub start: i64,
+    /// A simulated home switch at this count (as counted at start).
+    pub home_switch: Option<i64>,
+    /// Simulated end-stop switches at these counts (as counted at start).
+    pub end_stops: Option<(i64, i64)>,
 }
 
 /// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
@@ -318,10 +424,15 @@ pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), Located> {
             args.backlash.to_string(),
         ));
     }
-    let ctl = SimController::new(params, args.start).map_err(|e| Located {
-        at: Place::Named(format!("sim-tuner: {}", e.at)),
-        ..e
-    })?;
+    let ctl = SimController::new(params, args.start)
+        .map_err(|e| Located {
+            at: Place::Named(format!("sim-tuner: {}", e.at)),
+            ..e
+        })?
+        .with_switches(Switches {
+            home: args.home_switch,
+            end_stops: args.end_stops,
+        });
     let _ = tracing_subscriber::fmt()
         .with_writer(std::io::stderr)
         .try_init();
@@ -441,6 +552,75 @@ mod tests {
         // From 100 back to 50: 50 ms + 50 ms settle.
         assert_eq!(c.next_arrival(), Some(ms(200)));
         assert_eq!(c.poll_arrival(ms(200)), Some(Reply::At(50)));
+    }
+
+    #[test]
+    fn home_runs_slowly_to_the_switch_and_gives_it_the_hosts_count() {
+        let home = |position| Request::Home {
+            side: HomeSide::Low,
+            position,
+            speed: 100,
+        };
+        // Without a switch: ERR, as a version 1 controller answers.
+        let mut c = SimController::new(params(), 700).unwrap();
+        assert!(matches!(c.handle(ms(0), home(0)), Reply::Err(t) if t.contains("home")));
+        // The switch at count 200; the motor at 700 (its count is off by
+        // 200 from what the host gives the switch, 0).
+        let mut c = SimController::new(params(), 700)
+            .unwrap()
+            .with_switches(Switches {
+                home: Some(200),
+                end_stops: Some((150, 9000)),
+            });
+        assert_eq!(c.handle(ms(0), home(0)), Reply::Homing);
+        assert_eq!(c.handle(ms(1000), Request::Where), Reply::Homing);
+        // 500 steps at 100 steps/s (not 1000), plus 50 ms settle.
+        assert_eq!(c.next_arrival(), Some(ms(5050)));
+        assert_eq!(c.poll_arrival(ms(5050)), Some(Reply::Homed(0)));
+        assert_eq!(c.handle(ms(5100), Request::Where), Reply::At(0));
+        // The switches kept their place on the mechanics.
+        assert_eq!(
+            c.switches(),
+            Switches {
+                home: Some(0),
+                end_stops: Some((-50, 8800)),
+            }
+        );
+        assert!(matches!(c.handle(ms(0), home(20_000)), Reply::Err(_)));
+    }
+
+    #[test]
+    fn a_move_into_an_end_stop_stops_there_and_says_limit() {
+        let mut c = SimController::new(params(), 1000)
+            .unwrap()
+            .with_switches(Switches {
+                home: None,
+                end_stops: Some((100, 2000)),
+            });
+        assert_eq!(c.handle(ms(0), Request::Goto(3000)), Reply::Moving(3000));
+        // 1000 steps to the stop at 1000 steps/s, plus settle.
+        assert_eq!(
+            c.poll_arrival(ms(1050)),
+            Some(Reply::Limit {
+                side: HomeSide::High,
+                steps: 2000
+            })
+        );
+        assert_eq!(c.handle(ms(1100), Request::Where), Reply::At(2000));
+        // A ZERO that misplaces the count moves the stops with it.
+        assert_eq!(c.handle(ms(1100), Request::Zero(1500)), Reply::At(1500));
+        c.handle(ms(1100), Request::Goto(0));
+        assert_eq!(c.poll_arrival(ms(60_000)), Some(Reply::At(0)));
+        // The high stop is now at count 1500: a GOTO 1800 inside the
+        // limits runs into it.
+        c.handle(ms(60_000), Request::Goto(1800));
+        assert_eq!(
+            c.poll_arrival(ms(120_000)),
+            Some(Reply::Limit {
+                side: HomeSide::High,
+                steps: 1500
+            })
+        );
     }
 
     #[test]

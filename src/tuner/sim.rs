@@ -76,6 +76,32 @@ impl SimTuner {
         end + Duration::from_millis(self.params.settle_ms)
     }
 
+    /// Starts a move to `target` at `speed` steps/s (at most the configured
+    /// speed; homing runs slowly) and returns when it will have settled.
+    pub fn goto_at_speed(&mut self, now: Duration, target: i64, speed: f64) -> Duration {
+        let speed = if speed.is_finite() && speed > 0.0 {
+            speed.min(self.params.steps_per_second)
+        } else {
+            self.params.steps_per_second
+        };
+        let from = self.position_at(now);
+        let to = target.clamp(self.params.min_steps, self.params.max_steps);
+        let distance = from.abs_diff(to);
+        let end = now + super::travel_time(distance, speed, Duration::MAX);
+        if to != from {
+            self.last_dir = (to - from).signum();
+        }
+        self.travelled += distance;
+        self.rest = from;
+        self.leg = Some(Motion {
+            from,
+            to,
+            start: now,
+            end,
+        });
+        end + Duration::from_millis(self.params.settle_ms)
+    }
+
     /// Stops at once; returns where the motor stopped.
     pub fn stop(&mut self, now: Duration) -> i64 {
         let here = self.position_at(now);
