@@ -586,6 +586,11 @@ fn log(note: Note) {
             %why,
             "homing given up: position unknown; nothing will move. Run `tuneward set-position STEPS`, then restart"
         ),
+        Note::CountChanged { known, controller } => error!(
+            known,
+            controller,
+            "position unknown: the controller reports another count at rest, unasked (restarted, or steps lost?); nothing will move until it is homed or the position is known"
+        ),
         Note::LimitHit { side, steps } => error!(
             side = %side,
             steps,

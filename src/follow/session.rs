@@ -174,6 +174,12 @@ pub enum Note {
     HomeGivenUp {
         why: String,
     },
+    /// An `AT` nobody asked for, at rest, differing from the known
+    /// position: the count changed behind the session's back.
+    CountChanged {
+        known: i64,
+        controller: i64,
+    },
     /// An end-stop switch stopped the motor: the count is not trusted.
     LimitHit {
         side: HomeSide,
@@ -1209,6 +1215,22 @@ impl Session {
                     self.check_unfinished(now, steps);
                 }
                 Resync::Blocked => self.st.note(Note::Untrusted { steps }),
+                Resync::Idle
+                    if !self.core.is_moving()
+                        && self.core.position().is_some_and(|p| p != steps) =>
+                {
+                    // Nothing was asked and nothing moves, yet the count
+                    // changed: a restart or lost steps. Neither the count
+                    // nor the old position is taken; the journal keeps the
+                    // last confirmed one.
+                    let known = self.core.position().unwrap_or(steps);
+                    self.st.note(Note::CountChanged {
+                        known,
+                        controller: steps,
+                    });
+                    self.fault(now, false);
+                    self.position_lost();
+                }
                 Resync::Idle => {
                     let was_moving = self.core.is_moving();
                     self.core.handle_arrived(now, steps);
@@ -1487,6 +1509,8 @@ impl Session {
     fn waited(&mut self, now: Duration, at: Option<i64>) {
         match (self.st.phase, at) {
             (Phase::StopWait { .. }, Some(steps)) => {
+                // The motor came to rest now: the tail counts from here.
+                self.st.last_arrival = Some(now);
                 self.core.handle_arrived(now, steps);
                 self.record_position(steps);
                 self.st.phase = Phase::AfterMove;
@@ -1499,6 +1523,8 @@ impl Session {
                 self.st.phase = Phase::AfterMove;
             }
             (Phase::RelaxMoving { .. } | Phase::RelaxStopWait { .. }, Some(steps)) => {
+                // The relaxing move is a move: its tail is honoured too.
+                self.st.last_arrival = Some(now);
                 self.core.handle_arrived(now, steps);
                 self.record_position(steps);
                 self.st.phase = Phase::Closing;

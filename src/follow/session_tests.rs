@@ -325,6 +325,10 @@ fn shutdown_mid_move_waits_for_the_leg_then_stops_and_records() {
     // A frequency now is not acted on.
     b.frequency(7_200_000);
     b.tuner(TunerEvent::At { steps: 321 });
+    // The tail after the motor came to rest is honoured before the release.
+    assert!(!b.s.is_finished());
+    assert_eq!(b.levels.last(), Some(&true));
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     assert_eq!(b.journal, Some(Recorded::Known(321)));
     assert_eq!(b.levels.last(), Some(&false));
@@ -371,6 +375,10 @@ fn relax_on_exit_backs_off_half_the_backlash_under_the_inhibit() {
     );
     assert_eq!(b.gotos(), vec![1000, 980]);
     b.tuner(TunerEvent::At { steps: 980 });
+    // The tail after the motor came to rest is honoured before the release.
+    assert!(!b.s.is_finished());
+    assert_eq!(b.levels.last(), Some(&true));
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     assert_eq!(b.journal, Some(Recorded::Known(980)));
     assert_eq!(b.levels.last(), Some(&false));
@@ -652,6 +660,10 @@ fn relax_on_exit_backs_off_half_the_backlash_toward_the_approach_side() {
     // The approach was upward: half the backlash (20) back down.
     assert_eq!(b.gotos(), vec![1000, 980]);
     b.tuner(TunerEvent::At { steps: 980 });
+    // The tail after the motor came to rest is honoured before the release.
+    assert!(!b.s.is_finished());
+    assert_eq!(b.levels.last(), Some(&true));
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     assert_eq!(b.s.outcome().position, Some(980));
     assert_eq!(b.journal, Some(Recorded::Known(980)));
@@ -703,6 +715,10 @@ fn shutdown_stops_a_move_that_does_not_end_in_time() {
         vec![TunerCommand::Goto(1000), TunerCommand::Stop]
     );
     b.tuner(TunerEvent::At { steps: 321 });
+    // The tail after the motor came to rest is honoured before the release.
+    assert!(!b.s.is_finished());
+    assert_eq!(b.levels.last(), Some(&true));
+    b.wait(TAIL);
     assert!(b.s.is_finished());
     assert_eq!(b.s.outcome().position, Some(321));
     assert_eq!(b.journal, Some(Recorded::Known(321)));
@@ -1322,4 +1338,26 @@ fn shutdown_while_homing_keeps_the_inhibit_and_says_unconfirmed() {
     assert_eq!(b.journal, Some(Recorded::Lost));
     assert!(b.levels.iter().all(|on| *on), "{:?}", b.levels);
     assert!(b.s.outcome().unconfirmed);
+}
+
+#[test]
+fn an_unasked_at_with_another_count_at_rest_is_not_taken() {
+    // Without a switch: nothing moves, the journal keeps the last
+    // confirmed position.
+    let mut b = Bench::linked(Some(Recorded::Known(1500)), 1500);
+    b.tuner(TunerEvent::At { steps: 0 });
+    assert_eq!(b.s.core().position(), None);
+    assert_eq!(b.journal, Some(Recorded::Known(1500)));
+    b.frequency(7_100_000);
+    b.wait(ms(400));
+    assert!(b.gotos().is_empty(), "{:?}", b.commands);
+    // The same count again is no news.
+    let mut b = Bench::linked(Some(Recorded::Known(1500)), 1500);
+    b.tuner(TunerEvent::At { steps: 1500 });
+    assert_eq!(b.s.core().position(), Some(1500));
+    // With a switch: homed.
+    let mut b = homed_bench(Some(Recorded::Known(1500)), 1500);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(20));
+    assert_eq!(b.commands.last(), Some(&home_command()));
 }

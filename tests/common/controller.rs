@@ -73,8 +73,12 @@ struct Motor {
     home_switch: Option<i64>,
     homing_speed: f64,
     noise: fastrand::Rng,
-    /// Lines to send, with when they are due.
-    outbox: VecDeque<(Instant, Vec<u8>)>,
+    /// Lines to send, with the connection they are for and when due: a
+    /// line written while no host is connected is lost, as on a real
+    /// link, and never reaches the next connection.
+    outbox: VecDeque<(u64, Instant, Vec<u8>)>,
+    /// The connection now being served.
+    generation: u64,
 }
 
 impl Motor {
@@ -135,11 +139,11 @@ impl Motor {
                 }
                 _ => b"BEEP 12\n".to_vec(),
             };
-            self.outbox.push_back((due, noise));
+            self.outbox.push_back((self.generation, due, noise));
         }
         let mut bytes = line.into_bytes();
         bytes.push(b'\n');
-        self.outbox.push_back((due, bytes));
+        self.outbox.push_back((self.generation, due, bytes));
     }
 
     fn answer(&mut self, line: &str) {
@@ -256,6 +260,7 @@ impl FaultyController {
             homing_speed: steps_per_second,
             noise: fastrand::Rng::with_seed(seed),
             outbox: VecDeque::new(),
+            generation: 0,
         }));
         let stop = Arc::new(AtomicBool::new(false));
         let generation = Arc::new(AtomicU64::new(0));
@@ -272,6 +277,11 @@ impl FaultyController {
                     }
                     let Ok(conn) = conn else { continue };
                     let mine = generation.fetch_add(1, Ordering::SeqCst) + 1;
+                    {
+                        let mut m = motor.lock().unwrap();
+                        m.generation = mine;
+                        m.outbox.clear();
+                    }
                     let (motor, stop, generation) = (
                         Arc::clone(&motor),
                         Arc::clone(&stop),
@@ -348,8 +358,11 @@ impl FaultyController {
     /// Drops the host's connection (a cable pulled): the motor moves on to
     /// the end of its move; lines not yet sent are lost.
     pub fn disconnect(&self) {
-        self.generation.fetch_add(1, Ordering::SeqCst);
-        self.motor.lock().unwrap().outbox.clear();
+        let gone = self.generation.fetch_add(1, Ordering::SeqCst) + 1;
+        let mut m = self.motor.lock().unwrap();
+        // No one is connected until the host comes back.
+        m.generation = gone;
+        m.outbox.clear();
     }
 
     /// A power cycle: the motor stops where it is and counts from `count`
@@ -413,9 +426,11 @@ fn serve(conn: TcpStream, motor: &Mutex<Motor>, stop: &AtomicBool, current: impl
             m.update();
             let now = Instant::now();
             let mut ready = Vec::new();
-            while m.outbox.front().is_some_and(|(t, _)| *t <= now) {
-                if let Some((_, bytes)) = m.outbox.pop_front() {
-                    ready.push(bytes);
+            while m.outbox.front().is_some_and(|(_, t, _)| *t <= now) {
+                if let Some((g, _, bytes)) = m.outbox.pop_front() {
+                    if g == m.generation {
+                        ready.push(bytes);
+                    }
                 }
             }
             ready
