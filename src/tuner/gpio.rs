@@ -33,6 +33,50 @@ pub trait StepDirPins: Send {
     fn set_step(&mut self, high: bool) -> io::Result<()>;
 }
 
+/// The switch inputs of a directly driven stepper (a home switch, end-stop
+/// switches), read before every step. A trait, so tests drive them from
+/// the motor's simulated position.
+pub trait SwitchInputs: Send {
+    /// The raw levels now (`true`: closed), before debouncing.
+    fn read(&mut self) -> io::Result<SwitchLevels>;
+}
+
+/// Raw switch levels.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct SwitchLevels {
+    pub home: bool,
+    pub low_stop: bool,
+    pub high_stop: bool,
+}
+
+/// A switch counts as closed only after this many readings in a row say
+/// so (one reading per step): contact bounce and a noisy line do not stop
+/// or home the motor, and a closed switch is acted on within as many
+/// steps. Common practice, no source.
+pub const SWITCH_DEBOUNCE_READS: u32 = 3;
+
+/// Consecutive-reading debounce of the three switches.
+#[derive(Debug, Clone, Copy, Default)]
+struct Debounced {
+    runs: [u32; 3],
+}
+
+impl Debounced {
+    /// Takes a reading; the debounced levels.
+    fn take(&mut self, raw: SwitchLevels) -> SwitchLevels {
+        let levels = [raw.home, raw.low_stop, raw.high_stop];
+        for (run, closed) in self.runs.iter_mut().zip(levels) {
+            *run = if closed { run.saturating_add(1) } else { 0 };
+        }
+        let closed = |i: usize| self.runs[i] >= SWITCH_DEBOUNCE_READS;
+        SwitchLevels {
+            home: closed(0),
+            low_stop: closed(1),
+            high_stop: closed(2),
+        }
+    }
+}
+
 /// Waiting, so tests can run on virtual time.
 pub trait Pause: Send {
     fn pause(&mut self, d: Duration);
@@ -73,6 +117,21 @@ pub enum DriveError {
     OutsideLimits { target: i64, min: i64, max: i64 },
     #[error("step pulse {pulse:?} does not fit the shortest step period {period:?} at the maximum speed")]
     PulseTooLong { pulse: Duration, period: Duration },
+    #[error("end-stop switch at the {side} end closed at count {position}; the motor was stopped")]
+    EndStop {
+        side: super::HomeSide,
+        position: i64,
+    },
+    #[error(
+        "home switch not found within {steps} steps toward the {side} end (position {position})"
+    )]
+    HomeNotFound {
+        side: super::HomeSide,
+        steps: u64,
+        position: i64,
+    },
+    #[error("no home switch is wired to this drive")]
+    NoHomeSwitch,
     #[error("pin error after {done} steps (position {position}): {source}")]
     Pins {
         done: u64,
@@ -92,6 +151,11 @@ pub struct StepDirDriver<P: StepDirPins, C: Pause> {
     min: i64,
     max: i64,
     dir: Option<bool>,
+    /// The switch inputs, if any are wired.
+    switches: Option<Box<dyn SwitchInputs>>,
+    /// Whether a home switch is among them.
+    has_home: bool,
+    debounce: Debounced,
 }
 
 impl<P: StepDirPins, C: Pause> StepDirDriver<P, C> {
@@ -120,7 +184,136 @@ impl<P: StepDirPins, C: Pause> StepDirDriver<P, C> {
             min: limits.0,
             max: limits.1,
             dir: None,
+            switches: None,
+            has_home: false,
+            debounce: Debounced::default(),
         })
+    }
+
+    /// The same driver with switch inputs (`has_home`: a home switch is
+    /// among them).
+    pub fn with_switches(mut self, switches: Box<dyn SwitchInputs>, has_home: bool) -> Self {
+        self.switches = Some(switches);
+        self.has_home = has_home;
+        self
+    }
+
+    /// A home switch is wired.
+    pub fn has_home(&self) -> bool {
+        self.has_home
+    }
+
+    /// The debounced switches now (all open without inputs).
+    fn switches(&mut self, done: u64) -> Result<SwitchLevels, DriveError> {
+        let Some(sw) = self.switches.as_mut() else {
+            return Ok(SwitchLevels::default());
+        };
+        let raw = sw.read().map_err(|source| DriveError::Pins {
+            done,
+            position: self.position,
+            source,
+        })?;
+        Ok(self.debounce.take(raw))
+    }
+
+    /// The end stop in the direction of travel has closed: stop at once
+    /// (no deceleration: the mechanics are at their end).
+    fn end_stop(&mut self, up: bool, done: u64) -> Result<(), DriveError> {
+        let sw = self.switches(done)?;
+        self.end_stop_in(sw, up)
+    }
+
+    /// `Err` when the end stop toward which `up` runs is closed in `sw`.
+    fn end_stop_in(&self, sw: SwitchLevels, up: bool) -> Result<(), DriveError> {
+        let (closed, side) = if up {
+            (sw.high_stop, super::HomeSide::High)
+        } else {
+            (sw.low_stop, super::HomeSide::Low)
+        };
+        if closed {
+            return Err(DriveError::EndStop {
+                side,
+                position: self.position,
+            });
+        }
+        Ok(())
+    }
+
+    fn set_direction(&mut self, up: bool) -> Result<(), DriveError> {
+        if self.dir != Some(up) {
+            self.pins.set_dir(up).map_err(|source| DriveError::Pins {
+                done: 0,
+                position: self.position,
+                source,
+            })?;
+            self.dir = Some(up);
+        }
+        self.clock.pause(self.timing.dir_setup);
+        Ok(())
+    }
+
+    /// One step pulse (after `wait`) in direction `up`.
+    fn step(&mut self, up: bool, wait: Duration, done: u64) -> Result<(), DriveError> {
+        let pin_err = |done, position, source| DriveError::Pins {
+            done,
+            position,
+            source,
+        };
+        self.clock.pause(wait);
+        self.pins
+            .set_step(true)
+            .map_err(|e| pin_err(done, self.position, e))?;
+        self.position += if up { 1 } else { -1 };
+        self.clock.pause(self.timing.step_pulse);
+        self.pins
+            .set_step(false)
+            .map_err(|e| pin_err(done + 1, self.position, e))
+    }
+
+    /// Runs toward `side` at a constant `speed` (steps/s, at most the
+    /// cruise speed) until the home switch reads closed (debounced), then
+    /// calls that position `position`. The end stops still stop it; the
+    /// run gives up after twice the travel. Blocking; `stop` ends it early
+    /// (an error: not homed).
+    pub fn home(
+        &mut self,
+        side: super::HomeSide,
+        position: i64,
+        speed: f64,
+        stop: &AtomicBool,
+    ) -> Result<i64, DriveError> {
+        if !self.has_home {
+            return Err(DriveError::NoHomeSwitch);
+        }
+        let up = side == super::HomeSide::High;
+        let cruise = 1.0 / self.profile.cruise_delay();
+        let speed = if speed.is_finite() && speed > 0.0 {
+            speed.min(cruise)
+        } else {
+            cruise
+        };
+        let period = Duration::try_from_secs_f64(1.0 / speed).unwrap_or(Duration::MAX);
+        let bound = self.min.abs_diff(self.max).saturating_mul(2).max(1);
+        self.debounce = Debounced::default();
+        self.set_direction(up)?;
+        let mut done = 0u64;
+        loop {
+            let sw = self.switches(done)?;
+            if sw.home {
+                self.zero(position);
+                return Ok(position);
+            }
+            self.end_stop_in(sw, up)?;
+            if done >= bound || stop.load(Ordering::Relaxed) {
+                return Err(DriveError::HomeNotFound {
+                    side,
+                    steps: done,
+                    position: self.position,
+                });
+            }
+            self.step(up, period.saturating_sub(self.timing.step_pulse), done)?;
+            done += 1;
+        }
     }
 
     /// Where the step count says the motor is.
@@ -178,6 +371,9 @@ impl<P: StepDirPins, C: Pause> StepDirDriver<P, C> {
             } else {
                 delay.saturating_sub(self.timing.step_pulse)
             };
+            // The lowest layer: an end stop stops the motor whatever
+            // asked for the move.
+            self.end_stop(up, done)?;
             self.clock.pause(wait);
             self.pins
                 .set_step(true)
@@ -256,6 +452,11 @@ impl StepDirPins for GpioPins {
 enum Job {
     Move(i64),
     Zero(i64),
+    Home {
+        side: super::HomeSide,
+        position: i64,
+        speed: u32,
+    },
 }
 
 /// What the driver thread reports back.
@@ -265,6 +466,13 @@ enum Done {
     Moved(i64),
     /// A move failed part way; the position is the step count at failure.
     Failed { position: i64, text: String },
+    /// An end stop closed and stopped the motor here (`LIMIT`).
+    EndStop {
+        side: super::HomeSide,
+        position: i64,
+    },
+    /// The home switch closed; the count is now this (`HOMED`).
+    Homed(i64),
 }
 
 /// A step/direction driver served through the line protocol, so that the
@@ -290,6 +498,7 @@ impl DirectController {
         let stop = std::sync::Arc::new(AtomicBool::new(false));
         let position = driver.position();
         let (min, max) = (driver.min, driver.max);
+        let has_home = driver.has_home();
         let thread_stop = stop.clone();
         std::thread::spawn(move || {
             let mut driver = driver;
@@ -299,6 +508,29 @@ impl DirectController {
                     Job::Move(t) => {
                         let done = match driver.move_to(t, &thread_stop) {
                             Ok(p) => Done::Moved(p),
+                            Err(DriveError::EndStop { side, position }) => {
+                                Done::EndStop { side, position }
+                            }
+                            Err(e) => Done::Failed {
+                                position: driver.position(),
+                                text: e.to_string(),
+                            },
+                        };
+                        if done_tx.send(done).is_err() {
+                            return;
+                        }
+                    }
+                    Job::Home {
+                        side,
+                        position,
+                        speed,
+                    } => {
+                        let done = match driver.home(side, position, f64::from(speed), &thread_stop)
+                        {
+                            Ok(p) => Done::Homed(p),
+                            Err(DriveError::EndStop { side, position }) => {
+                                Done::EndStop { side, position }
+                            }
                             Err(e) => Done::Failed {
                                 position: driver.position(),
                                 text: e.to_string(),
@@ -323,6 +555,8 @@ impl DirectController {
             next_target: None,
             answer_stop: false,
             settle_until: None,
+            has_home,
+            homing: false,
         };
         tokio::spawn(task.serve(conn_rx));
         DirectController { conns: conn_tx }
@@ -356,6 +590,10 @@ struct DirectTask {
     answer_stop: bool,
     /// The move has ended; `AT` is due at this instant.
     settle_until: Option<tokio::time::Instant>,
+    /// A home switch is wired.
+    has_home: bool,
+    /// A homing run is under way (`HOMED` or `LIMIT` ends it).
+    homing: bool,
 }
 
 impl DirectTask {
@@ -416,12 +654,31 @@ impl DirectTask {
                             self.settle_until = Some(tokio::time::Instant::now() + self.settle);
                         }
                     }
-                    Some(Done::Failed { position, text }) => {
+                    Some(Done::EndStop { side, position }) => {
                         self.position = position;
                         self.moving = None;
                         self.next_target = None;
                         self.answer_stop = false;
-                        Reply::Err(text).encode(&mut out);
+                        self.homing = false;
+                        Reply::Limit { side, steps: position }.encode(&mut out);
+                    }
+                    Some(Done::Homed(p)) => {
+                        self.position = p;
+                        self.moving = None;
+                        self.homing = false;
+                        Reply::Homed(p).encode(&mut out);
+                    }
+                    Some(Done::Failed { position, text }) => {
+                        self.homing = false;
+                        self.position = position;
+                        self.moving = None;
+                        self.next_target = None;
+                        if std::mem::take(&mut self.answer_stop) {
+                            // A STOP ended a homing run: it is at rest here.
+                            Reply::At(position).encode(&mut out);
+                        } else {
+                            Reply::Err(text).encode(&mut out);
+                        }
                     }
                 },
                 _ = async {
@@ -475,6 +732,7 @@ impl DirectTask {
                 Some(Reply::Moving(t))
             }
             Request::Where => Some(match self.moving {
+                Some(_) if self.homing => Reply::Homing,
                 Some(t) => Reply::Moving(t),
                 None => Reply::At(self.position),
             }),
@@ -490,7 +748,38 @@ impl DirectTask {
                     Some(Reply::At(self.position))
                 }
             }
-            Request::Home { .. } => Some(Reply::Err("no home switch".to_string())),
+            Request::Home { .. } if !self.has_home => {
+                Some(Reply::Err("no home switch".to_string()))
+            }
+            Request::Home { .. } if busy => {
+                Some(Reply::Err("busy: HOME refused while moving".to_string()))
+            }
+            Request::Home { position, .. } if !(self.min..=self.max).contains(&position) => Some(
+                Reply::Err(format!("home position {position} outside limits {limits}")),
+            ),
+            Request::Home {
+                side,
+                position,
+                speed,
+            } => {
+                self.stop.store(false, Ordering::Relaxed);
+                self.settle_until = None;
+                self.homing = true;
+                // Reported as moving (to an unknown place) until HOMED.
+                self.moving = Some(position);
+                if self
+                    .jobs
+                    .send(Job::Home {
+                        side,
+                        position,
+                        speed,
+                    })
+                    .is_err()
+                {
+                    return Some(Reply::Err("direct drive thread has ended".to_string()));
+                }
+                Some(Reply::Homing)
+            }
             Request::Zero(_) if busy => {
                 Some(Reply::Err("busy: ZERO refused while moving".to_string()))
             }
@@ -705,6 +994,103 @@ mod tests {
         }
     }
 
+    /// Switch levels by read number: each switch closes from its read on
+    /// (`None`: never); `bounce` reads before that it flickers closed once.
+    #[derive(Clone)]
+    struct Switchboard {
+        reads: Arc<Mutex<u32>>,
+        home_from: Option<u32>,
+        high_from: Option<u32>,
+        bounce: Option<u32>,
+    }
+
+    impl SwitchInputs for Switchboard {
+        fn read(&mut self) -> io::Result<SwitchLevels> {
+            let mut n = self.reads.lock().unwrap();
+            *n += 1;
+            let at = |from: Option<u32>| {
+                from.is_some_and(|f| *n >= f || self.bounce.is_some_and(|b| *n + b == f))
+            };
+            Ok(SwitchLevels {
+                home: at(self.home_from),
+                low_stop: false,
+                high_stop: at(self.high_from),
+            })
+        }
+    }
+
+    #[test]
+    fn an_end_stop_stops_the_motor_in_the_lowest_layer_after_debouncing() {
+        let bench = Bench::default();
+        let board = Switchboard {
+            reads: Arc::default(),
+            home_from: None,
+            high_from: Some(40),
+            // A single closed reading 10 reads earlier: contact bounce.
+            bounce: Some(10),
+        };
+        let mut d = driver(&bench, 0).with_switches(Box::new(board.clone()), false);
+        let never = AtomicBool::new(false);
+        match d.move_to(5000, &never) {
+            Err(DriveError::EndStop { side, position }) => {
+                assert_eq!(side, super::super::HomeSide::High);
+                // Closed from the 40th read (before the 40th step): three
+                // reads in a row stop it before the 42nd step.
+                assert_eq!(position, 41);
+            }
+            other => panic!("expected an end stop, got {other:?}"),
+        }
+        assert_eq!(rising(&bench.edges.lock().unwrap()).len(), 41);
+        // Downward, away from the high stop, it moves.
+        assert_eq!(d.move_to(0, &never).unwrap(), 0);
+    }
+
+    #[test]
+    fn homing_runs_slowly_to_the_switch_and_takes_its_count() {
+        let bench = Bench::default();
+        let board = Switchboard {
+            reads: Arc::default(),
+            home_from: Some(101),
+            high_from: None,
+            bounce: None,
+        };
+        let mut d = driver(&bench, 7000).with_switches(Box::new(board), true);
+        let never = AtomicBool::new(false);
+        let side = super::super::HomeSide::Low;
+        assert_eq!(d.home(side, 0, 200.0, &never).unwrap(), 0);
+        assert_eq!(d.position(), 0);
+        let edges = bench.edges.lock().unwrap().clone();
+        assert_eq!(edges[0].1, Edge::Dir(false));
+        let rise = rising(&edges);
+        // Closed from read 101: reads 101..103, two more steps after 100.
+        assert_eq!(rise.len(), 102);
+        // At 200 steps/s: 5 ms from rising edge to rising edge.
+        for w in rise.windows(2) {
+            assert_eq!(w[1] - w[0], Duration::from_millis(5));
+        }
+        // Without a switch: refused, nothing moves.
+        let bench = Bench::default();
+        let mut d = driver(&bench, 10);
+        assert!(matches!(
+            d.home(side, 0, 200.0, &never),
+            Err(DriveError::NoHomeSwitch)
+        ));
+        assert!(bench.edges.lock().unwrap().is_empty());
+        // A switch that never closes: given up after twice the travel.
+        let bench = Bench::default();
+        let board = Switchboard {
+            reads: Arc::default(),
+            home_from: None,
+            high_from: None,
+            bounce: None,
+        };
+        let mut d = driver(&bench, 10).with_switches(Box::new(board), true);
+        assert!(matches!(
+            d.home(side, 0, 4000.0, &never),
+            Err(DriveError::HomeNotFound { steps: 20_000, .. })
+        ));
+    }
+
     #[test]
     fn a_pulse_too_long_for_the_speed_is_refused() {
         let bench = Bench::default();
@@ -754,6 +1140,39 @@ mod tests {
             )
             .unwrap();
             DirectController::start(d, Duration::from_millis(20))
+        }
+
+        #[tokio::test]
+        async fn home_and_end_stops_speak_the_protocol() {
+            let bench = Bench::default();
+            // A version 1 answer without a switch.
+            let ctl = DirectController::start(driver(&bench, 100), Duration::from_millis(5));
+            let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert!(h.ask("HOME LOW 0 500").await.starts_with("ERR "));
+            let board = Switchboard {
+                reads: Arc::default(),
+                home_from: Some(51),
+                high_from: None,
+                bounce: None,
+            };
+            let d = driver(&bench, 300).with_switches(Box::new(board), true);
+            let ctl = DirectController::start(d, Duration::from_millis(5));
+            let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert_eq!(h.ask("HOME LOW 0 4000").await, "HOMING");
+            assert_eq!(h.hear().await, "HOMED 0");
+            assert_eq!(h.ask("WHERE").await, "AT 0");
+            let board = Switchboard {
+                reads: Arc::default(),
+                home_from: None,
+                high_from: Some(20),
+                bounce: None,
+            };
+            let d = driver(&bench, 0).with_switches(Box::new(board), false);
+            let ctl = DirectController::start(d, Duration::from_millis(5));
+            let mut h = Host(BufReader::new(ctl.connect().await.unwrap()));
+            assert_eq!(h.ask("GOTO 900").await, "MOVING 900");
+            assert_eq!(h.hear().await, "LIMIT HIGH 21");
+            assert_eq!(h.ask("WHERE").await, "AT 21");
         }
 
         #[tokio::test]
