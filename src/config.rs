@@ -51,6 +51,9 @@ pub struct Config {
     /// State and commands on an MQTT broker (off unless configured).
     #[serde(default)]
     pub mqtt: Option<MqttConfig>,
+    /// The live web page (off unless `listen` is given).
+    #[serde(default)]
+    pub web: WebConfig,
     /// Where the config was read from; relative paths inside it are resolved
     /// against this file's folder.
     #[serde(skip)]
@@ -536,6 +539,21 @@ pub struct MqttBroker {
     pub port: u16,
 }
 
+/// `[web]`: the live web page (see README, "The web page").
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct WebConfig {
+    /// Serve the page here, e.g. "127.0.0.1:7720". Off when absent. Beyond
+    /// loopback every request needs the station's token (made on first
+    /// use, beside the journal with `.token`, mode 0600).
+    #[serde(default)]
+    pub listen: Option<String>,
+    /// Other names the page is reached by (`Host` without the port, e.g.
+    /// "shack.local"); requests naming any other host are refused.
+    #[serde(default)]
+    pub host_names: Vec<String>,
+}
+
 /// One measured calibration point: at `hz` the loop was resonant at `steps`.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -956,6 +974,7 @@ impl Config {
         self.validate_presets()?;
         self.control_listen()?;
         self.mqtt_broker()?;
+        self.web_listen()?;
         Ok(())
     }
 
@@ -1196,6 +1215,21 @@ impl Config {
             topic,
             client_id,
         )))
+    }
+
+    /// `[web] listen`, parsed (any address; beyond loopback the page
+    /// requires the token).
+    pub fn web_listen(&self) -> Result<Option<std::net::SocketAddr>, ConfigError> {
+        let Some(text) = &self.web.listen else {
+            return Ok(None);
+        };
+        text.parse::<std::net::SocketAddr>().map(Some).map_err(|_| {
+            self.invalid(
+                "web.listen",
+                "an address and port such as \"127.0.0.1:7720\"",
+                format!("\"{text}\""),
+            )
+        })
     }
 
     /// `[rig]`: the mode and the keys that go with it.

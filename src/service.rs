@@ -143,9 +143,13 @@ pub struct ControlSetup {
     pub socket: PathBuf,
     /// Also TCP here (loopback only).
     pub listen: Option<std::net::SocketAddr>,
+    /// The live web page (`[web]`), if configured.
+    pub web: Option<crate::control::web::WebSetup>,
     pub reload: Option<Reloader>,
     /// The MQTT front end (`[mqtt]`), if configured.
     pub mqtt: Option<crate::control::mqtt::MqttSettings>,
+    /// Told the page's address once it listens (`demo --live` prints it).
+    pub on_web_ready: Option<Box<dyn FnOnce(std::net::SocketAddr) + Send>>,
 }
 
 /// Runs the live service from its parts (the station layer assembles them:
@@ -189,6 +193,21 @@ pub fn run_until_signal(
             );
             crate::control::mqtt::spawn(settings, link.clone(), fronts.clone())
         });
+        let web = match control.web {
+            Some(setup) => {
+                let (bound, task) = crate::control::web::serve(setup, link.clone(), fronts.clone())
+                    .await
+                    .map_err(|e| {
+                        Located::named("the web page", "an address to listen on", e.to_string())
+                    })?;
+                tracing::info!(url = %format!("http://{bound}/"), "web page ready");
+                if let Some(tell) = control.on_web_ready {
+                    tell(bound);
+                }
+                Some(task)
+            }
+            None => None,
+        };
         drop(link);
         let operator = Operator {
             port,
@@ -197,7 +216,7 @@ pub fn run_until_signal(
         let result = run_with_operator(service, Some(operator), signals::stop_flag()).await;
         fronts_stop.trigger();
         let _ = tokio::time::timeout(TASK_END_WAIT, unix).await;
-        if let Some(t) = tcp {
+        for t in [tcp, web].into_iter().flatten() {
             let _ = tokio::time::timeout(TASK_END_WAIT, t).await;
         }
         if let Some(t) = mqtt {
@@ -305,10 +324,11 @@ pub async fn run_with_operator(
         commands: client.commands,
         transmit: transmit_tx,
         origin: Instant::now(),
+        recent: std::collections::VecDeque::new(),
     };
     let mut tuner = client.events;
     io.carry_out(&mut session).await;
-    publish(&state, &session);
+    publish(&state, &session, &io.recent);
     let (mut rig_open, mut tuner_open, mut asked) = (true, true, false);
     while !session.is_finished() {
         let origin = io.origin;
@@ -375,7 +395,7 @@ pub async fn run_with_operator(
             _ = sleep_until_precise(wake) => session.handle_timeout(io.now()),
         }
         io.carry_out(&mut session).await;
-        publish(&state, &session);
+        publish(&state, &session, &io.recent);
         let split = session.poll_other_vfo();
         split_tx.send_if_modified(|s| std::mem::replace(s, split) != split);
     }
@@ -447,9 +467,15 @@ async fn next_ask(
 }
 
 /// Publishes the session's state to the front ends when it changed.
-fn publish(state: &Option<watch::Sender<Option<StateView>>>, session: &Session) {
+fn publish(
+    state: &Option<watch::Sender<Option<StateView>>>,
+    session: &Session,
+    recent: &std::collections::VecDeque<String>,
+) {
     if let Some(tx) = state {
-        let view = Some(StateView::from_status(&session.status()));
+        let mut view = StateView::from_status(&session.status());
+        view.recent = recent.iter().cloned().collect();
+        let view = Some(view);
         tx.send_if_modified(|s| {
             let changed = *s != view;
             if changed {
@@ -471,7 +497,12 @@ struct Io {
     commands: mpsc::Sender<TunerCommand>,
     transmit: watch::Sender<bool>,
     origin: Instant,
+    /// The last few decisions in words, for the front ends.
+    recent: std::collections::VecDeque<String>,
 }
+
+/// How many decisions the front ends are shown.
+const RECENT_DECISIONS: usize = 8;
 
 impl Io {
     fn now(&self) -> Duration {
@@ -485,7 +516,7 @@ impl Io {
             match out {
                 Output::Command(cmd) => {
                     if self.commands.send(cmd).await.is_err() {
-                        tracing::error!(?cmd, "controller link task gone");
+                        tracing::error!("controller link task gone; a command was not sent");
                     }
                 }
                 Output::Inhibit { on } => {
@@ -525,7 +556,23 @@ impl Io {
                         }
                     }
                 }
-                Output::Log(note) => log(note),
+                Output::Log(note) => {
+                    let status = session.status();
+                    let at = Where::of(&status);
+                    if let Some(words) = decision_words(&note, &at) {
+                        if self.recent.len() == RECENT_DECISIONS {
+                            self.recent.pop_front();
+                        }
+                        let secs = self.now().as_secs();
+                        self.recent.push_back(format!(
+                            "+{:02}:{:02}:{:02} {words}",
+                            secs / 3600,
+                            secs / 60 % 60,
+                            secs % 60
+                        ));
+                    }
+                    log(note, &at)
+                }
             }
         }
     }
@@ -551,8 +598,82 @@ fn unfinished_parts(r: Recorded) -> (i64, i64, Option<i64>, &'static str) {
     }
 }
 
-/// Writes one of the session's notes with tracing, its fields as fields.
-fn log(note: Note) {
+/// Where the rig is when a note is written: its receive and transmit
+/// frequencies and the band, for the decision's words and log fields.
+struct Where {
+    rx_hz: Option<u64>,
+    tx_hz: Option<u64>,
+    band: Option<String>,
+}
+
+impl Where {
+    fn of(s: &crate::follow::Status) -> Where {
+        Where {
+            rx_hz: s.rx_hz.or(s.rig_hz),
+            tx_hz: s.tx_hz.or(s.rig_hz),
+            band: s.band.clone(),
+        }
+    }
+
+    /// "7.150000 MHz (40m)", the transmit frequency named too when it
+    /// differs (split).
+    fn words(&self, hz: u64) -> String {
+        let band = match &self.band {
+            Some(b) => format!(" ({b})"),
+            None => " (outside the bands)".to_string(),
+        };
+        let split = match (self.rx_hz, self.tx_hz) {
+            (Some(rx), Some(tx)) if rx != tx => {
+                format!(", receive {} / transmit {}", mhz(rx), mhz(tx))
+            }
+            _ => String::new(),
+        };
+        format!("{}{band}{split}", mhz(hz))
+    }
+}
+
+/// `7.150000 MHz`.
+fn mhz(hz: u64) -> String {
+    format!("{}.{:06} MHz", hz / 1_000_000, hz % 1_000_000)
+}
+
+/// A decision in words for the front ends' "last decisions" (`None` for
+/// the notes that are not decisions the operator follows).
+fn decision_words(note: &Note, at: &Where) -> Option<String> {
+    Some(match note {
+        Note::Settled { hz } => format!("settled on {}", at.words(*hz)),
+        Note::Hold { hz, reason } => format!("holding for {}: {}", at.words(*hz), reason.words()),
+        Note::Move {
+            from, to, tune_hz, ..
+        } => {
+            format!("moving from step {from} to {to} for {}", at.words(*tune_hz))
+        }
+        Note::Arrived { steps } => format!("arrived at step {steps}"),
+        Note::Transmit { on: true } => match at.tx_hz {
+            Some(hz) => format!("rig transmitting on {}", at.words(hz)),
+            None => "rig transmitting".to_string(),
+        },
+        Note::Transmit { on: false } => "rig back on receive".to_string(),
+        Note::Command { name, reply } => {
+            let a = crate::control::Answer::from_reply(reply);
+            match a.reason {
+                Some(r) => format!("operator {name}: {} ({r})", a.outcome),
+                None => format!("operator {name}: {}", a.outcome),
+            }
+        }
+        Note::PositionUnknown { .. } | Note::CountNoRestart { .. } => {
+            "position unknown: nothing moves until it is set".to_string()
+        }
+        Note::LinkDown { reason } => format!("controller link down ({reason})"),
+        _ => return None,
+    })
+}
+
+/// Writes one of the session's notes with tracing, its fields as fields;
+/// decisions name the rig's frequencies and band (`at`).
+fn log(note: Note, at: &Where) {
+    let band = at.band.as_deref();
+    let (rx_hz, tx_hz) = (at.rx_hz, at.tx_hz);
     use tracing::{debug, error, info, warn};
     match note {
         Note::Plain { level, text } => match level {
@@ -565,7 +686,7 @@ fn log(note: Note) {
         Note::JournalUnfinished { unfinished } => warn!(
             from = unfinished_parts(unfinished).0,
             to = unfinished_parts(unfinished).1,
-            via = ?unfinished_parts(unfinished).2,
+            via = unfinished_parts(unfinished).2,
             leg = unfinished_parts(unfinished).3,
             "journal: a move did not finish; the position is unknown unless the controller reports a target of its legs or a point on the leg's path"
         ),
@@ -606,7 +727,10 @@ fn log(note: Note) {
         ),
         Note::Inhibit { on: true } => info!("transmit inhibit asserted"),
         Note::Inhibit { on: false } => info!("transmit inhibit released"),
-        Note::Transmit { on: true } => info!("rig transmitting"),
+        Note::Transmit { on: true } => match tx_hz {
+            Some(hz) => info!(tx_hz, band, "rig transmitting on {}", at.words(hz)),
+            None => info!("rig transmitting"),
+        },
         Note::Transmit { on: false } => info!("rig back on receive"),
         Note::Arrived { steps } => info!(steps, "arrived"),
         Note::InhibitFailed { on, error } => {
@@ -620,14 +744,33 @@ fn log(note: Note) {
         Note::ReleaseFailed { error } => {
             error!(error = %error, "could not release the transmit inhibit at shutdown")
         }
-        Note::Settled { hz } => info!(hz, "settled"),
-        Note::Hold { hz, reason } => info!(hz, %reason, "hold"),
+        Note::Settled { hz } => info!(hz, band, rx_hz, tx_hz, "settled on {}", at.words(hz)),
+        Note::Hold { hz, reason } => info!(
+            hz,
+            band,
+            rx_hz,
+            tx_hz,
+            %reason,
+            "hold for {}: {}",
+            at.words(hz),
+            reason.words()
+        ),
         Note::Move {
             from,
             to,
             hz,
             tune_hz,
-        } => info!(from, to, hz, tune_hz, "move"),
+        } => info!(
+            from,
+            to,
+            hz,
+            tune_hz,
+            band,
+            rx_hz,
+            tx_hz,
+            "move from step {from} to {to} for {}",
+            at.words(tune_hz)
+        ),
         Note::IntentFailed { error } => {
             error!(error = %error, "could not record the move's intent; not moving")
         }

@@ -24,6 +24,7 @@ pub use check::{check, check_with, CheckOptions, Finding, Grade};
 pub use settings::{
     calibrations_of, check_base_points, control_setup, control_socket_for, fit_base, fit_options,
     journal_for, lock_path_for, policy_from_config, port_settings, presets_from_config, rig_source,
+    station_token, token_path_for, web_setup,
 };
 
 /// Anything that stops a command, worded for the operator.
@@ -281,4 +282,121 @@ impl crate::scenario::Wire for DialectWire<'_> {
             Happening::Noise { .. } => Vec::new(),
         }
     }
+}
+
+/// `tuneward demo --live`: the demo station live, without hardware. A
+/// simulated rig ([`crate::sim::driver`], its built-in scripted operator)
+/// on a pseudo-terminal in a scratch folder, the in-process simulated
+/// controller (`link = "sim"`), and the live service with the web page on
+/// `listen` (loopback only); `on_url` is told the page's address. Runs
+/// until SIGINT, SIGTERM or SIGHUP; the scratch folder is removed at the
+/// end.
+pub fn demo_live(
+    listen: std::net::SocketAddr,
+    on_url: Box<dyn FnOnce(String) + Send>,
+) -> Result<(), crate::station::error::Error> {
+    use crate::station::error::Error;
+    if !listen.ip().is_loopback() {
+        return Err(Error::invalid(
+            crate::error::Place::Named("demo --listen".into()),
+            "a loopback address such as 127.0.0.1:7720 (the demo takes no token)",
+            listen.to_string(),
+        ));
+    }
+    let dir = std::env::temp_dir().join(format!("tuneward-demo-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).map_err(|e| {
+        Error::invalid(
+            crate::error::Place::Named(dir.display().to_string()),
+            "a scratch folder for the demo",
+            e.to_string(),
+        )
+    })?;
+    let result = demo_live_in(&dir, listen, on_url);
+    let _ = std::fs::remove_dir_all(&dir);
+    result
+}
+
+fn demo_live_in(
+    dir: &Path,
+    listen: std::net::SocketAddr,
+    on_url: Box<dyn FnOnce(String) + Send>,
+) -> Result<(), crate::station::error::Error> {
+    use crate::station::error::Error;
+    let mut config = Config::parse(DEMO_CONFIG, Path::new("config/demo.toml"))?;
+    let rig_link = dir.join("rig");
+    config.rig.port = Some(rig_link.display().to_string());
+    // Polled, so the simulated rig's transmit state is always known.
+    config.rig.mode = crate::config::RigMode::Poll;
+    config.rig.poll_ms = Some(200);
+    config.rig.address = Some(crate::sim::rig::SimOptions::default().address);
+    config.tuner.state_file = Some(dir.join("motor.state"));
+    config.control.socket = Some(dir.join("control.sock"));
+    // A simulated rig and controller: no inhibit line to wire.
+    config.inhibit.unprotected_ok = true;
+    config.validate()?;
+    let station = Station::from_config(config)?;
+
+    // The simulated rig is `tuneward sim-rig` itself, as a child: the
+    // same program an operator would start, with its own signal handling.
+    let demo = || crate::error::Place::Named("tuneward demo --live".into());
+    let exe = std::env::current_exe().map_err(|e| {
+        Error::invalid(
+            demo(),
+            "this program's path, to start sim-rig",
+            e.to_string(),
+        )
+    })?;
+    let mut sim = std::process::Command::new(exe)
+        .arg("sim-rig")
+        .arg("--protocol")
+        .arg(&station.config.rig.protocol)
+        .arg("--pty")
+        .arg(&rig_link)
+        .arg("--script-from-first-byte")
+        .arg("--truth")
+        .arg(dir.join("truth.jsonl"))
+        .stdin(std::process::Stdio::null())
+        .stdout(std::process::Stdio::null())
+        .spawn()
+        .map_err(|e| Error::invalid(demo(), "sim-rig started", e.to_string()))?;
+    let result = demo_live_with(&station, &rig_link, listen, on_url);
+    let _ = sim.kill();
+    let _ = sim.wait();
+    result
+}
+
+fn demo_live_with(
+    station: &Station,
+    rig_link: &Path,
+    listen: std::net::SocketAddr,
+    on_url: Box<dyn FnOnce(String) + Send>,
+) -> Result<(), crate::station::error::Error> {
+    use crate::station::error::Error;
+    // The service reconnects to a port that is not there yet, but a
+    // demo should not start with a warning about it.
+    let until = std::time::Instant::now() + std::time::Duration::from_secs(5);
+    while std::fs::symlink_metadata(rig_link).is_err() && std::time::Instant::now() < until {
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    let parts = crate::service::ServiceParts::from_station(station)?;
+    let control = crate::service::ControlSetup {
+        socket: settings::control_socket_for(&station.config),
+        listen: None,
+        web: Some(crate::control::web::WebSetup {
+            listen,
+            token: None,
+            host_names: Vec::new(),
+        }),
+        reload: None,
+        mqtt: None,
+        on_web_ready: Some(Box::new(move |addr| on_url(format!("http://{addr}/")))),
+    };
+    crate::service::run_until_signal(parts, Some(control)).map_err(|e| {
+        Error::invalid(
+            crate::error::Place::Named("tuneward demo --live".into()),
+            "the live service to run",
+            e.to_string(),
+        )
+    })?;
+    Ok(())
 }

@@ -47,6 +47,8 @@ const DRIVER_FILES: &[&str] = &[
     "src/sim/driver.rs",
     "src/tuner/client.rs",
     "src/tuner/server.rs",
+    "src/control/socket.rs",
+    "src/control/web.rs",
 ];
 
 /// The serial library (used synchronously, to drive RTS/DTR and read the

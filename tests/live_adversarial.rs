@@ -435,7 +435,7 @@ async fn retune_in_tail(detuned: &str) -> bool {
     let log = b.log();
     let settled = log
         .lines()
-        .find(|l| l.contains("settled hz=7200000"))
+        .find(|l| l.contains("settled on") && l.contains(" hz=7200000"))
         .and_then(log_time)
         .expect("the retune settled");
     let released: Vec<SystemTime> = inhibit_changes(&log)

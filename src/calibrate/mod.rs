@@ -23,6 +23,7 @@ mod points;
 mod profiles;
 pub mod report;
 pub mod resonance;
+pub mod swr_curve;
 
 use std::path::PathBuf;
 

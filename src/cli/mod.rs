@@ -32,10 +32,26 @@ pub struct Cli {
 #[derive(Subcommand)]
 pub enum Command {
     /// Replay an invented evening at a demo station: no hardware, no arguments.
+    ///
+    /// With --live, run the demo station live instead: a simulated rig
+    /// with a scripted operator, a simulated controller and the service
+    /// with its web page on loopback; the page's address is printed. Runs
+    /// until Ctrl-C.
     Demo {
         /// Write JSON lines instead of text.
-        #[arg(long)]
+        #[arg(long, conflicts_with = "live")]
         json: bool,
+        /// Run the demo station live, with its web page.
+        #[arg(long)]
+        live: bool,
+        /// With --live: where the web page listens (loopback).
+        #[arg(
+            long,
+            value_name = "ADDR",
+            default_value = "127.0.0.1:7720",
+            requires = "live"
+        )]
+        listen: std::net::SocketAddr,
     },
     /// Replay a capture of a rig's control port through a station's config,
     /// against a simulated tuner, and print what would have happened.
@@ -330,7 +346,25 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             .map(|_| ())
             .map_err(|e| Failure::with_causes(&e))
         }
-        Command::Demo { json } => tuneward::station::demo(&mut out, json)
+        Command::Demo {
+            live: true, listen, ..
+        } => {
+            tuneward::service::init_logging(tuneward::service::LogFormat::Text);
+            tuneward::station::demo_live(
+                listen,
+                Box::new(|url| {
+                    use std::io::Write as _;
+                    let mut out = std::io::stdout();
+                    let _ = writeln!(
+                        out,
+                        "tuneward demo: the live page is at {url} (Ctrl-C stops)"
+                    );
+                    let _ = out.flush();
+                }),
+            )
+            .map_err(|e| Failure::with_causes(&e))
+        }
+        Command::Demo { json, .. } => tuneward::station::demo(&mut out, json)
             .map(|_| ())
             .map_err(|e| Failure::with_causes(&e)),
         Command::BenchFollow {

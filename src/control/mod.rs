@@ -11,6 +11,7 @@ pub mod client;
 pub mod mqtt;
 pub mod protocol;
 pub mod socket;
+pub mod web;
 
 use tokio::sync::{mpsc, oneshot, watch};
 

@@ -238,6 +238,11 @@ pub struct StateLine {
 /// The state as the protocol shows it. Absent values are left out.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct StateView {
+    /// The rig's receive and transmit frequencies (they differ with split).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub rx_hz: Option<u64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub tx_hz: Option<u64>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub position: Option<i64>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -261,6 +266,79 @@ pub struct StateView {
     pub profiles: Vec<String>,
     pub presets: Vec<PresetView>,
     pub shutting_down: bool,
+    /// The loop's estimated SWR where the capacitor is at rest (with
+    /// `[antenna]` describing the loop).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub swr: Option<SwrView>,
+    /// The last few decisions, in words, oldest first (set by the driver).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub recent: Vec<String>,
+}
+
+/// An SWR in hundredths, shown as a number (`1.25`); an SWR beyond
+/// [`Ratio::MAX`] (or infinite) is shown as that.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Ratio(pub u32);
+
+impl Ratio {
+    /// 999.99: the largest SWR shown.
+    pub const MAX: Ratio = Ratio(99_999);
+
+    pub fn of(swr: f64) -> Ratio {
+        if swr.is_nan() {
+            return Ratio::MAX;
+        }
+        let h = (swr * 100.0).round();
+        if h >= Ratio::MAX.0 as f64 {
+            Ratio::MAX
+        } else {
+            Ratio(h.max(100.0) as u32)
+        }
+    }
+
+    pub fn value(self) -> f64 {
+        self.0 as f64 / 100.0
+    }
+}
+
+impl Serialize for Ratio {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_f64(self.value())
+    }
+}
+
+impl<'de> Deserialize<'de> for Ratio {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Ratio, D::Error> {
+        f64::deserialize(d).map(Ratio::of)
+    }
+}
+
+/// The estimated SWR curve as the protocol shows it: whole hertz, SWR to
+/// two decimals.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SwrView {
+    /// Where the calibration in use says the loop is resonant.
+    pub resonance_hz: u64,
+    /// The estimated SWR at the transmit frequency.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub at_tx: Option<Ratio>,
+    /// `[hz, swr]` pairs from low to high frequency.
+    pub curve: Vec<(u64, Ratio)>,
+}
+
+impl SwrView {
+    pub fn from_curve(c: &crate::follow::SwrCurve) -> SwrView {
+        let hz = |f: f64| f.round().max(0.0) as u64;
+        SwrView {
+            resonance_hz: hz(c.resonance_hz),
+            at_tx: c.at.map(|p| Ratio::of(p.swr)),
+            curve: c
+                .points
+                .iter()
+                .map(|p| (hz(p.hz), Ratio::of(p.swr)))
+                .collect(),
+        }
+    }
 }
 
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
@@ -275,6 +353,8 @@ pub struct PresetView {
 impl StateView {
     pub fn from_status(s: &Status) -> StateView {
         StateView {
+            rx_hz: s.rx_hz,
+            tx_hz: s.tx_hz,
             position: s.position,
             heading: s.heading,
             min_steps: s.min_steps,
@@ -309,6 +389,8 @@ impl StateView {
                 })
                 .collect(),
             shutting_down: s.shutting_down,
+            swr: s.swr.as_ref().map(SwrView::from_curve),
+            recent: Vec::new(),
         }
     }
 }

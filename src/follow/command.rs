@@ -261,8 +261,15 @@ pub enum Reply {
 
 /// The core's state, as the operator sees it. Plain data: the front ends
 /// turn it into JSON, a page, MQTT topics.
-#[derive(Debug, Clone, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct Status {
+    /// The rig's receive frequency (its receive VFO), if known.
+    pub rx_hz: Option<u64>,
+    /// The rig's transmit frequency (with split, the other VFO), if known.
+    pub tx_hz: Option<u64>,
+    /// The loop's estimated SWR around where the capacitor is at rest, the
+    /// transmit frequency marked (with `[antenna]` describing the loop).
+    pub swr: Option<crate::calibrate::swr_curve::SwrCurve>,
     /// Where the motor was last at rest, if known.
     pub position: Option<i64>,
     /// Where the motor is heading, while it moves.

@@ -647,3 +647,38 @@ fn the_shared_action_table_holds_in_the_core() {
         }
     }
 }
+
+#[test]
+fn status_estimates_the_swr_where_the_capacitor_rests() {
+    // The invented 1 m loop of 22 mm copper tube of the demo station.
+    let small_loop = crate::antenna::SmallLoop::from_config(&crate::antenna::LoopDescription {
+        loop_diameter_m: Some(1.0),
+        conductor_diameter_m: Some(0.022),
+        ..Default::default()
+    });
+    let mut r = Run::new(Some(9_500));
+    assert_eq!(r.f.status().swr, None, "no loop described: no estimate");
+    r.f = core(Some(9_500)).with_loop(small_loop);
+    // Step 9500 is 7.050 MHz on the test calibration; the rig 2 kHz above.
+    r.report(0, 7_052_000);
+    let s = r.f.status();
+    assert_eq!((s.rx_hz, s.tx_hz), (Some(7_052_000), Some(7_052_000)));
+    let swr = s.swr.expect("an estimate at rest");
+    assert!((swr.resonance_hz - 7_050_000.0).abs() < 0.2, "{swr:?}");
+    let q = small_loop.unwrap().at(swr.resonance_hz).q_unloaded;
+    assert_eq!(swr.q_unloaded, q);
+    let at = swr.at.unwrap();
+    assert_eq!(at.hz, 7_052_000.0);
+    assert!((at.swr - crate::antenna::swr_at(7_052_000.0, 7_050_000.0, q)).abs() < 1e-3);
+    assert!(at.swr > 1.0);
+    // Moving: no estimate until it is at rest again.
+    assert_eq!(
+        r.f.handle_command(ms(5_000), Command::Goto { steps: 9_000 }),
+        Reply::Done
+    );
+    r.take();
+    r.f.handle_timeout(ms(6_000));
+    r.take();
+    assert!(r.f.status().moving);
+    assert_eq!(r.f.status().swr, None);
+}

@@ -35,6 +35,9 @@ use std::fmt;
 use std::sync::Arc;
 use std::time::Duration;
 
+use crate::antenna::SmallLoop;
+use crate::calibrate::swr_curve::swr_curve;
+pub use crate::calibrate::swr_curve::{SwrCurve, SwrPoint};
 use crate::calibrate::StepMap;
 pub use command::{
     Calibrations, Command, Preset, PresetGoal, Refusal, Reply, Status, Wait, BASE_PROFILE,
@@ -101,6 +104,27 @@ impl HoldReason {
             HoldReason::RigSilent => "rig-silent",
             HoldReason::TransmitUnknown => "transmit-unknown",
             HoldReason::TransmitVfoUnknown => "transmit-vfo-unknown",
+        }
+    }
+
+    /// The reason in words, for the operator.
+    pub fn words(self) -> &'static str {
+        match self {
+            HoldReason::DeadBand => "already tuned close enough",
+            HoldReason::OutOfBand => "outside every followed band",
+            HoldReason::Transmitting => "the rig is transmitting; waiting for receive",
+            HoldReason::Limit => "the target lies beyond the travel limits",
+            HoldReason::PositionUnknown => "the capacitor's position is not known",
+            HoldReason::Fault => "the controller link is in fault",
+            HoldReason::Paused => "following is paused",
+            HoldReason::Calibration => "the calibration gives no position here",
+            HoldReason::RigSilent => "the rig's port is silent",
+            HoldReason::TransmitUnknown => {
+                "nothing says whether the rig transmits, and no inhibit protects a move"
+            }
+            HoldReason::TransmitVfoUnknown => {
+                "split to a VFO whose frequency nothing has told; held rather than guessed"
+            }
         }
     }
 }
@@ -242,6 +266,25 @@ pub struct Follower {
     stats: Stats,
     presets: Vec<Preset>,
     calibrations: Calibrations,
+    /// The loop's physics (`[antenna]`), for the status's SWR estimate.
+    small_loop: Option<SmallLoop>,
+}
+
+/// How many samples the status's SWR curve has (odd: one at resonance).
+pub const SWR_CURVE_POINTS: usize = 41;
+
+/// Where to start looking for the resonance when no frequency is known:
+/// the middle of the band of `hz`, or of the first band.
+fn band_guess(policy: &Policy, hz: Option<u64>) -> Option<f64> {
+    let band = hz
+        .and_then(|hz| {
+            policy
+                .bands
+                .iter()
+                .find(|b| (b.low_hz..=b.high_hz).contains(&hz))
+        })
+        .or(policy.bands.first());
+    band.map(|b| (b.low_hz as f64 + b.high_hz as f64) / 2.0)
 }
 
 impl fmt::Debug for Follower {
@@ -289,6 +332,7 @@ impl Follower {
             stats: Stats::default(),
             presets: Vec::new(),
             calibrations: Calibrations::default(),
+            small_loop: None,
         };
         if position.is_none() {
             f.set_inhibit(true);
@@ -880,7 +924,11 @@ impl Follower {
             }
             Placement::Outside => None,
         });
+        let tx_hz = self.station.transmit_hz();
         Status {
+            rx_hz: self.station.receive_hz(),
+            tx_hz,
+            swr: self.swr_estimate(tx_hz.or(rig_hz), band_guess(&self.policy, rig_hz)),
             position: self.position,
             heading: match self.motion {
                 Motion::Moving { target, .. } => Some(target.steps),
@@ -902,6 +950,33 @@ impl Follower {
             presets: self.presets.clone(),
             shutting_down: self.closing,
         }
+    }
+
+    /// The loop's estimated SWR curve where the capacitor is at rest, with
+    /// `hz` (the transmit frequency) marked: the resonance the calibration
+    /// in use maps the position to, and the loop physics' Q there. `None`
+    /// while moving, with the position unknown or the loop not described.
+    fn swr_estimate(&self, hz: Option<u64>, guess_hz: Option<f64>) -> Option<SwrCurve> {
+        let small_loop = self.small_loop?;
+        if self.is_moving() {
+            return None;
+        }
+        let steps = self.position? as f64;
+        let hz = hz.map(|h| h as f64);
+        swr_curve(
+            self.map.as_ref(),
+            steps,
+            hz,
+            hz.or(guess_hz)?,
+            |f0| small_loop.at(f0).q_unloaded,
+            SWR_CURVE_POINTS,
+        )
+    }
+
+    /// The loop's physics, for the status's SWR estimate (`[antenna]`).
+    pub fn with_loop(mut self, small_loop: Option<SmallLoop>) -> Self {
+        self.small_loop = small_loop;
+        self
     }
 
     /// The presets and calibrations the operator's commands can choose from,

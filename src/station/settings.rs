@@ -186,7 +186,7 @@ pub fn calibrations_of(set: &CalibrationSet) -> Calibrations {
 pub fn control_setup(
     station: &Station,
     config_path: &Path,
-) -> Result<crate::service::ControlSetup, ConfigError> {
+) -> Result<crate::service::ControlSetup, Error> {
     let config = &station.config;
     let listen = config.control_listen()?;
     let path = config_path.to_path_buf();
@@ -194,6 +194,8 @@ pub fn control_setup(
         socket: control_socket_for(config),
         listen,
         mqtt: mqtt_settings(config)?,
+        web: web_setup(config)?,
+        on_web_ready: None,
         reload: Some(Box::new(move || {
             Station::load(&path)
                 .map(|s| calibrations_of(&s.profiles))
@@ -233,6 +235,84 @@ pub fn mqtt_settings(
         commands: m.commands,
         login,
     }))
+}
+
+/// `[web]`: where the page listens and, beyond loopback, the station's
+/// token (read from, or made on first use in, [`token_path_for`]).
+pub fn web_setup(config: &Config) -> Result<Option<crate::control::web::WebSetup>, Error> {
+    let Some(listen) = config.web_listen()? else {
+        return Ok(None);
+    };
+    let token = if listen.ip().is_loopback() {
+        None
+    } else {
+        Some(station_token(&token_path_for(config))?)
+    };
+    Ok(Some(crate::control::web::WebSetup {
+        listen,
+        token,
+        host_names: config.web.host_names.clone(),
+    }))
+}
+
+/// The web page's token file: the journal's name with `.token`, beside it.
+pub fn token_path_for(config: &Config) -> PathBuf {
+    beside_journal(config, ".token")
+}
+
+/// The token in `path`, or a new one (32 random bytes from the system,
+/// hex) written there first with mode 0600. A file that is readable by
+/// others, empty or not hex is refused rather than used.
+pub fn station_token(path: &Path) -> Result<String, Error> {
+    use std::io::{Read, Write};
+    use std::os::unix::fs::{OpenOptionsExt, PermissionsExt};
+    let place = || Place::Named(format!("token file {}", path.display()));
+    match std::fs::read_to_string(path) {
+        Ok(text) => {
+            let mode = std::fs::metadata(path)
+                .map(|m| m.permissions().mode() & 0o777)
+                .unwrap_or(0);
+            if mode & 0o077 != 0 {
+                return Err(Error::invalid(
+                    place(),
+                    "a file only its owner can read (mode 0600)",
+                    format!("mode {mode:o}"),
+                ));
+            }
+            let token = text.trim();
+            if token.len() < 16 || !token.bytes().all(|b| b.is_ascii_hexdigit()) {
+                return Err(Error::invalid(
+                    place(),
+                    "at least 16 hexadecimal digits",
+                    format!("{} characters that are not", token.len()),
+                ));
+            }
+            Ok(token.to_string())
+        }
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+            let mut bytes = [0u8; 32];
+            std::fs::File::open("/dev/urandom")
+                .and_then(|mut f| f.read_exact(&mut bytes))
+                .map_err(|e| {
+                    Error::invalid(place(), "random bytes for a new token", e.to_string())
+                })?;
+            let token: String = bytes.iter().map(|b| format!("{b:02x}")).collect();
+            let mut file = std::fs::OpenOptions::new()
+                .write(true)
+                .create_new(true)
+                .mode(0o600)
+                .open(path)
+                .map_err(|e| Error::invalid(place(), "a new file created", e.to_string()))?;
+            file.write_all(format!("{token}\n").as_bytes())
+                .and_then(|_| file.sync_all())
+                .map_err(|e| Error::invalid(place(), "the token written", e.to_string()))?;
+            // Whatever the umask did, only the owner reads it.
+            let _ = std::fs::set_permissions(path, std::fs::Permissions::from_mode(0o600));
+            tracing::info!(file = %path.display(), "web page token made (give it to the page once)");
+            Ok(token)
+        }
+        Err(e) => Err(Error::invalid(place(), "a readable file", e.to_string())),
+    }
 }
 
 /// A path beside the journal: its name with `suffix` added.
@@ -778,7 +858,8 @@ impl ServiceParts {
                 presets_from_config(config),
                 calibrations_of(&station.profiles),
                 config.calibration.profile.clone(),
-            ),
+            )
+            .with_loop(crate::antenna::SmallLoop::from_config(&config.antenna)),
             decoder: station.dialect.station_decoder(config.rig.address),
             rig,
             controller,

@@ -10,6 +10,7 @@ pub mod actions;
 pub mod actions_table;
 pub mod broker;
 pub mod controller;
+pub mod http;
 pub mod invariants;
 pub mod truth;
 
