@@ -32,7 +32,7 @@ struct Station {
 
 /// The tests' invented 40 m station (0 to 3000 steps over 7.0 to 7.3 MHz),
 /// a described loop, one preset, and `[web] listen = listen`.
-fn start(listen: &str) -> Station {
+fn start(listen: &str, json_log: bool) -> Station {
     let dir = tempfile::tempdir().unwrap();
     let (rig, far, rig_link) = rig_behind_symlink(dir.path());
     let (sim, addr) = common::sim_tuner(&[
@@ -65,13 +65,18 @@ listen = "{listen}"
     ));
     std::fs::write(&config, text).unwrap();
     let journal = Journal::new(dir.path().join("motor.state"));
-    let run = Logged::run(&config);
+    let config_arg = config.to_str().unwrap();
+    let run = if json_log {
+        Logged::start(&["run", "--config", config_arg, "--log-format", "json"])
+    } else {
+        Logged::run(&config)
+    };
     wait_journal(&journal, Recorded::Known(0));
     let line = run.wait_log(&["web page ready"]);
     let web = line
         .split("http://")
         .nth(1)
-        .and_then(|rest| rest.split('/').next())
+        .and_then(|rest| rest.split(['/', '"']).next())
         .unwrap_or_else(|| panic!("no address in {line}"))
         .to_string();
     // Listening on every address, the tests reach it on loopback.
@@ -88,7 +93,7 @@ listen = "{listen}"
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn the_page_its_state_and_commands_and_every_refusal() {
-    let s = start("127.0.0.1:0");
+    let s = start("127.0.0.1:0", false);
     let w = s.web.as_str();
 
     // The page itself, with headers that keep it out of other sites' frames.
@@ -257,7 +262,7 @@ async fn the_page_its_state_and_commands_and_every_refusal() {
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn beyond_loopback_every_request_but_the_page_needs_the_token() {
-    let s = start("0.0.0.0:0");
+    let s = start("0.0.0.0:0", true);
     let w = s.web.as_str();
     let token_file: PathBuf = s.dir.path().join("motor.state.token");
     let mode = std::fs::metadata(&token_file).unwrap().permissions().mode() & 0o777;
@@ -297,6 +302,22 @@ async fn beyond_loopback_every_request_but_the_page_needs_the_token() {
     let mut run = s.run;
     run.proc.signal(libc::SIGTERM);
     assert_eq!(run.proc.wait_exit(Duration::from_secs(10)).code(), Some(0));
+    // The JSON log: one object a line, numbers as numbers, no Rust
+    // Debug formatting, decisions with their band.
+    let log = run.log();
+    let mut saw_move = false;
+    for line in &log {
+        let v: serde_json::Value =
+            serde_json::from_str(line).unwrap_or_else(|e| panic!("{e}: {line}"));
+        assert!(
+            !line.contains("Some(") && !line.contains("None") && !line.contains("on=false"),
+            "Debug formatting: {line}"
+        );
+        if v["fields"]["from"].is_i64() && v["fields"]["to"] == 900 {
+            saw_move = true;
+        }
+    }
+    assert!(saw_move, "no move logged:\n{}", log.join("\n"));
     assert_eq!(std::fs::read_to_string(&token_file).unwrap().trim(), token);
 }
 
@@ -353,10 +374,40 @@ fn demo_live_serves_its_page_until_ctrl_c() {
         assert!(std::time::Instant::now() < until, "no rig frequency: {st}");
         std::thread::sleep(Duration::from_millis(200));
     }
+    // The scripted operator keys the rig 4 s into the script.
+    let until = std::time::Instant::now() + Duration::from_secs(20);
+    while !log
+        .lock()
+        .unwrap()
+        .iter()
+        .any(|l| l.contains("rig back on receive"))
+    {
+        assert!(
+            std::time::Instant::now() < until,
+            "the demo's over was not logged"
+        );
+        std::thread::sleep(Duration::from_millis(50));
+    }
     proc.signal(libc::SIGINT);
     let mut proc = proc;
     assert_eq!(proc.wait_exit(Duration::from_secs(15)).code(), Some(0));
     let log = log.lock().unwrap().clone();
+    // Decisions in words, with the band and both frequencies.
+    assert!(
+        log.iter().any(|l| l.contains("settled on")
+            && l.contains("MHz (20m)")
+            && l.contains("band=\"20m\"")
+            && l.contains("rx_hz=")
+            && l.contains("tx_hz=")),
+        "{}",
+        log.join("\n")
+    );
+    assert!(log
+        .iter()
+        .any(|l| l.contains("move from step") && l.contains("MHz (")));
+    assert!(log
+        .iter()
+        .any(|l| l.contains("rig transmitting on") && l.contains("MHz (")));
     assert!(
         !log.iter()
             .any(|l| l.contains("Some(") || l.contains("None") || l.contains("on=false")),
