@@ -512,7 +512,7 @@ async fn split_case(family: Family) {
     let log = run.log();
     let first_release = log
         .iter()
-        .position(|l| l.contains("transmit inhibit") && l.contains("on=false"));
+        .position(|l| l.contains("transmit inhibit released"));
     let the_move = log.iter().position(|l| l.contains("INFO move")).unwrap();
     assert!(
         first_release.is_none_or(|r| r > the_move),
