@@ -23,9 +23,6 @@
 //! transmit status, `08`/`88` key and unkey; recalled, as
 //! protocols/block-5.toml says).
 
-use std::io::Write as _;
-use std::io::{BufRead, BufReader};
-use std::net::{TcpListener, TcpStream};
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 use std::sync::{Arc, Mutex};
@@ -36,139 +33,17 @@ use tokio_serial::SerialStream;
 
 mod common;
 
+use common::truth::{last_truth, rig_transmits, wait_motor, Motor};
 use common::{forty_metres, open_port, Logged, Proc, BIN};
 
 /// Motor speed of the test controller (and of the config, which times the
 /// controller's answers from it).
 const SPEED: f64 = 2_000.0;
 
-/// What the test controller saw and did, with the rig's truth at that time.
-#[derive(Debug, Default)]
-struct Motor {
-    /// Every `GOTO` target, in order.
-    gotos: Vec<i64>,
-    /// When each `GOTO` arrived.
-    goto_times: Vec<Instant>,
-    /// Where the motor is (at rest) or is heading.
-    at: i64,
-    moving: bool,
-    /// The rig transmitted (per its truth log) while the motor moved, or a
-    /// `GOTO` came while it transmitted: each such moment, described.
-    violations: Vec<String>,
-}
-
-/// The rig's state as its truth log last said.
-fn last_truth(path: &Path) -> Option<serde_json::Value> {
-    let text = std::fs::read_to_string(path).ok()?;
-    text.lines()
-        .rev()
-        .find_map(|l| serde_json::from_str::<serde_json::Value>(l).ok())
-}
-
-fn rig_transmits(truth: &Path) -> bool {
-    last_truth(truth).is_some_and(|v| v["transmitting"] == true)
-}
-
-/// A controller speaking protocols/tuner-line.md at `SPEED`, starting at
-/// `start`; every 2 ms of a move it checks the rig's truth log.
+/// The shared truth-checking controller (tests/common/truth.rs) at `SPEED`,
+/// starting at `start`; every 2 ms of a move it checks the rig's truth log.
 fn controller(start: i64, truth: PathBuf) -> (String, Arc<Mutex<Motor>>) {
-    let listener = TcpListener::bind("127.0.0.1:0").unwrap();
-    let addr = listener.local_addr().unwrap().to_string();
-    let motor = Arc::new(Mutex::new(Motor {
-        at: start,
-        ..Motor::default()
-    }));
-    let m = Arc::clone(&motor);
-    std::thread::spawn(move || {
-        for conn in listener.incoming() {
-            let Ok(conn) = conn else { return };
-            serve(conn, &m, &truth);
-        }
-    });
-    (addr, motor)
-}
-
-fn serve(conn: TcpStream, motor: &Mutex<Motor>, truth: &Path) {
-    conn.set_read_timeout(Some(Duration::from_millis(2)))
-        .unwrap();
-    let mut out = conn.try_clone().unwrap();
-    let mut reader = BufReader::new(conn);
-    let mut line = String::new();
-    // Where a move started, its target and when it started.
-    let mut run: Option<(i64, i64, Instant)> = None;
-    loop {
-        if let Some((from, to, since)) = run {
-            let done = (to - from).unsigned_abs() as f64 / SPEED;
-            let mut m = motor.lock().unwrap();
-            if rig_transmits(truth) {
-                m.violations
-                    .push(format!("moving {from}->{to} while transmitting"));
-            }
-            if since.elapsed().as_secs_f64() >= done {
-                run = None;
-                m.at = to;
-                m.moving = false;
-                if writeln!(out, "AT {to}").is_err() {
-                    return;
-                }
-            }
-        }
-        match reader.read_line(&mut line) {
-            Ok(0) => return,
-            Ok(_) => {}
-            Err(e)
-                if matches!(
-                    e.kind(),
-                    std::io::ErrorKind::WouldBlock | std::io::ErrorKind::TimedOut
-                ) =>
-            {
-                continue
-            }
-            Err(_) => return,
-        }
-        if !line.ends_with('\n') {
-            continue;
-        }
-        let words: Vec<String> = line.split_whitespace().map(str::to_string).collect();
-        line.clear();
-        let mut m = motor.lock().unwrap();
-        let answer = match words.iter().map(String::as_str).collect::<Vec<_>>()[..] {
-            ["WHERE"] => match run {
-                Some((_, to, _)) => format!("MOVING {to}"),
-                None => format!("AT {}", m.at),
-            },
-            ["GOTO", n] => {
-                let to: i64 = n.parse().unwrap();
-                if rig_transmits(truth) {
-                    m.violations.push(format!("GOTO {to} while transmitting"));
-                }
-                m.gotos.push(to);
-                m.goto_times.push(Instant::now());
-                m.moving = true;
-                run = Some((m.at, to, Instant::now()));
-                format!("MOVING {to}")
-            }
-            ["STOP"] => {
-                // Stops where it is: worked out from the time run.
-                if let Some((from, to, since)) = run.take() {
-                    let gone = (since.elapsed().as_secs_f64() * SPEED) as i64;
-                    let d = (to - from).clamp(-gone, gone);
-                    m.at = from + d;
-                }
-                m.moving = false;
-                format!("AT {}", m.at)
-            }
-            ["ZERO", n] => {
-                m.at = n.parse().unwrap();
-                format!("AT {}", m.at)
-            }
-            _ => "ERR unknown".to_string(),
-        };
-        drop(m);
-        if writeln!(out, "{answer}").is_err() {
-            return;
-        }
-    }
+    common::truth::controller(start, SPEED, truth)
 }
 
 /// `tuneward sim-rig` speaking `protocol` on a pty at `dir/rig`, truth log
@@ -305,21 +180,6 @@ inhibit_tail_ms = 20
 async fn say(port: &mut SerialStream, bytes: &[u8]) {
     AsyncWriteExt::write_all(port, bytes).await.unwrap();
     AsyncWriteExt::flush(port).await.unwrap();
-}
-
-/// Waits (10 s at most) until `done` holds for the motor.
-fn wait_motor(motor: &Mutex<Motor>, what: &str, done: impl Fn(&Motor) -> bool) {
-    let until = Instant::now() + Duration::from_secs(10);
-    loop {
-        {
-            let m = motor.lock().unwrap();
-            if done(&m) {
-                return;
-            }
-            assert!(Instant::now() < until, "{what}: {m:?}");
-        }
-        std::thread::sleep(Duration::from_millis(10));
-    }
 }
 
 /// What the other program sends, in each family's words.

@@ -1,5 +1,5 @@
 //! A controller of the tests' own that checks the rig's truth log while the
-//! motor moves (the same double `tests/live_station_truth.rs` keeps inline):
+//! motor moves (the station-truth, block and probe tests share it):
 //! it speaks `protocols/tuner-line.md` on loopback TCP at a fixed speed,
 //! logs every `GOTO`, and records each moment the rig transmitted (by
 //! `tuneward sim-rig`'s truth log, never by tuneward's account) while the
@@ -16,6 +16,8 @@ use std::time::{Duration, Instant};
 pub struct Motor {
     /// Every `GOTO` target, in order.
     pub gotos: Vec<i64>,
+    /// When each `GOTO` arrived.
+    pub goto_times: Vec<Instant>,
     /// Where the motor is (at rest) or is heading.
     pub at: i64,
     pub moving: bool,
@@ -109,6 +111,7 @@ fn serve(conn: TcpStream, speed: f64, motor: &Mutex<Motor>, truth: &Path) {
                     m.violations.push(format!("GOTO {to} while transmitting"));
                 }
                 m.gotos.push(to);
+                m.goto_times.push(Instant::now());
                 m.moving = true;
                 run = Some((m.at, to, Instant::now()));
                 format!("MOVING {to}")
