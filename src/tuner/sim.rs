@@ -58,22 +58,7 @@ impl SimTuner {
     /// Starts a move to `target` (clamped to the limits: the mechanics have end
     /// stops too) and returns when it will have arrived and settled.
     pub fn goto(&mut self, now: Duration, target: i64) -> Duration {
-        let from = self.position_at(now);
-        let to = target.clamp(self.params.min_steps, self.params.max_steps);
-        let distance = from.abs_diff(to);
-        let end = now + self.travel_time(distance);
-        if to != from {
-            self.last_dir = (to - from).signum();
-        }
-        self.travelled += distance;
-        self.rest = from;
-        self.leg = Some(Motion {
-            from,
-            to,
-            start: now,
-            end,
-        });
-        end + Duration::from_millis(self.params.settle_ms)
+        self.goto_at_speed(now, target, self.params.steps_per_second)
     }
 
     /// Starts a move to `target` at `speed` steps/s (at most the configured
