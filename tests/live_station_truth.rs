@@ -465,7 +465,7 @@ fn polled_split_case(family: Family) {
 "#;
     let (_rig, rig_link, truth) = sim_rig_scripted(dir.path(), family.protocol(), operator);
     let (addr, motor) = controller(0, truth.clone());
-    let _run = run_polled(dir.path(), family, &rig_link, &addr);
+    let run = run_polled(dir.path(), family, &rig_link, &addr);
     // 7.105 MHz: (7 105 000 - 7 000 000) / 100 = 1050 steps, by hand.
     wait_motor(&motor, "tuned for the transmit VFO", |m| {
         m.at == 1050 && !m.moving
@@ -491,20 +491,37 @@ fn polled_split_case(family: Family) {
         assert!(Instant::now() < until, "the scripted over never ended");
         std::thread::sleep(Duration::from_millis(20));
     }
+    // tuneward has heard the over end; the answers read against the old
+    // transmit state come in the next poll cycles (the bug this case
+    // caught moved within 10 ms of the unkey being heard). Watch 20 cycles
+    // of 50 ms for a move: an absence takes a while to see.
+    run.wait_log(&["rig back on receive"]);
+    let watch = Instant::now() + Duration::from_secs(1);
+    while Instant::now() < watch {
+        let m = motor.lock().unwrap();
+        assert_eq!(
+            m.gotos.last(),
+            Some(&1050),
+            "moved after the over: {:?}",
+            m.gotos
+        );
+        drop(m);
+        std::thread::sleep(Duration::from_millis(20));
+    }
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
-    assert_eq!(m.gotos.last(), Some(&1050), "{:?}", m.gotos);
+    // Nothing after the move for the transmit VFO.
+    let first = m.gotos.iter().position(|&g| g == 1050);
+    assert_eq!(first, Some(m.gotos.len() - 1), "{:?}", m.gotos);
     assert_eq!(m.at, 1050);
 }
 
 #[test]
-#[ignore = "known bug, issue 10: after an over in polled split the core sometimes settles on the receive VFO and moves off the transmit frequency (about 1 run in 5); run with --ignored"]
 fn text_polled_split_set_on_the_rig_tunes_for_the_transmit_vfo() {
     polled_split_case(Family::Text);
 }
 
 #[test]
-#[ignore = "known bug, issue 10: after an over in polled split the core sometimes settles on the receive VFO and moves off the transmit frequency (about 1 run in 5); run with --ignored"]
 fn binary_polled_split_set_on_the_rig_tunes_for_the_transmit_vfo() {
     polled_split_case(Family::Binary);
 }

@@ -213,16 +213,12 @@ impl Station {
     pub fn apply(&mut self, now: Duration, ev: StationEvent) -> Changed {
         let before = self.transmit.state;
         match ev {
-            StationEvent::Frequency { which, hz, .. } => {
+            StationEvent::Frequency { which, hz, source } => {
                 let vfo = match which {
-                    // While transmitting split, a rig's "operating
-                    // frequency" is the transmit VFO's, as its display
-                    // shows: not news about the receive VFO.
-                    Which::Receive
-                        if self.split() && self.transmit.state == TransmitState::Transmit =>
-                    {
-                        self.tx
-                    }
+                    Which::Receive if self.split() => match self.operating_vfo(hz, source) {
+                        Some(v) => v,
+                        None => return Changed::default(),
+                    },
                     Which::Receive => self.rx,
                     Which::Other => other(self.rx),
                     Which::Vfo(v) => v,
@@ -257,6 +253,37 @@ impl Station {
         Changed {
             transmit: self.transmit.state != before,
         }
+    }
+
+    /// In split, which VFO a report of the rig's *operating* frequency (a
+    /// report naming no VFO) is about, or `None` when it is news about
+    /// neither. The rig reports the transmit VFO's frequency while it
+    /// transmits and the receive VFO's otherwise, as its display shows; but
+    /// what we know of the transmit state lags the rig at every key and
+    /// unkey: a poll's frequency answer is read before its transmit answer
+    /// (binary family: `03` before `1C 00`), a status answer's frequency is
+    /// decoded before its own transmit flag (text family). Read against the
+    /// old state, the first report after an unkey (the receive VFO's) would
+    /// be taken for the transmit VFO, and the loop moved off the transmit
+    /// frequency (issue 10's polled-split bug). So a report equal to what
+    /// the *other* VFO is known at is that VFO seen through the edge, not
+    /// news; a report new to both VFOs is taken for the VFO the transmit
+    /// state says (unknown counts as receive here, as without split). The
+    /// named and unselected-VFO reads (`FA;`/`FB;`, `25 01`) put right
+    /// anything this leaves stale. A command seen going to the rig (a set
+    /// of the VFO in use) is an intent, not an echo: taken by the state.
+    fn operating_vfo(&self, hz: u64, source: Source) -> Option<Vfo> {
+        let by_state = if self.transmit.state == TransmitState::Transmit {
+            self.tx
+        } else {
+            self.rx
+        };
+        if source == Source::CommandSeen {
+            return Some(by_state);
+        }
+        let seen_through_the_edge =
+            self.vfo_hz(other(by_state)) == Some(hz) && self.vfo_hz(by_state) != Some(hz);
+        (!seen_through_the_edge).then_some(by_state)
     }
 
     fn told_transmit(&mut self, now: Duration, on: bool, source: Source) {
@@ -501,6 +528,52 @@ mod tests {
         // "Other" is the VFO not receiving.
         s.apply(T0, freq(Which::Other, 14_190_000));
         assert_eq!(s.vfo_hz(Vfo::A), Some(14_190_000));
+    }
+
+    #[test]
+    fn in_split_an_operating_report_equal_to_the_other_vfo_is_no_news() {
+        // Receive A 7.100 MHz, transmit B 7.105 MHz.
+        let mut s = Station::new(false);
+        s.apply(T0, freq(Which::Vfo(Vfo::A), 7_100_000));
+        s.apply(T0, freq(Which::Vfo(Vfo::B), 7_105_000));
+        let split_on = StationEvent::Split {
+            on: true,
+            source: Source::PollAnswer,
+        };
+        s.apply(T0, split_on);
+        let tx = |on| StationEvent::Transmit {
+            on,
+            source: Source::PollAnswer,
+        };
+        // Just keyed, not yet heard: the transmit VFO's frequency read as
+        // if the rig received. Not the receive VFO's news.
+        s.apply(T0, tx(false));
+        s.apply(T0, freq(Which::Receive, 7_105_000));
+        assert_eq!(s.vfo_hz(Vfo::A), Some(7_100_000));
+        // A receive retune new to both VFOs is the receive VFO's.
+        s.apply(T0, freq(Which::Receive, 7_101_000));
+        assert_eq!(s.vfo_hz(Vfo::A), Some(7_101_000));
+        // Just unkeyed, not yet heard: the receive VFO's frequency read as
+        // if the rig transmitted. Not the transmit VFO's news.
+        s.apply(T0, tx(true));
+        s.apply(T0, freq(Which::Receive, 7_101_000));
+        assert_eq!(s.transmit_hz(), Some(7_105_000));
+        // The transmit VFO tuned during the over.
+        s.apply(T0, freq(Which::Receive, 7_106_000));
+        assert_eq!(s.transmit_hz(), Some(7_106_000));
+        assert_eq!(s.receive_hz(), Some(7_101_000));
+        // A set seen going to the rig is an intent: taken by the state,
+        // whatever the other VFO is at.
+        s.apply(T0, tx(false));
+        s.apply(
+            T0,
+            StationEvent::Frequency {
+                which: Which::Receive,
+                hz: 7_106_000,
+                source: Source::CommandSeen,
+            },
+        );
+        assert_eq!(s.receive_hz(), Some(7_106_000));
     }
 
     #[test]
