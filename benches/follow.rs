@@ -74,7 +74,7 @@ fn bench(c: &mut Criterion) {
         .filter_map(|(t, h)| match h {
             Happening::Report { hz } => Some((*t, Ev::Frequency(*hz))),
             Happening::Transmit { on } => Some((*t, Ev::Transmit(*on))),
-            Happening::Noise { .. } => None,
+            Happening::Noise { .. } | Happening::Station(_) => None,
         })
         .collect();
     let mut group = c.benchmark_group("follow");

@@ -59,8 +59,10 @@ use crate::config::{Approach, Config};
 use crate::follow::{Placement, Policy};
 use crate::replay::{Chunk, Replay};
 use crate::rig::Direction;
+use crate::rig::StationMessage;
 use crate::scenario::{
-    fewest_moves_groups, random_evening, spotting_evening, Happening, Retune, RetuneKind, Scenario,
+    fewest_moves_groups, programs_evening, random_evening, split_evening, spotting_evening,
+    Happening, Retune, RetuneKind, RigTruth, Scenario,
 };
 use crate::station::{DialectWire, Station, StationError};
 
@@ -77,6 +79,11 @@ pub enum Family {
     Classic,
     /// [`spotting_evening`]: band-map clicks and memory recalls with calls.
     Spotting,
+    /// [`split_evening`]: split set by another program, VFO swaps.
+    Split,
+    /// [`programs_evening`]: frequency sets and CAT-keyed overs from other
+    /// programs, data-mode cycles.
+    Programs,
 }
 
 impl Family {
@@ -84,13 +91,30 @@ impl Family {
         match self {
             Family::Classic => "classic",
             Family::Spotting => "spotting",
+            Family::Split => "split",
+            Family::Programs => "programs",
         }
     }
+
+    /// The family named `name`.
+    pub fn from_name(name: &str) -> Option<Family> {
+        Family::ALL.into_iter().find(|f| f.name() == name)
+    }
+
+    /// Every family, in the order bench-follow runs them.
+    pub const ALL: [Family; 4] = [
+        Family::Classic,
+        Family::Spotting,
+        Family::Split,
+        Family::Programs,
+    ];
 
     pub fn evening(self, seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
         match self {
             Family::Classic => random_evening(seed, hours, bands),
             Family::Spotting => spotting_evening(seed, hours, bands),
+            Family::Split => split_evening(seed, hours, bands),
+            Family::Programs => programs_evening(seed, hours, bands),
         }
     }
 }
@@ -118,6 +142,8 @@ pub struct BenchOptions {
 impl Default for BenchOptions {
     fn default() -> Self {
         BenchOptions {
+            // Issue 15's families; `--family` adds issue 10's (split,
+            // programs), whose CAT-keyed calls are held off by design.
             families: vec![Family::Classic, Family::Spotting],
             seeds: (1..=5).collect(),
             hours: 4.0,
@@ -163,6 +189,10 @@ pub struct Row {
     /// Starts of a leg while the rig was on the air, or with the inhibit
     /// off, or outside the limits (the replay's own count; always 0).
     pub violations: u64,
+    /// Time the capacitor was moving while the rig was on the air or a
+    /// transmit command from another program was in force, in s (the
+    /// bench's own count from the simulated motor; always 0).
+    pub moved_keyed_s: f64,
 }
 
 /// A dwell where the station's policy left the loop above 1.5:1 while the
@@ -216,7 +246,12 @@ fn find_row<'a>(rows: &'a [Row], policy: &str) -> Option<&'a Row> {
 /// optimum's moves, judged on `rows`.
 fn swr_target_met(rows: &[Row]) -> bool {
     match (find_row(rows, "follow"), find_row(rows, "optimum")) {
-        (Some(f), Some(o)) => f.over_1_5_s == 0.0 && f.moves as f64 <= 1.3 * o.moves as f64,
+        (Some(f), Some(o)) => {
+            f.over_1_5_s == 0.0
+                && f.moves as f64 <= 1.3 * o.moves as f64
+                && f.violations == 0
+                && f.moved_keyed_s == 0.0
+        }
         _ => false,
     }
 }
@@ -376,6 +411,7 @@ struct Tally {
     jump_excess: Vec<f64>,
     sweep_waits: Vec<f64>,
     violations: u64,
+    moved_keyed: f64,
     short: Vec<ShortDwell>,
 }
 
@@ -417,6 +453,7 @@ impl Tally {
             sweep_wait_p95_s: percentile(&self.sweep_waits, 0.95),
             sweep_wait_max_s: percentile(&self.sweep_waits, 1.0),
             violations: self.violations,
+            moved_keyed_s: self.moved_keyed,
         }
     }
 
@@ -433,6 +470,7 @@ impl Tally {
         self.jump_excess.extend(&o.jump_excess);
         self.sweep_waits.extend(&o.sweep_waits);
         self.violations += o.violations;
+        self.moved_keyed += o.moved_keyed;
         self.short.extend(o.short.iter().cloned());
     }
 }
@@ -536,6 +574,8 @@ fn run_policy(
         address: station.config.rig.address.unwrap_or(0x94),
     };
     let request = |what: &Happening| crate::scenario::Wire::request(&asks, what);
+    // Where the rig transmits (the scenario's truth), scored there.
+    let mut truth = RigTruth::new(0);
     let mut hz = 0u64;
     // When the operator arrived on `hz`.
     let mut dwell_at = Duration::ZERO;
@@ -544,8 +584,13 @@ fn run_policy(
     // The operator holds the key.
     let mut keyed = false;
     // Keyed under the inhibit: the rig is held off in receive; its
-    // transmit report, kept here, goes out when the inhibit is released.
-    let mut held: Option<(&Happening, &[u8])> = None;
+    // transmit report, kept here, goes out when the inhibit is released
+    // (`None` inside: keyed by a command the core has already seen).
+    let mut held: Option<Option<(&Happening, &[u8])>> = None;
+    // The capacitor moved while the rig was on the air, or while another
+    // program's transmit command was in force (seen by the core), in s.
+    let mut moved_keyed = 0.0;
+    let mut by_command = false;
     let mut prev = Duration::ZERO;
     // The last SWR worked out, by capacitor position and frequency.
     let mut cache: Option<(f64, u64, f64)> = None;
@@ -554,10 +599,12 @@ fn run_policy(
             let mut ts = prev;
             while ts < *t {
                 replay.advance(ts)?;
-                if let Some((what, report)) = held {
+                if let Some(kept) = held {
                     if !replay.core().inhibit() {
                         // Released: the rig goes on the air now.
                         held = None;
+                    }
+                    if let (None, Some((what, report))) = (held, kept) {
                         let asked = request(what);
                         if !asked.is_empty() {
                             replay.feed(Chunk {
@@ -581,6 +628,13 @@ fn run_policy(
                 };
                 let te = (ts + step).min(*t);
                 let dur = (te - ts).as_secs_f64();
+                // The motor's plan over the step: moving on the air, or
+                // while a transmit command the core has seen is in force.
+                if (held.is_none() || by_command)
+                    && replay.tuner().capacitor_at(ts) != replay.tuner().capacitor_at(te)
+                {
+                    moved_keyed += dur;
+                }
                 tally.transmit += dur;
                 if held.is_some() {
                     tally.inhibited += dur;
@@ -624,18 +678,34 @@ fn run_policy(
             }
         }
         let mut feed = true;
+        truth.apply(what);
+        if truth.transmit_hz() != hz {
+            dwell_at = *t;
+            hz = truth.transmit_hz();
+        }
         match what {
-            Happening::Report { hz: f } => {
-                if *f != hz {
-                    dwell_at = *t;
+            Happening::Report { .. } => {}
+            Happening::Station(StationMessage::Transmit { on: true }) => {
+                // Keyed by another program: the core sees the command at
+                // once (fed below); the rig is held off under the inhibit.
+                keyed = true;
+                by_command = true;
+                replay.advance(*t)?;
+                if replay.core().inhibit() {
+                    held = Some(None);
                 }
-                hz = *f;
             }
+            Happening::Station(StationMessage::Transmit { on: false }) => {
+                keyed = false;
+                by_command = false;
+                held = None;
+            }
+            Happening::Station(_) => {}
             Happening::Transmit { on: true } => {
                 keyed = true;
                 replay.advance(*t)?;
                 if replay.core().inhibit() {
-                    held = Some((what, bytes));
+                    held = Some(Some((what, bytes)));
                     feed = false;
                 }
             }
@@ -675,6 +745,7 @@ fn run_policy(
         };
     }
     tally.short.extend(short);
+    tally.moved_keyed += moved_keyed;
     tally.moves += summary.moves;
     tally.travel += summary.steps;
     tally.violations += summary.violations;
@@ -954,12 +1025,13 @@ pub fn write_table(report: &BenchReport, out: &mut dyn Write) -> std::io::Result
         ) {
             writeln!(
                 out,
-                "  targets on {}: held off {:.2}x naive, jump p95 {:.0} ms over floor, {:.2}x optimum's moves, swr<=1.5 {:.2}%: waits {}, swr/moves {}",
+                "  targets on {}: held off {:.2}x naive, jump p95 {:.0} ms over floor, {:.2}x optimum's moves, swr<=1.5 {:.2}%, moving while keyed {:.1} s: waits {}, swr/moves {}",
                 fam.family,
                 f.inhibited_s / n.inhibited_s.max(1e-9),
                 1000.0 * f.jump_excess_p95_s,
                 f.moves as f64 / (o.moves.max(1)) as f64,
                 f.swr_1_5_pct,
+                f.moved_keyed_s,
                 if fam.wait_target_met() { "met" } else { "missed" },
                 if fam.target_met() { "met" } else { "missed" }
             )?;
@@ -1061,6 +1133,44 @@ mod tests {
             "{} vs {}",
             f0 - hz,
             e / slope
+        );
+    }
+
+    #[test]
+    fn split_and_other_programs_are_scored_at_the_transmit_frequency() {
+        // Seeds 1 and 2 (tuning seeds), two hours of each new family.
+        let st = station();
+        let options = BenchOptions {
+            families: vec![Family::Split, Family::Programs],
+            seeds: vec![1, 2],
+            hours: 2.0,
+            ..BenchOptions::default()
+        };
+        let r = bench_follow(&st, "test", &options).unwrap();
+        for fam in &r.families {
+            let f = find_row(&fam.rows, "follow").unwrap();
+            assert_eq!(f.over_1_5_s, 0.0, "{}: {f:?}", fam.family);
+            assert_eq!(f.violations, 0, "{}", fam.family);
+            assert_eq!(f.moved_keyed_s, 0.0, "{}", fam.family);
+            assert!(fam.target_met(), "{}: {:?}", fam.family, fam.rows);
+        }
+        // The score is at the transmit frequency: a policy tuning for the
+        // receive VFO falls short on the split family.
+        let mut rx = st.policy.clone();
+        rx.tune_for = crate::follow::TuneFor::Receive;
+        let physics = SmallLoop::from_config(&st.config.antenna).unwrap();
+        let sim_loop = SimLoop::new(st.map.as_ref(), physics, &rx, 3.0, 20_000.0);
+        let sc = Family::Split.evening(1, 2.0, &rx.band_ranges());
+        let wire = DialectWire {
+            dialect: &st.dialect,
+            address: 0x94,
+        };
+        let mut tally = Tally::default();
+        run_policy(&st, &rx, &sc, &sc.answers(&wire), &sim_loop, &mut tally).unwrap();
+        assert!(
+            tally.radiated - tally.ok_1_5 > 60.0,
+            "{}",
+            tally.radiated - tally.ok_1_5
         );
     }
 

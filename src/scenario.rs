@@ -6,7 +6,7 @@
 
 use std::time::Duration;
 
-use crate::rig::Direction;
+use crate::rig::{Direction, StationMessage, Vfo};
 
 /// Something the rig reports, or noise on the line.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -17,12 +17,102 @@ pub enum Happening {
     Transmit { on: bool },
     /// Bytes that are not a report: RF on the cable, a half frame.
     Noise { bytes: Vec<u8> },
+    /// The rig's report of the VFO it operates on, or a command another
+    /// program sends to the rig (a set, a VFO select, split, keying): see
+    /// [`StationMessage`]. Commands travel to the rig ([`Direction::Tx`]).
+    Station(StationMessage),
+}
+
+impl Happening {
+    /// Which way its bytes travel on the rig's port.
+    pub fn direction(&self) -> Direction {
+        match self {
+            Happening::Station(m) if m.to_rig() => Direction::Tx,
+            _ => Direction::Rx,
+        }
+    }
+}
+
+fn other(v: Vfo) -> Vfo {
+    match v {
+        Vfo::A => Vfo::B,
+        Vfo::B => Vfo::A,
+    }
+}
+
+/// What the rig is doing in a scenario, as its happenings say: both VFOs'
+/// frequencies, which one receives, and split. The truth a scenario is
+/// scored against: the loop must be tuned for [`RigTruth::transmit_hz`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RigTruth {
+    vfo: [u64; 2],
+    rx: Vfo,
+    split: bool,
+}
+
+impl RigTruth {
+    /// Both VFOs on `hz`, receiving on A, no split.
+    pub fn new(hz: u64) -> RigTruth {
+        RigTruth {
+            vfo: [hz, hz],
+            rx: Vfo::A,
+            split: false,
+        }
+    }
+
+    fn slot(v: Vfo) -> usize {
+        match v {
+            Vfo::A => 0,
+            Vfo::B => 1,
+        }
+    }
+
+    /// Takes in what happened.
+    pub fn apply(&mut self, what: &Happening) {
+        use StationMessage as M;
+        match *what {
+            Happening::Report { hz } => self.vfo[Self::slot(self.rx)] = hz,
+            Happening::Station(M::Operating { vfo, hz } | M::SetFrequency { vfo, hz, .. }) => {
+                self.vfo[Self::slot(vfo)] = hz
+            }
+            Happening::Station(M::SelectVfo { vfo }) => self.rx = vfo,
+            Happening::Station(M::Split { on, .. }) => self.split = on,
+            _ => {}
+        }
+    }
+
+    pub fn receive_vfo(&self) -> Vfo {
+        self.rx
+    }
+    pub fn split(&self) -> bool {
+        self.split
+    }
+    pub fn vfo_hz(&self, v: Vfo) -> u64 {
+        self.vfo[Self::slot(v)]
+    }
+    pub fn receive_hz(&self) -> u64 {
+        self.vfo_hz(self.rx)
+    }
+    /// Where the rig transmits: the VFO other than the receive VFO in split.
+    pub fn transmit_hz(&self) -> u64 {
+        if self.split {
+            self.vfo_hz(other(self.rx))
+        } else {
+            self.receive_hz()
+        }
+    }
 }
 
 /// How a rig family puts a report on the wire.
 pub trait Wire {
     fn frequency(&self, hz: u64) -> Vec<u8>;
     fn transmit(&self, on: bool) -> Vec<u8>;
+    /// A [`StationMessage`]'s bytes; empty for a family without it (the
+    /// scenario families that need them are not run on such a family).
+    fn station(&self, m: &StationMessage) -> Vec<u8> {
+        let _ = m;
+        Vec::new()
+    }
     /// The read that prompts `what`, sent to the rig just before its
     /// answer, for a family that never speaks unasked (the block family
     /// pairs each answer with its request); empty for a family that
@@ -39,6 +129,7 @@ fn answer(wire: &dyn Wire, what: &Happening) -> Vec<u8> {
         Happening::Report { hz } => wire.frequency(*hz),
         Happening::Transmit { on } => wire.transmit(*on),
         Happening::Noise { bytes } => bytes.clone(),
+        Happening::Station(m) => wire.station(m),
     }
 }
 
@@ -82,6 +173,9 @@ pub struct Script {
     /// polled, or one that announces periodically).
     repeat: Option<Duration>,
     dwell_start: Duration,
+    /// The rig as the happenings so far leave it; dwells are on its
+    /// transmit frequency (`hz` is its receive frequency).
+    rig: RigTruth,
 }
 
 impl Script {
@@ -98,6 +192,7 @@ impl Script {
             retunes: Vec::new(),
             repeat: None,
             dwell_start: Duration::ZERO,
+            rig: RigTruth::new(hz),
         };
         s.push(Happening::Report { hz });
         s
@@ -119,7 +214,22 @@ impl Script {
     }
 
     fn push(&mut self, what: Happening) {
+        self.rig.apply(&what);
         self.steps.push((self.now, what));
+    }
+
+    /// The rig as the scenario has left it so far.
+    pub fn rig(&self) -> RigTruth {
+        self.rig
+    }
+
+    /// The rig's report of its receive frequency `hz`: the plain report on
+    /// VFO A, the named VFO's otherwise.
+    fn receive_report(&self, hz: u64) -> Happening {
+        match self.rig.receive_vfo() {
+            Vfo::A => Happening::Report { hz },
+            vfo => Happening::Station(StationMessage::Operating { vfo, hz }),
+        }
     }
 
     /// Lets `d` pass on the current frequency, with repeats if enabled.
@@ -128,8 +238,8 @@ impl Script {
         if let Some(every) = self.repeat.filter(|e| !e.is_zero()) {
             while self.now + every < end {
                 self.now += every;
-                let hz = self.hz;
-                self.push(Happening::Report { hz });
+                let report = self.receive_report(self.hz);
+                self.push(report);
             }
         }
         self.now = end;
@@ -139,7 +249,7 @@ impl Script {
     fn close_dwell(&mut self) {
         if self.now > self.dwell_start {
             self.dwells.push(Dwell {
-                hz: self.hz,
+                hz: self.rig.transmit_hz(),
                 from: self.dwell_start,
                 to: self.now,
             });
@@ -148,8 +258,13 @@ impl Script {
 
     /// Turns the knob to `to_hz` in steps of `step_hz`, one report every
     /// `every` (as a rig reports while its VFO turns).
+    /// In split only the receive VFO turns: the transmit frequency, and so
+    /// the dwell, stays.
     pub fn sweep(&mut self, to_hz: u64, step_hz: u64, every: Duration) -> &mut Self {
-        self.close_dwell();
+        let split = self.rig.split();
+        if !split {
+            self.close_dwell();
+        }
         let step = step_hz.max(1);
         let turned = self.hz != to_hz;
         while self.hz != to_hz {
@@ -159,8 +274,11 @@ impl Script {
             } else {
                 self.hz.saturating_sub(step).max(to_hz)
             };
-            let hz = self.hz;
-            self.push(Happening::Report { hz });
+            let report = self.receive_report(self.hz);
+            self.push(report);
+        }
+        if split {
+            return self;
         }
         self.dwell_start = self.now;
         if turned {
@@ -175,16 +293,112 @@ impl Script {
 
     /// Jumps to `hz` at once (a band change, a memory recall).
     pub fn jump(&mut self, hz: u64) -> &mut Self {
-        self.close_dwell();
+        let report = self.receive_report(hz);
+        self.change(&[report], true)
+    }
+
+    /// `what`, 50 ms from now and then 20 ms apart (one message after the
+    /// other on the port): a change of the rig's state in one go. When it
+    /// moves the transmit frequency, the dwell before it ends and a new
+    /// one starts at the last message, a retune by jump (`always`: even
+    /// onto the same frequency, as a band change or recall is).
+    fn change(&mut self, what: &[Happening], always: bool) -> &mut Self {
+        let before = self.rig;
+        let mut after = before;
+        for w in what {
+            after.apply(w);
+        }
+        let retune = always || after.transmit_hz() != before.transmit_hz();
+        if retune {
+            self.close_dwell();
+        }
         self.now += Duration::from_millis(50);
-        self.hz = hz;
-        self.push(Happening::Report { hz });
-        self.dwell_start = self.now;
-        self.retunes.push(Retune {
-            at: self.now,
-            hz,
-            kind: RetuneKind::Jump,
-        });
+        for (i, w) in what.iter().enumerate() {
+            if i > 0 {
+                self.now += Duration::from_millis(20);
+            }
+            self.push(w.clone());
+        }
+        self.hz = self.rig.receive_hz();
+        if retune {
+            self.dwell_start = self.now;
+            self.retunes.push(Retune {
+                at: self.now,
+                hz: self.rig.transmit_hz(),
+                kind: RetuneKind::Jump,
+            });
+        }
+        self
+    }
+
+    /// Another program sets the VFO in use to `hz` (a logging program's
+    /// band-map click, a data-mode program's band change), seen going to
+    /// the rig; the rig says nothing (the core learns it from the set).
+    pub fn set_by_program(&mut self, hz: u64) -> &mut Self {
+        let vfo = self.rig.receive_vfo();
+        self.change(
+            &[Happening::Station(StationMessage::SetFrequency {
+                vfo,
+                selected: true,
+                hz,
+            })],
+            false,
+        )
+    }
+
+    /// Split `offset_hz` from the receive frequency: another program sets
+    /// the VFO not in use there and turns split on.
+    pub fn split_by_program(&mut self, offset_hz: i64) -> &mut Self {
+        let rx = self.rig.receive_vfo();
+        let hz = self.hz.saturating_add_signed(offset_hz);
+        self.change(
+            &[
+                Happening::Station(StationMessage::SetFrequency {
+                    vfo: other(rx),
+                    selected: false,
+                    hz,
+                }),
+                Happening::Station(StationMessage::Split { on: true, rx }),
+            ],
+            false,
+        )
+    }
+
+    /// Split off, by another program.
+    pub fn unsplit_by_program(&mut self) -> &mut Self {
+        let rx = self.rig.receive_vfo();
+        self.change(
+            &[Happening::Station(StationMessage::Split { on: false, rx })],
+            false,
+        )
+    }
+
+    /// The other VFO selected (A/B), by another program; the rig then
+    /// reports the frequency it now operates on.
+    pub fn swap_vfo_by_program(&mut self) -> &mut Self {
+        let vfo = other(self.rig.receive_vfo());
+        let hz = self.rig.vfo_hz(vfo);
+        self.change(
+            &[
+                Happening::Station(StationMessage::SelectVfo { vfo }),
+                Happening::Station(StationMessage::Operating { vfo, hz }),
+            ],
+            false,
+        )
+    }
+
+    /// `times` overs keyed by another program's transmit command (a
+    /// data-mode program, a logging program sending a macro): `on`
+    /// transmitting from its transmit command to its receive command.
+    pub fn cat_overs(&mut self, times: u32, on: Duration, off: Duration) -> &mut Self {
+        for _ in 0..times {
+            let start = self.now;
+            self.push(Happening::Station(StationMessage::Transmit { on: true }));
+            self.wait(on);
+            self.push(Happening::Station(StationMessage::Transmit { on: false }));
+            self.transmit.push((start, self.now));
+            self.wait(off);
+        }
         self
     }
 
@@ -257,7 +471,7 @@ pub fn write_capture<W: std::io::Write>(
             w.write_record(*t, Direction::Tx, &request)?;
             records += 1;
         }
-        w.write_record(*t, Direction::Rx, &bytes)?;
+        w.write_record(*t, what.direction(), &bytes)?;
         records += 1;
     }
     w.flush()?;
@@ -289,7 +503,7 @@ impl Scenario {
             if !request.is_empty() && !bytes.is_empty() {
                 out.push((*t, Direction::Tx, request));
             }
-            out.push((*t, Direction::Rx, bytes));
+            out.push((*t, what.direction(), bytes));
         }
         out
     }
@@ -300,7 +514,7 @@ impl Scenario {
     pub fn answers(&self, wire: &dyn Wire) -> Vec<(Duration, Direction, Vec<u8>)> {
         self.steps
             .iter()
-            .map(|(t, what)| (*t, Direction::Rx, answer(wire, what)))
+            .map(|(t, what)| (*t, what.direction(), answer(wire, what)))
             .collect()
     }
 }
@@ -552,6 +766,208 @@ pub fn spotting_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario
     s.clone().finish()
 }
 
+/// An evening of working split and swapping VFOs, with a logging program
+/// sharing the rig's port (proxy mode): the third scenario family of
+/// `bench-follow`. Invented, with proportions judged, not measured (common
+/// practice, no source): of the operator's doings, 25 % are going split for
+/// a station that listens up (the logging program sets the VFO not in use
+/// 1 to 5 kHz above the receive frequency and turns split on; calls on
+/// that VFO, the first within 0.3 to 3 s, while the receive VFO is often
+/// tuned around the pile-up; split off at the end), 10 % VFO A/B swaps by
+/// the program (the rig reports the VFO it now operates on; in split this
+/// also swaps which VFO transmits), 25 % staying to work the station, 15 %
+/// small knob retunes of the receive VFO (with a call at once a third of
+/// the time), 10 % band changes (split off first), 10 % knob sweeps
+/// across the band and 5 % noise on the line.
+pub fn split_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
+    let mut rng = fastrand::Rng::with_seed(seed ^ 0x5b11);
+    let s = &mut Script::new(seed, rng.u64(first.0..=first.1.saturating_sub(5_000)));
+    let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
+    let ms = Duration::from_millis;
+    let sec = Duration::from_secs;
+    let mut band = first;
+    let call = |s: &mut Script, rng: &mut fastrand::Rng| {
+        for _ in 0..rng.u32(1..=3) {
+            let on = ms(rng.u64(3_000..=15_000));
+            s.overs(1, on, ms(rng.u64(2_000..=12_000)));
+        }
+    };
+    while s.now() < end {
+        match rng.u32(0..100) {
+            // Split for a station listening up.
+            0..=24 => {
+                if !s.rig().split() {
+                    // Room above for the transmit VFO inside the band.
+                    let room = band.1.saturating_sub(s.hz());
+                    if room < 1_000 {
+                        s.jump(band.0 + rng.u64(0..=(band.1 - band.0) / 2));
+                    }
+                    let up = rng.u64(1_000..=5_000).min(band.1.saturating_sub(s.hz()));
+                    s.split_by_program(up as i64);
+                }
+                s.wait(ms(rng.u64(300..=3_000)));
+                for _ in 0..rng.u32(1..=4) {
+                    call(s, &mut rng);
+                    if rng.bool() {
+                        // Listening around the pile-up on the receive VFO.
+                        let delta = rng.u64(100..=1_500);
+                        let to = if rng.bool() {
+                            s.hz().saturating_add(delta)
+                        } else {
+                            s.hz().saturating_sub(delta)
+                        }
+                        .clamp(band.0, band.1);
+                        s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                        s.wait(ms(rng.u64(200..=3_000)));
+                    }
+                }
+                if rng.u32(0..3) > 0 {
+                    s.unsplit_by_program();
+                    s.wait(sec(rng.u64(2..=20)));
+                }
+            }
+            // The other VFO.
+            25..=34 => {
+                s.swap_vfo_by_program();
+                s.wait(ms(rng.u64(300..=5_000)));
+                if rng.bool() {
+                    call(s, &mut rng);
+                }
+                s.wait(sec(rng.u64(2..=30)));
+            }
+            // Stay and work the station.
+            35..=59 => {
+                s.wait(sec(rng.u64(2..=30)));
+                call(s, &mut rng);
+            }
+            // A small knob retune of the receive VFO.
+            60..=74 => {
+                let delta = rng.u64(100..=3_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                quick_call(s, &mut rng);
+                s.wait(sec(rng.u64(5..=60)));
+            }
+            // Another band: split off first.
+            75..=84 => {
+                if s.rig().split() {
+                    s.unsplit_by_program();
+                }
+                if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
+                    band = *b;
+                    s.jump(rng.u64(b.0..=b.1));
+                    quick_call(s, &mut rng);
+                    s.wait(sec(rng.u64(5..=60)));
+                }
+            }
+            // Tune across the band (the receive VFO) looking for a contact.
+            85..=94 => {
+                let to = rng.u64(band.0..=band.1);
+                s.sweep(to, rng.u64(200..=2_000), ms(rng.u64(20..=100)));
+                s.wait(sec(rng.u64(5..=60)));
+            }
+            _ => {
+                let n = rng.usize(1..=64);
+                s.noise(n).wait(ms(rng.u64(100..=5_000)));
+            }
+        }
+    }
+    s.clone().finish()
+}
+
+/// An evening of other programs driving the rig through the shared port
+/// (proxy mode): the fourth scenario family of `bench-follow`. Invented,
+/// with proportions judged, not measured (common practice, no source): of
+/// the operator's doings, 35 % are band-map clicks (the logging program
+/// sets the VFO in use to a spot 5 to 150 kHz away in the band and keys
+/// the rig by command 50 to 100 ms later four times in five, overs of 3 to
+/// 15 s ended by its receive command), 30 % data-mode cycles (the data
+/// program keys the rig by command for 12.6 to 13 s of every other 15 s
+/// slot, 2 to 8 overs), 10 % a data-mode program's band change (a set to
+/// a frequency in another band, then its cycles), 15 % small knob retunes
+/// with a call keyed on the rig a third of the time, 5 % listening and 5 %
+/// noise on the line.
+pub fn programs_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
+    let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
+    let mut rng = fastrand::Rng::with_seed(seed ^ 0xca7);
+    let s = &mut Script::new(seed, rng.u64(first.0..=first.1));
+    let end = Duration::from_secs_f64(hours.max(0.0) * 3600.0);
+    let ms = Duration::from_millis;
+    let sec = Duration::from_secs;
+    let mut band = first;
+    let cycles = |s: &mut Script, rng: &mut fastrand::Rng| {
+        let n = rng.u32(2..=8);
+        for _ in 0..n {
+            let on = ms(rng.u64(12_600..=13_000));
+            s.cat_overs(1, on, ms(30_000) - on);
+        }
+    };
+    while s.now() < end {
+        match rng.u32(0..100) {
+            // A band-map click, the logging program calling at once.
+            0..=34 => {
+                let delta = rng.u64(5_000..=150_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.set_by_program(to);
+                if rng.u32(0..5) < 4 {
+                    s.wait(ms(rng.u64(50..=100)));
+                    for _ in 0..rng.u32(1..=3) {
+                        let on = ms(rng.u64(3_000..=15_000));
+                        s.cat_overs(1, on, ms(rng.u64(2_000..=12_000)));
+                    }
+                }
+                s.wait(sec(rng.u64(5..=40)));
+            }
+            // Data-mode cycles where the rig is.
+            35..=64 => {
+                s.wait(ms(rng.u64(500..=15_000)));
+                cycles(s, &mut rng);
+            }
+            // The data program takes the rig to another band.
+            65..=74 => {
+                if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
+                    band = *b;
+                    s.set_by_program(rng.u64(b.0..=b.1));
+                    s.wait(ms(rng.u64(500..=15_000)));
+                    cycles(s, &mut rng);
+                }
+            }
+            // A small knob retune on the rig itself.
+            75..=89 => {
+                let delta = rng.u64(100..=3_000);
+                let to = if rng.bool() {
+                    s.hz().saturating_add(delta)
+                } else {
+                    s.hz().saturating_sub(delta)
+                }
+                .clamp(band.0, band.1);
+                s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
+                quick_call(s, &mut rng);
+                s.wait(sec(rng.u64(5..=60)));
+            }
+            90..=94 => {
+                s.wait(sec(rng.u64(10..=120)));
+            }
+            _ => {
+                let n = rng.usize(1..=64);
+                s.noise(n).wait(ms(rng.u64(100..=5_000)));
+            }
+        }
+    }
+    s.clone().finish()
+}
+
 /// Sometimes the operator calls at once after tuning, before the debounce
 /// has run out: the move then has to wait for the end of the over.
 fn quick_call(s: &mut Script, rng: &mut fastrand::Rng) {
@@ -774,6 +1190,49 @@ mod tests {
     }
 
     #[test]
+    fn split_and_program_evenings_dwell_on_the_transmit_frequency() {
+        let bands = [(7_000_000, 7_200_000), (14_000_000, 14_350_000)];
+        let a = split_evening(3, 2.0, &bands);
+        assert_eq!(a.steps, split_evening(3, 2.0, &bands).steps);
+        assert!(a.steps.windows(2).all(|w| w[0].0 <= w[1].0));
+        // Replaying the happenings gives every dwell's frequency as the
+        // transmit frequency; split dwells are 1-5 kHz above the receive
+        // frequency.
+        let mut rig = RigTruth::new(0);
+        let mut i = 0;
+        let mut split_dwells = 0;
+        for d in &a.dwells {
+            while i < a.steps.len() && a.steps[i].0 <= d.from {
+                rig.apply(&a.steps[i].1);
+                i += 1;
+            }
+            assert_eq!(rig.transmit_hz(), d.hz, "{d:?}");
+            if rig.split() {
+                split_dwells += 1;
+                let up = rig.transmit_hz() as i64 - rig.receive_hz() as i64;
+                assert!(up != 0 && up.abs() <= 5_000, "{up}");
+            }
+        }
+        assert!(split_dwells > 20, "{split_dwells}");
+        // Commands go to the rig.
+        assert!(a.steps.iter().any(|(_, h)| matches!(
+            h,
+            Happening::Station(StationMessage::Split { on: true, .. })
+        ) && h.direction() == Direction::Tx));
+        let p = programs_evening(3, 2.0, &bands);
+        // Most overs keyed by command (the rest are calls keyed on the rig
+        // after a knob retune).
+        let keyed = p
+            .steps
+            .iter()
+            .filter(|(_, h)| *h == Happening::Station(StationMessage::Transmit { on: true }))
+            .count();
+        let n = p.transmit.len();
+        assert!(keyed <= n && keyed * 10 >= n * 8, "{keyed} of {n}");
+        assert!(keyed > 100, "{keyed}");
+    }
+
+    #[test]
     fn demo_evening_is_repeatable() {
         let a = demo_evening();
         let b = demo_evening();
@@ -795,7 +1254,7 @@ mod tests {
             match what {
                 Happening::Report { .. } => b"?".to_vec(),
                 Happening::Transmit { .. } => b"!".to_vec(),
-                Happening::Noise { .. } => Vec::new(),
+                Happening::Noise { .. } | Happening::Station(_) => Vec::new(),
             }
         }
     }
@@ -817,7 +1276,7 @@ mod tests {
             let want: &[u8] = match what {
                 Happening::Report { .. } => b"?",
                 Happening::Transmit { .. } => b"!",
-                Happening::Noise { .. } => continue,
+                Happening::Noise { .. } | Happening::Station(_) => continue,
             };
             let at = chunks
                 .iter()

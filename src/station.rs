@@ -269,6 +269,9 @@ impl crate::scenario::Wire for DialectWire<'_> {
     fn transmit(&self, on: bool) -> Vec<u8> {
         self.dialect.encode_transmit(on, self.address)
     }
+    fn station(&self, m: &crate::rig::StationMessage) -> Vec<u8> {
+        self.dialect.encode_station(m, self.address)
+    }
     /// The block family answers only when asked: its frequency read before
     /// a frequency, its transmit-status read before a transmit state.
     fn request(&self, what: &crate::scenario::Happening) -> Vec<u8> {
@@ -279,7 +282,7 @@ impl crate::scenario::Wire for DialectWire<'_> {
         match what {
             Happening::Report { .. } => self.dialect.poll_frequency(self.address),
             Happening::Transmit { .. } => self.dialect.poll_transmit(self.address),
-            Happening::Noise { .. } => Vec::new(),
+            Happening::Noise { .. } | Happening::Station(_) => Vec::new(),
         }
     }
 }

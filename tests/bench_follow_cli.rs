@@ -169,3 +169,48 @@ fn the_block_family_scores_as_the_binary_family_on_the_same_evenings() {
     // The optimum knows the evening, not the wire: identical.
     assert_eq!(blocks["rows"][2], binary["rows"][2]);
 }
+
+#[test]
+fn the_split_and_programs_families_are_chosen_by_name_and_judged() {
+    let out = tuneward(&[
+        "bench-follow",
+        "--family",
+        "split",
+        "--family",
+        "programs",
+        "--evenings",
+        "1",
+        "--hours",
+        "1",
+        "--json",
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let families: Vec<&str> = v["families"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|f| f["family"].as_str().unwrap())
+        .collect();
+    assert_eq!(families, ["split", "programs"]);
+    for f in v["families"].as_array().unwrap() {
+        let follow = &f["rows"][0];
+        assert_eq!(follow["policy"], "follow");
+        // Nothing moved while the rig was on the air or a program's
+        // transmit command was in force; nothing above 1.5:1 on the air.
+        assert_eq!(follow["moved_keyed_s"], 0.0, "{f}");
+        assert_eq!(follow["violations"], 0, "{f}");
+        assert_eq!(follow["over_1_5_s"], 0.0, "{f}");
+    }
+    let bad = tuneward(&["bench-follow", "--family", "pileup"]);
+    assert!(!bad.status.success());
+    let err = String::from_utf8_lossy(&bad.stderr);
+    assert!(
+        err.contains("expected classic, spotting, split, programs or all, found \"pileup\""),
+        "{err}"
+    );
+}

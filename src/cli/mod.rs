@@ -149,6 +149,10 @@ pub enum Command {
         /// Amplitude of the hidden calibration error, in motor steps.
         #[arg(long, default_value_t = 3.0, value_name = "STEPS")]
         error_steps: f64,
+        /// A scenario family to run (classic, spotting, split, programs, or
+        /// all); repeat for several [default: classic and spotting].
+        #[arg(long = "family", value_name = "NAME", value_parser = parse_family)]
+        families: Vec<Vec<tuneward::quality::Family>>,
         /// Write one JSON object instead of a table.
         #[arg(long)]
         json: bool,
@@ -373,14 +377,18 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
             first_seed,
             hours,
             error_steps,
+            families,
             json,
         } => {
-            let options = tuneward::quality::BenchOptions {
+            let mut options = tuneward::quality::BenchOptions {
                 seeds: (first_seed..first_seed.saturating_add(evenings)).collect(),
                 hours,
                 error_steps,
                 ..Default::default()
             };
+            if !families.is_empty() {
+                options.families = families.concat();
+            }
             tuneward::quality::run_bench(config.as_deref(), &options, json, &mut out)
                 .map(|_| ())
                 .map_err(|e| Failure::with_causes(&e))
@@ -443,4 +451,16 @@ pub fn execute(cli: Cli) -> Result<(), Failure> {
         Err(f) if f.closed_pipe => Ok(()),
         r => r,
     }
+}
+
+/// A `--family` of bench-follow (clap's value parsers return a `String`
+/// error).
+fn parse_family(name: &str) -> Result<Vec<tuneward::quality::Family>, String> {
+    use tuneward::quality::Family;
+    if name == "all" {
+        return Ok(Family::ALL.to_vec());
+    }
+    Family::from_name(name).map(|f| vec![f]).ok_or_else(|| {
+        format!("expected classic, spotting, split, programs or all, found {name:?}")
+    })
 }

@@ -52,6 +52,31 @@ pub enum Vfo {
     B,
 }
 
+/// A message about the station's VFOs or transmit state, for encoding
+/// (scenarios, tests, demos): the rig's report of the VFO it operates on,
+/// or a command another program sends to the rig.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum StationMessage {
+    /// The rig reports the frequency of `vfo`, the VFO it receives on.
+    Operating { vfo: Vfo, hz: u64 },
+    /// To the rig: set `vfo` to `hz`; `selected`: it is the VFO in use (the
+    /// binary family names VFOs by use, not A/B).
+    SetFrequency { vfo: Vfo, selected: bool, hz: u64 },
+    /// To the rig: receive (and, without split, transmit) on `vfo`.
+    SelectVfo { vfo: Vfo },
+    /// To the rig: split on (transmit on the VFO other than `rx`) or off.
+    Split { on: bool, rx: Vfo },
+    /// To the rig: transmit (`true`) or receive.
+    Transmit { on: bool },
+}
+
+impl StationMessage {
+    /// Whether the message travels to the rig (a command) rather than from it.
+    pub fn to_rig(&self) -> bool {
+        !matches!(self, StationMessage::Operating { .. })
+    }
+}
+
 /// Where a station event was learnt: from the rig itself, or from a command
 /// another program sent to the rig (seen in `proxy` mode or as an echo on a
 /// shared bus). A command is the operator's intent, not yet the rig's state.

@@ -113,6 +113,46 @@ impl BinarySpec {
         ]
     }
 
+    /// The frame of `m` (see `StationMessage`): the rig's broadcast of
+    /// its operating frequency, or a command from the controller address
+    /// to `rig_address`: `frequency_set` (the selected VFO) or
+    /// `vfo_frequency` with the unselected sub-command and the frequency,
+    /// `select_vfo`, `split`, and the transmit command with its
+    /// sub-command and 01/00.
+    pub fn encode_station(&self, m: &super::super::StationMessage, rig_address: u8) -> Vec<u8> {
+        use super::super::StationMessage as M;
+        let st = &self.station;
+        let field = |hz: u64| {
+            let mut f = vec![0; self.frequency_bytes];
+            bcd::encode_le_into(hz, &mut f);
+            f
+        };
+        let body: Vec<u8> = match *m {
+            M::Operating { hz, .. } => return self.encode_frequency(hz, rig_address),
+            M::SetFrequency {
+                selected: true, hz, ..
+            } => [&[st.frequency_set][..], &field(hz)].concat(),
+            M::SetFrequency { hz, .. } => {
+                [&[st.vfo_frequency, st.unselected_sub][..], &field(hz)].concat()
+            }
+            M::SelectVfo { vfo } => vec![
+                st.select_vfo,
+                match vfo {
+                    super::super::Vfo::A => st.vfo_a,
+                    super::super::Vfo::B => st.vfo_b,
+                },
+            ],
+            M::Split { on, .. } => vec![st.split, if on { st.split_on } else { st.split_off }],
+            M::Transmit { on } => vec![self.transmit, self.transmit_sub, u8::from(on)],
+        };
+        [
+            &[self.preamble, self.preamble, rig_address, self.controller][..],
+            &body,
+            &[self.terminator],
+        ]
+        .concat()
+    }
+
     /// A poll query with the addresses filled in.
     pub fn query(&self, slots: &[Slot], rig_address: u8) -> Vec<u8> {
         fill(slots, rig_address, self.controller)

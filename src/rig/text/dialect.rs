@@ -112,6 +112,48 @@ impl TextSpec {
         f
     }
 
+    /// The message `m` (see `StationMessage`): `FA`/`FB` with the
+    /// frequency for a report or a set, the receive-VFO command for a VFO
+    /// select, the transmit-VFO command for split (on: the VFO other than
+    /// the receive VFO), the transmit and receive messages for keying.
+    pub fn encode_station(&self, m: &super::super::StationMessage) -> Vec<u8> {
+        use super::super::StationMessage as M;
+        let name = |v: Vfo| match v {
+            Vfo::A => self.select_a,
+            Vfo::B => self.select_b,
+        };
+        let other = |v: Vfo| match v {
+            Vfo::A => Vfo::B,
+            Vfo::B => Vfo::A,
+        };
+        let mut f = match *m {
+            M::Operating { vfo, hz } | M::SetFrequency { vfo, hz, .. } => {
+                let modulus = 10u64.saturating_pow(self.digits as u32);
+                let mut f = match vfo {
+                    Vfo::A => self.vfo_a,
+                    Vfo::B => self.vfo_b,
+                }
+                .to_vec();
+                f.extend_from_slice(
+                    format!("{:0width$}", hz % modulus, width = self.digits).as_bytes(),
+                );
+                f
+            }
+            M::SelectVfo { vfo } => [&self.receive_vfo[..], &[name(vfo)]].concat(),
+            M::Split { on, rx } => {
+                let tx = if on { other(rx) } else { rx };
+                [&self.transmit_vfo[..], &[name(tx)]].concat()
+            }
+            M::Transmit { on } => {
+                let mut t = self.encode_transmit(on);
+                t.pop();
+                t
+            }
+        };
+        f.push(self.terminator);
+        f
+    }
+
     /// Every command whose messages the reporting decoder understands.
     pub(crate) fn known_commands(&self) -> impl Iterator<Item = &[u8; 2]> {
         [
