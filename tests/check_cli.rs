@@ -519,3 +519,21 @@ fn the_sense_line_is_printed_and_its_keys_judged() {
     assert_ne!(code, Some(0));
     assert!(err.contains("active_hi"), "{err}");
 }
+
+/// The configs we ship pass `check` without an error: a newcomer copying
+/// either starts from a station `run` would take.
+#[test]
+fn the_shipped_example_and_demo_configs_have_no_error() {
+    for config in ["config/example.toml", "config/demo.toml"] {
+        let (code, out, err) = check(&repo(config), &[]);
+        assert_eq!(code, Some(0), "{config}: {out}{err}");
+        let summary = out
+            .lines()
+            .find(|l| l.starts_with("findings: "))
+            .unwrap_or_else(|| panic!("{config}: no findings line in {out}"));
+        assert!(
+            summary.starts_with("findings: 0 errors,"),
+            "{config}: {summary}"
+        );
+    }
+}
