@@ -32,7 +32,7 @@ fn old_kinds(events: &[RigEvent], with_rejects: bool) -> Vec<RigEvent> {
 /// Pieces a station's port carries: the reporting decoder's messages,
 /// reads, malformed ones, noise, in both families; with `station_pieces`,
 /// messages only the station decoder reports too (the inactive VFO, the
-/// receive/transmit VFO, cut short).
+/// receive/transmit VFO, meter answers, cut short).
 fn piece(station_pieces: bool) -> impl Strategy<Value = Vec<u8>> {
     let mut texts: Vec<&'static [u8]> = vec![
         b"FA00014074000;",
@@ -68,6 +68,20 @@ fn piece(station_pieces: bool) -> impl Strategy<Value = Vec<u8>> {
             b"FT2;",
             b"FRx",
             b"FT",
+            // Meter reads and their answers (the dialects' [meter]),
+            // malformed ones and another meter's.
+            b"\xFE\xFE\x5A\xE0\x15\x02\xFD",
+            b"\xFE\xFE\xE0\x5A\x15\x02\x01\x20\xFD",
+            b"\xFE\xFE\xE0\x5A\x15\x12\x00\x48\xFD",
+            b"\xFE\xFE\xE0\x5A\x15\x02\x0A\x20\xFD",
+            b"\xFE\xFE\xE0\x5A\x15\x11\x01\xFD",
+            b"SM0;",
+            b"SM00015;",
+            b"SM0120;",
+            b"RM10005;",
+            b"RM6064;",
+            b"RM20005;",
+            b"SM0001x;",
         ]);
     }
     prop_oneof![

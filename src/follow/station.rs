@@ -427,7 +427,9 @@ pub fn from_rig(ev: &RigEvent, next: Option<&RigEvent>, polled: bool) -> Option<
                 OffsetKind::Rit => StationEvent::Rit { offset_hz },
             }
         }
-        RigEvent::Reject { .. } => return None,
+        // A meter reading is not the station's state: the session takes
+        // it for the search or the SWR watch that asked for it.
+        RigEvent::Reject { .. } | RigEvent::Meter { .. } => return None,
     })
 }
 

@@ -11,13 +11,14 @@
 use std::path::Path;
 
 use super::binary::BinaryDecoder;
-pub use super::binary::{BinarySpec, Slot, StationCodes};
+pub use super::binary::{BinaryMeter, BinarySpec, Slot, StationCodes};
 use super::block::BlockDecoder;
 pub use super::block::BlockSpec;
 pub use super::keys::DialectError;
 use super::keys::Reader;
+use super::meter::{MeterKind, MeterScale};
 use super::text::TextDecoder;
-pub use super::text::{StatusFlags, TextSpec, Vfo};
+pub use super::text::{StatusFlags, TextMeter, TextSpec, Vfo};
 use super::Decode;
 
 /// The wire-protocol families tuneward understands.
@@ -159,6 +160,7 @@ impl Dialect {
                     "transmit",
                     "poll",
                     "station",
+                    "meter",
                 ],
             )?;
         }
@@ -267,6 +269,54 @@ impl Dialect {
             Spec::Binary(s) => s.query(&s.poll_transmit, rig_address),
             Spec::Text(s) => s.poll_transmit.clone(),
             Spec::Block(s) => s.poll_transmit.clone(),
+        }
+    }
+
+    /// The read query for meter `kind`, where the dialect has that meter
+    /// (`[meter]`): checked when the dialect was loaded like every poll
+    /// query (a read, never a set, never keying). Only the station decoder
+    /// reads the answers ([`super::RigEvent::Meter`]).
+    pub fn meter_read(&self, kind: MeterKind, rig_address: u8) -> Option<Vec<u8>> {
+        match &self.spec {
+            Spec::Binary(s) => s
+                .meters
+                .iter()
+                .find(|m| m.kind == kind)
+                .map(|m| s.query(&m.read, rig_address)),
+            Spec::Text(s) => s
+                .meters
+                .iter()
+                .find(|m| m.kind == kind)
+                .map(|m| m.read.clone()),
+            Spec::Block(s) => s.meter(kind).map(|m| s.read_block(m.read)),
+        }
+    }
+
+    /// The scale of meter `kind` (raw reading to dBm, SWR or watts), where
+    /// the dialect has that meter.
+    pub fn meter_scale(&self, kind: MeterKind) -> Option<&MeterScale> {
+        match &self.spec {
+            Spec::Binary(s) => s.meters.iter().find(|m| m.kind == kind).map(|m| &m.scale),
+            Spec::Text(s) => s.meters.iter().find(|m| m.kind == kind).map(|m| &m.scale),
+            Spec::Block(s) => s.meter(kind).map(|m| &m.scale),
+        }
+    }
+
+    /// The meters this dialect reads, in [`MeterKind::ALL`] order.
+    pub fn meter_kinds(&self) -> Vec<MeterKind> {
+        MeterKind::ALL
+            .into_iter()
+            .filter(|k| self.meter_scale(*k).is_some())
+            .collect()
+    }
+
+    /// Bytes the rig would answer a meter read with, showing `raw`; None
+    /// where the dialect has no such meter. For the simulator and tests.
+    pub fn encode_meter(&self, kind: MeterKind, raw: u16, rig_address: u8) -> Option<Vec<u8>> {
+        match &self.spec {
+            Spec::Binary(s) => s.encode_meter(kind, raw, rig_address),
+            Spec::Text(s) => s.encode_meter(kind, raw),
+            Spec::Block(s) => s.encode_meter(kind, raw),
         }
     }
 
@@ -656,6 +706,315 @@ mod tests {
         let e = Dialect::resolve("absent.toml", Some(dir.path())).unwrap_err();
         assert!(matches!(e, DialectError::Io { .. }));
         assert!(e.to_string().contains("absent.toml"), "{e}");
+    }
+
+    fn station_events(
+        d: &Dialect,
+        bytes: &[(crate::rig::Direction, &[u8])],
+    ) -> Vec<crate::rig::RigEvent> {
+        let mut dec = d.station_decoder(None);
+        let mut quiet = d.decoder(None);
+        let mut out = Vec::new();
+        let mut plain = Vec::new();
+        for (dir, b) in bytes {
+            dec.feed(*dir, b, &mut out);
+            quiet.feed(*dir, b, &mut plain);
+        }
+        dec.finish(&mut out);
+        quiet.finish(&mut plain);
+        // The reporting decoder never reports a meter, nor rejects its
+        // answers: it frames them and passes on.
+        assert!(plain.is_empty(), "{plain:?}");
+        out
+    }
+
+    /// The meter reads are dialect data: the binary family's read-meter
+    /// command 0x15 with sub-commands 0x02 signal, 0x12 SWR, 0x11 power,
+    /// answered with two BCD bytes 0000-0255, most significant first
+    /// (recalled from the family's command references); frames worked by
+    /// hand from that layout.
+    #[test]
+    fn binary_meter_reads_and_answers() {
+        use crate::rig::meter::MeterKind;
+        use crate::rig::{Direction, RigEvent};
+        let d = Dialect::builtin("binary-bcd").unwrap();
+        assert_eq!(
+            d.meter_kinds(),
+            vec![MeterKind::Signal, MeterKind::Swr, MeterKind::Power]
+        );
+        assert_eq!(
+            d.meter_read(MeterKind::Signal, 0x94),
+            Some(vec![0xFE, 0xFE, 0x94, 0xE0, 0x15, 0x02, 0xFD])
+        );
+        assert_eq!(
+            d.meter_read(MeterKind::Swr, 0x94),
+            Some(vec![0xFE, 0xFE, 0x94, 0xE0, 0x15, 0x12, 0xFD])
+        );
+        // Raw 0120 (S9): FE FE E0 94 15 02 01 20 FD.
+        let s9 = [0xFE, 0xFE, 0xE0, 0x94, 0x15, 0x02, 0x01, 0x20, 0xFD];
+        assert_eq!(
+            d.encode_meter(MeterKind::Signal, 120, 0x94),
+            Some(s9.to_vec())
+        );
+        let swr = [0xFE, 0xFE, 0xE0, 0x94, 0x15, 0x12, 0x00, 0x48, 0xFD];
+        let read = d.meter_read(MeterKind::Signal, 0x94).unwrap();
+        let got = station_events(
+            &d,
+            &[
+                (Direction::Tx, &read),
+                (Direction::Rx, &s9),
+                (Direction::Rx, &swr),
+            ],
+        );
+        assert_eq!(
+            got,
+            vec![
+                RigEvent::Meter {
+                    kind: MeterKind::Signal,
+                    raw: 120
+                },
+                RigEvent::Meter {
+                    kind: MeterKind::Swr,
+                    raw: 48
+                },
+            ]
+        );
+        // S9 = -73 dBm (IARU Region 1 Technical Recommendation R.1); 0048
+        // is 1.5:1 on the recalled SWR scale.
+        assert_eq!(d.meter_scale(MeterKind::Signal).unwrap().value(120), -73.0);
+        assert_eq!(d.meter_scale(MeterKind::Swr).unwrap().value(48), 1.5);
+        // A bad digit and a short answer are rejected with their reason.
+        let bad = [0xFE, 0xFE, 0xE0, 0x94, 0x15, 0x02, 0x0A, 0x20, 0xFD];
+        let short = [0xFE, 0xFE, 0xE0, 0x94, 0x15, 0x02, 0x01, 0xFD];
+        let mut dec = d.station_decoder(None);
+        let mut out = Vec::new();
+        dec.feed(Direction::Rx, &bad, &mut out);
+        dec.feed(Direction::Rx, &short, &mut out);
+        assert_eq!(
+            out,
+            vec![
+                RigEvent::Reject {
+                    reason: crate::rig::RejectReason::BadDigit,
+                    bytes: 9
+                },
+                RigEvent::Reject {
+                    reason: crate::rig::RejectReason::BadLength,
+                    bytes: 8
+                },
+            ]
+        );
+        // Another sub-command of the same command is not a meter here.
+        let other = [0xFE, 0xFE, 0xE0, 0x94, 0x15, 0x07, 0x00, 0x01, 0xFD];
+        assert!(station_events(&d, &[(Direction::Rx, &other)]).is_empty());
+    }
+
+    #[test]
+    fn binary_meter_reads_are_refused_like_every_poll_query() {
+        let base = BUILTINS[0].1;
+        // Carrying data: a set, never sent.
+        let t = base.replacen(
+            "read = \"FE FE rig controller 15 12 FD\"",
+            "read = \"FE FE rig controller 15 12 01 FD\"",
+            1,
+        );
+        assert_eq!(key_error(&t).0, "meter.swr.read");
+        // No sub-command.
+        let t = base.replacen(
+            "read = \"FE FE rig controller 15 11 FD\"",
+            "read = \"FE FE rig controller 15 FD\"",
+            1,
+        );
+        assert_eq!(key_error(&t).0, "meter.power.read");
+        // The transmit command is not a meter.
+        let t = base.replacen(
+            "read = \"FE FE rig controller 15 02 FD\"",
+            "read = \"FE FE rig controller 1C 00 FD\"",
+            1,
+        );
+        let (key, found) = key_error(&t);
+        assert_eq!(
+            (key.as_str(), found.as_str()),
+            ("meter.signal.read", "0x1C")
+        );
+        // Two meters on one command and sub-command.
+        let t = base.replacen(
+            "read = \"FE FE rig controller 15 12 FD\"",
+            "read = \"FE FE rig controller 15 02 FD\"",
+            1,
+        );
+        assert_eq!(key_error(&t).0, "meter.swr.read");
+        // A scale that falls, and an unknown meter.
+        let t = base.replacen("[[0, 1.0], [48, 1.5]", "[[0, 1.0], [48, 0.5]", 1);
+        assert_eq!(key_error(&t).0, "meter.swr.scale");
+        let t = base.replacen("[meter.power]", "[meter.alc]", 1);
+        assert_eq!(key_error(&t), ("meter.alc".into(), "an unknown key".into()));
+        // Without [meter]: no meters, nothing else changes.
+        let cut = base.split("\n[meter]").next().unwrap();
+        let d = Dialect::parse(cut, Path::new("mine.toml")).unwrap();
+        assert!(d.meter_kinds().is_empty());
+        assert_eq!(
+            d.meter_read(crate::rig::meter::MeterKind::Signal, 0x94),
+            None
+        );
+    }
+
+    /// Text family (recalled): `SM0;` answered `SM0` and four digits, `RM;`
+    /// answered `RM1` and four digits while the rig's meter shows SWR.
+    #[test]
+    fn text_meter_reads_and_answers() {
+        use crate::rig::meter::MeterKind;
+        use crate::rig::{Direction, RigEvent};
+        let d = Dialect::builtin("text-semicolon").unwrap();
+        assert_eq!(d.meter_kinds(), vec![MeterKind::Signal, MeterKind::Swr]);
+        assert_eq!(d.meter_read(MeterKind::Signal, 0), Some(b"SM0;".to_vec()));
+        assert_eq!(d.meter_read(MeterKind::Power, 0), None);
+        assert_eq!(
+            d.encode_meter(MeterKind::Signal, 15, 0),
+            Some(b"SM00015;".to_vec())
+        );
+        let got = station_events(
+            &d,
+            &[
+                (Direction::Tx, b"SM0;"),
+                (Direction::Rx, b"SM00015;"),
+                (Direction::Rx, b"RM10005;"),
+                // Another meter of a rig that reads one at a time.
+                (Direction::Rx, b"RM20005;"),
+            ],
+        );
+        assert_eq!(
+            got,
+            vec![
+                RigEvent::Meter {
+                    kind: MeterKind::Signal,
+                    raw: 15
+                },
+                RigEvent::Meter {
+                    kind: MeterKind::Swr,
+                    raw: 5
+                },
+            ]
+        );
+        assert_eq!(d.meter_scale(MeterKind::Signal).unwrap().value(15), -73.0);
+        let mut dec = d.station_decoder(None);
+        let mut out = Vec::new();
+        dec.feed(Direction::Rx, b"SM0001x;SM000155;", &mut out);
+        assert!(
+            out.iter().all(|e| matches!(e, RigEvent::Reject { .. })),
+            "{out:?}"
+        );
+        // Noise glued before an answer costs only the noise.
+        let mut out = Vec::new();
+        dec.feed(Direction::Rx, b"zzSM00009;", &mut out);
+        assert_eq!(
+            out.last(),
+            Some(&RigEvent::Meter {
+                kind: MeterKind::Signal,
+                raw: 9
+            })
+        );
+        let nine = Dialect::builtin("text-semicolon-9").unwrap();
+        assert_eq!(
+            nine.meter_kinds(),
+            vec![MeterKind::Signal, MeterKind::Swr, MeterKind::Power]
+        );
+        assert_eq!(
+            nine.encode_meter(MeterKind::Swr, 64, 0),
+            Some(b"RM6064;".to_vec())
+        );
+    }
+
+    #[test]
+    fn text_meter_reads_are_refused_like_every_poll_query() {
+        let base = BUILTINS[2].1;
+        let t = base.replacen("read = \"SM0;\"", "read = \"TX;\"", 1);
+        assert_eq!(key_error(&t).0, "meter.signal.read");
+        let t = base.replacen("read = \"RM;\"", "read = \"RX;\"", 1);
+        assert_eq!(key_error(&t).0, "meter.swr.read");
+        let t = base.replacen("answer = \"RM1\"", "answer = \"IF\"", 1);
+        assert_eq!(key_error(&t).0, "meter.swr.answer");
+        let t = base.replacen("answer = \"RM1\"", "answer = \"SM0\"", 1);
+        assert_eq!(key_error(&t).0, "meter.swr.answer");
+        let t = base.replacen(
+            "digits = 4\nscale = [[0, 1.0]",
+            "digits = 7\nscale = [[0, 1.0]",
+            1,
+        );
+        assert_eq!(key_error(&t).0, "meter.swr.digits");
+        let t = base.replacen("scale = [[0, -127.0]", "scale = [[-1, -127.0]", 1);
+        assert_eq!(key_error(&t).0, "meter.signal.scale");
+    }
+
+    /// Block family (recalled): the receive-status read E7's low four bits
+    /// are the signal meter; the transmit-status read F7 carries forward
+    /// power in its low four bits beside the transmit bit.
+    #[test]
+    fn block_meter_reads_and_answers() {
+        use crate::rig::meter::MeterKind;
+        use crate::rig::{Direction, RigEvent};
+        let d = Dialect::builtin("block-5").unwrap();
+        assert_eq!(d.meter_kinds(), vec![MeterKind::Signal, MeterKind::Power]);
+        assert_eq!(
+            d.meter_read(MeterKind::Signal, 0),
+            Some(vec![0, 0, 0, 0, 0xE7])
+        );
+        assert_eq!(d.meter_read(MeterKind::Swr, 0), None);
+        let mut dec = d.station_decoder(None);
+        let mut plain = d.decoder(None);
+        let mut out = Vec::new();
+        let mut plain_out = Vec::new();
+        let talk: [(Direction, &[u8]); 5] = [
+            (Direction::Tx, &[0, 0, 0, 0, 0xE7]),
+            (Direction::Rx, &[0x09]),
+            (Direction::Tx, &[0, 0, 0, 0, 0xF7]),
+            // Transmitting (bit 7 clear), power meter 12.
+            (Direction::Rx, &[0x0C]),
+            (Direction::Tx, &[0, 0, 0, 0, 0x03]),
+        ];
+        for (dir, b) in talk {
+            dec.feed(dir, b, &mut out);
+            plain.feed(dir, b, &mut plain_out);
+        }
+        dec.feed(Direction::Rx, &[0x01, 0x40, 0x74, 0x00, 0x01], &mut out);
+        plain.feed(
+            Direction::Rx,
+            &[0x01, 0x40, 0x74, 0x00, 0x01],
+            &mut plain_out,
+        );
+        assert_eq!(
+            out,
+            vec![
+                RigEvent::Meter {
+                    kind: MeterKind::Signal,
+                    raw: 9
+                },
+                RigEvent::Transmit { on: true },
+                RigEvent::Meter {
+                    kind: MeterKind::Power,
+                    raw: 12
+                },
+                RigEvent::Frequency { hz: 14_074_000 },
+            ]
+        );
+        // The reporting decoder frames the E7 answer and stays in step.
+        assert_eq!(
+            plain_out,
+            vec![
+                RigEvent::Transmit { on: true },
+                RigEvent::Frequency { hz: 14_074_000 }
+            ]
+        );
+        assert_eq!(d.meter_scale(MeterKind::Signal).unwrap().value(9), -73.0);
+        assert_eq!(d.encode_meter(MeterKind::Signal, 9, 0), Some(vec![0x09]));
+        let (_, text) = BUILTINS.iter().find(|(n, _)| *n == "block-5").unwrap();
+        let t = text.replacen("read = 0xE7", "read = 0x08", 1);
+        assert_eq!(key_error(&t).0, "meter.signal.read");
+        let t = text.replacen(
+            "mask = 0x0F\nscale = [[0, 0.0]",
+            "mask = 0x8F\nscale = [[0, 0.0]",
+            1,
+        );
+        assert_eq!(key_error(&t).0, "meter.power.mask");
     }
 
     #[test]

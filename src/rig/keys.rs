@@ -4,6 +4,7 @@
 
 use std::path::{Path, PathBuf};
 
+use super::meter::{MeterKind, MeterScale};
 use crate::error::{Located, Place};
 
 /// Why a dialect could not be had.
@@ -160,5 +161,70 @@ impl Reader<'_> {
                 format!("{s:?}"),
             )),
         }
+    }
+
+    /// A meter scale: an array of `[raw, value]` pairs, raw an integer
+    /// 0..=65535 rising, value a number rising (an integer is taken as a
+    /// number).
+    pub(crate) fn scale(
+        &self,
+        t: &toml::Table,
+        prefix: &str,
+        key: &str,
+    ) -> Result<MeterScale, DialectError> {
+        const EXPECTED: &str =
+            "an array of [raw, value] pairs, raw an integer from 0 to 65535, value a number";
+        let at = dotted(prefix, key);
+        let v = self.get(t, prefix, key, EXPECTED)?;
+        let toml::Value::Array(items) = v else {
+            return Err(self.err(&at, EXPECTED, describe(v)));
+        };
+        let mut points = Vec::with_capacity(items.len());
+        for (i, item) in items.iter().enumerate() {
+            let pair = match item {
+                toml::Value::Array(p) => p.as_slice(),
+                v => return Err(self.err(&at, EXPECTED, format!("{} at {i}", describe(v)))),
+            };
+            let point = match pair {
+                [toml::Value::Integer(r), v] => {
+                    let value = match v {
+                        toml::Value::Float(f) => Some(*f),
+                        toml::Value::Integer(n) => Some(*n as f64),
+                        _ => None,
+                    };
+                    u16::try_from(*r).ok().zip(value)
+                }
+                _ => None,
+            };
+            match point {
+                Some(p) => points.push(p),
+                None => {
+                    return Err(self.err(
+                        &at,
+                        EXPECTED,
+                        format!("{} at {i}", toml::Value::Array(pair.to_vec())),
+                    ))
+                }
+            }
+        }
+        MeterScale::new(points).map_err(|e| self.err(&at, e.expected, e.found))
+    }
+
+    /// The meter kinds a `[meter]` table may name, each an optional table
+    /// of its own; the key names of the kinds present, in
+    /// [`MeterKind::ALL`] order.
+    pub(crate) fn meter_tables<'t>(
+        &self,
+        meter: &'t toml::Table,
+    ) -> Result<Vec<(MeterKind, &'t toml::Table)>, DialectError> {
+        let names: Vec<&str> = MeterKind::ALL.iter().map(|k| k.as_str()).collect();
+        self.only(meter, "meter", &names)?;
+        let mut out = Vec::new();
+        for kind in MeterKind::ALL {
+            if meter.contains_key(kind.as_str()) {
+                out.push((kind, self.table(meter, "meter", kind.as_str())?));
+            }
+        }
+        Ok(out)
     }
 }

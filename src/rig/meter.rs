@@ -19,6 +19,20 @@ pub enum MeterKind {
     Power,
 }
 
+impl MeterKind {
+    /// Every kind, in the order dialects list them.
+    pub const ALL: [MeterKind; 3] = [MeterKind::Signal, MeterKind::Swr, MeterKind::Power];
+
+    /// The kind's name in dialect files, logs and the truth log.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            MeterKind::Signal => "signal",
+            MeterKind::Swr => "swr",
+            MeterKind::Power => "power",
+        }
+    }
+}
+
 /// S9 below 30 MHz, in dBm (IARU Region 1 Technical Recommendation R.1).
 pub const S9_DBM: f64 = -73.0;
 /// One S unit, in dB (IARU Region 1 Technical Recommendation R.1).
@@ -42,6 +56,11 @@ pub struct MeterScale {
     points: Vec<(u16, f64)>,
 }
 
+// Every value is finite (`MeterScale::new` refuses anything else, and the
+// built-in tables are finite), so equality is reflexive: dialects holding a
+// scale can be `Eq`.
+impl Eq for MeterScale {}
+
 impl MeterScale {
     /// A scale through `points` (at least two, raw strictly rising, values
     /// finite and rising: every meter here reads more for more).
@@ -62,6 +81,16 @@ impl MeterScale {
             }
         }
         Ok(MeterScale { points })
+    }
+
+    /// The table's points, raw rising.
+    pub fn points(&self) -> &[(u16, f64)] {
+        &self.points
+    }
+
+    /// The highest raw reading of the table (a meter's full scale).
+    pub fn full_scale(&self) -> u16 {
+        self.points.last().map_or(0, |p| p.0)
     }
 
     /// The value of raw reading `raw`.

@@ -138,6 +138,11 @@ pub enum RigEvent {
     /// (`false`): another program keying the rig over the control port.
     /// Fail safe: it counts as a transmission from the moment it is seen.
     TransmitCommand { on: bool },
+    /// A meter reading from the rig, as the rig gives it (`raw`, 0 up to
+    /// the family's full scale): the answer to one of the dialect's meter
+    /// reads (`[meter]`). [`Dialect::meter_scale`] turns it into dBm, the
+    /// SWR or watts.
+    Meter { kind: meter::MeterKind, raw: u16 },
 }
 
 impl RigEvent {

@@ -4,6 +4,7 @@
 
 use super::super::bcd;
 use super::super::keys::{DialectError, Reader};
+use super::super::meter::{MeterKind, MeterScale};
 
 /// Parameters of a binary-family dialect.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -46,6 +47,25 @@ pub struct BinarySpec {
     pub poll_other_vfo: Option<Vec<Slot>>,
     /// Commands only the station decoder reads.
     pub station: StationCodes,
+    /// The meter reads (`[meter]`, optional): only the station decoder
+    /// reads their answers.
+    pub meters: Vec<BinaryMeter>,
+}
+
+/// One meter read of a binary dialect (`[meter.signal]`, `[meter.swr]`,
+/// `[meter.power]`): a read query with a sub-command, answered with the
+/// same command and sub-command and two BCD bytes, most significant first
+/// (0000 to 9999; the family's meters read 0000 to 0255, recalled).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct BinaryMeter {
+    pub kind: MeterKind,
+    /// The read query (`read`), checked like every poll query.
+    pub read: Vec<Slot>,
+    /// The query's command and sub-command, which its answer repeats.
+    pub command: u8,
+    pub sub: u8,
+    /// Raw reading to value (`scale`).
+    pub scale: MeterScale,
 }
 
 /// Commands of a binary dialect that only the station decoder reads
@@ -153,6 +173,27 @@ impl BinarySpec {
         .concat()
     }
 
+    /// The rig's answer to our controller address for a meter read: the
+    /// meter's command and sub-command, and `raw` (0..=9999) as two BCD
+    /// bytes, most significant first; None where the dialect has no such
+    /// meter.
+    pub fn encode_meter(&self, kind: MeterKind, raw: u16, rig_address: u8) -> Option<Vec<u8>> {
+        let m = self.meters.iter().find(|m| m.kind == kind)?;
+        let raw = raw.min(9999);
+        let bcd2 = |v: u16| ((v / 10) << 4 | (v % 10)) as u8;
+        Some(vec![
+            self.preamble,
+            self.preamble,
+            self.controller,
+            rig_address,
+            m.command,
+            m.sub,
+            bcd2(raw / 100),
+            bcd2(raw % 100),
+            self.terminator,
+        ])
+    }
+
     /// A poll query with the addresses filled in.
     pub fn query(&self, slots: &[Slot], rig_address: u8) -> Vec<u8> {
         fill(slots, rig_address, self.controller)
@@ -186,6 +227,7 @@ impl BinarySpec {
                 "frequency",
                 "poll",
                 "station",
+                "meter",
             ],
         )?;
         let station = r.table(t, "", "station")?;
@@ -320,9 +362,87 @@ impl BinarySpec {
                 false => None,
             },
             station,
+            meters: Vec::new(),
         };
-        Ok(spec)
+        let meters = match t.contains_key("meter") {
+            true => binary_meters(r, r.table(t, "", "meter")?, &spec)?,
+            false => Vec::new(),
+        };
+        Ok(BinarySpec { meters, ..spec })
     }
+}
+
+/// `[meter]`: a table per meter kind, each `read` (a read query with a
+/// sub-command, refused otherwise like every poll query) and `scale`. The
+/// command must not be one the decoder reads for something else, and no
+/// two meters may share a command and sub-command.
+fn binary_meters(
+    r: &Reader,
+    meter: &toml::Table,
+    spec: &BinarySpec,
+) -> Result<Vec<BinaryMeter>, DialectError> {
+    let st = &spec.station;
+    let taken = [
+        ("command.frequency_broadcast", spec.frequency_broadcast),
+        ("command.frequency_read", spec.frequency_read),
+        ("command.transmit", spec.transmit),
+        ("command.collision", spec.collision),
+        ("command.ack_ok", spec.ack_ok),
+        ("command.ack_ng", spec.ack_ng),
+        ("station.frequency_set", st.frequency_set),
+        ("station.select_vfo", st.select_vfo),
+        ("station.split", st.split),
+        ("station.vfo_frequency", st.vfo_frequency),
+    ];
+    let mut out: Vec<BinaryMeter> = Vec::new();
+    for (kind, table) in r.meter_tables(meter)? {
+        let prefix = format!("meter.{}", kind.as_str());
+        r.only(table, &prefix, &["read", "scale"])?;
+        let key = format!("{prefix}.read");
+        let read = binary_query_in(
+            r,
+            table,
+            &prefix,
+            "read",
+            spec.preamble,
+            spec.terminator,
+            spec.max_frame,
+        )?;
+        let (command, sub) = match read.as_slice() {
+            [_, _, _, _, Slot::Byte(c), Slot::Byte(s), _] => (*c, *s),
+            _ => return Err(r.err(
+                &key,
+                "a meter read with a sub-command: FE FE rig controller <command> <sub-command> FD",
+                format!("{:?}", r.string(table, &prefix, "read")?),
+            )),
+        };
+        if let Some((other, _)) = taken.iter().find(|(_, c)| *c == command) {
+            return Err(r.err(
+                &key,
+                &format!("a command other than `{other}`"),
+                format!("0x{command:02X}"),
+            ));
+        }
+        if let Some(m) = out.iter().find(|m| m.command == command && m.sub == sub) {
+            return Err(r.err(
+                &key,
+                &format!(
+                    "a command and sub-command other than those of `meter.{}.read`",
+                    m.kind.as_str()
+                ),
+                format!("0x{command:02X} 0x{sub:02X}"),
+            ));
+        }
+        let scale = r.scale(table, &prefix, "scale")?;
+        out.push(BinaryMeter {
+            kind,
+            read,
+            command,
+            sub,
+            scale,
+        });
+    }
+    Ok(out)
 }
 
 /// A binary query: hex bytes and the words `rig` and `controller`,
@@ -338,7 +458,21 @@ fn binary_query(
     max: usize,
 ) -> Result<Vec<Slot>, DialectError> {
     let short = key.trim_start_matches("poll.");
-    let s = r.string(poll, "poll", short)?;
+    binary_query_in(r, poll, "poll", short, pre, term, max)
+}
+
+/// [`binary_query`] at any table: `prefix.short`.
+fn binary_query_in(
+    r: &Reader,
+    table: &toml::Table,
+    prefix: &str,
+    short: &str,
+    pre: u8,
+    term: u8,
+    max: usize,
+) -> Result<Vec<Slot>, DialectError> {
+    let key = &format!("{prefix}.{short}");
+    let s = r.string(table, prefix, short)?;
     let mut slots = Vec::new();
     for word in s.split_whitespace() {
         let slot = match word {

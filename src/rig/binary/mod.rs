@@ -16,7 +16,7 @@ use nom::bytes::take;
 use nom::{IResult, Parser};
 
 mod dialect;
-pub use dialect::{BinarySpec, Slot, StationCodes};
+pub use dialect::{BinaryMeter, BinarySpec, Slot, StationCodes};
 
 use super::swar::{broadcast, equal_to_any, find_either};
 use super::{
@@ -395,9 +395,36 @@ fn interpret_clean(ctx: &Ctx, body: &[u8]) -> Outcome {
         };
     }
     if ctx.station {
+        if let Some(outcome) = meter_answer(s, cmd, data) {
+            return outcome;
+        }
         return station_frame(s, cmd, data, Seen::Report).unwrap_or(Outcome::Ignored);
     }
     Outcome::Ignored
+}
+
+/// A meter read's answer from the rig (station decoder): the meter's
+/// command and sub-command, then two BCD bytes, most significant first.
+/// None: not a meter's command and sub-command.
+fn meter_answer(s: &BinarySpec, cmd: u8, data: &[u8]) -> Option<Outcome> {
+    let (sub, field) = data.split_first()?;
+    let m = s
+        .meters
+        .iter()
+        .find(|m| m.command == cmd && m.sub == *sub)?;
+    Some(match field {
+        // A read echoed by the rig: nothing to report.
+        [] => Outcome::Ignored,
+        [hi, lo] => match bcd::decode_le(&[*lo, *hi]) {
+            Ok(raw) => Outcome::One(RigEvent::Meter {
+                kind: m.kind,
+                // Four BCD digits are at most 9999.
+                raw: u16::try_from(raw).unwrap_or(u16::MAX),
+            }),
+            Err(_) => Outcome::Reject(RejectReason::BadDigit),
+        },
+        _ => Outcome::Reject(RejectReason::BadLength),
+    })
 }
 
 /// A frequency field of the dialect's width, as a plausible frequency.

@@ -3,6 +3,7 @@
 use std::path::Path;
 
 use super::super::keys::{DialectError, Reader};
+use super::super::meter::{MeterKind, MeterScale};
 
 /// Digit order of the frequency answer's packed BCD.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -55,6 +56,29 @@ pub struct BlockSpec {
     /// The blocks we send in poll mode (checked to be the reads).
     pub poll_frequency: Vec<u8>,
     pub poll_transmit: Vec<u8>,
+    /// The meter reads (`[meter]`, optional): only the station decoder
+    /// reports their answers.
+    pub meters: Vec<BlockMeter>,
+}
+
+/// One meter read of a block dialect (`[meter.signal]`, `[meter.power]`):
+/// a read opcode (the transmit-status read itself, for a meter its answer
+/// carries), its answer's length, and the bits of the answer's first byte
+/// that hold the reading.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct BlockMeter {
+    pub kind: MeterKind,
+    pub read: u8,
+    pub answer_length: usize,
+    pub mask: u8,
+    pub scale: MeterScale,
+}
+
+impl BlockMeter {
+    /// The reading in an answer's first byte.
+    pub fn raw(&self, status: u8) -> u16 {
+        u16::from((status & self.mask) >> self.mask.trailing_zeros())
+    }
 }
 
 impl BlockSpec {
@@ -126,8 +150,32 @@ impl BlockSpec {
         } else if opcode == self.read_transmit {
             self.transmit_answer_length
         } else {
-            0
+            self.meters
+                .iter()
+                .find(|m| m.read == opcode)
+                .map_or(0, |m| m.answer_length)
         }
+    }
+
+    /// The dialect's meter of `kind`, if it reads one.
+    pub fn meter(&self, kind: MeterKind) -> Option<&BlockMeter> {
+        self.meters.iter().find(|m| m.kind == kind)
+    }
+
+    /// Our read block for `opcode` (zero parameters).
+    pub fn read_block(&self, opcode: u8) -> Vec<u8> {
+        self.query(opcode)
+    }
+
+    /// The rig's answer to meter `kind`'s read showing `raw` (kept within
+    /// the meter's bits); None where the dialect has no such meter.
+    pub fn encode_meter(&self, kind: MeterKind, raw: u16) -> Option<Vec<u8>> {
+        let m = self.meter(kind)?;
+        let shift = m.mask.trailing_zeros();
+        let byte = ((u32::from(raw) << shift) as u8) & m.mask;
+        let mut out = vec![byte];
+        out.resize(m.answer_length, 0);
+        Some(out)
     }
 
     /// Parses a block dialect's TOML text (`family = "block"`); `file` only
@@ -167,6 +215,7 @@ impl BlockSpec {
                 "transmit",
                 "opcodes",
                 "poll",
+                "meter",
             ],
         )?;
         let block = r.table(t, "", "block")?;
@@ -296,6 +345,7 @@ impl BlockSpec {
             other_sets,
             poll_frequency: Vec::new(),
             poll_transmit: Vec::new(),
+            meters: Vec::new(),
         };
         // The reads must be reads: never an opcode that sets or keys.
         for (key, op) in [
@@ -333,6 +383,9 @@ impl BlockSpec {
             }
         }
         spec.other_sets.sort_unstable();
+        if t.contains_key("meter") {
+            spec.meters = block_meters(r, r.table(t, "", "meter")?, &spec)?;
+        }
         Ok(spec)
     }
 
@@ -345,6 +398,60 @@ impl BlockSpec {
             || self.split_off == Some(opcode)
             || self.other_sets.contains(&opcode)
     }
+}
+
+/// `[meter]`: a table per meter kind, each `read` (a read opcode, never one
+/// that sets or keys the rig, nor the frequency read), `answer_length`
+/// (that of the transmit-status read where it is that read), `mask` (the
+/// bits of the answer's first byte) and `scale`.
+fn block_meters(
+    r: &Reader,
+    meter: &toml::Table,
+    spec: &BlockSpec,
+) -> Result<Vec<BlockMeter>, DialectError> {
+    let mut out: Vec<BlockMeter> = Vec::new();
+    for (kind, table) in r.meter_tables(meter)? {
+        let prefix = format!("meter.{}", kind.as_str());
+        r.only(table, &prefix, &["read", "answer_length", "mask", "scale"])?;
+        let read = r.byte(table, &prefix, "read")?;
+        if spec.changes_the_rig(read) || read == spec.read_frequency {
+            return Err(r.err(
+                &format!("{prefix}.read"),
+                "a read opcode, not one that sets the rig or keys it, nor `frequency.read`",
+                format!("{read:#04X}"),
+            ));
+        }
+        let answer_length = r.int(table, &prefix, "answer_length", 1, 64)? as usize;
+        let same_length = if read == spec.read_transmit {
+            Some(spec.transmit_answer_length)
+        } else {
+            out.iter().find(|m| m.read == read).map(|m| m.answer_length)
+        };
+        if same_length.is_some_and(|n| n != answer_length) {
+            return Err(r.err(
+                &format!("{prefix}.answer_length"),
+                "the length of the other answer to the same read",
+                answer_length.to_string(),
+            ));
+        }
+        let mask = r.byte(table, &prefix, "mask")?;
+        if mask == 0 || (read == spec.read_transmit && mask & spec.transmit_mask != 0) {
+            return Err(r.err(
+                &format!("{prefix}.mask"),
+                "a mask with at least one bit set, none of them `transmit.mask`'s",
+                format!("{mask:#04X}"),
+            ));
+        }
+        let scale = r.scale(table, &prefix, "scale")?;
+        out.push(BlockMeter {
+            kind,
+            read,
+            answer_length,
+            mask,
+            scale,
+        });
+    }
+    Ok(out)
 }
 
 /// A poll block: `block.length` bytes.

@@ -24,7 +24,7 @@ use std::collections::VecDeque;
 use std::time::Duration;
 
 mod dialect;
-pub use dialect::{BlockSpec, DigitOrder};
+pub use dialect::{BlockMeter, BlockSpec, DigitOrder};
 
 use super::{plausible, Decode, DecodeStats, Direction, RejectReason, RejectRun, RigEvent, Seen};
 
@@ -124,24 +124,42 @@ impl BlockDecoder {
         let buf = std::mem::take(&mut self.rx.buf);
         self.stats.frames += 1;
         let n = buf.len();
+        let status = buf.first().copied().unwrap_or(0);
         let event = if opcode == spec.read_frequency {
             let field = buf.get(..spec.frequency_bytes).unwrap_or_default();
             match spec.read_bcd(field) {
                 None => Err(RejectReason::BadDigit),
-                Some(v) => plausible(v.saturating_mul(spec.unit_hz)),
+                Some(v) => plausible(v.saturating_mul(spec.unit_hz)).map(Some),
             }
-        } else {
-            let status = buf.first().copied().unwrap_or(0);
+        } else if opcode == spec.read_transmit {
             let set = status & spec.transmit_mask != 0;
-            Ok(RigEvent::Transmit {
+            Ok(Some(RigEvent::Transmit {
                 on: set == spec.transmit_active_high,
-            })
+            }))
+        } else {
+            // A meter's own read: only the station decoder reports it.
+            Ok(None)
         };
         match event {
             Ok(e) => {
                 self.rx.run.flush(out, &mut self.stats);
-                out.push(e);
-                self.stats.reports += 1;
+                let before = out.len();
+                out.extend(e);
+                if self.station {
+                    // Every meter this read's answer carries (the
+                    // transmit status carries the power meter's bits).
+                    out.extend(spec.meters.iter().filter(|m| m.read == opcode).map(|m| {
+                        RigEvent::Meter {
+                            kind: m.kind,
+                            raw: m.raw(status),
+                        }
+                    }));
+                }
+                let emitted = out.len() - before;
+                if emitted == 0 {
+                    self.stats.ignored += 1;
+                }
+                self.stats.reports += emitted as u64;
             }
             Err(reason) => self.rx.run.add(reason, n, out, &mut self.stats),
         }

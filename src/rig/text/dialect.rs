@@ -2,6 +2,7 @@
 //! implies (what a rig would send, for tests and scenarios).
 
 use super::super::keys::{DialectError, Reader};
+use super::super::meter::{MeterKind, MeterScale};
 
 pub use super::super::Vfo;
 
@@ -53,6 +54,28 @@ pub struct TextSpec {
     /// Poll query for the other VFO's frequency (`[poll] other_vfo`), sent
     /// only while the rig works split.
     pub poll_other_vfo: Option<Vec<u8>>,
+    /// The meter reads (`[meter]`, optional): only the station decoder
+    /// reads their answers.
+    pub meters: Vec<TextMeter>,
+}
+
+/// One meter read of a text dialect (`[meter.signal]`, `[meter.swr]`,
+/// `[meter.power]`): a read query, and its answer: `answer` (the command
+/// letters and any fixed characters after them, such as the meter's
+/// number), then `digits` decimal digits, the raw reading.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TextMeter {
+    pub kind: MeterKind,
+    /// The read query, checked like every poll query (never keys the rig).
+    pub read: Vec<u8>,
+    /// The answer's two command letters.
+    pub command: [u8; 2],
+    /// What follows them in every answer, before the digits.
+    pub prefix: Vec<u8>,
+    /// Digits of the raw reading.
+    pub digits: usize,
+    /// Raw reading to value.
+    pub scale: MeterScale,
 }
 
 /// Offsets in the status payload of what only the station decoder reads.
@@ -169,7 +192,24 @@ impl TextSpec {
 
     /// The commands only the station decoder understands.
     pub(crate) fn station_commands(&self) -> impl Iterator<Item = &[u8; 2]> {
-        [&self.receive_vfo, &self.transmit_vfo].into_iter()
+        [&self.receive_vfo, &self.transmit_vfo]
+            .into_iter()
+            .chain(self.meters.iter().map(|m| &m.command))
+    }
+
+    /// The rig's answer to a meter read: the answer's letters and prefix,
+    /// then `raw` in the meter's digits (kept to its low digits); None
+    /// where the dialect has no such meter.
+    pub fn encode_meter(&self, kind: MeterKind, raw: u16) -> Option<Vec<u8>> {
+        let m = self.meters.iter().find(|m| m.kind == kind)?;
+        let modulus = 10u64.saturating_pow(m.digits as u32);
+        let mut f = m.command.to_vec();
+        f.extend_from_slice(&m.prefix);
+        f.extend_from_slice(
+            format!("{:0width$}", u64::from(raw) % modulus, width = m.digits).as_bytes(),
+        );
+        f.push(self.terminator);
+        Some(f)
     }
 
     /// The transmit or receive message a rig sends: with digit meanings,
@@ -205,6 +245,7 @@ impl TextSpec {
                 "status",
                 "transmit",
                 "poll",
+                "meter",
             ],
         )?;
         let message = r.table(t, "", "message")?;
@@ -427,6 +468,10 @@ impl TextSpec {
         };
         let poll_split = optional("poll.split")?;
         let poll_other_vfo = optional("poll.other_vfo")?;
+        let meters = match t.contains_key("meter") {
+            true => text_meters(r, r.table(t, "", "meter")?, &keys, &codes, max_message)?,
+            false => Vec::new(),
+        };
         Ok(TextSpec {
             terminator,
             max_message,
@@ -450,8 +495,85 @@ impl TextSpec {
             poll_transmit,
             poll_split,
             poll_other_vfo,
+            meters,
         })
     }
+}
+
+/// `[meter]`: a table per meter kind, each `read` (refused like every poll
+/// query), `answer` (two upper-case letters, not a command the decoder
+/// reads for something else, and any fixed printable characters after
+/// them), `digits` (1 to 4) and `scale`.
+fn text_meters(
+    r: &Reader,
+    meter: &toml::Table,
+    keys: &Keying,
+    codes: &[(&str, [u8; 2])],
+    max_message: usize,
+) -> Result<Vec<TextMeter>, DialectError> {
+    let mut out: Vec<TextMeter> = Vec::new();
+    for (kind, table) in r.meter_tables(meter)? {
+        let prefix = format!("meter.{}", kind.as_str());
+        r.only(table, &prefix, &["read", "answer", "digits", "scale"])?;
+        let read = text_query_in(r, table, &prefix, "read", keys)?;
+        let answer = r.string(table, &prefix, "answer")?;
+        let key = format!("{prefix}.answer");
+        let (command, rest) = match answer.as_bytes() {
+            [a, b, rest @ ..]
+                if a.is_ascii_uppercase()
+                    && b.is_ascii_uppercase()
+                    && rest
+                        .iter()
+                        .all(|c| (0x21..0x7F).contains(c) && *c != keys.term) =>
+            {
+                ([*a, *b], rest.to_vec())
+            }
+            _ => return Err(r.err(
+                &key,
+                "two upper-case letters, then any fixed printable characters (not the terminator)",
+                format!("{answer:?}"),
+            )),
+        };
+        if let Some((other, _)) = codes.iter().find(|(_, c)| *c == command) {
+            return Err(r.err(
+                &key,
+                &format!("a command other than `{other}`"),
+                format!("{answer:?}"),
+            ));
+        }
+        if let Some(m) = out.iter().find(|m| {
+            m.command == command && (m.prefix.starts_with(&rest) || rest.starts_with(&m.prefix))
+        }) {
+            return Err(r.err(
+                &key,
+                &format!(
+                    "an answer that `meter.{}.answer` does not already begin",
+                    m.kind.as_str()
+                ),
+                format!("{answer:?}"),
+            ));
+        }
+        let digits = r.int(table, &prefix, "digits", 1, 4)? as usize;
+        if 2 + rest.len() + digits > max_message {
+            return Err(r.err(
+                &key,
+                &format!(
+                    "an answer that fits in `message.max_length` ({max_message}) with its digits"
+                ),
+                format!("{answer:?}"),
+            ));
+        }
+        let scale = r.scale(table, &prefix, "scale")?;
+        out.push(TextMeter {
+            kind,
+            read,
+            command,
+            prefix: rest,
+            digits,
+            scale,
+        });
+    }
+    Ok(out)
 }
 
 /// `[transmit] receive_digits`, `transmit_digits`, `bare_is_read`: all or
@@ -519,7 +641,19 @@ fn text_query(
     keys: &Keying,
 ) -> Result<Vec<u8>, DialectError> {
     let short = key.trim_start_matches("poll.");
-    let s = r.string(poll, "poll", short)?;
+    text_query_in(r, poll, "poll", short, keys)
+}
+
+/// [`text_query`] at any table: `prefix.short`.
+fn text_query_in(
+    r: &Reader,
+    table: &toml::Table,
+    prefix: &str,
+    short: &str,
+    keys: &Keying,
+) -> Result<Vec<u8>, DialectError> {
+    let key = &format!("{prefix}.{short}");
+    let s = r.string(table, prefix, short)?;
     let b = s.as_bytes();
     let term = keys.term;
     let printable = b.iter().all(|c| (0x20..0x7F).contains(c));

@@ -20,7 +20,7 @@ use nom::number::complete::be_u16;
 use nom::IResult;
 
 mod dialect;
-pub use dialect::{StatusFlags, TextSpec, TransmitDigits, Vfo};
+pub use dialect::{StatusFlags, TextMeter, TextSpec, TransmitDigits, Vfo};
 
 use super::swar::{ascii_digits, find_stop_or_unprintable};
 use super::RejectRun;
@@ -367,6 +367,9 @@ fn interpret(spec: &TextSpec, station: bool, dir: Direction, msg: &[u8]) -> Outc
         if let Some(e) = select_vfo(spec, cmd, payload, Seen::Report) {
             return Outcome::One(e);
         }
+        if let Some(outcome) = meter_answer(spec, cmd, payload) {
+            return outcome;
+        }
     }
     if cmd == spec.status {
         if payload.is_empty() {
@@ -445,6 +448,29 @@ fn status_station(spec: &TextSpec, payload: &[u8], freq: RigEvent, on: Option<bo
         }
     }
     Outcome::Many(b)
+}
+
+/// A meter read's answer from the rig (station decoder): the answer's
+/// letters and prefix, then the meter's digits. None: not a meter's answer
+/// (another command, or the same letters with another prefix, such as
+/// another meter of a rig that reads one at a time).
+fn meter_answer(spec: &TextSpec, cmd: [u8; 2], payload: &[u8]) -> Option<Outcome> {
+    let (m, field) = spec.meters.iter().find_map(|m| {
+        let field = payload.strip_prefix(m.prefix.as_slice())?;
+        (m.command == cmd).then_some((m, field))
+    })?;
+    if field.is_empty() {
+        // The read itself, echoed: nothing to report.
+        return Some(Outcome::Ignored);
+    }
+    Some(match digits(field, m.digits) {
+        Ok(raw) => Outcome::One(RigEvent::Meter {
+            kind: m.kind,
+            // At most four digits (the loader's limit): below 10 000.
+            raw: u16::try_from(raw).unwrap_or(u16::MAX),
+        }),
+        Err(reason) => Outcome::Reject(reason),
+    })
 }
 
 /// A signed offset field: `+` or `-`, then `digits` decimal digits.
