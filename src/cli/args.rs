@@ -195,6 +195,11 @@ pub struct SimTunerArgs {
     /// is reported `LIMIT`.
     #[arg(long, value_name = "LOW,HIGH", allow_hyphen_values = true, value_parser = parse_end_stops)]
     pub end_stops: Option<(i64, i64)>,
+    /// Keep FILE holding the capacitor's position in steps (one number,
+    /// renamed into place whenever it changes), for `sim-rig
+    /// --tuner-position FILE`.
+    #[arg(long, value_name = "FILE")]
+    pub position_file: Option<PathBuf>,
 }
 
 /// `LOW,HIGH`, two counts with LOW below HIGH. (A clap value parser: its
@@ -219,6 +224,7 @@ impl From<SimTunerArgs> for SimTunerOptions {
             settle_ms: a.settle_ms,
             home_switch: a.home_switch,
             end_stops: a.end_stops,
+            position_file: a.position_file,
             backlash: a.backlash,
             min: a.min,
             max: a.max,
@@ -449,6 +455,20 @@ pub struct SimRigArgs {
     /// VFO B at start, in Hz.
     #[arg(long, default_value_t = 14_074_000, value_name = "HZ")]
     vfo_b: u64,
+    /// Answer the dialect's meter reads from a simulated loop and band
+    /// described in FILE (TOML; keys in protocols/sim-rig.md). Without it,
+    /// meter reads are refused like any unknown command.
+    #[arg(long, value_name = "FILE")]
+    meters: Option<PathBuf>,
+    /// Where the simulated loop's capacitor is: a file holding a number of
+    /// steps (`sim-tuner --position-file` writes one), read before every
+    /// request. Needs --meters.
+    #[arg(long, value_name = "FILE", requires = "meters")]
+    tuner_position: Option<PathBuf>,
+    /// Write every meter reading with its truth (JSON lines) to FILE.
+    /// Needs --meters.
+    #[arg(long, value_name = "FILE", requires = "meters")]
+    meter_truth: Option<PathBuf>,
 }
 
 // A clap value parser: String error, as for `parse_duration`.
@@ -483,6 +503,9 @@ pub fn run_sim_rig(args: SimRigArgs) -> Result<(), tuneward::Error> {
         truth: args.truth,
         baud: args.baud,
         options,
+        meters: args.meters,
+        tuner_position: args.tuner_position,
+        meter_truth: args.meter_truth,
     })?;
     Ok(())
 }

@@ -7,8 +7,10 @@
 //!
 //! The capacitor position is told to the simulator by its user
 //! ([`SimMeters::set_position`]): tests and the `noise_peak` example drive
-//! it from their simulated controller. The pty `sim-rig` does not answer
-//! meter queries yet.
+//! it from their simulated controller; `tuneward sim-rig --meters FILE
+//! --tuner-position FILE` reads it from a file the simulated controller
+//! writes (`sim-tuner --position-file`), and [`SimMetersSpec`] is the
+//! `--meters` file.
 
 use crate::antenna::{self, SmallLoop};
 use crate::rig::meter::MeterScale;
@@ -177,6 +179,96 @@ impl SimMeters {
             true_value: swr,
             resonance_hz: self.sim_loop.resonance_hz(self.steps),
             steps: self.steps,
+        }
+    }
+}
+
+/// The simulated loop and band as `sim-rig --meters FILE` reads them (TOML
+/// of our own, every key named in `protocols/sim-rig.md`): the loop's
+/// size, two `[hz, steps]` points its error-free resonance passes through,
+/// the hidden "rain" offset, the receiver's floor, the band noise, the
+/// scatter and the seed.
+#[derive(Debug, Clone, PartialEq, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimMetersSpec {
+    pub loop_diameter_m: f64,
+    pub conductor_diameter_m: f64,
+    #[serde(default)]
+    pub conductor: antenna::Conductor,
+    pub through: [[f64; 2]; 2],
+    #[serde(default)]
+    pub rain_steps: f64,
+    pub floor_dbm: f64,
+    pub noise_dbm: f64,
+    #[serde(default = "default_scatter_db")]
+    pub scatter_db: f64,
+    #[serde(default)]
+    pub seed: u64,
+}
+
+fn default_scatter_db() -> f64 {
+    1.0
+}
+
+impl SimMetersSpec {
+    /// Reads the TOML text; `file` names errors.
+    pub fn parse(text: &str, file: &str) -> Result<SimMetersSpec, crate::error::Located> {
+        let spec: SimMetersSpec = toml::from_str(text).map_err(|e| {
+            crate::error::Located::named(
+                file.to_string(),
+                "a simulated loop and band (protocols/sim-rig.md)",
+                e.message().trim_end().replace('\n', " "),
+            )
+        })?;
+        let finite = [
+            spec.loop_diameter_m,
+            spec.conductor_diameter_m,
+            spec.rain_steps,
+            spec.floor_dbm,
+            spec.noise_dbm,
+            spec.scatter_db,
+        ]
+        .iter()
+        .chain(spec.through.iter().flatten())
+        .all(|v| v.is_finite());
+        if !finite || spec.scatter_db < 0.0 {
+            return Err(crate::error::Located::named(
+                file.to_string(),
+                "finite numbers, scatter_db 0 or more",
+                format!("{spec:?}"),
+            ));
+        }
+        spec.sim_loop().ok_or_else(|| {
+            crate::error::Located::named(
+                format!("{file}: through"),
+                "two points of a loop whose capacitance rises with the steps",
+                format!("{:?}", spec.through),
+            )
+        })?;
+        Ok(spec)
+    }
+
+    /// The loop, with its hidden offset.
+    pub fn sim_loop(&self) -> Option<SimLoop> {
+        let [[fa, sa], [fb, sb]] = self.through;
+        let mut l = SimLoop::through(
+            SmallLoop {
+                loop_diameter_m: self.loop_diameter_m,
+                conductor_diameter_m: self.conductor_diameter_m,
+                conductor: self.conductor,
+            },
+            (fa, sa),
+            (fb, sb),
+        )?;
+        l.offset_steps = self.rain_steps;
+        Some(l)
+    }
+
+    pub fn band(&self) -> Band {
+        Band {
+            floor_dbm: self.floor_dbm,
+            noise_dbm: self.noise_dbm,
+            scatter_db: self.scatter_db,
         }
     }
 }

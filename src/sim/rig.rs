@@ -24,6 +24,8 @@ use serde::{Deserialize, Serialize};
 use crate::error::{Located, Place};
 use crate::rig::bcd;
 use crate::rig::dialect::{BinarySpec, BlockSpec, Dialect, Spec, TextSpec};
+use crate::rig::meter::{MeterKind, MeterScale};
+use crate::sim::meters::SimMeters;
 
 /// One of the rig's two VFOs.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -196,6 +198,31 @@ pub struct Truth {
     pub rx_vfo: Vfo,
     pub mode: Mode,
     pub cause: Cause,
+}
+
+/// One meter reading the rig answered, with its truth: a line of the
+/// meter truth log (`sim-rig --meter-truth FILE`, protocols/sim-rig.md).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct MeterLine {
+    /// Milliseconds since the simulator started (microsecond resolution).
+    pub t_ms: f64,
+    /// `signal`, `swr` or `power`.
+    pub kind: &'static str,
+    /// The frequency the reading is for: the receive frequency for the
+    /// signal meter, the transmit frequency for SWR and power.
+    pub hz: u64,
+    pub transmitting: bool,
+    /// What the rig sent, and what it means on the dialect's scale.
+    pub raw: u16,
+    pub value: f64,
+    /// The level (dBm) or SWR without scatter or quantisation; `null` where
+    /// the meter reads nothing (SWR and power on receive, the signal meter
+    /// while transmitting) or the capacitor's position is not known yet.
+    pub true_value: Option<f64>,
+    /// The simulated loop's true resonance at the capacitor, and the
+    /// capacitor position the reading was made at (`null`: not known yet).
+    pub resonance_hz: Option<f64>,
+    pub steps: Option<f64>,
 }
 
 /// The simulator's fixed settings.
@@ -470,6 +497,12 @@ pub struct SimRig {
     /// Script not started yet (waits for [`SimRig::start_script`]).
     unstarted: Vec<(Duration, Action)>,
     last: Option<RigState>,
+    /// The simulated loop and band behind the meters (None: the meter
+    /// reads are refused like any unknown command).
+    meters: Option<SimMeters>,
+    /// Whether the capacitor's position has been told.
+    position_known: bool,
+    meter_lines: VecDeque<MeterLine>,
 }
 
 impl SimRig {
@@ -507,9 +540,88 @@ impl SimRig {
             seq: 0,
             unstarted: Vec::new(),
             last: None,
+            meters: None,
+            position_known: false,
+            meter_lines: VecDeque::new(),
         };
         rig.record(Duration::ZERO, Cause::Start);
         rig
+    }
+
+    /// Answers the dialect's meter reads from `meters` (a simulated loop
+    /// and band; its scales should be the dialect's). Until
+    /// [`SimRig::set_capacitor`] is called the meters read 0.
+    pub fn with_meters(mut self, meters: SimMeters) -> SimRig {
+        self.meters = Some(meters);
+        self
+    }
+
+    /// Where the simulated loop's capacitor is now (steps), as the
+    /// simulated controller says.
+    pub fn set_capacitor(&mut self, steps: f64) {
+        if let Some(m) = self.meters.as_mut() {
+            m.set_position(steps);
+            self.position_known = steps.is_finite();
+        }
+    }
+
+    /// The next line of the meter truth log.
+    pub fn poll_meter_line(&mut self) -> Option<MeterLine> {
+        self.meter_lines.pop_front()
+    }
+
+    /// The dialect's scale of meter `kind`.
+    fn meter_scale(&self, kind: MeterKind) -> Option<&MeterScale> {
+        match &self.wire {
+            Wire::Binary(s) => s.meters.iter().find(|m| m.kind == kind).map(|m| &m.scale),
+            Wire::Text(s) => s.meters.iter().find(|m| m.kind == kind).map(|m| &m.scale),
+            Wire::Block(s) => s.meter(kind).map(|m| &m.scale),
+        }
+    }
+
+    /// A reading of meter `kind` now, logged with its truth; None without
+    /// simulated meters. The signal meter reads the band at the receive
+    /// frequency while receiving; SWR (`antenna::swr_at` at the
+    /// capacitor) and forward power (the scale's full power) read while
+    /// transmitting; each reads 0 otherwise, as a rig's meters do.
+    fn meter_reading(&mut self, now: Duration, kind: MeterKind) -> Option<u16> {
+        let scale = self.meter_scale(kind).cloned();
+        let full_power = scale.as_ref().map(MeterScale::full_scale);
+        let st = self.state;
+        let known = self.position_known;
+        let meters = self.meters.as_mut()?;
+        let (hz, truth) = match (kind, st.transmitting) {
+            (MeterKind::Signal, false) => (
+                st.rx_hz(),
+                known.then(|| meters.read_signal(st.rx_hz() as f64)),
+            ),
+            (MeterKind::Swr, true) => (
+                st.tx_hz(),
+                known.then(|| meters.read_swr(st.tx_hz() as f64)),
+            ),
+            (MeterKind::Signal, true) => (st.rx_hz(), None),
+            _ => (st.tx_hz(), None),
+        };
+        let raw = match (kind, st.transmitting, truth) {
+            (_, _, Some(t)) => t.raw,
+            (MeterKind::Power, true, _) => full_power.unwrap_or(0),
+            _ => 0,
+        };
+        let steps = known.then(|| meters.position());
+        let resonance = steps.map(|p| meters.sim_loop.resonance_hz(p));
+        let line = MeterLine {
+            t_ms: now.as_micros() as f64 / 1000.0,
+            kind: kind.as_str(),
+            hz,
+            transmitting: st.transmitting,
+            raw,
+            value: scale.as_ref().map_or(f64::NAN, |sc| sc.value(raw)),
+            true_value: truth.map(|t| t.true_value),
+            resonance_hz: resonance,
+            steps,
+        };
+        self.meter_lines.push_back(line);
+        Some(raw)
     }
 
     /// Loads a script whose times count from `origin` (None: from a later
@@ -755,11 +867,25 @@ impl SimRig {
             let block: Vec<u8> = self.inbuf.drain(..n).collect();
             let op = block.get(s.opcode_offset).copied().unwrap_or(0);
             let before = self.state;
+            let meter = s.meters.iter().find(|m| m.read == op).map(|m| m.kind);
             if op == s.read_frequency {
                 let answer = s.encode_frequency(self.state.operating_hz());
                 self.out.extend_from_slice(&answer);
             } else if op == s.read_transmit {
-                let answer = s.encode_transmit(self.state.transmitting);
+                let mut answer = s.encode_transmit(self.state.transmitting);
+                // The meter the same answer carries (forward power), in its
+                // own bits.
+                if let Some(kind) = meter.filter(|_| self.meters.is_some()) {
+                    let raw = self.meter_reading(now, kind).unwrap_or(0);
+                    let bits = s.encode_meter(kind, raw).unwrap_or_default();
+                    if let (Some(a), Some(b)) = (answer.first_mut(), bits.first()) {
+                        *a |= *b;
+                    }
+                }
+                self.out.extend_from_slice(&answer);
+            } else if let Some(kind) = meter.filter(|_| self.meters.is_some()) {
+                let raw = self.meter_reading(now, kind).unwrap_or(0);
+                let answer = s.encode_meter(kind, raw).unwrap_or_default();
                 self.out.extend_from_slice(&answer);
             } else if op == s.transmit_on {
                 self.state.transmitting = true;
@@ -860,7 +986,24 @@ impl SimRig {
         }
         let (to, cmd) = (*from, *cmd);
         let before = self.state;
-        let answer: Option<Vec<u8>> = self.binary_command(s, cmd, data);
+        let meter = s
+            .meters
+            .iter()
+            .find(|m| m.command == cmd && data == [m.sub])
+            .map(|m| (m.kind, m.sub));
+        let answer: Option<Vec<u8>> = match meter {
+            // A meter read: the command, the sub-command and two BCD bytes,
+            // most significant first; refused without simulated meters.
+            Some((kind, sub)) => Some(match self.meter_reading(now, kind) {
+                Some(raw) => {
+                    let raw = raw.min(9999);
+                    let bcd2 = |v: u16| ((v / 10) << 4 | (v % 10)) as u8;
+                    vec![cmd, sub, bcd2(raw / 100), bcd2(raw % 100)]
+                }
+                None => vec![s.ack_ng],
+            }),
+            None => self.binary_command(s, cmd, data),
+        };
         if let Some(payload) = answer {
             self.binary_send(s, to, &payload);
         }
@@ -996,6 +1139,23 @@ impl SimRig {
 
     fn text_message(&mut self, now: Duration, s: &TextSpec, msg: &[u8]) {
         let before = self.state;
+        let meter = s
+            .meters
+            .iter()
+            .find(|m| m.read.strip_suffix(&[s.terminator]) == Some(msg))
+            .map(|m| m.kind);
+        if let Some(kind) = meter {
+            // A meter read: answered from the simulated meters, refused
+            // without them.
+            let answer = self
+                .meter_reading(now, kind)
+                .and_then(|raw| s.encode_meter(kind, raw));
+            match answer {
+                Some(bytes) => self.out.extend_from_slice(&bytes),
+                None => self.out.extend_from_slice(TXT_REFUSAL),
+            }
+            return;
+        }
         let answer = match msg {
             [a, b, payload @ ..] if a.is_ascii_uppercase() && b.is_ascii_uppercase() => {
                 self.text_command(s, [*a, *b], payload)

@@ -37,6 +37,8 @@ pub struct SimController {
     /// (they move with it on `ZERO` and `HOMED`: the switches stay where
     /// they are on the mechanics, the count is what changes).
     switches: Switches,
+    /// How far `ZERO` and `HOMED` have moved the count from the start's.
+    renumbered: i64,
 }
 
 /// How the move under way ends.
@@ -115,6 +117,7 @@ impl SimController {
             tuner: SimTuner::new(params, start),
             moving: None,
             switches: Switches::default(),
+            renumbered: 0,
         })
     }
 
@@ -133,6 +136,7 @@ impl SimController {
     fn recount(&mut self, now: Duration, steps: i64) {
         let by = steps.saturating_sub(self.tuner.position_at(now));
         self.switches = self.switches.shifted(by);
+        self.renumbered = self.renumbered.saturating_add(by);
         self.tuner = SimTuner::new(*self.tuner.params(), steps);
     }
 
@@ -249,6 +253,13 @@ impl SimController {
     pub fn position_at(&self, now: Duration) -> i64 {
         self.tuner.position_at(now)
     }
+
+    /// Where the capacitor really is at `now` (the motor less the lost
+    /// motion of the last reversal), counted as at start: a `ZERO` or a
+    /// homing run renumbers the count, not the mechanics.
+    pub fn capacitor_at(&self, now: Duration) -> f64 {
+        self.tuner.capacitor_at(now) - self.renumbered as f64
+    }
 }
 
 /// A controller shared by the connections of one server, with the instant
@@ -265,6 +276,11 @@ impl SharedController {
             inner: Arc::new(Mutex::new(ctl)),
             origin: Instant::now(),
         }
+    }
+
+    /// Where the capacitor is now ([`SimController::capacitor_at`]).
+    pub fn capacitor_now(&self) -> f64 {
+        self.with(|c, now| c.capacitor_at(now))
     }
 
     fn with<T>(&self, f: impl FnOnce(&mut SimController, Duration) -> T) -> T {
@@ -335,8 +351,16 @@ pub async fn run_tcp(
     ctl: SimController,
     shutdown: impl Into<Shutdown>,
 ) -> io::Result<()> {
+    run_tcp_shared(listener, SharedController::new(ctl), shutdown).await
+}
+
+/// [`run_tcp`] on a controller shared with another task.
+pub async fn run_tcp_shared(
+    listener: TcpListener,
+    ctl: SharedController,
+    shutdown: impl Into<Shutdown>,
+) -> io::Result<()> {
     let mut shutdown: Shutdown = shutdown.into();
-    let ctl = SharedController::new(ctl);
     let (gen_tx, _) = watch::channel(0u64);
     let mut generation = 0u64;
     loop {
@@ -370,14 +394,54 @@ pub async fn run_pty(
     ctl: SimController,
     shutdown: impl Into<Shutdown>,
 ) -> io::Result<()> {
+    run_pty_shared(link, SharedController::new(ctl), shutdown).await
+}
+
+/// [`run_pty`] on a controller shared with another task.
+pub async fn run_pty_shared(
+    link: &Path,
+    ctl: SharedController,
+    shutdown: impl Into<Shutdown>,
+) -> io::Result<()> {
     let mut shutdown: Shutdown = shutdown.into();
     let (pty, master) = PtyLink::create(link)?;
     tracing::info!(link = %link.display(), device = %pty.slave_path().display(), "controller simulator on pseudo-terminal");
     let (stop_tx, stop) = watch::channel(0u64);
-    let ctl = SharedController::new(ctl);
     tokio::select! {
         r = serve_connection(master, ctl, stop) => r,
         _ = shutdown.wait() => { stop_tx.send_replace(1); Ok(()) }
+    }
+}
+
+/// How often the position file is brought up to date.
+pub const POSITION_FILE_EVERY: Duration = Duration::from_millis(20);
+
+/// Keeps `path` holding the capacitor's position (steps, one number and a
+/// newline; [`SimController::capacitor_at`]) until `shutdown`: written
+/// whenever it changed, to a temporary file renamed over it, so a reader
+/// never sees half a number. Test equipment: `sim-rig --tuner-position`
+/// reads it to answer its meters.
+pub async fn keep_position_file(
+    ctl: SharedController,
+    path: PathBuf,
+    shutdown: impl Into<Shutdown>,
+) -> io::Result<()> {
+    let mut shutdown: Shutdown = shutdown.into();
+    let mut tmp = path.clone().into_os_string();
+    tmp.push(".tmp");
+    let tmp = PathBuf::from(tmp);
+    let mut last: Option<f64> = None;
+    loop {
+        let here = ctl.capacitor_now();
+        if last != Some(here) {
+            tokio::fs::write(&tmp, format!("{here}\n")).await?;
+            tokio::fs::rename(&tmp, &path).await?;
+            last = Some(here);
+        }
+        tokio::select! {
+            _ = tokio::time::sleep(POSITION_FILE_EVERY) => {}
+            _ = shutdown.wait() => return Ok(()),
+        }
     }
 }
 
@@ -406,6 +470,9 @@ pub struct SimTunerOptions {
     pub home_switch: Option<i64>,
     /// Simulated end-stop switches at these counts (as counted at start).
     pub end_stops: Option<(i64, i64)>,
+    /// Keep this file holding the capacitor's position
+    /// ([`keep_position_file`]).
+    pub position_file: Option<PathBuf>,
 }
 
 /// Runs the simulator until interrupted (Ctrl-C or SIGTERM).
@@ -442,6 +509,15 @@ pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), Located> {
         .map_err(|e| Located::named("sim-tuner", "a tokio runtime that starts", e.to_string()))?;
     rt.block_on(async move {
         let stop_rx = crate::signals::stop_flag();
+        let ctl = SharedController::new(ctl);
+        if let Some(path) = &args.position_file {
+            let (ctl, path, stop) = (ctl.clone(), path.clone(), stop_rx.clone());
+            tokio::spawn(async move {
+                if let Err(e) = keep_position_file(ctl, path.clone(), stop).await {
+                    tracing::warn!(file = %path.display(), error = %e, "position file not written");
+                }
+            });
+        }
         if let Some(addr) = args.listen {
             let listening = |e: io::Error| {
                 Located::named(
@@ -453,7 +529,7 @@ pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), Located> {
             let listener = TcpListener::bind(addr).await.map_err(listening)?;
             let local = listener.local_addr().map_err(listening)?;
             println!("listening on {local}");
-            run_tcp(listener, ctl, stop_rx).await.map_err(|e| {
+            run_tcp_shared(listener, ctl, stop_rx).await.map_err(|e| {
                 Located::named(
                     format!("sim-tuner on {local}"),
                     "connections served until stopped",
@@ -461,7 +537,7 @@ pub fn run_sim_tuner(args: &SimTunerOptions) -> Result<(), Located> {
                 )
             })
         } else if let Some(link) = &args.pty {
-            let r = run_pty(link, ctl, stop_rx).await;
+            let r = run_pty_shared(link, ctl, stop_rx).await;
             r.map_err(|e| {
                 Located::named(
                     format!("--pty {}", link.display()),

@@ -559,3 +559,181 @@ fn nine_digit_rig_reads_its_transmit_state_with_tx_and_has_no_flag_in_its_status
     assert!(exchange(&mut r, ms(7), b"VS1;").is_empty());
     assert_eq!((r.state().rx_vfo, r.state().tx_vfo), (Vfo::B, Vfo::B));
 }
+
+// ---- meters ----
+
+/// The demo station's loop (config/demo.toml, invented) through two of its
+/// calibration points, with a hidden "rain" offset of 40 steps.
+const METERS: &str = "loop_diameter_m = 1.0\nconductor_diameter_m = 0.022\n\
+    through = [[7100000, 39049], [14175000, 8301]]\nrain_steps = 40\n\
+    floor_dbm = -115.0\nnoise_dbm = -105.0\nscatter_db = 0.0\nseed = 3\n";
+
+fn metered(dialect: &str) -> (SimRig, crate::sim::meters::SimLoop) {
+    use crate::rig::meter::MeterKind;
+    let spec = crate::sim::meters::SimMetersSpec::parse(METERS, "meters.toml").unwrap();
+    let l = spec.sim_loop().unwrap();
+    let d = Dialect::builtin(dialect).unwrap();
+    let scale = |k| {
+        d.meter_scale(k)
+            .cloned()
+            .unwrap_or_else(crate::rig::meter::binary_swr_scale)
+    };
+    let m = SimMeters::new(
+        l,
+        spec.band(),
+        scale(MeterKind::Signal),
+        scale(MeterKind::Swr),
+        spec.seed,
+    );
+    (rig(dialect).with_meters(m), l)
+}
+
+/// What the station decoder makes of `request` going to the rig and the
+/// rig's answer `bytes` (the block family pairs answers with requests).
+fn station_decoded(dialect: &str, request: &[u8], bytes: &[u8]) -> Vec<RigEvent> {
+    let mut d = Dialect::builtin(dialect).unwrap().station_decoder(None);
+    let mut out = Vec::new();
+    d.feed(Direction::Tx, request, &mut out);
+    d.feed(Direction::Rx, bytes, &mut out);
+    out
+}
+
+#[test]
+fn meters_file_is_checked_and_names_what_it_found() {
+    use crate::sim::meters::SimMetersSpec;
+    let e = SimMetersSpec::parse("loop_diameter_m = 1.0\ncolour = 3\n", "m.toml").unwrap_err();
+    assert!(
+        e.to_string()
+            .starts_with("m.toml: expected a simulated loop"),
+        "{e}"
+    );
+    let falling = METERS.replace("[14175000, 8301]", "[14175000, 39049]");
+    let e = SimMetersSpec::parse(&falling, "m.toml").unwrap_err();
+    assert!(e.to_string().contains("through"), "{e}");
+    let spec = SimMetersSpec::parse(METERS, "m.toml").unwrap();
+    assert_eq!(spec.sim_loop().unwrap().offset_steps, 40.0);
+}
+
+/// Each family's meter reads answered from the simulated loop at the
+/// capacitor's position, decoded by tuneward's own station decoder, and
+/// logged with their truth: the signal meter peaks where the loop (with its
+/// hidden offset) resonates at the receive frequency; the SWR meter reads
+/// `antenna::swr_at` there while transmitting.
+#[test]
+fn every_family_answers_its_meter_reads_from_the_simulated_loop() {
+    use crate::rig::meter::MeterKind;
+    for (dialect, addr) in [
+        ("binary-bcd", 0x94u8),
+        ("text-semicolon", 0),
+        ("text-semicolon-9", 0),
+        ("block-5", 0),
+    ] {
+        let d = Dialect::builtin(dialect).unwrap();
+        let (mut r, l) = metered(dialect);
+        let hz = r.state().rx_hz() as f64;
+        let signal = d.meter_read(MeterKind::Signal, addr).unwrap();
+        // Until the position is told, the meters read 0 and say so.
+        let got = exchange(&mut r, ms(1), &signal);
+        assert_eq!(
+            station_decoded(dialect, &signal, &got).last(),
+            Some(&RigEvent::Meter {
+                kind: MeterKind::Signal,
+                raw: 0
+            }),
+            "{dialect}"
+        );
+        let line = r.poll_meter_line().unwrap();
+        assert_eq!((line.steps, line.true_value), (None, None));
+        let true_peak = l.steps_for(hz);
+        let read_at = |r: &mut SimRig, steps: f64| {
+            r.set_capacitor(steps);
+            let got = exchange(r, ms(2), &signal);
+            let ev = station_decoded(dialect, &signal, &got);
+            let line = r.poll_meter_line().unwrap();
+            assert_eq!(
+                ev.last(),
+                Some(&RigEvent::Meter {
+                    kind: MeterKind::Signal,
+                    raw: line.raw
+                })
+            );
+            line
+        };
+        let peak = read_at(&mut r, true_peak);
+        let off = read_at(&mut r, true_peak + 2000.0);
+        assert_eq!(peak.kind, "signal");
+        assert!((peak.resonance_hz.unwrap() - hz).abs() < 1.0, "{peak:?}");
+        // Floor and band noise add as power at resonance:
+        // 10 log10(10^-11.5 + 10^-10.5) = -104.59 dBm; far off, the floor.
+        assert!(
+            (peak.true_value.unwrap() - -104.586).abs() < 1e-3,
+            "{peak:?}"
+        );
+        assert!((off.true_value.unwrap() - -115.0).abs() < 0.1, "{off:?}");
+        assert!(peak.raw >= off.raw, "{dialect}: {peak:?} {off:?}");
+        match d.meter_read(MeterKind::Swr, addr) {
+            Some(swr_read) => {
+                r.operate(ms(3), Action::Key);
+                r.set_capacitor(true_peak + 30.0);
+                let got = exchange(&mut r, ms(4), &swr_read);
+                let line = r.poll_meter_line().unwrap();
+                let want =
+                    crate::antenna::swr_at(hz, l.resonance_hz(true_peak + 30.0), l.q_unloaded(hz));
+                assert!((line.true_value.unwrap() - want).abs() < 1e-9, "{line:?}");
+                assert_eq!(
+                    station_decoded(dialect, &swr_read, &got).last(),
+                    Some(&RigEvent::Meter {
+                        kind: MeterKind::Swr,
+                        raw: line.raw
+                    })
+                );
+                assert!(line.transmitting && line.raw > 0, "{dialect}: {line:?}");
+            }
+            None => assert_eq!(dialect, "block-5"),
+        }
+    }
+}
+
+#[test]
+fn without_meters_the_reads_are_refused_like_unknown_commands() {
+    use crate::rig::meter::MeterKind;
+    let d = Dialect::builtin("binary-bcd").unwrap();
+    let mut r = rig("binary-bcd");
+    let got = exchange(
+        &mut r,
+        ms(1),
+        &d.meter_read(MeterKind::Signal, 0x94).unwrap(),
+    );
+    assert_eq!(got, [0xFE, 0xFE, 0xE0, 0x94, 0xFA, 0xFD]);
+    let d = Dialect::builtin("text-semicolon").unwrap();
+    let mut r = rig("text-semicolon");
+    let got = exchange(&mut r, ms(1), &d.meter_read(MeterKind::Signal, 0).unwrap());
+    assert_eq!(got, TXT_REFUSAL);
+    assert!(r.poll_meter_line().is_none());
+}
+
+/// The block family's transmit-status answer carries the power meter in
+/// its low bits beside the transmit bit (recalled), and still reads as
+/// transmitting.
+#[test]
+fn block_transmit_status_carries_the_power_meter() {
+    use crate::rig::meter::MeterKind;
+    let (mut r, _) = metered("block-5");
+    r.set_capacitor(8000.0);
+    r.operate(ms(1), Action::Key);
+    let got = exchange(&mut r, ms(2), &[0, 0, 0, 0, 0xF7]);
+    let mut d = Dialect::builtin("block-5").unwrap().station_decoder(None);
+    let mut out = Vec::new();
+    d.feed(Direction::Tx, &[0, 0, 0, 0, 0xF7], &mut out);
+    d.feed(Direction::Rx, &got, &mut out);
+    assert_eq!(
+        out,
+        [
+            RigEvent::Transmit { on: true },
+            RigEvent::Meter {
+                kind: MeterKind::Power,
+                raw: 15
+            }
+        ]
+    );
+}
