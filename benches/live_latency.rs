@@ -150,6 +150,7 @@ async fn start(journal: bool) -> Live {
         relax_on_exit: false,
         home: None,
         candidates: None,
+        swr_watch: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     // Let the start-up WHERE be answered and the inhibit released.

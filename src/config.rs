@@ -54,6 +54,10 @@ pub struct Config {
     /// The live web page (off unless `listen` is given).
     #[serde(default)]
     pub web: WebConfig,
+    /// Watching the rig's SWR meter while it transmits (off unless
+    /// `action` says otherwise).
+    #[serde(default)]
+    pub swr_watch: SwrWatchConfig,
     /// Where the config was read from; relative paths inside it are resolved
     /// against this file's folder.
     #[serde(skip)]
@@ -532,6 +536,83 @@ pub struct MqttConfig {
     pub password_file: Option<PathBuf>,
 }
 
+/// `[swr_watch]`: read the rig's SWR meter during every transmission
+/// (`poll` or `proxy` mode with polling, a dialect with an SWR read), keep
+/// per over the SWR seen, raise an alarm when it stays above `alarm` for
+/// `hold_ms`, and with `action = "inhibit"` (and an inhibit line wired)
+/// assert the inhibit, which ends the over.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SwrWatchConfig {
+    /// SWR above which the alarm's hold starts.
+    #[serde(default = "default_swr_alarm")]
+    pub alarm: f64,
+    /// How long the SWR must stay above `alarm` before the alarm.
+    #[serde(default = "default_swr_hold_ms")]
+    pub hold_ms: u64,
+    /// `"off"` (the default: no watch), `"log"` (log and show an alarm) or
+    /// `"inhibit"` (also assert the inhibit).
+    #[serde(default)]
+    pub action: SwrActionConfig,
+    /// An over's median SWR above the model's prediction by more than this
+    /// counts toward drift.
+    #[serde(default = "default_drift_margin")]
+    pub drift_margin: f64,
+    /// Overs running with that excess before drift is reported.
+    #[serde(default = "default_drift_overs")]
+    pub drift_overs: usize,
+}
+
+/// `[swr_watch] action`.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SwrActionConfig {
+    #[default]
+    Off,
+    Log,
+    Inhibit,
+}
+
+impl Default for SwrWatchConfig {
+    fn default() -> Self {
+        SwrWatchConfig {
+            alarm: default_swr_alarm(),
+            hold_ms: default_swr_hold_ms(),
+            action: SwrActionConfig::Off,
+            drift_margin: default_drift_margin(),
+            drift_overs: default_drift_overs(),
+        }
+    }
+}
+
+impl SwrWatchConfig {
+    /// Whether the watch runs.
+    pub fn on(&self) -> bool {
+        self.action != SwrActionConfig::Off
+    }
+}
+
+/// Common practice, no source: 2:1 is where many rigs begin to fold back
+/// their power.
+fn default_swr_alarm() -> f64 {
+    2.0
+}
+
+/// Common practice, no source: long enough that a tuning peak or a
+/// keying transient does not cut an over, short enough to spare a loop
+/// that arcs.
+fn default_swr_hold_ms() -> u64 {
+    1000
+}
+
+fn default_drift_margin() -> f64 {
+    0.3
+}
+
+fn default_drift_overs() -> usize {
+    3
+}
+
 /// `[mqtt] url`, read: the broker's host and port.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct MqttBroker {
@@ -918,6 +999,9 @@ impl Config {
             self.validate_home(h)?;
         }
         self.validate_rig()?;
+        if self.swr_watch.on() {
+            self.validate_swr_watch(&self.swr_watch)?;
+        }
         if self.follow.min_move_steps < 0 {
             return Err(self.invalid(
                 "follow.min_move_steps",
@@ -980,6 +1064,45 @@ impl Config {
 
     /// `[[preset]]`: unique names, exactly one of `hz` and `steps`, steps
     /// within the travel limits.
+    /// `[swr_watch]`'s own keys, and a rig mode that polls (the meter is
+    /// read by a poll; listen mode never writes to the port). Whether the
+    /// dialect has an SWR read is the station's to check (it loads it).
+    fn validate_swr_watch(&self, w: &SwrWatchConfig) -> Result<(), ConfigError> {
+        if !(w.alarm.is_finite() && w.alarm > 1.0) {
+            return Err(self.invalid(
+                "swr_watch.alarm",
+                "an SWR above 1 (e.g. 2.0)",
+                w.alarm.to_string(),
+            ));
+        }
+        if w.hold_ms == 0 || w.hold_ms > 60_000 {
+            return Err(self.invalid("swr_watch.hold_ms", "1 to 60000 ms", w.hold_ms.to_string()));
+        }
+        if !(w.drift_margin.is_finite() && w.drift_margin > 0.0) {
+            return Err(self.invalid(
+                "swr_watch.drift_margin",
+                "a positive SWR difference",
+                w.drift_margin.to_string(),
+            ));
+        }
+        if w.drift_overs == 0 {
+            return Err(self.invalid("swr_watch.drift_overs", "1 or more", "0".into()));
+        }
+        let polls = match self.rig_use()? {
+            RigUse::Listen => false,
+            RigUse::Poll { .. } => true,
+            RigUse::Proxy { poll_ms, .. } => poll_ms.is_some(),
+        };
+        if !polls {
+            return Err(self.invalid(
+                "swr_watch",
+                "a rig that is polled (mode = \"poll\", or \"proxy\" with poll_ms): the SWR meter is read by a poll, and listen mode never writes to the port",
+                format!("mode = {:?}", self.rig.mode).to_lowercase(),
+            ));
+        }
+        Ok(())
+    }
+
     fn validate_home(&self, h: &HomeConfig) -> Result<(), ConfigError> {
         let t = &self.tuner;
         if !(t.min_steps..=t.max_steps).contains(&h.position) {

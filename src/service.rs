@@ -98,6 +98,17 @@ pub struct ServiceParts {
     /// Where touch-up candidates go (beside `[calibration] file`); `None`
     /// with inline points: candidates are only logged.
     pub candidates: Option<PathBuf>,
+    /// `[swr_watch]`: the SWR meter read during transmissions.
+    pub swr_watch: Option<SwrWatchParts>,
+}
+
+/// What the SWR watch needs: its settings, the dialect's SWR scale and the
+/// SWR-meter read, which the rig's poll carries while the session says so.
+#[derive(Debug, Clone)]
+pub struct SwrWatchParts {
+    pub settings: crate::follow::swr_watch::SwrWatchSettings,
+    pub scale: crate::rig::meter::MeterScale,
+    pub read: Vec<u8>,
 }
 
 /// How `tuneward run` writes its log (stderr).
@@ -288,9 +299,18 @@ pub async fn run_with_operator(
     // The poll reads the other VFO while the session knows the rig works
     // split; the link task is kept told.
     let (split_tx, split_rx) = watch::channel(false);
+    // The poll carries the SWR-meter read while the session asks for it.
+    let (meters_tx, meters_rx) = watch::channel(Vec::new());
     let mut rig = service.rig;
     if let RigSource::Link(cfg) = &mut rig {
         cfg.split = Some(split_rx);
+    }
+    if service.swr_watch.is_some() {
+        match &mut rig {
+            RigSource::Link(cfg) => cfg.meters = Some(meters_rx),
+            RigSource::Proxy { config, .. } => config.meters = Some(meters_rx),
+            _ => {}
+        }
     }
     let (rig_task, mut rig_rx) = rig.spawn(tasks_shutdown.clone())?;
     let (transmit_tx, transmit_rx) = watch::channel(false);
@@ -316,6 +336,20 @@ pub async fn run_with_operator(
     });
     let mut sense_open = sense_task.is_some();
     let mut session = Session::new(follower, service.decoder, recorded, settings);
+    let swr_read = match service.swr_watch {
+        Some(w) => {
+            tracing::info!(
+                alarm = w.settings.alarm,
+                hold_ms = w.settings.hold.as_millis() as u64,
+                action = ?w.settings.action,
+                inhibit_wired = w.settings.inhibit_wired,
+                "SWR watch: the SWR meter is read with every poll while the rig transmits"
+            );
+            session = session.with_swr_watch(w.settings, w.scale);
+            w.read
+        }
+        None => Vec::new(),
+    };
     let mut io = Io {
         // Lines are opened asserted (fail-safe); the session syncs them.
         inhibit: service.inhibit,
@@ -398,6 +432,16 @@ pub async fn run_with_operator(
         publish(&state, &session, &io.recent);
         let split = session.poll_other_vfo();
         split_tx.send_if_modified(|s| std::mem::replace(s, split) != split);
+        let meters = if session.poll_swr_meter() {
+            swr_read.clone()
+        } else {
+            Vec::new()
+        };
+        meters_tx.send_if_modified(|m| {
+            let changed = *m != meters;
+            *m = meters;
+            changed
+        });
     }
     let result = session.outcome();
     tasks_stop.trigger();
@@ -665,6 +709,13 @@ fn decision_words(note: &Note, at: &Where) -> Option<String> {
             "position unknown: nothing moves until it is set".to_string()
         }
         Note::LinkDown { reason } => format!("controller link down ({reason})"),
+        Note::SwrAlarm { swr, inhibit } => match inhibit {
+            true => format!("SWR alarm at {swr:.2}: transmit inhibit asserted"),
+            false => format!("SWR alarm at {swr:.2}"),
+        },
+        Note::SwrDrift {
+            seen, predicted, ..
+        } => format!("the loop reads SWR {seen:.2} where it should read {predicted:.2}: re-peak?"),
         _ => return None,
     })
 }
@@ -853,6 +904,30 @@ fn log(note: Note, at: &Where) {
         Note::RelaxBegin { from, to } => {
             info!(from, to, "relax on exit: backing off half the backlash")
         }
+        Note::SwrAlarm { swr, inhibit: true } => warn!(
+            swr,
+            "SWR alarm: the SWR stayed above the alarm level; transmit inhibit asserted to end the over"
+        ),
+        Note::SwrAlarm { swr, inhibit: false } => warn!(
+            swr,
+            "SWR alarm: the SWR stayed above the alarm level (logged only)"
+        ),
+        Note::SwrOver {
+            hz,
+            reads,
+            max_swr,
+            median_swr,
+        } => info!(hz, reads, max_swr, median_swr, "over ended: SWR seen"),
+        Note::SwrDrift {
+            overs,
+            seen,
+            predicted,
+        } => warn!(
+            overs,
+            seen,
+            predicted,
+            "SWR drift: the loop reads {seen:.2} where it should read {predicted:.2}: re-peak?"
+        ),
         Note::Command { name, reply } => {
             let answer = crate::control::Answer::from_reply(&reply);
             let reason = answer.reason.as_deref();

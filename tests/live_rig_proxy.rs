@@ -41,6 +41,7 @@ async fn setup_with(poll: Option<PollConfig>, boundary: Box<dyn Boundary>) -> Se
         link: link.clone(),
         poll,
         backoff_cap: Duration::from_millis(200),
+        meters: None,
     };
     spawn(cfg, boundary, tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
@@ -210,6 +211,7 @@ async fn an_existing_file_at_the_link_path_is_not_replaced() {
         link: link.clone(),
         poll: None,
         backoff_cap: Duration::from_millis(200),
+        meters: None,
     };
     let e = spawn(cfg, Box::new(ends_with(b';')), tx, stop)
         .unwrap_err()
@@ -239,6 +241,7 @@ async fn the_shared_port_survives_the_rig_being_unplugged() {
         link: shared.clone(),
         poll: None,
         backoff_cap: Duration::from_millis(100),
+        meters: None,
     };
     spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));

@@ -95,6 +95,7 @@ async fn start_with(policy: Policy, sense: Option<ScriptedSense>) -> Running {
         relax_on_exit: false,
         home: None,
         candidates: None,
+        swr_watch: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     Running {

@@ -270,6 +270,12 @@ pub struct StateView {
     /// `[antenna]` describing the loop).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub swr: Option<SwrView>,
+    /// With `[swr_watch]`: the rig's SWR meter's last reading in the
+    /// current (or last) over, and the SWR of that over's alarm, if any.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub swr_read: Option<Ratio>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub swr_alarm: Option<Ratio>,
     /// The last few decisions, in words, oldest first (set by the driver).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub recent: Vec<String>,
@@ -390,6 +396,8 @@ impl StateView {
                 .collect(),
             shutting_down: s.shutting_down,
             swr: s.swr.as_ref().map(SwrView::from_curve),
+            swr_read: s.swr_read.map(Ratio::of),
+            swr_alarm: s.swr_alarm.map(Ratio::of),
             recent: Vec::new(),
         }
     }

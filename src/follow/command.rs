@@ -294,4 +294,9 @@ pub struct Status {
     pub presets: Vec<Preset>,
     /// Set by the session once a shutdown was asked.
     pub shutting_down: bool,
+    /// The SWR meter's last reading in the current (or last) over, with
+    /// `[swr_watch]` (set by the session).
+    pub swr_read: Option<f64>,
+    /// The SWR of the current (or last) over's alarm, if it raised one.
+    pub swr_alarm: Option<f64>,
 }

@@ -255,6 +255,11 @@ pub struct Follower {
     tail_after_move: bool,
     /// The inhibit is held for a detuned report that has not settled yet.
     detune_hold: bool,
+    /// The SWR watch's alarm holds the inhibit (`[swr_watch] action =
+    /// "inhibit"`) until the over it ended is over: no release meanwhile.
+    swr_hold: bool,
+    /// A release the SWR hold kept back: given when the hold ends.
+    release_after_swr_hold: bool,
     touchup: Option<Touchup>,
     /// The last frequency reported that differed from the one before it,
     /// and when it came: what a jump is told from.
@@ -325,6 +330,8 @@ impl Follower {
             release_at: None,
             tail_after_move: false,
             detune_hold: false,
+            swr_hold: false,
+            release_after_swr_hold: false,
             touchup: None,
             last_report: None,
             last_hold: None,
@@ -949,6 +956,8 @@ impl Follower {
             profiles: self.calibrations.names(),
             presets: self.presets.clone(),
             shutting_down: self.closing,
+            swr_read: None,
+            swr_alarm: None,
         }
     }
 
@@ -1025,6 +1034,39 @@ impl Follower {
                 }
             }
         }
+    }
+
+    /// The SWR watch raised its alarm with `action = "inhibit"` and a line
+    /// wired: assert the inhibit now, against the transmission in progress
+    /// (the one exception to "never against an over": the loop may be
+    /// arcing or its feed broken, and the operator asked for it), and hold
+    /// it until [`Follower::end_swr_hold`]. A release the core decides
+    /// meanwhile is given when the hold ends.
+    pub fn handle_swr_alarm(&mut self, now: Duration) {
+        if self.swr_hold {
+            return;
+        }
+        let was_on = self.inhibit;
+        self.assert_inhibit(now);
+        self.swr_hold = true;
+        self.release_after_swr_hold = !was_on;
+    }
+
+    /// The over the SWR alarm ended is over (the rig receives): the hold
+    /// ends, and the inhibit goes off if the core had released it (or never
+    /// wanted it) meanwhile.
+    pub fn end_swr_hold(&mut self) {
+        if !std::mem::take(&mut self.swr_hold) {
+            return;
+        }
+        if std::mem::take(&mut self.release_after_swr_hold) {
+            self.set_inhibit(false);
+        }
+    }
+
+    /// The SWR alarm holds the inhibit.
+    pub fn swr_hold(&self) -> bool {
+        self.swr_hold
     }
 
     // ----- work out -------------------------------------------------------
@@ -1366,6 +1408,12 @@ impl Follower {
     }
 
     fn set_inhibit(&mut self, on: bool) {
+        if self.swr_hold {
+            // The alarm's hold decides the line until the over has ended;
+            // whatever the core decides meanwhile is given then.
+            self.release_after_swr_hold = !on;
+            return;
+        }
         if self.inhibit != on {
             self.inhibit = on;
             self.actions.push_back(Action::Inhibit { on });

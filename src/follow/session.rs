@@ -302,6 +302,25 @@ pub enum Note {
     Arrived {
         steps: i64,
     },
+    /// The SWR watch's alarm: the SWR stayed above `[swr_watch] alarm` for
+    /// the hold; `inhibit`: the inhibit is asserted to end the over.
+    SwrAlarm {
+        swr: f64,
+        inhibit: bool,
+    },
+    /// An over ended: the SWR seen.
+    SwrOver {
+        hz: Option<u64>,
+        reads: usize,
+        max_swr: Option<f64>,
+        median_swr: Option<f64>,
+    },
+    /// Overs running read more than the model predicts: re-peak.
+    SwrDrift {
+        overs: usize,
+        seen: f64,
+        predicted: f64,
+    },
     /// An operator command and what became of it (`Status` is not noted).
     Command {
         name: &'static str,
@@ -552,6 +571,19 @@ pub struct Session {
     events: Vec<RigEvent>,
     quiet: super::quiet::RejectWatch,
     st: Shell,
+    /// The SWR watch (`[swr_watch]`), with the dialect's SWR-meter scale.
+    swr: Option<SwrWatching>,
+}
+
+/// The SWR watch as the session runs it.
+#[derive(Debug)]
+struct SwrWatching {
+    watch: super::swr_watch::SwrWatch,
+    scale: crate::rig::meter::MeterScale,
+    /// The last reading of the current (or last) over.
+    last: Option<f64>,
+    /// The alarm of the current (or last) over.
+    alarm: Option<f64>,
 }
 
 impl Session {
@@ -619,6 +651,109 @@ impl Session {
             events: Vec::with_capacity(16),
             quiet: super::quiet::RejectWatch::new(),
             st,
+            swr: None,
+        }
+    }
+
+    /// Watches the SWR during every transmission (`[swr_watch]`): the
+    /// driver reads the SWR meter while [`Session::poll_swr_meter`] says
+    /// so, and the session hands the readings (raw, through `scale`, the
+    /// dialect's) to the watch. An alarm is logged; with `action =
+    /// Inhibit` and a line wired the core asserts the inhibit, held until
+    /// the over is over.
+    pub fn with_swr_watch(
+        mut self,
+        settings: super::swr_watch::SwrWatchSettings,
+        scale: crate::rig::meter::MeterScale,
+    ) -> Session {
+        self.swr = Some(SwrWatching {
+            watch: super::swr_watch::SwrWatch::new(settings),
+            scale,
+            last: None,
+            alarm: None,
+        });
+        self
+    }
+
+    /// Whether the rig's SWR meter should be read now: an SWR watch runs
+    /// and the rig transmits.
+    pub fn poll_swr_meter(&self) -> bool {
+        self.swr.is_some() && self.core.transmitting()
+    }
+
+    /// A report of the SWR watch: logged; an alarm asking for the inhibit
+    /// goes to the core.
+    fn swr_report(&mut self, now: Duration, report: super::swr_watch::SwrReport) {
+        use super::swr_watch::SwrReport;
+        match report {
+            SwrReport::Alarm { swr, inhibit, .. } => {
+                if let Some(w) = self.swr.as_mut() {
+                    w.alarm = Some(swr);
+                }
+                self.st.note(Note::SwrAlarm { swr, inhibit });
+                if inhibit {
+                    self.core.handle_swr_alarm(now);
+                }
+            }
+            SwrReport::Over(o) => self.st.note(Note::SwrOver {
+                hz: o.hz,
+                reads: o.reads,
+                max_swr: o.max_swr,
+                median_swr: o.median_swr,
+            }),
+            SwrReport::Drift {
+                overs,
+                seen,
+                predicted,
+            } => self.st.note(Note::SwrDrift {
+                overs,
+                seen,
+                predicted,
+            }),
+        }
+    }
+
+    /// The rig started or stopped transmitting: the watch's over begins or
+    /// ends (and with it an alarm's hold on the inhibit).
+    fn swr_transmit(&mut self, now: Duration, on: bool) {
+        if self.swr.is_none() {
+            return;
+        }
+        if on {
+            let hz = self.core.station().transmit_hz();
+            let predicted = self.core.status().swr.and_then(|c| c.at.map(|p| p.swr));
+            if let Some(w) = self.swr.as_mut() {
+                w.last = None;
+                w.alarm = None;
+                w.watch.handle_transmit_on(now, hz, predicted);
+            }
+        } else {
+            let reports = match self.swr.as_mut() {
+                Some(w) => w.watch.handle_transmit_off(now),
+                None => Vec::new(),
+            };
+            for r in reports {
+                self.swr_report(now, r);
+            }
+            self.core.end_swr_hold();
+        }
+    }
+
+    /// A meter reading from the rig.
+    fn meter(&mut self, now: Duration, kind: crate::rig::meter::MeterKind, raw: u16) {
+        if kind != crate::rig::meter::MeterKind::Swr {
+            return;
+        }
+        let report = match self.swr.as_mut() {
+            Some(w) => {
+                let swr = w.scale.value(raw);
+                w.last = Some(swr);
+                w.watch.handle_reading(now, swr)
+            }
+            None => None,
+        };
+        if let Some(r) = report {
+            self.swr_report(now, r);
         }
     }
 
@@ -649,6 +784,10 @@ impl Session {
                     reason: reason.as_str(),
                     bytes,
                 });
+                continue;
+            }
+            if let RigEvent::Meter { kind, raw } = *ev {
+                self.meter(now, kind, raw);
                 continue;
             }
             let Some(sev) = station::from_rig(ev, out.get(i + 1), false) else {
@@ -699,6 +838,10 @@ impl Session {
         // a poll answer or the sense line says otherwise.
         self.core.handle_station(now, StationEvent::TransmitUnknown);
         self.core.handle_rig_link(now, true);
+        // An over the watch saw is no longer known to go on.
+        if !self.core.transmitting() {
+            self.swr_transmit(now, false);
+        }
         self.st.push(Output::Transmit {
             on: self.core.rig_may_transmit(),
         });
@@ -751,6 +894,7 @@ impl Session {
         let transmitting = self.core.transmitting();
         if transmitting != was_transmitting {
             self.st.note(Note::Transmit { on: transmitting });
+            self.swr_transmit(now, transmitting);
         }
         if matches!(ev, StationEvent::Transmit { .. }) || before != after {
             self.st.push(Output::Transmit { on: after });
@@ -861,6 +1005,15 @@ impl Session {
                 }
                 if self.core.poll_timeout().is_some_and(|t| now >= t) {
                     self.core.handle_timeout(now);
+                    woke = true;
+                }
+                let alarm = self
+                    .swr
+                    .as_mut()
+                    .filter(|w| w.watch.poll_timeout().is_some_and(|t| now >= t))
+                    .and_then(|w| w.watch.handle_timeout(now));
+                if let Some(r) = alarm {
+                    self.swr_report(now, r);
                     woke = true;
                 }
                 if woke {
@@ -1078,6 +1231,7 @@ impl Session {
                     finishing,
                     self.st.pending_goto.map(|(_, due)| due),
                     self.home_due().filter(|due| *due > self.st.now),
+                    self.swr.as_ref().and_then(|w| w.watch.poll_timeout()),
                 ]
                 .into_iter()
                 .flatten()
@@ -1113,6 +1267,10 @@ impl Session {
     pub fn status(&self) -> super::Status {
         let mut s = self.core.status();
         s.shutting_down |= self.st.stopping;
+        if let Some(w) = &self.swr {
+            s.swr_read = w.last;
+            s.swr_alarm = w.alarm;
+        }
         s
     }
 

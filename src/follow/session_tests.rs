@@ -1361,3 +1361,152 @@ fn an_unasked_at_with_another_count_at_rest_is_not_taken() {
     b.wait(ms(20));
     assert_eq!(b.commands.last(), Some(&home_command()));
 }
+
+// ---- the SWR watch ([swr_watch]) ----
+
+/// A bench at rest on 7.1 MHz with the inhibit released, decoding with the
+/// station decoder (meter answers are station events) and watching the
+/// SWR: alarm 2.0 held 1 s, `action`, `wired`.
+fn swr_bench(action: super::super::swr_watch::SwrAction, wired: bool) -> Bench {
+    use super::super::swr_watch::SwrWatchSettings;
+    let mut b = Bench::linked(None, 0);
+    b.s.decoder = b.dialect.station_decoder(None);
+    let scale = b
+        .dialect
+        .meter_scale(crate::rig::meter::MeterKind::Swr)
+        .cloned()
+        .expect("the text dialect reads SWR");
+    let s = std::mem::replace(
+        &mut b.s,
+        Session::new(
+            Follower::new(policy(0), Arc::new(Line), None),
+            b.dialect.decoder(None),
+            None,
+            SessionSettings {
+                steps_per_second: 1.0,
+                settle: ms(1),
+                reply_margin: ms(1),
+                relax_on_exit: false,
+                restart_counts: [0, 0, 0],
+                home: None,
+            },
+        ),
+    );
+    b.s = s.with_swr_watch(
+        SwrWatchSettings {
+            alarm: 2.0,
+            hold: ms(1000),
+            action,
+            inhibit_wired: wired,
+            drift_margin: 0.3,
+            drift_overs: 3,
+        },
+        scale,
+    );
+    b.frequency(7_100_000);
+    b.wait(ms(100));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(1000));
+    assert_eq!(b.levels.last(), Some(&false), "released at rest");
+    b
+}
+
+impl Bench {
+    fn rig_says(&mut self, msg: &[u8]) {
+        self.s.handle_rig_bytes(self.now, Direction::Rx, msg);
+        self.pump();
+    }
+
+    /// The rig transmits; from `fault` on its SWR meter reads 3.0 (`RM1`
+    /// and 0015 on the text family's recalled scale), 1.2 before, one
+    /// reading every 200 ms (the poll), until `until`.
+    fn over(&mut self, fault: Duration, until: Duration) {
+        self.rig_says(b"TX;");
+        assert!(
+            self.s.poll_swr_meter(),
+            "the SWR meter is read while transmitting"
+        );
+        while self.now < until {
+            let msg: &[u8] = if self.now >= fault {
+                b"RM10015;"
+            } else {
+                b"RM10001;"
+            };
+            self.rig_says(msg);
+            let next = self.now + ms(200);
+            self.run_until(next);
+        }
+    }
+}
+
+/// Issue 16's target: an injected fault (SWR 3 from t) asserts the inhibit
+/// within the configured time plus one meter period, and the inhibit holds
+/// for the rest of the over; it is released once the rig receives.
+#[test]
+fn an_swr_fault_asserts_the_inhibit_within_the_hold_and_one_meter_period() {
+    let mut b = swr_bench(super::super::swr_watch::SwrAction::Inhibit, true);
+    assert!(!b.s.poll_swr_meter(), "not read on receive");
+    let t = b.now + ms(500);
+    b.over(t, t + ms(3000));
+    let asserted = b
+        .timed
+        .iter()
+        .find(|(at, w)| *at >= t && *w == Wire::Level(true))
+        .map(|(at, _)| *at)
+        .expect("the inhibit was asserted");
+    assert!(
+        asserted <= t + ms(1000) + ms(200),
+        "{asserted:?} after the fault at {t:?}"
+    );
+    assert!(
+        asserted >= t + ms(1000),
+        "not before the hold: {asserted:?}"
+    );
+    assert_eq!(
+        b.levels.last(),
+        Some(&true),
+        "held for the rest of the over"
+    );
+    let status = b.s.status();
+    assert_eq!(status.swr_read, Some(3.0));
+    assert_eq!(status.swr_alarm, Some(3.0));
+    b.rig_says(b"RX;");
+    b.wait(ms(10));
+    assert_eq!(
+        b.levels.last(),
+        Some(&false),
+        "released once the rig receives"
+    );
+    assert!(!b.s.poll_swr_meter());
+    assert!(b.gotos() == vec![1000], "nothing moved: {:?}", b.gotos());
+}
+
+#[test]
+fn an_swr_alarm_with_action_log_or_no_line_wired_only_logs() {
+    use super::super::swr_watch::SwrAction;
+    for (action, wired) in [(SwrAction::Log, true), (SwrAction::Inhibit, false)] {
+        let mut b = swr_bench(action, wired);
+        let levels = b.levels.len();
+        let t = b.now;
+        b.over(t, t + ms(3000));
+        assert_eq!(
+            b.levels.len(),
+            levels,
+            "{action:?} wired {wired}: {:?}",
+            b.levels
+        );
+        assert_eq!(b.s.status().swr_alarm, Some(3.0));
+    }
+}
+
+#[test]
+fn readings_at_or_below_the_alarm_raise_nothing() {
+    let mut b = swr_bench(super::super::swr_watch::SwrAction::Inhibit, true);
+    let levels = b.levels.len();
+    let t = b.now;
+    // The fault never comes within the over.
+    b.over(t + ms(10_000), t + ms(3000));
+    assert_eq!(b.levels.len(), levels);
+    assert_eq!(b.s.status().swr_alarm, None);
+    assert_eq!(b.s.status().swr_read, Some(1.1));
+}

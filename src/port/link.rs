@@ -205,6 +205,10 @@ pub struct LinkConfig {
     /// keeps it current): then the poll adds [`PollConfig::while_split`].
     /// `None`: never.
     pub split: Option<tokio::sync::watch::Receiver<bool>>,
+    /// Meter reads to append to every poll while not empty (the driver
+    /// keeps it current from the session: the SWR meter while the rig
+    /// transmits, with `[swr_watch]`). `None`: never.
+    pub meters: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
 }
 
 impl LinkConfig {
@@ -214,6 +218,7 @@ impl LinkConfig {
             poll: None,
             backoff_cap: Duration::from_secs(2),
             split: None,
+            meters: None,
         }
     }
 }
@@ -331,7 +336,10 @@ async fn session(
             _ = sleep_until_opt(next_poll) => {
                 if let Some(p) = poll.as_mut() {
                     let split = config.split.as_ref().is_some_and(|s| *s.borrow());
-                    let query = p.fire(Instant::now(), split);
+                    let mut query = p.fire(Instant::now(), split);
+                    if let Some(m) = &config.meters {
+                        query.extend_from_slice(&m.borrow());
+                    }
                     write_all_timeout(&mut stream, path, &query).await?;
                     let ev = LinkEvent::Bytes { dir: Direction::Tx, bytes: Bytes::from(query), at: Instant::now() };
                     if events.send(ev).await.is_err() {

@@ -134,6 +134,9 @@ pub struct ProxyConfig {
     pub poll: Option<PollConfig>,
     /// Longest wait between reopening attempts of the real port.
     pub backoff_cap: Duration,
+    /// Meter reads to append to every poll while not empty (as
+    /// [`super::link::LinkConfig::meters`]).
+    pub meters: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
 }
 
 /// Creates the pseudo-terminal and its symlink now (so that a bad path is
@@ -340,7 +343,10 @@ impl Proxy {
     }
 
     async fn inject(&mut self, rig: &mut SerialStream, p: &mut Poller) -> Result<(), End> {
-        let query = p.fire(Instant::now(), false);
+        let mut query = p.fire(Instant::now(), false);
+        if let Some(m) = &self.config.meters {
+            query.extend_from_slice(&m.borrow());
+        }
         write_all_timeout(rig, &self.config.port.path, &query)
             .await
             .map_err(End::RigDown)?;

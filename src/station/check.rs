@@ -248,6 +248,28 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
             "correct the key as the message says (see config/example.toml)",
         ));
     }
+    match settings::swr_watch_parts(station) {
+        Err(e) => findings.push(settings_error(
+            &e,
+            "swr_watch",
+            "use a dialect with an SWR-meter read ([meter.swr]) or set swr_watch.action = \"off\"",
+        )),
+        Ok(Some(w)) => text.push(format!(
+            "          SWR watch: alarm above {:.2} for {} ms, {}",
+            w.settings.alarm,
+            w.settings.hold.as_millis(),
+            match (w.settings.action, w.settings.inhibit_wired) {
+                (crate::follow::swr_watch::SwrAction::Inhibit, true) => {
+                    "then the inhibit is asserted (it cuts the over short)"
+                }
+                (crate::follow::swr_watch::SwrAction::Inhibit, false) => {
+                    "logged only (no inhibit line is wired)"
+                }
+                _ => "logged and shown",
+            }
+        )),
+        Ok(None) => {}
+    }
     let how = match c.rig.poll_every_ms() {
         Some(ms) => {
             let d = &station.dialect;

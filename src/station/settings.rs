@@ -821,6 +821,7 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
                     link,
                     poll,
                     backoff_cap: Duration::from_secs(2),
+                    meters: None,
                 },
                 boundary,
             }
@@ -830,6 +831,7 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
             poll,
             backoff_cap: Duration::from_secs(2),
             split: None,
+            meters: None,
         }),
     };
     Ok(rig)
@@ -871,8 +873,55 @@ impl ServiceParts {
             candidates: config
                 .calibration_file()
                 .map(|points| crate::calibrate::candidates_path(&points)),
+            swr_watch: swr_watch_parts(station)?,
         })
     }
+}
+
+/// `[swr_watch]` for the live service: the watch's settings, the dialect's
+/// SWR read and scale (a dialect without one is refused, naming the key),
+/// and whether an inhibit line is wired. The mode rule (a polled rig) is
+/// `Config::validate`'s.
+pub fn swr_watch_parts(station: &Station) -> Result<Option<crate::service::SwrWatchParts>, Error> {
+    use crate::config::SwrActionConfig;
+    use crate::follow::swr_watch::{SwrAction, SwrWatchSettings};
+    use crate::rig::meter::MeterKind;
+    let config = &station.config;
+    let w = &config.swr_watch;
+    if !w.on() {
+        return Ok(None);
+    }
+    let file = config_name(config);
+    let address = config.rig.address.unwrap_or(0);
+    let (Some(read), Some(scale)) = (
+        station.dialect.meter_read(MeterKind::Swr, address),
+        station.dialect.meter_scale(MeterKind::Swr),
+    ) else {
+        return Err(Error::invalid(
+            Place::key(&file, "swr_watch"),
+            format!(
+                "a rig dialect with an SWR-meter read ([meter.swr]); `{}` has none",
+                station.dialect.name
+            ),
+            format!("swr_watch.action = {:?}", w.action).to_lowercase(),
+        ));
+    };
+    let inhibit_wired = !matches!(inhibit_settings(&config.inhibit), Ok(InhibitSettings::None));
+    Ok(Some(crate::service::SwrWatchParts {
+        settings: SwrWatchSettings {
+            alarm: w.alarm,
+            hold: Duration::from_millis(w.hold_ms),
+            action: match w.action {
+                SwrActionConfig::Inhibit => SwrAction::Inhibit,
+                SwrActionConfig::Log | SwrActionConfig::Off => SwrAction::Log,
+            },
+            inhibit_wired,
+            drift_margin: w.drift_margin,
+            drift_overs: w.drift_overs,
+        },
+        scale: scale.clone(),
+        read,
+    }))
 }
 
 /// The rig port's settings from `[rig]`, with the keys named in errors.
