@@ -537,3 +537,53 @@ fn the_shipped_example_and_demo_configs_have_no_error() {
         );
     }
 }
+
+/// `[swr_watch]` needs a polled rig (listen mode never writes to the port,
+/// so no meter can be read) and a dialect with an SWR-meter read (the
+/// block family has none); `check` says what the watch will do.
+#[test]
+fn the_swr_watch_is_refused_where_no_meter_can_be_read_and_said_where_it_runs() {
+    let dir = tempfile::tempdir().unwrap();
+    let watch = ("[[band]]", "[swr_watch]\naction = \"log\"\n\n[[band]]");
+    let listen = demo_with(dir.path(), "listen.toml", &[watch]);
+    let (code, _, err) = check(&listen, &[]);
+    assert_eq!(code, Some(1), "{err}");
+    assert!(
+        err.contains("key `swr_watch`") && err.contains("listen mode never writes"),
+        "{err}"
+    );
+    let block = demo_with(
+        dir.path(),
+        "block.toml",
+        &[
+            watch,
+            (
+                "protocol = \"binary-bcd\"",
+                "protocol = \"block-5\"\nmode = \"poll\"",
+            ),
+        ],
+    );
+    let (code, out, _) = check(&block, &[]);
+    assert_eq!(code, Some(1));
+    let f = finding(&out, "error", "swr_watch");
+    assert!(f.contains("`block-5` has none"), "{f}");
+    let polled = demo_with(
+        dir.path(),
+        "polled.toml",
+        &[
+            ("[[band]]", "[swr_watch]\naction = \"inhibit\"\n\n[[band]]"),
+            (
+                "protocol = \"binary-bcd\"",
+                "protocol = \"binary-bcd\"\nmode = \"poll\"\naddress = 0x94",
+            ),
+        ],
+    );
+    let (_, out, _) = check(&polled, &[]);
+    assert!(!has_finding(&out, "error", "swr_watch"), "{out}");
+    assert!(
+        out.contains(
+            "SWR watch: alarm above 2.00 for 1000 ms, logged only (no inhibit line is wired)"
+        ),
+        "{out}"
+    );
+}
