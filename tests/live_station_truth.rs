@@ -20,8 +20,8 @@
 //! protocols/text-semicolon-9.toml says); fixed-block commands from the
 //! published CAT command table of that family (five bytes, four parameters
 //! then the opcode: `01` set frequency, `03` read frequency, `F7` read
-//! transmit status, `08`/`88` key and unkey; recalled, as
-//! protocols/block-5.toml says).
+//! transmit status, `08`/`88` key and unkey, `81` VFO A/B toggle; recalled,
+//! as protocols/block-5.toml says).
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
@@ -282,7 +282,10 @@ impl Family {
             .concat(),
             // VS1: receive (and so transmit) on VFO B.
             Family::Nine => format!("FB{hz:09};VS1;").into_bytes(),
-            Family::Block => unreachable!("the block family has no VFO B case"),
+            // 81: toggle to the other VFO (B, from the start on A); then
+            // set the frequency of the VFO now in use. The block names no
+            // VFO, so tuneward learns VFO B's frequency from the next read.
+            Family::Block => [block([0; 4], 0x81), block(bcd_be(hz), 0x01)].concat(),
         }
     }
     /// A read whose answer carries the transmit state.
@@ -447,6 +450,36 @@ async fn vfo_b_case(family: Family) {
     let m = motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
     assert_eq!(m.gotos.last(), Some(&2200), "{:?}", m.gotos);
+}
+
+/// VFO B chosen on the rig itself (the simulator's operator script),
+/// tuneward polling: VFO A at 7.100 MHz first, VFO B set to 7.220 MHz
+/// behind the operator's back, then the operator switches to VFO B. The
+/// loop follows VFO A, then VFO B; nothing moves on VFO B's frequency
+/// before the switch.
+fn polled_vfo_b_case(family: Family) {
+    let dir = tempfile::tempdir().unwrap();
+    let operator = r#"{"at_ms": 0, "op": "reports", "on": false}
+{"at_ms": 300, "op": "tune", "hz": 7100000}
+{"at_ms": 300, "op": "tune", "vfo": "b", "hz": 7220000}
+{"at_ms": 3000, "op": "select", "vfo": "b"}
+"#;
+    let (_rig, rig_link, truth) = sim_rig_scripted(dir.path(), family.protocol(), operator);
+    let (addr, motor) = controller(0, truth.clone());
+    let _run = run_polled(dir.path(), family, &rig_link, &addr);
+    // 7.100 MHz: 1000 steps; 7.220 MHz: 2200 steps, by hand.
+    wait_motor(&motor, "VFO A followed", |m| m.at == 1000 && !m.moving);
+    assert_ne!(last_truth(&truth).unwrap()["rx_vfo"], "b");
+    wait_motor(&motor, "VFO B followed", |m| m.at == 2200 && !m.moving);
+    let t = last_truth(&truth).unwrap();
+    assert_eq!(
+        (t["rx_vfo"].clone(), t["rx_hz"].clone()),
+        ("b".into(), 7_220_000.into()),
+        "{t}"
+    );
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(m.gotos, vec![1000, 2200], "{:?}", m.gotos);
 }
 
 /// Split set on the rig itself (the simulator's operator script; no other
@@ -669,6 +702,16 @@ async fn block_set_then_cat_transmit_moves_nothing_until_the_over_ends() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn block_rig_unplugged_during_an_over_nothing_moves_until_its_state_is_known() {
     unplugged_case(Family::Block).await;
+}
+
+/// The block family's VFO B: the other program toggles to VFO B (`81`)
+/// and sets it (proxy mode), and the operator selects VFO B on the rig
+/// (poll mode). The family's frequency read reports the VFO in use, so in
+/// both modes the loop follows VFO B once a read says where it is.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn block_vfo_b_is_followed() {
+    vfo_b_case(Family::Block).await;
+    polled_vfo_b_case(Family::Block);
 }
 
 /// Split on the block family: the rig now transmits on the other VFO,

@@ -859,8 +859,9 @@ impl SimRig {
 
     /// Whole blocks, framed by count (the family has no framing bytes):
     /// reads answered from the published layout (see
-    /// protocols/block-5.toml), the frequency set and keying obeyed, other
-    /// opcodes taken silently.
+    /// protocols/block-5.toml), the frequency set (on the VFO in use),
+    /// keying, split and the A/B toggle obeyed, other opcodes taken
+    /// silently. The frequency read reports the VFO in use.
     fn block_frames(&mut self, now: Duration, s: &BlockSpec) {
         let n = s.block_length.max(1);
         while self.inbuf.len() >= n {
@@ -896,6 +897,11 @@ impl SimRig {
                 self.state.tx_vfo = self.state.rx_vfo.other();
             } else if s.split_off == Some(op) {
                 self.state.tx_vfo = self.state.rx_vfo;
+            } else if s.vfo_toggle == Some(op) {
+                // A/B toggle: the other VFO is in use (with split, the
+                // transmit VFO goes with it to the other side).
+                let other = self.state.rx_vfo.other();
+                self.state.select(other);
             } else if op == s.set_frequency {
                 let field = block.get(..s.frequency_bytes).unwrap_or_default();
                 if let Some(v) = s.read_bcd(field) {

@@ -51,6 +51,12 @@ pub struct BlockSpec {
     /// from another program, the station decoder reports split.
     pub split_on: Option<u8>,
     pub split_off: Option<u8>,
+    /// The A/B toggle (`opcodes.vfo_toggle`, optional): the rig then
+    /// receives (and, without split, transmits) on the other VFO, and its
+    /// frequency read reports that VFO. The block names no VFO, so the
+    /// station decoder takes nothing from it: the next frequency read
+    /// tells. Never polled.
+    pub vfo_toggle: Option<u8>,
     /// Other opcodes that change the rig (never polled).
     pub other_sets: Vec<u8>,
     /// The blocks we send in poll mode (checked to be the reads).
@@ -236,7 +242,13 @@ impl BlockSpec {
         r.only(
             opcodes,
             "opcodes",
-            &["set_frequency", "split_on", "split_off", "other_sets"],
+            &[
+                "set_frequency",
+                "split_on",
+                "split_off",
+                "vfo_toggle",
+                "other_sets",
+            ],
         )?;
         let poll = r.table(t, "", "poll")?;
         r.only(poll, "poll", &["frequency", "transmit"])?;
@@ -300,6 +312,7 @@ impl BlockSpec {
         };
         let split_on = optional("split_on")?;
         let split_off = optional("split_off")?;
+        let vfo_toggle = optional("vfo_toggle")?;
         let other_sets = match r.get(opcodes, "opcodes", "other_sets", "a list of opcodes")? {
             toml::Value::Array(a) => a
                 .iter()
@@ -342,6 +355,7 @@ impl BlockSpec {
             transmit_off,
             split_on,
             split_off,
+            vfo_toggle,
             other_sets,
             poll_frequency: Vec::new(),
             poll_transmit: Vec::new(),
@@ -396,6 +410,7 @@ impl BlockSpec {
             || opcode == self.transmit_off
             || self.split_on == Some(opcode)
             || self.split_off == Some(opcode)
+            || self.vfo_toggle == Some(opcode)
             || self.other_sets.contains(&opcode)
     }
 }

@@ -197,6 +197,15 @@ fn the_loader_refuses_set_and_keying_opcodes_as_polls() {
         let e = load(&text).unwrap_err();
         assert!(e.contains("poll.transmit"), "{op}: {e}");
     }
+    // The VFO toggle is a set even when other_sets leaves it out.
+    let text = base.replace("0x8F, 0x81, 0xF5", "0x8F, 0xF5").replace(
+        "transmit = [0x00, 0x00, 0x00, 0x00, 0xF7]",
+        "transmit = [0x00, 0x00, 0x00, 0x00, 0x81]",
+    );
+    assert!(!text.contains("0x8F, 0x81"));
+    let e = load(&text).unwrap_err();
+    assert!(e.contains("poll.transmit"), "{e}");
+    assert_eq!(spec().vfo_toggle, Some(0x81));
     let text = base.replace("read = 0x03", "read = 0x08");
     let e = load(&text).unwrap_err();
     assert!(e.contains("frequency.read"), "{e}");

@@ -737,3 +737,57 @@ fn block_transmit_status_carries_the_power_meter() {
         ]
     );
 }
+
+// ---- block family ----
+
+/// The block family's A/B toggle (`00 00 00 00 81`, recalled, as
+/// protocols/block-5.toml says): a set goes to the VFO in use, the
+/// frequency read reports the VFO in use, and a toggle with split on takes
+/// the transmit VFO to the other side too. Blocks and answers worked by
+/// hand: 7 100 000 Hz is 710 000 tens, 00 71 00 00; 7 220 000 Hz is
+/// 00 72 20 00; the answer is those four bytes and a mode byte.
+#[test]
+fn block_vfo_toggle_switches_the_vfo_the_reads_report() {
+    let mut r = rig("block-5");
+    let read = [0x00, 0x00, 0x00, 0x00, 0x03];
+    assert!(exchange(&mut r, ms(1), &[0x00, 0x71, 0x00, 0x00, 0x01]).is_empty());
+    assert_eq!(
+        exchange(&mut r, ms(2), &read),
+        [0x00, 0x71, 0x00, 0x00, 0x00]
+    );
+    // Toggle to B (the default 14.074 MHz there), then set B.
+    assert!(exchange(&mut r, ms(3), &[0, 0, 0, 0, 0x81]).is_empty());
+    assert_eq!(
+        exchange(&mut r, ms(4), &read),
+        [0x01, 0x40, 0x74, 0x00, 0x00]
+    );
+    exchange(&mut r, ms(5), &[0x00, 0x72, 0x20, 0x00, 0x01]);
+    assert_eq!(
+        exchange(&mut r, ms(6), &read),
+        [0x00, 0x72, 0x20, 0x00, 0x00]
+    );
+    assert_eq!((r.state().vfo_a, r.state().vfo_b), (7_100_000, 7_220_000));
+    assert_eq!((r.state().rx_vfo, r.state().tx_vfo), (Vfo::B, Vfo::B));
+    // Split on (02), then toggle back to A: receive on A, transmit on B.
+    exchange(&mut r, ms(7), &[0, 0, 0, 0, 0x02]);
+    assert_eq!((r.state().rx_vfo, r.state().tx_vfo), (Vfo::B, Vfo::A));
+    exchange(&mut r, ms(8), &[0, 0, 0, 0, 0x81]);
+    assert_eq!((r.state().rx_vfo, r.state().tx_vfo), (Vfo::A, Vfo::B));
+    assert_eq!(
+        exchange(&mut r, ms(9), &read),
+        [0x00, 0x71, 0x00, 0x00, 0x00]
+    );
+    let t = truths(&mut r);
+    let last = t.last().unwrap();
+    assert_eq!(
+        (last.rx_vfo, last.rx_hz, last.tx_hz),
+        (Vfo::A, 7_100_000, 7_220_000)
+    );
+    assert!(t.iter().all(|t| t.cause != Cause::Operator));
+    // Tuneward's station decoder takes nothing from the toggle (the block
+    // names no VFO): only the reads' answers tell.
+    let mut d = Dialect::builtin("block-5").unwrap().station_decoder(None);
+    let mut out = Vec::new();
+    d.feed(Direction::Tx, &[0, 0, 0, 0, 0x81], &mut out);
+    assert!(out.is_empty(), "{out:?}");
+}
