@@ -379,6 +379,12 @@ pub struct FollowConfig {
     /// for jumps.
     #[serde(default = "default_jump_quiet_ms")]
     pub jump_quiet_ms: u64,
+    /// A knob sweep's report settles after this many of the sweep's own
+    /// report intervals without another report (when that is shorter than
+    /// the debounce): a knob that has been quiet for a few of its own
+    /// intervals has stopped. 0: every report waits for the debounce.
+    #[serde(default = "default_sweep_settle_intervals")]
+    pub sweep_settle_intervals: u32,
     /// Which frequency the loop is tuned for: `"transmit"` (default: the
     /// transmit VFO, XIT included, where the power goes) or `"receive"`.
     #[serde(default)]
@@ -436,6 +442,13 @@ fn default_jump_hz() -> u64 {
 fn default_jump_quiet_ms() -> u64 {
     300
 }
+/// Four of a knob's report intervals: a knob's reports come at an uneven
+/// rate (common practice, no source), so a pause of a few intervals is
+/// still the same sweep; chosen for that margin, not on the bench (which
+/// sweeps at an even rate and measured 2 to 5 alike in moves).
+fn default_sweep_settle_intervals() -> u32 {
+    4
+}
 
 impl Default for FollowConfig {
     fn default() -> Self {
@@ -448,6 +461,7 @@ impl Default for FollowConfig {
             candidate_dwell_ms: default_candidate_dwell_ms(),
             inhibit_while_detuned: true,
             jump_hz: default_jump_hz(),
+            sweep_settle_intervals: default_sweep_settle_intervals(),
             jump_quiet_ms: default_jump_quiet_ms(),
             tune_for: TuneForConfig::Transmit,
         }

@@ -389,6 +389,7 @@ pub fn naive(policy: &Policy) -> Policy {
     p.debounce = Duration::ZERO;
     // With no debounce there is nothing for a jump to skip.
     p.jump = None;
+    p.sweep_settle = None;
     p.min_move_steps = 1;
     for b in &mut p.bands {
         b.debounce = Duration::ZERO;

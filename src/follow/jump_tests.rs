@@ -214,3 +214,93 @@ fn a_jump_during_a_move_retargets_when_the_motor_rests() {
     f.handle_arrived(ms(11_000), 8_500);
     assert_eq!(gotos(&drain(&mut f)), vec![9_800]);
 }
+
+/// [`tuned`] with sweeps settling after four of their report intervals.
+fn tuned_settling_by_rate() -> Follower {
+    let mut f = Follower::new(
+        Policy {
+            sweep_settle: Some(4.0),
+            ..policy()
+        },
+        Arc::new(Line),
+        Some(9_500),
+    );
+    f.handle_frequency(ms(0), 7_050_000);
+    f.handle_timeout(ms(300));
+    drain(&mut f);
+    f
+}
+
+/// A knob turned from `from` Hz by `step` Hz every `every` ms, `n` steps,
+/// starting at `t` ms; the time of its last report.
+fn turn(f: &mut Follower, t: u64, from: u64, step: u64, every: u64, n: u64) -> u64 {
+    let mut at = t;
+    for i in 1..=n {
+        f.handle_frequency(ms(at), from + i * step);
+        f.handle_timeout(ms(at + every - 1));
+        assert!(gotos(&drain(f)).is_empty(), "moved while turning");
+        at += every;
+    }
+    at - every
+}
+
+#[test]
+fn a_sweep_settles_after_four_of_its_own_intervals_not_the_whole_debounce() {
+    let mut f = tuned_settling_by_rate();
+    // 500 Hz every 50 ms to 7.060 MHz: settled 4 x 50 = 200 ms after the
+    // last report, not the 300 ms debounce.
+    let last = turn(&mut f, 10_000, 7_050_000, 500, 50, 20);
+    f.handle_timeout(ms(last + 199));
+    assert!(gotos(&drain(&mut f)).is_empty(), "settled too soon");
+    f.handle_timeout(ms(last + 200));
+    f.handle_timeout(ms(last + 220));
+    // 10 000 - 60 000 / 100 steps.
+    assert_eq!(gotos(&drain(&mut f)), vec![9_400]);
+}
+
+#[test]
+fn a_slow_knob_or_a_single_report_still_waits_the_debounce() {
+    let mut f = tuned_settling_by_rate();
+    // 100 ms between reports: four intervals are longer than the debounce,
+    // which wins.
+    let last = turn(&mut f, 10_000, 7_050_000, 1_000, 100, 5);
+    f.handle_timeout(ms(last + 299));
+    assert!(
+        gotos(&drain(&mut f)).is_empty(),
+        "settled before the debounce"
+    );
+    f.handle_timeout(ms(last + 300));
+    f.handle_timeout(ms(last + 320));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_450]);
+    f.handle_arrived(ms(last + 400), 9_450);
+    drain(&mut f);
+    // A single 2 kHz report after a quiet spell (not a jump: under 10 kHz)
+    // shows no interval: the whole debounce.
+    f.handle_frequency(ms(20_000), 7_057_000);
+    f.handle_timeout(ms(20_299));
+    assert!(
+        gotos(&drain(&mut f)).is_empty(),
+        "settled before the debounce"
+    );
+    f.handle_timeout(ms(20_300));
+    f.handle_timeout(ms(20_320));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_430]);
+}
+
+#[test]
+fn a_pause_of_more_than_four_intervals_mid_sweep_costs_a_move() {
+    // What the rule trades: the knob stops for 250 ms (five intervals,
+    // under the debounce) and turns on; the pause settled, and the end
+    // settles again.
+    let mut f = tuned_settling_by_rate();
+    let last = turn(&mut f, 10_000, 7_050_000, 500, 50, 10);
+    f.handle_timeout(ms(last + 200));
+    f.handle_timeout(ms(last + 220));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_450]);
+    f.handle_arrived(ms(last + 240), 9_450);
+    drain(&mut f);
+    let last = turn(&mut f, last + 250, 7_055_000, 500, 50, 10);
+    f.handle_timeout(ms(last + 200));
+    f.handle_timeout(ms(last + 220));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_400]);
+}

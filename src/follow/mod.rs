@@ -264,6 +264,10 @@ pub struct Follower {
     /// The last frequency reported that differed from the one before it,
     /// and when it came: what a jump is told from.
     last_report: Option<(u64, Duration)>,
+    /// The gap between the last two different reports, while they came
+    /// closer together than the debounce (a knob sweep's report interval);
+    /// `None` after a quiet spell.
+    sweep_gap: Option<Duration>,
     /// The last hold reported, so that a repeated identical decision is
     /// logged once, not on every report.
     last_hold: Option<(u64, HoldReason)>,
@@ -334,6 +338,7 @@ impl Follower {
             release_after_swr_hold: false,
             touchup: None,
             last_report: None,
+            sweep_gap: None,
             last_hold: None,
             actions: VecDeque::new(),
             stats: Stats::default(),
@@ -433,7 +438,8 @@ impl Follower {
                 } else {
                     jump.then_some(now)
                 };
-                self.report(now, hz, due);
+                let settle = self.sweep_settle(hz);
+                self.report_after(now, hz, due, settle);
                 self.handle_timeout(now);
                 return;
             }
@@ -465,20 +471,41 @@ impl Follower {
 
     fn note_report(&mut self, now: Duration, hz: u64) {
         if self.last_report.is_none_or(|(last, _)| last != hz) {
+            let gap = self.last_report.map(|(_, at)| now.saturating_sub(at));
+            self.sweep_gap = gap.filter(|g| *g < self.policy.debounce_for(hz));
             self.last_report = Some((hz, now));
+        }
+    }
+
+    /// How long a report of `hz` that is not a jump waits to settle: the
+    /// debounce, or, once a sweep's reports have shown their interval,
+    /// `policy.sweep_settle` of those intervals (never longer than the
+    /// debounce): a knob that has not reported for a few of its own
+    /// intervals has stopped.
+    fn sweep_settle(&self, hz: u64) -> Duration {
+        let debounce = self.policy.debounce_for(hz);
+        match (self.sweep_gap, self.policy.sweep_settle) {
+            (Some(gap), Some(k)) => gap.mul_f64(k).min(debounce),
+            _ => debounce,
         }
     }
 
     /// A report that the loop is to be tuned for `hz`, settled after the
     /// debounce or (`at_once`) now.
     fn report(&mut self, now: Duration, hz: u64, due: Option<Duration>) {
+        let settle = self.policy.debounce_for(hz);
+        self.report_after(now, hz, due, settle);
+    }
+
+    /// [`Follower::report`], settling `settle` after `now` unless `due`.
+    fn report_after(&mut self, now: Duration, hz: u64, due: Option<Duration>, settle: Duration) {
         let at_once = due.is_some();
         match self.pending {
             Some(p) if p.hz == hz && !at_once => return,
             None if self.settled_hz == Some(hz) => return,
             _ => {}
         }
-        let deadline = due.unwrap_or_else(|| now + self.policy.debounce_for(hz));
+        let deadline = due.unwrap_or(now + settle);
         self.pending = Some(Pending { hz, deadline });
         // In the tail of a move the inhibit is still on: a detuned report
         // then keeps it on (whatever `inhibit_while_detuned` says), so that

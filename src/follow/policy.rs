@@ -60,6 +60,10 @@ pub struct Policy {
     /// Reports that are jumps, not part of a knob sweep, are acted on at
     /// once instead of after the debounce; `None`: every report waits.
     pub jump: Option<Jump>,
+    /// A report of a sweep settles after this many of the sweep's own
+    /// report intervals (the gap between its last two reports), when that
+    /// is shorter than the debounce; `None`: always the debounce.
+    pub sweep_settle: Option<f64>,
     /// Which frequency the loop is tuned for (`[follow] tune_for`).
     pub tune_for: TuneFor,
     /// Whether a move may go ahead while the transmit state is unknown.
@@ -229,6 +233,7 @@ mod tests {
             inhibit_lead: Duration::from_millis(20),
             inhibit_while_detuned: false,
             jump: None,
+            sweep_settle: None,
             inhibit_tail: Duration::from_millis(100),
             candidate_dwell: Duration::from_secs(10),
             tune_for: TuneFor::Transmit,

@@ -53,6 +53,7 @@ fn policy(backlash: i64) -> Policy {
         inhibit_until_tuned: false,
         inhibit_while_detuned: false,
         jump: None,
+        sweep_settle: None,
     }
 }
 

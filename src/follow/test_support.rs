@@ -59,5 +59,6 @@ pub(super) fn policy() -> Policy {
         inhibit_until_tuned: false,
         inhibit_while_detuned: false,
         jump: None,
+        sweep_settle: None,
     }
 }

@@ -86,6 +86,7 @@ pub fn policy_from_config(
             min_hz: f.jump_hz,
             quiet: Duration::from_millis(f.jump_quiet_ms),
         }),
+        sweep_settle: (f.sweep_settle_intervals > 0).then_some(f64::from(f.sweep_settle_intervals)),
         tune_for: f.tune_for.into(),
         while_unknown: while_unknown(&config.inhibit),
         inhibit_until_tuned: true,

@@ -65,6 +65,7 @@ pub fn policy(debounce: Duration) -> Policy {
         candidate_dwell: Duration::from_secs(60),
         inhibit_while_detuned: false,
         jump: None,
+        sweep_settle: None,
         // A station with its inhibit wired; the hold until tuned is tested
         // on the real binary with a config.
         tune_for: TuneFor::Transmit,
