@@ -463,6 +463,14 @@ async fn soak(args: Args) -> i32 {
     if goto_wrong.is_empty() && journal_wrong.is_empty() {
         0
     } else {
+        // Keep the service's logs and the controller's record for a look.
+        let kept = dir.keep();
+        let record: String = received
+            .iter()
+            .map(|r| format!("{:?} {} physical={}\n", r.at, r.line, r.physical))
+            .collect();
+        let _ = std::fs::write(kept.join("controller.txt"), record);
+        println!("logs kept in {}", kept.display());
         1
     }
 }

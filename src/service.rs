@@ -769,10 +769,6 @@ fn log(note: Note, at: &Where) {
             "an end-stop switch stopped the motor: the count is not trusted (journal: lost)"
         ),
         Note::Trusted { steps, why } => info!(steps, why, "position trusted after the unfinished move"),
-        Note::OnPathStopping { steps } => info!(
-            steps,
-            "controller reports a position on the unfinished leg's path: STOP, then check it at rest"
-        ),
         Note::InhibitKept => error!(
             "the motor was not confirmed at rest: the transmit inhibit stays asserted (wire it fail-safe, see README)"
         ),

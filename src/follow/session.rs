@@ -150,11 +150,6 @@ pub enum Note {
         steps: i64,
         why: &'static str,
     },
-    /// The controller's report lies on the path of the leg under way: a
-    /// `STOP` makes sure the motor is at rest before it is trusted.
-    OnPathStopping {
-        steps: i64,
-    },
     /// At exit the motor was not confirmed at rest: the inhibit stays on.
     InhibitKept,
     /// The position is unknown and the station has a home switch: a
@@ -362,9 +357,6 @@ enum Resync {
     },
     /// `ZERO p` was sent; waiting for `At p`.
     AwaitZero(i64),
-    /// The controller reported a position on the path of the unfinished
-    /// move's leg; `STOP` was sent, and its `At` is checked again.
-    AwaitStop,
     /// The position cannot be trusted (unfinished move in the journal):
     /// positions reported are ignored until the link comes up again.
     Blocked,
@@ -482,8 +474,10 @@ struct Shell {
     at_rest: bool,
     /// When the last move of the core ended with its arrival.
     last_arrival: Option<Duration>,
-    /// The `STOP` of the start-up check has been sent.
-    resync_stopped: bool,
+    /// Since the link came up, the controller said (`MOVING`) that the
+    /// motor was on its way to this target: a stop on that leg's path
+    /// (the link's interlock `STOP`) then lands on the path.
+    resync_moving_to: Option<i64>,
     /// The inhibit output has accepted *on* and not been set off since.
     inhibit_on: bool,
     /// What the journal says (kept in step with every write).
@@ -608,7 +602,7 @@ impl Session {
             pending_goto: None,
             at_rest: false,
             last_arrival: None,
-            resync_stopped: false,
+            resync_moving_to: None,
             inhibit_on: true,
             recorded,
             resync: Resync::Idle,
@@ -1299,6 +1293,7 @@ impl Session {
     fn tuner_event(&mut self, now: Duration, ev: TunerEvent) {
         match ev {
             TunerEvent::LinkUp => {
+                self.st.resync_moving_to = None;
                 self.st.resync = Resync::AwaitWhere {
                     after_link_up: true,
                 }
@@ -1310,7 +1305,16 @@ impl Session {
                 self.st.homing = false;
                 self.fault(now, false);
             }
-            TunerEvent::Accepted { target } => self.st.note(Note::Accepted { target }),
+            TunerEvent::Accepted { target } => {
+                if self.st.resync
+                    == (Resync::AwaitWhere {
+                        after_link_up: true,
+                    })
+                {
+                    self.st.resync_moving_to = Some(target);
+                }
+                self.st.note(Note::Accepted { target })
+            }
             TunerEvent::InterlockStop => self.st.push(plain(
                 Level::Warn,
                 "rig transmitted during a move; the controller link stopped the motor",
@@ -1367,10 +1371,6 @@ impl Session {
                         };
                         self.fault(now, true);
                     }
-                }
-                Resync::AwaitStop => {
-                    self.st.resync = Resync::Idle;
-                    self.check_unfinished(now, steps);
                 }
                 Resync::Blocked => self.st.note(Note::Untrusted { steps }),
                 Resync::Idle
@@ -1434,34 +1434,21 @@ impl Session {
                 }
                 self.position_lost();
             }
-            Some(r) if r.is_unfinished() => {
-                let on_path = self.st.on_leg_path(r, steps);
-                if r.leg_targets().contains(&steps) {
-                    self.st.note(Note::Trusted {
-                        steps,
-                        why: "the controller reports a target of the unfinished move's legs",
-                    });
-                    self.accept(now, steps);
-                } else if on_path && !self.st.resync_stopped {
-                    // Between the leg's start and its target: trusted only
-                    // at rest, so make sure it is.
-                    self.st.resync_stopped = true;
-                    self.st.note(Note::OnPathStopping { steps });
-                    self.st.resync = Resync::AwaitStop;
-                    self.st.push(Output::Command(TunerCommand::Stop));
-                } else {
-                    self.check_unfinished(now, steps);
-                }
-            }
+            Some(r) if r.is_unfinished() => self.check_unfinished(now, steps),
             _ => self.accept(now, steps),
         }
     }
 
-    /// The controller, at rest (after a `STOP`, or as it reported), says
-    /// `steps`; the journal holds an unfinished move. A target of its legs
-    /// or a point on the straight path of the leg under way is where the
-    /// motor can be; anything else is evidence that counts were lost (or
-    /// the controller restarted), and the position stays unknown.
+    /// The controller, at rest, says `steps` after the link came up; the
+    /// journal holds an unfinished move. A target of its legs is where the
+    /// motor can be. A point on the straight path of the leg under way is
+    /// trusted only when the controller was seen moving along that leg
+    /// since the link came up (`MOVING` to its target) and then stopped
+    /// (the link's interlock `STOP`): a motor found already at rest part
+    /// way along is no proof, since a controller restarted with another
+    /// count, or one that lost steps, reports just that. Anything else is
+    /// evidence that counts were lost (or the controller restarted), and
+    /// the position stays unknown.
     fn check_unfinished(&mut self, now: Duration, steps: i64) {
         let Some(r) = self.st.recorded.filter(|r| r.is_unfinished()) else {
             self.accept(now, steps);
@@ -1473,10 +1460,12 @@ impl Session {
                 why: "the controller reports a target of the unfinished move's legs",
             });
             self.accept(now, steps);
-        } else if self.st.resync_stopped && self.st.on_leg_path(r, steps) {
+        } else if self.st.on_leg_path(r, steps)
+            && r.leg_path().map(|p| p.end) == self.st.resync_moving_to
+        {
             self.st.note(Note::Trusted {
                 steps,
-                why: "at rest after STOP on the straight path of the leg under way",
+                why: "stopped on the straight path of the leg under way, seen moving along it",
             });
             self.accept(now, steps);
         } else {

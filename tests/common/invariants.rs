@@ -134,8 +134,12 @@ impl JournalWatch {
                     if let Ok(Some(Recorded::Known(n))) = journal.load() {
                         *samples.lock().unwrap() += 1;
                         if !at_rest || physical != n {
+                            let at = SystemTime::now()
+                                .duration_since(UNIX_EPOCH)
+                                .unwrap_or_default()
+                                .as_secs_f64();
                             found.lock().unwrap().push(format!(
-                                "journal says at {n}; the motor is {} at {physical}",
+                                "journal says at {n}; the motor is {} at {physical} (unix time {at:.3})",
                                 if at_rest { "at rest" } else { "moving" }
                             ));
                         }
