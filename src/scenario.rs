@@ -620,12 +620,7 @@ pub fn random_evening_repeating(
             // A small retune, a few hundred Hz to a few kHz.
             40..=59 => {
                 let delta = rng.u64(100..=3_000);
-                let to = if rng.bool() {
-                    s.hz().saturating_add(delta)
-                } else {
-                    s.hz().saturating_sub(delta)
-                }
-                .clamp(band.0, band.1);
+                let to = either_side(s.hz(), delta, rng.bool(), band);
                 s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
                 quick_call(s, &mut rng);
                 s.wait(sec(rng.u64(10..=120)));
@@ -699,12 +694,7 @@ pub fn spotting_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario
             // A band-map click: the logging program sets the rig to a spot.
             0..=29 => {
                 let delta = rng.u64(5_000..=150_000);
-                let to = if rng.bool() {
-                    s.hz().saturating_add(delta)
-                } else {
-                    s.hz().saturating_sub(delta)
-                }
-                .clamp(band.0, band.1);
+                let to = either_side(s.hz(), delta, rng.bool(), band);
                 s.jump(to);
                 if rng.u32(0..5) < 4 {
                     let after = ms(rng.u64(50..=100));
@@ -747,12 +737,7 @@ pub fn spotting_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario
             // A small knob retune, then often a call.
             80..=94 => {
                 let delta = rng.u64(100..=3_000);
-                let to = if rng.bool() {
-                    s.hz().saturating_add(delta)
-                } else {
-                    s.hz().saturating_sub(delta)
-                }
-                .clamp(band.0, band.1);
+                let to = either_side(s.hz(), delta, rng.bool(), band);
                 s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
                 quick_call(s, &mut rng);
                 s.wait(sec(rng.u64(5..=60)));
@@ -764,6 +749,18 @@ pub fn spotting_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario
         }
     }
     s.clone().finish()
+}
+
+/// `delta` above `hz` when `up`, below it otherwise, kept inside `band`:
+/// the retunes of every scenario family that go a random way from where
+/// the rig is.
+fn either_side(hz: u64, delta: u64, up: bool, band: (u64, u64)) -> u64 {
+    if up {
+        hz.saturating_add(delta)
+    } else {
+        hz.saturating_sub(delta)
+    }
+    .clamp(band.0, band.1)
 }
 
 /// An evening of working split and swapping VFOs, with a logging program
@@ -812,12 +809,7 @@ pub fn split_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
                     if rng.bool() {
                         // Listening around the pile-up on the receive VFO.
                         let delta = rng.u64(100..=1_500);
-                        let to = if rng.bool() {
-                            s.hz().saturating_add(delta)
-                        } else {
-                            s.hz().saturating_sub(delta)
-                        }
-                        .clamp(band.0, band.1);
+                        let to = either_side(s.hz(), delta, rng.bool(), band);
                         s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
                         s.wait(ms(rng.u64(200..=3_000)));
                     }
@@ -844,12 +836,7 @@ pub fn split_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
             // A small knob retune of the receive VFO.
             60..=74 => {
                 let delta = rng.u64(100..=3_000);
-                let to = if rng.bool() {
-                    s.hz().saturating_add(delta)
-                } else {
-                    s.hz().saturating_sub(delta)
-                }
-                .clamp(band.0, band.1);
+                let to = either_side(s.hz(), delta, rng.bool(), band);
                 s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
                 quick_call(s, &mut rng);
                 s.wait(sec(rng.u64(5..=60)));
@@ -913,12 +900,7 @@ pub fn programs_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario
             // A band-map click, the logging program calling at once.
             0..=34 => {
                 let delta = rng.u64(5_000..=150_000);
-                let to = if rng.bool() {
-                    s.hz().saturating_add(delta)
-                } else {
-                    s.hz().saturating_sub(delta)
-                }
-                .clamp(band.0, band.1);
+                let to = either_side(s.hz(), delta, rng.bool(), band);
                 s.set_by_program(to);
                 if rng.u32(0..5) < 4 {
                     s.wait(ms(rng.u64(50..=100)));
@@ -946,12 +928,7 @@ pub fn programs_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario
             // A small knob retune on the rig itself.
             75..=89 => {
                 let delta = rng.u64(100..=3_000);
-                let to = if rng.bool() {
-                    s.hz().saturating_add(delta)
-                } else {
-                    s.hz().saturating_sub(delta)
-                }
-                .clamp(band.0, band.1);
+                let to = either_side(s.hz(), delta, rng.bool(), band);
                 s.sweep(to, rng.u64(10..=100), ms(rng.u64(20..=80)));
                 quick_call(s, &mut rng);
                 s.wait(sec(rng.u64(5..=60)));
