@@ -117,11 +117,7 @@ async fn sim_rig_reads_the_loop_at_the_capacitor_sim_tuner_reports() {
             .spawn()
             .unwrap(),
     );
-    let until = Instant::now() + Duration::from_secs(10);
-    while std::fs::symlink_metadata(&link).is_err() {
-        assert!(Instant::now() < until, "no symlink at {}", link.display());
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::wait_symlink(&link);
     let mut port = open_port(&link, 115_200);
     let mut w = TcpStream::connect(&addr).unwrap();
     w.set_read_timeout(Some(Duration::from_secs(5))).unwrap();

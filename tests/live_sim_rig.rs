@@ -40,11 +40,7 @@ fn start(dir: &Path, protocol: &str, script: &str, extra: &[&str]) -> (Proc, Pat
         .spawn()
         .unwrap();
     let sim = Proc(child);
-    let until = Instant::now() + Duration::from_secs(10);
-    while std::fs::symlink_metadata(&link).is_err() {
-        assert!(Instant::now() < until, "no symlink at {}", link.display());
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::wait_symlink(&link);
     (sim, link, truth)
 }
 

@@ -129,11 +129,7 @@ async fn sim_tuner_on_a_pseudo_terminal_behind_a_symlink() {
         .spawn()
         .unwrap();
     let mut sim = Proc(child);
-    let until = Instant::now() + Duration::from_secs(10);
-    while std::fs::symlink_metadata(&link).is_err() {
-        assert!(Instant::now() < until, "no symlink at {}", link.display());
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::wait_symlink(&link);
     let port =
         tokio_serial::SerialStream::open(&tokio_serial::new(link.to_string_lossy(), 115_200))
             .unwrap();

@@ -11,7 +11,6 @@
 
 use std::path::Path;
 use std::process::{Command, Stdio};
-use std::time::{Duration, Instant};
 
 mod common;
 
@@ -76,11 +75,7 @@ fn a_high_swr_over_raises_the_alarm_from_the_rigs_own_meter() {
             .spawn()
             .unwrap(),
     );
-    let until = Instant::now() + Duration::from_secs(10);
-    while std::fs::symlink_metadata(&link).is_err() {
-        assert!(Instant::now() < until, "no symlink");
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::wait_symlink(&link);
     let (addr, _motor) = controller(1000, 20_000.0, truth.clone());
     let config = dir.path().join("station.toml");
     std::fs::write(

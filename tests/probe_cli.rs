@@ -8,7 +8,6 @@
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
-use std::time::{Duration, Instant};
 
 mod common;
 
@@ -37,11 +36,7 @@ fn sim_rig(dir: &Path, protocol: &str, baud: u32, extra: &[&str]) -> (Proc, Path
         .spawn()
         .unwrap();
     let proc = Proc(child);
-    let until = Instant::now() + Duration::from_secs(10);
-    while std::fs::symlink_metadata(&link).is_err() {
-        assert!(Instant::now() < until, "no symlink at {}", link.display());
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::wait_symlink(&link);
     (proc, truth)
 }
 

@@ -5,7 +5,6 @@
 
 use std::path::Path;
 use std::process::{Command, Stdio};
-use std::time::{Duration, Instant};
 
 mod common;
 
@@ -32,11 +31,7 @@ fn capture_at(dir: &Path, baud: u32) -> String {
         .spawn()
         .unwrap();
     let _sim = Proc(sim);
-    let until = Instant::now() + Duration::from_secs(10);
-    while std::fs::symlink_metadata(&link).is_err() {
-        assert!(Instant::now() < until, "no symlink at {}", link.display());
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::wait_symlink(&link);
     let config = dir.join("station.toml");
     let text = format!(
         "[rig]\nprotocol = \"text-semicolon\"\nport = \"{}\"\nbaud = {baud}\nmode = \"poll\"\n{}",

@@ -230,6 +230,16 @@ pub fn rig_behind_symlink(dir: &Path) -> (SerialStream, SerialStream, PathBuf) {
 }
 
 /// Opens `path` (a symlink to a port, as another program would) at `baud`.
+/// Waits (10 s at most) until a simulator has placed its pseudo-terminal's
+/// symlink at `link`.
+pub fn wait_symlink(link: &Path) {
+    let until = Instant::now() + Duration::from_secs(10);
+    while std::fs::symlink_metadata(link).is_err() {
+        assert!(Instant::now() < until, "no symlink at {}", link.display());
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
 pub fn open_port(path: &Path, baud: u32) -> SerialStream {
     SerialStream::open(&tokio_serial::new(path.to_string_lossy(), baud)).unwrap()
 }
