@@ -185,10 +185,15 @@ async fn the_overshoot_leg_dropped_recovers_without_an_operator() {
     });
     std::thread::sleep(Duration::from_millis(300));
     b.ctl.disconnect();
-    // Trusted at the overshoot target once the motor has got there.
-    b.wait_known("the overshoot target trusted", 940);
-    assert_eq!(b.ctl.physical(), 940);
+    // Trusted at the overshoot target once the motor has got there, and
+    // the settled frequency decided again from there: the final leg goes
+    // out without a retune and without an operator.
+    b.wait_known("the move finished from the trusted overshoot target", 1000);
+    assert_eq!(b.ctl.physical(), 1000);
     assert!(b.log().contains("position trusted"), "{}", b.log());
+    let got = b.ctl.received();
+    let reconnect = got.iter().rposition(|l| l == "WHERE").unwrap();
+    assert!(got[reconnect..].iter().any(|l| l == "GOTO 1000"), "{got:?}");
     // And following again, from a confirmed position.
     b.tune(7_200_000).await;
     b.wait_known("the next retune", 2000);
@@ -303,8 +308,20 @@ async fn a_restarted_controller_is_zeroed_or_homed_and_ends_exact() {
     eventually("HOME", Duration::from_secs(10), || {
         b.ctl.received().iter().any(|l| l.starts_with("HOME"))
     });
-    b.wait_known("homed", 0);
-    assert_eq!(b.ctl.physical(), 0);
+    // Homed, then the settled frequency (7.2 MHz) decided again from the
+    // homed count: back at 2000 without a retune.
+    b.wait_known("back on the settled frequency after homing", 2000);
+    assert_eq!(b.ctl.physical(), 2000);
+    assert!(
+        b.ctl
+            .received()
+            .iter()
+            .rev()
+            .take_while(|l| !l.starts_with("HOME"))
+            .any(|l| l == "GOTO 2000"),
+        "{:?}",
+        b.ctl.received()
+    );
     b.tune(7_100_000).await;
     b.wait_known("a move after homing", 1000);
     assert_eq!(b.ctl.physical(), 1000);

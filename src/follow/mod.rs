@@ -239,6 +239,12 @@ pub struct Follower {
     /// Shutting down: nothing new moves, not even for the operator.
     closing: bool,
     fault: bool,
+    /// The move a fault interrupted (its target steps) and how many faults
+    /// in a row have interrupted a move to that target: a recovery decides
+    /// the settled frequency again, but a target faulted twice in a row
+    /// (a controller that refuses it, an end stop before it) waits for a
+    /// new frequency instead of being asked for again and again.
+    faulted: Option<(i64, u32)>,
     pending: Option<Pending>,
     settled_hz: Option<u64>,
     position: Option<i64>,
@@ -323,6 +329,7 @@ impl Follower {
             paused: false,
             closing: false,
             fault: false,
+            faulted: None,
             pending: None,
             settled_hz: None,
             position,
@@ -630,6 +637,9 @@ impl Follower {
             }
             Motion::Moving { then: None, .. } | Motion::Stopping => {
                 if let Motion::Moving { target, .. } = self.motion {
+                    if target.steps == steps {
+                        self.faulted = None;
+                    }
                     if target.steps == steps && target.retunes {
                         // Tuned for the target only once it is reached (an
                         // operator's move by steps tunes for nothing known).
@@ -651,7 +661,20 @@ impl Follower {
                     self.tail_after_move = false;
                     self.fault = false;
                     self.tuned_hz = None;
-                    self.after_rest(now);
+                    // The frequency settled on before the fault is still
+                    // where the rig is (a lost rig clears it): decide it
+                    // again from the confirmed position now, rather than
+                    // leave the loop untuned and the inhibit on until the
+                    // next retune; a target already faulted twice in a row
+                    // is held instead (see `faulted`).
+                    if self.want.is_none() && !self.closing && !self.paused {
+                        if let Some(hz) = self.settled_hz {
+                            self.redecide(now, hz);
+                        }
+                    }
+                    if !self.is_moving() {
+                        self.after_rest(now);
+                    }
                 }
             }
         }
@@ -662,6 +685,12 @@ impl Follower {
     /// longer be trusted. Nothing moves and the inhibit stays asserted until
     /// a position is reported again.
     pub fn handle_fault(&mut self, now: Duration) {
+        if let Motion::Moving { target, .. } = self.motion {
+            self.faulted = match self.faulted {
+                Some((steps, n)) if steps == target.steps => Some((steps, n + 1)),
+                _ => Some((target.steps, 1)),
+            };
+        }
         self.fault = true;
         self.position = None;
         self.tuned_hz = None;
@@ -1204,7 +1233,17 @@ impl Follower {
     }
 
     /// Decides what the settled frequency `hz` asks for.
+    /// [`Self::decide`] after a recovery, unless the target it would move
+    /// to has been faulted twice in a row.
+    fn redecide(&mut self, now: Duration, hz: u64) {
+        self.decide_at_most(now, hz, true);
+    }
+
     fn decide(&mut self, now: Duration, hz: u64) {
+        self.decide_at_most(now, hz, false);
+    }
+
+    fn decide_at_most(&mut self, now: Duration, hz: u64, after_fault: bool) {
         let (tune_hz, band) = match self.policy.place(hz) {
             Placement::Inside { band } => (hz, band),
             Placement::Guard { band, edge_hz } => (edge_hz, band),
@@ -1255,6 +1294,13 @@ impl Follower {
                 self.hold(hz, HoldReason::DeadBand);
                 return;
             }
+        }
+        if after_fault && self.faulted.is_some_and(|(t, n)| t == steps && n >= 2) {
+            self.hold(hz, HoldReason::Fault);
+            return;
+        }
+        if self.faulted.is_some_and(|(t, _)| t != steps) {
+            self.faulted = None;
         }
         self.want = Some(Target {
             hz,

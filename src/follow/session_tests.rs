@@ -407,8 +407,20 @@ fn a_refused_leg_is_a_fault_and_the_position_comes_back_by_where() {
     assert_eq!(b.s.outcome().faults, 1);
     b.wait(RETRY_AFTER);
     assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
+    // The recovery decides the settled frequency again: the leg is asked
+    // for once more; refused a second time, it waits for a new frequency.
     b.tuner(TunerEvent::At { steps: 0 });
     assert_eq!(b.s.core().position(), Some(0));
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![2000, 2000]);
+    b.tuner(TunerEvent::Error {
+        text: "refused".into(),
+    });
+    b.wait(RETRY_AFTER);
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(500));
+    assert_eq!(b.gotos(), vec![2000, 2000]);
     assert_eq!(b.journal, Some(Recorded::Known(0)));
 }
 
@@ -634,8 +646,20 @@ fn a_refused_leg_is_a_fault_and_the_position_comes_back() {
     assert_eq!(b.commands.last(), Some(&TunerCommand::Goto(2000)));
     b.wait(ms(1));
     assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
-    // The link stayed up: its count is trusted again without a restart.
+    // The link stayed up: its count is trusted again without a restart,
+    // and the recovery asks for the leg once more; refused again, it waits
+    // for a new frequency with the position confirmed.
     b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![2000, 2000]);
+    b.tuner(TunerEvent::Error {
+        text: "ERR outside limits".into(),
+    });
+    b.wait(RETRY_AFTER);
+    assert_eq!(b.commands.last(), Some(&TunerCommand::Where));
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(500));
+    assert_eq!(b.gotos(), vec![2000, 2000]);
     assert_eq!(b.journal, Some(Recorded::Known(0)));
     b.shutdown();
     // Shutdown honours the inhibit tail after the arrival (issue 11).
@@ -1357,12 +1381,17 @@ fn an_end_stop_faults_the_link_journals_lost_and_homes() {
     b.tuner(TunerEvent::At { steps: 2100 });
     assert_eq!(b.s.core().position(), None);
     b.tuner(TunerEvent::Homed { steps: 0 });
-    assert_eq!(b.journal, Some(Recorded::Known(0)));
-    // The rig's next retune is followed from the confirmed position (the
-    // core decides again on a new frequency, as after any fault).
+    // From the homed count the settled frequency is decided again at once,
+    // as after any fault: the move is asked for once more.
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![2500, 2500]);
+    b.tuner(TunerEvent::Accepted { target: 2500 });
+    b.tuner(TunerEvent::At { steps: 2500 });
+    assert_eq!(b.journal, Some(Recorded::Known(2500)));
+    // The rig's next retune is followed from the confirmed position.
     b.frequency(7_200_000);
     b.wait(ms(100));
-    assert_eq!(b.gotos(), vec![2500, 2000]);
+    assert_eq!(b.gotos(), vec![2500, 2500, 2000]);
 }
 
 #[test]

@@ -309,18 +309,66 @@ fn a_fault_holds_with_inhibit_until_the_position_is_known_again() {
     assert_eq!(f.position(), None);
     f.handle_timeout(ms(10_000));
     assert!(drain(&mut f).is_empty(), "inhibit released during a fault");
+    // The position is confirmed part way: the interrupted move is decided
+    // again at once for the settled frequency (no new report needed), with
+    // the inhibit still on.
     f.handle_arrived(ms(11_000), 9_200);
     f.handle_timeout(ms(11_100));
+    let a = drain(&mut f);
+    assert_eq!(
+        a,
+        vec![
+            Action::Move {
+                from: 9_200,
+                to: 9_500,
+                hz: 7_050_000,
+                tune_hz: 7_050_000,
+            },
+            Action::Goto { steps: 9_500 }
+        ]
+    );
+    assert!(f.inhibit());
+    f.handle_arrived(ms(11_200), 9_500);
+    f.handle_timeout(ms(11_400));
     assert_eq!(drain(&mut f), vec![Action::Inhibit { on: false }]);
-    // Following resumes from the reported position.
+    // Following goes on from there.
     let a = settle(&mut f, 12_000, 7_090_000);
     assert!(a.contains(&Action::Move {
-        from: 9_200,
+        from: 9_500,
         to: 9_100,
         hz: 7_090_000,
         tune_hz: 7_090_000,
     }));
     assert_eq!(gotos(&a), vec![9_070]);
+}
+
+/// A target faulted twice in a row (a controller that refuses it, an end
+/// stop before it) is asked for once more after the first recovery, then
+/// held with the inhibit on until a new frequency: no retry storm, and
+/// never a release with the loop untuned.
+#[test]
+fn a_target_faulted_twice_in_a_row_waits_for_a_new_frequency() {
+    let mut p = policy();
+    p.inhibit_until_tuned = true;
+    let mut f = Follower::new(p, Arc::new(Line), Some(9_000));
+    let a = settle(&mut f, 0, 7_050_000);
+    assert_eq!(gotos(&a), vec![9_500]);
+    f.handle_fault(ms(400));
+    f.handle_arrived(ms(2_400), 9_000);
+    f.handle_timeout(ms(2_500));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_500], "asked once more");
+    f.handle_fault(ms(2_600));
+    drain(&mut f);
+    f.handle_arrived(ms(4_600), 9_000);
+    for t in (4_600..10_000).step_by(100) {
+        f.handle_timeout(ms(t));
+    }
+    let a = drain(&mut f);
+    assert!(gotos(&a).is_empty(), "asked again: {a:?}");
+    assert!(f.inhibit(), "released with the loop untuned: {a:?}");
+    // A new frequency is a new decision.
+    let a = settle(&mut f, 10_000, 7_090_000);
+    assert_eq!(gotos(&a), vec![9_100]);
 }
 
 #[test]

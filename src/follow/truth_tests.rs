@@ -325,12 +325,19 @@ fn a_fault_keeps_the_inhibit_until_tuned_again() {
     assert!(!f.inhibit());
     f.handle_fault(ms(1_000));
     assert!(f.inhibit());
+    let a = run(&mut f, 1_000, 1_500, 50);
+    assert!(f.inhibit(), "released during the fault: {a:?}");
+    // The controller confirms the motor where the settled frequency wants
+    // it: the recovery decides that frequency again (no new report needed)
+    // and the loop is tuned, so the inhibit ends after its tail.
     f.handle_arrived(ms(1_500), 9_000);
     let a = run(&mut f, 1_500, 3_000, 50);
-    assert!(
-        f.inhibit(),
-        "released after a fault without a decision: {a:?}"
-    );
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(a.contains(&Action::Hold {
+        hz: 7_100_000,
+        reason: HoldReason::DeadBand
+    }));
+    assert!(!f.inhibit(), "{a:?}");
 }
 
 #[test]
