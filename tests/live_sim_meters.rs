@@ -38,21 +38,9 @@ fn goto(w: &mut TcpStream, r: &mut BufReader<TcpStream>, steps: i64) {
     }
 }
 
-/// The meter truth log's last line once it has `n` lines (5 s at most).
+/// The meter truth log's `n`-th line once it has that many (5 s at most).
 fn nth_line(path: &Path, n: usize) -> serde_json::Value {
-    let until = Instant::now() + Duration::from_secs(5);
-    loop {
-        let text = std::fs::read_to_string(path).unwrap_or_default();
-        let lines: Vec<serde_json::Value> = text
-            .lines()
-            .filter_map(|l| serde_json::from_str(l).ok())
-            .collect();
-        if lines.len() >= n {
-            return lines[n - 1].clone();
-        }
-        assert!(Instant::now() < until, "meter truth so far: {text}");
-        std::thread::sleep(Duration::from_millis(20));
-    }
+    common::jsonl_until(path, |l| l.len() >= n)[n - 1].clone()
 }
 
 /// The position file says the controller's position once it has settled

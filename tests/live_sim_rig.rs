@@ -9,7 +9,7 @@
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use tokio::io::{AsyncReadExt, AsyncWriteExt};
 use tokio_serial::SerialStream;
@@ -42,23 +42,6 @@ fn start(dir: &Path, protocol: &str, script: &str, extra: &[&str]) -> (Proc, Pat
     let sim = Proc(child);
     common::wait_symlink(&link);
     (sim, link, truth)
-}
-
-/// The truth log's lines, parsed, once `done` holds for them (within 5 s).
-fn truth_until(path: &Path, done: impl Fn(&[serde_json::Value]) -> bool) -> Vec<serde_json::Value> {
-    let until = Instant::now() + Duration::from_secs(5);
-    loop {
-        let text = std::fs::read_to_string(path).unwrap_or_default();
-        let lines: Vec<serde_json::Value> = text
-            .lines()
-            .filter_map(|l| serde_json::from_str(l).ok())
-            .collect();
-        if done(&lines) {
-            return lines;
-        }
-        assert!(Instant::now() < until, "truth log so far: {text}");
-        std::thread::sleep(Duration::from_millis(20));
-    }
 }
 
 /// Nothing more arrives within `quiet`.
@@ -125,7 +108,7 @@ async fn binary_rig_answers_reads_acknowledges_sets_and_reports_the_knob() {
         [RigEvent::Frequency { hz: 7_100_000 }]
     );
     // Keying is not announced by this family, but the truth log says it.
-    let log = truth_until(&truth, |l| l.iter().any(|t| t["transmitting"] == true));
+    let log = common::jsonl_until(&truth, |l| l.iter().any(|t| t["transmitting"] == true));
     let causes: Vec<&str> = log.iter().map(|t| t["cause"].as_str().unwrap()).collect();
     assert_eq!(causes, ["start", "cat", "operator", "operator"]);
     let hz: Vec<u64> = log.iter().map(|t| t["rx_hz"].as_u64().unwrap()).collect();
@@ -168,7 +151,7 @@ async fn text_rig_answers_reads_takes_sets_silently_refuses_and_reports() {
             RigEvent::Transmit { on: false }
         ]
     );
-    let log = truth_until(&truth, |l| l.len() >= 5);
+    let log = common::jsonl_until(&truth, |l| l.len() >= 5);
     let tx: Vec<bool> = log.iter().map(|t| t["transmitting"] == true).collect();
     assert_eq!(tx, [false, false, false, true, false]);
     assert_eq!(log[2]["rx_hz"], 7_100_000);

@@ -240,6 +240,27 @@ pub fn wait_symlink(link: &Path) {
     }
 }
 
+/// A JSON-lines log's lines (a simulator's truth or meter log), parsed,
+/// once `done` holds for them (within 5 s).
+pub fn jsonl_until(
+    path: &Path,
+    done: impl Fn(&[serde_json::Value]) -> bool,
+) -> Vec<serde_json::Value> {
+    let until = Instant::now() + Duration::from_secs(5);
+    loop {
+        let text = std::fs::read_to_string(path).unwrap_or_default();
+        let lines: Vec<serde_json::Value> = text
+            .lines()
+            .filter_map(|l| serde_json::from_str(l).ok())
+            .collect();
+        if done(&lines) {
+            return lines;
+        }
+        assert!(Instant::now() < until, "{} so far: {text}", path.display());
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
 pub fn open_port(path: &Path, baud: u32) -> SerialStream {
     SerialStream::open(&tokio_serial::new(path.to_string_lossy(), baud)).unwrap()
 }
