@@ -1232,18 +1232,20 @@ impl Follower {
         }
     }
 
-    /// Decides what the settled frequency `hz` asks for.
     /// [`Self::decide`] after a recovery, unless the target it would move
     /// to has been faulted twice in a row.
     fn redecide(&mut self, now: Duration, hz: u64) {
-        self.decide_at_most(now, hz, true);
+        self.decide_after(now, hz, true);
     }
 
+    /// Decides what the settled frequency `hz` asks for.
     fn decide(&mut self, now: Duration, hz: u64) {
-        self.decide_at_most(now, hz, false);
+        self.decide_after(now, hz, false);
     }
 
-    fn decide_at_most(&mut self, now: Duration, hz: u64, after_fault: bool) {
+    /// [`Self::decide`]; with `after_fault`, a target faulted twice in a row
+    /// is held instead (see `faulted`).
+    fn decide_after(&mut self, now: Duration, hz: u64, after_fault: bool) {
         let (tune_hz, band) = match self.policy.place(hz) {
             Placement::Inside { band } => (hz, band),
             Placement::Guard { band, edge_hz } => (edge_hz, band),
