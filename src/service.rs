@@ -432,15 +432,19 @@ pub async fn run_with_operator(
         publish(&state, &session, &io.recent);
         let split = session.poll_other_vfo();
         split_tx.send_if_modified(|s| std::mem::replace(s, split) != split);
-        let meters = if session.poll_swr_meter() {
-            swr_read.clone()
-        } else {
-            Vec::new()
-        };
+        // Told only on a change (this runs after every event): no copy of
+        // the read unless the poll is to start carrying it.
+        let read_swr = session.poll_swr_meter() && !swr_read.is_empty();
         meters_tx.send_if_modified(|m| {
-            let changed = *m != meters;
-            *m = meters;
-            changed
+            if read_swr != m.is_empty() {
+                return false;
+            }
+            *m = if read_swr {
+                swr_read.clone()
+            } else {
+                Vec::new()
+            };
+            true
         });
     }
     let result = session.outcome();
