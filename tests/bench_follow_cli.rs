@@ -86,20 +86,94 @@ fn table_names_its_columns_and_the_target() {
 
 #[test]
 fn a_station_without_a_described_loop_is_refused_with_the_key() {
-    // The example config leaves [antenna] commented out.
-    let example = Path::new(env!("CARGO_MANIFEST_DIR")).join("config/example.toml");
+    // The example config with its [antenna] keys taken out.
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let text = std::fs::read_to_string(root.join("config/example.toml")).unwrap();
+    let kept: Vec<&str> = text
+        .lines()
+        .filter(|l| {
+            !["loop_diameter_m", "conductor_diameter_m"]
+                .iter()
+                .any(|k| l.starts_with(k))
+        })
+        .collect();
+    let dir = tempfile::tempdir().unwrap();
+    let station = dir.path().join("no-loop.toml");
+    std::fs::write(&station, kept.join("\n")).unwrap();
     let out = tuneward(&[
         "bench-follow",
         "--config",
-        example.to_str().unwrap(),
+        station.to_str().unwrap(),
         "--hours",
         "0.1",
     ]);
     assert!(!out.status.success());
     let err = String::from_utf8_lossy(&out.stderr);
-    assert!(err.contains("example.toml"), "{err}");
+    assert!(err.contains("no-loop.toml"), "{err}");
     assert!(err.contains("antenna"), "{err}");
     assert!(err.contains("expected") && err.contains("found"), "{err}");
+}
+
+/// Issue 10's targets hold on the stations we ship, not only on the
+/// quality station: on the judging seeds (nothing was tuned on them), every
+/// family, the example and the demo configs each keep the loop within
+/// 1.5:1 all the time on the air at the transmit frequency, with at most
+/// 1.3 times the offline optimum's moves, no motion while any source says
+/// the rig transmits and no leg outside an inhibit window. The SWR comes
+/// from the matched-resonator formula (`antenna::swr_at`, which names its
+/// source); the 1.3 bound is the issue's own.
+#[test]
+fn the_shipped_stations_stay_within_1_5_to_1_on_the_judging_seeds() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    for config in ["config/example.toml", "config/demo.toml"] {
+        let out = tuneward(&[
+            "bench-follow",
+            "--config",
+            root.join(config).to_str().unwrap(),
+            "--family",
+            "all",
+            "--first-seed",
+            "101",
+            "--json",
+        ]);
+        assert!(
+            out.status.success(),
+            "{config}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+        let rows = v["rows"].as_array().unwrap();
+        let row = |name: &str| {
+            rows.iter()
+                .find(|r| r["policy"] == name)
+                .unwrap_or_else(|| panic!("{config}: no {name} row in {v}"))
+        };
+        let (ours, optimum) = (row("follow"), row("optimum"));
+        assert_eq!(
+            ours["swr_1_5_pct"].as_f64(),
+            Some(100.0),
+            "{config}: {ours}"
+        );
+        assert_eq!(
+            v["short_dwells"].as_array().map(Vec::len),
+            Some(0),
+            "{config}: {v}"
+        );
+        assert_eq!(ours["violations"], 0, "{config}: {ours}");
+        assert_eq!(
+            ours["moved_keyed_s"].as_f64(),
+            Some(0.0),
+            "{config}: {ours}"
+        );
+        let moves = |r: &serde_json::Value| r["moves"].as_f64().unwrap();
+        assert!(
+            moves(ours) <= 1.3 * moves(optimum),
+            "{config}: {} moves against the optimum's {}",
+            moves(ours),
+            moves(optimum)
+        );
+        assert_eq!(v["families"].as_array().map(Vec::len), Some(4), "{config}");
+    }
 }
 
 /// The rig family is how the reports travel, not what the operator did:

@@ -284,9 +284,16 @@ fn a_fixed_dead_band_wider_than_a_quarter_of_the_window_is_a_warning() {
 
 #[test]
 fn few_points_and_fit_warnings_appear_in_check() {
-    let (code, out, _) = check(&repo("config/demo.toml"), &[]);
+    // The demo station with its middle 30 m point left out: 30 m measured
+    // at its two edges only.
+    let dir = tempfile::tempdir().unwrap();
+    let config = demo_with(
+        dir.path(),
+        "edges.toml",
+        &[("  { hz = 10125000, steps = 145502 },\n", "")],
+    );
+    let (code, out, _) = check(&config, &[]);
     assert_eq!(code, Some(0), "{out}");
-    // The demo measures 30 m at its two edges only.
     let f = finding(&out, "warning", "calibration.points");
     assert!(out.contains("30m: only 2 point(s)"), "{f}\n{out}");
 }
@@ -314,19 +321,19 @@ fn without_an_antenna_the_configured_bound_judges_the_calibration() {
     assert_eq!(code, Some(1), "{out}");
     let f = finding(&out, "error", "calibration.points");
     assert!(f.contains("calibration.max_loo_error_hz = 100 Hz"), "{f}");
-    // Without the key, twice the dead band (2 × 200 Hz) is the bound.
+    // Without the key, twice the dead band (2 × 50 Hz) is the bound.
     let default = demo_with(
         dir.path(),
         "default.toml",
         &[
             drop_antenna,
-            ("hysteresis_hz = \"auto\"", "hysteresis_hz = 200"),
+            ("hysteresis_hz = \"auto\"", "hysteresis_hz = 50"),
         ],
     );
     let (code, out, _) = check(&default, &[]);
     assert_eq!(code, Some(1), "{out}");
     let f = finding(&out, "error", "calibration.points");
-    assert!(f.contains("twice the band's dead band, 400 Hz"), "{f}");
+    assert!(f.contains("twice the band's dead band, 100 Hz"), "{f}");
     // A generous bound passes.
     let loose = demo_with(
         dir.path(),

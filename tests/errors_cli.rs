@@ -87,7 +87,7 @@ fn config_errors_name_file_key_expected_and_found() {
     let p = config_with(
         d,
         "float.toml",
-        "steps_per_second = 4000",
+        "steps_per_second = 32000",
         "steps_per_second = \"fast\"",
     );
     assert_all(
@@ -144,14 +144,14 @@ fn config_errors_name_file_key_expected_and_found() {
         ],
     );
 
-    let p = config_with(d, "limits.toml", "min_steps = 500", "min_steps = 50000");
+    let p = config_with(d, "limits.toml", "min_steps = 4000", "min_steps = 500000");
     assert_all(
         &check(&p),
         &[
             "limits.toml",
             "`tuner.max_steps`",
             "expected a value above tuner.min_steps",
-            "found min_steps = 50000",
+            "found min_steps = 500000",
         ],
     );
 

@@ -17,8 +17,8 @@ mod common;
 use common::truth::{controller, wait_truth};
 use common::{forty_metres, Logged, Proc, BIN};
 
-/// The demo station's loop (config/demo.toml, invented) through two of its
-/// points; no rain, no scatter.
+/// An invented loop like the demo station's (config/demo.toml), on a drive
+/// eight times coarser, through two points; no rain, no scatter.
 const METERS: &str = "loop_diameter_m = 1.0\nconductor_diameter_m = 0.022\n\
     through = [[7100000, 39049], [14175000, 8301]]\n\
     floor_dbm = -115.0\nnoise_dbm = -105.0\nscatter_db = 0.0\n";

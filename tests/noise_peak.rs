@@ -9,6 +9,8 @@ use tuneward::follow::peak::PeakOutcome;
 use tuneward::rig::meter::{binary_signal_scale, binary_swr_scale, text_signal_scale};
 use tuneward::sim::meters::{noise_peak_trial, Band, SimLoop, TrialSetup};
 
+/// An invented loop like the demo station's (config/demo.toml), on a drive
+/// eight times coarser (4000 steps/s below).
 fn demo_loop() -> SimLoop {
     SimLoop::through(
         SmallLoop {
@@ -19,7 +21,7 @@ fn demo_loop() -> SimLoop {
         (7_100_000.0, 39049.0),
         (14_175_000.0, 8301.0),
     )
-    .expect("the demo loop resonates through its points")
+    .expect("the loop resonates through its points")
 }
 
 fn setup(hz: f64, offset_steps: f64, noise_over_floor_db: f64, seed: u64) -> TrialSetup {

@@ -384,8 +384,8 @@ mod tests {
     use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
 
     pub(crate) fn demo_loop() -> SimLoop {
-        // The demo station's loop (config/demo.toml, invented) through two
-        // of its calibration points.
+        // An invented loop like the demo station's (config/demo.toml), on
+        // a drive eight times coarser, through two points.
         SimLoop::through(
             SmallLoop {
                 loop_diameter_m: 1.0,

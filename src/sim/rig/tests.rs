@@ -562,8 +562,8 @@ fn nine_digit_rig_reads_its_transmit_state_with_tx_and_has_no_flag_in_its_status
 
 // ---- meters ----
 
-/// The demo station's loop (config/demo.toml, invented) through two of its
-/// calibration points, with a hidden "rain" offset of 40 steps.
+/// An invented loop like the demo station's (config/demo.toml), on a drive
+/// eight times coarser, through two points, with a hidden "rain" offset of 40 steps.
 const METERS: &str = "loop_diameter_m = 1.0\nconductor_diameter_m = 0.022\n\
     through = [[7100000, 39049], [14175000, 8301]]\nrain_steps = 40\n\
     floor_dbm = -115.0\nnoise_dbm = -105.0\nscatter_db = 0.0\nseed = 3\n";
