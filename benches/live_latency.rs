@@ -143,6 +143,7 @@ async fn start(journal: bool) -> Live {
             backoff_cap: Duration::from_millis(200),
             sim_start: 0,
             sim_backlash: 0,
+            home_line: None,
         },
         inhibit: Box::new(RecordingLine::new()),
         sense: None,

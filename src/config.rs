@@ -274,8 +274,9 @@ pub struct TunerConfig {
 #[serde(deny_unknown_fields)]
 pub struct HomeConfig {
     /// `"controller"`: the controller has the switch and homes when asked
-    /// (`HOME`, line protocol version 2). A number: the GPIO line the
-    /// switch is on, on the direct drive's chip (`gpio://` links only).
+    /// (`HOME`, line protocol version 2). A number: the GPIO input line the
+    /// switch is on, on the direct drive's chip (`gpio://` links only; a
+    /// closed switch reads at the link's `closed` level).
     pub switch: HomeSwitch,
     /// The end of the travel the switch is at.
     pub side: HomeSideConfig,
@@ -1151,12 +1152,7 @@ impl Config {
                 "\"controller\" (a line number needs a `gpio://` link)",
                 n.to_string(),
             )),
-            // The direct drive reads no switch input yet.
-            HomeSwitch::Line(n) => Err(self.invalid(
-                "tuner.home.switch",
-                "\"controller\" (the direct drive does not read a home switch yet)",
-                n.to_string(),
-            )),
+            HomeSwitch::Line(_) => Ok(()),
         }
     }
 
@@ -1573,6 +1569,13 @@ guard_hz = 10000
         .unwrap_err()
         .to_string();
         assert!(msg.contains("up"), "{msg}");
+        // The direct drive reads its home switch on a line of its chip.
+        let c = with(
+            r#"{ switch = 22, side = "low", position = 0 }"#,
+            "gpio://gpiochip0?step=1&dir=2",
+        )
+        .unwrap();
+        assert_eq!(c.tuner.home.map(|h| h.switch), Some(HomeSwitch::Line(22)));
     }
 
     #[test]

@@ -126,9 +126,7 @@ pub fn open_modem_line(
     signal: ModemSignal,
     active_high: bool,
 ) -> io::Result<ModemLine<Box<dyn tokio_serial::SerialPort>>> {
-    let tty = tokio_serial::new(port, 9600)
-        .open()
-        .map_err(|e| io::Error::other(format!("cannot open inhibit port {port}: {e}")))?;
+    let tty = crate::devices::open_modem_port(port, "inhibit")?;
     ModemLine::new(tty, signal, active_high).map_err(|e| {
         io::Error::new(
             e.kind(),
@@ -150,23 +148,15 @@ impl GpioLine {
     /// until the service has decided, the rig is held off.
     /// With `active_high = false` the kernel inverts the level (active low).
     pub fn open(chip: &str, offset: u32, active_high: bool) -> io::Result<GpioLine> {
-        let path = crate::devices::gpio_chip_path(chip);
-        let mut b = gpiocdev::Request::builder();
-        b.on_chip(&path)
-            .with_consumer("tuneward-inhibit")
-            .with_line(offset)
-            .as_output(gpiocdev::line::Value::Active);
-        if active_high {
-            b.as_active_high();
-        } else {
-            b.as_active_low();
-        }
-        let request = b.request().map_err(|e| {
-            io::Error::other(format!(
-                "cannot request GPIO line {offset} on {}: {e}",
-                path.display()
-            ))
-        })?;
+        use crate::devices::{request_gpio_lines, GpioUse};
+        let request = request_gpio_lines(
+            chip,
+            &[offset],
+            "tuneward-inhibit",
+            &format!("line {offset}"),
+            GpioUse::Output { start_active: true },
+            active_high,
+        )?;
         Ok(GpioLine { request, offset })
     }
 }
@@ -174,14 +164,7 @@ impl GpioLine {
 #[cfg(target_os = "linux")]
 impl InhibitLine for GpioLine {
     fn set(&mut self, on: bool) -> io::Result<()> {
-        let v = if on {
-            gpiocdev::line::Value::Active
-        } else {
-            gpiocdev::line::Value::Inactive
-        };
-        self.request
-            .set_value(self.offset, v)
-            .map_err(|e| io::Error::other(format!("GPIO line {}: {e}", self.offset)))
+        crate::devices::set_gpio(&self.request, self.offset, on)
     }
 }
 

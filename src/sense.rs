@@ -122,9 +122,7 @@ pub fn open_modem_sense(
     signal: StatusSignal,
     active_high: bool,
 ) -> io::Result<ModemSense<Box<dyn tokio_serial::SerialPort>>> {
-    let tty = tokio_serial::new(port, 9600)
-        .open()
-        .map_err(|e| io::Error::other(format!("cannot open sense port {port}: {e}")))?;
+    let tty = crate::devices::open_modem_port(port, "sense")?;
     let mut sense = ModemSense::new(tty, signal, active_high, port);
     sense.transmitting().map_err(|e| {
         io::Error::new(
@@ -148,27 +146,19 @@ impl GpioSense {
     /// Requests `offset` on `chip` as an input. With `active_high = false`
     /// the kernel inverts the level (active low).
     pub fn open(chip: &str, offset: u32, active_high: bool) -> io::Result<GpioSense> {
-        let path = crate::devices::gpio_chip_path(chip);
-        let mut b = gpiocdev::Request::builder();
-        b.on_chip(&path)
-            .with_consumer("tuneward-sense")
-            .with_line(offset)
-            .as_input();
-        if active_high {
-            b.as_active_high();
-        } else {
-            b.as_active_low();
-        }
-        let request = b.request().map_err(|e| {
-            io::Error::other(format!(
-                "cannot request GPIO line {offset} on {} as an input: {e}",
-                path.display()
-            ))
-        })?;
+        use crate::devices::{gpio_chip_path, request_gpio_lines, GpioUse};
+        let request = request_gpio_lines(
+            chip,
+            &[offset],
+            "tuneward-sense",
+            &format!("line {offset}"),
+            GpioUse::Input,
+            active_high,
+        )?;
         Ok(GpioSense {
             request,
             offset,
-            name: path.display().to_string(),
+            name: gpio_chip_path(chip).display().to_string(),
         })
     }
 }
@@ -176,11 +166,7 @@ impl GpioSense {
 #[cfg(target_os = "linux")]
 impl SenseInput for GpioSense {
     fn transmitting(&mut self) -> io::Result<bool> {
-        let v = self
-            .request
-            .value(self.offset)
-            .map_err(|e| io::Error::other(format!("GPIO line {}: {e}", self.offset)))?;
-        Ok(v == gpiocdev::line::Value::Active)
+        crate::devices::gpio_active(&self.request, self.offset)
     }
     fn describe(&self) -> String {
         format!("GPIO {} line {}", self.name, self.offset)

@@ -32,6 +32,7 @@ fn config(url: ControllerUrl) -> ClientConfig {
         backoff_cap: Duration::from_millis(300),
         sim_start: 250,
         sim_backlash: 0,
+        home_line: None,
     }
 }
 

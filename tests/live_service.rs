@@ -44,6 +44,7 @@ fn controller(start: i64) -> ClientConfig {
         backoff_cap: Duration::from_millis(200),
         sim_start: start,
         sim_backlash: 0,
+        home_line: None,
     }
 }
 

@@ -372,6 +372,26 @@ pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, Error> {
         .link
         .parse()
         .map_err(|e: crate::tuner::client::UrlError| e.at(Place::bare_key("tuner.link")))?;
+    let home_line = match t.home.as_ref().map(|h| &h.switch) {
+        Some(crate::config::HomeSwitch::Line(n)) => Some(*n),
+        _ => None,
+    };
+    if let (Some(n), crate::tuner::client::ControllerUrl::Gpio(w)) = (home_line, &url) {
+        let taken = [
+            ("step", Some(w.step)),
+            ("dir", Some(w.dir)),
+            ("low_stop", w.low_stop),
+            ("high_stop", w.high_stop),
+        ];
+        if let Some((name, _)) = taken.iter().find(|(_, l)| *l == Some(n)) {
+            return Err(Located::new(
+                Place::bare_key("tuner.home.switch"),
+                format!("a line of its own (tuner.link uses {n} for `{name}`)"),
+                n.to_string(),
+            )
+            .into());
+        }
+    }
     Ok(ClientConfig {
         url,
         min_steps: t.min_steps,
@@ -382,6 +402,7 @@ pub fn controller_settings(t: &TunerConfig) -> Result<ClientConfig, Error> {
         backoff_cap: Duration::from_secs(2),
         sim_start: t.min_steps,
         sim_backlash: t.backlash_steps,
+        home_line,
     })
 }
 
@@ -1022,6 +1043,39 @@ mod tests {
         let config = Config::parse(&fixed, std::path::Path::new("t.toml")).unwrap();
         let p = policy_from_config(&config, |_| Some(1)).unwrap();
         assert_eq!(p.bands[0].hysteresis_hz, 1500);
+    }
+
+    #[test]
+    fn a_direct_drive_reads_its_home_switch_on_a_line_of_its_own() {
+        let tuner = |link: &str, home: &str| {
+            let text = format!("[tuner]\nlink = \"{link}\"\nhome = {home}\n");
+            let c = Config::parse(&text, std::path::Path::new("t.toml")).unwrap();
+            controller_settings(&c.tuner)
+        };
+        let home = r#"{ switch = 22, side = "low", position = 0 }"#;
+        let c = tuner("gpio://gpiochip0?step=1&dir=2&low_stop=23", home).unwrap();
+        assert_eq!(c.home_line, Some(22));
+        // A controller with its own switch: no line for us to read.
+        let c = tuner(
+            "tcp://127.0.0.1:7300",
+            r#"{ switch = "controller", side = "low", position = 0 }"#,
+        )
+        .unwrap();
+        assert_eq!(c.home_line, None);
+        // The home switch on a line the link drives or reads already.
+        for (link, name) in [
+            ("gpio://gpiochip0?step=22&dir=2", "step"),
+            ("gpio://gpiochip0?step=1&dir=22", "dir"),
+            ("gpio://gpiochip0?step=1&dir=2&high_stop=22", "high_stop"),
+        ] {
+            let Err(e) = tuner(link, home) else {
+                panic!("{link}: the taken line was accepted");
+            };
+            let e = e.to_string();
+            assert!(e.contains("tuner.home.switch"), "{e}");
+            assert!(e.contains(&format!("uses 22 for `{name}`")), "{e}");
+            assert!(e.contains("found 22"), "{e}");
+        }
     }
 
     #[test]

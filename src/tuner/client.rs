@@ -61,7 +61,11 @@ pub enum ControllerUrl {
 /// default four times the speed: full speed in a quarter second), `pulse_us`
 /// (step pulse width, default 5) and `setup_us` (direction set-up time,
 /// default 20). The defaults are common practice, no source: generous for
-/// the usual driver chips; check the driver's datasheet.
+/// the usual driver chips; check the driver's datasheet. End-stop switches:
+/// `low_stop` and `high_stop` (input line offsets), read before every step;
+/// `closed` (`low` or `high`: the level a closed switch puts on its line,
+/// default `low`, a switch to ground against a pull-up: common practice, no
+/// source). The home switch's line is `tuner.home.switch`.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct GpioWiring {
     pub chip: String,
@@ -71,6 +75,10 @@ pub struct GpioWiring {
     pub accel: Option<u32>,
     pub pulse_us: u32,
     pub setup_us: u32,
+    pub low_stop: Option<u32>,
+    pub high_stop: Option<u32>,
+    /// A closed switch reads high.
+    pub closed_high: bool,
 }
 
 /// Baud rate of a `serial://` URL without `?baud=`.
@@ -180,6 +188,9 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
         accel: None,
         pulse_us: 5,
         setup_us: 20,
+        low_stop: None,
+        high_stop: None,
+        closed_high: false,
     };
     let (mut step, mut dir) = (None, None);
     for pair in query.split('&').filter(|p| !p.is_empty()) {
@@ -200,6 +211,20 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
             "accel" => w.accel = Some(number()?).filter(|a| *a > 0),
             "pulse_us" => w.pulse_us = number()?,
             "setup_us" => w.setup_us = number()?,
+            "low_stop" => w.low_stop = Some(number()?),
+            "high_stop" => w.high_stop = Some(number()?),
+            "closed" => {
+                w.closed_high = match value {
+                    "high" => true,
+                    "low" => false,
+                    _ => {
+                        return Err(UrlError::new(
+                            format!("`high` or `low` for `closed` in `{whole}`"),
+                            format!("`{value}`"),
+                        ))
+                    }
+                }
+            }
             "up" => {
                 w.up_is_high = match value {
                     "high" => true,
@@ -214,7 +239,9 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
             }
             _ => {
                 return Err(UrlError::new(
-                    format!("keys step, dir, up, accel, pulse_us, setup_us in `{whole}`"),
+                    format!(
+                        "keys step, dir, up, accel, pulse_us, setup_us, low_stop, high_stop, closed in `{whole}`"
+                    ),
                     format!("`{key}`"),
                 ))
             }
@@ -227,6 +254,22 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
         return Err(UrlError::new(
             format!("different lines for step and dir in `{whole}`"),
             format!("{} for both", w.step),
+        ));
+    }
+    let outputs = [("step", w.step), ("dir", w.dir)];
+    let inputs = [("low_stop", w.low_stop), ("high_stop", w.high_stop)];
+    for (name, line) in inputs {
+        if let Some((out, _)) = line.and_then(|l| outputs.iter().find(|(_, o)| *o == l)) {
+            return Err(UrlError::new(
+                format!("a line for `{name}` other than the {out} line in `{whole}`"),
+                format!("{} for both", line.unwrap_or_default()),
+            ));
+        }
+    }
+    if w.low_stop.is_some() && w.low_stop == w.high_stop {
+        return Err(UrlError::new(
+            format!("different lines for low_stop and high_stop in `{whole}`"),
+            format!("{} for both", w.low_stop.unwrap_or_default()),
         ));
     }
     Ok(w)
@@ -252,7 +295,17 @@ impl fmt::Display for ControllerUrl {
                 if let Some(a) = w.accel {
                     write!(f, "&accel={a}")?;
                 }
-                write!(f, "&pulse_us={}&setup_us={}", w.pulse_us, w.setup_us)
+                write!(f, "&pulse_us={}&setup_us={}", w.pulse_us, w.setup_us)?;
+                if let Some(l) = w.low_stop {
+                    write!(f, "&low_stop={l}")?;
+                }
+                if let Some(l) = w.high_stop {
+                    write!(f, "&high_stop={l}")?;
+                }
+                if w.closed_high {
+                    f.write_str("&closed=high")?;
+                }
+                Ok(())
             }
         }
     }
@@ -278,6 +331,8 @@ pub struct ClientConfig {
     pub sim_start: i64,
     /// Backlash of the in-process simulator.
     pub sim_backlash: i64,
+    /// The direct drive's home-switch input line (`tuner.home.switch`).
+    pub home_line: Option<u32>,
 }
 
 impl ClientConfig {
@@ -773,6 +828,17 @@ fn open_direct(
         config.min_steps,
     )
     .map_err(|e| Located::named(&url, "a direct drive within its limits", e.to_string()))?;
+    let lines = super::gpio::SwitchLines {
+        home: config.home_line,
+        low_stop: w.low_stop,
+        high_stop: w.high_stop,
+    };
+    let driver = match super::gpio::GpioSwitches::open(&w.chip, lines, w.closed_high)
+        .map_err(|e| Located::named(&url, "switch input lines this user may read", e.to_string()))?
+    {
+        Some(switches) => driver.with_switches(Box::new(switches), lines.home.is_some()),
+        None => driver,
+    };
     Ok(DirectController::start(driver, config.settle))
 }
 
@@ -857,6 +923,24 @@ mod tests {
                 accel: Some(3000),
                 pulse_us: 5,
                 setup_us: 20,
+                low_stop: None,
+                high_stop: None,
+                closed_high: false,
+            }))
+        );
+        assert_eq!(
+            "gpio://gpiochip1?step=5&dir=6&low_stop=12&high_stop=13&closed=high".parse(),
+            Ok(ControllerUrl::Gpio(GpioWiring {
+                chip: "gpiochip1".into(),
+                step: 5,
+                dir: 6,
+                up_is_high: true,
+                accel: None,
+                pulse_us: 5,
+                setup_us: 20,
+                low_stop: Some(12),
+                high_stop: Some(13),
+                closed_high: true,
             }))
         );
         // Each refusal: (URL, words of what was expected, what was found).
@@ -888,6 +972,21 @@ mod tests {
                 "keys step, dir",
                 "`speed`",
             ),
+            (
+                "gpio://gpiochip0?step=1&dir=2&high_stop=2",
+                "other than the dir line",
+                "2 for both",
+            ),
+            (
+                "gpio://gpiochip0?step=1&dir=2&low_stop=7&high_stop=7",
+                "different lines for low_stop and high_stop",
+                "7 for both",
+            ),
+            (
+                "gpio://gpiochip0?step=1&dir=2&closed=open",
+                "`high` or `low` for `closed`",
+                "`open`",
+            ),
             ("", "`tcp://HOST:PORT`", "``"),
         ] {
             let e = bad.parse::<ControllerUrl>().unwrap_err();
@@ -908,6 +1007,8 @@ mod tests {
             "serial:///dev/ttyUSB1?baud=9600",
             "tcp://localhost:1",
             "sim",
+            "gpio://gpiochip0?step=17&dir=27&up=high&pulse_us=5&setup_us=20",
+            "gpio://gpiochip0?step=17&dir=27&up=low&accel=900&pulse_us=4&setup_us=9&low_stop=3&high_stop=4&closed=high",
         ] {
             let u: ControllerUrl = s.parse().unwrap();
             assert_eq!(u.to_string(), s);

@@ -403,19 +403,16 @@ pub struct GpioPins {
 impl GpioPins {
     /// Requests the `step` and `dir` lines of `chip` as outputs, both low.
     pub fn open(chip: &str, step: u32, dir: u32, up_is_high: bool) -> io::Result<GpioPins> {
-        let path = crate::devices::gpio_chip_path(chip);
-        let request = gpiocdev::Request::builder()
-            .on_chip(&path)
-            .with_consumer("tuneward-stepper")
-            .with_lines(&[step, dir])
-            .as_output(gpiocdev::line::Value::Inactive)
-            .request()
-            .map_err(|e| {
-                io::Error::other(format!(
-                    "cannot request GPIO lines {step} (step) and {dir} (dir) on {}: {e}",
-                    path.display()
-                ))
-            })?;
+        let request = crate::devices::request_gpio_lines(
+            chip,
+            &[step, dir],
+            "tuneward-stepper",
+            &format!("lines {step} (step) and {dir} (dir)"),
+            crate::devices::GpioUse::Output {
+                start_active: false,
+            },
+            true,
+        )?;
         Ok(GpioPins {
             request,
             step,
@@ -425,14 +422,98 @@ impl GpioPins {
     }
 
     fn set(&mut self, line: u32, high: bool) -> io::Result<()> {
-        let v = if high {
-            gpiocdev::line::Value::Active
-        } else {
-            gpiocdev::line::Value::Inactive
-        };
-        self.request
-            .set_value(line, v)
-            .map_err(|e| io::Error::other(format!("GPIO line {line}: {e}")))
+        crate::devices::set_gpio(&self.request, line, high)
+    }
+}
+
+/// Which GPIO lines of the direct drive's chip the switches are on (any
+/// may be absent).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct SwitchLines {
+    pub home: Option<u32>,
+    pub low_stop: Option<u32>,
+    pub high_stop: Option<u32>,
+}
+
+impl SwitchLines {
+    /// The wired lines, each once, with what each is for (for the request
+    /// and its error).
+    pub fn wired(&self) -> Vec<(u32, &'static str)> {
+        let mut out: Vec<(u32, &'static str)> = Vec::new();
+        for (line, name) in [
+            (self.home, "home"),
+            (self.low_stop, "low end stop"),
+            (self.high_stop, "high end stop"),
+        ] {
+            if let Some(l) = line {
+                if !out.iter().any(|(o, _)| *o == l) {
+                    out.push((l, name));
+                }
+            }
+        }
+        out
+    }
+
+    /// The switch levels from a reading of each wired line (`closed(line)`).
+    pub fn levels(
+        &self,
+        mut closed: impl FnMut(u32) -> io::Result<bool>,
+    ) -> io::Result<SwitchLevels> {
+        let mut read = |line: Option<u32>| line.map(&mut closed).transpose();
+        Ok(SwitchLevels {
+            home: read(self.home)?.unwrap_or(false),
+            low_stop: read(self.low_stop)?.unwrap_or(false),
+            high_stop: read(self.high_stop)?.unwrap_or(false),
+        })
+    }
+}
+
+/// The direct drive's switches on GPIO input lines of its chip.
+#[cfg(target_os = "linux")]
+pub struct GpioSwitches {
+    request: gpiocdev::Request,
+    lines: SwitchLines,
+}
+
+#[cfg(target_os = "linux")]
+impl GpioSwitches {
+    /// Requests the wired lines of `chip` as inputs. `closed_high`: a
+    /// closed switch reads high (else low: a switch to ground against a
+    /// pull-up; the kernel inverts the level so that *active* is closed).
+    /// `None` when no switch is wired.
+    pub fn open(
+        chip: &str,
+        lines: SwitchLines,
+        closed_high: bool,
+    ) -> io::Result<Option<GpioSwitches>> {
+        let wired = lines.wired();
+        if wired.is_empty() {
+            return Ok(None);
+        }
+        let offsets: Vec<u32> = wired.iter().map(|(l, _)| *l).collect();
+        let what = wired
+            .iter()
+            .map(|(l, n)| format!("{l} ({n})"))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let request = crate::devices::request_gpio_lines(
+            chip,
+            &offsets,
+            "tuneward-switches",
+            &format!("lines {what}"),
+            crate::devices::GpioUse::Input,
+            closed_high,
+        )?;
+        Ok(Some(GpioSwitches { request, lines }))
+    }
+}
+
+#[cfg(target_os = "linux")]
+impl SwitchInputs for GpioSwitches {
+    fn read(&mut self) -> io::Result<SwitchLevels> {
+        let request = &self.request;
+        self.lines
+            .levels(|line| crate::devices::gpio_active(request, line))
     }
 }
 
@@ -1043,6 +1124,38 @@ mod tests {
         assert_eq!(rising(&bench.edges.lock().unwrap()).len(), 41);
         // Downward, away from the high stop, it moves.
         assert_eq!(d.move_to(0, &never).unwrap(), 0);
+    }
+
+    #[test]
+    fn switch_lines_are_requested_once_each_and_read_into_their_switch() {
+        let lines = SwitchLines {
+            home: Some(5),
+            low_stop: Some(5),
+            high_stop: Some(9),
+        };
+        // One switch may serve as home and end stop: one line, asked once.
+        assert_eq!(lines.wired(), vec![(5, "home"), (9, "high end stop")]);
+        assert!(SwitchLines::default().wired().is_empty());
+        let closed = [9u32];
+        let levels = lines.levels(|l| Ok(closed.contains(&l))).unwrap();
+        assert_eq!(
+            levels,
+            SwitchLevels {
+                home: false,
+                low_stop: false,
+                high_stop: true
+            }
+        );
+        let only_home = SwitchLines {
+            home: Some(3),
+            ..SwitchLines::default()
+        };
+        let levels = only_home.levels(|l| Ok(l == 3)).unwrap();
+        assert!(levels.home && !levels.low_stop && !levels.high_stop);
+        // A failed read is the driver's error to report, not "open".
+        assert!(lines
+            .levels(|_| Err(io::Error::other("line gone")))
+            .is_err());
     }
 
     #[test]
