@@ -531,3 +531,63 @@ async fn kill_9_at_100_points_with_and_without_a_home_switch() {
         without.exact, without.unknown
     );
 }
+
+/// Issue 11, "trust nothing unconfirmed", on the real binary: the journal
+/// holds an unfinished move and the controller is found at rest where it
+/// proves nothing. (a) Part way along the move's path, never seen moving
+/// since the link came up (a controller restarted with a count of its own,
+/// or one that lost steps, says just that). (b) At 0, the move's target,
+/// which is also the count a controller board restarts from
+/// (protocols/tuner-line.md). Either way the next start flags the position
+/// unknown: no `GOTO`, no `ZERO`, the journal untouched, the inhibit kept
+/// asserted, and the log says what to do. A rig report arrives meanwhile,
+/// so a move would be wanted if the position were trusted.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_controller_at_rest_where_it_proves_nothing_leaves_the_position_unknown() {
+    for (from, to, found) in [(0, 1500, 986), (1500, 0, 0)] {
+        let dir = tempfile::tempdir().unwrap();
+        let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
+        let ctl = FaultyController::start(found, 1000.0, Fault::None);
+        let config = common::station_config(dir.path(), &rig_link, &ctl.addr, 1000, "");
+        let journal = Journal::new(dir.path().join("motor.state"));
+        journal.record_intent(from, to).unwrap();
+        let recorded = journal.load().unwrap();
+        assert_eq!(recorded, Some(Recorded::Unknown { from, to }));
+        let log = dir.path().join("run.log");
+        let mut service = run(&config, &log);
+        eventually("the position flagged unknown", || {
+            log_text(&log).contains("position unknown")
+        });
+        let dialect = Dialect::builtin("text-semicolon").unwrap();
+        rig.write_all(&dialect.encode_frequency(7_200_000, 0))
+            .await
+            .unwrap();
+        rig.flush().await.unwrap();
+        // Longer than the debounce, the inhibit lead and a move's start.
+        tokio::time::sleep(Duration::from_millis(600)).await;
+        let said = ctl.received();
+        let text = log_text(&log);
+        assert!(
+            !said
+                .iter()
+                .any(|l| l.starts_with("GOTO") || l.starts_with("ZERO")),
+            "{from}->{to}, found {found}: {said:?}\n{text}"
+        );
+        assert_eq!(ctl.position(), found);
+        assert_eq!(journal.load().unwrap(), recorded, "{text}");
+        assert!(!text.contains("position trusted"), "{text}");
+        let inhibit: Vec<&str> = text
+            .lines()
+            .filter(|l| {
+                l.contains("transmit inhibit asserted") || l.contains("transmit inhibit released")
+            })
+            .collect();
+        assert!(
+            inhibit.last().is_some_and(|l| l.contains("asserted")),
+            "{from}->{to}, found {found}: {inhibit:?}"
+        );
+        assert!(text.contains("set-position"), "{text}");
+        service.signal(libc::SIGTERM);
+        service.wait_exit(Duration::from_secs(20));
+    }
+}

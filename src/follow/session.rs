@@ -1454,7 +1454,13 @@ impl Session {
             self.accept(now, steps);
             return;
         };
-        if r.leg_targets().contains(&steps) {
+        // A count a controller has after a restart proves nothing when it
+        // happens to be a leg target too (a move to the lower limit, and a
+        // board that restarted mid-move counting from 0): trusted only when
+        // the controller was seen moving to it since the link came up.
+        let power_on = self.st.settings.restart_counts.contains(&steps)
+            && self.st.resync_moving_to != Some(steps);
+        if r.leg_targets().contains(&steps) && !power_on {
             self.st.note(Note::Trusted {
                 steps,
                 why: "the controller reports a target of the unfinished move's legs",

@@ -963,6 +963,38 @@ fn at_start_a_point_on_the_legs_path_found_already_at_rest_is_unknown() {
     assert_eq!(b.journal, Some(first));
 }
 
+/// A move to the lower limit (0) was under way when everything stopped. A
+/// controller board restarted mid-move also says 0 (protocols/tuner-line.md:
+/// it counts from 0 after power-on), so a 0 found at rest is no proof the
+/// motor arrived: unknown, nothing zeroed or moved. Seen moving to 0 since
+/// the link came up and then at rest there, it is.
+#[test]
+fn at_start_a_leg_target_that_is_also_a_power_on_count_is_no_proof() {
+    let to_zero = Recorded::Approach {
+        from: 2000,
+        via: 0,
+        to: 60,
+        final_leg: false,
+    };
+    let mut b = approach_bench(Some(to_zero), 60, 0);
+    b.frequency(7_200_000);
+    b.wait(ms(400));
+    assert_eq!(b.s.core().position(), None);
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.journal, Some(to_zero));
+    assert_eq!(b.levels, vec![true]);
+    // A leg target that no controller restarts from is trusted as before.
+    let b = approach_bench(Some(to_zero), 60, 60);
+    assert_eq!(b.s.core().position(), Some(60));
+    // Seen on its way to 0 after link-up, then at rest there: arrived.
+    let mut b = Bench::new(Some(to_zero), 60, false);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::Accepted { target: 0 });
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
+    assert_eq!(b.s.core().position(), Some(0));
+}
+
 #[test]
 fn at_start_a_position_off_every_legs_path_is_unknown_and_never_zeroed() {
     // The final leg (940 -> 1000) was under way: the move's start (2000)
