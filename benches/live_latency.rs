@@ -152,6 +152,7 @@ async fn start(journal: bool) -> Live {
         home: None,
         candidates: None,
         swr_watch: None,
+        signal_meter: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     // Let the start-up WHERE be answered and the inhibit released.

@@ -362,9 +362,19 @@ impl Effects for Sink<'_, '_> {
         hz: u64,
         steps: i64,
         profile: Option<String>,
+        _fit: Option<crate::calibrate::resonance::ResonanceFit>,
     ) -> std::io::Result<()> {
         self.replay
             .timeline
             .entry(now, &Entry::Candidate { hz, steps, profile })
+    }
+
+    /// A replay carries no operator commands, so no search runs in one.
+    fn peak(
+        &mut self,
+        _now: Duration,
+        _news: crate::follow::effects::PeakNews,
+    ) -> std::io::Result<()> {
+        Ok(())
     }
 }

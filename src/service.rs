@@ -100,6 +100,16 @@ pub struct ServiceParts {
     pub candidates: Option<PathBuf>,
     /// `[swr_watch]`: the SWR meter read during transmissions.
     pub swr_watch: Option<SwrWatchParts>,
+    /// The signal-meter read, for the noise-peak search: where the rig is
+    /// polled and its dialect has one.
+    pub signal_meter: Option<MeterReadParts>,
+}
+
+/// A meter the rig's poll can carry: the dialect's read and scale.
+#[derive(Debug, Clone)]
+pub struct MeterReadParts {
+    pub scale: crate::rig::meter::MeterScale,
+    pub read: Vec<u8>,
 }
 
 /// What the SWR watch needs: its settings, the dialect's SWR scale and the
@@ -305,7 +315,7 @@ pub async fn run_with_operator(
     if let RigSource::Link(cfg) = &mut rig {
         cfg.split = Some(split_rx);
     }
-    if service.swr_watch.is_some() {
+    if service.swr_watch.is_some() || service.signal_meter.is_some() {
         match &mut rig {
             RigSource::Link(cfg) => cfg.meters = Some(meters_rx),
             RigSource::Proxy { config, .. } => config.meters = Some(meters_rx),
@@ -347,6 +357,13 @@ pub async fn run_with_operator(
             );
             session = session.with_swr_watch(w.settings, w.scale);
             w.read
+        }
+        None => Vec::new(),
+    };
+    let signal_read = match service.signal_meter {
+        Some(m) => {
+            session = session.with_signal_meter(m.scale);
+            m.read
         }
         None => Vec::new(),
     };
@@ -433,17 +450,21 @@ pub async fn run_with_operator(
         let split = session.poll_other_vfo();
         split_tx.send_if_modified(|s| std::mem::replace(s, split) != split);
         // Told only on a change (this runs after every event): no copy of
-        // the read unless the poll is to start carrying it.
-        let read_swr = session.poll_swr_meter() && !swr_read.is_empty();
+        // a read unless the poll is to start carrying it. The SWR read
+        // while transmitting, the signal read while a search waits for
+        // one (never both: a search needs the rig receiving).
+        let read: &[u8] = if session.poll_swr_meter() {
+            &swr_read
+        } else if session.poll_signal_meter() {
+            &signal_read
+        } else {
+            &[]
+        };
         meters_tx.send_if_modified(|m| {
-            if read_swr != m.is_empty() {
+            if m.as_slice() == read {
                 return false;
             }
-            *m = if read_swr {
-                swr_read.clone()
-            } else {
-                Vec::new()
-            };
+            *m = read.to_vec();
             true
         });
     }
@@ -591,11 +612,22 @@ impl Io {
                 Output::Transmit { on } => {
                     self.transmit.send_replace(on);
                 }
-                Output::Candidate { hz, steps, profile } => {
+                Output::Candidate {
+                    hz,
+                    steps,
+                    profile,
+                    fit,
+                } => {
                     if let Some(path) = &self.candidates {
                         let point =
                             Point::new(hz as f64, steps as f64).with_profile(profile.as_deref());
-                        match append_candidate(path, &point) {
+                        let note = fit.map(|f| {
+                            format!(
+                                "noise peak: half-width {:.1} steps, {:.1} dB over the floor, fit residual {:.2} dB over {} points",
+                                f.half_width_steps, f.rise_db, f.rms_residual_db, f.points
+                            )
+                        });
+                        match append_candidate(path, &point, note.as_deref()) {
                             Ok(()) => tracing::info!(
                                 file = %path.display(),
                                 "candidate stored; review it with `tuneward fit`"
@@ -720,6 +752,8 @@ fn decision_words(note: &Note, at: &Where) -> Option<String> {
         Note::SwrDrift {
             seen, predicted, ..
         } => format!("the loop reads SWR {seen:.2} where it should read {predicted:.2}: re-peak?"),
+        Note::PeakStarted { hz, .. } => format!("noise-peak search at {}", at.words(*hz)),
+        Note::PeakEnded { words, .. } => words.clone(),
         _ => return None,
     })
 }
@@ -758,6 +792,20 @@ fn log(note: Note, at: &Where) {
             "position unknown: homing toward the home switch, the transmit inhibit held"
         ),
         Note::Homed { steps } => info!(steps, "homed: the controller found the home switch; position confirmed"),
+        Note::PeakStarted {
+            hz,
+            low,
+            high,
+            positions,
+        } => info!(
+            hz,
+            low,
+            high,
+            positions,
+            "noise-peak search: reading the signal meter across the window, the transmit inhibit held"
+        ),
+        Note::PeakEnded { words, found: true } => info!("noise-peak search: {words}"),
+        Note::PeakEnded { words, found: false } => warn!("noise-peak search: {words}"),
         Note::HomeGivenUp { why } => error!(
             %why,
             "homing given up: position unknown; nothing will move. Run `tuneward set-position STEPS`, then restart"

@@ -225,12 +225,19 @@ fn candidates_are_shown_marked_and_accepted_atomically() {
     let before = read_points_csv(&points).unwrap();
     let cands = candidates_path(&points);
     assert_eq!(cands, dir.path().join("loop.candidates.csv"));
-    append_candidate(&cands, &Point::new(7_150_000.0, 7296.0)).unwrap();
+    append_candidate(&cands, &Point::new(7_150_000.0, 7296.0), None).unwrap();
+    // A noise-peak candidate says how it was found, on a comment line.
     append_candidate(
         &cands,
         &Point::new(7_150_000.0, 7282.0).with_profile(Some("wet")),
+        Some("noise peak: half-width 3.1 steps\nhidden"),
     )
     .unwrap();
+    let text = std::fs::read_to_string(&cands).unwrap();
+    assert!(
+        text.contains("# noise peak: half-width 3.1 steps hidden\n7150000,7282,wet\n"),
+        "{text}"
+    );
 
     let o = run(&[points.to_str().unwrap()]);
     let out = stdout(&o);
@@ -269,7 +276,12 @@ fn accept_adds_a_profile_column_when_needed() {
     let points = dir.path().join("p.csv");
     std::fs::write(&points, "hz,steps\n7000000,4000\n7300000,3600\n").unwrap();
     let cands = candidates_path(&points);
-    append_candidate(&cands, &Point::new(7.1e6, 3800.0).with_profile(Some("wet"))).unwrap();
+    append_candidate(
+        &cands,
+        &Point::new(7.1e6, 3800.0).with_profile(Some("wet")),
+        None,
+    )
+    .unwrap();
     tuneward::calibrate::accept_candidates(&points).unwrap();
     let text = std::fs::read_to_string(&points).unwrap();
     assert_eq!(

@@ -97,6 +97,7 @@ async fn start_with(policy: Policy, sense: Option<ScriptedSense>) -> Running {
         home: None,
         candidates: None,
         swr_watch: None,
+        signal_meter: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     Running {

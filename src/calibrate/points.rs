@@ -245,9 +245,15 @@ fn check_point(p: &Point, path: &Path) -> Result<(), CalibrationError> {
 }
 
 /// Appends one candidate point to a candidates file (created with a header
-/// if missing). The line is written with one `write` on an append-mode file
-/// and synced, so a crash leaves either the whole line or none of it.
-pub fn append_candidate(path: &Path, point: &Point) -> Result<(), CalibrationError> {
+/// if missing), after a `# ` comment line saying how it was found, if
+/// `note` is given (a comment, so the file stays a point file). The lines
+/// are written with one `write` on an append-mode file and synced, so a
+/// crash leaves either all of them or none.
+pub fn append_candidate(
+    path: &Path,
+    point: &Point,
+    note: Option<&str>,
+) -> Result<(), CalibrationError> {
     check_point(point, path)?;
     let werr = |source| CalibrationError::Write {
         path: path.to_path_buf(),
@@ -262,6 +268,14 @@ pub fn append_candidate(path: &Path, point: &Point) -> Result<(), CalibrationErr
     let mut text = String::new();
     if empty {
         text.push_str("hz,steps,profile\n");
+    }
+    if let Some(note) = note {
+        // One line, printable: a comment cannot end early or hide a point.
+        let clean: String = note
+            .chars()
+            .map(|c| if c.is_control() { ' ' } else { c })
+            .collect();
+        text.push_str(&format!("# {clean}\n"));
     }
     text.push_str(&candidate_line(point));
     file.write_all(text.as_bytes()).map_err(werr)?;

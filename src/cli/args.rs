@@ -299,6 +299,14 @@ pub enum CtlCommand {
     /// The loop is resonant now: store the rig's frequency at this position
     /// as a calibration point candidate (review with `tuneward fit`).
     Mark,
+    /// Find resonance here, without transmitting: step the capacitor
+    /// through a window around the calibration's prediction, read the
+    /// rig's signal meter (the band noise peaks at resonance), move to the
+    /// fitted peak and store it as a candidate. `--stop` ends a search.
+    Peak {
+        #[arg(long)]
+        stop: bool,
+    },
     /// Read the calibration again (after `fit --accept`).
     Reload,
 }
@@ -316,6 +324,8 @@ impl CtlCommand {
             CtlCommand::Preset { name } => Request::Preset { name: name.clone() },
             CtlCommand::Profile { name } => Request::Profile { name: name.clone() },
             CtlCommand::Mark => Request::Mark,
+            CtlCommand::Peak { stop: false } => Request::Peak,
+            CtlCommand::Peak { stop: true } => Request::PeakStop,
             CtlCommand::Reload => Request::Reload,
         }
     }

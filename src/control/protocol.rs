@@ -33,6 +33,10 @@ pub enum Request {
         name: String,
     },
     Mark,
+    /// "Find resonance here": a noise-peak search at the receive frequency.
+    Peak,
+    /// Stop the search under way.
+    PeakStop,
     Reload,
 }
 
@@ -56,6 +60,8 @@ pub enum CoreAsk {
     Preset { name: String },
     Profile { name: String },
     Mark,
+    Peak,
+    PeakStop,
 }
 
 impl CoreAsk {
@@ -69,6 +75,8 @@ impl CoreAsk {
             CoreAsk::Preset { name } => Command::Preset { name },
             CoreAsk::Profile { name } => Command::Profile { name },
             CoreAsk::Mark => Command::Mark,
+            CoreAsk::Peak => Command::Peak,
+            CoreAsk::PeakStop => Command::PeakStop,
         }
     }
 }
@@ -88,6 +96,8 @@ impl Request {
             Request::Preset { name } => CoreAsk::Preset { name: name.clone() },
             Request::Profile { name } => CoreAsk::Profile { name: name.clone() },
             Request::Mark => CoreAsk::Mark,
+            Request::Peak => CoreAsk::Peak,
+            Request::PeakStop => CoreAsk::PeakStop,
         };
         Some(Ask::Command(c))
     }
@@ -113,7 +123,7 @@ pub fn parse_request(line: &str) -> Result<Request, Located> {
         ));
     }
     let shown: String = line.chars().take(80).collect();
-    let expected = "a request such as {\"do\":\"nudge\",\"steps\":20} (do: status, watch, pause, resume, nudge, goto, preset, profile, mark, reload)";
+    let expected = "a request such as {\"do\":\"nudge\",\"steps\":20} (do: status, watch, pause, resume, nudge, goto, preset, profile, mark, peak, peak-stop, reload)";
     let value: serde_json::Value =
         serde_json::from_str(line).map_err(|e| bad_request(expected, format!("`{shown}`: {e}")))?;
     let request: Request = serde_json::from_value(value.clone())
@@ -276,6 +286,12 @@ pub struct StateView {
     pub swr_read: Option<Ratio>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub swr_alarm: Option<Ratio>,
+    /// The receive frequency a noise-peak search is under way at.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub peak_hz: Option<u64>,
+    /// How the last noise-peak search ended, in words.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub last_peak: Option<String>,
     /// The last few decisions, in words, oldest first (set by the driver).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub recent: Vec<String>,
@@ -398,6 +414,8 @@ impl StateView {
             swr: s.swr.as_ref().map(SwrView::from_curve),
             swr_read: s.swr_read.map(Ratio::of),
             swr_alarm: s.swr_alarm.map(Ratio::of),
+            peak_hz: s.peak_hz,
+            last_peak: s.last_peak.clone(),
             recent: Vec::new(),
         }
     }

@@ -92,6 +92,11 @@ pub enum Command {
     /// "The loop is resonant at the rig's current frequency, at the current
     /// position": a calibration point candidate.
     Mark,
+    /// "Find resonance here": a noise-peak search at the rig's receive
+    /// frequency (see [`super::peak`]), the rig receiving.
+    Peak,
+    /// Stop the noise-peak search under way (it returns to where it began).
+    PeakStop,
     /// The calibration file read again (by the driver); an `Err` says why
     /// it could not be.
     Reload {
@@ -111,6 +116,8 @@ impl Command {
             Command::Preset { .. } => "preset",
             Command::Profile { .. } => "profile",
             Command::Mark => "mark",
+            Command::Peak => "peak",
+            Command::PeakStop => "peak-stop",
             Command::Reload { .. } => "reload",
         }
     }
@@ -179,6 +186,12 @@ pub enum Refusal {
     Reload {
         error: String,
     },
+    /// A noise-peak search is under way: it has the motor until it ends.
+    Searching,
+    /// A noise-peak search cannot run now, for this reason.
+    CannotPeak {
+        why: String,
+    },
 }
 
 impl Refusal {
@@ -196,6 +209,8 @@ impl Refusal {
             Refusal::Moving => "moving",
             Refusal::ShuttingDown => "shutting-down",
             Refusal::Reload { .. } => "reload-failed",
+            Refusal::Searching => "searching",
+            Refusal::CannotPeak { .. } => "cannot-peak",
         }
     }
 }
@@ -242,6 +257,10 @@ impl fmt::Display for Refusal {
                     "the calibration could not be read again ({error}); the old one stays"
                 )
             }
+            Refusal::Searching => f.write_str(
+                "a noise-peak search is under way; stop it first (peak-stop) or let it end",
+            ),
+            Refusal::CannotPeak { why } => write!(f, "no noise-peak search now: {why}"),
         }
     }
 }
@@ -299,4 +318,8 @@ pub struct Status {
     pub swr_read: Option<f64>,
     /// The SWR of the current (or last) over's alarm, if it raised one.
     pub swr_alarm: Option<f64>,
+    /// The receive frequency a noise-peak search is under way at.
+    pub peak_hz: Option<u64>,
+    /// How the last noise-peak search ended, in words.
+    pub last_peak: Option<String>,
 }

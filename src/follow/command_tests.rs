@@ -58,6 +58,8 @@ struct Run {
     seen: Vec<Action>,
     inhibit: bool,
     transmitting: bool,
+    /// A `Goto` was sent and its arrival not yet reported.
+    moving: bool,
 }
 
 impl Run {
@@ -69,6 +71,7 @@ impl Run {
             seen: Vec::new(),
             inhibit,
             transmitting: false,
+            moving: false,
         }
     }
 
@@ -78,8 +81,12 @@ impl Run {
         let mut new = Vec::new();
         while let Some(a) = self.f.poll_action() {
             match a {
-                Action::Inhibit { on } => self.inhibit = on,
+                Action::Inhibit { on } => {
+                    assert!(on || !self.moving, "inhibit released during a move");
+                    self.inhibit = on;
+                }
                 Action::Goto { steps } => {
+                    self.moving = true;
                     assert!((0..=12_000).contains(&steps), "GOTO {steps} beyond limits");
                     assert!(!self.transmitting, "GOTO {steps} while transmitting");
                     assert!(self.inhibit, "GOTO {steps} without the inhibit");
@@ -116,6 +123,7 @@ impl Run {
     }
 
     fn arrive(&mut self, t: u64, steps: i64) -> Vec<Action> {
+        self.moving = false;
         self.f.handle_arrived(ms(t), steps);
         self.take()
     }
@@ -415,7 +423,8 @@ fn mark_offers_the_rigs_frequency_at_the_position_with_the_profile() {
     assert!(a.contains(&Action::Candidate {
         hz: 7_050_000,
         steps: 9_540,
-        profile: Some("wet".into())
+        profile: Some("wet".into()),
+        fit: None
     }));
 }
 
@@ -463,6 +472,38 @@ fn reload_retunes_through_the_new_file_or_keeps_the_old() {
         matches!(reply, Reply::Refused(Refusal::Reload { .. })),
         "{reply:?}"
     );
+}
+
+/// A reload while the motor is on its way to a target of the old
+/// calibration: once at rest, the settled frequency is decided again
+/// through the new one (before, the loop counted as tuned for it at the
+/// old calibration's position).
+#[test]
+fn a_reload_during_a_move_retunes_through_the_new_file_at_rest() {
+    let mut r = Run::new(Some(9_500));
+    r.settle_and_arrive(0, 7_050_000);
+    let (reply, a) = r.cmd(2_000, Command::Goto { steps: 9_800 });
+    assert_eq!(reply, Reply::Done);
+    r.tick(2_020);
+    let mut fresh = calibrations();
+    fresh.base = Some(Arc::new(Shifted(-25.0)));
+    let (reply, during) = r.cmd(
+        2_030,
+        Command::Reload {
+            calibrations: Ok(fresh),
+        },
+    );
+    assert_eq!(reply, Reply::Done);
+    assert!(gotos(&during).is_empty(), "{a:?} {during:?}");
+    let a = r.arrive(2_100, 9_800);
+    assert_eq!(moves(&a), vec![(9_800, 9_475)], "{:?}", r.seen);
+    // The approach from below: over 9 445, then up to 9 475.
+    assert_eq!(gotos(&a), vec![9_445]);
+    r.arrive(2_200, 9_445);
+    let a = r.arrive(2_300, 9_475);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    r.tick(2_500);
+    assert!(!r.inhibit);
 }
 
 #[test]

@@ -5,7 +5,9 @@
 
 use std::time::Duration;
 
+use super::peak::PeakOutcome;
 use super::{Action, HoldReason};
+use crate::calibrate::resonance::ResonanceFit;
 
 /// What a driver does with each kind of action. `Error` is what carrying
 /// one out can fail with (a timeline that cannot be written, say).
@@ -30,14 +32,29 @@ pub trait Effects {
     fn goto(&mut self, now: Duration, steps: i64) -> Result<(), Self::Error>;
     /// Stop the motor where it is.
     fn stop(&mut self, now: Duration) -> Result<(), Self::Error>;
-    /// A candidate calibration point.
+    /// A candidate calibration point (`fit`: from a noise-peak search).
     fn candidate(
         &mut self,
         now: Duration,
         hz: u64,
         steps: i64,
         profile: Option<String>,
+        fit: Option<ResonanceFit>,
     ) -> Result<(), Self::Error>;
+    /// A noise-peak search began or ended (for the log and the state).
+    fn peak(&mut self, now: Duration, news: PeakNews) -> Result<(), Self::Error>;
+}
+
+/// What became of a noise-peak search.
+#[derive(Debug, Clone, PartialEq)]
+pub enum PeakNews {
+    Started {
+        hz: u64,
+        low: i64,
+        high: i64,
+        positions: usize,
+    },
+    Ended(PeakOutcome),
 }
 
 /// Carries out one action on `fx`.
@@ -58,6 +75,26 @@ pub fn apply<E: Effects + ?Sized>(
         } => fx.begin_move(now, from, to, hz, tune_hz),
         Action::Goto { steps } => fx.goto(now, steps),
         Action::Stop => fx.stop(now),
-        Action::Candidate { hz, steps, profile } => fx.candidate(now, hz, steps, profile),
+        Action::Candidate {
+            hz,
+            steps,
+            profile,
+            fit,
+        } => fx.candidate(now, hz, steps, profile, fit),
+        Action::PeakStarted {
+            hz,
+            low,
+            high,
+            positions,
+        } => fx.peak(
+            now,
+            PeakNews::Started {
+                hz,
+                low,
+                high,
+                positions,
+            },
+        ),
+        Action::PeakEnded { outcome } => fx.peak(now, PeakNews::Ended(outcome)),
     }
 }

@@ -159,13 +159,48 @@ pub enum Action {
     Goto { steps: i64 },
     /// Command the controller to stop where it is.
     Stop,
-    /// The operator touched the tuning up by hand at `hz` and stayed: a
-    /// candidate calibration point.
+    /// The operator touched the tuning up by hand at `hz` and stayed, or a
+    /// noise-peak search found a clear peak there (`fit`: the fitted
+    /// resonance curve): a candidate calibration point.
     Candidate {
         hz: u64,
         steps: i64,
         profile: Option<String>,
+        fit: Option<crate::calibrate::resonance::ResonanceFit>,
     },
+    /// A noise-peak search began at `hz`, reading `positions` positions
+    /// from `low` to `high` steps (its first pass).
+    PeakStarted {
+        hz: u64,
+        low: i64,
+        high: i64,
+        positions: usize,
+    },
+    /// A noise-peak search ended (the candidate, if any, came first).
+    PeakEnded { outcome: peak::PeakOutcome },
+}
+
+/// A noise-peak search under way: the core hands its moves to the same
+/// `try_start` as every other and its meter reads to the driver.
+#[derive(Debug)]
+struct PeakRun {
+    search: peak::PeakSearch,
+    /// The receive frequency it is for.
+    hz: u64,
+    /// The profile its candidate is for.
+    profile: Option<String>,
+    /// What the loop was tuned for when it began (it returns there).
+    tuned_before: Option<u64>,
+    waiting: PeakWait,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum PeakWait {
+    /// A move it asked for.
+    Arrival,
+    /// A meter reading; `fresh`: the first after an arrival was dropped
+    /// (a read the poll sent before the motor came to rest).
+    Meter { fresh: bool },
 }
 
 /// A target the core wants to reach.
@@ -281,8 +316,16 @@ pub struct Follower {
     stats: Stats,
     presets: Vec<Preset>,
     calibrations: Calibrations,
-    /// The loop's physics (`[antenna]`), for the status's SWR estimate.
+    /// The loop's physics (`[antenna]`), for the status's SWR estimate
+    /// and the noise-peak search's window.
     small_loop: Option<SmallLoop>,
+    /// A noise-peak search under way.
+    peak: Option<PeakRun>,
+    /// The calibration changed while the motor moved for a target of the
+    /// old one: decide the settled frequency again once at rest.
+    recheck: bool,
+    /// How the last one ended, in words (for the status).
+    last_peak: Option<String>,
 }
 
 /// How many samples the status's SWR curve has (odd: one at resonance).
@@ -352,6 +395,9 @@ impl Follower {
             presets: Vec::new(),
             calibrations: Calibrations::default(),
             small_loop: None,
+            peak: None,
+            last_peak: None,
+            recheck: false,
         };
         if position.is_none() {
             f.set_inhibit(true);
@@ -417,6 +463,14 @@ impl Follower {
         let changed = self.station.apply(now, ev);
         if changed.transmit {
             self.transmit_changed(now);
+        }
+        if let Some(hz) = self.station.receive_hz() {
+            if let Some(run) = self.peak.as_mut() {
+                if hz != run.hz {
+                    let req = run.search.frequency(hz);
+                    self.peak_step(now, req);
+                }
+            }
         }
         let about_transmit = matches!(
             ev,
@@ -566,6 +620,7 @@ impl Follower {
     }
 
     fn transmit_changed(&mut self, now: Duration) {
+        self.peak_abort_unless_receiving(now);
         match self.station.transmit().state {
             TransmitState::Transmit => self.stand_down(HoldReason::Transmitting),
             TransmitState::Receive => self.try_start(now),
@@ -614,6 +669,12 @@ impl Follower {
             self.try_start(now);
         } else {
             self.stand_down(HoldReason::RigSilent);
+            // A transmission could start unheard: the readings are no
+            // longer the band's noise for sure.
+            if let Some(run) = self.peak.as_mut() {
+                let req = run.search.fault("the rig's port went down");
+                self.peak_step(now, req);
+            }
         }
         self.handle_timeout(now);
     }
@@ -654,7 +715,29 @@ impl Follower {
                         t.due = Some(now + self.policy.candidate_dwell);
                     }
                 }
-                self.after_rest(now);
+                if std::mem::take(&mut self.recheck) && self.want.is_none() {
+                    self.tuned_hz = None;
+                    if let Some(hz) = self.settled_hz {
+                        self.decide(now, hz);
+                    }
+                }
+                // A search's move came to rest where it asked (not stopped
+                // short: a stopped move is wanted again).
+                if self.want.is_none() {
+                    if let Some(run) = self
+                        .peak
+                        .as_mut()
+                        .filter(|r| r.waiting == PeakWait::Arrival)
+                    {
+                        let req = run.search.arrived(steps);
+                        self.peak_step(now, req);
+                    }
+                }
+                // Unless one of those started the next move: its tail
+                // comes after it.
+                if !self.is_moving() {
+                    self.after_rest(now);
+                }
             }
             Motion::Idle | Motion::Arming { .. } => {
                 if was_unknown || self.fault {
@@ -685,6 +768,18 @@ impl Follower {
     /// longer be trusted. Nothing moves and the inhibit stays asserted until
     /// a position is reported again.
     pub fn handle_fault(&mut self, now: Duration) {
+        // A search cannot go on, nor return, without a position: it ends
+        // here, and the recovery decides the settled frequency again.
+        if let Some(run) = self.peak.take() {
+            if self.want.is_some_and(|t| t.manual) {
+                self.want = None;
+            }
+            let outcome = peak::PeakOutcome::Aborted(peak::AbortReason::Fault(
+                "the controller link".to_string(),
+            ));
+            drop(run);
+            self.peak_ended(outcome);
+        }
         if let Motion::Moving { target, .. } = self.motion {
             self.faulted = match self.faulted {
                 Some((steps, n)) if steps == target.steps => Some((steps, n + 1)),
@@ -726,10 +821,17 @@ impl Follower {
         profile: Option<String>,
         map: Arc<dyn StepMap>,
     ) {
+        if let Some(run) = self.peak.as_mut() {
+            let req = run.search.stop();
+            self.peak_step(now, req);
+        }
         self.map = map;
         self.profile = profile;
         self.tuned_hz = None;
         self.last_hold = None;
+        // A move under way went for the old calibration's target: what the
+        // loop is tuned for is decided again when it has come to rest.
+        self.recheck = self.is_moving();
         if let Some(hz) = self.settled_hz {
             self.decide(now, hz);
         }
@@ -767,6 +869,11 @@ impl Follower {
     /// move starts any more (one still waiting for receive is dropped).
     pub fn handle_closing(&mut self, now: Duration) {
         self.closing = true;
+        if self.peak.take().is_some() {
+            self.peak_ended(peak::PeakOutcome::Aborted(peak::AbortReason::Fault(
+                "the service is shutting down".to_string(),
+            )));
+        }
         if self.want.is_some_and(|t| t.manual) {
             self.want = None;
         }
@@ -779,6 +886,15 @@ impl Follower {
     pub fn handle_command(&mut self, now: Duration, cmd: Command) -> Reply {
         let reply = match cmd {
             Command::Status => return Reply::Status(Box::new(self.status())),
+            Command::Nudge { .. }
+            | Command::Goto { .. }
+            | Command::Preset { .. }
+            | Command::Profile { .. }
+            | Command::Mark
+                if self.peak.is_some() =>
+            {
+                Reply::Refused(Refusal::Searching)
+            }
             Command::Pause => {
                 self.handle_pause(now, true);
                 Reply::Done
@@ -816,6 +932,17 @@ impl Follower {
                     }
                 }
             }
+            Command::Peak => self.start_peak(now),
+            Command::PeakStop => match self.peak.as_mut() {
+                None => Reply::Refused(Refusal::CannotPeak {
+                    why: "no search is under way".to_string(),
+                }),
+                Some(run) => {
+                    let req = run.search.stop();
+                    self.peak_step(now, req);
+                    Reply::Done
+                }
+            },
             Command::Mark => self.mark(),
             Command::Reload { calibrations } => match calibrations {
                 Err(error) => Reply::Refused(Refusal::Reload {
@@ -947,6 +1074,7 @@ impl Follower {
             hz,
             steps,
             profile: self.profile.clone(),
+            fit: None,
         });
         Reply::Done
     }
@@ -1014,6 +1142,8 @@ impl Follower {
             shutting_down: self.closing,
             swr_read: None,
             swr_alarm: None,
+            peak_hz: self.peak.as_ref().map(|r| r.hz),
+            last_peak: self.last_peak.clone(),
         }
     }
 
@@ -1086,6 +1216,7 @@ impl Follower {
                         hz: t.hz,
                         steps,
                         profile: self.profile.clone(),
+                        fit: None,
                     });
                 }
             }
@@ -1123,6 +1254,194 @@ impl Follower {
     /// The SWR alarm holds the inhibit.
     pub fn swr_hold(&self) -> bool {
         self.swr_hold
+    }
+
+    // ----- the noise-peak search ------------------------------------------
+
+    /// Whether the driver should read the rig's signal meter now: a search
+    /// waits for a reading, the motor at rest and the rig receiving.
+    pub fn wants_signal_meter(&self) -> bool {
+        self.peak
+            .as_ref()
+            .is_some_and(|r| matches!(r.waiting, PeakWait::Meter { .. }))
+            && matches!(self.motion, Motion::Idle)
+            && self.station.transmit().state == TransmitState::Receive
+            && !self.rig_silent
+    }
+
+    /// A signal-meter reading (dB on the meter's scale, from the dialect's
+    /// scale). Taken only while [`Follower::wants_signal_meter`]; the first
+    /// after each arrival is dropped (the poll may have sent it before the
+    /// motor came to rest).
+    pub fn handle_signal_meter(&mut self, now: Duration, db: f64) {
+        if !self.wants_signal_meter() || !db.is_finite() {
+            return;
+        }
+        let Some(run) = self.peak.as_mut() else {
+            return;
+        };
+        if run.waiting == (PeakWait::Meter { fresh: true }) {
+            run.waiting = PeakWait::Meter { fresh: false };
+            return;
+        }
+        let req = run.search.meter(db);
+        self.peak_step(now, req);
+        self.handle_timeout(now);
+    }
+
+    /// "Find resonance here": the checks, the plan, the first move.
+    fn start_peak(&mut self, now: Duration) -> Reply {
+        let cannot = |why: &str| {
+            Reply::Refused(Refusal::CannotPeak {
+                why: why.to_string(),
+            })
+        };
+        if self.peak.is_some() {
+            return Reply::Refused(Refusal::Searching);
+        }
+        let from = match self.move_base() {
+            Err(r) => return Reply::Refused(r),
+            Ok(b) => b,
+        };
+        if self.is_moving() || self.want.is_some() {
+            return Reply::Refused(Refusal::Moving);
+        }
+        if self.rig_silent || self.station.transmit().state != TransmitState::Receive {
+            return cannot("the rig must be known to receive (the search reads the band's noise)");
+        }
+        let Some(hz) = self.station.receive_hz() else {
+            return Reply::Refused(Refusal::NoFrequency);
+        };
+        if !matches!(self.policy.place(hz), Placement::Inside { .. }) {
+            return Reply::Refused(Refusal::OutOfBand { hz });
+        }
+        let Some(small_loop) = self.small_loop else {
+            return cannot("[antenna] does not describe the loop, so the search has no window");
+        };
+        let predicted = self.map.steps_at(hz as f64);
+        let h = (hz as f64 * 1e-6).max(1.0);
+        let slope =
+            (self.map.steps_at(hz as f64 + h) - self.map.steps_at(hz as f64 - h)) / (2.0 * h);
+        let q = small_loop.at(hz as f64).q_unloaded;
+        if !(predicted.is_finite() && predicted.abs() < 1e15 && slope.is_finite()) {
+            return Reply::Refused(Refusal::Calibration { hz });
+        }
+        let half = peak::predicted_half_width_steps(hz as f64, q, slope);
+        let plan = peak::PeakPlan::standard(
+            hz,
+            self.profile.clone().unwrap_or_default(),
+            from,
+            self.policy.clamp(predicted.round() as i64),
+            half,
+            (self.policy.min_steps, self.policy.max_steps),
+        );
+        let mut search = match peak::PeakSearch::new(plan) {
+            Ok(s) => s,
+            Err(e) => return cannot(&format!("expected {}, found {}", e.expected, e.found)),
+        };
+        let (low, high) = match search.targets() {
+            [first, .., last] => (*first, *last),
+            _ => return cannot("the window has no positions"),
+        };
+        self.actions.push_back(Action::PeakStarted {
+            hz,
+            low,
+            high,
+            positions: search.targets().len(),
+        });
+        self.touchup = None;
+        self.last_hold = None;
+        let req = search.start();
+        self.peak = Some(PeakRun {
+            search,
+            hz,
+            profile: self.profile.clone(),
+            tuned_before: self.tuned_hz,
+            waiting: PeakWait::Arrival,
+        });
+        self.assert_inhibit(now);
+        self.peak_step(now, req);
+        self.pending_reply()
+    }
+
+    /// Carries out what the search asks, until it waits.
+    fn peak_step(&mut self, now: Duration, mut req: peak::PeakRequest) {
+        use peak::PeakRequest;
+        loop {
+            let Some(run) = self.peak.as_mut() else {
+                return;
+            };
+            match req {
+                PeakRequest::Goto { steps } => {
+                    run.waiting = PeakWait::Arrival;
+                    if self.position == Some(steps) && matches!(self.motion, Motion::Idle) {
+                        req = run.search.arrived(steps);
+                        continue;
+                    }
+                    let hz = run.hz;
+                    self.want = Some(Target {
+                        hz,
+                        tune_hz: hz,
+                        steps,
+                        manual: true,
+                        retunes: false,
+                    });
+                    self.try_start(now);
+                    return;
+                }
+                PeakRequest::ReadMeter => {
+                    if !matches!(run.waiting, PeakWait::Meter { .. }) {
+                        run.waiting = PeakWait::Meter { fresh: true };
+                    }
+                    return;
+                }
+                PeakRequest::Wait => return,
+                PeakRequest::Done(outcome) => {
+                    let Some(run) = self.peak.take() else {
+                        return;
+                    };
+                    match &outcome {
+                        peak::PeakOutcome::Candidate(c) => {
+                            // Resonant at the frequency by measurement.
+                            self.tuned_hz = Some(c.hz);
+                            self.untuned = false;
+                            self.actions.push_back(Action::Candidate {
+                                hz: c.hz,
+                                steps: c.steps,
+                                profile: run.profile.clone(),
+                                fit: Some(c.fit),
+                            });
+                        }
+                        _ => self.tuned_hz = run.tuned_before,
+                    }
+                    self.peak_ended(outcome);
+                    if !self.is_moving() {
+                        self.after_rest(now);
+                    }
+                    if let Some(hz) = self.settled_hz {
+                        self.decide(now, hz);
+                    }
+                    return;
+                }
+            }
+        }
+    }
+
+    fn peak_ended(&mut self, outcome: peak::PeakOutcome) {
+        self.last_peak = Some(outcome.to_string());
+        self.actions.push_back(Action::PeakEnded { outcome });
+    }
+
+    /// Anything but "the rig receives" ends a search (it returns to where
+    /// it began once the rig receives again).
+    fn peak_abort_unless_receiving(&mut self, now: Duration) {
+        if self.station.transmit().state == TransmitState::Receive {
+            return;
+        }
+        if let Some(run) = self.peak.as_mut() {
+            let req = run.search.transmit();
+            self.peak_step(now, req);
+        }
     }
 
     // ----- work out -------------------------------------------------------
@@ -1246,6 +1565,10 @@ impl Follower {
     /// [`Self::decide`]; with `after_fault`, a target faulted twice in a row
     /// is held instead (see `faulted`).
     fn decide_after(&mut self, now: Duration, hz: u64, after_fault: bool) {
+        if self.peak.is_some() {
+            // The search has the motor; its end decides this again.
+            return;
+        }
         let (tune_hz, band) = match self.policy.place(hz) {
             Placement::Inside { band } => (hz, band),
             Placement::Guard { band, edge_hz } => (edge_hz, band),
@@ -1420,7 +1743,12 @@ impl Follower {
         // fell silent): the loop is detuned, so with `inhibit_while_detuned`
         // the inhibit stays on until the move is done.
         let stopped_short = self.policy.inhibit_while_detuned && self.want.is_some();
-        if self.inhibit && self.position.is_some() && !self.fault && !stopped_short && !self.untuned
+        if self.inhibit
+            && self.position.is_some()
+            && !self.fault
+            && !stopped_short
+            && !self.untuned
+            && self.peak.is_none()
         {
             self.release_at = Some(now + self.policy.inhibit_tail);
         }
@@ -1483,6 +1811,10 @@ impl Follower {
     }
 
     fn set_inhibit(&mut self, on: bool) {
+        if !on && self.peak.is_some() {
+            // A search holds the inhibit from its first move to its end.
+            return;
+        }
         if self.swr_hold {
             // The alarm's hold decides the line until the over has ended;
             // whatever the core decides meanwhile is given then.
@@ -1498,6 +1830,8 @@ impl Follower {
 
 #[cfg(test)]
 mod jump_tests;
+#[cfg(test)]
+mod peak_tests;
 #[cfg(test)]
 mod test_support;
 #[cfg(test)]

@@ -60,6 +60,47 @@ pub struct PeakPlan {
     pub max_steps: i64,
 }
 
+/// The window and passes of [`PeakPlan::standard`]: four half-widths
+/// either side, 9 positions × 4 reads, then 15 × 20 around the first fit
+/// (measured with `cargo run --release --example noise_peak`,
+/// docs/measurements.md).
+pub const STANDARD_WINDOW_HALF_WIDTHS: f64 = 4.0;
+pub const STANDARD_PASSES: [usize; 4] = [9, 4, 15, 20];
+
+impl PeakPlan {
+    /// The plan an operator's "find resonance here" runs: the standard
+    /// window and passes around the calibration's prediction.
+    pub fn standard(
+        hz: u64,
+        profile: String,
+        start_steps: i64,
+        predicted_steps: i64,
+        half_width_steps: f64,
+        limits: (i64, i64),
+    ) -> PeakPlan {
+        let [points, reads_per_point, fine_points, fine_reads_per_point] = STANDARD_PASSES;
+        PeakPlan {
+            hz,
+            profile,
+            start_steps,
+            predicted_steps,
+            half_width_steps,
+            window_half_widths: STANDARD_WINDOW_HALF_WIDTHS,
+            points,
+            reads_per_point,
+            fine_points,
+            fine_reads_per_point,
+            min_steps: limits.0,
+            max_steps: limits.1,
+        }
+    }
+
+    /// Meter reads the whole search takes at most (both passes).
+    pub fn reads(&self) -> usize {
+        self.points * self.reads_per_point + self.fine_points * self.fine_reads_per_point
+    }
+}
+
 /// The half-width at half power in steps for a loop of unloaded Q `q_u` at
 /// `hz` with the calibration moving `steps_per_hz` steps per Hz: the loaded
 /// half-power points are at `2 Q_L δ = 1`, `Q_L = Q_u/2` for a matched
@@ -102,6 +143,37 @@ pub enum PeakOutcome {
         why: &'static str,
     },
     Aborted(AbortReason),
+}
+
+impl std::fmt::Display for AbortReason {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            AbortReason::Transmit => f.write_str("the rig transmitted (or may have)"),
+            AbortReason::FrequencyChanged { hz } => {
+                write!(f, "the receive frequency changed to {hz} Hz")
+            }
+            AbortReason::Fault(what) => write!(f, "a fault: {what}"),
+            AbortReason::OperatorStop => f.write_str("stopped by the operator"),
+        }
+    }
+}
+
+impl std::fmt::Display for PeakOutcome {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            PeakOutcome::Candidate(c) => write!(
+                f,
+                "peak at {} steps for {} Hz: half-width {:.1} steps, {:.1} dB over the floor, fit residual {:.2} dB over {} points",
+                c.steps, c.hz, c.fit.half_width_steps, c.fit.rise_db, c.fit.rms_residual_db, c.fit.points
+            ),
+            PeakOutcome::NoClearPeak { why, .. } => {
+                write!(f, "no clear peak ({why}); nothing recorded")
+            }
+            PeakOutcome::Aborted(r) => {
+                write!(f, "search stopped ({r}); nothing recorded")
+            }
+        }
+    }
 }
 
 /// What the search asks for next.

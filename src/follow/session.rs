@@ -116,6 +116,8 @@ pub enum Output {
         hz: u64,
         steps: i64,
         profile: Option<String>,
+        /// From a noise-peak search: the fitted resonance curve.
+        fit: Option<crate::calibrate::resonance::ResonanceFit>,
     },
     /// A log line.
     Log(Note),
@@ -220,6 +222,18 @@ pub enum Note {
         hz: u64,
         steps: i64,
         profile: Option<String>,
+    },
+    /// A noise-peak search began at `hz` over `low..=high` steps.
+    PeakStarted {
+        hz: u64,
+        low: i64,
+        high: i64,
+        positions: usize,
+    },
+    /// A noise-peak search ended; `found`: with a candidate.
+    PeakEnded {
+        words: String,
+        found: bool,
     },
     PositionFailed {
         error: IoFailure,
@@ -567,6 +581,9 @@ pub struct Session {
     st: Shell,
     /// The SWR watch (`[swr_watch]`), with the dialect's SWR-meter scale.
     swr: Option<SwrWatching>,
+    /// The dialect's signal-meter scale, where the rig's signal meter can
+    /// be read (for the noise-peak search).
+    signal: Option<crate::rig::meter::MeterScale>,
 }
 
 /// The SWR watch as the session runs it.
@@ -646,7 +663,23 @@ impl Session {
             quiet: super::quiet::RejectWatch::new(),
             st,
             swr: None,
+            signal: None,
         }
+    }
+
+    /// The rig's signal meter can be read (a polled rig whose dialect has
+    /// the read): the driver reads it while [`Session::poll_signal_meter`]
+    /// says so, and the readings (raw, through `scale`) go to the core's
+    /// noise-peak search.
+    pub fn with_signal_meter(mut self, scale: crate::rig::meter::MeterScale) -> Session {
+        self.signal = Some(scale);
+        self
+    }
+
+    /// Whether the rig's signal meter should be read now: a noise-peak
+    /// search waits for a reading.
+    pub fn poll_signal_meter(&self) -> bool {
+        self.signal.is_some() && self.core.wants_signal_meter()
     }
 
     /// Watches the SWR during every transmission (`[swr_watch]`): the
@@ -735,7 +768,15 @@ impl Session {
 
     /// A meter reading from the rig.
     fn meter(&mut self, now: Duration, kind: crate::rig::meter::MeterKind, raw: u16) {
-        if kind != crate::rig::meter::MeterKind::Swr {
+        use crate::rig::meter::MeterKind;
+        if kind == MeterKind::Signal {
+            if let Some(scale) = &self.signal {
+                let db = scale.value(raw);
+                self.core.handle_signal_meter(now, db);
+            }
+            return;
+        }
+        if kind != MeterKind::Swr {
             return;
         }
         let report = match self.swr.as_mut() {
@@ -1946,13 +1987,45 @@ impl Effects for Shell {
         hz: u64,
         steps: i64,
         profile: Option<String>,
+        fit: Option<crate::calibrate::resonance::ResonanceFit>,
     ) -> Result<(), Self::Error> {
         self.note(Note::Candidate {
             hz,
             steps,
             profile: profile.clone(),
         });
-        self.push(Output::Candidate { hz, steps, profile });
+        self.push(Output::Candidate {
+            hz,
+            steps,
+            profile,
+            fit,
+        });
+        Ok(())
+    }
+
+    fn peak(
+        &mut self,
+        _now: Duration,
+        news: crate::follow::effects::PeakNews,
+    ) -> Result<(), Self::Error> {
+        use crate::follow::effects::PeakNews;
+        self.note(match news {
+            PeakNews::Started {
+                hz,
+                low,
+                high,
+                positions,
+            } => Note::PeakStarted {
+                hz,
+                low,
+                high,
+                positions,
+            },
+            PeakNews::Ended(outcome) => Note::PeakEnded {
+                found: matches!(outcome, crate::follow::peak::PeakOutcome::Candidate(_)),
+                words: outcome.to_string(),
+            },
+        });
         Ok(())
     }
 }

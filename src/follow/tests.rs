@@ -407,7 +407,8 @@ fn a_touch_up_that_stays_becomes_a_candidate_point() {
         vec![Action::Candidate {
             hz: 7_050_000,
             steps: 9_512,
-            profile: None
+            profile: None,
+            fit: None
         }]
     );
     // The same frequency reported again does not undo the touch-up.

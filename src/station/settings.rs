@@ -896,8 +896,23 @@ impl ServiceParts {
                 .calibration_file()
                 .map(|points| crate::calibrate::candidates_path(&points)),
             swr_watch: swr_watch_parts(station)?,
+            signal_meter: signal_meter_parts(station),
         })
     }
+}
+
+/// The signal-meter read for the noise-peak search: only where the rig is
+/// polled (listen mode never writes to the port) and its dialect has the
+/// read and its scale.
+pub fn signal_meter_parts(station: &Station) -> Option<crate::service::MeterReadParts> {
+    use crate::rig::meter::MeterKind;
+    let config = &station.config;
+    config.rig.poll_every_ms()?;
+    let address = config.rig.address.unwrap_or(0);
+    Some(crate::service::MeterReadParts {
+        read: station.dialect.meter_read(MeterKind::Signal, address)?,
+        scale: station.dialect.meter_scale(MeterKind::Signal)?.clone(),
+    })
 }
 
 /// `[swr_watch]` for the live service: the watch's settings, the dialect's

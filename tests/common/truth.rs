@@ -41,6 +41,21 @@ pub fn rig_transmits(truth: &Path) -> bool {
 /// Starts the controller at `start` steps moving `speed` steps/s; its
 /// address and its record.
 pub fn controller(start: i64, speed: f64, truth: PathBuf) -> (String, Arc<Mutex<Motor>>) {
+    controller_at(start, speed, truth, None)
+}
+
+/// [`controller`], also writing where the capacitor is (at rest, or on
+/// its way) to `position` as `sim-tuner --position-file` does, for
+/// `sim-rig --tuner-position` to read its simulated loop there.
+pub fn controller_at(
+    start: i64,
+    speed: f64,
+    truth: PathBuf,
+    position: Option<PathBuf>,
+) -> (String, Arc<Mutex<Motor>>) {
+    if let Some(p) = &position {
+        write_position(p, start as f64);
+    }
     let listener = TcpListener::bind("127.0.0.1:0").unwrap();
     let addr = listener.local_addr().unwrap().to_string();
     let motor = Arc::new(Mutex::new(Motor {
@@ -51,20 +66,45 @@ pub fn controller(start: i64, speed: f64, truth: PathBuf) -> (String, Arc<Mutex<
     std::thread::spawn(move || {
         for conn in listener.incoming() {
             let Ok(conn) = conn else { return };
-            serve(conn, speed, &m, &truth);
+            serve(conn, speed, &m, &truth, position.as_deref());
         }
     });
     (addr, motor)
 }
 
-fn serve(conn: TcpStream, speed: f64, motor: &Mutex<Motor>, truth: &Path) {
+/// Writes `steps` to `path` whole (a temporary file renamed over it), so a
+/// reader never sees half a number.
+fn write_position(path: &Path, steps: f64) {
+    let tmp = path.with_extension("tmp");
+    std::fs::write(&tmp, format!("{steps}\n")).unwrap();
+    std::fs::rename(&tmp, path).unwrap();
+}
+
+fn serve(conn: TcpStream, speed: f64, motor: &Mutex<Motor>, truth: &Path, position: Option<&Path>) {
     conn.set_read_timeout(Some(Duration::from_millis(2)))
         .unwrap();
     let mut out = conn.try_clone().unwrap();
     let mut reader = BufReader::new(conn);
     let mut line = String::new();
     let mut run: Option<(i64, i64, Instant)> = None;
+    let mut written = f64::NAN;
     loop {
+        if let Some(p) = position {
+            let m = motor.lock().unwrap();
+            let now = match run {
+                Some((from, to, _)) if from == to => to as f64,
+                Some((from, to, since)) => {
+                    let gone = since.elapsed().as_secs_f64() * speed;
+                    from as f64 + (to - from) as f64 * (gone / from.abs_diff(to) as f64).min(1.0)
+                }
+                None => m.at as f64,
+            };
+            drop(m);
+            if now.round() != written {
+                written = now.round();
+                write_position(p, written);
+            }
+        }
         if let Some((from, to, since)) = run {
             let done = from.abs_diff(to) as f64 / speed;
             let mut m = motor.lock().unwrap();
