@@ -130,7 +130,8 @@ pub enum RigEvent {
     },
     /// The frequency of the VFO in use, whichever it is: for a family that
     /// names VFOs as selected/unselected rather than A/B (binary `0x25 00`
-    /// answers, and `0x05`/`0x00`/`0x25 00` sets going to the rig).
+    /// answers, and `0x05`/`0x00`/`0x25 00` sets going to the rig), or
+    /// names none (the block family's set going to the rig).
     SelectedFrequency { hz: u64, seen: Seen },
     /// The frequency of the VFO not in use (binary `0x25 01`).
     UnselectedFrequency { hz: u64, seen: Seen },

@@ -4,6 +4,7 @@ use std::path::Path;
 
 use super::super::keys::{DialectError, Reader};
 use super::super::meter::{MeterKind, MeterScale};
+use super::super::{plausible, RejectReason, RigEvent};
 
 /// Digit order of the frequency answer's packed BCD.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -42,7 +43,10 @@ pub struct BlockSpec {
     /// `true`: transmitting when the masked bits are set; `false`: when
     /// they are clear.
     pub transmit_active_high: bool,
-    /// Opcode setting the frequency (parameters: the BCD field).
+    /// Opcode setting the frequency of the VFO in use (parameters: the
+    /// frequency read's BCD field, in its digit order and unit; never
+    /// polled). Seen from another program, the station decoder reports it
+    /// as that VFO's frequency ([`BlockSpec::read_set`]).
     pub set_frequency: u8,
     /// Opcodes keying and unkeying the transmitter.
     pub transmit_on: u8,
@@ -53,9 +57,9 @@ pub struct BlockSpec {
     pub split_off: Option<u8>,
     /// The A/B toggle (`opcodes.vfo_toggle`, optional): the rig then
     /// receives (and, without split, transmits) on the other VFO, and its
-    /// frequency read reports that VFO. The block names no VFO, so the
-    /// station decoder takes nothing from it: the next frequency read
-    /// tells. Never polled.
+    /// frequency read reports that VFO. It carries no frequency, so the
+    /// station decoder takes nothing from it: the next set or frequency
+    /// read tells. Never polled.
     pub vfo_toggle: Option<u8>,
     /// Other opcodes that change the rig (never polled).
     pub other_sets: Vec<u8>,
@@ -147,6 +151,45 @@ impl BlockSpec {
             DigitOrder::LittleEndian => field.iter().rev().try_for_each(|&b| push(b))?,
         }
         Some(value)
+    }
+
+    /// The frequency a set block (`opcodes.set_frequency`) asks for: its
+    /// parameters (the block without the opcode byte, in order) begin with
+    /// the same packed-BCD field as the frequency read's answer, in the
+    /// dialect's digit order and unit. A nibble above 9 is a bad digit, a
+    /// frequency no rig tunes is out of range.
+    pub fn read_set(&self, block: &[u8]) -> Result<u64, RejectReason> {
+        let params = block
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| *i != self.opcode_offset)
+            .map(|(_, b)| *b);
+        let field: Vec<u8> = params.take(self.frequency_bytes).collect();
+        if field.len() < self.frequency_bytes {
+            return Err(RejectReason::BadLength);
+        }
+        match self.read_bcd(&field) {
+            None => Err(RejectReason::BadDigit),
+            Some(v) => match plausible(v.saturating_mul(self.unit_hz))? {
+                RigEvent::Frequency { hz } => Ok(hz),
+                _ => Err(RejectReason::OutOfRange),
+            },
+        }
+    }
+
+    /// The set block the other program sends for `hz` (the frequency
+    /// field in the parameters, then the opcode where the dialect puts it).
+    pub fn encode_set(&self, hz: u64) -> Vec<u8> {
+        let mut field = self.bcd(hz / self.unit_hz.max(1)).into_iter();
+        (0..self.block_length)
+            .map(|i| {
+                if i == self.opcode_offset {
+                    self.set_frequency
+                } else {
+                    field.next().unwrap_or(0)
+                }
+            })
+            .collect()
     }
 
     /// Bytes the rig answers to a block with `opcode` (0: no answer).
@@ -271,6 +314,17 @@ impl BlockSpec {
             return Err(r.err(
                 "frequency.bytes",
                 &format!("at most frequency.answer_length ({frequency_answer_length})"),
+                frequency_bytes.to_string(),
+            ));
+        }
+        if frequency_bytes >= block_length {
+            // A set block carries the same field in its parameters.
+            return Err(r.err(
+                "frequency.bytes",
+                &format!(
+                    "at most the parameter bytes of a block ({}: block.length less the opcode), which carry a set's frequency",
+                    block_length - 1
+                ),
                 frequency_bytes.to_string(),
             ));
         }

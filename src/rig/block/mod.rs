@@ -12,13 +12,16 @@
 //! Answers: the frequency read gives packed BCD (digit order and unit from
 //! the dialect) then a mode byte; the transmit-status read gives one byte,
 //! whose masked bit(s) and polarity say whether the rig transmits.
-//! Going to the rig (proxy mode, station decoder): the keying opcodes are
-//! transmit commands, the split opcodes (where the dialect names them) split
-//! on and off. A frequency set does not say which VFO it is for and
-//! the family cannot read the other VFO without switching the operator's
-//! VFO, so nothing is taken from it: the next frequency read tells. With
-//! split on, the transmit VFO's frequency is not known at all: the core
-//! holds (see `Follower::handle_station`).
+//! Going to the rig (proxy mode, station decoder): a frequency set (its
+//! parameters carry the same packed-BCD field as the read's answer) is the
+//! frequency of the VFO in use, [`RigEvent::SelectedFrequency`] seen as a
+//! command, at once; the keying opcodes are transmit commands, the split
+//! opcodes (where the dialect names them) split on and off. The A/B toggle
+//! names no VFO and carries no frequency: nothing is taken from it, the
+//! next set or frequency read tells. With split on, the transmit VFO's
+//! frequency is not known at all (the family cannot read the other VFO
+//! without switching the operator's): the core holds (see
+//! `Follower::handle_station`).
 
 use std::collections::VecDeque;
 use std::time::Duration;
@@ -88,13 +91,8 @@ impl BlockDecoder {
     }
 
     fn request(&mut self, at: Duration, out: &mut Vec<RigEvent>) {
-        let op = self
-            .tx
-            .buf
-            .get(self.spec.opcode_offset)
-            .copied()
-            .unwrap_or(0);
-        self.tx.buf.clear();
+        let block = std::mem::take(&mut self.tx.buf);
+        let op = block.get(self.spec.opcode_offset).copied().unwrap_or(0);
         self.stats.frames += 1;
         let spec = &self.spec;
         if spec.answer_length(op) > 0 {
@@ -103,6 +101,19 @@ impl BlockDecoder {
             }
             self.pending.push_back(Pending { opcode: op, at });
             self.stats.ignored += 1;
+        } else if self.station && op == spec.set_frequency {
+            // The other program sets the frequency of the VFO in use (the
+            // only one a set can reach: the block names no VFO).
+            match spec.read_set(&block) {
+                Ok(hz) => {
+                    out.push(RigEvent::SelectedFrequency {
+                        hz,
+                        seen: Seen::Command,
+                    });
+                    self.stats.reports += 1;
+                }
+                Err(reason) => self.tx.run.add(reason, block.len(), out, &mut self.stats),
+            }
         } else if self.station && (op == spec.transmit_on || op == spec.transmit_off) {
             out.push(RigEvent::TransmitCommand {
                 on: op == spec.transmit_on,
@@ -117,6 +128,8 @@ impl BlockDecoder {
         } else {
             self.stats.ignored += 1;
         }
+        self.tx.buf = block;
+        self.tx.buf.clear();
     }
 
     fn answer(&mut self, opcode: u8, out: &mut Vec<RigEvent>) {

@@ -6,6 +6,7 @@
 //! 14 074 000 Hz = 1 407 400 tens of Hz = digits 01 40 74 00.
 
 use super::*;
+use crate::rig::Seen;
 
 fn ms(v: u64) -> Duration {
     Duration::from_millis(v)
@@ -150,7 +151,7 @@ fn the_station_decoder_sees_the_other_programs_keying_at_once() {
     let out = run(
         &mut d,
         &[
-            // A frequency set (VFO unknown: nothing taken), then keying.
+            // A frequency set, then keying 10 ms later, unkeyed later.
             (0, Tx, &[0x01, 0x40, 0x74, 0x00, 0x01]),
             (10, Tx, &[0, 0, 0, 0, 0x08]),
             (500, Tx, &[0, 0, 0, 0, 0x88]),
@@ -159,6 +160,10 @@ fn the_station_decoder_sees_the_other_programs_keying_at_once() {
     assert_eq!(
         out,
         [
+            RigEvent::SelectedFrequency {
+                hz: 14_074_000,
+                seen: Seen::Command
+            },
             RigEvent::TransmitCommand { on: true },
             RigEvent::TransmitCommand { on: false },
         ]
@@ -166,6 +171,160 @@ fn the_station_decoder_sees_the_other_programs_keying_at_once() {
     // The reporting decoder emits no station events.
     let mut d = BlockDecoder::new(spec());
     assert!(run(&mut d, &[(10, Tx, &[0, 0, 0, 0, 0x08])]).is_empty());
+}
+
+/// The set `01`: four parameter bytes of packed BCD, 10 Hz units, most
+/// significant pair first, high nibble the higher digit, then the opcode
+/// (the family's published CAT command table, recalled, as
+/// protocols/block-5.toml says). Worked by hand:
+/// 7 150 000 Hz = 715 000 tens = 00715000 -> 00 71 50 00;
+/// 145 500 000 Hz = 14 550 000 tens = 14550000 -> 14 55 00 00;
+/// 1 840 000 Hz = 184 000 tens = 00184000 -> 00 18 40 00.
+#[test]
+fn the_other_programs_frequency_set_is_the_vfo_in_use_at_once() {
+    let set = |hz| RigEvent::SelectedFrequency {
+        hz,
+        seen: Seen::Command,
+    };
+    let mut d = BlockDecoder::station(spec());
+    let out = run(
+        &mut d,
+        &[
+            (0, Tx, &[0x00, 0x71, 0x50, 0x00, 0x01]),
+            // Split over two reads, inside the gap.
+            (100, Tx, &[0x14, 0x55]),
+            (120, Tx, &[0x00, 0x00, 0x01]),
+            (300, Tx, &[0x00, 0x18, 0x40, 0x00, 0x01]),
+        ],
+    );
+    assert_eq!(out, [set(7_150_000), set(145_500_000), set(1_840_000)]);
+    // What the dialect writes for a set is what the table shows.
+    assert_eq!(spec().encode_set(7_150_000), [0x00, 0x71, 0x50, 0x00, 0x01]);
+    // The reporting decoder takes nothing going to the rig.
+    let mut d = BlockDecoder::new(spec());
+    assert!(run(&mut d, &[(0, Tx, &[0x00, 0x71, 0x50, 0x00, 0x01])]).is_empty());
+}
+
+#[test]
+fn a_malformed_set_is_rejected_and_the_next_block_still_counts() {
+    let mut d = BlockDecoder::station(spec());
+    let out = run(
+        &mut d,
+        &[
+            // A nibble above 9 (0x7A).
+            (0, Tx, &[0x00, 0x7A, 0x50, 0x00, 0x01]),
+            // 00 00 00 01 tens = 10 Hz: no rig tunes there.
+            (50, Tx, &[0x00, 0x00, 0x00, 0x01, 0x01]),
+            (100, Tx, &[0, 0, 0, 0, 0x08]),
+        ],
+    );
+    assert_eq!(
+        out,
+        [
+            RigEvent::Reject {
+                reason: RejectReason::BadDigit,
+                bytes: 5
+            },
+            RigEvent::Reject {
+                reason: RejectReason::OutOfRange,
+                bytes: 5
+            },
+            RigEvent::TransmitCommand { on: true },
+        ]
+    );
+}
+
+#[test]
+fn a_set_is_read_in_the_dialects_digit_order_and_opcode_place() {
+    // An invented dialect: opcode first, then the BCD field least
+    // significant pair first. 7 150 000 Hz = 00715000 tens -> 00 50 71 00
+    // reversed pair by pair, by hand.
+    let base = include_str!("../../../protocols/block-5.toml");
+    let text = base
+        .replace("opcode_offset = 4", "opcode_offset = 0")
+        .replace(
+            "digit_order = \"big-endian\"",
+            "digit_order = \"little-endian\"",
+        )
+        .replace(
+            "frequency = [0x00, 0x00, 0x00, 0x00, 0x03]",
+            "frequency = [0x03, 0x00, 0x00, 0x00, 0x00]",
+        )
+        .replace(
+            "transmit = [0x00, 0x00, 0x00, 0x00, 0xF7]",
+            "transmit = [0xF7, 0x00, 0x00, 0x00, 0x00]",
+        );
+    let s = load(&text).unwrap();
+    assert_eq!(s.encode_set(7_150_000), [0x01, 0x00, 0x50, 0x71, 0x00]);
+    let mut d = BlockDecoder::station(s);
+    let out = run(&mut d, &[(0, Tx, &[0x01, 0x00, 0x50, 0x71, 0x00])]);
+    assert_eq!(
+        out,
+        [RigEvent::SelectedFrequency {
+            hz: 7_150_000,
+            seen: Seen::Command
+        }]
+    );
+    // A field that the set's parameters cannot carry is refused.
+    let text = base
+        .replace("answer_length = 5", "answer_length = 6")
+        .replace("bytes = 4", "bytes = 5");
+    let e = load(&text).unwrap_err();
+    assert!(e.contains("frequency.bytes"), "{e}");
+}
+
+mod props {
+    use super::*;
+    use proptest::prelude::*;
+
+    /// The set block for `hz`, worked digit by digit as the table shows
+    /// (not with the dialect's encoder): eight digits of tens of Hz, two a
+    /// byte, most significant first, then `01`.
+    fn set_block(hz: u64) -> Vec<u8> {
+        let d: Vec<u8> = format!("{:08}", hz / 10)
+            .bytes()
+            .map(|b| b - b'0')
+            .collect();
+        let mut out: Vec<u8> = d.chunks(2).map(|p| (p[0] << 4) | p[1]).collect();
+        out.push(0x01);
+        out
+    }
+
+    proptest! {
+        /// Every set in range, however the reads cut the stream, is the
+        /// frequency it carries, in order, followed by the keying at once;
+        /// the reporting decoder takes none of it.
+        #[test]
+        fn every_set_is_taken_whatever_the_chunks(
+            tens in proptest::collection::vec(10_000u64..50_000_000, 1..6),
+            cuts in proptest::collection::vec(1usize..7, 1..40),
+        ) {
+            let hz: Vec<u64> = tens.iter().map(|t| t * 10).collect();
+            let mut stream: Vec<u8> = hz.iter().flat_map(|h| set_block(*h)).collect();
+            stream.extend([0, 0, 0, 0, 0x08]);
+            let mut want: Vec<RigEvent> = hz
+                .iter()
+                .map(|&hz| RigEvent::SelectedFrequency { hz, seen: Seen::Command })
+                .collect();
+            want.push(RigEvent::TransmitCommand { on: true });
+            let mut d = BlockDecoder::station(spec());
+            let mut plain = BlockDecoder::new(spec());
+            let (mut out, mut none) = (Vec::new(), Vec::new());
+            let mut rest = stream.as_slice();
+            let mut cut = cuts.iter().cycle();
+            while !rest.is_empty() {
+                let n = (*cut.next().unwrap()).min(rest.len());
+                let (chunk, tail) = rest.split_at(n);
+                d.feed_at(ms(0), Tx, chunk, &mut out);
+                plain.feed_at(ms(0), Tx, chunk, &mut none);
+                rest = tail;
+            }
+            d.finish(&mut out);
+            plain.finish(&mut none);
+            prop_assert_eq!(out, want);
+            prop_assert!(none.is_empty(), "{:?}", none);
+        }
+    }
 }
 
 #[test]
