@@ -5,8 +5,8 @@
 //! comments, not from tuneward: each retune followed at the calibrated
 //! position, every transmission seen (from the status read and from the
 //! other program's keying block), no move while transmitting, the answer
-//! cut short given up after the quiet gap, the other program's set not
-//! taken.
+//! cut short given up after the quiet gap, the other program's set taken
+//! at once (before any read tells the frequency).
 
 use std::path::Path;
 use std::process::Command;
@@ -111,13 +111,25 @@ fn the_block_fixture_follows_the_rig_and_sees_every_transmission() {
     assert_eq!(rejects.len(), 1, "{rejects:?}");
     assert_eq!(rejects[0]["reason"], "garbage");
     assert_eq!(rejects[0]["bytes"], 3);
-    // The other program's set (4.5 s) gave no frequency: 7.180 MHz is first
-    // heard from our read's answer at 4.61 s.
+    // The other program's set (4.5 s) is taken at once: 7.180 MHz settles
+    // (and is held, the rig transmitting) before our read's answer at
+    // 4.61 s first reports it.
     let first = tl
         .iter()
         .find(|v| v["kind"] == "frequency" && v["hz"] == 7_180_000)
         .unwrap();
     assert_eq!(t(first), 4.61);
+    let settled = tl
+        .iter()
+        .find(|v| v["kind"] == "settle" && v["hz"] == 7_180_000)
+        .unwrap();
+    assert!((4.5..4.61).contains(&t(settled)), "{settled}");
+    let held = tl
+        .iter()
+        .find(|v| v["kind"] == "hold" && v["hz"] == 7_180_000)
+        .unwrap();
+    assert_eq!(held["reason"], "transmitting", "{held}");
+    assert!(t(held) < 4.61, "{held}");
     let summary = tl.last().unwrap();
     assert_eq!(summary["kind"], "summary");
     assert_eq!(summary["violations"], 0);

@@ -196,18 +196,21 @@ fn run_proxy(dir: &Path, rig: &Path, controller: &str) -> (Logged, PathBuf) {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn proxied_block_rig_is_followed_from_the_other_programs_reads() {
     let dir = tempfile::tempdir().unwrap();
+    // The operator turns the rig's own knob to 7.150 MHz 300 ms after the
+    // other program's first block: no set says it, only a read can.
     let (_rig, link, truth) = sim_rig(
         dir.path(),
-        "# the operator works through the other program\n",
+        r#"{"at_ms": 300, "op": "tune", "hz": 7150000}
+"#,
     );
     let (addr, motor) = controller(0, SPEED, truth.clone());
     let (run, shared) = run_proxy(dir.path(), &link, &addr);
     let mut client = open_port(&shared, 38400);
-    // The other program sets 7.150 MHz, then reads frequency and status.
-    say(&mut client, &set_frequency(7_150_000)).await;
-    wait_truth(&truth, "the set obeyed", |t| t["rx_hz"] == 7_150_000);
+    // The program reads the status (receive), then waits.
+    say(&mut client, &read_status()).await;
+    wait_truth(&truth, "the knob turned", |t| t["rx_hz"] == 7_150_000);
     std::thread::sleep(Duration::from_millis(600));
-    // The set alone says nothing tuneward takes (which VFO?): no move.
+    // Nothing has told the frequency yet: no move.
     assert!(motor.lock().unwrap().gotos.is_empty());
     say(&mut client, &[read_frequency(), read_status()].concat()).await;
     // 7.150 MHz: 1500 steps, by hand.
@@ -218,17 +221,65 @@ async fn proxied_block_rig_is_followed_from_the_other_programs_reads() {
     assert!(m.violations.is_empty(), "{:?}", m.violations);
     assert_eq!(m.gotos, vec![1500]);
     drop(m);
-    // The log said once why the set alone moved nothing.
+    // The log said once what the family's VFO toggle cannot tell.
     let said = run
         .log()
         .iter()
-        .filter(|l| l.contains("does not say which VFO"))
+        .filter(|l| l.contains("VFO toggle carries no frequency"))
         .count();
     assert_eq!(said, 1, "{}", run.log().join("\n"));
 }
 
+/// The other program's set followed in the same write by its keying block
+/// (a band-map click with no gap at all), and never a read: the set alone
+/// says where the loop must go (the VFO in use), the keying that the rig
+/// is on the air. Nothing moves from the keying block to the unkeying one;
+/// the loop is tuned for the set's frequency after the over, though no
+/// frequency was ever read.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn proxied_block_set_and_keying_tune_after_the_over_without_any_read() {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, link, truth) = sim_rig(
+        dir.path(),
+        "# the operator works through the other program\n",
+    );
+    // At rest at 1000 (7.100 MHz).
+    let (addr, motor) = controller(1000, SPEED, truth.clone());
+    // No rig.poll_ms: tuneward sends the rig nothing of its own.
+    let (_run, shared) = run_proxy(dir.path(), &link, &addr);
+    let mut client = open_port(&shared, 38400);
+    // The status read only: the rig receives. No frequency read, ever.
+    say(&mut client, &read_status()).await;
+    std::thread::sleep(Duration::from_millis(400));
+    assert!(motor.lock().unwrap().gotos.is_empty());
+    let keyed = Instant::now();
+    say(&mut client, &[set_frequency(7_150_000), key(true)].concat()).await;
+    wait_truth(&truth, "the over", |t| {
+        t["transmitting"] == true && t["rx_hz"] == 7_150_000
+    });
+    std::thread::sleep(Duration::from_millis(1_000));
+    assert!(
+        motor.lock().unwrap().gotos.is_empty(),
+        "moved during the over: {:?}",
+        motor.lock().unwrap()
+    );
+    let unkeyed = Instant::now();
+    say(&mut client, &key(false)).await;
+    // 7.150 MHz: (7 150 000 - 7 000 000) / 100 = 1500 steps, by hand.
+    wait_motor(&motor, "tuned after the over", |m| {
+        m.at == 1500 && !m.moving
+    });
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert!(
+        !m.goto_times.iter().any(|t| *t >= keyed && *t <= unkeyed),
+        "a GOTO during the over: {m:?}"
+    );
+    assert_eq!(m.gotos, vec![1500]);
+}
+
 #[test]
-fn check_notes_once_that_the_other_programs_sets_are_not_taken() {
+fn check_notes_once_that_the_other_programs_vfo_toggle_carries_no_frequency() {
     let dir = tempfile::tempdir().unwrap();
     let shared = dir.path().join("shared");
     let keys = format!("mode = \"proxy\"\nproxy_link = \"{}\"", shared.display());
@@ -241,7 +292,7 @@ fn check_notes_once_that_the_other_programs_sets_are_not_taken() {
     let text = String::from_utf8_lossy(&out.stdout);
     let notes: Vec<&str> = text
         .lines()
-        .filter(|l| l.contains("does not say which VFO"))
+        .filter(|l| l.contains("VFO toggle carries no frequency"))
         .collect();
     assert_eq!(notes.len(), 1, "{text}");
     assert!(notes[0].contains("rig.mode"), "{text}");
@@ -258,7 +309,7 @@ fn check_notes_once_that_the_other_programs_sets_are_not_taken() {
         .output()
         .unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
-    assert!(!text.contains("does not say which VFO"), "{text}");
+    assert!(!text.contains("carries no frequency"), "{text}");
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]

@@ -249,8 +249,8 @@ impl Family {
             // 0x05: set the operating (selected) VFO's frequency.
             Family::Binary => frame(&[&[0x05][..], &bcd(hz)].concat()),
             Family::Nine => format!("FA{hz:09};").into_bytes(),
-            // 01: set the frequency (of the VFO in use; the block says no
-            // more, so tuneward takes nothing from it).
+            // 01: set the frequency of the VFO in use (the block names no
+            // VFO: the set goes to the one in use).
             Family::Block => block(bcd_be(hz), 0x01),
         }
     }
@@ -283,8 +283,7 @@ impl Family {
             // VS1: receive (and so transmit) on VFO B.
             Family::Nine => format!("FB{hz:09};VS1;").into_bytes(),
             // 81: toggle to the other VFO (B, from the start on A); then
-            // set the frequency of the VFO now in use. The block names no
-            // VFO, so tuneward learns VFO B's frequency from the next read.
+            // set the frequency of the VFO now in use, which is VFO B's.
             Family::Block => [block([0; 4], 0x81), block(bcd_be(hz), 0x01)].concat(),
         }
     }
@@ -295,17 +294,17 @@ impl Family {
             Family::Binary => frame(&[0x1C, 0x00]),
             // The bare TX is a read in this family; IF carries no flag.
             Family::Nine => b"TX;".to_vec(),
-            // The frequency read too: nothing else tells it.
+            // The frequency read too, as a program watching the rig does.
             Family::Block => block_reads(),
         }
     }
-    /// What the other program reads after an unkey: the block family's
-    /// sets give no frequency, so its reads tell the one set during the
-    /// over; the other families have heard it from the set.
-    fn after_unkey(self) -> Vec<u8> {
+    /// A read of the transmit state that does not read the frequency back
+    /// where the family has one (the block family's status read alone;
+    /// the text family's `IF;` carries both, the frequency set before).
+    fn read_transmit(self) -> Vec<u8> {
         match self {
-            Family::Block => block_reads(),
-            _ => Vec::new(),
+            Family::Block => block([0; 4], 0xF7),
+            _ => self.read_state(),
         }
     }
     fn key(self, on: bool) -> Vec<u8> {
@@ -393,7 +392,7 @@ async fn set_then_key_case(family: Family) {
     let mut client = open_port(&shared, 38400);
     say(
         &mut client,
-        &[family.set_receive(7_100_000), family.read_state()].concat(),
+        &[family.set_receive(7_100_000), family.read_transmit()].concat(),
     )
     .await;
     std::thread::sleep(Duration::from_millis(600));
@@ -401,7 +400,8 @@ async fn set_then_key_case(family: Family) {
     // A band-map click: a set, and the program keys the rig 20 ms later.
     // The set may start a move at once; the transmit command must stop it
     // before the rig is on the air, and nothing may start until the over
-    // ends.
+    // ends. The program never reads the new frequency back: the set alone
+    // says where the loop must be once the over ends.
     say(&mut client, &family.set_receive(7_150_000)).await;
     std::thread::sleep(Duration::from_millis(20));
     let keyed = Instant::now();
@@ -409,11 +409,7 @@ async fn set_then_key_case(family: Family) {
     std::thread::sleep(Duration::from_millis(1_000));
     assert!(rig_transmits(&truth), "the rig should be on the air");
     let unkeyed = Instant::now();
-    say(
-        &mut client,
-        &[family.key(false), family.after_unkey()].concat(),
-    )
-    .await;
+    say(&mut client, &family.key(false)).await;
     // 7.150 MHz: 1500 steps, by hand.
     wait_motor(&motor, "tuned after the over", |m| {
         m.at == 1500 && !m.moving

@@ -297,7 +297,7 @@ fn describe_rig(station: &Station, findings: &mut Vec<Finding>, text: &mut Vec<S
             Grade::Note,
             "rig.mode",
             caveat,
-            "set rig.poll_ms (below the debounce) so that a set is followed without waiting for the program's own read",
+            "set rig.poll_ms (below the debounce) so that a VFO toggle is followed without waiting for the program's own set or read",
         ));
     }
     let mode = match c.rig.mode {

@@ -744,14 +744,20 @@ fn config_name(config: &Config) -> String {
 
 /// What the rig's family cannot tell tuneward in the configured mode, said
 /// once by `check` (a note) and by `run` (its log) from this one sentence:
-/// in proxy mode the block family's frequency set does not say which VFO
-/// it is for, and the family cannot read the other VFO without switching
-/// the operator's, so the other program's sets are not taken; the next
-/// frequency read tells.
+/// in proxy mode the block family's A/B toggle (where the dialect names
+/// one) carries no frequency, and the family cannot read the other VFO
+/// without switching the operator's, so after the other program toggles,
+/// the loop stays tuned for the VFO it left until a set or a frequency
+/// read tells. (The program's frequency sets are taken at once: they go to
+/// the VFO in use.)
 pub fn rig_caveat(station: &Station) -> Option<&'static str> {
     let proxy = matches!(station.config.rig_use(), Ok(RigUse::Proxy { .. }));
-    (proxy && station.dialect.family() == crate::rig::Family::Block).then_some(
-        "the block family's frequency set does not say which VFO it is for, so tuneward takes nothing from the other program's sets: the next frequency read (the program's own, or rig.poll_ms) tells",
+    let toggles = matches!(
+        &station.dialect.spec,
+        crate::rig::dialect::Spec::Block(k) if k.vfo_toggle.is_some()
+    );
+    (proxy && toggles).then_some(
+        "the block family's VFO toggle carries no frequency, so after the other program toggles VFOs tuneward knows the new VFO's frequency only from the next frequency set or read (the program's own, or rig.poll_ms); its frequency sets are taken at once",
     )
 }
 
