@@ -208,6 +208,8 @@ impl Dialect {
     /// receive/transmit VFO, sets and transmit/receive commands going to the
     /// rig. Binary family: VFO select, split, selected/unselected VFO
     /// frequency, frequency sets and transmit on/off going to the rig.
+    /// Block family: frequency sets (the VFO in use), keying and split
+    /// going to the rig, and the meter reads' answers.
     ///
     /// [`RigEvent::Vfo`]: super::RigEvent::Vfo
     pub fn station_decoder(&self, rig_address: Option<u8>) -> Box<dyn Decode> {
