@@ -504,7 +504,12 @@ impl Follower {
                 self.handle_timeout(now);
                 return;
             }
-            if before.is_some() && self.station.split() {
+            // The frequency the loop follows is no longer known (split to
+            // a VFO nothing has told, or an A/B toggle that carries no
+            // frequency): hold, untuned, rather than guess.
+            if before.is_some()
+                && (self.station.split() || matches!(ev, StationEvent::ToggleVfo { .. }))
+            {
                 self.transmit_vfo_lost(now);
             }
         }

@@ -150,6 +150,11 @@ pub enum StationEvent {
     ReceiveVfo { vfo: Vfo, source: Source },
     /// The rig transmits on `vfo`.
     TransmitVfo { vfo: Vfo, source: Source },
+    /// The A/B toggle: receive and transmit VFOs swap to the other. What
+    /// the VFO now in use was known at is forgotten: a family that toggles
+    /// without naming the VFO cannot read the other one, so it may be
+    /// stale; the next set or read says it.
+    ToggleVfo { source: Source },
     /// Split on (transmit on the VFO it does not receive on) or off.
     Split { on: bool, source: Source },
     /// The XIT offset in Hz while XIT is on, `None` while off.
@@ -233,6 +238,16 @@ impl Station {
                 self.tx = if split { other(vfo) } else { vfo };
             }
             StationEvent::TransmitVfo { vfo, .. } => self.tx = vfo,
+            StationEvent::ToggleVfo { .. } => {
+                self.rx = other(self.rx);
+                self.tx = other(self.tx);
+                if let Some(slot) = self.vfo.get_mut(index(self.rx)) {
+                    *slot = None;
+                }
+                if let Some(slot) = self.vfo.get_mut(index(self.tx)) {
+                    *slot = None;
+                }
+            }
             StationEvent::Split { on, .. } => {
                 self.tx = if on { other(self.rx) } else { self.rx };
             }
@@ -411,6 +426,9 @@ pub fn from_rig(ev: &RigEvent, next: Option<&RigEvent>, polled: bool) -> Option<
         },
         RigEvent::TransmitVfo { vfo: v, seen } => StationEvent::TransmitVfo {
             vfo: v,
+            source: source(seen),
+        },
+        RigEvent::VfoToggle { seen } => StationEvent::ToggleVfo {
             source: source(seen),
         },
         RigEvent::Split { on, seen } => StationEvent::Split {

@@ -185,6 +185,58 @@ fn split_to_a_vfo_never_heard_holds_with_the_inhibit_on_rather_than_guess() {
     assert!(!f.inhibit());
 }
 
+/// The block family's A/B toggle seen going to the rig carries no
+/// frequency: the loop counts as untuned, nothing moves and the inhibit is
+/// held, until the new VFO's frequency is read; toggling back forgets the
+/// first VFO too (it may have been set meanwhile), so it waits again.
+#[test]
+fn a_vfo_toggle_without_a_frequency_holds_untuned_until_a_read_tells() {
+    let toggle = |f: &mut Follower, t: u64| {
+        f.handle_station(
+            ms(t),
+            StationEvent::ToggleVfo {
+                source: Source::CommandSeen,
+            },
+        )
+    };
+    let selected = |f: &mut Follower, t: u64, hz: u64| {
+        f.handle_station(
+            ms(t),
+            StationEvent::Frequency {
+                which: Which::Receive,
+                hz,
+                source: Source::PollAnswer,
+            },
+        )
+    };
+    let mut f = known_at(9_000);
+    selected(&mut f, 0, 7_100_000);
+    run(&mut f, 0, 1_000, 50);
+    assert!(!f.inhibit());
+    toggle(&mut f, 1_000);
+    let a = run(&mut f, 1_000, 2_000, 50);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert_eq!(holds(&a), vec![HoldReason::TransmitVfoUnknown], "{a:?}");
+    assert!(
+        f.inhibit(),
+        "the rig may transmit on a VFO the loop is not tuned for"
+    );
+    // The read: VFO B is on 7.050 MHz, 9 500 steps by hand.
+    selected(&mut f, 2_000, 7_050_000);
+    let a = run(&mut f, 2_000, 3_000, 50);
+    assert_eq!(gotos(&a), vec![9_500]);
+    assert!(!f.inhibit());
+    // Back to A: not taken as 7.100 MHz until read again.
+    toggle(&mut f, 3_000);
+    let a = run(&mut f, 3_000, 4_000, 50);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(f.inhibit());
+    selected(&mut f, 4_000, 7_100_000);
+    let a = run(&mut f, 4_000, 5_000, 50);
+    assert_eq!(gotos(&a), vec![9_000]);
+    assert!(!f.inhibit());
+}
+
 #[test]
 fn tune_for_receive_follows_the_receive_vfo() {
     let mut p = policy();

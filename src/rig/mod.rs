@@ -116,6 +116,9 @@ pub enum RigEvent {
     Vfo { vfo: Vfo, hz: u64, seen: Seen },
     /// The VFO the rig receives on.
     ReceiveVfo { vfo: Vfo, seen: Seen },
+    /// The A/B toggle: the rig now works on the other VFO (both ways in
+    /// split), whose frequency the message does not carry.
+    VfoToggle { seen: Seen },
     /// The VFO the rig transmits on.
     TransmitVfo { vfo: Vfo, seen: Seen },
     /// Split operation (transmit on the other VFO) on or off.

@@ -747,8 +747,8 @@ fn config_name(config: &Config) -> String {
 /// in proxy mode the block family's A/B toggle (where the dialect names
 /// one) carries no frequency, and the family cannot read the other VFO
 /// without switching the operator's, so after the other program toggles,
-/// the loop stays tuned for the VFO it left until a set or a frequency
-/// read tells. (The program's frequency sets are taken at once: they go to
+/// the loop counts as untuned (nothing moves; the inhibit is held where
+/// the policy holds it until tuned) until a set or a frequency read tells. (The program's frequency sets are taken at once: they go to
 /// the VFO in use.)
 pub fn rig_caveat(station: &Station) -> Option<&'static str> {
     let proxy = matches!(station.config.rig_use(), Ok(RigUse::Proxy { .. }));
@@ -757,7 +757,7 @@ pub fn rig_caveat(station: &Station) -> Option<&'static str> {
         crate::rig::dialect::Spec::Block(k) if k.vfo_toggle.is_some()
     );
     (proxy && toggles).then_some(
-        "the block family's VFO toggle carries no frequency, so after the other program toggles VFOs tuneward knows the new VFO's frequency only from the next frequency set or read (the program's own, or rig.poll_ms); its frequency sets are taken at once",
+        "the block family's VFO toggle carries no frequency, so after the other program toggles VFOs tuneward holds, the loop untuned (inhibited until tuned), until the next frequency set or read (the program's own, or rig.poll_ms) gives the new VFO's frequency; its frequency sets are taken at once",
     )
 }
 

@@ -17,8 +17,9 @@
 //! frequency of the VFO in use, [`RigEvent::SelectedFrequency`] seen as a
 //! command, at once; the keying opcodes are transmit commands, the split
 //! opcodes (where the dialect names them) split on and off. The A/B toggle
-//! names no VFO and carries no frequency: nothing is taken from it, the
-//! next set or frequency read tells. With split on, the transmit VFO's
+//! names no VFO and carries no frequency: it is [`RigEvent::VfoToggle`],
+//! and the core holds, the loop untuned, until the next set or frequency
+//! read tells the new VFO's frequency. With split on, the transmit VFO's
 //! frequency is not known at all (the family cannot read the other VFO
 //! without switching the operator's): the core holds (see
 //! `Follower::handle_station`).
@@ -117,6 +118,11 @@ impl BlockDecoder {
         } else if self.station && (op == spec.transmit_on || op == spec.transmit_off) {
             out.push(RigEvent::TransmitCommand {
                 on: op == spec.transmit_on,
+            });
+            self.stats.reports += 1;
+        } else if self.station && spec.vfo_toggle == Some(op) {
+            out.push(RigEvent::VfoToggle {
+                seen: Seen::Command,
             });
             self.stats.reports += 1;
         } else if self.station && (spec.split_on == Some(op) || spec.split_off == Some(op)) {

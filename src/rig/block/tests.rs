@@ -171,6 +171,16 @@ fn the_station_decoder_sees_the_other_programs_keying_at_once() {
     // The reporting decoder emits no station events.
     let mut d = BlockDecoder::new(spec());
     assert!(run(&mut d, &[(10, Tx, &[0, 0, 0, 0, 0x08])]).is_empty());
+    // The A/B toggle (`81`, recalled, as protocols/block-5.toml says)
+    // names no VFO and carries no frequency.
+    let mut d = BlockDecoder::station(spec());
+    let out = run(&mut d, &[(0, Tx, &[0, 0, 0, 0, 0x81])]);
+    assert_eq!(
+        out,
+        [RigEvent::VfoToggle {
+            seen: Seen::Command
+        }]
+    );
 }
 
 /// The set `01`: four parameter bytes of packed BCD, 10 Hz units, most

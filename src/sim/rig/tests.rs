@@ -784,10 +784,16 @@ fn block_vfo_toggle_switches_the_vfo_the_reads_report() {
         (Vfo::A, 7_100_000, 7_220_000)
     );
     assert!(t.iter().all(|t| t.cause != Cause::Operator));
-    // Tuneward's station decoder takes nothing from the toggle (the block
-    // names no VFO): only the reads' answers tell.
+    // Tuneward's station decoder takes the toggle for what it is (the
+    // block names no VFO and carries no frequency): only the reads'
+    // answers tell the new VFO's frequency.
     let mut d = Dialect::builtin("block-5").unwrap().station_decoder(None);
     let mut out = Vec::new();
     d.feed(Direction::Tx, &[0, 0, 0, 0, 0x81], &mut out);
-    assert!(out.is_empty(), "{out:?}");
+    assert_eq!(
+        out,
+        [RigEvent::VfoToggle {
+            seen: crate::rig::Seen::Command
+        }]
+    );
 }
