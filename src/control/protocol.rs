@@ -286,6 +286,10 @@ pub struct StateView {
     pub swr_read: Option<Ratio>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub swr_alarm: Option<Ratio>,
+    /// With `[swr_watch]` and the loop described: drift, the SWR the rig's
+    /// meter read over the last overs and what the model predicted.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub swr_drift: Option<DriftView>,
     /// The receive frequency a noise-peak search is under way at.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub peak_hz: Option<u64>,
@@ -295,6 +299,13 @@ pub struct StateView {
     /// The last few decisions, in words, oldest first (set by the driver).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub recent: Vec<String>,
+}
+
+/// Drift as the protocol shows it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct DriftView {
+    pub seen: Ratio,
+    pub predicted: Ratio,
 }
 
 /// An SWR in hundredths, shown as a number (`1.25`); an SWR beyond
@@ -414,6 +425,10 @@ impl StateView {
             swr: s.swr.as_ref().map(SwrView::from_curve),
             swr_read: s.swr_read.map(Ratio::of),
             swr_alarm: s.swr_alarm.map(Ratio::of),
+            swr_drift: s.swr_drift.map(|(seen, predicted)| DriftView {
+                seen: Ratio::of(seen),
+                predicted: Ratio::of(predicted),
+            }),
             peak_hz: s.peak_hz,
             last_peak: s.last_peak.clone(),
             recent: Vec::new(),

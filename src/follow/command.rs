@@ -318,6 +318,11 @@ pub struct Status {
     pub swr_read: Option<f64>,
     /// The SWR of the current (or last) over's alarm, if it raised one.
     pub swr_alarm: Option<f64>,
+    /// With `[swr_watch]` and the loop described: the SWR the rig's meter
+    /// read over the last overs and what the model predicted there, while
+    /// that excess stands (set by the session; a good over or a noise peak
+    /// that found the loop clears it).
+    pub swr_drift: Option<(f64, f64)>,
     /// The receive frequency a noise-peak search is under way at.
     pub peak_hz: Option<u64>,
     /// How the last noise-peak search ended, in words.

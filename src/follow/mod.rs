@@ -1147,6 +1147,7 @@ impl Follower {
             shutting_down: self.closing,
             swr_read: None,
             swr_alarm: None,
+            swr_drift: None,
             peak_hz: self.peak.as_ref().map(|r| r.hz),
             last_peak: self.last_peak.clone(),
         }

@@ -595,6 +595,11 @@ struct SwrWatching {
     last: Option<f64>,
     /// The alarm of the current (or last) over.
     alarm: Option<f64>,
+    /// Drift reported (seen, predicted), until an over reads within the
+    /// margin or a noise peak finds the loop.
+    drift: Option<(f64, f64)>,
+    /// The watch's drift margin (SWR over the prediction).
+    margin: f64,
 }
 
 impl Session {
@@ -694,10 +699,12 @@ impl Session {
         scale: crate::rig::meter::MeterScale,
     ) -> Session {
         self.swr = Some(SwrWatching {
+            margin: settings.drift_margin,
             watch: super::swr_watch::SwrWatch::new(settings),
             scale,
             last: None,
             alarm: None,
+            drift: None,
         });
         self
     }
@@ -722,21 +729,34 @@ impl Session {
                     self.core.handle_swr_alarm(now);
                 }
             }
-            SwrReport::Over(o) => self.st.note(Note::SwrOver {
-                hz: o.hz,
-                reads: o.reads,
-                max_swr: o.max_swr,
-                median_swr: o.median_swr,
-            }),
+            SwrReport::Over(o) => {
+                if let (Some(w), Some(m), Some(p)) = (self.swr.as_mut(), o.median_swr, o.predicted)
+                {
+                    if o.reads >= 3 && m - p <= w.margin {
+                        w.drift = None;
+                    }
+                }
+                self.st.note(Note::SwrOver {
+                    hz: o.hz,
+                    reads: o.reads,
+                    max_swr: o.max_swr,
+                    median_swr: o.median_swr,
+                })
+            }
             SwrReport::Drift {
                 overs,
                 seen,
                 predicted,
-            } => self.st.note(Note::SwrDrift {
-                overs,
-                seen,
-                predicted,
-            }),
+            } => {
+                if let Some(w) = self.swr.as_mut() {
+                    w.drift = Some((seen, predicted));
+                }
+                self.st.note(Note::SwrDrift {
+                    overs,
+                    seen,
+                    predicted,
+                })
+            }
         }
     }
 
@@ -1236,6 +1256,18 @@ impl Session {
                 if let Some(action) = self.core.poll_action() {
                     let now = self.st.now;
                     self.st.core_position = self.core.position();
+                    // A noise peak found the loop where it resonates: the
+                    // drift reported against the old calibration is over.
+                    if matches!(
+                        action,
+                        super::Action::PeakEnded {
+                            outcome: super::peak::PeakOutcome::Candidate(_)
+                        }
+                    ) {
+                        if let Some(w) = self.swr.as_mut() {
+                            w.drift = None;
+                        }
+                    }
                     let Ok(()) = super::apply(&mut self.st, now, action);
                     if let Some(ask_again) = self.st.fault_request.take() {
                         self.fault(now, ask_again);
@@ -1305,6 +1337,7 @@ impl Session {
         if let Some(w) = &self.swr {
             s.swr_read = w.last;
             s.swr_alarm = w.alarm;
+            s.swr_drift = w.drift;
         }
         s
     }

@@ -97,6 +97,16 @@ impl Bench {
         relax: bool,
         home: Option<HomeSettings>,
     ) -> Bench {
+        Bench::built(journal, backlash, relax, home, None)
+    }
+
+    fn built(
+        journal: Option<Recorded>,
+        backlash: i64,
+        relax: bool,
+        home: Option<HomeSettings>,
+        small_loop: Option<crate::antenna::SmallLoop>,
+    ) -> Bench {
         let dialect = Dialect::builtin("text-semicolon").expect("built-in dialect");
         let settings = SessionSettings {
             steps_per_second: 20_000.0,
@@ -107,7 +117,7 @@ impl Bench {
             restart_counts: [0, 0, 0],
             home,
         };
-        let core = Follower::new(policy(backlash), Arc::new(Line), None);
+        let core = Follower::new(policy(backlash), Arc::new(Line), None).with_loop(small_loop);
         let s = Session::new(core, dialect.decoder(None), journal, settings);
         let mut b = Bench {
             s,
@@ -1466,8 +1476,20 @@ fn an_unasked_at_with_another_count_at_rest_is_not_taken() {
 /// station decoder (meter answers are station events) and watching the
 /// SWR: alarm 2.0 held 1 s, `action`, `wired`.
 fn swr_bench(action: super::super::swr_watch::SwrAction, wired: bool) -> Bench {
+    swr_bench_with(action, wired, None)
+}
+
+/// [`swr_bench`] with the loop described (for the model's prediction).
+fn swr_bench_with(
+    action: super::super::swr_watch::SwrAction,
+    wired: bool,
+    small_loop: Option<crate::antenna::SmallLoop>,
+) -> Bench {
     use super::super::swr_watch::SwrWatchSettings;
-    let mut b = Bench::linked(None, 0);
+    let mut b = Bench::built(None, 0, false, None, small_loop);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
     b.s.decoder = b.dialect.station_decoder(None);
     let scale = b
         .dialect
@@ -1595,6 +1617,37 @@ fn an_swr_alarm_with_action_log_or_no_line_wired_only_logs() {
         );
         assert_eq!(b.s.status().swr_alarm, Some(3.0));
     }
+}
+
+/// Drift reaches the state (and with it the socket, MQTT and the page):
+/// three overs reading SWR 3.0 where the model, the loop tuned for the
+/// frequency, predicts about 1.0; an over reading within the margin ends
+/// it. The model's SWR is the matched resonator's (`antenna::swr_at`).
+#[test]
+fn drift_is_shown_in_the_state_until_an_over_reads_as_predicted() {
+    use super::super::swr_watch::SwrAction;
+    let small_loop = crate::antenna::SmallLoop {
+        loop_diameter_m: 1.0,
+        conductor_diameter_m: 0.022,
+        conductor: crate::antenna::Conductor::Copper,
+    };
+    let mut b = swr_bench_with(SwrAction::Log, false, Some(small_loop));
+    for over in 0..3 {
+        assert_eq!(b.s.status().swr_drift, None, "before over {over}");
+        let t = b.now;
+        b.over(t, t + ms(1000));
+        b.rig_says(b"RX;");
+        b.wait(ms(200));
+    }
+    let (seen, predicted) = b.s.status().swr_drift.expect("drift after three overs");
+    assert_eq!(seen, 3.0);
+    assert!((1.0..1.1).contains(&predicted), "{predicted}");
+    // An over as the model says: drift over.
+    let t = b.now;
+    b.over(t + ms(10_000), t + ms(1000));
+    b.rig_says(b"RX;");
+    b.wait(ms(200));
+    assert_eq!(b.s.status().swr_drift, None);
 }
 
 #[test]
