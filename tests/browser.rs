@@ -230,6 +230,21 @@ listen = "127.0.0.1:0"
     wait_received(&ctl, "GOTO 310");
     wait_text(&c, "position", "step 310").await;
     wait_journal(&journal, Recorded::Known(310));
+    // "Find resonance here": this station describes no loop and is not
+    // polled, so the core refuses it with the reason; nothing moves.
+    let before = ctl.received().len();
+    c.find(Locator::Id("peak"))
+        .await
+        .unwrap()
+        .click()
+        .await
+        .unwrap();
+    wait_text(&c, "answer", "no noise-peak search now").await;
+    let after = ctl.received();
+    assert!(
+        !after[before..].iter().any(|l| l.starts_with("GOTO")),
+        "{after:?}"
+    );
     // The marker on the travel bar is where the page says (310 of 0..3000).
     let left = c
         .execute(
