@@ -35,6 +35,20 @@ fn log_text(log: &Path) -> String {
     std::fs::read_to_string(log).unwrap_or_default()
 }
 
+/// The log's last word on the inhibit is that it was asserted.
+fn assert_inhibit_left_asserted(log: &str, case: &str) {
+    let inhibit: Vec<&str> = log
+        .lines()
+        .filter(|l| {
+            l.contains("transmit inhibit asserted") || l.contains("transmit inhibit released")
+        })
+        .collect();
+    assert!(
+        inhibit.last().is_some_and(|l| l.contains("asserted")),
+        "{case}: {inhibit:?}"
+    );
+}
+
 /// Waits (with a bound) until `ready` holds.
 fn eventually(what: &str, mut ready: impl FnMut() -> bool) {
     let until = Instant::now() + Duration::from_secs(15);
@@ -89,16 +103,7 @@ async fn sigterm_with_a_silent_controller_keeps_the_move_and_exits_non_zero() {
     eventually("the double's motor at rest", || ctl.at_rest());
     assert_eq!(ctl.position(), 1500);
     // The inhibit was not released after the move began.
-    let inhibit: Vec<&str> = text
-        .lines()
-        .filter(|l| {
-            l.contains("transmit inhibit asserted") || l.contains("transmit inhibit released")
-        })
-        .collect();
-    assert!(
-        inhibit.last().is_some_and(|l| l.contains("asserted")),
-        "{inhibit:?}"
-    );
+    assert_inhibit_left_asserted(&text, "after the silent controller");
     assert!(text.contains("stays asserted"), "{text}");
 
     // The next start, with the controller speaking again.
@@ -576,16 +581,7 @@ async fn a_controller_at_rest_where_it_proves_nothing_leaves_the_position_unknow
         assert_eq!(ctl.position(), found);
         assert_eq!(journal.load().unwrap(), recorded, "{text}");
         assert!(!text.contains("position trusted"), "{text}");
-        let inhibit: Vec<&str> = text
-            .lines()
-            .filter(|l| {
-                l.contains("transmit inhibit asserted") || l.contains("transmit inhibit released")
-            })
-            .collect();
-        assert!(
-            inhibit.last().is_some_and(|l| l.contains("asserted")),
-            "{from}->{to}, found {found}: {inhibit:?}"
-        );
+        assert_inhibit_left_asserted(&text, &format!("{from}->{to}, found {found}"));
         assert!(text.contains("set-position"), "{text}");
         service.signal(libc::SIGTERM);
         service.wait_exit(Duration::from_secs(20));

@@ -68,26 +68,6 @@ fn ctl(config: &Path, args: &[&str]) -> Output {
         .unwrap()
 }
 
-/// Waits (up to `secs`) for a log line holding every word.
-fn wait_long(run: &Logged, words: &[&str], secs: u64) -> String {
-    let until = Instant::now() + Duration::from_secs(secs);
-    loop {
-        if let Some(l) = run
-            .log()
-            .into_iter()
-            .find(|l| words.iter().all(|w| l.contains(w)))
-        {
-            return l;
-        }
-        assert!(
-            Instant::now() < until,
-            "no log line with {words:?} in:\n{}",
-            run.log().join("\n")
-        );
-        std::thread::sleep(Duration::from_millis(50));
-    }
-}
-
 struct Station {
     dir: tempfile::TempDir,
     config: std::path::PathBuf,
@@ -243,7 +223,9 @@ fn a_noise_peak_finds_the_rained_on_loop_and_the_accepted_point_keeps_it_tuned()
     let out = ctl(&s.config, &["peak"]);
     let answer = String::from_utf8_lossy(&out.stdout);
     assert!(out.status.success(), "{answer}");
-    let found = wait_long(&s.run, &["noise-peak search: peak at"], 60);
+    let found = s
+        .run
+        .wait_log_for(&["noise-peak search: peak at"], Duration::from_secs(60));
     let candidates = s.dir.path().join("loop.candidates.csv");
     let text = std::fs::read_to_string(&candidates).unwrap();
     let line = text
@@ -349,7 +331,10 @@ fn a_transmission_during_the_search_ends_it_with_nothing_recorded() {
         String::from_utf8_lossy(&out.stdout)
     );
     wait_truth(&s.truth, "the over", |t| t["transmitting"] == true);
-    let ended = wait_long(&s.run, &["noise-peak search: search stopped"], 30);
+    let ended = s.run.wait_log_for(
+        &["noise-peak search: search stopped"],
+        Duration::from_secs(30),
+    );
     assert!(ended.contains("transmitted"), "{ended}");
     wait_truth(&s.truth, "the over's end", |t| t["transmitting"] == false);
     wait_position(&s.position, start);

@@ -197,6 +197,15 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
         let (key, value) = pair.split_once('=').ok_or_else(|| {
             UrlError::new(format!("`key=value` in `{whole}`"), format!("`{pair}`"))
         })?;
+        // `high` or `low`, for the key `k`.
+        let high = |k: &str| match value {
+            "high" => Ok(true),
+            "low" => Ok(false),
+            _ => Err(UrlError::new(
+                format!("`high` or `low` for `{k}` in `{whole}`"),
+                format!("`{value}`"),
+            )),
+        };
         let number = || {
             value.parse::<u32>().map_err(|_| {
                 UrlError::new(
@@ -213,30 +222,8 @@ fn parse_gpio(whole: &str, rest: &str) -> Result<GpioWiring, UrlError> {
             "setup_us" => w.setup_us = number()?,
             "low_stop" => w.low_stop = Some(number()?),
             "high_stop" => w.high_stop = Some(number()?),
-            "closed" => {
-                w.closed_high = match value {
-                    "high" => true,
-                    "low" => false,
-                    _ => {
-                        return Err(UrlError::new(
-                            format!("`high` or `low` for `closed` in `{whole}`"),
-                            format!("`{value}`"),
-                        ))
-                    }
-                }
-            }
-            "up" => {
-                w.up_is_high = match value {
-                    "high" => true,
-                    "low" => false,
-                    _ => {
-                        return Err(UrlError::new(
-                            format!("`high` or `low` for `up` in `{whole}`"),
-                            format!("`{value}`"),
-                        ))
-                    }
-                }
-            }
+            "closed" => w.closed_high = high(key)?,
+            "up" => w.up_is_high = high(key)?,
             _ => {
                 return Err(UrlError::new(
                     format!(

@@ -338,9 +338,13 @@ impl Logged {
     pub fn log(&self) -> Vec<String> {
         self.lines.lock().unwrap().clone()
     }
-    /// Waits until a log line contains every one of `words`.
+    /// Waits (10 s at most) until a log line contains every one of `words`.
     pub fn wait_log(&self, words: &[&str]) -> String {
-        let until = Instant::now() + Duration::from_secs(10);
+        self.wait_log_for(words, Duration::from_secs(10))
+    }
+    /// [`Logged::wait_log`], waiting `within` at most.
+    pub fn wait_log_for(&self, words: &[&str], within: Duration) -> String {
+        let until = Instant::now() + within;
         loop {
             if let Some(l) = self
                 .log()
