@@ -46,25 +46,7 @@ fn sim_rig(dir: &Path, script: Option<&str>) -> (Proc, PathBuf) {
 /// Runs sim-rig at 9600 baud and a 4 s capture polling it at `baud`;
 /// returns capture's stderr.
 fn capture_at(dir: &Path, baud: u32) -> String {
-    let link = dir.join("rig");
-    let sim = Command::new(BIN)
-        .args([
-            "sim-rig",
-            "--protocol",
-            "text-semicolon",
-            "--baud",
-            "9600",
-            "--pty",
-        ])
-        .arg(&link)
-        .arg("--truth")
-        .arg(dir.join("truth.jsonl"))
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
-    let _sim = Proc(sim);
-    common::wait_symlink(&link);
+    let (_sim, link) = sim_rig(dir, None);
     let config = dir.join("station.toml");
     let text = format!(
         "[rig]\nprotocol = \"text-semicolon\"\nport = \"{}\"\nbaud = {baud}\nmode = \"poll\"\n{}",
