@@ -242,7 +242,10 @@ async fn soak(args: Args) -> i32 {
     let mut transmitting: Vec<(SystemTime, SystemTime)> = Vec::new();
     let mut injected: Vec<(Injected, Instant)> = Vec::new();
     let mut open_faults: Vec<(Injected, Instant)> = Vec::new();
-    let mut recoveries: Vec<(Injected, f64)> = Vec::new();
+    // Each recovery: the fault, its time to exact, and how many faults
+    // were open together when the journal became exact (they share that
+    // end, so a time may span more than one fault).
+    let mut recoveries: Vec<(Injected, f64, usize)> = Vec::new();
     let mut clear_fault_at: Option<Instant> = None;
     let mut rss_peak = 0u64;
     let mut rss_first = None;
@@ -260,8 +263,9 @@ async fn soak(args: Args) -> i32 {
             let (physical, at_rest) = ctl.probe().physical_at_rest();
             if at_rest && journal.load().ok().flatten() == Some(Recorded::Known(physical)) {
                 let now = Instant::now();
+                let together = open_faults.len();
                 for (what, at) in open_faults.drain(..) {
-                    recoveries.push((what, now.duration_since(at).as_secs_f64()));
+                    recoveries.push((what, now.duration_since(at).as_secs_f64(), together));
                 }
             }
         }
@@ -372,8 +376,9 @@ async fn soak(args: Args) -> i32 {
         let (physical, at_rest) = ctl.probe().physical_at_rest();
         if at_rest && journal.load().ok().flatten() == Some(Recorded::Known(physical)) {
             let now = Instant::now();
+            let together = open_faults.len();
             for (what, at) in open_faults.drain(..) {
-                recoveries.push((what, now.duration_since(at).as_secs_f64()));
+                recoveries.push((what, now.duration_since(at).as_secs_f64(), together));
             }
         }
     }
@@ -406,7 +411,10 @@ async fn soak(args: Args) -> i32 {
     println!(
         "rig: {retunes} retunes, {overs} overs, {rig_noise} noise bursts; controller received {gotos} GOTO, {homes} HOME, {zeros} ZERO"
     );
-    let mut kinds: Vec<(String, usize, Vec<f64>)> = Vec::new();
+    // Per kind of fault: its name, how many were injected, and each
+    // recovery's time with the number of faults that shared its end.
+    type Kind = (String, usize, Vec<(f64, usize)>);
+    let mut kinds: Vec<Kind> = Vec::new();
     for (what, _) in &injected {
         let name = format!("{what:?}");
         if !kinds.iter().any(|k| k.0 == name) {
@@ -414,12 +422,12 @@ async fn soak(args: Args) -> i32 {
                 .iter()
                 .filter(|(w, _)| format!("{w:?}") == name)
                 .count();
-            let mut times: Vec<f64> = recoveries
+            let mut times: Vec<(f64, usize)> = recoveries
                 .iter()
-                .filter(|(w, _)| format!("{w:?}") == name)
-                .map(|(_, t)| *t)
+                .filter(|(w, _, _)| format!("{w:?}") == name)
+                .map(|(_, t, k)| (*t, *k))
                 .collect();
-            times.sort_by(f64::total_cmp);
+            times.sort_by(|a, b| a.0.total_cmp(&b.0));
             kinds.push((name, n, times));
         }
     }
@@ -433,14 +441,19 @@ async fn soak(args: Args) -> i32 {
         let p = |q: f64| {
             times
                 .get(((times.len() as f64 - 1.0) * q).round() as usize)
-                .copied()
-                .unwrap_or(f64::NAN)
+                .map_or(f64::NAN, |x| x.0)
         };
+        let shared = times.last().map_or(0, |x| x.1.saturating_sub(1));
         println!(
-            "  {name:<15} injected {n:>3}  recovered {:>3}  time to exact p50 {:>6.2} s  max {:>6.2} s",
+            "  {name:<15} injected {n:>3}  recovered {:>3}  time to exact p50 {:>6.2} s  max {:>6.2} s{}",
             times.len(),
             p(0.5),
-            p(1.0)
+            p(1.0),
+            if shared > 0 {
+                format!(" (its end shared with {shared} other fault(s))")
+            } else {
+                String::new()
+            }
         );
     }
     println!(
