@@ -192,7 +192,15 @@ struct PeakRun {
     /// What the loop was tuned for when it began (it returns there).
     tuned_before: Option<u64>,
     waiting: PeakWait,
+    /// While a reading is awaited: when the search gives up on the meter.
+    meter_due: Option<Duration>,
 }
+
+/// How long a search waits for a signal-meter reading before it ends
+/// (the rig stopped answering its meter read, say): it returns to where
+/// it began rather than hold the inhibit for ever. Several poll intervals
+/// at any sensible rate; common practice, no source.
+pub const PEAK_METER_WAIT: Duration = Duration::from_secs(5);
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum PeakWait {
@@ -1197,6 +1205,16 @@ impl Follower {
 
     /// Time has passed: act on whatever deadline is due.
     pub fn handle_timeout(&mut self, now: Duration) {
+        if let Some(run) = self.peak.as_mut() {
+            if run.meter_due.is_some_and(|due| now >= due) {
+                run.meter_due = None;
+                let req = run.search.fault(&format!(
+                    "no signal-meter reading in {} s",
+                    PEAK_METER_WAIT.as_secs()
+                ));
+                self.peak_step(now, req);
+            }
+        }
         if let Some(p) = self.pending {
             if now >= p.deadline {
                 self.pending = None;
@@ -1286,6 +1304,7 @@ impl Follower {
         let Some(run) = self.peak.as_mut() else {
             return;
         };
+        run.meter_due = Some(now + PEAK_METER_WAIT);
         if run.waiting == (PeakWait::Meter { fresh: true }) {
             run.waiting = PeakWait::Meter { fresh: false };
             return;
@@ -1364,6 +1383,7 @@ impl Follower {
             profile: self.profile.clone(),
             tuned_before: self.tuned_hz,
             waiting: PeakWait::Arrival,
+            meter_due: None,
         });
         self.assert_inhibit(now);
         self.peak_step(now, req);
@@ -1380,6 +1400,7 @@ impl Follower {
             match req {
                 PeakRequest::Goto { steps } => {
                     run.waiting = PeakWait::Arrival;
+                    run.meter_due = None;
                     if self.position == Some(steps) && matches!(self.motion, Motion::Idle) {
                         req = run.search.arrived(steps);
                         continue;
@@ -1399,6 +1420,7 @@ impl Follower {
                     if !matches!(run.waiting, PeakWait::Meter { .. }) {
                         run.waiting = PeakWait::Meter { fresh: true };
                     }
+                    run.meter_due = Some(now + PEAK_METER_WAIT);
                     return;
                 }
                 PeakRequest::Wait => return,
@@ -1468,6 +1490,7 @@ impl Follower {
             arming,
             self.release_at.filter(|_| !self.detune_hold),
             self.touchup.and_then(|t| t.due),
+            self.peak.as_ref().and_then(|r| r.meter_due),
         ]
         .into_iter()
         .flatten()

@@ -56,6 +56,8 @@ struct Bench {
     /// The motor's position and the leg under way.
     at: i64,
     heading: Option<i64>,
+    /// The rig answers no meter read.
+    mute: bool,
 }
 
 impl Bench {
@@ -94,6 +96,7 @@ impl Bench {
             released_during: false,
             at: start,
             heading: None,
+            mute: false,
         };
         b.core.handle_transmit(b.now, false);
         b.core.handle_frequency(b.now, HZ);
@@ -137,7 +140,7 @@ impl Bench {
                 self.at = t;
                 self.meters.set_position(t as f64);
                 self.core.handle_arrived(self.now, t);
-            } else if self.core.wants_signal_meter() {
+            } else if self.core.wants_signal_meter() && !self.mute {
                 let r = self.meters.read_signal(HZ as f64);
                 self.core.handle_signal_meter(self.now, r.value);
             }
@@ -352,5 +355,31 @@ fn a_fault_ends_the_search_and_the_recovery_retunes() {
     b.advance(ms(1_000));
     let want = sim_loop().steps_for(HZ as f64).round() as i64;
     assert_eq!(b.at, want);
+    assert!(!b.inhibit);
+}
+
+/// A rig that stops answering its meter read: the search does not hold
+/// the inhibit for ever; after `PEAK_METER_WAIT` without a reading it ends
+/// and returns to where it began, nothing recorded.
+#[test]
+fn a_silent_meter_ends_the_search_and_returns() {
+    let mut b = Bench::new(0.0, -105.0, 8);
+    let start = b.at;
+    assert_eq!(b.core.handle_command(b.now, Command::Peak), Reply::Done);
+    b.advance(ms(200));
+    b.mute = true;
+    b.advance(PEAK_METER_WAIT - ms(500));
+    assert!(b.ended.is_empty(), "gave up early: {:?}", b.ended);
+    b.run_to_end();
+    assert!(
+        matches!(
+            b.ended.as_slice(),
+            [peak::PeakOutcome::Aborted(peak::AbortReason::Fault(why))] if why.contains("signal-meter")
+        ),
+        "{:?}",
+        b.ended
+    );
+    assert_eq!(b.at, start);
+    assert!(b.candidates.is_empty());
     assert!(!b.inhibit);
 }

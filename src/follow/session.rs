@@ -1029,6 +1029,9 @@ impl Session {
             _ if self.st.stopping || !self.st.phase.follows() => {
                 Reply::Refused(Refusal::ShuttingDown)
             }
+            Command::Peak if self.signal.is_none() => Reply::Refused(Refusal::CannotPeak {
+                why: "the rig's signal meter cannot be read here: it needs a polled rig (mode = \"poll\", or \"proxy\" with poll_ms) whose dialect has a signal-meter read".to_string(),
+            }),
             cmd => self.core.handle_command(now, cmd),
         };
         self.st.note(Note::Command {
