@@ -588,10 +588,9 @@ fn run_policy(
     // transmit report, kept here, goes out when the inhibit is released
     // (`None` inside: keyed by a command the core has already seen).
     let mut held: Option<Option<(&Happening, &[u8])>> = None;
-    // The capacitor moved while the rig was on the air, or while another
-    // program's transmit command was in force (seen by the core), in s.
+    // The capacitor moved while the rig was on the air (keyed and not held
+    // off by the inhibit, whoever keyed it), in s.
     let mut moved_keyed = 0.0;
-    let mut by_command = false;
     let mut prev = Duration::ZERO;
     // The last SWR worked out, by capacitor position and frequency.
     let mut cache: Option<(f64, u64, f64)> = None;
@@ -629,9 +628,8 @@ fn run_policy(
                 };
                 let te = (ts + step).min(*t);
                 let dur = (te - ts).as_secs_f64();
-                // The motor's plan over the step: moving on the air, or
-                // while a transmit command the core has seen is in force.
-                if (held.is_none() || by_command)
+                // The motor's plan over the step: moving on the air.
+                if held.is_none()
                     && replay.tuner().capacitor_at(ts) != replay.tuner().capacitor_at(te)
                 {
                     moved_keyed += dur;
@@ -690,7 +688,6 @@ fn run_policy(
                 // Keyed by another program: the core sees the command at
                 // once (fed below); the rig is held off under the inhibit.
                 keyed = true;
-                by_command = true;
                 replay.advance(*t)?;
                 if replay.core().inhibit() {
                     held = Some(None);
@@ -698,7 +695,6 @@ fn run_policy(
             }
             Happening::Station(StationMessage::Transmit { on: false }) => {
                 keyed = false;
-                by_command = false;
                 held = None;
             }
             Happening::Station(_) => {}

@@ -15,7 +15,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use crate::calibrate::StepMap;
-use crate::follow::{station, Effects, Follower, HoldReason, Policy};
+use crate::follow::{station, Effects, Follower, HoldReason, Policy, WhileUnknown};
 use crate::rig::{Decode, Direction, RigEvent};
 use crate::timeline::{Entry, Summary, Timeline};
 use crate::tuner::sim::{SimParams, SimTuner};
@@ -60,12 +60,23 @@ pub struct Replay<'t> {
     /// reads transmitting, nothing else ends the transmission.
     sense_on: bool,
     transmit_since: Option<Duration>,
+    /// An inhibit line is wired (the policy moves under it while the
+    /// transmit state is unknown): a transmit command that reaches the rig
+    /// while the line has been set for `inhibit_lead` cannot put it on the
+    /// air.
+    line_wired: bool,
+    /// Since when the inhibit line is set, while it is.
+    inhibit_since: Option<Duration>,
+    /// A transmit command is held off by the line: on the air (for the
+    /// independent count) only once the line is released.
+    command_held: bool,
 }
 
 impl<'t> Replay<'t> {
     pub fn new(setup: ReplaySetup, timeline: &'t mut dyn Timeline) -> Self {
         let start = setup.start_steps;
         let tuner = SimTuner::new(setup.tuner, start.unwrap_or(setup.policy.min_steps));
+        let line_wired = setup.policy.while_unknown == WhileUnknown::MoveUnderInhibit;
         let mut core = Follower::new(setup.policy, setup.map, start);
         if setup.sense_wired {
             core.expect_sense_line();
@@ -84,6 +95,9 @@ impl<'t> Replay<'t> {
             transmitting: false,
             sense_on: false,
             transmit_since: None,
+            line_wired,
+            inhibit_since: None,
+            command_held: false,
         }
     }
 
@@ -111,6 +125,7 @@ impl<'t> Replay<'t> {
     /// starts on any source's word and ends on a receive, except that while
     /// the sense line reads transmitting only the line ends it.
     fn count_transmit(&mut self, on: bool) {
+        self.command_held = false;
         let now = self.now;
         let on = on || self.sense_on;
         if on != self.transmitting {
@@ -252,6 +267,12 @@ impl<'t> Replay<'t> {
                 self.summary.frames += 1;
                 self.timeline.entry(now, &Entry::Frequency { hz })?;
             }
+            RigEvent::TransmitCommand { on: true } if self.holds_off() => {
+                // The line holds the rig off: on the air at the release.
+                self.summary.frames += 1;
+                self.timeline.entry(now, &Entry::Transmit { on: true })?;
+                self.command_held = true;
+            }
             RigEvent::Transmit { on } | RigEvent::TransmitCommand { on } => {
                 self.summary.frames += 1;
                 self.timeline.entry(now, &Entry::Transmit { on })?;
@@ -277,6 +298,17 @@ impl<'t> Replay<'t> {
         self.apply_actions()
     }
 
+    /// A transmit command reaching the rig now is held off by the inhibit
+    /// line: one is wired, it has been set for the policy's `inhibit_lead`
+    /// and the rig is not already on the air. The replay's own reading of
+    /// its own line, for the independent count.
+    fn holds_off(&self) -> bool {
+        let lead = self.core.policy().inhibit_lead;
+        self.line_wired
+            && !self.transmitting
+            && self.inhibit_since.is_some_and(|t| self.now >= t + lead)
+    }
+
     fn apply_actions(&mut self) -> std::io::Result<()> {
         while let Some(action) = self.core.poll_action() {
             let now = self.now;
@@ -300,7 +332,20 @@ impl Effects for Sink<'_, '_> {
         if !on && r.arrival.is_some() {
             r.summary.violations += 1;
         }
+        if on && !r.inhibit {
+            r.inhibit_since = Some(now);
+        }
         r.inhibit = on;
+        if on {
+            // The simulated line is set at once.
+            r.core.handle_inhibit_set(now);
+        } else {
+            r.inhibit_since = None;
+            if r.command_held {
+                // Released under a held transmit command: on the air now.
+                r.count_transmit(true);
+            }
+        }
         r.timeline.entry(now, &Entry::Inhibit { on })
     }
 

@@ -298,6 +298,17 @@ pub struct Follower {
     /// When the inhibit was last asserted: a move waits `inhibit_lead`
     /// from then, however the inhibit came to be on.
     inhibit_since: Duration,
+    /// When the driver confirmed that the inhibit line is set
+    /// ([`Follower::handle_inhibit_set`]), while the core keeps it on:
+    /// `None` until confirmed, and again once released or after a fault.
+    line_set_at: Option<Duration>,
+    /// The transmit state is "transmit" only by a command seen going to
+    /// the rig while the wired inhibit line was set and its lead had
+    /// passed: the rig cannot be on the air, so the core takes it as
+    /// unknown (moves go ahead under the line) until the line is released,
+    /// when the command's transmission is in force (see
+    /// [`Follower::transmit_state`]).
+    command_held_off: bool,
     release_at: Option<Duration>,
     /// The running tail (`release_at`) follows a move's arrival (not the
     /// first report of a position).
@@ -389,6 +400,8 @@ impl Follower {
             motion: Motion::Idle,
             inhibit: false,
             inhibit_since: Duration::ZERO,
+            line_set_at: None,
+            command_held_off: false,
             release_at: None,
             tail_after_move: false,
             detune_hold: false,
@@ -466,10 +479,32 @@ impl Follower {
     /// A set seen going to the rig that changes that frequency settles
     /// [`SET_GRACE`] later (unless a report's debounce would be shorter);
     /// a report, after the debounce unless it is a jump.
+    ///
+    /// A transmit command seen going to the rig while the wired inhibit
+    /// line is set (confirmed, and its lead passed) is held off by the
+    /// line: see [`Follower::transmit_state`].
     pub fn handle_station(&mut self, now: Duration, ev: StationEvent) {
         let before = self.station.tune_hz(self.policy.tune_for);
-        let changed = self.station.apply(now, ev);
-        if changed.transmit {
+        let state_before = self.transmit_state();
+        let held_before = self.command_held_off;
+        self.station.apply(now, ev);
+        self.command_held_off = match ev {
+            StationEvent::Transmit {
+                on: true,
+                source: Source::CommandSeen,
+            } => {
+                // Only a command that found the rig not already on the air
+                // (a report, a poll answer or the line said so) is held off.
+                (state_before != TransmitState::Transmit || held_before)
+                    && self.station.transmit().state == TransmitState::Transmit
+                    && self.station.transmit().source == Some(Source::CommandSeen)
+                    && self.line_holds_off(now)
+            }
+            // Any other word on the transmit state is what holds now.
+            StationEvent::Transmit { .. } | StationEvent::TransmitUnknown => false,
+            _ => self.command_held_off,
+        };
+        if self.transmit_state() != state_before {
             self.transmit_changed(now);
         }
         if let Some(hz) = self.station.receive_hz() {
@@ -586,7 +621,7 @@ impl Follower {
         // the rig is not let go onto a loop tuned for the old frequency.
         let in_tail = self.inhibit && self.release_at.is_some() && self.tail_after_move;
         if (self.policy.inhibit_while_detuned || in_tail)
-            && self.station.transmit().state != TransmitState::Transmit
+            && self.transmit_state() != TransmitState::Transmit
             && self.position.is_some()
             && self.detuned_for(hz)
         {
@@ -634,7 +669,7 @@ impl Follower {
 
     fn transmit_changed(&mut self, now: Duration) {
         self.peak_abort_unless_receiving(now);
-        match self.station.transmit().state {
+        match self.transmit_state() {
             TransmitState::Transmit => self.stand_down(HoldReason::Transmitting),
             TransmitState::Receive => self.try_start(now),
             TransmitState::Unknown => {
@@ -647,7 +682,7 @@ impl Follower {
 
     /// What keeps a move from starting on the rig's side, if anything.
     fn rig_blocks(&self) -> Option<HoldReason> {
-        match self.station.transmit().state {
+        match self.transmit_state() {
             TransmitState::Transmit => Some(HoldReason::Transmitting),
             TransmitState::Unknown if !self.policy.while_unknown.moves() => {
                 Some(HoldReason::TransmitUnknown)
@@ -675,7 +710,7 @@ impl Follower {
                 self.release_at = None;
                 self.pending = None;
                 self.settled_hz = None;
-                if self.station.transmit().state != TransmitState::Transmit {
+                if self.transmit_state() != TransmitState::Transmit {
                     self.set_inhibit(true);
                 }
             }
@@ -800,6 +835,10 @@ impl Follower {
             };
         }
         self.fault = true;
+        // What was confirmed of the line is no longer trusted (the fault may
+        // be the line's own write): a command is not held off by it again
+        // until the line is confirmed set anew.
+        self.line_set_at = None;
         self.position = None;
         self.tuned_hz = None;
         if self.policy.inhibit_until_tuned {
@@ -1247,6 +1286,24 @@ impl Follower {
         }
     }
 
+    /// The driver confirms that the inhibit line took the last
+    /// [`Action::Inhibit`] it was given, *on*, at `set_at` (when the line
+    /// was set). Taken only when that is the core's last word on the line
+    /// (no later `Inhibit` still waits in [`Follower::poll_action`]) and
+    /// the core still wants it on. From `inhibit_lead` after `set_at` a
+    /// transmit command seen going to the rig is held off by the line
+    /// ([`Follower::transmit_state`]); a driver that never confirms gets
+    /// the fail-safe reading (every transmit command is a transmission).
+    pub fn handle_inhibit_set(&mut self, set_at: Duration) {
+        let later = self
+            .actions
+            .iter()
+            .any(|a| matches!(a, Action::Inhibit { .. }));
+        if self.inhibit && !later && self.line_set_at.is_none() {
+            self.line_set_at = Some(set_at);
+        }
+    }
+
     /// The SWR watch raised its alarm with `action = "inhibit"` and a line
     /// wired: assert the inhibit now, against the transmission in progress
     /// (the one exception to "never against an over": the loop may be
@@ -1515,21 +1572,58 @@ impl Follower {
     }
     /// The rig is known to transmit.
     pub fn transmitting(&self) -> bool {
-        self.station.transmit().state == TransmitState::Transmit
+        self.transmit_state() == TransmitState::Transmit
     }
     /// What the core knows of the rig.
     pub fn station(&self) -> &Station {
         &self.station
     }
-    /// The transmit state, its source and since when.
+    /// The transmit state, its source and since when, as the station
+    /// model has it (a command held off by the line still reads
+    /// "transmit" here; [`Follower::transmit_state`] is what the core acts
+    /// on).
     pub fn transmit(&self) -> TransmitKnowledge {
         self.station.transmit()
+    }
+
+    /// The transmit state the core acts on: the station model's, except
+    /// that a transmit command seen going to the rig while the wired
+    /// inhibit line was set and its lead had passed counts as unknown
+    /// until the line is released. Such a command cannot put the rig on
+    /// the air (the line holds it off), so a move may go ahead under the
+    /// line, as it may whenever the state is unknown with a line wired;
+    /// a rig report, a poll answer or the sense line saying transmit ends
+    /// that at once (a real transmission stops every move), and at the
+    /// release the command's transmission is in force (the rig goes on the
+    /// air if the key is still held). Without a wired line
+    /// ([`WhileUnknown::MoveUnderInhibit`]) nothing is held off.
+    pub fn transmit_state(&self) -> TransmitState {
+        match self.station.transmit().state {
+            TransmitState::Transmit if self.command_held_off => TransmitState::Unknown,
+            state => state,
+        }
+    }
+
+    /// A transmit command seen going to the rig now could not put it on
+    /// the air: a line is wired, the core keeps it on, and the driver
+    /// confirmed it set at least `inhibit_lead` ago.
+    fn line_holds_off(&self, now: Duration) -> bool {
+        self.policy.while_unknown == WhileUnknown::MoveUnderInhibit
+            && self.inhibit
+            && self
+                .line_set_at
+                .is_some_and(|t| now >= t + self.policy.inhibit_lead)
+    }
+
+    /// A transmit command is being held off by the inhibit line.
+    pub fn command_held_off(&self) -> bool {
+        self.command_held_off
     }
     /// Whether nothing may move for want of knowing whether the rig
     /// transmits, or because it does: what the controller link's own
     /// interlock is told.
     pub fn rig_may_transmit(&self) -> bool {
-        match self.station.transmit().state {
+        match self.transmit_state() {
             TransmitState::Transmit => true,
             TransmitState::Unknown => !self.policy.while_unknown.moves(),
             TransmitState::Receive => false,
@@ -1853,10 +1947,20 @@ impl Follower {
         if self.inhibit != on {
             self.inhibit = on;
             self.actions.push_back(Action::Inhibit { on });
+            if !on {
+                self.line_set_at = None;
+                if std::mem::take(&mut self.command_held_off) {
+                    // The line let go: the command's transmission is in
+                    // force (the rig goes on the air if still keyed).
+                    self.stand_down(HoldReason::Transmitting);
+                }
+            }
         }
     }
 }
 
+#[cfg(test)]
+mod held_tests;
 #[cfg(test)]
 mod jump_tests;
 #[cfg(test)]

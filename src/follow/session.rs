@@ -494,6 +494,9 @@ struct Shell {
     resync_moving_to: Option<i64>,
     /// The inhibit output has accepted *on* and not been set off since.
     inhibit_on: bool,
+    /// The core held a transmit command off under the inhibit line when
+    /// last asked: its release puts the command's transmission in force.
+    command_held: bool,
     /// What the journal says (kept in step with every write).
     recorded: Option<Recorded>,
     resync: Resync,
@@ -626,6 +629,7 @@ impl Session {
             last_arrival: None,
             resync_moving_to: None,
             inhibit_on: true,
+            command_held: false,
             recorded,
             resync: Resync::Idle,
             block_gotos: false,
@@ -954,6 +958,25 @@ impl Session {
         if matches!(ev, StationEvent::Transmit { .. }) || before != after {
             self.st.push(Output::Transmit { on: after });
         }
+        self.st.command_held = self.core.command_held_off();
+    }
+
+    /// After one of the core's actions: a transmit command the core held
+    /// off under the inhibit line is in force once the line is released,
+    /// so the rig transmits (if still keyed) from then on, for the log,
+    /// the SWR watch and the controller link's own interlock.
+    fn held_command_released(&mut self, now: Duration) {
+        if !self.st.command_held || self.core.command_held_off() {
+            return;
+        }
+        self.st.command_held = false;
+        if self.core.transmitting() {
+            self.st.note(Note::Transmit { on: true });
+            self.swr_transmit(now, true);
+            self.st.push(Output::Transmit {
+                on: self.core.rig_may_transmit(),
+            });
+        }
     }
 
     /// An event from the controller link.
@@ -1116,6 +1139,12 @@ impl Session {
                     self.st.inhibit_set_at = Some(now);
                 }
                 self.st.inhibit_on = on;
+                if on {
+                    // The core's own lead for a transmit command held off
+                    // by the line counts from the same moment.
+                    self.core
+                        .handle_inhibit_set(self.st.inhibit_set_at.unwrap_or(now));
+                }
                 self.st.note(Note::Inhibit { on });
             }
             (Awaiting::CoreInhibit { on }, Err(error)) => {
@@ -1275,6 +1304,7 @@ impl Session {
                     if let Some(ask_again) = self.st.fault_request.take() {
                         self.fault(now, ask_again);
                     }
+                    self.held_command_released(now);
                     continue;
                 }
             }

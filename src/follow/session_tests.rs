@@ -97,7 +97,19 @@ impl Bench {
         relax: bool,
         home: Option<HomeSettings>,
     ) -> Bench {
-        Bench::built(journal, backlash, relax, home, None)
+        Bench::built(journal, backlash, relax, home, None, false)
+    }
+
+    /// With `station`, the decoder also reads the station's messages (the
+    /// other program's commands going to the rig, as in proxy mode).
+    fn with_decoder(
+        journal: Option<Recorded>,
+        backlash: i64,
+        relax: bool,
+        home: Option<HomeSettings>,
+        station: bool,
+    ) -> Bench {
+        Bench::built(journal, backlash, relax, home, None, station)
     }
 
     fn built(
@@ -106,6 +118,7 @@ impl Bench {
         relax: bool,
         home: Option<HomeSettings>,
         small_loop: Option<crate::antenna::SmallLoop>,
+        station: bool,
     ) -> Bench {
         let dialect = Dialect::builtin("text-semicolon").expect("built-in dialect");
         let settings = SessionSettings {
@@ -118,7 +131,12 @@ impl Bench {
             home,
         };
         let core = Follower::new(policy(backlash), Arc::new(Line), None).with_loop(small_loop);
-        let s = Session::new(core, dialect.decoder(None), journal, settings);
+        let decoder = if station {
+            dialect.station_decoder(None)
+        } else {
+            dialect.decoder(None)
+        };
+        let s = Session::new(core, decoder, journal, settings);
         let mut b = Bench {
             s,
             dialect,
@@ -1486,7 +1504,7 @@ fn swr_bench_with(
     small_loop: Option<crate::antenna::SmallLoop>,
 ) -> Bench {
     use super::super::swr_watch::SwrWatchSettings;
-    let mut b = Bench::built(None, 0, false, None, small_loop);
+    let mut b = Bench::built(None, 0, false, None, small_loop, false);
     b.tuner(TunerEvent::LinkUp);
     b.tuner(TunerEvent::At { steps: 0 });
     b.wait(ms(100));
@@ -1660,4 +1678,58 @@ fn readings_at_or_below_the_alarm_raise_nothing() {
     assert_eq!(b.levels.len(), levels);
     assert_eq!(b.s.status().swr_alarm, None);
     assert_eq!(b.s.status().swr_read, Some(1.1));
+}
+
+impl Bench {
+    /// Another program's message to the rig (proxy mode): bytes going *to*
+    /// the rig.
+    fn program_sends(&mut self, m: crate::rig::StationMessage) {
+        let bytes = self.dialect.encode_station(&m, 0);
+        self.s.handle_rig_bytes(self.now, Direction::Tx, &bytes);
+        self.pump();
+    }
+}
+
+#[test]
+fn a_transmit_command_under_the_set_line_is_in_force_at_the_release() {
+    use crate::rig::StationMessage as M;
+    let mut b = Bench::with_decoder(None, 0, false, None, true);
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::At { steps: 0 });
+    b.wait(ms(100));
+    b.transmit(false);
+    let start = b.now;
+    // A program's set at 7.1 MHz (1000 steps): settles after the 30 ms
+    // debounce, the line is set, the `GOTO` follows its 5 ms lead.
+    b.program_sends(M::SetFrequency {
+        vfo: crate::rig::Vfo::A,
+        selected: true,
+        hz: 7_100_000,
+    });
+    b.wait(ms(40));
+    assert_eq!(b.gotos(), vec![1000]);
+    assert_eq!(b.levels.last(), Some(&true));
+    // The program keys the rig 45 ms after its set, the line set for 10 ms:
+    // held off, the move goes on and the link's interlock is told receive.
+    b.program_sends(M::Transmit { on: true });
+    assert!(b.s.core().command_held_off());
+    assert_eq!(b.stops(), 0);
+    assert_eq!(b.transmit.last(), Some(&false));
+    b.tuner(TunerEvent::At { steps: 1000 });
+    b.wait(ms(20));
+    assert_eq!(b.transmit.last(), Some(&false), "told before the release");
+    b.wait(TAIL);
+    // Released after the tail: the command's transmission is in force,
+    // and the controller link's interlock is told so.
+    assert_eq!(b.levels.last(), Some(&false));
+    assert_eq!(b.transmit.last(), Some(&true));
+    assert!(b.s.core().transmitting());
+    assert_eq!(b.stops(), 0);
+    let gotos: Vec<Duration> = b
+        .timed
+        .iter()
+        .filter(|(_, w)| matches!(w, Wire::Command(TunerCommand::Goto(_))))
+        .map(|(t, _)| t.saturating_sub(start))
+        .collect();
+    assert_eq!(gotos, vec![ms(35)]);
 }
