@@ -755,6 +755,13 @@ pub struct InhibitConfig {
     /// `tuneward check` refuses that choice unless it is written down here.
     #[serde(default)]
     pub unprotected_ok: bool,
+    /// The station states that the line keeps the rig itself off the air,
+    /// also against a transmission keyed by a CAT command (the rig's own
+    /// transmit-inhibit input, not only an amplifier's or the PTT jack's):
+    /// a transmit command seen while the line is set then lets a move go
+    /// ahead under it. Default `false`.
+    #[serde(default)]
+    pub holds_cat_keying: bool,
 }
 
 fn default_active_high() -> bool {
@@ -770,6 +777,7 @@ impl Default for InhibitConfig {
             offset: None,
             active_high: true,
             unprotected_ok: false,
+            holds_cat_keying: false,
         }
     }
 }

@@ -568,6 +568,9 @@ fn run_policy(
     // reported apart), so a move may go ahead under it while the rig's
     // transmit state is unknown, as at a station with its line wired.
     setup.policy.while_unknown = crate::follow::WhileUnknown::MoveUnderInhibit;
+    // And it holds the rig itself off, also against a CAT-keyed
+    // transmission (`[inhibit] holds_cat_keying = true`): the model above.
+    setup.policy.line_holds_commands = true;
     let mut log = InhibitLog(Vec::new(), Vec::new());
     // A polled-only family's reads go to the rig just before each answer.
     let asks = DialectWire {

@@ -76,7 +76,8 @@ impl<'t> Replay<'t> {
     pub fn new(setup: ReplaySetup, timeline: &'t mut dyn Timeline) -> Self {
         let start = setup.start_steps;
         let tuner = SimTuner::new(setup.tuner, start.unwrap_or(setup.policy.min_steps));
-        let line_wired = setup.policy.while_unknown == WhileUnknown::MoveUnderInhibit;
+        let line_wired = setup.policy.while_unknown == WhileUnknown::MoveUnderInhibit
+            && setup.policy.line_holds_commands;
         let mut core = Follower::new(setup.policy, setup.map, start);
         if setup.sense_wired {
             core.expect_sense_line();

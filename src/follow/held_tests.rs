@@ -2,7 +2,8 @@
 //! logging program sets a frequency and keys the rig by command 50-100 ms
 //! later, while the inhibit the core asserted for the new frequency is
 //! already set. The rig cannot go on the air through a set line, so the
-//! move goes ahead under it; anything saying the rig really transmits
+//! move goes ahead under it (where the station says its line holds the
+//! rig against CAT keying); anything saying the rig really transmits
 //! stops the move at once; without a wired line nothing changes.
 //!
 //! The calibration is the invented straight line of `test_support` (100 Hz
@@ -248,6 +249,21 @@ fn without_a_wired_line_a_transmit_command_is_a_transmission() {
         b.run(5_000, 6_000);
         assert_eq!(b.gotos(), vec![(5_000, 9_500)], "{while_unknown:?}");
     }
+}
+
+#[test]
+fn a_line_not_said_to_hold_cat_keying_holds_nothing_off() {
+    // A line wired to an amplifier's interlock or the rig's PTT input may
+    // leave a CAT-keyed rig on the air: unless the station says it holds
+    // the rig itself (`[inhibit] holds_cat_keying`), a command is a
+    // transmission.
+    let mut b = Bench::new(WhileUnknown::MoveUnderInhibit, true);
+    b.f.policy.line_holds_commands = false;
+    click_and_key(&mut b, 60);
+    assert!(!b.f.command_held_off());
+    assert!(b.f.transmitting());
+    b.run(1_060, 3_000);
+    assert!(b.gotos().is_empty(), "{:?}", b.all);
 }
 
 #[test]

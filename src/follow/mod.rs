@@ -1596,7 +1596,9 @@ impl Follower {
     /// that at once (a real transmission stops every move), and at the
     /// release the command's transmission is in force (the rig goes on the
     /// air if the key is still held). Without a wired line
-    /// ([`WhileUnknown::MoveUnderInhibit`]) nothing is held off.
+    /// ([`WhileUnknown::MoveUnderInhibit`]), or with one the station has
+    /// not said holds the rig against CAT keying
+    /// (`policy.line_holds_commands`), nothing is held off.
     pub fn transmit_state(&self) -> TransmitState {
         match self.station.transmit().state {
             TransmitState::Transmit if self.command_held_off => TransmitState::Unknown,
@@ -1605,10 +1607,12 @@ impl Follower {
     }
 
     /// A transmit command seen going to the rig now could not put it on
-    /// the air: a line is wired, the core keeps it on, and the driver
+    /// the air: a line is wired that holds the rig itself off
+    /// (`policy.line_holds_commands`), the core keeps it on, and the driver
     /// confirmed it set at least `inhibit_lead` ago.
     fn line_holds_off(&self, now: Duration) -> bool {
         self.policy.while_unknown == WhileUnknown::MoveUnderInhibit
+            && self.policy.line_holds_commands
             && self.inhibit
             && self
                 .line_set_at

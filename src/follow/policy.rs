@@ -68,6 +68,13 @@ pub struct Policy {
     pub tune_for: TuneFor,
     /// Whether a move may go ahead while the transmit state is unknown.
     pub while_unknown: WhileUnknown,
+    /// The wired inhibit line keeps the rig itself off the air, also when
+    /// it is keyed by a CAT command (`[inhibit] holds_cat_keying`): a
+    /// transmit command seen while the line is set is then held off by it
+    /// (`Follower::transmit_state`). `false` (the default): the line may
+    /// hold only an amplifier or the rig's PTT input, and every transmit
+    /// command is a transmission.
+    pub line_holds_commands: bool,
     /// Keep the inhibit asserted from start (and from a rig-port
     /// reconnect) until the loop is known to be tuned for the rig's
     /// frequency; the live service and replays of a station turn it on.
@@ -238,6 +245,7 @@ mod tests {
             candidate_dwell: Duration::from_secs(10),
             tune_for: TuneFor::Transmit,
             while_unknown: WhileUnknown::MoveUnderInhibit,
+            line_holds_commands: false,
             inhibit_until_tuned: false,
         }
     }

@@ -50,6 +50,7 @@ fn policy(backlash: i64) -> Policy {
         // start-up hold until tuned has tests of its own.
         tune_for: TuneFor::Transmit,
         while_unknown: WhileUnknown::MoveUnderInhibit,
+        line_holds_commands: true,
         inhibit_until_tuned: false,
         inhibit_while_detuned: false,
         jump: None,

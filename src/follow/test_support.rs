@@ -56,6 +56,7 @@ pub(super) fn policy() -> Policy {
         candidate_dwell: ms(5_000),
         tune_for: TuneFor::Transmit,
         while_unknown: WhileUnknown::MoveUnderInhibit,
+        line_holds_commands: true,
         inhibit_until_tuned: false,
         inhibit_while_detuned: false,
         jump: None,

@@ -491,7 +491,21 @@ fn describe_inhibit(station: &Station, findings: &mut Vec<Finding>, text: &mut V
             "remove it",
         ));
     }
+    if i.holds_cat_keying && i.line == crate::config::InhibitKind::None {
+        findings.push(Finding::new(
+            Grade::Note,
+            "inhibit.holds_cat_keying",
+            "has no effect without an inhibit line wired",
+            "remove it, or wire a line to the rig's own transmit-inhibit input",
+        ));
+    }
     text.push(format!("inhibit   {line}"));
+    if p.line_holds_commands {
+        text.push(
+            "          holds the rig off against CAT keying too (holds_cat_keying): a transmit command seen while it is set lets a move go ahead under it"
+                .to_string(),
+        );
+    }
     text.push(format!(
         "          on from start until the position is known, {} ms before every move and {} ms after it{}",
         p.inhibit_lead.as_millis(),

@@ -89,6 +89,8 @@ pub fn policy_from_config(
         sweep_settle: (f.sweep_settle_intervals > 0).then_some(f64::from(f.sweep_settle_intervals)),
         tune_for: f.tune_for.into(),
         while_unknown: while_unknown(&config.inhibit),
+        line_holds_commands: config.inhibit.holds_cat_keying
+            && config.inhibit.line != InhibitKind::None,
         inhibit_until_tuned: true,
     })
 }
@@ -1064,6 +1066,31 @@ mod tests {
         let config = Config::parse(&fixed, std::path::Path::new("t.toml")).unwrap();
         let p = policy_from_config(&config, |_| Some(1)).unwrap();
         assert_eq!(p.bands[0].hysteresis_hz, 1500);
+    }
+
+    #[test]
+    fn a_transmit_command_is_held_off_only_by_a_wired_line_said_to_hold_cat_keying() {
+        let text = "[calibration]\npoints = [{ hz = 7000000, steps = 4000 }, { hz = 7200000, steps = 3000 }]\n\
+                    [[band]]\nname = \"40m\"\nlow_hz = 7000000\nhigh_hz = 7200000\n";
+        let held = |inhibit: &str| {
+            let c = Config::parse(
+                &format!("[inhibit]\n{inhibit}\n{text}"),
+                std::path::Path::new("t.toml"),
+            )
+            .unwrap();
+            policy_from_config(&c, |_| None)
+                .unwrap()
+                .line_holds_commands
+        };
+        let rts = "line = \"rts\"\nport = \"/dev/ttyUSB9\"\nactive_high = false";
+        assert!(held(&format!("{rts}\nholds_cat_keying = true")));
+        // The default: a line may hold only an amplifier or the PTT jack.
+        assert!(!held(rts));
+        // Without a line nothing holds anything off.
+        assert!(!held("line = \"none\"\nholds_cat_keying = true"));
+        assert!(!held(
+            "line = \"none\"\nunprotected_ok = true\nholds_cat_keying = true"
+        ));
     }
 
     #[test]

@@ -70,6 +70,7 @@ pub fn policy(debounce: Duration) -> Policy {
         // on the real binary with a config.
         tune_for: TuneFor::Transmit,
         while_unknown: WhileUnknown::MoveUnderInhibit,
+        line_holds_commands: false,
         inhibit_until_tuned: false,
     }
 }
