@@ -54,7 +54,8 @@ pub use station::{
 /// forwards those bytes to the rig before the core has seen them, so a
 /// move started at the set could be under way when the rig keys. Common
 /// practice for logging programs, no source; the sets of one burst (VFO A,
-/// VFO B, split) settle once, on where they end.
+/// VFO B, split) settle once, on where they end. Shorter where the line
+/// holds that keying off ([`Follower::set_grace`]).
 pub const SET_GRACE: Duration = Duration::from_millis(100);
 
 /// Why the core decided not to move (or not to move as asked).
@@ -477,7 +478,8 @@ impl Follower {
     /// loop follows the frequency `policy.tune_for` names (the transmit
     /// frequency by default), so a change of the other one moves nothing.
     /// A set seen going to the rig that changes that frequency settles
-    /// [`SET_GRACE`] later (unless a report's debounce would be shorter);
+    /// [`Follower::set_grace`] later (unless a report's debounce would be
+    /// shorter);
     /// a report, after the debounce unless it is a jump.
     ///
     /// A transmit command seen going to the rig while the wired inhibit
@@ -538,7 +540,7 @@ impl Follower {
                     self.stats.jumps += 1;
                 }
                 let due = if set {
-                    Some(now + SET_GRACE.min(self.policy.debounce_for(hz)))
+                    Some(now + self.set_grace().min(self.policy.debounce_for(hz)))
                 } else {
                     jump.then_some(now)
                 };
@@ -1603,6 +1605,23 @@ impl Follower {
         match self.station.transmit().state {
             TransmitState::Transmit if self.command_held_off => TransmitState::Unknown,
             state => state,
+        }
+    }
+
+    /// How long a frequency set seen going to the rig waits before it
+    /// settles: [`SET_GRACE`], so that a program keying the rig right
+    /// after its set finds no move under way. Where the wired line holds
+    /// the rig against CAT keying (`policy.line_holds_commands`) that
+    /// keying is held off by the line, which the move waits for anyway (it
+    /// starts `inhibit_lead` after the line is set): the set then waits
+    /// only that lead, never longer than [`SET_GRACE`].
+    fn set_grace(&self) -> Duration {
+        if self.policy.while_unknown == WhileUnknown::MoveUnderInhibit
+            && self.policy.line_holds_commands
+        {
+            SET_GRACE.min(self.policy.inhibit_lead)
+        } else {
+            SET_GRACE
         }
     }
 
