@@ -189,9 +189,10 @@ pub struct Row {
     /// Starts of a leg while the rig was on the air, or with the inhibit
     /// off, or outside the limits (the replay's own count; always 0).
     pub violations: u64,
-    /// Time the capacitor was moving while the rig was on the air or a
-    /// transmit command from another program was in force, in s (the
-    /// bench's own count from the simulated motor; always 0).
+    /// Time the capacitor was moving while the rig was on the air (keyed
+    /// and not held off by the inhibit, by the operator or by another
+    /// program's command), in s (the bench's own count from the simulated
+    /// motor; always 0).
     pub moved_keyed_s: f64,
 }
 
@@ -210,6 +211,51 @@ pub struct ShortDwell {
     pub over_1_5_s: f64,
     pub worst_swr: f64,
     pub why: String,
+}
+
+/// A jump followed by a call where `follow` kept the operator waiting more
+/// than 50 ms over the jump's floor: where and when, the waits (`follow`'s,
+/// the floor, the naive policy's on the same jump), what the core did in
+/// between (when it first settled on a frequency, how many moves it
+/// started, its holds in order) and what the operator had done just
+/// before (the previous report, how far and how long before).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SlowJump {
+    pub family: &'static str,
+    pub seed: u64,
+    /// When the report of the new frequency came, s from the evening's start.
+    pub at_s: f64,
+    pub hz: u64,
+    pub wait_s: f64,
+    pub floor_s: f64,
+    pub naive_wait_s: f64,
+    /// From the report to the core's first settle on any frequency, in s
+    /// (`null` when it never settled within the wait).
+    pub settled_after_s: Option<f64>,
+    /// Moves the core started within the wait.
+    pub moves: usize,
+    /// The core's holds within the wait, in order, repeats left out.
+    pub holds: Vec<&'static str>,
+    /// The previous frequency reported and how long before, in s.
+    pub previous_hz: Option<u64>,
+    pub previous_gap_s: Option<f64>,
+}
+
+impl SlowJump {
+    pub fn excess_s(&self) -> f64 {
+        self.wait_s - self.floor_s
+    }
+}
+
+/// One jump's details from one policy's run.
+#[derive(Debug, Clone, Default)]
+struct JumpDetail {
+    at: Duration,
+    hz: u64,
+    settled_after_s: Option<f64>,
+    moves: usize,
+    holds: Vec<&'static str>,
+    previous: Option<(u64, f64)>,
 }
 
 /// One family's rows.
@@ -236,6 +282,9 @@ pub struct BenchReport {
     /// Every dwell where the station's policy (`follow`) fell short of
     /// 1.5:1 on the air, in the order met.
     pub short_dwells: Vec<ShortDwell>,
+    /// Every jump followed by a call where `follow` waited more than 50 ms
+    /// over the floor, in the order met.
+    pub slow_jumps: Vec<SlowJump>,
 }
 
 fn find_row<'a>(rows: &'a [Row], policy: &str) -> Option<&'a Row> {
@@ -414,6 +463,7 @@ struct Tally {
     violations: u64,
     moved_keyed: f64,
     short: Vec<ShortDwell>,
+    jump_detail: Vec<JumpDetail>,
 }
 
 /// The nearest-rank percentile `p` (0 to 1) of `xs`; 0 for none.
@@ -509,14 +559,22 @@ fn retunes_with_calls(sc: &Scenario) -> Vec<Retune> {
         .collect()
 }
 
-/// Records when the inhibit went on and off, and the core's holds.
-struct InhibitLog(Vec<(Duration, bool)>, Vec<(Duration, &'static str)>);
+/// Records when the inhibit went on and off, the core's holds, and when
+/// it settled and started moves (for the slow jumps' details).
+struct InhibitLog(
+    Vec<(Duration, bool)>,
+    Vec<(Duration, &'static str)>,
+    Vec<Duration>,
+    Vec<Duration>,
+);
 
 impl crate::timeline::Timeline for InhibitLog {
     fn entry(&mut self, t: Duration, entry: &crate::timeline::Entry) -> std::io::Result<()> {
         match entry {
             crate::timeline::Entry::Inhibit { on } => self.0.push((t, *on)),
             crate::timeline::Entry::Hold { reason, .. } => self.1.push((t, reason)),
+            crate::timeline::Entry::Settle { .. } => self.2.push(t),
+            crate::timeline::Entry::Move { .. } => self.3.push(t),
             _ => {}
         }
         Ok(())
@@ -524,6 +582,24 @@ impl crate::timeline::Timeline for InhibitLog {
 }
 
 impl InhibitLog {
+    /// What the core did from `at` for `wait`.
+    fn detail(&self, at: Duration, wait: Duration) -> (Option<f64>, usize, Vec<&'static str>) {
+        let end = at + wait;
+        let settled = self
+            .2
+            .iter()
+            .find(|t| **t >= at && **t <= end)
+            .map(|t| (*t - at).as_secs_f64());
+        let moves = self.3.iter().filter(|t| **t >= at && **t <= end).count();
+        let mut holds: Vec<&'static str> = Vec::new();
+        for (_, r) in self.1.iter().filter(|(t, _)| *t >= at && *t <= end) {
+            if holds.last() != Some(r) {
+                holds.push(r);
+            }
+        }
+        (settled, moves, holds)
+    }
+
     /// The core's last hold at or after `since`, if any.
     fn hold_since(&self, since: Duration) -> Option<&'static str> {
         self.1
@@ -571,7 +647,7 @@ fn run_policy(
     // And it holds the rig itself off, also against a CAT-keyed
     // transmission (`[inhibit] holds_cat_keying = true`): the model above.
     setup.policy.line_holds_commands = true;
-    let mut log = InhibitLog(Vec::new(), Vec::new());
+    let mut log = InhibitLog(Vec::new(), Vec::new(), Vec::new(), Vec::new());
     // A polled-only family's reads go to the rig just before each answer.
     let asks = DialectWire {
         dialect: &station.dialect,
@@ -750,9 +826,31 @@ fn run_policy(
     tally.travel += summary.steps;
     tally.violations += summary.violations;
     for r in retunes_with_calls(sc) {
-        let wait = log.wait_from(r.at, sc.end).as_secs_f64();
+        let waited = log.wait_from(r.at, sc.end);
+        let wait = waited.as_secs_f64();
         match r.kind {
-            RetuneKind::Jump => tally.jump_waits.push(wait),
+            RetuneKind::Jump => {
+                tally.jump_waits.push(wait);
+                let (settled_after_s, moves, holds) = log.detail(r.at, waited);
+                let previous = sc
+                    .steps
+                    .iter()
+                    .take_while(|(t, _)| *t < r.at)
+                    .filter_map(|(t, h)| match h {
+                        Happening::Report { hz } if *hz != r.hz => Some((*hz, *t)),
+                        _ => None,
+                    })
+                    .last()
+                    .map(|(hz, t)| (hz, (r.at - t).as_secs_f64()));
+                tally.jump_detail.push(JumpDetail {
+                    at: r.at,
+                    hz: r.hz,
+                    settled_after_s,
+                    moves,
+                    holds,
+                    previous,
+                });
+            }
             RetuneKind::Sweep => tally.sweep_waits.push(wait),
         }
     }
@@ -848,6 +946,7 @@ pub fn bench_follow(
     let mut all = [Tally::default(), Tally::default(), Tally::default()];
     let mut dwells = 0;
     let mut families = Vec::new();
+    let mut slow_jumps = Vec::new();
     for &family in &options.families {
         let mut t = [Tally::default(), Tally::default(), Tally::default()];
         let mut family_dwells = 0;
@@ -856,9 +955,35 @@ pub fn bench_follow(
             family_dwells += sc.dwells.len();
             let chunks = sc.answers(&wire);
             let floors = optimum(station, &physics, &sc, &mut t[2]);
+            let mut ours_jumps: Vec<(JumpDetail, f64)> = Vec::new();
             for (i, policy) in [&ours, &plain].into_iter().enumerate() {
                 let mut one = Tally::default();
                 run_policy(station, policy, &sc, &chunks, &sim_loop, &mut one)?;
+                let details = std::mem::take(&mut one.jump_detail);
+                if i == 0 {
+                    ours_jumps = details.into_iter().zip(one.jump_waits.clone()).collect();
+                } else {
+                    for (((d, wait), floor), naive_wait) in
+                        ours_jumps.iter().zip(&floors).zip(&one.jump_waits)
+                    {
+                        if wait - floor > 0.050 {
+                            slow_jumps.push(SlowJump {
+                                family: family.name(),
+                                seed,
+                                at_s: d.at.as_secs_f64(),
+                                hz: d.hz,
+                                wait_s: *wait,
+                                floor_s: *floor,
+                                naive_wait_s: *naive_wait,
+                                settled_after_s: d.settled_after_s,
+                                moves: d.moves,
+                                holds: d.holds.clone(),
+                                previous_hz: d.previous.map(|p| p.0),
+                                previous_gap_s: d.previous.map(|p| p.1),
+                            });
+                        }
+                    }
+                }
                 if i == 0 {
                     for d in &mut one.short {
                         d.family = family.name();
@@ -897,6 +1022,7 @@ pub fn bench_follow(
         rows: rows(&all),
         families,
         short_dwells: std::mem::take(&mut all[0].short),
+        slow_jumps,
     })
 }
 
@@ -1055,7 +1181,59 @@ pub fn write_table(report: &BenchReport, out: &mut dyn Write) -> std::io::Result
             if report.target_met() { "met" } else { "missed" }
         )?;
     }
-    write_short_dwells(&report.short_dwells, out)
+    write_short_dwells(&report.short_dwells, out)?;
+    write_slow_jumps(&report.slow_jumps, out)
+}
+
+/// How many slow jumps the table names (the slowest); JSON has them all.
+const SLOW_SHOWN: usize = 12;
+
+/// The jumps where `follow` waited more than 50 ms over the floor.
+fn write_slow_jumps(slow: &[SlowJump], out: &mut dyn Write) -> std::io::Result<()> {
+    if slow.is_empty() {
+        return writeln!(out, "follow: no jump waited more than 50 ms over its floor");
+    }
+    writeln!(
+        out,
+        "follow waited more than 50 ms over the floor after {} jumps; the slowest (family, seed, report, frequency, previous report and how long before, wait, floor, naive's wait, first settle after, moves, holds):",
+        slow.len()
+    )?;
+    let mut v: Vec<&SlowJump> = slow.iter().collect();
+    v.sort_by(|a, b| b.excess_s().total_cmp(&a.excess_s()));
+    for j in v.into_iter().take(SLOW_SHOWN) {
+        let prev = match (j.previous_hz, j.previous_gap_s) {
+            (Some(hz), Some(gap)) => format!(
+                "{:+.1} kHz {:.3} s before",
+                (j.hz as f64 - hz as f64) / 1e3,
+                gap
+            ),
+            _ => "no report before".to_string(),
+        };
+        writeln!(
+            out,
+            "  {:<8} seed {:<4} {:>8.1} s  {:>10.6} MHz  {}  wait {:.3} s  floor {:.3} s  naive {:.3} s  settled {}  moves {}  holds [{}]",
+            j.family,
+            j.seed,
+            j.at_s,
+            j.hz as f64 / 1e6,
+            prev,
+            j.wait_s,
+            j.floor_s,
+            j.naive_wait_s,
+            j.settled_after_s
+                .map_or("never".to_string(), |s| format!("{s:.3} s")),
+            j.moves,
+            j.holds.join(", ")
+        )?;
+    }
+    if slow.len() > SLOW_SHOWN {
+        writeln!(
+            out,
+            "  ... and {} more (--json lists them all)",
+            slow.len() - SLOW_SHOWN
+        )?;
+    }
+    Ok(())
 }
 
 /// How many short dwells the table names; JSON has them all.
@@ -1346,6 +1524,20 @@ mod tests {
                 worst_swr: 2.5,
                 why: "held (transmitting)".into(),
             }],
+            slow_jumps: vec![SlowJump {
+                family: "spotting",
+                seed: 7,
+                at_s: 40.0,
+                hz: 7_080_000,
+                wait_s: 0.9,
+                floor_s: 0.3,
+                naive_wait_s: 0.35,
+                settled_after_s: Some(0.4),
+                moves: 1,
+                holds: vec!["dead-band"],
+                previous_hz: Some(7_078_500),
+                previous_gap_s: Some(12.0),
+            }],
         };
         assert!(report.target_met() && report.wait_target_met());
         assert!(report.families[0].wait_target_met());
@@ -1365,6 +1557,12 @@ mod tests {
                 && text.contains("spotting seed 7")
                 && text.contains("7.074000 MHz")
                 && text.contains("held (transmitting)"),
+            "{text}"
+        );
+        // The slow jump, with what came before and what the core did.
+        assert!(
+            text.contains("after 1 jumps")
+                && text.contains("7.080000 MHz  +1.5 kHz 12.000 s before  wait 0.900 s  floor 0.300 s  naive 0.350 s  settled 0.400 s  moves 1  holds [dead-band]"),
             "{text}"
         );
     }
