@@ -254,6 +254,39 @@ fn modem_line_polarity_is_judged_and_printed() {
 }
 
 #[test]
+fn a_line_said_to_hold_cat_keying_is_printed_and_without_a_line_noted() {
+    let dir = tempfile::tempdir().unwrap();
+    let with_line = "[inhibit]\nline = \"rts\"\nport = \"/dev/null-inhibit\"\nactive_high = false\nholds_cat_keying = true\n\n[[band]]";
+    let config = demo_with(dir.path(), "cat.toml", &[("[[band]]", with_line)]);
+    let (code, out, _) = check(&config, &[]);
+    assert_eq!(code, Some(0), "{out}");
+    assert!(
+        out.contains("holds the rig off against CAT keying too"),
+        "{out}"
+    );
+    assert!(
+        !has_finding(&out, "note", "inhibit.holds_cat_keying"),
+        "{out}"
+    );
+    // Left out (the default): nothing said.
+    let plain =
+        "[inhibit]\nline = \"rts\"\nport = \"/dev/null-inhibit\"\nactive_high = false\n\n[[band]]";
+    let config = demo_with(dir.path(), "plain.toml", &[("[[band]]", plain)]);
+    let (_, out, _) = check(&config, &[]);
+    assert!(!out.contains("CAT keying"), "{out}");
+    // Without a line it does nothing, and check says so.
+    let no_line = "[inhibit]\nholds_cat_keying = true\n\n[[band]]";
+    let config = demo_with(dir.path(), "none.toml", &[("[[band]]", no_line)]);
+    let (_, out, _) = check(&config, &[]);
+    let f = finding(&out, "note", "inhibit.holds_cat_keying");
+    assert!(f.contains("no effect without an inhibit line"), "{f}");
+    assert!(
+        !out.contains("holds the rig off against CAT keying too"),
+        "{out}"
+    );
+}
+
+#[test]
 fn a_fixed_dead_band_wider_than_a_quarter_of_the_window_is_a_warning() {
     let dir = tempfile::tempdir().unwrap();
     let config = demo_with(
