@@ -506,6 +506,34 @@ fn a_reload_during_a_move_retunes_through_the_new_file_at_rest() {
     assert!(!r.inhibit);
 }
 
+/// The same, the move stopped short by a transmission after the reload:
+/// once the rig receives, the loop goes where the new file says, not to
+/// the old target.
+#[test]
+fn a_reload_during_a_move_stopped_by_a_transmission_retunes_through_the_new_file() {
+    let mut r = Run::new(Some(9_500));
+    r.settle_and_arrive(0, 7_050_000);
+    // The rig moves to 7.080 MHz: 9 200 on the old line, 9 175 on the new.
+    r.report(2_000, 7_080_000);
+    r.tick(2_300);
+    let a = r.tick(2_320);
+    assert_eq!(gotos(&a), vec![9_170], "{a:?}");
+    let mut fresh = calibrations();
+    fresh.base = Some(Arc::new(Shifted(-25.0)));
+    r.cmd(
+        2_330,
+        Command::Reload {
+            calibrations: Ok(fresh),
+        },
+    );
+    r.transmit(2_340, true);
+    r.arrive(2_360, 9_300);
+    r.tick(2_500);
+    let a = r.transmit(3_000, false);
+    let a = [a, r.tick(3_020)].concat();
+    assert_eq!(moves(&a), vec![(9_300, 9_175)], "{:?}", r.seen);
+}
+
 #[test]
 fn closing_refuses_moves_and_drops_a_queued_one() {
     let mut r = Run::new(Some(9_500));

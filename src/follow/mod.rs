@@ -765,10 +765,17 @@ impl Follower {
                         t.due = Some(now + self.policy.candidate_dwell);
                     }
                 }
-                if std::mem::take(&mut self.recheck) && self.want.is_none() {
-                    self.tuned_hz = None;
-                    if let Some(hz) = self.settled_hz {
-                        self.decide(now, hz);
+                if std::mem::take(&mut self.recheck) {
+                    // A move stopped short is wanted again, but for the
+                    // old calibration's target: decide it afresh too.
+                    if self.want.is_some_and(|w| !w.manual) {
+                        self.want = None;
+                    }
+                    if self.want.is_none() {
+                        self.tuned_hz = None;
+                        if let Some(hz) = self.settled_hz {
+                            self.decide(now, hz);
+                        }
                     }
                 }
                 // A search's move came to rest where it asked (not stopped
