@@ -55,7 +55,7 @@ pub use station::{
 /// move started at the set could be under way when the rig keys. Common
 /// practice for logging programs, no source; the sets of one burst (VFO A,
 /// VFO B, split) settle once, on where they end. Shorter where the line
-/// holds that keying off ([`Follower::set_grace`]).
+/// holds that keying off (`Follower::set_grace`).
 pub const SET_GRACE: Duration = Duration::from_millis(100);
 
 /// Why the core decided not to move (or not to move as asked).
@@ -478,7 +478,7 @@ impl Follower {
     /// loop follows the frequency `policy.tune_for` names (the transmit
     /// frequency by default), so a change of the other one moves nothing.
     /// A set seen going to the rig that changes that frequency settles
-    /// [`Follower::set_grace`] later (unless a report's debounce would be
+    /// `Follower::set_grace` later (unless a report's debounce would be
     /// shorter);
     /// a report, after the debounce unless it is a jump.
     ///
@@ -510,11 +510,8 @@ impl Follower {
             self.transmit_changed(now);
         }
         if let Some(hz) = self.station.receive_hz() {
-            if let Some(run) = self.peak.as_mut() {
-                if hz != run.hz {
-                    let req = run.search.frequency(hz);
-                    self.peak_step(now, req);
-                }
+            if self.peak.as_ref().is_some_and(|r| r.hz != hz) {
+                self.peak_event(now, |s| s.frequency(hz));
             }
         }
         let about_transmit = matches!(
@@ -721,10 +718,7 @@ impl Follower {
             self.stand_down(HoldReason::RigSilent);
             // A transmission could start unheard: the readings are no
             // longer the band's noise for sure.
-            if let Some(run) = self.peak.as_mut() {
-                let req = run.search.fault("the rig's port went down");
-                self.peak_step(now, req);
-            }
+            self.peak_event(now, |s| s.fault("the rig's port went down"));
         }
         self.handle_timeout(now);
     }
@@ -827,15 +821,8 @@ impl Follower {
     pub fn handle_fault(&mut self, now: Duration) {
         // A search cannot go on, nor return, without a position: it ends
         // here, and the recovery decides the settled frequency again.
-        if let Some(run) = self.peak.take() {
-            if self.want.is_some_and(|t| t.manual) {
-                self.want = None;
-            }
-            let outcome = peak::PeakOutcome::Aborted(peak::AbortReason::Fault(
-                "the controller link".to_string(),
-            ));
-            drop(run);
-            self.peak_ended(outcome);
+        if self.peak_dropped("the controller link") && self.want.is_some_and(|t| t.manual) {
+            self.want = None;
         }
         if let Motion::Moving { target, .. } = self.motion {
             self.faulted = match self.faulted {
@@ -882,10 +869,7 @@ impl Follower {
         profile: Option<String>,
         map: Arc<dyn StepMap>,
     ) {
-        if let Some(run) = self.peak.as_mut() {
-            let req = run.search.stop();
-            self.peak_step(now, req);
-        }
+        self.peak_event(now, |s| s.stop());
         self.map = map;
         self.profile = profile;
         self.tuned_hz = None;
@@ -930,11 +914,7 @@ impl Follower {
     /// move starts any more (one still waiting for receive is dropped).
     pub fn handle_closing(&mut self, now: Duration) {
         self.closing = true;
-        if self.peak.take().is_some() {
-            self.peak_ended(peak::PeakOutcome::Aborted(peak::AbortReason::Fault(
-                "the service is shutting down".to_string(),
-            )));
-        }
+        self.peak_dropped("the service is shutting down");
         if self.want.is_some_and(|t| t.manual) {
             self.want = None;
         }
@@ -994,16 +974,13 @@ impl Follower {
                 }
             }
             Command::Peak => self.start_peak(now),
-            Command::PeakStop => match self.peak.as_mut() {
-                None => Reply::Refused(Refusal::CannotPeak {
-                    why: "no search is under way".to_string(),
-                }),
-                Some(run) => {
-                    let req = run.search.stop();
-                    self.peak_step(now, req);
-                    Reply::Done
-                }
-            },
+            Command::PeakStop if self.peak.is_none() => Reply::Refused(Refusal::CannotPeak {
+                why: "no search is under way".to_string(),
+            }),
+            Command::PeakStop => {
+                self.peak_event(now, |s| s.stop());
+                Reply::Done
+            }
             Command::Mark => self.mark(),
             Command::Reload { calibrations } => match calibrations {
                 Err(error) => Reply::Refused(Refusal::Reload {
@@ -1256,11 +1233,8 @@ impl Follower {
         if let Some(run) = self.peak.as_mut() {
             if run.meter_due.is_some_and(|due| now >= due) {
                 run.meter_due = None;
-                let req = run.search.fault(&format!(
-                    "no signal-meter reading in {} s",
-                    PEAK_METER_WAIT.as_secs()
-                ));
-                self.peak_step(now, req);
+                let why = format!("no signal-meter reading in {} s", PEAK_METER_WAIT.as_secs());
+                self.peak_event(now, |s| s.fault(&why));
             }
         }
         if let Some(p) = self.pending {
@@ -1529,13 +1503,34 @@ impl Follower {
     /// Anything but "the rig receives" ends a search (it returns to where
     /// it began once the rig receives again).
     fn peak_abort_unless_receiving(&mut self, now: Duration) {
-        if self.station.transmit().state == TransmitState::Receive {
-            return;
+        if self.station.transmit().state != TransmitState::Receive {
+            self.peak_event(now, |s| s.transmit());
         }
+    }
+
+    /// Tells the search under way, if any, of an event (`tell` hands it to
+    /// the search) and carries out what it asks.
+    fn peak_event(
+        &mut self,
+        now: Duration,
+        tell: impl FnOnce(&mut peak::PeakSearch) -> peak::PeakRequest,
+    ) {
         if let Some(run) = self.peak.as_mut() {
-            let req = run.search.transmit();
+            let req = tell(&mut run.search);
             self.peak_step(now, req);
         }
+    }
+
+    /// Ends the search under way, if any, where it is (no position to
+    /// return from, or the service is closing), for `why`; whether one was.
+    fn peak_dropped(&mut self, why: &str) -> bool {
+        if self.peak.take().is_none() {
+            return false;
+        }
+        self.peak_ended(peak::PeakOutcome::Aborted(peak::AbortReason::Fault(
+            why.to_string(),
+        )));
+        true
     }
 
     // ----- work out -------------------------------------------------------
@@ -1623,9 +1618,7 @@ impl Follower {
     /// starts `inhibit_lead` after the line is set): the set then waits
     /// only that lead, never longer than [`SET_GRACE`].
     fn set_grace(&self) -> Duration {
-        if self.policy.while_unknown == WhileUnknown::MoveUnderInhibit
-            && self.policy.line_holds_commands
-        {
+        if self.policy.line_holds_cat_keying() {
             SET_GRACE.min(self.policy.inhibit_lead)
         } else {
             SET_GRACE
@@ -1637,8 +1630,7 @@ impl Follower {
     /// (`policy.line_holds_commands`), the core keeps it on, and the driver
     /// confirmed it set at least `inhibit_lead` ago.
     fn line_holds_off(&self, now: Duration) -> bool {
-        self.policy.while_unknown == WhileUnknown::MoveUnderInhibit
-            && self.policy.line_holds_commands
+        self.policy.line_holds_cat_keying()
             && self.inhibit
             && self
                 .line_set_at

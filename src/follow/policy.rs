@@ -114,6 +114,14 @@ impl WhileUnknown {
 }
 
 impl Policy {
+    /// A wired inhibit line holds the rig itself off, CAT keying included:
+    /// a line is wired (moves go ahead under it while the transmit state
+    /// is unknown) and the station said it holds CAT keying
+    /// (`line_holds_commands`).
+    pub fn line_holds_cat_keying(&self) -> bool {
+        self.while_unknown == WhileUnknown::MoveUnderInhibit && self.line_holds_commands
+    }
+
     /// Each band's edges, low and high, in Hz, in the config's order.
     pub fn band_ranges(&self) -> Vec<(u64, u64)> {
         self.bands.iter().map(|b| (b.low_hz, b.high_hz)).collect()
