@@ -17,7 +17,7 @@
 use std::time::Duration;
 
 use tuneward::antenna::{Conductor, SmallLoop};
-use tuneward::follow::peak::PeakOutcome;
+use tuneward::follow::peak::{PeakOutcome, STANDARD_PASSES};
 use tuneward::rig::meter::{binary_signal_scale, binary_swr_scale};
 use tuneward::sim::meters::{noise_peak_trial, Band, SimLoop, TrialSetup};
 
@@ -50,6 +50,8 @@ fn setup(first: u64, i: u64, sim_loop: &SimLoop, noise_over_floor_db: f64) -> Tr
     let q = sim_loop.q_unloaded(hz);
     let slope = (sim_loop.steps_for(hz + 1.0) - sim_loop.steps_for(hz - 1.0)).abs() / 2.0;
     let w = hz / q * slope;
+    // The passes `ctl peak` runs (PeakPlan::standard).
+    let [points, reads_per_point, fine_points, fine_reads_per_point] = STANDARD_PASSES;
     TrialSetup {
         hz,
         offset_steps: (rng.f64() * 2.0 - 1.0) * 2.0 * w,
@@ -62,10 +64,10 @@ fn setup(first: u64, i: u64, sim_loop: &SimLoop, noise_over_floor_db: f64) -> Tr
         steps_per_second: 32000.0,
         settle: Duration::from_millis(80),
         meter_period: Duration::from_millis(50),
-        points: 9,
-        reads_per_point: 4,
-        fine_points: 15,
-        fine_reads_per_point: 20,
+        points,
+        reads_per_point,
+        fine_points,
+        fine_reads_per_point,
     }
 }
 

@@ -94,11 +94,6 @@ impl PeakPlan {
             max_steps: limits.1,
         }
     }
-
-    /// Meter reads the whole search takes at most (both passes).
-    pub fn reads(&self) -> usize {
-        self.points * self.reads_per_point + self.fine_points * self.fine_reads_per_point
-    }
 }
 
 /// The half-width at half power in steps for a loop of unloaded Q `q_u` at

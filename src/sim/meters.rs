@@ -318,7 +318,9 @@ pub fn noise_peak_trial(
     swr_scale: MeterScale,
     setup: &TrialSetup,
 ) -> Option<TrialResult> {
-    use crate::follow::peak::{predicted_half_width_steps, PeakPlan, PeakRequest, PeakSearch};
+    use crate::follow::peak::{
+        predicted_half_width_steps, PeakPlan, PeakRequest, PeakSearch, STANDARD_WINDOW_HALF_WIDTHS,
+    };
     let hz = setup.hz;
     let predicted = sim_loop.steps_for(hz);
     let slope = (sim_loop.steps_for(hz + 1.0) - sim_loop.steps_for(hz - 1.0)) / 2.0;
@@ -331,7 +333,7 @@ pub fn noise_peak_trial(
         start_steps: start,
         predicted_steps: start,
         half_width_steps: predicted_half_width_steps(hz, q, slope),
-        window_half_widths: 4.0,
+        window_half_widths: STANDARD_WINDOW_HALF_WIDTHS,
         points: setup.points,
         reads_per_point: setup.reads_per_point,
         fine_points: setup.fine_points,
