@@ -112,13 +112,12 @@ pub struct MeterReadParts {
     pub read: Vec<u8>,
 }
 
-/// What the SWR watch needs: its settings, the dialect's SWR scale and the
-/// SWR-meter read, which the rig's poll carries while the session says so.
+/// What the SWR watch needs: its settings and the dialect's SWR-meter
+/// read and scale, which the rig's poll carries while the session says so.
 #[derive(Debug, Clone)]
 pub struct SwrWatchParts {
     pub settings: crate::follow::swr_watch::SwrWatchSettings,
-    pub scale: crate::rig::meter::MeterScale,
-    pub read: Vec<u8>,
+    pub meter: MeterReadParts,
 }
 
 /// How `tuneward run` writes its log (stderr).
@@ -355,8 +354,8 @@ pub async fn run_with_operator(
                 inhibit_wired = w.settings.inhibit_wired,
                 "SWR watch: the SWR meter is read with every poll while the rig transmits"
             );
-            session = session.with_swr_watch(w.settings, w.scale);
-            w.read
+            session = session.with_swr_watch(w.settings, w.meter.scale);
+            w.meter.read
         }
         None => Vec::new(),
     };

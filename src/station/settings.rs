@@ -750,8 +750,9 @@ fn config_name(config: &Config) -> String {
 /// one) carries no frequency, and the family cannot read the other VFO
 /// without switching the operator's, so after the other program toggles,
 /// the loop counts as untuned (nothing moves; the inhibit is held where
-/// the policy holds it until tuned) until a set or a frequency read tells. (The program's frequency sets are taken at once: they go to
-/// the VFO in use.)
+/// the policy holds it until tuned) until a set or a frequency read tells.
+/// (The program's frequency sets are taken at once: they go to the VFO in
+/// use.)
 pub fn rig_caveat(station: &Station) -> Option<&'static str> {
     let proxy = matches!(station.config.rig_use(), Ok(RigUse::Proxy { .. }));
     let toggles = matches!(
@@ -913,13 +914,20 @@ impl ServiceParts {
 /// polled (listen mode never writes to the port) and its dialect has the
 /// read and its scale.
 pub fn signal_meter_parts(station: &Station) -> Option<crate::service::MeterReadParts> {
-    use crate::rig::meter::MeterKind;
-    let config = &station.config;
-    config.rig.poll_every_ms()?;
-    let address = config.rig.address.unwrap_or(0);
+    station.config.rig.poll_every_ms()?;
+    meter_parts(station, crate::rig::meter::MeterKind::Signal)
+}
+
+/// The dialect's read of meter `kind` (to the configured rig address) and
+/// its scale, where the dialect has both.
+fn meter_parts(
+    station: &Station,
+    kind: crate::rig::meter::MeterKind,
+) -> Option<crate::service::MeterReadParts> {
+    let address = station.config.rig.address.unwrap_or(0);
     Some(crate::service::MeterReadParts {
-        read: station.dialect.meter_read(MeterKind::Signal, address)?,
-        scale: station.dialect.meter_scale(MeterKind::Signal)?.clone(),
+        read: station.dialect.meter_read(kind, address)?,
+        scale: station.dialect.meter_scale(kind)?.clone(),
     })
 }
 
@@ -937,11 +945,7 @@ pub fn swr_watch_parts(station: &Station) -> Result<Option<crate::service::SwrWa
         return Ok(None);
     }
     let file = config_name(config);
-    let address = config.rig.address.unwrap_or(0);
-    let (Some(read), Some(scale)) = (
-        station.dialect.meter_read(MeterKind::Swr, address),
-        station.dialect.meter_scale(MeterKind::Swr),
-    ) else {
+    let Some(meter) = meter_parts(station, MeterKind::Swr) else {
         return Err(Error::invalid(
             Place::key(&file, "swr_watch"),
             format!(
@@ -964,8 +968,7 @@ pub fn swr_watch_parts(station: &Station) -> Result<Option<crate::service::SwrWa
             drift_margin: w.drift_margin,
             drift_overs: w.drift_overs,
         },
-        scale: scale.clone(),
-        read,
+        meter,
     }))
 }
 

@@ -57,9 +57,9 @@ pub struct BlockSpec {
     pub split_off: Option<u8>,
     /// The A/B toggle (`opcodes.vfo_toggle`, optional): the rig then
     /// receives (and, without split, transmits) on the other VFO, and its
-    /// frequency read reports that VFO. It carries no frequency, so the
-    /// station decoder takes nothing from it: the next set or frequency
-    /// read tells. Never polled.
+    /// frequency read reports that VFO. It carries no frequency: the
+    /// station decoder reports it as [`RigEvent::VfoToggle`], and the next
+    /// set or frequency read tells the new VFO's frequency. Never polled.
     pub vfo_toggle: Option<u8>,
     /// Other opcodes that change the rig (never polled).
     pub other_sets: Vec<u8>,
