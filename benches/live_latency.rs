@@ -153,6 +153,7 @@ async fn start(journal: bool) -> Live {
         candidates: None,
         swr_watch: None,
         signal_meter: None,
+        frequency_set: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     // Let the start-up WHERE be answered and the inhibit released.

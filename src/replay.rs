@@ -423,4 +423,22 @@ impl Effects for Sink<'_, '_> {
     ) -> std::io::Result<()> {
         Ok(())
     }
+
+    /// Nor a sweep, so nothing asks to set the rig.
+    fn set_rig_frequency(
+        &mut self,
+        _now: Duration,
+        _vfo: crate::follow::Vfo,
+        _hz: u64,
+    ) -> std::io::Result<()> {
+        Ok(())
+    }
+
+    fn sweep(
+        &mut self,
+        _now: Duration,
+        _news: crate::follow::effects::SweepNews,
+    ) -> std::io::Result<()> {
+        Ok(())
+    }
 }

@@ -103,6 +103,10 @@ pub struct ServiceParts {
     /// The signal-meter read, for the noise-peak search: where the rig is
     /// polled and its dialect has one.
     pub signal_meter: Option<MeterReadParts>,
+    /// How to set the rig's frequency (a calibration sweep, with the
+    /// operator's consent): where the rig is polled and its dialect has a
+    /// frequency set. The set goes ahead of the next poll.
+    pub frequency_set: Option<crate::follow::session::FrequencySet>,
 }
 
 /// A meter the rig's poll can carry: the dialect's read and scale.
@@ -314,6 +318,15 @@ pub async fn run_with_operator(
     if let RigSource::Link(cfg) = &mut rig {
         cfg.split = Some(split_rx);
     }
+    // A sweep's frequency sets go to the rig with the next poll.
+    let (writes_tx, writes_rx) = watch::channel(Vec::new());
+    if service.frequency_set.is_some() {
+        match &mut rig {
+            RigSource::Link(cfg) => cfg.writes = Some(writes_rx),
+            RigSource::Proxy { config, .. } => config.writes = Some(writes_rx),
+            _ => {}
+        }
+    }
     if service.swr_watch.is_some() || service.signal_meter.is_some() {
         match &mut rig {
             RigSource::Link(cfg) => cfg.meters = Some(meters_rx),
@@ -359,6 +372,9 @@ pub async fn run_with_operator(
         }
         None => Vec::new(),
     };
+    if let Some(set) = service.frequency_set {
+        session = session.with_frequency_set(set);
+    }
     let signal_read = match service.signal_meter {
         Some(m) => {
             session = session.with_signal_meter(m.scale);
@@ -373,6 +389,7 @@ pub async fn run_with_operator(
         candidates: service.candidates,
         commands: client.commands,
         transmit: transmit_tx,
+        rig_writes: writes_tx,
         origin: Instant::now(),
         recent: std::collections::VecDeque::new(),
     };
@@ -564,6 +581,8 @@ struct Io {
     candidates: Option<PathBuf>,
     commands: mpsc::Sender<TunerCommand>,
     transmit: watch::Sender<bool>,
+    /// Writes for the rig's port task (see `LinkConfig::writes`).
+    rig_writes: watch::Sender<Vec<u8>>,
     origin: Instant,
     /// The last few decisions in words, for the front ends.
     recent: std::collections::VecDeque<String>,
@@ -610,6 +629,15 @@ impl Io {
                 }
                 Output::Transmit { on } => {
                     self.transmit.send_replace(on);
+                }
+                Output::RigWrite { bytes, vfo, hz } => {
+                    tracing::debug!(
+                        ?vfo,
+                        hz,
+                        bytes = bytes.len(),
+                        "frequency set queued for the rig's port"
+                    );
+                    self.rig_writes.send_replace(bytes);
                 }
                 Output::Candidate {
                     hz,
@@ -753,6 +781,12 @@ fn decision_words(note: &Note, at: &Where) -> Option<String> {
         } => format!("the loop reads SWR {seen:.2} where it should read {predicted:.2}: re-peak?"),
         Note::PeakStarted { hz, .. } => format!("noise-peak search at {}", at.words(*hz)),
         Note::PeakEnded { words, .. } => words.clone(),
+        Note::RigSet { vfo, hz } => format!("setting the rig's VFO {vfo:?} to {}", mhz(*hz)),
+        Note::SweepStarted { band, points } => format!(
+            "calibration sweep of {band}: {} points, the rig's frequency set for each",
+            points.len()
+        ),
+        Note::SweepEnded { words, .. } => words.clone(),
         _ => return None,
     })
 }
@@ -805,6 +839,14 @@ fn log(note: Note, at: &Where) {
         ),
         Note::PeakEnded { words, found: true } => info!("noise-peak search: {words}"),
         Note::PeakEnded { words, found: false } => warn!("noise-peak search: {words}"),
+        Note::RigSet { vfo, hz } => info!(vfo = ?vfo, hz, "calibration sweep: setting the rig's frequency to {}", mhz(hz)),
+        Note::SweepStarted { band, points } => info!(
+            band,
+            points = ?points,
+            "calibration sweep: the rig's receive frequency is set to each point in turn, the transmit inhibit held"
+        ),
+        Note::SweepEnded { words, clean: true } => info!("calibration sweep: {words}"),
+        Note::SweepEnded { words, clean: false } => warn!("calibration sweep: {words}"),
         Note::HomeGivenUp { why } => error!(
             %why,
             "homing given up: position unknown; nothing will move. Run `tuneward set-position STEPS`, then restart"

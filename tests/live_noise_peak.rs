@@ -342,3 +342,151 @@ fn a_transmission_during_the_search_ends_it_with_nothing_recorded() {
     let m = s.motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
 }
+
+/// The rig's truth log as parsed lines.
+fn truth_lines(path: &Path) -> Vec<serde_json::Value> {
+    std::fs::read_to_string(path)
+        .unwrap_or_default()
+        .lines()
+        .filter_map(|l| serde_json::from_str(l).ok())
+        .collect()
+}
+
+/// The rig's receive frequency changed over the control port only while
+/// it received, by the rig's own truth log.
+fn no_set_while_transmitting(truth: &[serde_json::Value]) {
+    for w in truth.windows(2) {
+        if w[1]["cause"] == "cat" && w[1]["rx_hz"] != w[0]["rx_hz"] {
+            assert_eq!(
+                w[0]["transmitting"], false,
+                "a set while transmitting: {w:?}"
+            );
+        }
+    }
+}
+
+/// `ctl calibrate 40m` on the rained-on loop: refused without consent
+/// (nothing set on the rig), then with `--set-rig --yes` the rig is set to
+/// 7.033, 7.100 and 7.167 MHz in turn (its truth log), the state shows the
+/// sweep's progress, each point's candidate is where the rained loop truly
+/// resonates there (the simulated loop's truth; a quarter of the 1.5:1
+/// bandwidth, as the single search's live test, the poll's timing being
+/// real), nothing was transmitted, no GOTO left the limits, and VFO A is
+/// set back to 7.1 MHz.
+#[test]
+fn a_sweep_calibrates_the_band_from_its_noise_and_gives_the_rig_back() {
+    let dry = dry_loop(&meters_toml(0.0, -105.0));
+    let meters = meters_toml(1.5 * half_width(&dry), -105.0);
+    let wet = truth_loop(&meters);
+    let s = station(&meters, "");
+
+    let out = ctl(&s.config, &["calibrate", "40m"]);
+    assert!(!out.status.success());
+    let answer = String::from_utf8_lossy(&out.stdout);
+    assert!(answer.contains("needs-consent"), "{answer}");
+    let out = Command::new(BIN)
+        .args(["ctl", "-c"])
+        .arg(&s.config)
+        .args(["calibrate", "40m", "--set-rig"])
+        .stdin(Stdio::null())
+        .output()
+        .unwrap();
+    assert!(
+        !out.status.success(),
+        "no terminal, no --yes: not confirmed"
+    );
+    std::thread::sleep(Duration::from_millis(300));
+    assert!(truth_lines(&s.truth)
+        .iter()
+        .all(|t| t["rx_hz"] == 7_100_000));
+
+    let out = ctl(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
+    s.run
+        .wait_log(&["calibration sweep: setting the rig's frequency to 7.033000 MHz"]);
+    let status = ctl(&s.config, &["status"]);
+    let state = String::from_utf8_lossy(&status.stdout);
+    assert!(state.contains("\"sweep\":{\"band\":\"40m\""), "{state}");
+    let done = s.run.wait_log_for(
+        &["calibration sweep: sweep of 40m done"],
+        Duration::from_secs(120),
+    );
+    assert!(done.contains("3 candidate(s) of 3"), "{done}");
+    assert!(done.contains("set back to 7100000 Hz"), "{done}");
+    let truth = truth_lines(&s.truth);
+    let visited: Vec<u64> = truth
+        .iter()
+        .filter(|t| t["cause"] == "cat")
+        .filter_map(|t| t["rx_hz"].as_u64())
+        .collect();
+    assert_eq!(
+        visited,
+        vec![7_033_000, 7_100_000, 7_167_000, 7_100_000],
+        "the rig's own record of its frequency"
+    );
+    assert_eq!(truth.last().unwrap()["rx_hz"], 7_100_000);
+    assert!(truth.iter().all(|t| t["transmitting"] == false));
+    no_set_while_transmitting(&truth);
+
+    let text = std::fs::read_to_string(s.dir.path().join("loop.candidates.csv")).unwrap();
+    for hz in [7_033_000u64, 7_100_000, 7_167_000] {
+        let line = text
+            .lines()
+            .find(|l| l.starts_with(&format!("{hz},")))
+            .unwrap_or_else(|| panic!("no candidate for {hz}: {text}"));
+        let steps: f64 = line.split(',').nth(1).unwrap().parse().unwrap();
+        let f = hz as f64;
+        let bandwidth = tuneward::antenna::swr_bandwidth_hz(f, wet.q_unloaded(f), 1.5);
+        let error_hz = (wet.resonance_hz(steps) - f).abs();
+        assert!(
+            error_hz <= bandwidth / 4.0,
+            "{hz}: {error_hz:.0} Hz off, bandwidth {bandwidth:.0}"
+        );
+    }
+    let m = s.motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert!(m.gotos.iter().all(|g| (0..=400_000).contains(g)));
+}
+
+/// The operator keys (the rig's own PTT, scripted) while the sweep's first
+/// point is being searched: the search ends, nothing is recorded, nothing
+/// moves and nothing is set during the over (the controller's record and
+/// the rig's truth log), and once the rig receives again it is set back to
+/// 7.1 MHz and the sweep says it stopped.
+#[test]
+fn a_transmission_during_a_sweep_stops_it_and_the_rig_is_set_back_after_the_over() {
+    let meters = meters_toml(0.0, -105.0);
+    let s = station(
+        &meters,
+        "{\"at_ms\": 3000, \"op\": \"key\"}\n{\"at_ms\": 4500, \"op\": \"unkey\"}\n",
+    );
+    let out = ctl(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
+    wait_truth(&s.truth, "the over", |t| t["transmitting"] == true);
+    let ended = s.run.wait_log_for(
+        &["calibration sweep: sweep of 40m stopped"],
+        Duration::from_secs(30),
+    );
+    assert!(ended.contains("transmitted"), "{ended}");
+    assert!(ended.contains("set back to 7100000 Hz"), "{ended}");
+    let truth = truth_lines(&s.truth);
+    assert_eq!(truth.last().unwrap()["rx_hz"], 7_100_000);
+    assert!(
+        truth
+            .iter()
+            .any(|t| t["rx_hz"] == 7_033_000 && t["transmitting"] == true),
+        "keyed on the sweep's first point: {truth:?}"
+    );
+    no_set_while_transmitting(&truth);
+    assert!(!s.dir.path().join("loop.candidates.csv").exists());
+    let m = s.motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+}

@@ -26,10 +26,14 @@ struct Setup {
 }
 
 async fn setup(poll: Option<PollConfig>) -> Setup {
-    setup_with(poll, Box::new(ends_with(b';'))).await
+    setup_with(poll, Box::new(ends_with(b';')), None).await
 }
 
-async fn setup_with(poll: Option<PollConfig>, boundary: Box<dyn Boundary>) -> Setup {
+async fn setup_with(
+    poll: Option<PollConfig>,
+    boundary: Box<dyn Boundary>,
+    writes: Option<watch::Receiver<Vec<u8>>>,
+) -> Setup {
     let dir = tempfile::tempdir().unwrap();
     let (rig, rig_far) = SerialStream::pair().unwrap();
     let rig_path = rig_far.name().unwrap();
@@ -42,6 +46,7 @@ async fn setup_with(poll: Option<PollConfig>, boundary: Box<dyn Boundary>) -> Se
         poll,
         backoff_cap: Duration::from_millis(200),
         meters: None,
+        writes,
     };
     spawn(cfg, boundary, tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));
@@ -136,6 +141,41 @@ async fn poll_queries_wait_for_the_end_of_the_other_programs_message() {
     assert_eq!(String::from_utf8(tx).unwrap(), text);
 }
 
+/// A write the service asks for (a calibration sweep's frequency set)
+/// while the other program is half-way through a message: it waits for the
+/// message's end like a poll, then goes at once, ahead of the query (so the
+/// query's answer tells what the rig made of it), and only once.
+#[tokio::test]
+async fn a_write_waits_for_the_other_programs_message_and_goes_ahead_of_a_poll() {
+    let (writes_tx, writes_rx) = watch::channel(Vec::new());
+    let mut s = setup_with(
+        Some(PollConfig {
+            query: b"IF;".to_vec(),
+            // Slow polls: the write brings the next one forward.
+            every: Duration::from_secs(5),
+            max_every: Duration::from_secs(5),
+            while_split: Vec::new(),
+        }),
+        Box::new(ends_with(b';')),
+        Some(writes_rx),
+    )
+    .await;
+    // The first poll goes at once; then half a message from the program.
+    tokio::time::sleep(Duration::from_millis(100)).await;
+    s.other.write_all(b"FA000140").await.unwrap();
+    tokio::time::sleep(Duration::from_millis(50)).await;
+    writes_tx.send_replace(b"FA00007033000;".to_vec());
+    tokio::time::sleep(Duration::from_millis(200)).await;
+    s.other.write_all(b"74000;").await.unwrap();
+    let mut wire = Vec::new();
+    let mut b = [0u8; 256];
+    while let Ok(r) = timeout(Duration::from_millis(500), s.rig.read(&mut b)).await {
+        wire.extend_from_slice(&b[..r.unwrap()]);
+    }
+    let text = String::from_utf8(wire).unwrap();
+    assert_eq!(text, "IF;FA00014074000;FA00007033000;IF;", "{text}");
+}
+
 /// Framing by count (the block family): the other program loses a byte of
 /// a block. Our queries wait while the block is unfinished, go again once
 /// it is given up after the dialect's quiet gap, and the program's next
@@ -152,6 +192,7 @@ async fn block_framing_resynchronises_after_a_lost_byte() {
             while_split: Vec::new(),
         }),
         Box::new(every(5, Duration::from_millis(100))),
+        None,
     )
     .await;
     tokio::time::sleep(Duration::from_millis(100)).await;
@@ -212,6 +253,7 @@ async fn an_existing_file_at_the_link_path_is_not_replaced() {
         poll: None,
         backoff_cap: Duration::from_millis(200),
         meters: None,
+        writes: None,
     };
     let e = spawn(cfg, Box::new(ends_with(b';')), tx, stop)
         .unwrap_err()
@@ -242,6 +284,7 @@ async fn the_shared_port_survives_the_rig_being_unplugged() {
         poll: None,
         backoff_cap: Duration::from_millis(100),
         meters: None,
+        writes: None,
     };
     spawn(cfg, Box::new(ends_with(b';')), tx, stop).unwrap();
     assert!(matches!(next(&mut events).await, LinkEvent::Up { .. }));

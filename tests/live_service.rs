@@ -98,6 +98,7 @@ async fn start_with(policy: Policy, sense: Option<ScriptedSense>) -> Running {
         candidates: None,
         swr_watch: None,
         signal_meter: None,
+        frequency_set: None,
     };
     let task = tokio::spawn(run(service, shutdown));
     Running {

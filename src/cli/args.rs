@@ -307,6 +307,25 @@ pub enum CtlCommand {
         #[arg(long)]
         stop: bool,
     },
+    /// Calibrate a band without an analyzer: set the rig's receive
+    /// frequency to three points across BAND in turn, find resonance at
+    /// each (as `peak`), store each clear peak as a candidate, and set the
+    /// rig back where it was. It changes the rig's frequency, so it runs
+    /// only with `--set-rig`, after a confirmation (`--yes` answers it).
+    /// `--stop` ends a sweep.
+    Calibrate {
+        /// The band's name, as in the config's `[[band]]`.
+        #[arg(required_unless_present = "stop")]
+        band: Option<String>,
+        /// Consent to the rig's frequency being set (and set back).
+        #[arg(long)]
+        set_rig: bool,
+        /// Answer the confirmation with yes (for scripts).
+        #[arg(long)]
+        yes: bool,
+        #[arg(long, conflicts_with_all = ["band", "set_rig", "yes"])]
+        stop: bool,
+    },
     /// Read the calibration again (after `fit --accept`).
     Reload,
 }
@@ -326,6 +345,11 @@ impl CtlCommand {
             CtlCommand::Mark => Request::Mark,
             CtlCommand::Peak { stop: false } => Request::Peak,
             CtlCommand::Peak { stop: true } => Request::PeakStop,
+            CtlCommand::Calibrate { stop: true, .. } => Request::CalibrateStop,
+            CtlCommand::Calibrate { band, set_rig, .. } => Request::Calibrate {
+                band: band.clone().unwrap_or_default(),
+                consent: *set_rig,
+            },
             CtlCommand::Reload => Request::Reload,
         }
     }
@@ -343,6 +367,18 @@ pub fn run_ctl(args: CtlArgs, out: &mut dyn std::io::Write) -> Result<bool, tune
         ));
     };
     let config = tuneward::config::Config::load(config)?;
+    if let CtlCommand::Calibrate {
+        band: Some(band),
+        set_rig: true,
+        yes,
+        stop: false,
+    } = &args.what
+    {
+        if !*yes && !confirm_sweep(band, out)? {
+            let _ = writeln!(out, "not confirmed; nothing asked of the service");
+            return Ok(false);
+        }
+    }
     let socket = tuneward::station::control_socket_for(&config);
     let mut client = Client::connect(&socket)?;
     let request = args.what.request();
@@ -381,6 +417,37 @@ pub fn run_ctl(args: CtlArgs, out: &mut dyn std::io::Write) -> Result<bool, tune
     };
     let _ = writeln!(out, "{text}");
     Ok(answer.ok)
+}
+
+/// Asks the operator on the terminal before a sweep sets the rig's
+/// frequency: `true` only for an answer of `yes`. Without a terminal to ask
+/// on it answers `false` (a script says `--yes`).
+fn confirm_sweep(band: &str, out: &mut dyn std::io::Write) -> Result<bool, tuneward::Error> {
+    use std::io::{BufRead, IsTerminal};
+    let stdin = std::io::stdin();
+    if !stdin.is_terminal() {
+        let _ = writeln!(
+            out,
+            "the sweep sets the rig's frequency: confirm on a terminal, or add --yes"
+        );
+        return Ok(false);
+    }
+    let _ = write!(
+        out,
+        "This sets the rig's receive frequency to three points across {band} in turn, \
+         with the transmit inhibit held, and then sets it back.\n\
+         Do not transmit meanwhile. Go ahead? Type yes: "
+    );
+    let _ = out.flush();
+    let mut line = String::new();
+    stdin.lock().read_line(&mut line).map_err(|e| {
+        tuneward::Error::invalid(
+            tuneward::error::Place::Named("ctl calibrate".into()),
+            "an answer on the terminal",
+            e.to_string(),
+        )
+    })?;
+    Ok(line.trim().eq_ignore_ascii_case("yes"))
 }
 
 fn to_json<T: serde::Serialize>(v: &T) -> String {

@@ -215,5 +215,26 @@ pub fn describe_state(s: &StateView) -> String {
             .collect();
         lines.push(format!("presets    {}", names.join(", ")));
     }
+    if let Some(hz) = s.peak_hz {
+        lines.push(format!("searching  the band noise at {}", mhz(hz)));
+    }
+    match (&s.sweep, &s.last_sweep) {
+        (Some(w), _) => lines.push(format!(
+            "sweep      {}: point {} of {} ({}), {} {}, {} found",
+            w.band,
+            w.point,
+            w.of,
+            mhz(w.hz),
+            w.doing,
+            if w.doing == "restoring" {
+                "the rig's frequency"
+            } else {
+                "here"
+            },
+            w.found
+        )),
+        (None, Some(words)) => lines.push(format!("last sweep {words}")),
+        (None, None) => {}
+    }
     lines.join("\n")
 }

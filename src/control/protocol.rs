@@ -35,8 +35,19 @@ pub enum Request {
     Mark,
     /// "Find resonance here": a noise-peak search at the receive frequency.
     Peak,
-    /// Stop the search under way.
+    /// Stop the search under way (or the sweep it is part of).
     PeakStop,
+    /// A calibration sweep of the band named `band`: the rig's receive
+    /// frequency is set to each of a few points across it and the noise
+    /// peaked there. `consent` must be `true`: the operator agrees to the
+    /// rig's frequency being changed (and set back afterwards).
+    Calibrate {
+        band: String,
+        #[serde(default)]
+        consent: bool,
+    },
+    /// Stop the sweep under way (the rig is set back).
+    CalibrateStop,
     Reload,
 }
 
@@ -62,6 +73,8 @@ pub enum CoreAsk {
     Mark,
     Peak,
     PeakStop,
+    Calibrate { band: String, consent: bool },
+    CalibrateStop,
 }
 
 impl CoreAsk {
@@ -77,6 +90,8 @@ impl CoreAsk {
             CoreAsk::Mark => Command::Mark,
             CoreAsk::Peak => Command::Peak,
             CoreAsk::PeakStop => Command::PeakStop,
+            CoreAsk::Calibrate { band, consent } => Command::Calibrate { band, consent },
+            CoreAsk::CalibrateStop => Command::CalibrateStop,
         }
     }
 }
@@ -98,9 +113,29 @@ impl Request {
             Request::Mark => CoreAsk::Mark,
             Request::Peak => CoreAsk::Peak,
             Request::PeakStop => CoreAsk::PeakStop,
+            Request::Calibrate { band, consent } => CoreAsk::Calibrate {
+                band: band.clone(),
+                consent: *consent,
+            },
+            Request::CalibrateStop => CoreAsk::CalibrateStop,
         };
         Some(Ask::Command(c))
     }
+}
+
+/// A calibration sweep's progress, as the state shows it.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SweepView {
+    pub band: String,
+    /// The point under way (from 1) of `of`.
+    pub point: usize,
+    pub of: usize,
+    /// That point's frequency (while restoring: the frequency set back).
+    pub hz: u64,
+    /// Candidates found so far.
+    pub found: usize,
+    /// `setting`, `searching` or `restoring`.
+    pub doing: String,
 }
 
 /// Where a request's error is: the place every `error` answer names.
@@ -123,7 +158,7 @@ pub fn parse_request(line: &str) -> Result<Request, Located> {
         ));
     }
     let shown: String = line.chars().take(80).collect();
-    let expected = "a request such as {\"do\":\"nudge\",\"steps\":20} (do: status, watch, pause, resume, nudge, goto, preset, profile, mark, peak, peak-stop, reload)";
+    let expected = "a request such as {\"do\":\"nudge\",\"steps\":20} (do: status, watch, pause, resume, nudge, goto, preset, profile, mark, peak, peak-stop, calibrate, calibrate-stop, reload)";
     let value: serde_json::Value =
         serde_json::from_str(line).map_err(|e| bad_request(expected, format!("`{shown}`: {e}")))?;
     let request: Request = serde_json::from_value(value.clone())
@@ -296,6 +331,12 @@ pub struct StateView {
     /// How the last noise-peak search ended, in words.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub last_peak: Option<String>,
+    /// A calibration sweep under way: where it is.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sweep: Option<SweepView>,
+    /// How the last calibration sweep ended, in words.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub last_sweep: Option<String>,
     /// The last few decisions, in words, oldest first (set by the driver).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub recent: Vec<String>,
@@ -431,6 +472,15 @@ impl StateView {
             }),
             peak_hz: s.peak_hz,
             last_peak: s.last_peak.clone(),
+            sweep: s.sweep.as_ref().map(|p| SweepView {
+                band: p.band.clone(),
+                point: p.point,
+                of: p.of,
+                hz: p.hz,
+                found: p.found,
+                doing: p.doing.to_string(),
+            }),
+            last_sweep: s.last_sweep.clone(),
             recent: Vec::new(),
         }
     }

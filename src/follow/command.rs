@@ -95,8 +95,17 @@ pub enum Command {
     /// "Find resonance here": a noise-peak search at the rig's receive
     /// frequency (see [`super::peak`]), the rig receiving.
     Peak,
-    /// Stop the noise-peak search under way (it returns to where it began).
+    /// Stop the noise-peak search under way (it returns to where it began),
+    /// or the sweep it is part of.
     PeakStop,
+    /// A calibration sweep of the band named `band` (see
+    /// [`super::sweep`]): the core sets the rig's receive frequency to
+    /// each of a few points across the band, runs the noise-peak search
+    /// there, and sets the rig back. `consent`: the operator said yes to
+    /// the rig's frequency being changed; without it the sweep is refused.
+    Calibrate { band: String, consent: bool },
+    /// Stop the sweep under way (the rig is set back).
+    CalibrateStop,
     /// The calibration file read again (by the driver); an `Err` says why
     /// it could not be.
     Reload {
@@ -118,6 +127,8 @@ impl Command {
             Command::Mark => "mark",
             Command::Peak => "peak",
             Command::PeakStop => "peak-stop",
+            Command::Calibrate { .. } => "calibrate",
+            Command::CalibrateStop => "calibrate-stop",
             Command::Reload { .. } => "reload",
         }
     }
@@ -192,6 +203,17 @@ pub enum Refusal {
     CannotPeak {
         why: String,
     },
+    /// A sweep changes the rig's frequency: it needs the operator's
+    /// explicit consent.
+    NeedsConsent,
+    UnknownBand {
+        name: String,
+        known: Vec<String>,
+    },
+    /// A calibration sweep cannot run now, for this reason.
+    CannotSweep {
+        why: String,
+    },
 }
 
 impl Refusal {
@@ -211,6 +233,9 @@ impl Refusal {
             Refusal::Reload { .. } => "reload-failed",
             Refusal::Searching => "searching",
             Refusal::CannotPeak { .. } => "cannot-peak",
+            Refusal::NeedsConsent => "needs-consent",
+            Refusal::UnknownBand { .. } => "unknown-band",
+            Refusal::CannotSweep { .. } => "cannot-sweep",
         }
     }
 }
@@ -261,6 +286,18 @@ impl fmt::Display for Refusal {
                 "a noise-peak search is under way; stop it first (peak-stop) or let it end",
             ),
             Refusal::CannotPeak { why } => write!(f, "no noise-peak search now: {why}"),
+            Refusal::NeedsConsent => f.write_str(
+                "a calibration sweep sets the rig's frequency; it runs only when the operator consents (ctl calibrate BAND --set-rig)",
+            ),
+            Refusal::UnknownBand { name, known } => {
+                write!(f, "no band named `{name}`")?;
+                if known.is_empty() {
+                    f.write_str(" (none configured)")
+                } else {
+                    write!(f, " (known: {})", known.join(", "))
+                }
+            }
+            Refusal::CannotSweep { why } => write!(f, "no calibration sweep now: {why}"),
         }
     }
 }
@@ -327,4 +364,8 @@ pub struct Status {
     pub peak_hz: Option<u64>,
     /// How the last noise-peak search ended, in words.
     pub last_peak: Option<String>,
+    /// A calibration sweep under way: where it is.
+    pub sweep: Option<super::sweep::SweepProgress>,
+    /// How the last sweep ended, in words.
+    pub last_sweep: Option<String>,
 }

@@ -6,7 +6,8 @@
 use std::time::Duration;
 
 use super::peak::PeakOutcome;
-use super::{Action, HoldReason};
+use super::sweep::SweepOutcome;
+use super::{Action, HoldReason, Vfo};
 use crate::calibrate::resonance::ResonanceFit;
 
 /// What a driver does with each kind of action. `Error` is what carrying
@@ -43,6 +44,18 @@ pub trait Effects {
     ) -> Result<(), Self::Error>;
     /// A noise-peak search began or ended (for the log and the state).
     fn peak(&mut self, now: Duration, news: PeakNews) -> Result<(), Self::Error>;
+    /// Set the rig's `vfo` to `hz` (a calibration sweep the operator
+    /// consented to).
+    fn set_rig_frequency(&mut self, now: Duration, vfo: Vfo, hz: u64) -> Result<(), Self::Error>;
+    /// A calibration sweep began or ended.
+    fn sweep(&mut self, now: Duration, news: SweepNews) -> Result<(), Self::Error>;
+}
+
+/// What became of a calibration sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub enum SweepNews {
+    Started { band: String, points: Vec<u64> },
+    Ended(SweepOutcome),
 }
 
 /// What became of a noise-peak search.
@@ -96,5 +109,8 @@ pub fn apply<E: Effects + ?Sized>(
             },
         ),
         Action::PeakEnded { outcome } => fx.peak(now, PeakNews::Ended(outcome)),
+        Action::SetRigFrequency { vfo, hz } => fx.set_rig_frequency(now, vfo, hz),
+        Action::SweepStarted { band, points } => fx.sweep(now, SweepNews::Started { band, points }),
+        Action::SweepEnded { outcome } => fx.sweep(now, SweepNews::Ended(outcome)),
     }
 }

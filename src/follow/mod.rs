@@ -28,6 +28,7 @@ pub mod policy;
 pub mod quiet;
 pub mod session;
 pub mod station;
+pub mod sweep;
 pub mod swr_watch;
 
 use std::collections::VecDeque;
@@ -179,6 +180,14 @@ pub enum Action {
     },
     /// A noise-peak search ended (the candidate, if any, came first).
     PeakEnded { outcome: peak::PeakOutcome },
+    /// Set the rig's `vfo` (the one it receives on) to `hz`: a calibration
+    /// sweep's point, or the operator's frequency given back. Only a sweep
+    /// the operator consented to asks for it.
+    SetRigFrequency { vfo: Vfo, hz: u64 },
+    /// A calibration sweep of `band` began; it searches `points`.
+    SweepStarted { band: String, points: Vec<u64> },
+    /// A calibration sweep ended (its candidates came before).
+    SweepEnded { outcome: sweep::SweepOutcome },
 }
 
 /// A noise-peak search under way: the core hands its moves to the same
@@ -346,6 +355,10 @@ pub struct Follower {
     recheck: bool,
     /// How the last one ended, in words (for the status).
     last_peak: Option<String>,
+    /// A calibration sweep under way (see [`sweep`]).
+    sweep: Option<sweep::SweepRun>,
+    /// How the last sweep ended, in words.
+    last_sweep: Option<String>,
 }
 
 /// How many samples the status's SWR curve has (odd: one at resonance).
@@ -420,6 +433,8 @@ impl Follower {
             peak: None,
             last_peak: None,
             recheck: false,
+            sweep: None,
+            last_sweep: None,
         };
         if position.is_none() {
             f.set_inhibit(true);
@@ -513,6 +528,17 @@ impl Follower {
             if self.peak.as_ref().is_some_and(|r| r.hz != hz) {
                 self.peak_event(now, |s| s.frequency(hz));
             }
+        }
+        if self.sweep.is_some() {
+            // The rig's own word on its frequency (not a set seen going to
+            // it, the sweep's own included).
+            let reported = match ev {
+                StationEvent::Frequency { source, .. } if source != Source::CommandSeen => {
+                    self.station.vfo_hz(self.station.receive_vfo())
+                }
+                _ => None,
+            };
+            self.sweep_station(now, reported);
         }
         let about_transmit = matches!(
             ev,
@@ -720,6 +746,7 @@ impl Follower {
             // longer the band's noise for sure.
             self.peak_event(now, |s| s.fault("the rig's port went down"));
         }
+        self.sweep_station(now, None);
         self.handle_timeout(now);
     }
 
@@ -824,6 +851,7 @@ impl Follower {
         if self.peak_dropped("the controller link") && self.want.is_some_and(|t| t.manual) {
             self.want = None;
         }
+        self.sweep_fault(now, "the controller link");
         if let Motion::Moving { target, .. } = self.motion {
             self.faulted = match self.faulted {
                 Some((steps, n)) if steps == target.steps => Some((steps, n + 1)),
@@ -915,6 +943,7 @@ impl Follower {
     pub fn handle_closing(&mut self, now: Duration) {
         self.closing = true;
         self.peak_dropped("the service is shutting down");
+        self.sweep_closing(now);
         if self.want.is_some_and(|t| t.manual) {
             self.want = None;
         }
@@ -932,7 +961,8 @@ impl Follower {
             | Command::Preset { .. }
             | Command::Profile { .. }
             | Command::Mark
-                if self.peak.is_some() =>
+            | Command::Peak
+                if self.searching() =>
             {
                 Reply::Refused(Refusal::Searching)
             }
@@ -974,6 +1004,10 @@ impl Follower {
                 }
             }
             Command::Peak => self.start_peak(now),
+            Command::Calibrate { band, consent } => self.start_sweep(now, &band, consent),
+            Command::CalibrateStop => self.stop_sweep(now),
+            // Stop means stop: a sweep's search ends the sweep.
+            Command::PeakStop if self.sweep.is_some() => self.stop_sweep(now),
             Command::PeakStop if self.peak.is_none() => Reply::Refused(Refusal::CannotPeak {
                 why: "no search is under way".to_string(),
             }),
@@ -1183,6 +1217,8 @@ impl Follower {
             swr_drift: None,
             peak_hz: self.peak.as_ref().map(|r| r.hz),
             last_peak: self.last_peak.clone(),
+            sweep: self.sweep_progress(),
+            last_sweep: self.last_sweep.clone(),
         }
     }
 
@@ -1230,6 +1266,7 @@ impl Follower {
 
     /// Time has passed: act on whatever deadline is due.
     pub fn handle_timeout(&mut self, now: Duration) {
+        self.sweep_timeout(now);
         if let Some(run) = self.peak.as_mut() {
             if run.meter_due.is_some_and(|due| now >= due) {
                 run.meter_due = None;
@@ -1482,7 +1519,9 @@ impl Follower {
                         }
                         _ => self.tuned_hz = run.tuned_before,
                     }
+                    let ended = outcome.clone();
                     self.peak_ended(outcome);
+                    self.sweep_search_ended(now, &ended);
                     if !self.is_moving() {
                         self.after_rest(now);
                     }
@@ -1552,6 +1591,7 @@ impl Follower {
             self.release_at.filter(|_| !self.detune_hold),
             self.touchup.and_then(|t| t.due),
             self.peak.as_ref().and_then(|r| r.meter_due),
+            self.sweep_deadline(),
         ]
         .into_iter()
         .flatten()
@@ -1710,8 +1750,8 @@ impl Follower {
     /// [`Self::decide`]; with `after_fault`, a target faulted twice in a row
     /// is held instead (see `faulted`).
     fn decide_after(&mut self, now: Duration, hz: u64, after_fault: bool) {
-        if self.peak.is_some() {
-            // The search has the motor; its end decides this again.
+        if self.searching() {
+            // The search (or sweep) has the motor; its end decides this again.
             return;
         }
         let (tune_hz, band) = match self.policy.place(hz) {
@@ -1893,7 +1933,7 @@ impl Follower {
             && !self.fault
             && !stopped_short
             && !self.untuned
-            && self.peak.is_none()
+            && !self.searching()
         {
             self.release_at = Some(now + self.policy.inhibit_tail);
         }
@@ -1956,8 +1996,9 @@ impl Follower {
     }
 
     fn set_inhibit(&mut self, on: bool) {
-        if !on && self.peak.is_some() {
-            // A search holds the inhibit from its first move to its end.
+        if !on && self.searching() {
+            // A search (a sweep) holds the inhibit from its first move
+            // (set) to its end.
             return;
         }
         if self.swr_hold {
@@ -1987,6 +2028,8 @@ mod held_tests;
 mod jump_tests;
 #[cfg(test)]
 mod peak_tests;
+#[cfg(test)]
+mod sweep_tests;
 #[cfg(test)]
 mod test_support;
 #[cfg(test)]

@@ -36,8 +36,11 @@ use super::Approach;
 use super::{Command, Effects, Follower, HoldReason, Policy, Refusal, Reply};
 use crate::error::IoFailure;
 use crate::journal::Recorded;
-use crate::rig::{Decode, Direction, RigEvent};
+use crate::rig::{Decode, Direction, RigEvent, Vfo};
 use crate::tuner::{HomeSide, TunerCommand, TunerEvent};
+
+/// Why a search or sweep cannot read the band noise here.
+const NO_SIGNAL_METER: &str = "the rig's signal meter cannot be read here: it needs a polled rig (mode = \"poll\", or \"proxy\" with poll_ms) whose dialect has a signal-meter read";
 
 /// How long after a fault the session asks `WHERE` again.
 pub const RETRY_AFTER: Duration = Duration::from_secs(2);
@@ -119,9 +122,17 @@ pub enum Output {
         /// From a noise-peak search: the fitted resonance curve.
         fit: Option<crate::calibrate::resonance::ResonanceFit>,
     },
+    /// Write to the rig's port (in `poll` mode between polls; in `proxy`
+    /// mode between the other program's messages): a calibration sweep's
+    /// frequency set, `hz` on `vfo`, already encoded in the rig's dialect.
+    RigWrite { bytes: Vec<u8>, vfo: Vfo, hz: u64 },
     /// A log line.
     Log(Note),
 }
+
+/// Encodes "set `vfo` (the VFO the rig receives on) to `hz`" in the rig's
+/// dialect (see [`Session::with_frequency_set`]).
+pub type FrequencySet = Box<dyn Fn(Vfo, u64) -> Vec<u8> + Send>;
 
 /// How loud a note is.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -234,6 +245,22 @@ pub enum Note {
     PeakEnded {
         words: String,
         found: bool,
+    },
+    /// The rig is asked to set `vfo` to `hz` (a calibration sweep).
+    RigSet {
+        vfo: Vfo,
+        hz: u64,
+    },
+    /// A calibration sweep of `band` began, to search `points`.
+    SweepStarted {
+        band: String,
+        points: Vec<u64>,
+    },
+    /// A calibration sweep ended; `clean`: every point searched and the
+    /// rig's frequency given back as it was.
+    SweepEnded {
+        words: String,
+        clean: bool,
     },
     PositionFailed {
         error: IoFailure,
@@ -475,6 +502,8 @@ impl Phase {
 /// applied to it through [`Effects`] while the core is borrowed).
 struct Shell {
     settings: SessionSettings,
+    /// How to set the rig's frequency, where it can be (a sweep).
+    frequency_set: Option<FrequencySet>,
     /// The core's policy (for a move's legs).
     policy: Policy,
     inhibit_lead: Duration,
@@ -620,6 +649,7 @@ impl Session {
         let inhibit_lead = core.policy().inhibit_lead;
         let mut st = Shell {
             settings,
+            frequency_set: None,
             policy: core.policy().clone(),
             inhibit_lead,
             // Opened asserted before the session began.
@@ -682,6 +712,14 @@ impl Session {
     /// noise-peak search.
     pub fn with_signal_meter(mut self, scale: crate::rig::meter::MeterScale) -> Session {
         self.signal = Some(scale);
+        self
+    }
+
+    /// The rig's frequency can be set (a polled rig whose dialect has a
+    /// frequency set): a calibration sweep may run, with the operator's
+    /// consent; `set` encodes each set.
+    pub fn with_frequency_set(mut self, set: FrequencySet) -> Session {
+        self.st.frequency_set = Some(set);
         self
     }
 
@@ -1053,8 +1091,18 @@ impl Session {
                 Reply::Refused(Refusal::ShuttingDown)
             }
             Command::Peak if self.signal.is_none() => Reply::Refused(Refusal::CannotPeak {
-                why: "the rig's signal meter cannot be read here: it needs a polled rig (mode = \"poll\", or \"proxy\" with poll_ms) whose dialect has a signal-meter read".to_string(),
+                why: NO_SIGNAL_METER.to_string(),
             }),
+            Command::Calibrate { .. } if self.signal.is_none() => {
+                Reply::Refused(Refusal::CannotSweep {
+                    why: NO_SIGNAL_METER.to_string(),
+                })
+            }
+            Command::Calibrate { .. } if self.st.frequency_set.is_none() => {
+                Reply::Refused(Refusal::CannotSweep {
+                    why: "this rig's dialect has no frequency set the sweep could send (the fixed-block family names no VFO)".to_string(),
+                })
+            }
             cmd => self.core.handle_command(now, cmd),
         };
         self.st.note(Note::Command {
@@ -2089,6 +2137,41 @@ impl Effects for Shell {
             },
             PeakNews::Ended(outcome) => Note::PeakEnded {
                 found: matches!(outcome, crate::follow::peak::PeakOutcome::Candidate(_)),
+                words: outcome.to_string(),
+            },
+        });
+        Ok(())
+    }
+
+    fn set_rig_frequency(&mut self, _now: Duration, vfo: Vfo, hz: u64) -> Result<(), Self::Error> {
+        let bytes = self.frequency_set.as_ref().map(|set| set(vfo, hz));
+        match bytes.filter(|b| !b.is_empty()) {
+            Some(bytes) => {
+                self.note(Note::RigSet { vfo, hz });
+                self.push(Output::RigWrite { bytes, vfo, hz });
+            }
+            // The session refuses a sweep without a way to set the rig;
+            // nothing is sent if one asks all the same.
+            None => self.note(Note::Plain {
+                level: Level::Error,
+                text:
+                    "a frequency set was asked, but this rig link cannot set the rig; nothing sent",
+            }),
+        }
+        Ok(())
+    }
+
+    fn sweep(
+        &mut self,
+        _now: Duration,
+        news: crate::follow::effects::SweepNews,
+    ) -> Result<(), Self::Error> {
+        use crate::follow::effects::SweepNews;
+        use crate::follow::sweep::{Restore, SweepEnd};
+        self.note(match news {
+            SweepNews::Started { band, points } => Note::SweepStarted { band, points },
+            SweepNews::Ended(outcome) => Note::SweepEnded {
+                clean: outcome.end == SweepEnd::Completed && outcome.restore == Restore::Confirmed,
                 words: outcome.to_string(),
             },
         });

@@ -198,7 +198,7 @@ impl Bench {
                     self.s.handle_journal_result(self.now, r);
                 }
                 Output::Transmit { on } => self.transmit.push(on),
-                Output::Candidate { .. } | Output::Log(_) => {}
+                Output::Candidate { .. } | Output::Log(_) | Output::RigWrite { .. } => {}
             }
         }
     }

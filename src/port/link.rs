@@ -209,6 +209,11 @@ pub struct LinkConfig {
     /// keeps it current from the session: the SWR meter while the rig
     /// transmits, with `[swr_watch]`). `None`: never.
     pub meters: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
+    /// A write for the rig (a calibration sweep's frequency set), sent
+    /// ahead of the next poll, which is brought forward to now: the latest
+    /// value is what goes (a newer set makes an unsent older one moot).
+    /// `None`: never.
+    pub writes: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
 }
 
 impl LinkConfig {
@@ -219,6 +224,7 @@ impl LinkConfig {
             backoff_cap: Duration::from_secs(2),
             split: None,
             meters: None,
+            writes: None,
         }
     }
 }
@@ -271,6 +277,9 @@ async fn keep_link(config: LinkConfig, events: mpsc::Sender<LinkEvent>, mut shut
     let name = config.port.path.display().to_string();
     let mut state = Transitions::default();
     let mut backoff = Duration::from_millis(100);
+    // One receiver across reconnections: a write is sent once, not again
+    // on every new connection.
+    let mut writes = config.writes.clone();
     loop {
         let reason = match open_port(&config.port) {
             Ok((stream, device)) => {
@@ -280,7 +289,7 @@ async fn keep_link(config: LinkConfig, events: mpsc::Sender<LinkEvent>, mut shut
                         return;
                     }
                 }
-                match session(&config, stream, &events, &mut shutdown).await {
+                match session(&config, stream, &events, &mut shutdown, &mut writes).await {
                     Ok(()) => return,
                     Err(reason) => reason,
                 }
@@ -307,6 +316,7 @@ async fn session(
     mut stream: tokio_serial::SerialStream,
     events: &mpsc::Sender<LinkEvent>,
     shutdown: &mut Shutdown,
+    writes: &mut Option<tokio::sync::watch::Receiver<Vec<u8>>>,
 ) -> Result<(), Located> {
     let path = config.port.path.as_path();
     let mut buf = BytesMut::with_capacity(1024);
@@ -315,6 +325,11 @@ async fn session(
         let next_poll = poll.as_ref().map(|p| p.due);
         tokio::select! {
             _ = shutdown.wait() => return Ok(()),
+            Some(bytes) = next_write(writes) => {
+                if let Some(p) = poll.as_mut() {
+                    p.write_first(&bytes, Instant::now());
+                }
+            }
             r = stream.read_buf(&mut buf) => {
                 match r {
                     Ok(0) | Err(_) => return Err(read_failure(path, r)),
@@ -347,6 +362,26 @@ async fn session(
                     }
                 }
             }
+        }
+    }
+}
+
+/// The next write the driver asks for (see [`LinkConfig::writes`]);
+/// pending for ever without a channel, or once it is closed.
+pub(crate) async fn next_write(
+    writes: &mut Option<tokio::sync::watch::Receiver<Vec<u8>>>,
+) -> Option<Vec<u8>> {
+    let Some(rx) = writes.as_mut() else {
+        return std::future::pending().await;
+    };
+    loop {
+        if rx.changed().await.is_err() {
+            *writes = None;
+            return std::future::pending().await;
+        }
+        let bytes = rx.borrow_and_update().clone();
+        if !bytes.is_empty() {
+            return Some(bytes);
         }
     }
 }
@@ -395,6 +430,8 @@ pub(crate) struct Poller {
     interval: Duration,
     pub(crate) due: Instant,
     answered: bool,
+    /// Bytes to send ahead of the next query (a frequency set).
+    first: Vec<u8>,
 }
 
 impl Poller {
@@ -403,8 +440,16 @@ impl Poller {
             interval: config.every,
             due: Instant::now(),
             answered: true,
+            first: Vec::new(),
             config,
         }
+    }
+
+    /// `bytes` go ahead of the next query, which is due at once (so the
+    /// query's answer tells what the rig made of them).
+    pub(crate) fn write_first(&mut self, bytes: &[u8], now: Instant) {
+        self.first.extend_from_slice(bytes);
+        self.due = self.due.min(now);
     }
 
     /// The rig said something.
@@ -435,7 +480,8 @@ impl Poller {
         };
         self.answered = false;
         self.due = now + self.interval;
-        let mut q = self.config.query.clone();
+        let mut q = std::mem::take(&mut self.first);
+        q.extend_from_slice(&self.config.query);
         if split {
             q.extend_from_slice(&self.config.while_split);
         }

@@ -137,6 +137,10 @@ pub struct ProxyConfig {
     /// Meter reads to append to every poll while not empty (as
     /// [`super::link::LinkConfig::meters`]).
     pub meters: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
+    /// Writes for the rig (as [`super::link::LinkConfig::writes`]): sent
+    /// with the next poll, which waits for the other program's message
+    /// boundary as every poll does.
+    pub writes: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
 }
 
 /// Creates the pseudo-terminal and its symlink now (so that a bad path is
@@ -156,6 +160,8 @@ pub fn spawn(
         )
     })?;
     tracing::info!(link = %config.link.display(), device = %pty.slave_path().display(), "proxy port ready for the other program");
+    // One receiver across the rig port's reconnections (a write goes once).
+    let config_writes = config.writes.clone();
     let proxy = Proxy {
         config,
         boundary,
@@ -164,6 +170,7 @@ pub fn spawn(
         master,
         _pty: pty,
         other_at_boundary: true,
+        writes: config_writes,
     };
     Ok(tokio::spawn(proxy.relay()))
 }
@@ -176,6 +183,7 @@ struct Proxy {
     master: SerialStream,
     _pty: PtyLink,
     other_at_boundary: bool,
+    writes: Option<tokio::sync::watch::Receiver<Vec<u8>>>,
 }
 
 enum End {
@@ -266,6 +274,13 @@ impl Proxy {
             };
             tokio::select! {
                 _ = self.shutdown.wait() => return End::Shutdown,
+                Some(bytes) = super::link::next_write(&mut self.writes) => {
+                    // With the next poll, which is due now; it waits for
+                    // the other program's boundary like any poll.
+                    if let Some(p) = poll.as_mut() {
+                        p.write_first(&bytes, Instant::now());
+                    }
+                }
                 r = rig.read_buf(&mut from_rig) => {
                     match r {
                         Ok(0) | Err(_) => {

@@ -853,6 +853,7 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
                     poll,
                     backoff_cap: Duration::from_secs(2),
                     meters: None,
+                    writes: None,
                 },
                 boundary,
             }
@@ -863,6 +864,7 @@ pub fn rig_source_on(station: &Station, port: String) -> Result<RigSource, Error
             backoff_cap: Duration::from_secs(2),
             split: None,
             meters: None,
+            writes: None,
         }),
     };
     Ok(rig)
@@ -906,8 +908,32 @@ impl ServiceParts {
                 .map(|points| crate::calibrate::candidates_path(&points)),
             swr_watch: swr_watch_parts(station)?,
             signal_meter: signal_meter_parts(station),
+            frequency_set: frequency_set_of(station),
         })
     }
+}
+
+/// The rig's frequency set for a calibration sweep: only where the rig is
+/// polled (listen mode never writes) and its dialect can name the VFO in
+/// use (the fixed-block family's set is not one we send).
+pub fn frequency_set_of(station: &Station) -> Option<crate::follow::session::FrequencySet> {
+    use crate::rig::{Family, StationMessage};
+    station.config.rig.poll_every_ms()?;
+    if station.dialect.family() == Family::Block {
+        return None;
+    }
+    let dialect = station.dialect.clone();
+    let address = station.config.rig.address.unwrap_or(0);
+    Some(Box::new(move |vfo, hz| {
+        dialect.encode_station(
+            &StationMessage::SetFrequency {
+                vfo,
+                selected: true,
+                hz,
+            },
+            address,
+        )
+    }))
 }
 
 /// The signal-meter read for the noise-peak search: only where the rig is
