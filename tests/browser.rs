@@ -245,6 +245,39 @@ listen = "127.0.0.1:0"
         !after[before..].iter().any(|l| l.starts_with("GOTO")),
         "{after:?}"
     );
+    // "Calibrate this band": it changes the rig's frequency, so the page
+    // asks first. Declined, nothing is asked of the service; accepted, the
+    // request carries the consent and the core refuses this station (no
+    // loop described, not polled) with the reason; nothing moves.
+    wait_text(&c, "sweep-band", "40m").await;
+    let calibrate = c.find(Locator::Id("calibrate")).await.unwrap();
+    calibrate.click().await.unwrap();
+    let question = c.get_alert_text().await.unwrap();
+    assert!(
+        question.contains("sets the rig's receive frequency"),
+        "{question}"
+    );
+    c.dismiss_alert().await.unwrap();
+    tokio::time::sleep(Duration::from_millis(300)).await;
+    let answer = c
+        .find(Locator::Id("answer"))
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap();
+    assert!(
+        !answer.starts_with("calibrate"),
+        "declined, yet asked: {answer}"
+    );
+    calibrate.click().await.unwrap();
+    c.accept_alert().await.unwrap();
+    wait_text(&c, "answer", "no calibration sweep now").await;
+    let after = ctl.received();
+    assert!(
+        !after[before..].iter().any(|l| l.starts_with("GOTO")),
+        "{after:?}"
+    );
     // The marker on the travel bar is where the page says (310 of 0..3000).
     let left = c
         .execute(

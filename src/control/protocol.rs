@@ -309,6 +309,9 @@ pub struct StateView {
     /// The profile in use; `base` for the base calibration.
     pub profile: String,
     pub profiles: Vec<String>,
+    /// The followed bands' names (what `calibrate` takes).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub bands: Vec<String>,
     pub presets: Vec<PresetView>,
     pub shutting_down: bool,
     /// The loop's estimated SWR where the capacitor is at rest (with
@@ -447,6 +450,7 @@ impl StateView {
                 .clone()
                 .unwrap_or_else(|| crate::follow::BASE_PROFILE.to_string()),
             profiles: s.profiles.clone(),
+            bands: s.bands.clone(),
             presets: s
                 .presets
                 .iter()

@@ -347,6 +347,8 @@ pub struct Status {
     /// The calibration profile in use (`None`: the base).
     pub profile: Option<String>,
     pub profiles: Vec<String>,
+    /// The followed bands' names (what a sweep can calibrate).
+    pub bands: Vec<String>,
     pub presets: Vec<Preset>,
     /// Set by the session once a shutdown was asked.
     pub shutting_down: bool,

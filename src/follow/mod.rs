@@ -1210,6 +1210,7 @@ impl Follower {
             fault: self.fault,
             profile: self.profile.clone(),
             profiles: self.calibrations.names(),
+            bands: self.policy.bands.iter().map(|b| b.name.clone()).collect(),
             presets: self.presets.clone(),
             shutting_down: self.closing,
             swr_read: None,

@@ -1093,6 +1093,8 @@ impl Session {
             Command::Peak if self.signal.is_none() => Reply::Refused(Refusal::CannotPeak {
                 why: NO_SIGNAL_METER.to_string(),
             }),
+            // Consent first: nothing else is worth saying without it.
+            Command::Calibrate { consent: false, .. } => Reply::Refused(Refusal::NeedsConsent),
             Command::Calibrate { .. } if self.signal.is_none() => {
                 Reply::Refused(Refusal::CannotSweep {
                     why: NO_SIGNAL_METER.to_string(),
