@@ -48,7 +48,6 @@
 
 use std::io::Write;
 use std::path::Path;
-use std::sync::Arc;
 use std::time::Duration;
 
 use serde::Serialize;
@@ -915,6 +914,15 @@ fn optimum(station: &Station, physics: &SmallLoop, sc: &Scenario, tally: &mut Ta
     floors
 }
 
+/// What the simulated loop really is, when it is not the station's own
+/// calibration plus the hidden error: where the loop resonates (the motor
+/// position at rest after the approach, for each frequency) and its
+/// physics (its Q).
+pub struct Truth<'a> {
+    pub map: &'a dyn StepMap,
+    pub physics: SmallLoop,
+}
+
 /// Measures the station's policy, the naive one and the optimum.
 pub fn bench_follow(
     station: &Station,
@@ -928,6 +936,23 @@ pub fn bench_follow(
             "no loop described",
         ))
     })?;
+    let truth = Truth {
+        map: station.map.as_ref(),
+        physics,
+    };
+    bench_follow_against(station, name, options, &truth)
+}
+
+/// [`bench_follow`] against a loop that is `truth` (plus the options'
+/// hidden error), not the station's calibration: a calibration measured on
+/// the loop (by a sweep, say) judged on the loop itself.
+pub fn bench_follow_against(
+    station: &Station,
+    name: &str,
+    options: &BenchOptions,
+    truth: &Truth<'_>,
+) -> Result<BenchReport, StationError> {
+    let physics = truth.physics;
     let bands = station.policy.band_ranges();
     let wire = DialectWire {
         dialect: &station.dialect,
@@ -935,9 +960,8 @@ pub fn bench_follow(
     };
     let ours = station.policy.clone();
     let plain = naive(&ours);
-    let map: Arc<dyn StepMap> = Arc::clone(&station.map);
     let sim_loop = SimLoop::new(
-        map.as_ref(),
+        truth.map,
         physics,
         &ours,
         options.error_steps,

@@ -15,16 +15,19 @@
 use crate::antenna::{self, SmallLoop};
 use crate::rig::meter::MeterScale;
 
-/// A loop tuned by a capacitor linear in the motor's travel,
-/// `C = c0 + c1 · (steps + offset)`, resonating with the loop's inductance;
-/// `offset_steps` is the hidden error (rain, temperature) the calibration
-/// does not know.
+/// A loop tuned by a capacitor driven through the motor's travel,
+/// `C = c0 + c1 · x + c2 · x²` with `x = steps + offset` (linear unless
+/// `c2` is set: a gear train or a plate shape that is not), resonating with
+/// the loop's inductance; `offset_steps` is the hidden error (rain,
+/// temperature) the calibration does not know.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct SimLoop {
     pub small_loop: SmallLoop,
     pub inductance_h: f64,
     pub c0_f: f64,
     pub c1_f_per_step: f64,
+    /// The law's curvature (F per step²); 0: linear.
+    pub c2_f_per_step2: f64,
     pub offset_steps: f64,
 }
 
@@ -44,20 +47,26 @@ impl SimLoop {
             inductance_h: l,
             c0_f: c0,
             c1_f_per_step: c1,
+            c2_f_per_step2: 0.0,
             offset_steps: 0.0,
         })
     }
 
     /// True resonance with the capacitor at `steps`.
     pub fn resonance_hz(&self, steps: f64) -> f64 {
-        let c = self.c0_f + self.c1_f_per_step * (steps + self.offset_steps);
+        let x = steps + self.offset_steps;
+        let c = self.c0_f + self.c1_f_per_step * x + self.c2_f_per_step2 * x * x;
         antenna::resonant_frequency_hz(self.inductance_h, c)
     }
 
-    /// The true position resonating at `hz`.
+    /// The true position resonating at `hz` (the root of the law nearest
+    /// the linear one: `x = 2Δc / (c1 + √(c1² + 4·c2·Δc))`, which is the
+    /// linear `Δc/c1` when `c2` is 0 and stays exact as it grows).
     pub fn steps_for(&self, hz: f64) -> f64 {
-        let c = antenna::resonating_capacitance_f(hz, self.inductance_h);
-        (c - self.c0_f) / self.c1_f_per_step - self.offset_steps
+        let dc = antenna::resonating_capacitance_f(hz, self.inductance_h) - self.c0_f;
+        let c1 = self.c1_f_per_step;
+        let disc = (c1 * c1 + 4.0 * self.c2_f_per_step2 * dc).max(0.0);
+        2.0 * dc / (c1 + disc.sqrt()) - self.offset_steps
     }
 
     /// Unloaded Q at `hz`, from the loop physics.
@@ -311,9 +320,47 @@ pub struct TrialResult {
     pub points: usize,
 }
 
-/// Runs one trial on `sim_loop` (its offset is set from the setup).
+/// Runs one trial on `sim_loop` (its offset is set from the setup): the
+/// calibration is the loop without that offset.
 pub fn noise_peak_trial(
     mut sim_loop: SimLoop,
+    signal_scale: MeterScale,
+    swr_scale: MeterScale,
+    setup: &TrialSetup,
+) -> Option<TrialResult> {
+    let hz = setup.hz;
+    let predicted = sim_loop.steps_for(hz);
+    let slope = (sim_loop.steps_for(hz + 1.0) - sim_loop.steps_for(hz - 1.0)) / 2.0;
+    let q = sim_loop.q_unloaded(hz);
+    sim_loop.offset_steps = setup.offset_steps;
+    peak_trial(
+        sim_loop,
+        Prediction {
+            steps: predicted,
+            steps_per_hz: slope,
+            q_unloaded: q,
+        },
+        signal_scale,
+        swr_scale,
+        setup,
+    )
+}
+
+/// What the station's calibration and `[antenna]` predict at the trial's
+/// frequency: where the search centres its window and how wide it is.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Prediction {
+    pub steps: f64,
+    pub steps_per_hz: f64,
+    pub q_unloaded: f64,
+}
+
+/// One search against the true loop `truth` (`setup.offset_steps` is not
+/// applied: `truth` is the loop as it is), centred on `predicted`, the
+/// motor starting there.
+pub fn peak_trial(
+    truth: SimLoop,
+    predicted: Prediction,
     signal_scale: MeterScale,
     swr_scale: MeterScale,
     setup: &TrialSetup,
@@ -321,18 +368,17 @@ pub fn noise_peak_trial(
     use crate::follow::peak::{
         predicted_half_width_steps, PeakPlan, PeakRequest, PeakSearch, STANDARD_WINDOW_HALF_WIDTHS,
     };
+    let sim_loop = truth;
     let hz = setup.hz;
-    let predicted = sim_loop.steps_for(hz);
-    let slope = (sim_loop.steps_for(hz + 1.0) - sim_loop.steps_for(hz - 1.0)) / 2.0;
-    sim_loop.offset_steps = setup.offset_steps;
     let q = sim_loop.q_unloaded(hz);
-    let start = predicted.round() as i64;
+    let slope = predicted.steps_per_hz;
+    let start = predicted.steps.round() as i64;
     let plan = PeakPlan {
         hz: hz.round() as u64,
         profile: "default".into(),
         start_steps: start,
         predicted_steps: start,
-        half_width_steps: predicted_half_width_steps(hz, q, slope),
+        half_width_steps: predicted_half_width_steps(hz, predicted.q_unloaded, slope),
         window_half_widths: STANDARD_WINDOW_HALF_WIDTHS,
         points: setup.points,
         reads_per_point: setup.reads_per_point,
@@ -409,6 +455,26 @@ mod tests {
         assert!(l.resonance_hz(20000.0) < l.resonance_hz(10000.0));
         l.offset_steps = 25.0;
         assert!((l.steps_for(14_175_000.0) - 8276.0).abs() < 1e-6);
+    }
+
+    /// A curved law: `steps_for` is the inverse of `resonance_hz` (the
+    /// stable root), and with the curvature at 0 it is the linear law.
+    #[test]
+    fn a_curved_capacitor_law_inverts_exactly() {
+        let linear = demo_loop();
+        let mut curved = linear;
+        curved.c2_f_per_step2 = 2e-4 * linear.c1_f_per_step / 40_000.0;
+        curved.offset_steps = -12.0;
+        for hz in [7_000_000.0, 7_100_000.0, 10_125_000.0, 14_350_000.0] {
+            let p = curved.steps_for(hz);
+            assert!((curved.resonance_hz(p) - hz).abs() < 1e-3, "{hz}");
+            // More capacitance per step at the top of the travel: the
+            // same frequency sits lower than on the linear law.
+            assert!(p < linear.steps_for(hz) + 12.0, "{hz}: {p}");
+        }
+        curved.c2_f_per_step2 = 0.0;
+        curved.offset_steps = 0.0;
+        assert_eq!(curved.steps_for(7_100_000.0), linear.steps_for(7_100_000.0));
     }
 
     #[test]
