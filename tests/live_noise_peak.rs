@@ -83,6 +83,11 @@ struct Station {
 /// calibration's position for 7.1 MHz; sim-rig's operator keys as
 /// `script` says.
 fn station(meters: &str, script: &str) -> Station {
+    station_speaking("binary-bcd", meters, script)
+}
+
+/// [`station`], the rig speaking `protocol` (a built-in dialect).
+fn station_speaking(protocol: &str, meters: &str, script: &str) -> Station {
     let dir = tempfile::tempdir().unwrap();
     let meters_file = dir.path().join("meters.toml");
     std::fs::write(&meters_file, meters).unwrap();
@@ -102,7 +107,7 @@ fn station(meters: &str, script: &str) -> Station {
             .args([
                 "sim-rig",
                 "--protocol",
-                "binary-bcd",
+                protocol,
                 "--vfo-a",
                 "7100000",
                 "--no-reports",
@@ -134,11 +139,11 @@ fn station(meters: &str, script: &str) -> Station {
         format!(
             r#"
 [rig]
-protocol = "binary-bcd"
+protocol = "{protocol}"
 port = "{rig}"
 mode = "poll"
 poll_ms = 20
-address = 0x94
+{address}
 
 [tuner]
 link = "tcp://{addr}"
@@ -173,6 +178,11 @@ low_hz = 7000000
 high_hz = 7200000
 "#,
             rig = link.display(),
+            address = if protocol.starts_with("binary") {
+                "address = 0x94"
+            } else {
+                ""
+            },
         ),
     )
     .unwrap();
@@ -487,6 +497,35 @@ fn a_transmission_during_a_sweep_stops_it_and_the_rig_is_set_back_after_the_over
     );
     no_set_while_transmitting(&truth);
     assert!(!s.dir.path().join("loop.candidates.csv").exists());
+    let m = s.motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+}
+
+/// The same sweep with a rig of the text family: the set names the VFO
+/// (`FA`), sim-rig takes it, and the VFO is given back.
+#[test]
+fn a_sweep_on_a_text_family_rig_sets_vfo_a_and_gives_it_back() {
+    let meters = meters_toml(0.0, -105.0);
+    let s = station_speaking("text-semicolon", &meters, "");
+    let out = ctl(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
+    let done = s.run.wait_log_for(
+        &["calibration sweep: sweep of 40m done"],
+        Duration::from_secs(120),
+    );
+    assert!(done.contains("3 candidate(s) of 3"), "{done}");
+    let truth = truth_lines(&s.truth);
+    let visited: Vec<u64> = truth
+        .iter()
+        .filter(|t| t["cause"] == "cat")
+        .filter_map(|t| t["rx_hz"].as_u64())
+        .collect();
+    assert_eq!(visited, vec![7_033_000, 7_100_000, 7_167_000, 7_100_000]);
+    assert!(truth.iter().all(|t| t["rx_vfo"] == "a"), "{truth:?}");
     let m = s.motor.lock().unwrap();
     assert!(m.violations.is_empty(), "{:?}", m.violations);
 }
