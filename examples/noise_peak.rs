@@ -16,25 +16,11 @@
 
 use std::time::Duration;
 
-use tuneward::antenna::{Conductor, SmallLoop};
 use tuneward::follow::peak::{PeakOutcome, STANDARD_PASSES};
 use tuneward::rig::meter::{binary_signal_scale, binary_swr_scale};
-use tuneward::sim::meters::{noise_peak_trial, Band, SimLoop, TrialSetup};
+use tuneward::sim::meters::{demo_station_loop, noise_peak_trial, Band, SimLoop, TrialSetup};
 
 const TRIALS: u64 = 200;
-
-fn demo_loop() -> Option<SimLoop> {
-    SimLoop::through(
-        SmallLoop {
-            loop_diameter_m: 1.0,
-            conductor_diameter_m: 0.022,
-            conductor: Conductor::Copper,
-        },
-        // Two of config/demo.toml's points.
-        (7_100_000.0, 312_420.0),
-        (14_175_000.0, 66_401.0),
-    )
-}
 
 /// The seeds the search was developed on start here.
 const DEVELOPMENT_SEEDS: u64 = 1000;
@@ -93,7 +79,7 @@ fn main() {
             std::process::exit(2);
         }
     };
-    let Some(sim_loop) = demo_loop() else {
+    let Some(sim_loop) = demo_station_loop() else {
         eprintln!("noise_peak: the demo loop does not resonate through its points");
         std::process::exit(1);
     };

@@ -68,6 +68,23 @@ fn ctl(config: &Path, args: &[&str]) -> Output {
         .unwrap()
 }
 
+/// `tuneward ctl` that must succeed; its answer.
+fn ctl_ok(config: &Path, args: &[&str]) -> String {
+    let out = ctl(config, args);
+    let answer = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(out.status.success(), "ctl {args:?}: {answer}");
+    answer
+}
+
+/// Waits for the scripted over to begin, then for the log line `ended`
+/// (30 s at most) saying the over ended what it ended; that line.
+fn over_ends(s: &Station, ended: &str) -> String {
+    wait_truth(&s.truth, "the over", |t| t["transmitting"] == true);
+    let line = s.run.wait_log_for(&[ended], Duration::from_secs(30));
+    assert!(line.contains("transmitted"), "{line}");
+    line
+}
+
 struct Station {
     dir: tempfile::TempDir,
     config: std::path::PathBuf,
@@ -272,12 +289,7 @@ fn a_noise_peak_finds_the_rained_on_loop_and_the_accepted_point_keeps_it_tuned()
     // Back to where the old calibration puts 7.1 MHz (far off again), then
     // accept the candidate and read the calibration again: the service
     // re-tunes 7.1 MHz through the new one, and the loop is within 1.5:1.
-    let out = ctl(&s.config, &["goto", &format!("{calibrated}")]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
+    ctl_ok(&s.config, &["goto", &format!("{calibrated}")]);
     wait_position(&s.position, calibrated);
     let fit = Command::new(BIN)
         .args(["fit", "--accept", "-c"])
@@ -292,12 +304,7 @@ fn a_noise_peak_finds_the_rained_on_loop_and_the_accepted_point_keeps_it_tuned()
     );
     let points = std::fs::read_to_string(s.dir.path().join("loop.csv")).unwrap();
     assert!(points.contains(&format!("7100000,{steps}")), "{points}");
-    let out = ctl(&s.config, &["reload"]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
+    ctl_ok(&s.config, &["reload"]);
     wait_position(&s.position, steps);
     assert!(wet.swr(HZ, steps) <= 1.5);
 }
@@ -334,18 +341,8 @@ fn a_transmission_during_the_search_ends_it_with_nothing_recorded() {
         (start - dry.steps_for(HZ)).abs() < 0.1 * half_width(&dry),
         "{start}"
     );
-    let out = ctl(&s.config, &["peak"]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
-    wait_truth(&s.truth, "the over", |t| t["transmitting"] == true);
-    let ended = s.run.wait_log_for(
-        &["noise-peak search: search stopped"],
-        Duration::from_secs(30),
-    );
-    assert!(ended.contains("transmitted"), "{ended}");
+    ctl_ok(&s.config, &["peak"]);
+    over_ends(&s, "noise-peak search: search stopped");
     wait_truth(&s.truth, "the over's end", |t| t["transmitting"] == false);
     wait_position(&s.position, start);
     assert!(!s.dir.path().join("loop.candidates.csv").exists());
@@ -359,6 +356,16 @@ fn truth_lines(path: &Path) -> Vec<serde_json::Value> {
         .unwrap_or_default()
         .lines()
         .filter_map(|l| serde_json::from_str(l).ok())
+        .collect()
+}
+
+/// The receive frequencies the rig was set to over its control port, in
+/// order, by its own truth log.
+fn set_over_the_port(truth: &[serde_json::Value]) -> Vec<u64> {
+    truth
+        .iter()
+        .filter(|t| t["cause"] == "cat")
+        .filter_map(|t| t["rx_hz"].as_u64())
         .collect()
 }
 
@@ -410,12 +417,7 @@ fn a_sweep_calibrates_the_band_from_its_noise_and_gives_the_rig_back() {
         .iter()
         .all(|t| t["rx_hz"] == 7_100_000));
 
-    let out = ctl(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
+    ctl_ok(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
     s.run
         .wait_log(&["calibration sweep: setting the rig's frequency to 7.033000 MHz"]);
     let status = ctl(&s.config, &["status"]);
@@ -428,11 +430,7 @@ fn a_sweep_calibrates_the_band_from_its_noise_and_gives_the_rig_back() {
     assert!(done.contains("3 candidate(s) of 3"), "{done}");
     assert!(done.contains("set back to 7100000 Hz"), "{done}");
     let truth = truth_lines(&s.truth);
-    let visited: Vec<u64> = truth
-        .iter()
-        .filter(|t| t["cause"] == "cat")
-        .filter_map(|t| t["rx_hz"].as_u64())
-        .collect();
+    let visited = set_over_the_port(&truth);
     assert_eq!(
         visited,
         vec![7_033_000, 7_100_000, 7_167_000, 7_100_000],
@@ -474,18 +472,8 @@ fn a_transmission_during_a_sweep_stops_it_and_the_rig_is_set_back_after_the_over
         &meters,
         "{\"at_ms\": 3000, \"op\": \"key\"}\n{\"at_ms\": 4500, \"op\": \"unkey\"}\n",
     );
-    let out = ctl(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
-    wait_truth(&s.truth, "the over", |t| t["transmitting"] == true);
-    let ended = s.run.wait_log_for(
-        &["calibration sweep: sweep of 40m stopped"],
-        Duration::from_secs(30),
-    );
-    assert!(ended.contains("transmitted"), "{ended}");
+    ctl_ok(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
+    let ended = over_ends(&s, "calibration sweep: sweep of 40m stopped");
     assert!(ended.contains("set back to 7100000 Hz"), "{ended}");
     let truth = truth_lines(&s.truth);
     assert_eq!(truth.last().unwrap()["rx_hz"], 7_100_000);
@@ -507,23 +495,14 @@ fn a_transmission_during_a_sweep_stops_it_and_the_rig_is_set_back_after_the_over
 fn a_sweep_on_a_text_family_rig_sets_vfo_a_and_gives_it_back() {
     let meters = meters_toml(0.0, -105.0);
     let s = station_speaking("text-semicolon", &meters, "");
-    let out = ctl(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stdout)
-    );
+    ctl_ok(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
     let done = s.run.wait_log_for(
         &["calibration sweep: sweep of 40m done"],
         Duration::from_secs(120),
     );
     assert!(done.contains("3 candidate(s) of 3"), "{done}");
     let truth = truth_lines(&s.truth);
-    let visited: Vec<u64> = truth
-        .iter()
-        .filter(|t| t["cause"] == "cat")
-        .filter_map(|t| t["rx_hz"].as_u64())
-        .collect();
+    let visited = set_over_the_port(&truth);
     assert_eq!(visited, vec![7_033_000, 7_100_000, 7_167_000, 7_100_000]);
     assert!(truth.iter().all(|t| t["rx_vfo"] == "a"), "{truth:?}");
     let m = s.motor.lock().unwrap();

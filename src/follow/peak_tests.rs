@@ -10,31 +10,13 @@
 
 use super::test_support::{band_40m, ms, policy};
 use super::*;
-use crate::antenna::{swr_bandwidth_hz, Conductor};
+use crate::antenna::swr_bandwidth_hz;
 use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
-use crate::sim::meters::{Band as Noise, SimLoop, SimMeters};
+use crate::sim::meters::{demo_station_loop, Band as Noise, SimLoop, SimMeters};
 
-/// The demo station's loop (config/demo.toml, invented) through two of its
-/// points.
+/// The demo station's loop (`sim::meters::demo_station_loop`, invented).
 fn sim_loop() -> SimLoop {
-    SimLoop::through(
-        SmallLoop {
-            loop_diameter_m: 1.0,
-            conductor_diameter_m: 0.022,
-            conductor: Conductor::Copper,
-        },
-        (7_100_000.0, 312_420.0),
-        (14_175_000.0, 66_401.0),
-    )
-    .expect("the demo loop resonates through its points")
-}
-
-/// The calibration: the loop without its rain.
-struct Calibrated(SimLoop);
-impl StepMap for Calibrated {
-    fn steps_at(&self, hz: f64) -> f64 {
-        self.0.steps_for(hz)
-    }
+    demo_station_loop().expect("the demo loop resonates through its points")
 }
 
 const HZ: u64 = 7_100_000;
@@ -70,8 +52,7 @@ impl Bench {
         p.max_steps = 400_000;
         p.backlash_steps = 30;
         let start = base.steps_for(HZ as f64).round() as i64;
-        let core = Follower::new(p, Arc::new(Calibrated(base)), Some(start))
-            .with_loop(Some(base.small_loop));
+        let core = Follower::new(p, Arc::new(base), Some(start)).with_loop(Some(base.small_loop));
         let mut meters = SimMeters::new(
             truth,
             Noise {
@@ -287,8 +268,8 @@ fn refusals_and_the_operators_stop() {
     p.bands = vec![band_40m()];
     p.max_steps = 400_000;
     let start = base.steps_for(HZ as f64).round() as i64;
-    let mut core = Follower::new(p.clone(), Arc::new(Calibrated(base)), Some(start))
-        .with_loop(Some(base.small_loop));
+    let mut core =
+        Follower::new(p.clone(), Arc::new(base), Some(start)).with_loop(Some(base.small_loop));
     core.handle_frequency(Duration::ZERO, HZ);
     let r = core.handle_command(ms(1), Command::Peak);
     assert!(
@@ -296,7 +277,7 @@ fn refusals_and_the_operators_stop() {
         "{r:?}"
     );
     // No loop described: no window.
-    let mut core = Follower::new(p, Arc::new(Calibrated(base)), Some(start));
+    let mut core = Follower::new(p, Arc::new(base), Some(start));
     core.handle_transmit(Duration::ZERO, false);
     core.handle_frequency(Duration::ZERO, HZ);
     let r = core.handle_command(ms(1), Command::Peak);

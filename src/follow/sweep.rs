@@ -137,8 +137,10 @@ pub struct SweepProgress {
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(super) enum Phase {
-    /// The rig was asked to go to `hz`; its report is awaited until `due`.
-    Setting { hz: u64, due: Duration },
+    /// The rig was asked to go to `hz` from `was` (the VFO's frequency
+    /// when the set went: a poll answer of it may still be on its way);
+    /// its report is awaited until `due`.
+    Setting { hz: u64, was: u64, due: Duration },
     /// The search at `hz` is under way.
     Searching { hz: u64 },
     /// The VFO is to be set back (`due: None`: not yet sent, waiting for
@@ -279,11 +281,13 @@ impl Follower {
             self.sweep_restore(now);
             return;
         };
+        let vfo = run.restore.0;
+        let was = self.station.vfo_hz(vfo).unwrap_or(run.restore.1);
         run.phase = Phase::Setting {
             hz,
+            was,
             due: now + SWEEP_SET_WAIT,
         };
-        let vfo = run.restore.0;
         self.actions.push_back(Action::SetRigFrequency { vfo, hz });
     }
 
@@ -417,10 +421,11 @@ impl Follower {
         }
         let on_vfo = self.station.receive_vfo() == vfo;
         match phase {
-            Phase::Setting { hz, .. } => match reported {
+            Phase::Setting { hz, was, .. } => match reported {
                 Some(r) if r == hz && on_vfo => self.sweep_search(now, hz),
-                // The rig's answer from before the set, or our own set seen.
-                Some(r) if r == before || r == hz => {}
+                // The rig's answer from before the set (the point before,
+                // or the operator's frequency), or our own set seen.
+                Some(r) if r == was || r == before || r == hz => {}
                 Some(r) => {
                     if let Some(run) = self.sweep.as_mut() {
                         run.missed.push((hz, "not searched".to_string()));
@@ -460,7 +465,7 @@ impl Follower {
             return;
         };
         match run.phase {
-            Phase::Setting { hz, due } if now >= due => {
+            Phase::Setting { hz, due, .. } if now >= due => {
                 let why = format!(
                     "the rig did not report {hz} Hz within {} s of the set",
                     SWEEP_SET_WAIT.as_secs()

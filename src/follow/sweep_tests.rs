@@ -1,7 +1,9 @@
 //! The calibration sweep through the core, on virtual time, against a
 //! simulated rig of the tests' own: it takes the core's frequency sets
 //! (and echoes each as the set seen going to it, as the live port does),
-//! answers a poll 30 ms later with its VFO's frequency, and its signal
+//! has a poll answer of the frequency it was on still in flight at each
+//! set (as a polled port does), answers a poll 30 ms later with its VFO's
+//! frequency, and its signal
 //! meter reads the simulated loop (`sim::meters`) at that frequency, the
 //! loop moved by a hidden "rain" offset the calibration does not know.
 //! What is judged is the loop's truth and the rig's own record: every
@@ -13,31 +15,13 @@
 use super::sweep::{Restore, SweepEnd, SweepOutcome};
 use super::test_support::{band_40m, ms, policy};
 use super::*;
-use crate::antenna::{swr_bandwidth_hz, Conductor};
+use crate::antenna::swr_bandwidth_hz;
 use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
-use crate::sim::meters::{Band as Noise, SimLoop, SimMeters};
+use crate::sim::meters::{demo_station_loop, Band as Noise, SimLoop, SimMeters};
 
-/// An invented loop like the demo station's (config/demo.toml) through two
-/// of its points.
+/// The demo station's loop (`sim::meters::demo_station_loop`, invented).
 fn sim_loop() -> SimLoop {
-    SimLoop::through(
-        SmallLoop {
-            loop_diameter_m: 1.0,
-            conductor_diameter_m: 0.022,
-            conductor: Conductor::Copper,
-        },
-        (7_100_000.0, 312_420.0),
-        (14_175_000.0, 66_401.0),
-    )
-    .expect("the loop resonates through its points")
-}
-
-/// The calibration: the loop without its rain.
-struct Calibrated(SimLoop);
-impl StepMap for Calibrated {
-    fn steps_at(&self, hz: f64) -> f64 {
-        self.0.steps_for(hz)
-    }
+    demo_station_loop().expect("the demo loop resonates through its points")
 }
 
 const HZ: u64 = 7_100_000;
@@ -81,8 +65,7 @@ impl Bench {
         p.max_steps = 400_000;
         p.backlash_steps = 30;
         let start = base.steps_for(HZ as f64).round() as i64;
-        let core = Follower::new(p, Arc::new(Calibrated(base)), Some(start))
-            .with_loop(Some(base.small_loop));
+        let core = Follower::new(p, Arc::new(base), Some(start)).with_loop(Some(base.small_loop));
         let mut meters = SimMeters::new(
             truth,
             Noise {
@@ -167,6 +150,9 @@ impl Bench {
                             source: Source::CommandSeen,
                         },
                     );
+                    // A poll answer already on its way when the set went:
+                    // the frequency the rig was on until now.
+                    self.poll_answer();
                     if !self.rig.deaf && !self.rig.transmitting {
                         self.rig.hz = hz;
                     }

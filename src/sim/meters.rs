@@ -31,6 +31,29 @@ pub struct SimLoop {
     pub offset_steps: f64,
 }
 
+/// The loop as a calibration: where it resonates at each frequency (its
+/// offset included), for the core, the search and bench-follow's truth.
+impl crate::calibrate::StepMap for SimLoop {
+    fn steps_at(&self, hz: f64) -> f64 {
+        self.steps_for(hz)
+    }
+}
+
+/// The demo station's loop (config/demo.toml, invented): 1 m of 22 mm
+/// copper tube, the capacitance linear in the steps through two of its
+/// points (7.1 MHz at step 312 420, 14.175 MHz at 66 401).
+pub fn demo_station_loop() -> Option<SimLoop> {
+    SimLoop::through(
+        SmallLoop {
+            loop_diameter_m: 1.0,
+            conductor_diameter_m: 0.022,
+            conductor: antenna::Conductor::Copper,
+        },
+        (7_100_000.0, 312_420.0),
+        (14_175_000.0, 66_401.0),
+    )
+}
+
 impl SimLoop {
     /// The loop whose (error-free) resonance passes through `(hz, steps)`
     /// at `a` and `b`; `None` if the two do not give a capacitance rising

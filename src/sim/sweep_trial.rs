@@ -29,15 +29,6 @@ use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
 use crate::sim::meters::{peak_trial, Band, Prediction, SimLoop, TrialSetup};
 use crate::station::{Station, StationError};
 
-/// The loop as a calibration: where it really resonates at each frequency.
-pub struct LoopMap(pub SimLoop);
-
-impl StepMap for LoopMap {
-    fn steps_at(&self, hz: f64) -> f64 {
-        self.0.steps_for(hz)
-    }
-}
-
 /// The frequencies a loop's two anchors are moved at.
 const ANCHORS: [f64; 2] = [7_100_000.0, 14_175_000.0];
 
@@ -233,13 +224,12 @@ fn follow_through(
             new_error = new_error.max((truth.resonance_hz(at) - f).abs());
         }
     }
-    let map = LoopMap(truth);
     let report = bench_follow_against(
         &made,
         &format!("sweep-made calibration of unseen loop {seed}"),
         options,
         &Truth {
-            map: &map,
+            map: &truth,
             physics: truth.small_loop,
         },
     )?;
