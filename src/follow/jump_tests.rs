@@ -304,3 +304,94 @@ fn a_pause_of_more_than_four_intervals_mid_sweep_costs_a_move() {
     f.handle_timeout(ms(last + 220));
     assert_eq!(gotos(&drain(&mut f)), vec![9_400]);
 }
+
+/// Another program's command going to the rig.
+fn command(f: &mut Follower, t: u64, ev: StationEvent) {
+    f.handle_station(ms(t), ev);
+}
+
+/// A set of VFO B seen going to the rig (the VFO not in use: nothing to
+/// follow yet).
+fn set_b(f: &mut Follower, t: u64, hz: u64) {
+    command(
+        f,
+        t,
+        StationEvent::Frequency {
+            which: Which::Vfo(Vfo::B),
+            hz,
+            source: Source::CommandSeen,
+        },
+    );
+}
+
+fn split_cmd(f: &mut Follower, t: u64, on: bool) {
+    command(
+        f,
+        t,
+        StationEvent::Split {
+            on,
+            source: Source::CommandSeen,
+        },
+    );
+}
+
+#[test]
+fn split_to_a_vfo_set_just_before_settles_after_the_grace_not_the_debounce() {
+    let mut f = tuned();
+    // A logging program sets VFO B 1.5 kHz up (under the 10 kHz a jump
+    // needs, past the 1 kHz dead band) and turns split on 20 ms later:
+    // where the rig will transmit is known, and no knob turned.
+    set_b(&mut f, 10_000, 7_051_500);
+    assert!(gotos(&drain(&mut f)).is_empty());
+    split_cmd(&mut f, 10_020, true);
+    f.handle_timeout(ms(10_020 + SET_GRACE.as_millis() as u64 - 1));
+    assert!(gotos(&drain(&mut f)).is_empty(), "settled inside the grace");
+    // After SET_GRACE, well before the band's 300 ms debounce.
+    f.handle_timeout(ms(10_020 + SET_GRACE.as_millis() as u64));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_485]);
+    assert_eq!(f.stats().jumps, 0);
+}
+
+#[test]
+fn a_vfo_select_to_a_known_vfo_settles_after_the_grace() {
+    let mut f = tuned();
+    set_b(&mut f, 10_000, 7_052_000);
+    drain(&mut f);
+    // The program selects VFO B: the rig will work on 7.052 MHz.
+    command(
+        &mut f,
+        20_000,
+        StationEvent::ReceiveVfo {
+            vfo: Vfo::B,
+            source: Source::CommandSeen,
+        },
+    );
+    f.handle_timeout(ms(20_099));
+    assert!(gotos(&drain(&mut f)).is_empty());
+    f.handle_timeout(ms(20_100));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_480]);
+}
+
+#[test]
+fn split_off_then_a_band_change_on_the_rig_is_one_move_at_once() {
+    let mut f = tuned();
+    set_b(&mut f, 10_000, 7_051_500);
+    split_cmd(&mut f, 10_020, true);
+    f.handle_timeout(ms(10_120));
+    assert_eq!(gotos(&drain(&mut f)), vec![9_485]);
+    f.handle_arrived(ms(10_200), 9_485);
+    f.handle_timeout(ms(10_400));
+    drain(&mut f);
+    // 20 s later the program turns split off (the loop would go back to
+    // VFO A, 7.050) and 50 ms after it the rig reports a memory recall to
+    // 7.150: a jump (the split command is no knob step that would make the
+    // report part of a sweep), acted on at once, and the split off, still
+    // in its grace, costs no move of its own.
+    split_cmd(&mut f, 30_000, false);
+    f.handle_timeout(ms(30_049));
+    assert!(gotos(&drain(&mut f)).is_empty(), "moved for the split off");
+    f.handle_frequency(ms(30_050), 7_150_000);
+    f.handle_timeout(ms(30_050));
+    assert_eq!(gotos(&drain(&mut f)), vec![8_500]);
+    assert_eq!(f.stats().jumps, 1);
+}

@@ -59,6 +59,43 @@ pub use station::{
 /// holds that keying off (`Follower::set_grace`).
 pub const SET_GRACE: Duration = Duration::from_millis(100);
 
+/// A command another program sent to the rig, as far as following goes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum SeenCommand {
+    /// A VFO's frequency set.
+    Set,
+    /// A VFO select, a transmit VFO, split on or off, the A/B toggle: which
+    /// VFO counts changes, not a frequency.
+    Vfo,
+}
+
+/// Whether `ev` is a command seen going to the rig about its frequencies
+/// or VFOs, and which kind.
+fn command_seen(ev: &StationEvent) -> Option<SeenCommand> {
+    match ev {
+        StationEvent::Frequency {
+            source: Source::CommandSeen,
+            ..
+        } => Some(SeenCommand::Set),
+        StationEvent::ReceiveVfo {
+            source: Source::CommandSeen,
+            ..
+        }
+        | StationEvent::TransmitVfo {
+            source: Source::CommandSeen,
+            ..
+        }
+        | StationEvent::Split {
+            source: Source::CommandSeen,
+            ..
+        }
+        | StationEvent::ToggleVfo {
+            source: Source::CommandSeen,
+        } => Some(SeenCommand::Vfo),
+        _ => None,
+    }
+}
+
 /// Why the core decided not to move (or not to move as asked).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum HoldReason {
@@ -493,9 +530,11 @@ impl Follower {
     /// loop follows the frequency `policy.tune_for` names (the transmit
     /// frequency by default), so a change of the other one moves nothing.
     /// A set seen going to the rig that changes that frequency settles
-    /// `Follower::set_grace` later (unless a report's debounce would be
-    /// shorter);
-    /// a report, after the debounce unless it is a jump.
+    /// `Follower::set_grace` later, and a split or VFO select seen going to
+    /// the rig that changes it to a VFO whose frequency is known settles
+    /// [`SET_GRACE`] later (the rest of a program's burst may follow);
+    /// either never later than a report's debounce. A report settles after
+    /// the debounce unless it is a jump.
     ///
     /// A transmit command seen going to the rig while the wired inhibit
     /// line is set (confirmed, and its lead passed) is held off by the
@@ -546,15 +585,18 @@ impl Follower {
         );
         if !about_transmit {
             if let Some(hz) = self.station.tune_hz(self.policy.tune_for) {
-                let set = matches!(
-                    ev,
-                    StationEvent::Frequency {
-                        source: Source::CommandSeen,
-                        ..
-                    }
-                ) && before != Some(hz);
+                // A command seen going to the rig that changes the tuned-for
+                // frequency says where the rig is going: a set, or a split
+                // or VFO select to a VFO whose frequency is known. No knob
+                // step: it settles after a grace, not the debounce.
+                let command = command_seen(&ev);
+                let set = command.is_some() && before != Some(hz);
                 let jump = set || self.policy.is_jump(now, hz, self.last_report);
-                self.note_report(now, hz);
+                if command.is_some() {
+                    self.note_command(hz);
+                } else {
+                    self.note_report(now, hz);
+                }
                 if jump
                     && !set
                     && self.pending.is_none_or(|p| p.hz != hz)
@@ -563,7 +605,16 @@ impl Follower {
                     self.stats.jumps += 1;
                 }
                 let due = if set {
-                    Some(now + self.set_grace().min(self.policy.debounce_for(hz)))
+                    let grace = match command {
+                        Some(SeenCommand::Set) => self.set_grace(),
+                        // A step of a program's burst (the other VFO set
+                        // and split on; split off and a set; a select and
+                        // the rig's report): the rest of the burst may
+                        // follow, so it waits the whole grace even where the
+                        // line holds the keying off.
+                        _ => SET_GRACE,
+                    };
+                    Some(now + grace.min(self.policy.debounce_for(hz)))
                 } else {
                     jump.then_some(now)
                 };
@@ -608,6 +659,19 @@ impl Follower {
             let gap = self.last_report.map(|(_, at)| now.saturating_sub(at));
             self.sweep_gap = gap.filter(|g| *g < self.policy.debounce_for(hz));
             self.last_report = Some((hz, now));
+        }
+    }
+
+    /// A command seen going to the rig changed the tuned-for frequency to
+    /// `hz`: what the next report is told from as a jump (its distance),
+    /// but no knob step: the quiet spell a jump needs runs on from the
+    /// last report (a program's split off, then a band change on the rig
+    /// 50 ms later, is a jump), and no sweep rate is taken from it.
+    fn note_command(&mut self, hz: u64) {
+        if self.last_report.is_none_or(|(last, _)| last != hz) {
+            let at = self.last_report.map_or(Duration::ZERO, |(_, at)| at);
+            self.sweep_gap = None;
+            self.last_report = Some((hz, at));
         }
     }
 
