@@ -822,6 +822,11 @@ pub fn split_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
             // The other VFO.
             25..=34 => {
                 s.swap_vfo_by_program();
+                // The other VFO may be on another band: what follows is
+                // done on the band the rig is now on.
+                if let Some(b) = bands.iter().find(|b| (b.0..=b.1).contains(&s.hz())) {
+                    band = *b;
+                }
                 s.wait(ms(rng.u64(300..=5_000)));
                 if rng.bool() {
                     call(s, &mut rng);
