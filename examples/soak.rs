@@ -224,6 +224,9 @@ async fn soak(args: Args) -> i32 {
     tuneward::port::pty::place_symlink(&link, Path::new(&far.name().expect("pty name")))
         .expect("symlink");
     let ctl = FaultyController::with_home_switch(0, 1000.0, Fault::None, Some(0));
+    // A controller of protocol version 3: it answers BOOT, with a new
+    // number at each of its restarts.
+    ctl.set_boot(Some(args.seed as i64));
     let config = config(dir.path(), &link, &ctl.addr);
     let journal = Journal::new(dir.path().join("motor.state"));
     journal.record_position(0).expect("journal");

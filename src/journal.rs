@@ -38,7 +38,11 @@
 //! direction=down
 //! ```
 //!
-//! A `format=1` file has no `via`, `leg` or `direction`.
+//! A `format=1` file has no `via`, `leg` or `direction`. A `format=3` file
+//! is a `format=2` one with `boot=N`: the controller's power-on number
+//! (its answer to `BOOT`, protocols/tuner-line.md version 3) when the
+//! record was written; the next start compares it with the controller's
+//! answer then, to tell a controller that restarted from one that did not.
 //!
 //! `state=lost` (no other keys): the count cannot be trusted whatever the
 //! controller says: an end-stop switch stopped the motor, or a homing run
@@ -201,6 +205,9 @@ fn journal_place(path: &Path, line: Option<usize>) -> Place {
 #[derive(Debug, Clone)]
 pub struct Journal {
     path: PathBuf,
+    /// The controller's power-on number (`BOOT`), written with every
+    /// record once known (`format=3`).
+    boot: Option<i64>,
 }
 
 /// File name used when the config names none.
@@ -208,7 +215,16 @@ pub const DEFAULT_STATE_FILE: &str = "tuneward-position.state";
 
 impl Journal {
     pub fn new(path: impl Into<PathBuf>) -> Journal {
-        Journal { path: path.into() }
+        Journal {
+            path: path.into(),
+            boot: None,
+        }
+    }
+
+    /// From now on every record says it was written while the controller
+    /// was in its power-on `boot` (`None`: not known; `format=2`).
+    pub fn set_boot(&mut self, boot: Option<i64>) {
+        self.boot = boot;
     }
 
     pub fn path(&self) -> &Path {
@@ -217,8 +233,14 @@ impl Journal {
 
     /// What the journal says; `None` if there is no journal yet.
     pub fn load(&self) -> Result<Option<Recorded>, JournalError> {
+        Ok(self.load_entry()?.map(|(r, _)| r))
+    }
+
+    /// What the journal says and the controller's power-on number it was
+    /// written in, if it says one; `None` if there is no journal yet.
+    pub fn load_entry(&self) -> Result<Option<(Recorded, Option<i64>)>, JournalError> {
         match fs::read(&self.path) {
-            Ok(bytes) => parse(&bytes, &self.path).map(Some),
+            Ok(bytes) => parse_entry(&bytes, &self.path).map(Some),
             Err(e) if e.kind() == io::ErrorKind::NotFound => Ok(None),
             Err(source) => Err(JournalError::Io {
                 path: self.path.clone(),
@@ -262,9 +284,14 @@ impl Journal {
                 source,
             }
         };
-        let text = format!(
-            "# tuneward position journal (change it with `tuneward set-position`)\nformat=2\n{body}"
-        );
+        let text = match self.boot {
+            Some(b) => format!(
+                "# tuneward position journal (change it with `tuneward set-position`)\nformat=3\nboot={b}\n{body}"
+            ),
+            None => format!(
+                "# tuneward position journal (change it with `tuneward set-position`)\nformat=2\n{body}"
+            ),
+        };
         let tmp = self.temp_path();
         let mut f = OpenOptions::new()
             .write(true)
@@ -291,6 +318,12 @@ impl Journal {
 
 /// Reads a journal's text; `path` only names the file in errors.
 pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
+    parse_entry(bytes, path).map(|(r, _)| r)
+}
+
+/// [`parse`], with the controller's power-on number a `format=3` file
+/// says it was written in.
+pub fn parse_entry(bytes: &[u8], path: &Path) -> Result<(Recorded, Option<i64>), JournalError> {
     let corrupt = |line: Option<usize>, expected: &str, found: String| JournalError::Corrupt {
         path: path.to_path_buf(),
         line,
@@ -312,6 +345,7 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
     let mut via = None;
     let mut leg = None;
     let mut direction = None;
+    let mut boot = None;
     for (i, raw) in text.lines().enumerate() {
         let n = i + 1;
         let line = raw.trim();
@@ -322,23 +356,23 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
             return Err(corrupt(Some(n), "`key=value`", format!("`{}`", clip(line))));
         };
         let (key, value) = (key.trim(), value.trim());
-        let slot = match key {
-            "format" => &mut format,
-            "state" => &mut state,
-            "position" => &mut position,
-            "from" => &mut from,
-            "to" => &mut to,
-            "via" => &mut via,
-            "leg" => &mut leg,
-            "direction" => &mut direction,
-            _ => {
-                return Err(corrupt(
+        let slot =
+            match key {
+                "format" => &mut format,
+                "state" => &mut state,
+                "position" => &mut position,
+                "from" => &mut from,
+                "to" => &mut to,
+                "via" => &mut via,
+                "leg" => &mut leg,
+                "direction" => &mut direction,
+                "boot" => &mut boot,
+                _ => return Err(corrupt(
                     Some(n),
-                    "one of the keys format, state, position, from, to, via, leg, direction",
+                    "one of the keys format, boot, state, position, from, to, via, leg, direction",
                     format!("`{}`", clip(key)),
-                ))
-            }
-        };
+                )),
+            };
         if slot.is_some() {
             return Err(corrupt(
                 Some(n),
@@ -351,22 +385,59 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
     let version = match &format {
         Some((_, v)) if v == "1" => 1,
         Some((_, v)) if v == "2" => 2,
+        Some((_, v)) if v == "3" => 3,
         Some((n, v)) => {
             return Err(corrupt(
                 Some(*n),
-                "`format=1` or `format=2`",
+                "`format=1`, `format=2` or `format=3`",
                 format!("`format={}`", clip(v)),
             ))
         }
         None => {
             return Err(corrupt(
                 None,
-                "a `format=1` or `format=2` line",
+                "a `format=1`, `format=2` or `format=3` line",
                 "none (empty or truncated file?)".to_string(),
             ))
         }
     };
-    let number = |slot: &Option<(usize, String)>, key: &str| -> Result<i64, JournalError> {
+    // The controller's power-on number: `format=3` only.
+    let boot =
+        match &boot {
+            Some((n, v)) if version < 3 => {
+                return Err(corrupt(
+                    Some(*n),
+                    "no `boot` before `format=3`",
+                    format!("`boot={}`", clip(v)),
+                ))
+            }
+            Some((n, v)) => Some(v.parse::<i64>().map_err(|_| {
+                corrupt(Some(*n), "`boot=` a whole number", format!("`{}`", clip(v)))
+            })?),
+            None => None,
+        };
+    let recorded = recorded_of(
+        version, &state, &position, &from, &to, &via, &leg, &direction, &corrupt,
+    )?;
+    Ok((recorded, boot))
+}
+
+type Slot = Option<(usize, String)>;
+
+/// The record a journal's keys describe (see [`parse`]).
+#[allow(clippy::too_many_arguments)]
+fn recorded_of(
+    version: u8,
+    state: &Slot,
+    position: &Slot,
+    from: &Slot,
+    to: &Slot,
+    via: &Slot,
+    leg: &Slot,
+    direction: &Slot,
+    corrupt: &dyn Fn(Option<usize>, &str, String) -> JournalError,
+) -> Result<Recorded, JournalError> {
+    let number = |slot: &Slot, key: &str| -> Result<i64, JournalError> {
         match slot {
             Some((n, v)) => v.parse::<i64>().map_err(|_| {
                 corrupt(
@@ -382,7 +453,7 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
             )),
         }
     };
-    let unexpected = |slot: &Option<(usize, String)>, key: &str, state: &str| match slot {
+    let unexpected = |slot: &Slot, key: &str, state: &str| match slot {
         Some((n, _)) => Err(corrupt(
             Some(*n),
             &format!("no `{key}` with `state={state}`"),
@@ -391,7 +462,7 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
         None => Ok(()),
     };
     if version == 1 {
-        for (slot, key) in [(&via, "via"), (&leg, "leg"), (&direction, "direction")] {
+        for (slot, key) in [(via, "via"), (leg, "leg"), (direction, "direction")] {
             if let Some((n, _)) = slot {
                 return Err(corrupt(
                     Some(*n),
@@ -404,24 +475,24 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
     match state.as_ref().map(|(n, v)| (*n, v.as_str())) {
         Some((_, "at")) => {
             for (slot, key) in [
-                (&from, "from"),
-                (&to, "to"),
-                (&via, "via"),
-                (&leg, "leg"),
-                (&direction, "direction"),
+                (from, "from"),
+                (to, "to"),
+                (via, "via"),
+                (leg, "leg"),
+                (direction, "direction"),
             ] {
                 unexpected(slot, key, "at")?;
             }
-            Ok(Recorded::Known(number(&position, "position")?))
+            Ok(Recorded::Known(number(position, "position")?))
         }
-        Some((n, "lost")) if version == 2 => {
+        Some((n, "lost")) if version >= 2 => {
             for (slot, key) in [
-                (&position, "position"),
-                (&from, "from"),
-                (&to, "to"),
-                (&via, "via"),
-                (&leg, "leg"),
-                (&direction, "direction"),
+                (position, "position"),
+                (from, "from"),
+                (to, "to"),
+                (via, "via"),
+                (leg, "leg"),
+                (direction, "direction"),
             ] {
                 unexpected(slot, key, "lost")?;
             }
@@ -429,16 +500,16 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
             Ok(Recorded::Lost)
         }
         Some((_, "moving")) => {
-            unexpected(&position, "position", "moving")?;
-            let (from_n, to_n) = (number(&from, "from")?, number(&to, "to")?);
-            let recorded = match (&via, &leg) {
+            unexpected(position, "position", "moving")?;
+            let (from_n, to_n) = (number(from, "from")?, number(to, "to")?);
+            let recorded = match (via, leg) {
                 (None, None) => Recorded::Unknown {
                     from: from_n,
                     to: to_n,
                 },
                 (Some(_), Some((n, l))) => Recorded::Approach {
                     from: from_n,
-                    via: number(&via, "via")?,
+                    via: number(via, "via")?,
                     to: to_n,
                     final_leg: match l.as_str() {
                         "first" => false,
@@ -459,14 +530,14 @@ pub fn parse(bytes: &[u8], path: &Path) -> Result<Recorded, JournalError> {
                     return Err(corrupt(Some(*n), "a `via=` line with `leg`", "none".into()))
                 }
             };
-            if version == 2 {
+            if version >= 2 {
                 // The direction is written for a reader; it must agree with
                 // the leg it describes, or the file is not what we wrote.
                 let want = match recorded.leg_path() {
                     Some(p) if p.end < p.start => "down",
                     _ => "up",
                 };
-                match &direction {
+                match direction {
                     Some((_, d)) if d == want => {}
                     Some((n, d)) => {
                         return Err(corrupt(
@@ -527,6 +598,42 @@ mod tests {
         assert!(text.contains("state=at\nposition=4200\n"), "{text}");
     }
 
+    /// With the controller's power-on number known every record carries it
+    /// (`format=3`), and the files without it read as before.
+    #[test]
+    fn the_controllers_power_on_number_is_written_with_each_record() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut j = Journal::new(dir.path().join("p.state"));
+        j.record_position(10).unwrap();
+        assert_eq!(j.load_entry().unwrap(), Some((Recorded::Known(10), None)));
+        assert!(fs::read_to_string(j.path()).unwrap().contains(
+            "format=2
+"
+        ));
+        j.set_boot(Some(-4_000_000_000));
+        j.record_intent(10, 900).unwrap();
+        let text = fs::read_to_string(j.path()).unwrap();
+        assert!(
+            text.contains(
+                "format=3
+boot=-4000000000
+"
+            ),
+            "{text}"
+        );
+        assert_eq!(
+            j.load_entry().unwrap(),
+            Some((
+                Recorded::Unknown { from: 10, to: 900 },
+                Some(-4_000_000_000)
+            ))
+        );
+        assert_eq!(
+            j.load().unwrap(),
+            Some(Recorded::Unknown { from: 10, to: 900 })
+        );
+    }
+
     #[test]
     fn crash_between_intent_and_arrival_leaves_the_position_unknown() {
         let dir = tempfile::tempdir().unwrap();
@@ -575,7 +682,9 @@ mod tests {
             (b"", "`format=1`", "none"),
             (b"format=1\nstate=at\nposition=12a\n", ":3", "`12a`"),
             (b"format=1\nstate=parked\n", ":2", "state=parked"),
-            (b"format=3\nstate=at\nposition=1\n", ":1", "format=3"),
+            (b"format=4\nstate=at\nposition=1\n", ":1", "format=4"),
+            (b"format=2\nboot=5\nstate=at\nposition=1\n", ":2", "boot=5"),
+            (b"format=3\nboot=x5\nstate=at\nposition=1\n", ":2", "x5"),
             (b"format=1\nstate=at\n", "position", "none"),
             (b"format=1\nstate=moving\nfrom=1\n", "`to=`", "none"),
             (

@@ -300,9 +300,12 @@ pub async fn run_with_operator(
         Some(op) => (Some(op.port.asks), Some(op.port.state), op.reload),
         None => (None, None, None),
     };
-    let recorded = match &service.journal {
-        Some(j) => j.load()?,
-        None => None,
+    let (recorded, journal_boot) = match &service.journal {
+        Some(j) => match j.load_entry()? {
+            Some((r, boot)) => (Some(r), boot),
+            None => (None, None),
+        },
+        None => (None, None),
     };
     // The link tasks outlive the shutdown request: the move under way must
     // finish (or be stopped) over the controller link, and the rig must
@@ -357,7 +360,8 @@ pub async fn run_with_operator(
         tokio::spawn(watch_sense(input, sense_tx, tasks_shutdown.clone()))
     });
     let mut sense_open = sense_task.is_some();
-    let mut session = Session::new(follower, service.decoder, recorded, settings);
+    let mut session =
+        Session::new(follower, service.decoder, recorded, settings).with_journal_boot(journal_boot);
     let swr_read = match service.swr_watch {
         Some(w) => {
             tracing::info!(
@@ -630,6 +634,11 @@ impl Io {
                 Output::Transmit { on } => {
                     self.transmit.send_replace(on);
                 }
+                Output::ControllerBoot { id } => {
+                    if let Some(j) = &mut self.journal {
+                        j.set_boot(id);
+                    }
+                }
                 Output::RigWrite { bytes, vfo, hz } => {
                     tracing::debug!(
                         ?vfo,
@@ -861,6 +870,21 @@ fn log(note: Note, at: &Where) {
             steps,
             "an end-stop switch stopped the motor: the count is not trusted (journal: lost)"
         ),
+        Note::Boot {
+            controller: Some(c),
+            journal: Some(j),
+        } if c == j => info!(boot = c, "controller: the same power-on as when the journal was written"),
+        Note::Boot {
+            controller: Some(c),
+            journal: Some(j),
+        } => info!(boot = c, journal_boot = j, "controller: restarted since the journal was written"),
+        Note::Boot {
+            controller: Some(c),
+            journal: None,
+        } => info!(boot = c, "controller: power-on number noted (the journal had none)"),
+        Note::Boot {
+            controller: None, ..
+        } => info!("controller: no power-on number (protocol version 2 or older); a restart of it cannot be told"),
         Note::Trusted { steps, why } => info!(steps, why, "position trusted after the unfinished move"),
         Note::InhibitKept => error!(
             "the motor was not confirmed at rest: the transmit inhibit stays asserted (wire it fail-safe, see README)"

@@ -43,12 +43,24 @@ async fn next(ev: &mut mpsc::Receiver<TunerEvent>) -> TunerEvent {
         .expect("link task alive")
 }
 
+/// The link comes up and the controller answers `BOOT` (asked before
+/// `WHERE` at every connection): its power-on number, or `None` from a
+/// controller of version 2.
+async fn link_up(events: &mut tokio::sync::mpsc::Receiver<TunerEvent>) -> Option<i64> {
+    assert_eq!(next(events).await, TunerEvent::LinkUp);
+    match next(events).await {
+        TunerEvent::Boot { id } => id,
+        other => panic!("expected the answer to BOOT, got {other:?}"),
+    }
+}
+
 /// Up, asks WHERE, moves, refuses a target beyond the limits without
 /// sending it.
 async fn exercise(url: ControllerUrl, start: i64) {
     let (_stop_tx, stop) = watch::channel(false);
     let mut h = spawn(config(url), None, stop);
-    assert_eq!(next(&mut h.events).await, TunerEvent::LinkUp);
+    // The simulator speaks version 3: a power-on number.
+    assert!(link_up(&mut h.events).await.is_some());
     assert_eq!(next(&mut h.events).await, TunerEvent::At { steps: start });
     h.commands.send(TunerCommand::Goto(3000)).await.unwrap();
     assert_eq!(
@@ -131,8 +143,10 @@ async fn a_move_that_never_ends_is_a_fault_and_the_link_recovers() {
                 let mut lines = BufReader::new(r).lines();
                 while let Ok(Some(l)) = lines.next_line().await {
                     seen_tx.send((conn, l.clone())).unwrap();
+                    // A version 2 controller: BOOT is no word of its own.
                     let reply = match l.split_once(' ') {
                         Some(("GOTO", n)) => format!("MOVING {n}\n"),
+                        _ if l == "BOOT" => "ERR unknown keyword\n".to_string(),
                         _ => "AT 100\n".to_string(),
                     };
                     if w.write_all(reply.as_bytes()).await.is_err() {
@@ -148,8 +162,9 @@ async fn a_move_that_never_ends_is_a_fault_and_the_link_recovers() {
         None,
         stop,
     );
-    assert_eq!(next(&mut h.events).await, TunerEvent::LinkUp);
+    assert_eq!(link_up(&mut h.events).await, None, "a version 2 controller");
     assert_eq!(next(&mut h.events).await, TunerEvent::At { steps: 100 });
+    assert_eq!(seen.recv().await.unwrap(), (1, "BOOT".to_string()));
     assert_eq!(seen.recv().await.unwrap(), (1, "WHERE".to_string()));
     h.commands.send(TunerCommand::Goto(600)).await.unwrap();
     assert_eq!(
@@ -174,9 +189,10 @@ async fn a_move_that_never_ends_is_a_fault_and_the_link_recovers() {
         next(&mut h.events).await,
         TunerEvent::LinkDown { .. }
     ));
-    assert_eq!(next(&mut h.events).await, TunerEvent::LinkUp);
+    link_up(&mut h.events).await;
     assert_eq!(next(&mut h.events).await, TunerEvent::At { steps: 100 });
     assert_eq!(seen.recv().await.unwrap(), (1, "GOTO 600".to_string()));
+    assert_eq!(seen.recv().await.unwrap(), (2, "BOOT".to_string()));
     assert_eq!(seen.recv().await.unwrap(), (2, "WHERE".to_string()));
 }
 
@@ -213,7 +229,7 @@ async fn reconnects_when_the_controller_appears_and_reports_down_once() {
         SimController::new(params(), 9).unwrap(),
         shutdown,
     ));
-    assert_eq!(next(&mut h.events).await, TunerEvent::LinkUp);
+    link_up(&mut h.events).await;
     assert_eq!(next(&mut h.events).await, TunerEvent::At { steps: 9 });
 }
 
@@ -236,7 +252,7 @@ async fn transmit_refuses_moves_and_stops_one_under_way() {
     let mut cfg = config(ControllerUrl::Tcp { addr });
     cfg.steps_per_second = 1000.0;
     let mut h = spawn(cfg, Some(transmit), stop);
-    assert_eq!(next(&mut h.events).await, TunerEvent::LinkUp);
+    link_up(&mut h.events).await;
     assert_eq!(next(&mut h.events).await, TunerEvent::At { steps: 0 });
     h.commands.send(TunerCommand::Goto(5000)).await.unwrap();
     match next(&mut h.events).await {

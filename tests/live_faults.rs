@@ -547,6 +547,78 @@ async fn kill_9_at_100_points_with_and_without_a_home_switch() {
 /// unknown: no `GOTO`, no `ZERO`, the journal untouched, the inhibit kept
 /// asserted, and the log says what to do. A rig report arrives meanwhile,
 /// so a move would be wanted if the position were trusted.
+/// The same unfinished move, the controller at rest part way along the
+/// leg's path, now with a controller of protocol version 3 that answers
+/// `BOOT`: in the power-on the journal was written in, its count went on
+/// from the move's start, so the position is trusted (the log says why),
+/// written to the journal with the number, and the loop is then tuned; in
+/// another power-on (it restarted, with a count of its own on the path)
+/// the position stays unknown and nothing moves.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_controller_at_rest_on_the_path_is_trusted_only_in_the_journals_power_on() {
+    for (journal_boot, controller_boot) in [(41, 41), (41, 42)] {
+        let dir = tempfile::tempdir().unwrap();
+        let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
+        let ctl = FaultyController::start(986, 1000.0, Fault::None);
+        ctl.set_boot(Some(controller_boot));
+        let config = common::station_config(dir.path(), &rig_link, &ctl.addr, 1000, "");
+        let mut journal = Journal::new(dir.path().join("motor.state"));
+        journal.set_boot(Some(journal_boot));
+        journal.record_intent(0, 1500).unwrap();
+        assert_eq!(
+            journal.load_entry().unwrap(),
+            Some((Recorded::Unknown { from: 0, to: 1500 }, Some(journal_boot)))
+        );
+        let log = dir.path().join("run.log");
+        let mut service = run(&config, &log);
+        let same = journal_boot == controller_boot;
+        eventually("the position judged", || {
+            let t = log_text(&log);
+            t.contains("position trusted") || t.contains("position unknown")
+        });
+        let dialect = Dialect::builtin("text-semicolon").unwrap();
+        rig.write_all(&dialect.encode_frequency(7_200_000, 0))
+            .await
+            .unwrap();
+        rig.flush().await.unwrap();
+        tokio::time::sleep(Duration::from_millis(600)).await;
+        let text = log_text(&log);
+        let said = ctl.received();
+        if same {
+            assert!(text.contains("same power-on"), "{text}");
+            assert!(
+                said.iter().any(|l| l.starts_with("GOTO")),
+                "{said:?}
+{text}"
+            );
+            assert!(!said.iter().any(|l| l.starts_with("ZERO")), "{said:?}");
+        } else {
+            assert!(!text.contains("position trusted"), "{text}");
+            assert!(
+                !said
+                    .iter()
+                    .any(|l| l.starts_with("GOTO") || l.starts_with("ZERO")),
+                "{said:?}
+{text}"
+            );
+            assert_eq!(
+                journal.load_entry().unwrap(),
+                Some((Recorded::Unknown { from: 0, to: 1500 }, Some(journal_boot)))
+            );
+            assert_inhibit_left_asserted(&text, "another power-on");
+        }
+        service.signal(libc::SIGTERM);
+        service.wait_exit(Duration::from_secs(20));
+        if same {
+            // What the journal says at the end came from the controller,
+            // with its power-on number for the next start.
+            let (r, boot) = journal.load_entry().unwrap().unwrap();
+            assert_eq!(boot, Some(controller_boot));
+            assert_eq!(r, Recorded::Known(ctl.position()), "{text}");
+        }
+    }
+}
+
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_controller_at_rest_where_it_proves_nothing_leaves_the_position_unknown() {
     for (from, to, found) in [(0, 1500, 986), (1500, 0, 0)] {

@@ -122,6 +122,9 @@ pub enum Output {
         /// From a noise-peak search: the fitted resonance curve.
         fit: Option<crate::calibrate::resonance::ResonanceFit>,
     },
+    /// The controller said which power-on it is in (`BOOT`; `None`: it
+    /// cannot say): every journal record from now on carries it.
+    ControllerBoot { id: Option<i64> },
     /// Write to the rig's port (in `poll` mode between polls; in `proxy`
     /// mode between the other program's messages): a calibration sweep's
     /// frequency set, `hz` on `vfo`, already encoded in the rig's dialect.
@@ -245,6 +248,11 @@ pub enum Note {
     PeakEnded {
         words: String,
         found: bool,
+    },
+    /// The controller's answer to `BOOT`, against the journal's.
+    Boot {
+        controller: Option<i64>,
+        journal: Option<i64>,
     },
     /// The rig is asked to set `vfo` to `hz` (a calibration sweep).
     RigSet {
@@ -504,6 +512,12 @@ struct Shell {
     settings: SessionSettings,
     /// How to set the rig's frequency, where it can be (a sweep).
     frequency_set: Option<FrequencySet>,
+    /// The controller's power-on number the journal on disk was written
+    /// in (from the file at start, then from each write).
+    journal_boot: Option<i64>,
+    /// The controller's answer to `BOOT` on this connection (`None`: not
+    /// answered yet, or it has none).
+    controller_boot: Option<i64>,
     /// The core's policy (for a move's legs).
     policy: Policy,
     inhibit_lead: Duration,
@@ -580,6 +594,13 @@ impl Shell {
     /// ([`SessionSettings::restart_counts`]): a controller that
     /// reports the leg's start never moved or lost its count, and one that
     /// reports a power-on count may have restarted, so neither is proof.
+    /// Whether the controller is in the same power-on as when the journal
+    /// was written: `None` when either side cannot say (a version 2
+    /// controller, a journal without `boot=`).
+    fn same_boot(&self) -> Option<bool> {
+        Some(self.journal_boot? == self.controller_boot?)
+    }
+
     fn on_leg_path(&self, r: Recorded, steps: i64) -> bool {
         r.leg_path()
             .is_some_and(|p| p.contains(steps) && steps != p.start)
@@ -650,6 +671,8 @@ impl Session {
         let mut st = Shell {
             settings,
             frequency_set: None,
+            journal_boot: None,
+            controller_boot: None,
             policy: core.policy().clone(),
             inhibit_lead,
             // Opened asserted before the session began.
@@ -712,6 +735,13 @@ impl Session {
     /// noise-peak search.
     pub fn with_signal_meter(mut self, scale: crate::rig::meter::MeterScale) -> Session {
         self.signal = Some(scale);
+        self
+    }
+
+    /// The journal at start was written while the controller was in its
+    /// power-on `boot` (a `format=3` journal's `boot=`).
+    pub fn with_journal_boot(mut self, boot: Option<i64>) -> Session {
+        self.st.journal_boot = boot;
         self
     }
 
@@ -1239,6 +1269,19 @@ impl Session {
         let Some(a) = self.st.awaiting.take() else {
             return;
         };
+        if result.is_ok()
+            && matches!(
+                a,
+                Awaiting::MoveIntent(_)
+                    | Awaiting::LegIntent { .. }
+                    | Awaiting::Position { .. }
+                    | Awaiting::LostIntent { .. }
+                    | Awaiting::RelaxIntent { .. }
+            )
+        {
+            // Every record is written with the controller's power-on now.
+            self.st.journal_boot = self.st.controller_boot;
+        }
         match (a, result) {
             (Awaiting::MoveIntent(intent), Ok(())) => {
                 self.st.recorded = Some(intent);
@@ -1449,7 +1492,16 @@ impl Session {
 
     fn tuner_event(&mut self, now: Duration, ev: TunerEvent) {
         match ev {
+            TunerEvent::Boot { id } => {
+                self.st.controller_boot = id;
+                self.st.note(Note::Boot {
+                    controller: id,
+                    journal: self.st.journal_boot,
+                });
+                self.st.push(Output::ControllerBoot { id });
+            }
             TunerEvent::LinkUp => {
+                self.st.controller_boot = None;
                 self.st.resync_moving_to = None;
                 self.st.resync = Resync::AwaitWhere {
                     after_link_up: true,
@@ -1570,7 +1622,9 @@ impl Session {
         self.st.resync = Resync::Idle;
         match self.st.recorded {
             Some(Recorded::Known(p))
-                if p != steps && self.st.settings.restart_counts.contains(&steps) =>
+                if p != steps
+                    && self.st.settings.restart_counts.contains(&steps)
+                    && self.st.same_boot() != Some(true) =>
             {
                 self.st.note(Note::CountDiffers {
                     journal: p,
@@ -1615,8 +1669,13 @@ impl Session {
         // happens to be a leg target too (a move to the lower limit, and a
         // board that restarted mid-move counting from 0): trusted only when
         // the controller was seen moving to it since the link came up.
+        // The same power-on of the controller as when the journal was
+        // written (`BOOT` says so): its count went on from the move's start,
+        // so where it rests is where the motor is.
+        let same_boot = self.st.same_boot() == Some(true);
         let power_on = self.st.settings.restart_counts.contains(&steps)
-            && self.st.resync_moving_to != Some(steps);
+            && self.st.resync_moving_to != Some(steps)
+            && !same_boot;
         if r.leg_targets().contains(&steps) && !power_on {
             self.st.note(Note::Trusted {
                 steps,
@@ -1629,6 +1688,12 @@ impl Session {
             self.st.note(Note::Trusted {
                 steps,
                 why: "stopped on the straight path of the leg under way, seen moving along it",
+            });
+            self.accept(now, steps);
+        } else if same_boot && self.st.on_leg_path(r, steps) {
+            self.st.note(Note::Trusted {
+                steps,
+                why: "at rest on the straight path of the leg under way, in the same power-on of the controller (BOOT) as the journal",
             });
             self.accept(now, steps);
         } else {
@@ -1747,7 +1812,11 @@ impl Session {
     }
 
     fn record_position(&mut self, steps: i64) {
-        if self.st.recorded != Some(Recorded::Known(steps)) {
+        // Written again when only the controller's power-on changed, so
+        // that the next start compares with this one.
+        if self.st.recorded != Some(Recorded::Known(steps))
+            || self.st.journal_boot != self.st.controller_boot
+        {
             self.st.ask(
                 Output::JournalPosition { steps },
                 Awaiting::Position { steps },

@@ -198,7 +198,10 @@ impl Bench {
                     self.s.handle_journal_result(self.now, r);
                 }
                 Output::Transmit { on } => self.transmit.push(on),
-                Output::Candidate { .. } | Output::Log(_) | Output::RigWrite { .. } => {}
+                Output::Candidate { .. }
+                | Output::Log(_)
+                | Output::RigWrite { .. }
+                | Output::ControllerBoot { .. } => {}
             }
         }
     }
@@ -990,6 +993,90 @@ fn at_start_a_point_on_the_legs_path_found_already_at_rest_is_unknown() {
     b.tuner(TunerEvent::At { steps: 986 });
     assert_eq!(b.s.core().position(), None);
     assert_eq!(b.journal, Some(first));
+}
+
+/// A bench whose journal was written in the controller's power-on
+/// `journal_boot` and whose controller, at link-up, answers `BOOT` with
+/// `controller_boot` and is at rest at `controller`.
+fn boot_bench(
+    journal: Recorded,
+    journal_boot: Option<i64>,
+    controller_boot: Option<i64>,
+    controller: i64,
+) -> Bench {
+    let mut b = Bench::new(Some(journal), 60, false);
+    b.s.st.journal_boot = journal_boot;
+    b.tuner(TunerEvent::LinkUp);
+    b.tuner(TunerEvent::Boot {
+        id: controller_boot,
+    });
+    b.tuner(TunerEvent::At { steps: controller });
+    b.wait(ms(100));
+    b
+}
+
+/// Issue 11's rule for a controller at rest on an unfinished leg's path
+/// (stopped there by a STOP it did not confirm): trusted when the
+/// controller says (`BOOT`, protocol version 3) it is in the same power-on
+/// as when the journal was written, so its count went on from the move's
+/// start; a restarted controller's count on the path (the soak's
+/// violation) and a controller that cannot say stay unknown.
+#[test]
+fn at_start_a_point_on_the_legs_path_is_trusted_in_the_same_power_on_only() {
+    let first = Recorded::Approach {
+        from: 200,
+        via: 1880,
+        to: 1940,
+        final_leg: false,
+    };
+    let b = boot_bench(first, Some(7), Some(7), 986);
+    assert_eq!(b.s.core().position(), Some(986));
+    assert_eq!(b.journal, Some(Recorded::Known(986)));
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    for (journal, controller) in [(Some(7), Some(8)), (Some(7), None), (None, Some(7))] {
+        let b = boot_bench(first, journal, controller, 986);
+        assert_eq!(b.s.core().position(), None, "{journal:?} {controller:?}");
+        assert_eq!(b.journal, Some(first));
+        assert!(b.commands.is_empty(), "{:?}", b.commands);
+    }
+    // Off every leg's path: unknown whatever the controller says.
+    let b = boot_bench(first, Some(7), Some(7), 1990);
+    assert_eq!(b.s.core().position(), None);
+    // A leg target that is also a power-on count is the motor's place in
+    // the same power-on.
+    let to_zero = Recorded::Approach {
+        from: 2000,
+        via: 0,
+        to: 60,
+        final_leg: false,
+    };
+    assert_eq!(
+        boot_bench(to_zero, Some(3), Some(3), 0).s.core().position(),
+        Some(0)
+    );
+    assert_eq!(
+        boot_bench(to_zero, Some(3), Some(4), 0).s.core().position(),
+        None
+    );
+}
+
+/// `ZERO` only with proof of a restart: a clean journal, the controller in
+/// the same power-on (`BOOT`) yet at a count it would have after one: it
+/// did not restart, so the count is evidence (steps lost, the motor moved
+/// by someone else), and nothing is zeroed. Restarted (another `BOOT`), it
+/// is given the journal's count as before.
+#[test]
+fn a_power_on_count_in_the_same_power_on_is_not_zeroed() {
+    let b = boot_bench(Recorded::Known(500), Some(7), Some(7), 0);
+    assert!(b.commands.is_empty(), "{:?}", b.commands);
+    assert_eq!(b.s.core().position(), None);
+    let b = boot_bench(Recorded::Known(500), Some(7), Some(9), 0);
+    assert_eq!(b.commands, vec![TunerCommand::Zero(500)]);
+    // Same power-on, same count: the journal is rewritten only to carry
+    // the number on to the next start when it differs.
+    let b = boot_bench(Recorded::Known(500), None, Some(9), 500);
+    assert_eq!(b.s.core().position(), Some(500));
+    assert_eq!(b.s.st.journal_boot, Some(9), "written with the new number");
 }
 
 /// A move to the lower limit (0) was under way when everything stopped. A

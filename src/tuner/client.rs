@@ -413,6 +413,8 @@ struct Waiting {
     position: Option<i64>,
     /// The speed of the `HOME` under way, if one was sent.
     home_speed: Option<f64>,
+    /// `BOOT` was sent and its answer is the next line.
+    boot_asked: bool,
 }
 
 impl Link {
@@ -570,9 +572,16 @@ impl Link {
         let (mut rd, mut wr) = tokio::io::split(stream);
         let mut framer = LineFramer::new();
         let mut inbuf = BytesMut::with_capacity(256);
-        let mut w = Waiting::default();
-        if let Err(e) = self.send(&mut wr, &mut w, Request::Where).await {
-            return End::Fault(e);
+        // Which power-on of the controller this is (version 3; an older
+        // one answers ERR), then where it is.
+        let mut w = Waiting {
+            boot_asked: true,
+            ..Waiting::default()
+        };
+        for req in [Request::Boot, Request::Where] {
+            if let Err(e) = self.send(&mut wr, &mut w, req).await {
+                return End::Fault(e);
+            }
         }
         loop {
             let deadline = match (w.reply_due, w.arrival.map(|a| a.1)) {
@@ -726,7 +735,26 @@ impl Link {
             w.unanswered -= 1;
             w.reply_due = (w.unanswered > 0).then(|| Instant::now() + self.config.reply_margin);
         }
+        if std::mem::take(&mut w.boot_asked) {
+            match reply {
+                Reply::Boot(id) => {
+                    self.emit(TunerEvent::Boot { id: Some(id) }).await;
+                    return;
+                }
+                Reply::Err(text) => {
+                    tracing::info!(%text, "the controller has no BOOT (protocol version 2 or older): a restart of it cannot be told apart");
+                    self.emit(TunerEvent::Boot { id: None }).await;
+                    return;
+                }
+                // Not the answer to BOOT (a controller out of step): no
+                // number, and the line is taken as it is.
+                _ => self.emit(TunerEvent::Boot { id: None }).await,
+            }
+        }
         let ev = match reply {
+            Reply::Boot(id) => TunerEvent::Error {
+                text: format!("controller sent BOOT {id} unasked"),
+            },
             Reply::Moving(target) => {
                 let distance = match (w.position, w.arrival) {
                     (Some(p), None) => p.abs_diff(target),

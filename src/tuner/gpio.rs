@@ -638,6 +638,7 @@ impl DirectController {
             settle_until: None,
             has_home,
             homing: false,
+            boot: fastrand::i64(1..=999_999_999_999_999_999),
         };
         tokio::spawn(task.serve(conn_rx));
         DirectController { conns: conn_tx }
@@ -675,6 +676,9 @@ struct DirectTask {
     has_home: bool,
     /// A homing run is under way (`HOMED` or `LIMIT` ends it).
     homing: bool,
+    /// This process's number for `BOOT`: the direct drive counts in the
+    /// process, so every start of it is a new power-on.
+    boot: i64,
 }
 
 impl DirectTask {
@@ -796,6 +800,7 @@ impl DirectTask {
         let busy = self.moving.is_some();
         let limits = format!("{}..{}", self.min, self.max);
         match req {
+            Request::Boot => Some(Reply::Boot(self.boot)),
             Request::Goto(t) if !(self.min..=self.max).contains(&t) => {
                 Some(Reply::Err(format!("target {t} outside limits {limits}")))
             }

@@ -1,5 +1,5 @@
-//! The controller line protocol, version 2 (see `protocols/tuner-line.md`;
-//! version 2 adds `HOME` and the `HOMING`, `HOMED` and `LIMIT` answers):
+//! The controller line protocol, version 3 (see `protocols/tuner-line.md`;
+//! version 2 added `HOME` and the `HOMING`, `HOMED` and `LIMIT` answers, version 3 `BOOT`):
 //! sans-IO encoding and decoding of lines, and framing over a [`BytesMut`].
 //!
 //! Framing is check-then-parse: [`LineFramer::next_line`] looks for a `\n`
@@ -38,6 +38,8 @@ pub enum Request {
         position: i64,
         speed: u32,
     },
+    /// `BOOT`: which power-on of the controller this is (version 3).
+    Boot,
 }
 
 /// A line from the controller to the host.
@@ -58,6 +60,9 @@ pub enum Reply {
     /// stopped at once at the count `steps` (which may be wrong: the motor
     /// went where no target should have taken it).
     Limit { side: HomeSide, steps: i64 },
+    /// `BOOT <id>`: the answer to `BOOT`: a number the controller chose at
+    /// power-on and keeps until the next (version 3).
+    Boot(i64),
 }
 
 /// Why bytes were not a line of the protocol.
@@ -104,6 +109,7 @@ impl fmt::Display for Request {
                 position,
                 speed,
             } => write!(f, "HOME {side} {position} {speed}"),
+            Request::Boot => f.write_str("BOOT"),
         }
     }
 }
@@ -117,6 +123,7 @@ impl fmt::Display for Reply {
             Reply::Homing => f.write_str("HOMING"),
             Reply::Homed(s) => write!(f, "HOMED {s}"),
             Reply::Limit { side, steps } => write!(f, "LIMIT {side} {steps}"),
+            Reply::Boot(id) => write!(f, "BOOT {id}"),
         }
     }
 }
@@ -147,7 +154,7 @@ impl Request {
         let mut words = line.split_ascii_whitespace();
         let Some(keyword) = words.next() else {
             return Err(LineError::UnknownKeyword {
-                expected: "GOTO, WHERE, STOP, ZERO, HOME",
+                expected: "GOTO, WHERE, STOP, ZERO, HOME, BOOT",
                 found: String::new(),
             });
         };
@@ -156,6 +163,7 @@ impl Request {
             "ZERO" => Request::Zero(number("ZERO", words.next())?),
             "WHERE" => Request::Where,
             "STOP" => Request::Stop,
+            "BOOT" => Request::Boot,
             "HOME" => {
                 let side = side("HOME", words.next())?;
                 let position = number("HOME", words.next())?;
@@ -175,7 +183,7 @@ impl Request {
             }
             other => {
                 return Err(LineError::UnknownKeyword {
-                    expected: "GOTO, WHERE, STOP, ZERO, HOME",
+                    expected: "GOTO, WHERE, STOP, ZERO, HOME, BOOT",
                     found: clip(other),
                 })
             }
@@ -186,6 +194,7 @@ impl Request {
                 Request::Zero(_) => ("ZERO", "one number"),
                 Request::Where => ("WHERE", "no arguments"),
                 Request::Stop => ("STOP", "no arguments"),
+                Request::Boot => ("BOOT", "no arguments"),
                 Request::Home { .. } => ("HOME", "a side, a position and a speed"),
             };
             return Err(LineError::Extra {
@@ -232,10 +241,11 @@ impl Reply {
                 }
                 Ok(Reply::Limit { side, steps })
             }
-            "MOVING" | "AT" | "HOMED" => {
+            "MOVING" | "AT" | "HOMED" | "BOOT" => {
                 let kw: &'static str = match keyword {
                     "AT" => "AT",
                     "HOMED" => "HOMED",
+                    "BOOT" => "BOOT",
                     _ => "MOVING",
                 };
                 let mut words = rest.split_ascii_whitespace();
@@ -250,11 +260,12 @@ impl Reply {
                 Ok(match kw {
                     "AT" => Reply::At(n),
                     "HOMED" => Reply::Homed(n),
+                    "BOOT" => Reply::Boot(n),
                     _ => Reply::Moving(n),
                 })
             }
             other => Err(LineError::UnknownKeyword {
-                expected: "MOVING, AT, ERR, HOMING, HOMED, LIMIT",
+                expected: "MOVING, AT, ERR, HOMING, HOMED, LIMIT, BOOT",
                 found: clip(other),
             }),
         }
@@ -397,6 +408,7 @@ mod tests {
                 position: -40,
                 speed: 1,
             },
+            Request::Boot,
         ] {
             let mut buf = BytesMut::new();
             r.encode(&mut buf);
@@ -419,12 +431,38 @@ mod tests {
                 side: HomeSide::High,
                 steps: 3001,
             },
+            Reply::Boot(918_273_645),
         ] {
             let mut buf = BytesMut::new();
             r.encode(&mut buf);
             let got = lines(&buf);
             assert_eq!(Reply::parse(got[0].as_ref().unwrap()), Ok(r));
         }
+    }
+
+    /// Version 3's `BOOT`: no argument asked, one number answered.
+    #[test]
+    fn boot_is_asked_bare_and_answered_with_one_number() {
+        assert_eq!(Request::parse("BOOT"), Ok(Request::Boot));
+        assert!(matches!(
+            Request::parse("BOOT 5"),
+            Err(LineError::Extra {
+                keyword: "BOOT",
+                ..
+            })
+        ));
+        assert_eq!(Reply::parse("BOOT 77"), Ok(Reply::Boot(77)));
+        assert!(matches!(
+            Reply::parse("BOOT"),
+            Err(LineError::MissingNumber { keyword: "BOOT" })
+        ));
+        assert!(matches!(
+            Reply::parse("BOOT 7 8"),
+            Err(LineError::Extra {
+                keyword: "BOOT",
+                ..
+            })
+        ));
     }
 
     #[test]

@@ -69,6 +69,10 @@ pub enum TunerEvent {
     /// An end-stop switch closed and the motor was stopped (`LIMIT`): the
     /// count cannot be trusted.
     Limit { side: HomeSide, steps: i64 },
+    /// The controller's answer to `BOOT`, asked at every connection before
+    /// `WHERE`: its power-on's number, or `None` from a controller that
+    /// has none (version 2 or older answers `ERR`).
+    Boot { id: Option<i64> },
 }
 
 /// Time to travel `distance` steps at `steps_per_second`, at most `cap`.

@@ -39,6 +39,9 @@ pub struct SimController {
     switches: Switches,
     /// How far `ZERO` and `HOMED` have moved the count from the start's.
     renumbered: i64,
+    /// This power-on's number, the answer to `BOOT` (a new one each time
+    /// the simulator starts, as a controller picks one at each power-on).
+    boot: i64,
 }
 
 /// How the move under way ends.
@@ -118,7 +121,15 @@ impl SimController {
             moving: None,
             switches: Switches::default(),
             renumbered: 0,
+            boot: fastrand::i64(1..=999_999_999_999_999_999),
         })
+    }
+
+    /// The same controller answering `BOOT` with `id` (a test's controller
+    /// that restarts, or one that does not).
+    pub fn with_boot(mut self, id: i64) -> Self {
+        self.boot = id;
+        self
     }
 
     /// The same controller with simulated switches.
@@ -178,6 +189,7 @@ impl SimController {
                 self.moving = Some((ending, arrive));
                 Reply::Moving(target)
             }
+            Request::Boot => Reply::Boot(self.boot),
             Request::Where => match self.moving {
                 Some((Ending::Arrive(target), _)) => Reply::Moving(target),
                 Some((Ending::Homed { .. }, _)) => Reply::Homing,

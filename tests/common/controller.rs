@@ -79,6 +79,9 @@ struct Motor {
     outbox: VecDeque<(u64, Instant, Vec<u8>)>,
     /// The connection now being served.
     generation: u64,
+    /// Its answer to `BOOT` (protocol version 3): `None` answers `ERR`,
+    /// as an older controller does.
+    boot: Option<i64>,
 }
 
 impl Motor {
@@ -193,6 +196,10 @@ impl Motor {
                 (_, Some(_)) => "ERR moving".to_string(),
                 (None, _) => "ERR bad position".to_string(),
             },
+            Some("BOOT") => match self.boot {
+                Some(id) => format!("BOOT {id}"),
+                None => "ERR unknown".to_string(),
+            },
             Some("HOME") => {
                 let side = words.next();
                 let n = number(words.next());
@@ -261,6 +268,7 @@ impl FaultyController {
             noise: fastrand::Rng::with_seed(seed),
             outbox: VecDeque::new(),
             generation: 0,
+            boot: None,
         }));
         let stop = Arc::new(AtomicBool::new(false));
         let generation = Arc::new(AtomicU64::new(0));
@@ -309,6 +317,13 @@ impl FaultyController {
     }
 
     /// The count the motor is at (what it reports).
+    /// Answer `BOOT` with `id` from now on (`None`: with `ERR`, as a
+    /// version 2 controller does).
+    #[allow(dead_code)]
+    pub fn set_boot(&self, id: Option<i64>) {
+        self.motor.lock().unwrap().boot = id;
+    }
+
     pub fn position(&self) -> i64 {
         let mut m = self.motor.lock().unwrap();
         m.update();
@@ -382,6 +397,8 @@ impl FaultyController {
             };
         }
         let physical = m.physical();
+        // A power cycle: a controller that says its power-on says a new one.
+        m.boot = m.boot.map(|b| b.wrapping_add(1));
         m.position = count;
         m.offset = physical - count;
         m.silent = false;
