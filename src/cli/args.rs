@@ -323,6 +323,7 @@ pub enum CtlCommand {
         /// Answer the confirmation with yes (for scripts).
         #[arg(long)]
         yes: bool,
+        /// End the sweep under way (the search returns, the rig is set back).
         #[arg(long, conflicts_with_all = ["band", "set_rig", "yes"])]
         stop: bool,
     },
