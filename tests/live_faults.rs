@@ -547,6 +547,23 @@ async fn kill_9_at_100_points_with_and_without_a_home_switch() {
 /// unknown: no `GOTO`, no `ZERO`, the journal untouched, the inhibit kept
 /// asserted, and the log says what to do. A rig report arrives meanwhile,
 /// so a move would be wanted if the position were trusted.
+/// The rig reports 7.2 MHz; after longer than the debounce, the inhibit
+/// lead and a move's start: every line the controller received, and the
+/// service's log.
+async fn report_then_wait(
+    rig: &mut tokio_serial::SerialStream,
+    ctl: &FaultyController,
+    log: &std::path::Path,
+) -> (Vec<String>, String) {
+    let dialect = Dialect::builtin("text-semicolon").unwrap();
+    rig.write_all(&dialect.encode_frequency(7_200_000, 0))
+        .await
+        .unwrap();
+    rig.flush().await.unwrap();
+    tokio::time::sleep(Duration::from_millis(600)).await;
+    (ctl.received(), log_text(log))
+}
+
 /// The same unfinished move, the controller at rest part way along the
 /// leg's path, now with a controller of protocol version 3 that answers
 /// `BOOT`: in the power-on the journal was written in, its count went on
@@ -576,14 +593,7 @@ async fn a_controller_at_rest_on_the_path_is_trusted_only_in_the_journals_power_
             let t = log_text(&log);
             t.contains("position trusted") || t.contains("position unknown")
         });
-        let dialect = Dialect::builtin("text-semicolon").unwrap();
-        rig.write_all(&dialect.encode_frequency(7_200_000, 0))
-            .await
-            .unwrap();
-        rig.flush().await.unwrap();
-        tokio::time::sleep(Duration::from_millis(600)).await;
-        let text = log_text(&log);
-        let said = ctl.received();
+        let (said, text) = report_then_wait(&mut rig, &ctl, &log).await;
         if same {
             assert!(text.contains("same power-on"), "{text}");
             assert!(
@@ -635,15 +645,7 @@ async fn a_controller_at_rest_where_it_proves_nothing_leaves_the_position_unknow
         eventually("the position flagged unknown", || {
             log_text(&log).contains("position unknown")
         });
-        let dialect = Dialect::builtin("text-semicolon").unwrap();
-        rig.write_all(&dialect.encode_frequency(7_200_000, 0))
-            .await
-            .unwrap();
-        rig.flush().await.unwrap();
-        // Longer than the debounce, the inhibit lead and a move's start.
-        tokio::time::sleep(Duration::from_millis(600)).await;
-        let said = ctl.received();
-        let text = log_text(&log);
+        let (said, text) = report_then_wait(&mut rig, &ctl, &log).await;
         assert!(
             !said
                 .iter()
