@@ -393,7 +393,9 @@ struct KillTally {
 /// position is the truth. With a home switch (at physical 0, the station's
 /// `home.position` 0) the journal must end exact after the next start,
 /// without an operator; without one, exact or unknown, never wrong.
-async fn kill_9_points(points: u32, seed: u64, home_switch: bool) -> KillTally {
+/// `boot`: the controller speaks protocol version 3 (answers `BOOT`, a new
+/// number after each restart).
+async fn kill_9_points(points: u32, seed: u64, home_switch: bool, boot: bool) -> KillTally {
     let mut rng = fastrand::Rng::with_seed(seed);
     let dialect = Dialect::builtin("text-semicolon").unwrap();
     let mut tally = KillTally::default();
@@ -403,6 +405,9 @@ async fn kill_9_points(points: u32, seed: u64, home_switch: bool) -> KillTally {
         let (mut rig, _far, rig_link) = rig_behind_symlink(dir.path());
         let ctl =
             FaultyController::with_home_switch(2000, 1000.0, Fault::None, home_switch.then_some(0));
+        if boot {
+            ctl.set_boot(Some(i64::from(point) + 1));
+        }
         let config = approach_config(dir.path(), &rig_link, &ctl.addr);
         if home_switch {
             let text = std::fs::read_to_string(&config).unwrap().replace(
@@ -508,21 +513,26 @@ async fn kill_9_points(points: u32, seed: u64, home_switch: bool) -> KillTally {
 /// (each kind twice) with a home switch, all exact after the next start.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn kill_9_with_a_home_switch_is_exact_after_the_next_start() {
-    let tally = kill_9_points(6, 111, true).await;
+    let tally = kill_9_points(6, 111, true, false).await;
     assert_eq!(tally.exact, 6, "{tally:?}");
 }
 
 /// The long run: 100 seeded points with a home switch (every one exact)
-/// and 100 without (exact or unknown, never wrong). Run with
+/// and 100 without (exact or unknown, never wrong), then the same 100 with
+/// a controller that answers `BOOT` (at least as many exact). Run with
 /// `cargo test --test live_faults -- --ignored --nocapture`;
 /// figures in DEVELOPERS.md.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 #[ignore = "long: about ten minutes; run by hand (see DEVELOPERS.md)"]
 async fn kill_9_at_100_points_with_and_without_a_home_switch() {
-    let with = kill_9_points(100, 2026, true).await;
+    let with = kill_9_points(100, 2026, true, false).await;
     assert_eq!(with.exact, 100, "{with:?}");
-    let without = kill_9_points(100, 2027, false).await;
+    let without = kill_9_points(100, 2027, false, false).await;
     assert_eq!(without.exact + without.unknown, 100);
+    // The same points with a controller of protocol version 3.
+    let v3 = kill_9_points(100, 2027, false, true).await;
+    assert_eq!(v3.exact + v3.unknown, 100);
+    assert!(v3.exact >= without.exact, "{v3:?} {without:?}");
     let mut r = with.recovery_s.clone();
     r.sort_by(f64::total_cmp);
     eprintln!(
@@ -534,6 +544,10 @@ async fn kill_9_at_100_points_with_and_without_a_home_switch() {
     eprintln!(
         "without: {} exact, {} unknown, 0 wrong",
         without.exact, without.unknown
+    );
+    eprintln!(
+        "without, the controller answering BOOT: {} exact, {} unknown, 0 wrong",
+        v3.exact, v3.unknown
     );
 }
 
