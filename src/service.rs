@@ -317,25 +317,23 @@ pub async fn run_with_operator(
     let (split_tx, split_rx) = watch::channel(false);
     // The poll carries the SWR-meter read while the session asks for it.
     let (meters_tx, meters_rx) = watch::channel(Vec::new());
-    let mut rig = service.rig;
-    if let RigSource::Link(cfg) = &mut rig {
-        cfg.split = Some(split_rx);
-    }
     // A sweep's frequency sets go to the rig with the next poll.
     let (writes_tx, writes_rx) = watch::channel(Vec::new());
-    if service.frequency_set.is_some() {
-        match &mut rig {
-            RigSource::Link(cfg) => cfg.writes = Some(writes_rx),
-            RigSource::Proxy { config, .. } => config.writes = Some(writes_rx),
-            _ => {}
+    let meters =
+        (service.swr_watch.is_some() || service.signal_meter.is_some()).then_some(meters_rx);
+    let writes = service.frequency_set.is_some().then_some(writes_rx);
+    let mut rig = service.rig;
+    match &mut rig {
+        RigSource::Link(cfg) => {
+            cfg.split = Some(split_rx);
+            cfg.meters = meters;
+            cfg.writes = writes;
         }
-    }
-    if service.swr_watch.is_some() || service.signal_meter.is_some() {
-        match &mut rig {
-            RigSource::Link(cfg) => cfg.meters = Some(meters_rx),
-            RigSource::Proxy { config, .. } => config.meters = Some(meters_rx),
-            _ => {}
+        RigSource::Proxy { config, .. } => {
+            config.meters = meters;
+            config.writes = writes;
         }
+        _ => {}
     }
     let (rig_task, mut rig_rx) = rig.spawn(tasks_shutdown.clone())?;
     let (transmit_tx, transmit_rx) = watch::channel(false);

@@ -589,11 +589,6 @@ impl Shell {
         self.push(Output::Log(n));
     }
 
-    /// `steps` lies on the straight path of `r`'s leg under way, past its
-    /// start, and is no count a controller starts from after a restart
-    /// ([`SessionSettings::restart_counts`]): a controller that
-    /// reports the leg's start never moved or lost its count, and one that
-    /// reports a power-on count may have restarted, so neither is proof.
     /// Whether the controller is in the same power-on as when the journal
     /// was written: `None` when either side cannot say (a version 2
     /// controller, a journal without `boot=`).
@@ -601,6 +596,11 @@ impl Shell {
         Some(self.journal_boot? == self.controller_boot?)
     }
 
+    /// `steps` lies on the straight path of `r`'s leg under way, past its
+    /// start, and is no count a controller starts from after a restart
+    /// ([`SessionSettings::restart_counts`]): a controller that
+    /// reports the leg's start never moved or lost its count, and one that
+    /// reports a power-on count may have restarted, so neither is proof.
     fn on_leg_path(&self, r: Recorded, steps: i64) -> bool {
         r.leg_path()
             .is_some_and(|p| p.contains(steps) && steps != p.start)

@@ -56,6 +56,11 @@ pub fn sweep_points(low_hz: u64, high_hz: u64, n: usize) -> Vec<u64> {
     points
 }
 
+/// Why a sweep ended when the rig went to `hz`, a frequency it did not set.
+fn moved_to(hz: u64) -> String {
+    format!("the rig's frequency changed to {hz} Hz")
+}
+
 /// How a sweep ended.
 #[derive(Debug, Clone, PartialEq)]
 pub enum SweepEnd {
@@ -387,7 +392,7 @@ impl Follower {
         match outcome {
             PeakOutcome::Aborted(AbortReason::FrequencyChanged { hz: now_hz }) => {
                 // Someone else chose a frequency: leave it.
-                run.stopped = Some(format!("the rig's frequency changed to {now_hz} Hz"));
+                run.stopped = Some(moved_to(*now_hz));
                 self.sweep_end(now, Restore::LeftToOperator);
             }
             PeakOutcome::Aborted(r) => {
@@ -429,7 +434,7 @@ impl Follower {
                 Some(r) => {
                     if let Some(run) = self.sweep.as_mut() {
                         run.missed.push((hz, "not searched".to_string()));
-                        run.stopped = Some(format!("the rig's frequency changed to {r} Hz"));
+                        run.stopped = Some(moved_to(r));
                     }
                     self.sweep_end(now, Restore::LeftToOperator);
                 }

@@ -378,11 +378,11 @@ pub struct Prediction {
     pub q_unloaded: f64,
 }
 
-/// One search against the true loop `truth` (`setup.offset_steps` is not
-/// applied: `truth` is the loop as it is), centred on `predicted`, the
-/// motor starting there.
+/// One search against the true loop `sim_loop` (`setup.offset_steps` is
+/// not applied: `sim_loop` is the loop as it is), centred on `predicted`,
+/// the motor starting there.
 pub fn peak_trial(
-    truth: SimLoop,
+    sim_loop: SimLoop,
     predicted: Prediction,
     signal_scale: MeterScale,
     swr_scale: MeterScale,
@@ -391,7 +391,6 @@ pub fn peak_trial(
     use crate::follow::peak::{
         predicted_half_width_steps, PeakPlan, PeakRequest, PeakSearch, STANDARD_WINDOW_HALF_WIDTHS,
     };
-    let sim_loop = truth;
     let hz = setup.hz;
     let q = sim_loop.q_unloaded(hz);
     let slope = predicted.steps_per_hz;

@@ -125,8 +125,8 @@ pub fn sweep_trial(
             let q = physics.at(f).q_unloaded;
             let slope = (old.steps_at(f + 1.0) - old.steps_at(f - 1.0)) / 2.0;
             let predicted = old.steps_at(f);
-            old_error =
-                old_error.max((truth.steps_for(f) - predicted).abs() / half_width(old, f, q));
+            let half = crate::follow::peak::predicted_half_width_steps(f, q, slope);
+            old_error = old_error.max((truth.steps_for(f) - predicted).abs() / half);
             let setup = TrialSetup {
                 hz: f,
                 offset_steps: 0.0,
