@@ -390,6 +390,12 @@ pub struct FollowConfig {
     /// transmit VFO, XIT included, where the power goes) or `"receive"`.
     #[serde(default)]
     pub tune_for: TuneForConfig,
+    /// When the other VFO (the one a split toggle or an A/B swap would
+    /// bring) is close enough that one position of the loop serves both
+    /// within the dead band, tune for the point between them, so that the
+    /// toggle needs no move. `false`: always tune for the frequency itself.
+    #[serde(default = "default_true")]
+    pub cover_other_vfo: bool,
 }
 
 /// `[follow] tune_for`.
@@ -465,6 +471,7 @@ impl Default for FollowConfig {
             sweep_settle_intervals: default_sweep_settle_intervals(),
             jump_quiet_ms: default_jump_quiet_ms(),
             tune_for: TuneForConfig::Transmit,
+            cover_other_vfo: true,
         }
     }
 }
@@ -1702,6 +1709,12 @@ guard_hz = 10000
     fn jump_settings_default_and_a_quiet_time_too_short_for_a_knob_is_refused() {
         let c = Config::parse(MINIMAL, Path::new("t.toml")).unwrap();
         assert_eq!((c.follow.jump_hz, c.follow.jump_quiet_ms), (3_000, 300));
+        assert!(c.follow.cover_other_vfo);
+        let off = format!("{MINIMAL}\n[follow]\ncover_other_vfo = false\n");
+        let off = Config::parse(&off, Path::new("o.toml")).unwrap();
+        assert!(!off.follow.cover_other_vfo);
+        let policy = crate::station::policy_from_config(&off, |_| None).unwrap();
+        assert!(!policy.cover_alternate);
         let text = format!("{MINIMAL}\n[follow]\njump_quiet_ms = 20\n");
         let c = Config::parse(&text, Path::new("s.toml")).unwrap();
         let msg = c.validate().unwrap_err().to_string();

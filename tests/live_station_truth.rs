@@ -555,6 +555,63 @@ fn binary_polled_split_set_on_the_rig_tunes_for_the_transmit_vfo() {
     polled_split_case(Family::Binary);
 }
 
+/// The operator readies split by hand: the other VFO a little above the
+/// receive VFO, beyond the 100 Hz dead band but within twice it, then
+/// split on. With `[follow] cover_other_vfo` (default on) the loop is
+/// tuned for the point between the two, so split on moves nothing and the
+/// call goes out at once; the rig, by its own account, transmits on the
+/// other VFO with the loop there.
+async fn split_near_case(family: Family) {
+    let dir = tempfile::tempdir().unwrap();
+    let (_rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
+    let (addr, motor) = controller(0, truth.clone());
+    let (_run, shared) = run(dir.path(), family.protocol(), &rig_link, &addr);
+    let mut client = open_port(&shared, 38400);
+    let (other, split_on) = match family {
+        Family::Text => (b"FB00007100150;".to_vec(), b"FT1;".to_vec()),
+        // 0x25 01: the unselected VFO's frequency; 0x0F 01: split on.
+        _ => (
+            frame(&[&[0x25, 0x01][..], &bcd(7_100_150)].concat()),
+            frame(&[0x0F, 0x01]),
+        ),
+    };
+    let script = [other, family.set_receive(7_100_000), family.read_state()].concat();
+    say(&mut client, &script).await;
+    // Halfway, 7.100075 MHz: 1000.75 steps, rounded to 1001, by hand.
+    wait_motor(&motor, "tuned between the two VFOs", |m| {
+        m.at == 1001 && !m.moving
+    });
+    let before = motor.lock().unwrap().gotos.len();
+    say(&mut client, &[split_on, family.read_state()].concat()).await;
+    std::thread::sleep(Duration::from_millis(400));
+    let t = last_truth(&truth).unwrap();
+    assert_eq!(t["tx_hz"], 7_100_150, "{t}");
+    say(&mut client, &family.key(true)).await;
+    std::thread::sleep(Duration::from_millis(400));
+    assert!(rig_transmits(&truth), "the rig should be on the air");
+    say(&mut client, &family.key(false)).await;
+    std::thread::sleep(Duration::from_millis(200));
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    assert_eq!(
+        m.gotos.len(),
+        before,
+        "split on moved the loop: {:?}",
+        m.gotos
+    );
+    assert_eq!(m.at, 1001);
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn text_split_to_a_vfo_close_by_moves_nothing() {
+    split_near_case(Family::Text).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn binary_split_to_a_vfo_close_by_moves_nothing() {
+    split_near_case(Family::Binary).await;
+}
+
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn text_split_tunes_for_the_transmit_vfo_before_the_first_over() {
     split_case(Family::Text).await;

@@ -1844,6 +1844,7 @@ impl Follower {
             self.hold(hz, HoldReason::DeadBand);
             return;
         }
+        let tune_hz = self.aim(tune_hz, band, hysteresis);
         let raw = self.map.steps_at(tune_hz as f64);
         if !raw.is_finite() || raw.abs() > 1e15 {
             self.hold(hz, HoldReason::Calibration);
@@ -1885,6 +1886,30 @@ impl Follower {
             retunes: true,
         });
         self.try_start(now);
+    }
+
+    /// Where to tune the loop for `tune_hz` in `band`: halfway to the
+    /// frequency a split toggle or an A/B swap would bring
+    /// ([`Station::alternate_hz`]) when that lies in the same band and both
+    /// are then within the dead band (`hysteresis`) of the point, so the
+    /// toggle finds the loop already tuned; else `tune_hz` itself. Off
+    /// unless `policy.cover_alternate`.
+    fn aim(&self, tune_hz: u64, band: usize, hysteresis: u64) -> u64 {
+        if !self.policy.cover_alternate {
+            return tune_hz;
+        }
+        let Some(alternate) = self.station.alternate_hz(self.policy.tune_for) else {
+            return tune_hz;
+        };
+        let alternate = match self.policy.place(alternate) {
+            Placement::Inside { band: b } if b == band => alternate,
+            Placement::Guard { band: b, edge_hz } if b == band => edge_hz,
+            _ => return tune_hz,
+        };
+        if alternate.abs_diff(tune_hz) > hysteresis.saturating_mul(2) {
+            return tune_hz;
+        }
+        tune_hz.midpoint(alternate)
     }
 
     /// Starts the wanted move if everything allows it now.

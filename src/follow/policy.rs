@@ -79,6 +79,12 @@ pub struct Policy {
     /// reconnect) until the loop is known to be tuned for the rig's
     /// frequency; the live service and replays of a station turn it on.
     pub inhibit_until_tuned: bool,
+    /// Aim between the tuned-for frequency and the one a split toggle or
+    /// a VFO swap would bring (`Station::alternate_hz`) when both fit in
+    /// the band's dead band around one point (`[follow] cover_other_vfo`):
+    /// the toggle then needs no move, and the tuned-for frequency is still
+    /// within the dead band the loop is allowed to drift by.
+    pub cover_alternate: bool,
 }
 
 /// When a report counts as a jump (a band change, a memory recall, a
@@ -255,6 +261,7 @@ mod tests {
             while_unknown: WhileUnknown::MoveUnderInhibit,
             line_holds_commands: false,
             inhibit_until_tuned: false,
+            cover_alternate: false,
         }
     }
 

@@ -365,6 +365,16 @@ impl Station {
             TuneFor::Receive => self.receive_hz(),
         }
     }
+    /// What the loop would be tuned for after a split toggle or an A/B
+    /// swap: the other VFO than the one `tune_for` names, with the same
+    /// offset (XIT for the transmit frequency, RIT for the receive one).
+    /// `None` while that VFO's frequency is not known.
+    pub fn alternate_hz(&self, tune_for: TuneFor) -> Option<u64> {
+        match tune_for {
+            TuneFor::Transmit => offset(self.vfo_hz(other(self.tx))?, self.xit),
+            TuneFor::Receive => offset(self.vfo_hz(other(self.rx))?, self.rit),
+        }
+    }
     pub fn transmit(&self) -> TransmitKnowledge {
         self.transmit
     }

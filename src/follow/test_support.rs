@@ -58,6 +58,7 @@ pub(super) fn policy() -> Policy {
         while_unknown: WhileUnknown::MoveUnderInhibit,
         line_holds_commands: true,
         inhibit_until_tuned: false,
+        cover_alternate: false,
         inhibit_while_detuned: false,
         jump: None,
         sweep_settle: None,

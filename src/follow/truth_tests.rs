@@ -17,6 +17,7 @@ fn policy() -> Policy {
         debounce: ms(300),
         inhibit_while_detuned: true,
         inhibit_until_tuned: true,
+        cover_alternate: false,
         ..test_support::policy()
     }
 }
@@ -533,4 +534,56 @@ fn polled_split_stays_on_the_transmit_vfo_through_an_over_text() {
 #[test]
 fn polled_split_stays_on_the_transmit_vfo_through_an_over_binary() {
     polled_split_through_an_over(&binary_cycle, "binary-bcd");
+}
+
+/// `cover_alternate`: with VFO B 1.6 kHz above VFO A (beyond the 1 kHz
+/// dead band, inside twice it), the loop is tuned for the point between them, so that
+/// split on (and off again) finds it tuned: no move, no inhibit. Positions
+/// by hand from the line: 7.1008 MHz is 8 992 steps.
+#[test]
+fn with_the_other_vfo_near_the_loop_is_tuned_between_them_and_split_moves_nothing() {
+    let covering = || {
+        let mut f = Follower::new(
+            Policy {
+                cover_alternate: true,
+                ..policy()
+            },
+            Arc::new(Line),
+            None,
+        );
+        f.handle_arrived(ms(0), 9_500);
+        f
+    };
+    let mut f = covering();
+    vfo(&mut f, 0, Vfo::B, 7_101_600);
+    vfo(&mut f, 10, Vfo::A, 7_100_000);
+    let a = run(&mut f, 10, 2_000, 50);
+    assert_eq!(gotos(&a), vec![8_992]);
+    assert_eq!(f.tuned_hz(), Some(7_100_800));
+    split(&mut f, 2_000, true);
+    let a = run(&mut f, 2_000, 4_000, 50);
+    assert!(gotos(&a).is_empty(), "{a:?}");
+    assert!(!f.inhibit(), "the loop serves both VFOs: {a:?}");
+    split(&mut f, 4_000, false);
+    let a = run(&mut f, 4_000, 6_000, 50);
+    assert!(gotos(&a).is_empty() && !f.inhibit(), "{a:?}");
+
+    // Without it, the same evening tunes 7.100 MHz itself (9 000 steps)
+    // and split needs a move to 7.1016 MHz (8 984).
+    let mut f = known_at(9_500);
+    vfo(&mut f, 0, Vfo::B, 7_101_600);
+    vfo(&mut f, 10, Vfo::A, 7_100_000);
+    assert_eq!(gotos(&run(&mut f, 10, 2_000, 50)), vec![9_000]);
+    split(&mut f, 2_000, true);
+    assert_eq!(gotos(&run(&mut f, 2_000, 4_000, 50)), vec![8_984]);
+
+    // VFO B beyond twice the dead band (2.5 kHz up), or in another band:
+    // the frequency itself.
+    for b in [7_102_500, 10_120_000] {
+        let mut f = covering();
+        vfo(&mut f, 0, Vfo::B, b);
+        vfo(&mut f, 10, Vfo::A, 7_100_000);
+        assert_eq!(gotos(&run(&mut f, 10, 2_000, 50)), vec![9_000], "B at {b}");
+        assert_eq!(f.tuned_hz(), Some(7_100_000));
+    }
 }

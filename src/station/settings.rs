@@ -92,6 +92,7 @@ pub fn policy_from_config(
         line_holds_commands: config.inhibit.holds_cat_keying
             && config.inhibit.line != InhibitKind::None,
         inhibit_until_tuned: true,
+        cover_alternate: f.cover_other_vfo,
     })
 }
 

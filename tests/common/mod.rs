@@ -72,6 +72,7 @@ pub fn policy(debounce: Duration) -> Policy {
         while_unknown: WhileUnknown::MoveUnderInhibit,
         line_holds_commands: false,
         inhibit_until_tuned: false,
+        cover_alternate: false,
     }
 }
 
