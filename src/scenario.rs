@@ -774,8 +774,10 @@ fn either_side(hz: u64, delta: u64, up: bool, band: (u64, u64)) -> u64 {
 /// the program (the rig reports the VFO it now operates on; in split this
 /// also swaps which VFO transmits), 25 % staying to work the station, 15 %
 /// small knob retunes of the receive VFO (with a call at once a third of
-/// the time), 10 % band changes (split off first), 10 % knob sweeps
-/// across the band and 5 % noise on the line.
+/// the time), 10 % band changes (the program turns split off first; the
+/// operator presses the band key 0.3 to 1.5 s later, a person's reaction,
+/// not a program's next command), 10 % knob sweeps across the band and 5 %
+/// noise on the line.
 pub fn split_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
     let first = bands.first().copied().unwrap_or((7_000_000, 7_200_000));
     let mut rng = fastrand::Rng::with_seed(seed ^ 0x5b11);
@@ -850,6 +852,7 @@ pub fn split_evening(seed: u64, hours: f64, bands: &[(u64, u64)]) -> Scenario {
             75..=84 => {
                 if s.rig().split() {
                     s.unsplit_by_program();
+                    s.wait(ms(rng.u64(300..=1_500)));
                 }
                 if let Some(b) = bands.get(rng.usize(0..bands.len().max(1))) {
                     band = *b;

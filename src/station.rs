@@ -22,9 +22,9 @@ pub mod probe;
 pub mod settings;
 pub use check::{check, check_with, CheckOptions, Finding, Grade};
 pub use settings::{
-    calibrations_of, check_base_points, control_setup, control_socket_for, fit_base, fit_options,
-    journal_for, lock_path_for, policy_from_config, port_settings, presets_from_config, rig_source,
-    station_token, token_path_for, web_setup,
+    burst_gap, calibrations_of, check_base_points, control_setup, control_socket_for, fit_base,
+    fit_options, journal_for, lock_path_for, policy_from_config, port_settings,
+    presets_from_config, rig_source, station_token, token_path_for, web_setup,
 };
 
 /// Anything that stops a command, worded for the operator.

@@ -352,6 +352,35 @@ fn split_to_a_vfo_set_just_before_settles_after_the_grace_not_the_debounce() {
     assert_eq!(f.stats().jumps, 0);
 }
 
+/// Where the wired line holds CAT keying, a burst's split waits only the
+/// program's gap between two commands at the port's speed
+/// (`policy.burst_gap`, 50 ms here); where it does not, the whole
+/// `SET_GRACE`, so that a keying right after it finds no move under way.
+#[test]
+fn a_programs_split_waits_its_burst_gap_where_the_line_holds_cat_keying() {
+    for (holds, wait) in [(true, 50), (false, SET_GRACE.as_millis() as u64)] {
+        let mut f = Follower::new(
+            Policy {
+                burst_gap: ms(50),
+                line_holds_commands: holds,
+                ..policy()
+            },
+            Arc::new(Line),
+            Some(9_500),
+        );
+        f.handle_frequency(ms(0), 7_050_000);
+        f.handle_timeout(ms(300));
+        drain(&mut f);
+        set_b(&mut f, 10_000, 7_051_500);
+        split_cmd(&mut f, 10_020, true);
+        f.handle_timeout(ms(10_020 + wait - 1));
+        assert!(gotos(&drain(&mut f)).is_empty(), "holds {holds}: too soon");
+        f.handle_timeout(ms(10_020 + wait));
+        // 7.0515 MHz: 9 485 steps, by hand.
+        assert_eq!(gotos(&drain(&mut f)), vec![9_485], "holds {holds}");
+    }
+}
+
 #[test]
 fn a_vfo_select_to_a_known_vfo_settles_after_the_grace() {
     let mut f = tuned();

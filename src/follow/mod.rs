@@ -610,9 +610,9 @@ impl Follower {
                         // A step of a program's burst (the other VFO set
                         // and split on; split off and a set; a select and
                         // the rig's report): the rest of the burst may
-                        // follow, so it waits the whole grace even where the
-                        // line holds the keying off.
-                        _ => SET_GRACE,
+                        // follow, so it waits for that even where the line
+                        // holds the keying off.
+                        _ => self.burst_grace(),
                     };
                     Some(now + grace.min(self.policy.debounce_for(hz)))
                 } else {
@@ -1725,6 +1725,20 @@ impl Follower {
     fn set_grace(&self) -> Duration {
         if self.policy.line_holds_cat_keying() {
             SET_GRACE.min(self.policy.inhibit_lead)
+        } else {
+            SET_GRACE
+        }
+    }
+
+    /// How long a program's split or VFO command that moves the tuned-for
+    /// frequency waits before it settles, for the rest of its burst:
+    /// [`SET_GRACE`], or where the wired line holds CAT keying (so a
+    /// keying right after it is no danger) the program's longest gap
+    /// between two commands of a burst at the port's speed,
+    /// `policy.burst_gap`, if that is shorter.
+    fn burst_grace(&self) -> Duration {
+        if self.policy.line_holds_cat_keying() {
+            SET_GRACE.min(self.policy.burst_gap)
         } else {
             SET_GRACE
         }

@@ -85,6 +85,13 @@ pub struct Policy {
     /// the toggle then needs no move, and the tuned-for frequency is still
     /// within the dead band the loop is allowed to drift by.
     pub cover_alternate: bool,
+    /// The longest a program leaves between two commands of one burst
+    /// (the other VFO set, then split on; split off, then a set), from the
+    /// rig port's speed (`crate::station::burst_gap`). Where the wired line
+    /// holds CAT keying, a burst's step that moves the tuned-for frequency
+    /// waits this long for the rest of the burst (never longer than
+    /// `SET_GRACE`); elsewhere the whole `SET_GRACE`.
+    pub burst_gap: Duration,
 }
 
 /// When a report counts as a jump (a band change, a memory recall, a
@@ -262,6 +269,7 @@ mod tests {
             line_holds_commands: false,
             inhibit_until_tuned: false,
             cover_alternate: false,
+            burst_gap: Duration::from_millis(100),
         }
     }
 

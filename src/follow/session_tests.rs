@@ -53,6 +53,7 @@ fn policy(backlash: i64) -> Policy {
         line_holds_commands: true,
         inhibit_until_tuned: false,
         cover_alternate: false,
+        burst_gap: std::time::Duration::from_millis(100),
         inhibit_while_detuned: false,
         jump: None,
         sweep_settle: None,

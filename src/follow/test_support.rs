@@ -59,6 +59,7 @@ pub(super) fn policy() -> Policy {
         line_holds_commands: true,
         inhibit_until_tuned: false,
         cover_alternate: false,
+        burst_gap: std::time::Duration::from_millis(100),
         inhibit_while_detuned: false,
         jump: None,
         sweep_settle: None,

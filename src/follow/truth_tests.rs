@@ -18,6 +18,7 @@ fn policy() -> Policy {
         inhibit_while_detuned: true,
         inhibit_until_tuned: true,
         cover_alternate: false,
+        burst_gap: std::time::Duration::from_millis(100),
         ..test_support::policy()
     }
 }
@@ -546,6 +547,7 @@ fn with_the_other_vfo_near_the_loop_is_tuned_between_them_and_split_moves_nothin
         let mut f = Follower::new(
             Policy {
                 cover_alternate: true,
+                burst_gap: std::time::Duration::from_millis(100),
                 ..policy()
             },
             Arc::new(Line),

@@ -93,7 +93,36 @@ pub fn policy_from_config(
             && config.inhibit.line != InhibitKind::None,
         inhibit_until_tuned: true,
         cover_alternate: f.cover_other_vfo,
+        burst_gap: burst_gap(config.rig.baud),
     })
+}
+
+/// Bits a byte takes on an asynchronous serial line with one start bit,
+/// eight data bits and one stop bit (8N1, the framing rigs' control ports
+/// use).
+const BITS_PER_BYTE: u64 = 10;
+
+/// A program's command and what comes back before its next, at most, in
+/// bytes: a binary-family frequency, split or VFO frame of up to 12 bytes,
+/// echoed on the family's one-wire bus, and the rig's 6-byte answer (30);
+/// a text-family frequency set of 14 bytes, which has no answer; rounded
+/// up to 40 (frame lengths recalled from the families' published command
+/// references).
+const BURST_STEP_BYTES: u64 = 40;
+
+/// Time a program takes between reading the rig's answer to one command of
+/// a burst and writing the next, and the rig between a command and its
+/// answer (common practice, no source).
+const BURST_ALLOWANCE: Duration = Duration::from_millis(30);
+
+/// The longest a program leaves between two commands of one burst on a rig
+/// port at `baud`: a command and the rig's answer on the wire (a program
+/// may wait for the answer before its next command), plus
+/// [`BURST_ALLOWANCE`]. 19 200 baud: 400 bits in 20.8 ms, so 50.8 ms.
+pub fn burst_gap(baud: u32) -> Duration {
+    let bits = BURST_STEP_BYTES * BITS_PER_BYTE;
+    let wire = Duration::from_micros(bits * 1_000_000 / u64::from(baud.max(1)));
+    wire + BURST_ALLOWANCE
 }
 
 /// What a move may do while the transmit state is unknown: go ahead under a
@@ -1076,6 +1105,17 @@ fn line_level(setting: ModemLineSetting) -> crate::port::link::LineLevel {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_bursts_gap_is_a_command_and_its_answer_on_the_wire_plus_the_allowance() {
+        // 40 bytes of 10 bits: 400 bits; at 19 200 baud 20.833 ms, at
+        // 4 800 baud 83.333 ms; plus 30 ms. Worked by hand.
+        assert_eq!(burst_gap(19_200), Duration::from_micros(20_833 + 30_000));
+        assert_eq!(burst_gap(4_800), Duration::from_micros(83_333 + 30_000));
+        assert_eq!(burst_gap(115_200), Duration::from_micros(3_472 + 30_000));
+        // A zero baud rate (refused by the config check) does not divide by zero.
+        assert!(burst_gap(0) > Duration::from_secs(1));
+    }
 
     #[test]
     fn unset_dead_band_is_auto_for_a_described_loop_else_the_fixed_default() {

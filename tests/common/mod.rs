@@ -73,6 +73,7 @@ pub fn policy(debounce: Duration) -> Policy {
         line_holds_commands: false,
         inhibit_until_tuned: false,
         cover_alternate: false,
+        burst_gap: std::time::Duration::from_millis(100),
     }
 }
 
