@@ -331,6 +331,25 @@ fn bcd_is_worked_as_the_reference_shows() {
     assert_eq!(bcd_be(14_074_000), [0x01, 0x40, 0x74, 0x00]);
 }
 
+/// The program keys the rig for half a second and unkeys it; the rig, by
+/// its truth log, was on the air, and the motor broke no invariant. The
+/// motor's record, locked, for the caller's own checks.
+async fn an_over<'m>(
+    client: &mut SerialStream,
+    family: Family,
+    truth: &Path,
+    motor: &'m Mutex<Motor>,
+) -> std::sync::MutexGuard<'m, Motor> {
+    say(client, &family.key(true)).await;
+    std::thread::sleep(Duration::from_millis(500));
+    assert!(rig_transmits(truth), "the rig should be on the air");
+    say(client, &family.key(false)).await;
+    std::thread::sleep(Duration::from_millis(300));
+    let m = motor.lock().unwrap();
+    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    m
+}
+
 async fn split_case(family: Family) {
     let dir = tempfile::tempdir().unwrap();
     let (_rig, rig_link, truth) = sim_rig(dir.path(), family.protocol());
@@ -355,13 +374,7 @@ async fn split_case(family: Family) {
     let t = last_truth(&truth).unwrap();
     assert_eq!(t["rx_hz"], 7_100_000, "{t}");
     assert_eq!(t["tx_hz"], 7_105_000, "{t}");
-    say(&mut client, &family.key(true)).await;
-    std::thread::sleep(Duration::from_millis(500));
-    assert!(rig_transmits(&truth), "the rig should be on the air");
-    say(&mut client, &family.key(false)).await;
-    std::thread::sleep(Duration::from_millis(300));
-    let m = motor.lock().unwrap();
-    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    let m = an_over(&mut client, family, &truth, &motor).await;
     // The motor ended on the transmit VFO before the over and stayed
     // there. (A set is acted on at once and the proxy hands the program's
     // messages over one by one, so the receive VFO's set, before split was
@@ -586,13 +599,7 @@ async fn split_near_case(family: Family) {
     std::thread::sleep(Duration::from_millis(400));
     let t = last_truth(&truth).unwrap();
     assert_eq!(t["tx_hz"], 7_100_150, "{t}");
-    say(&mut client, &family.key(true)).await;
-    std::thread::sleep(Duration::from_millis(400));
-    assert!(rig_transmits(&truth), "the rig should be on the air");
-    say(&mut client, &family.key(false)).await;
-    std::thread::sleep(Duration::from_millis(200));
-    let m = motor.lock().unwrap();
-    assert!(m.violations.is_empty(), "{:?}", m.violations);
+    let m = an_over(&mut client, family, &truth, &motor).await;
     assert_eq!(
         m.gotos.len(),
         before,

@@ -24,7 +24,12 @@ fn policy() -> Policy {
 /// A core tuned for 7.050 MHz (position 9 500), settled there at 0 ms,
 /// with the settle's actions drained.
 fn tuned() -> Follower {
-    let mut f = Follower::new(policy(), Arc::new(Line), Some(9_500));
+    tuned_with(policy())
+}
+
+/// [`tuned`] under `policy`.
+fn tuned_with(policy: Policy) -> Follower {
+    let mut f = Follower::new(policy, Arc::new(Line), Some(9_500));
     f.handle_frequency(ms(0), 7_050_000);
     f.handle_timeout(ms(300));
     drain(&mut f);
@@ -217,18 +222,10 @@ fn a_jump_during_a_move_retargets_when_the_motor_rests() {
 
 /// [`tuned`] with sweeps settling after four of their report intervals.
 fn tuned_settling_by_rate() -> Follower {
-    let mut f = Follower::new(
-        Policy {
-            sweep_settle: Some(4.0),
-            ..policy()
-        },
-        Arc::new(Line),
-        Some(9_500),
-    );
-    f.handle_frequency(ms(0), 7_050_000);
-    f.handle_timeout(ms(300));
-    drain(&mut f);
-    f
+    tuned_with(Policy {
+        sweep_settle: Some(4.0),
+        ..policy()
+    })
 }
 
 /// A knob turned from `from` Hz by `step` Hz every `every` ms, `n` steps,
@@ -359,18 +356,11 @@ fn split_to_a_vfo_set_just_before_settles_after_the_grace_not_the_debounce() {
 #[test]
 fn a_programs_split_waits_its_burst_gap_where_the_line_holds_cat_keying() {
     for (holds, wait) in [(true, 50), (false, SET_GRACE.as_millis() as u64)] {
-        let mut f = Follower::new(
-            Policy {
-                burst_gap: ms(50),
-                line_holds_commands: holds,
-                ..policy()
-            },
-            Arc::new(Line),
-            Some(9_500),
-        );
-        f.handle_frequency(ms(0), 7_050_000);
-        f.handle_timeout(ms(300));
-        drain(&mut f);
+        let mut f = tuned_with(Policy {
+            burst_gap: ms(50),
+            line_holds_commands: holds,
+            ..policy()
+        });
         set_b(&mut f, 10_000, 7_051_500);
         split_cmd(&mut f, 10_020, true);
         f.handle_timeout(ms(10_020 + wait - 1));
