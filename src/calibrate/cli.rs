@@ -20,7 +20,7 @@ use crate::antenna::{bandwidth_1_5_hz, BandSpan, LoopDescription};
 /// `<stem>.candidates.csv` beside it and shown marked with `*`.
 #[derive(Debug, Clone)]
 pub struct FitCommandOptions {
-    /// The points file (CSV: hz,steps[,profile][,weight]).
+    /// The points file (CSV: `hz,steps[,profile][,weight]`).
     pub points: PathBuf,
     /// Model to fit; `auto` picks by leave-one-out error. `None`: the
     /// station's `[calibration] model` with a config, else `auto`.

@@ -12,7 +12,7 @@
 //!
 //! `auto` fits the candidates and keeps the one with the smallest
 //! leave-one-out (LOO) error, preferring physics when it is nearly as good.
-//! All least squares go through [`lsq`] (centred, scaled, QR).
+//! All least squares go through `lsq` (centred, scaled, QR).
 
 pub mod cli;
 mod lsq;

@@ -118,7 +118,7 @@ const BURST_ALLOWANCE: Duration = Duration::from_millis(30);
 /// The longest a program leaves between two commands of one burst on a rig
 /// port at `baud`: a command and the rig's answer on the wire (a program
 /// may wait for the answer before its next command), plus
-/// [`BURST_ALLOWANCE`]. 19 200 baud: 400 bits in 20.8 ms, so 50.8 ms.
+/// `BURST_ALLOWANCE`. 19 200 baud: 400 bits in 20.8 ms, so 50.8 ms.
 pub fn burst_gap(baud: u32) -> Duration {
     let bits = BURST_STEP_BYTES * BITS_PER_BYTE;
     let wire = Duration::from_micros(bits * 1_000_000 / u64::from(baud.max(1)));
