@@ -98,9 +98,9 @@ pub fn policy_from_config(
 }
 
 /// Bits a byte takes on an asynchronous serial line with one start bit,
-/// eight data bits and one stop bit (8N1, the framing rigs' control ports
-/// use).
-const BITS_PER_BYTE: u64 = 10;
+/// eight data bits and two stop bits (8N2, the longest framing rigs'
+/// control ports use; 8N1 takes 10).
+const BITS_PER_BYTE: u64 = 11;
 
 /// A program's command and what comes back before its next, at most, in
 /// bytes: a binary-family frequency, split or VFO frame of up to 12 bytes,
@@ -118,7 +118,7 @@ const BURST_ALLOWANCE: Duration = Duration::from_millis(30);
 /// The longest a program leaves between two commands of one burst on a rig
 /// port at `baud`: a command and the rig's answer on the wire (a program
 /// may wait for the answer before its next command), plus
-/// `BURST_ALLOWANCE`. 19 200 baud: 400 bits in 20.8 ms, so 50.8 ms.
+/// `BURST_ALLOWANCE`. 19 200 baud: 440 bits in 22.9 ms, so 52.9 ms.
 pub fn burst_gap(baud: u32) -> Duration {
     let bits = BURST_STEP_BYTES * BITS_PER_BYTE;
     let wire = Duration::from_micros(bits * 1_000_000 / u64::from(baud.max(1)));
@@ -1108,11 +1108,12 @@ mod tests {
 
     #[test]
     fn a_bursts_gap_is_a_command_and_its_answer_on_the_wire_plus_the_allowance() {
-        // 40 bytes of 10 bits: 400 bits; at 19 200 baud 20.833 ms, at
-        // 4 800 baud 83.333 ms; plus 30 ms. Worked by hand.
-        assert_eq!(burst_gap(19_200), Duration::from_micros(20_833 + 30_000));
-        assert_eq!(burst_gap(4_800), Duration::from_micros(83_333 + 30_000));
-        assert_eq!(burst_gap(115_200), Duration::from_micros(3_472 + 30_000));
+        // 40 bytes of 11 bits: 440 bits; at 19 200 baud 22.917 ms, at
+        // 4 800 baud 91.667 ms; plus 30 ms. Worked by hand (to the
+        // microsecond below).
+        assert_eq!(burst_gap(19_200), Duration::from_micros(22_916 + 30_000));
+        assert_eq!(burst_gap(4_800), Duration::from_micros(91_666 + 30_000));
+        assert_eq!(burst_gap(115_200), Duration::from_micros(3_819 + 30_000));
         // A zero baud rate (refused by the config check) does not divide by zero.
         assert!(burst_gap(0) > Duration::from_secs(1));
     }
