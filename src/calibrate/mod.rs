@@ -42,6 +42,14 @@ use monotone::MonotoneCubic;
 /// A map from frequency (Hz) to motor position (steps, fractional).
 pub trait StepMap: Send + Sync {
     fn steps_at(&self, hz: f64) -> f64;
+
+    /// How many steps the map moves per Hz at `hz`: a central difference
+    /// over a millionth of `hz` (at least 1 Hz) either side, wide enough
+    /// for the map's rounding, narrow against its curvature.
+    fn steps_per_hz(&self, hz: f64) -> f64 {
+        let h = (hz * 1e-6).max(1.0);
+        (self.steps_at(hz + h) - self.steps_at(hz - h)) / (2.0 * h)
+    }
 }
 
 /// Which model a calibration uses.

@@ -1486,9 +1486,7 @@ impl Follower {
             return cannot("[antenna] does not describe the loop, so the search has no window");
         };
         let predicted = self.map.steps_at(hz as f64);
-        let h = (hz as f64 * 1e-6).max(1.0);
-        let slope =
-            (self.map.steps_at(hz as f64 + h) - self.map.steps_at(hz as f64 - h)) / (2.0 * h);
+        let slope = self.map.steps_per_hz(hz as f64);
         let q = small_loop.at(hz as f64).q_unloaded;
         if !(predicted.is_finite() && predicted.abs() < 1e15 && slope.is_finite()) {
             return Reply::Refused(Refusal::Calibration { hz });

@@ -13,6 +13,7 @@
 //! `--meters` file.
 
 use crate::antenna::{self, SmallLoop};
+use crate::calibrate::StepMap;
 use crate::rig::meter::MeterScale;
 
 /// A loop tuned by a capacitor driven through the motor's travel,
@@ -33,7 +34,7 @@ pub struct SimLoop {
 
 /// The loop as a calibration: where it resonates at each frequency (its
 /// offset included), for the core, the search and bench-follow's truth.
-impl crate::calibrate::StepMap for SimLoop {
+impl StepMap for SimLoop {
     fn steps_at(&self, hz: f64) -> f64 {
         self.steps_for(hz)
     }
@@ -353,7 +354,7 @@ pub fn noise_peak_trial(
 ) -> Option<TrialResult> {
     let hz = setup.hz;
     let predicted = sim_loop.steps_for(hz);
-    let slope = (sim_loop.steps_for(hz + 1.0) - sim_loop.steps_for(hz - 1.0)) / 2.0;
+    let slope = sim_loop.steps_per_hz(hz);
     let q = sim_loop.q_unloaded(hz);
     sim_loop.offset_steps = setup.offset_steps;
     peak_trial(

@@ -34,9 +34,8 @@ const ANCHORS: [f64; 2] = [7_100_000.0, 14_175_000.0];
 
 /// One half-power half-width at `hz` in steps, for a calibration `map` and
 /// a loop of unloaded Q `q`.
-fn half_width(map: &dyn StepMap, hz: f64, q: f64) -> f64 {
-    let slope = (map.steps_at(hz + 1.0) - map.steps_at(hz - 1.0)) / 2.0;
-    crate::follow::peak::predicted_half_width_steps(hz, q, slope)
+pub fn half_width(map: &dyn StepMap, hz: f64, q: f64) -> f64 {
+    crate::follow::peak::predicted_half_width_steps(hz, q, map.steps_per_hz(hz))
 }
 
 /// An invented loop the code has not seen, near the station's calibration
@@ -123,7 +122,7 @@ pub fn sweep_trial(
         {
             let f = hz as f64;
             let q = physics.at(f).q_unloaded;
-            let slope = (old.steps_at(f + 1.0) - old.steps_at(f - 1.0)) / 2.0;
+            let slope = old.steps_per_hz(f);
             let predicted = old.steps_at(f);
             let half = crate::follow::peak::predicted_half_width_steps(f, q, slope);
             old_error = old_error.max((truth.steps_for(f) - predicted).abs() / half);
