@@ -8,16 +8,10 @@
 //! not know; the landing is judged against that truth, not against the
 //! search's own fit.
 
-use super::test_support::{band_40m, ms, policy};
+use super::test_support::{band_40m, half_width, metered_core, ms, policy, sim_loop};
 use super::*;
 use crate::antenna::swr_bandwidth_hz;
-use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
-use crate::sim::meters::{demo_station_loop, Band as Noise, SimLoop, SimMeters};
-
-/// The demo station's loop (`sim::meters::demo_station_loop`, invented).
-fn sim_loop() -> SimLoop {
-    demo_station_loop().expect("the demo loop resonates through its points")
-}
+use crate::sim::meters::SimMeters;
 
 const HZ: u64 = 7_100_000;
 
@@ -44,27 +38,7 @@ struct Bench {
 
 impl Bench {
     fn new(rain: f64, noise_dbm: f64, seed: u64) -> Bench {
-        let base = sim_loop();
-        let mut truth = base;
-        truth.offset_steps = rain;
-        let mut p = policy();
-        p.bands = vec![band_40m()];
-        p.max_steps = 400_000;
-        p.backlash_steps = 30;
-        let start = base.steps_for(HZ as f64).round() as i64;
-        let core = Follower::new(p, Arc::new(base), Some(start)).with_loop(Some(base.small_loop));
-        let mut meters = SimMeters::new(
-            truth,
-            Noise {
-                floor_dbm: -115.0,
-                noise_dbm,
-                scatter_db: 1.0,
-            },
-            binary_signal_scale(),
-            binary_swr_scale(),
-            seed,
-        );
-        meters.set_position(start as f64);
+        let (core, meters, start) = metered_core(HZ, rain, noise_dbm, seed);
         let mut b = Bench {
             core,
             meters,
@@ -151,8 +125,7 @@ impl Bench {
 fn a_rained_on_loop_is_found_and_recorded_under_the_inhibit() {
     let base = sim_loop();
     let q = base.q_unloaded(HZ as f64);
-    let slope = (base.steps_for(HZ as f64 + 1.0) - base.steps_for(HZ as f64 - 1.0)) / 2.0;
-    let half_width = HZ as f64 / q * slope.abs();
+    let half_width = half_width(&base, HZ);
     for seed in [1, 2, 3] {
         let mut b = Bench::new(1.5 * half_width, -105.0, seed);
         let start = b.at;

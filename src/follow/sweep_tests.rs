@@ -13,16 +13,10 @@
 //! inhibit never released while the sweep runs.
 
 use super::sweep::{Restore, SweepEnd, SweepOutcome};
-use super::test_support::{band_40m, ms, policy};
+use super::test_support::{half_width, metered_core, ms, sim_loop};
 use super::*;
 use crate::antenna::swr_bandwidth_hz;
-use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
-use crate::sim::meters::{demo_station_loop, Band as Noise, SimLoop, SimMeters};
-
-/// The demo station's loop (`sim::meters::demo_station_loop`, invented).
-fn sim_loop() -> SimLoop {
-    demo_station_loop().expect("the demo loop resonates through its points")
-}
+use crate::sim::meters::SimMeters;
 
 const HZ: u64 = 7_100_000;
 
@@ -57,27 +51,8 @@ struct Bench {
 
 impl Bench {
     fn new(rain_half_widths: f64, seed: u64) -> Bench {
-        let base = sim_loop();
-        let mut truth = base;
-        truth.offset_steps = rain_half_widths * half_width(&base, HZ);
-        let mut p = policy();
-        p.bands = vec![band_40m()];
-        p.max_steps = 400_000;
-        p.backlash_steps = 30;
-        let start = base.steps_for(HZ as f64).round() as i64;
-        let core = Follower::new(p, Arc::new(base), Some(start)).with_loop(Some(base.small_loop));
-        let mut meters = SimMeters::new(
-            truth,
-            Noise {
-                floor_dbm: -115.0,
-                noise_dbm: -105.0,
-                scatter_db: 1.0,
-            },
-            binary_signal_scale(),
-            binary_swr_scale(),
-            seed,
-        );
-        meters.set_position(start as f64);
+        let rain = rain_half_widths * half_width(&sim_loop(), HZ);
+        let (core, meters, start) = metered_core(HZ, rain, -105.0, seed);
         let mut b = Bench {
             core,
             meters,
@@ -217,13 +192,6 @@ impl Bench {
         self.drain();
         r
     }
-}
-
-/// One half-power half-width at `hz`, in steps (`Δf = f/Q_u` for the
-/// matched loop, `peak::predicted_half_width_steps`).
-fn half_width(l: &SimLoop, hz: u64) -> f64 {
-    let slope = (l.steps_for(hz as f64 + 1.0) - l.steps_for(hz as f64 - 1.0)).abs() / 2.0;
-    hz as f64 / l.q_unloaded(hz as f64) * slope
 }
 
 /// Rain of one and a half half-widths: the sweep sets the rig to 7.033,

@@ -2,9 +2,13 @@
 //! calibration (steps = 10 000 - (hz - 7 MHz) / 100, so 100 Hz is one step,
 //! for the rules only), a millisecond helper, and the test station's
 //! policy (40 m with a guard, 30 m) that each test file starts from and
-//! changes where its rules need.
+//! changes where its rules need; and for the noise-peak search and the
+//! calibration sweep, a core on the demo station's simulated loop with
+//! its meters.
 
 use super::*;
+use crate::rig::meter::{binary_signal_scale, binary_swr_scale};
+use crate::sim::meters::{demo_station_loop, Band as Noise, SimLoop, SimMeters};
 
 pub(super) struct Line;
 impl StepMap for Line {
@@ -64,4 +68,50 @@ pub(super) fn policy() -> Policy {
         jump: None,
         sweep_settle: None,
     }
+}
+
+/// The demo station's loop (`sim::meters::demo_station_loop`, invented).
+pub(super) fn sim_loop() -> SimLoop {
+    demo_station_loop().expect("the demo loop resonates through its points")
+}
+
+/// One half-power half-width of `l` at `hz`, in steps (`Δf = f/Q_u` for
+/// the matched loop, `peak::predicted_half_width_steps`).
+pub(super) fn half_width(l: &SimLoop, hz: u64) -> f64 {
+    crate::sim::sweep_trial::half_width(l, hz as f64, l.q_unloaded(hz as f64))
+}
+
+/// A core on 40 m (backlash 30, travel to 400 000 steps) at the demo
+/// loop's position for `hz`, calibrated by that loop, and the loop's
+/// meters (binary-family scales) reading it moved by `offset_steps` (the
+/// "rain" the calibration does not know), with band noise at `noise_dbm`
+/// over a -115 dBm floor and 1 dB scatter; and that start position.
+pub(super) fn metered_core(
+    hz: u64,
+    offset_steps: f64,
+    noise_dbm: f64,
+    seed: u64,
+) -> (Follower, SimMeters, i64) {
+    let base = sim_loop();
+    let mut truth = base;
+    truth.offset_steps = offset_steps;
+    let mut p = policy();
+    p.bands = vec![band_40m()];
+    p.max_steps = 400_000;
+    p.backlash_steps = 30;
+    let start = base.steps_for(hz as f64).round() as i64;
+    let core = Follower::new(p, Arc::new(base), Some(start)).with_loop(Some(base.small_loop));
+    let mut meters = SimMeters::new(
+        truth,
+        Noise {
+            floor_dbm: -115.0,
+            noise_dbm,
+            scatter_db: 1.0,
+        },
+        binary_signal_scale(),
+        binary_swr_scale(),
+        seed,
+    );
+    meters.set_position(start as f64);
+    (core, meters, start)
 }
