@@ -240,6 +240,23 @@ impl Refusal {
     }
 }
 
+/// "no `what` named `name`", then the names there are, or `none` when
+/// there are none.
+fn unknown_name(
+    f: &mut fmt::Formatter<'_>,
+    what: &str,
+    name: &str,
+    known: &[String],
+    none: &str,
+) -> fmt::Result {
+    write!(f, "no {what} named `{name}`")?;
+    if known.is_empty() {
+        f.write_str(none)
+    } else {
+        write!(f, " (known: {})", known.join(", "))
+    }
+}
+
 impl fmt::Display for Refusal {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
@@ -254,20 +271,10 @@ impl fmt::Display for Refusal {
                 "the controller link is in fault; nothing moves until it reports a position",
             ),
             Refusal::UnknownPreset { name, known } => {
-                write!(f, "no preset named `{name}`")?;
-                if known.is_empty() {
-                    f.write_str(" (none configured)")
-                } else {
-                    write!(f, " (known: {})", known.join(", "))
-                }
+                unknown_name(f, "preset", name, known, " (none configured)")
             }
             Refusal::UnknownProfile { name, known } => {
-                write!(f, "no calibration profile named `{name}`")?;
-                if known.is_empty() {
-                    f.write_str(" (none)")
-                } else {
-                    write!(f, " (known: {})", known.join(", "))
-                }
+                unknown_name(f, "calibration profile", name, known, " (none)")
             }
             Refusal::NoFrequency => f.write_str("no frequency has been heard from the rig yet"),
             Refusal::OutOfBand { hz } => write!(f, "{hz} Hz is outside every followed band"),
@@ -290,12 +297,7 @@ impl fmt::Display for Refusal {
                 "a calibration sweep sets the rig's frequency; it runs only when the operator consents (ctl calibrate BAND --set-rig)",
             ),
             Refusal::UnknownBand { name, known } => {
-                write!(f, "no band named `{name}`")?;
-                if known.is_empty() {
-                    f.write_str(" (none configured)")
-                } else {
-                    write!(f, " (known: {})", known.join(", "))
-                }
+                unknown_name(f, "band", name, known, " (none configured)")
             }
             Refusal::CannotSweep { why } => write!(f, "no calibration sweep now: {why}"),
         }
