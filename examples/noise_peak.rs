@@ -20,6 +20,8 @@ use tuneward::follow::peak::{PeakOutcome, STANDARD_PASSES};
 use tuneward::rig::meter::{binary_signal_scale, binary_swr_scale};
 use tuneward::sim::meters::{demo_station_loop, noise_peak_trial, Band, SimLoop, TrialSetup};
 
+mod common;
+
 const TRIALS: u64 = 200;
 
 /// The seeds the search was developed on start here.
@@ -57,28 +59,8 @@ fn setup(first: u64, i: u64, sim_loop: &SimLoop, noise_over_floor_db: f64) -> Tr
     }
 }
 
-/// `--first-seed N` from the command line, else the development seeds.
-fn first_seed() -> Result<u64, String> {
-    let args: Vec<String> = std::env::args().skip(1).collect();
-    match args.as_slice() {
-        [] => Ok(DEVELOPMENT_SEEDS),
-        [flag, n] if flag == "--first-seed" => n
-            .parse()
-            .map_err(|e| format!("expected --first-seed and a whole number, found {n:?}: {e}")),
-        other => Err(format!(
-            "expected nothing or --first-seed N, found {other:?}"
-        )),
-    }
-}
-
 fn main() {
-    let first = match first_seed() {
-        Ok(n) => n,
-        Err(e) => {
-            eprintln!("noise_peak: {e}");
-            std::process::exit(2);
-        }
-    };
+    let first = common::first_seed("noise_peak", DEVELOPMENT_SEEDS);
     let Some(sim_loop) = demo_station_loop() else {
         eprintln!("noise_peak: the demo loop does not resonate through its points");
         std::process::exit(1);

@@ -18,20 +18,9 @@ use tuneward::quality::{BenchOptions, Family, JUDGING_SEEDS, QUALITY_CONFIG};
 use tuneward::sim::sweep_trial::sweep_trial;
 use tuneward::station::Station;
 
-const LOOPS: u64 = 10;
+mod common;
 
-fn first_seed() -> Result<u64, String> {
-    let args: Vec<String> = std::env::args().skip(1).collect();
-    match args.as_slice() {
-        [] => Ok(1),
-        [flag, n] if flag == "--first-seed" => n
-            .parse()
-            .map_err(|e| format!("expected --first-seed and a whole number, found {n:?}: {e}")),
-        other => Err(format!(
-            "expected nothing or --first-seed N, found {other:?}"
-        )),
-    }
-}
+const LOOPS: u64 = 10;
 
 /// The family with the most moves against the optimum, in words.
 fn worst_family(report: &tuneward::quality::BenchReport) -> String {
@@ -54,13 +43,7 @@ fn worst_family(report: &tuneward::quality::BenchReport) -> String {
 }
 
 fn main() {
-    let first = match first_seed() {
-        Ok(n) => n,
-        Err(e) => {
-            eprintln!("sweep_calibration: {e}");
-            std::process::exit(2);
-        }
-    };
+    let first = common::first_seed("sweep_calibration", 1);
     let path = std::path::Path::new("fixtures/quality/station.toml");
     let station = match Config::parse(QUALITY_CONFIG, path)
         .map_err(tuneward::station::StationError::from)
