@@ -8,7 +8,7 @@
 //! not know; the landing is judged against that truth, not against the
 //! search's own fit.
 
-use super::test_support::{band_40m, half_width, metered_core, ms, policy, sim_loop};
+use super::test_support::{band_40m, half_width, metered_core, ms, policy, sim_loop, MotorLog};
 use super::*;
 use crate::antenna::swr_bandwidth_hz;
 use crate::sim::meters::SimMeters;
@@ -21,17 +21,8 @@ struct Bench {
     core: Follower,
     meters: SimMeters,
     now: Duration,
-    inhibit: bool,
-    gotos: Vec<i64>,
-    /// A `Goto` sent with the inhibit off (never allowed).
-    unguarded: usize,
-    candidates: Vec<(u64, i64)>,
+    motor: MotorLog,
     ended: Vec<peak::PeakOutcome>,
-    /// The inhibit went off while the search ran.
-    released_during: bool,
-    /// The motor's position and the leg under way.
-    at: i64,
-    heading: Option<i64>,
     /// The rig answers no meter read.
     mute: bool,
 }
@@ -43,43 +34,28 @@ impl Bench {
             core,
             meters,
             now: Duration::ZERO,
-            inhibit: false,
-            gotos: Vec::new(),
-            unguarded: 0,
-            candidates: Vec::new(),
+            motor: MotorLog::at(start),
             ended: Vec::new(),
-            released_during: false,
-            at: start,
-            heading: None,
             mute: false,
         };
         b.core.handle_transmit(b.now, false);
         b.core.handle_frequency(b.now, HZ);
         b.advance(ms(500));
-        assert!(b.gotos.is_empty(), "already tuned: {:?}", b.gotos);
+        assert!(
+            b.motor.gotos.is_empty(),
+            "already tuned: {:?}",
+            b.motor.gotos
+        );
         b
     }
 
     fn drain(&mut self) {
         while let Some(a) = self.core.poll_action() {
-            match a {
-                Action::Inhibit { on } => {
-                    if !on && self.core.peak.is_some() {
-                        self.released_during = true;
-                    }
-                    self.inhibit = on;
-                }
-                Action::Goto { steps } => {
-                    if !self.inhibit {
-                        self.unguarded += 1;
-                    }
-                    self.gotos.push(steps);
-                    self.heading = Some(steps);
-                }
-                Action::Stop => self.heading = None,
-                Action::Candidate { hz, steps, .. } => self.candidates.push((hz, steps)),
-                Action::PeakEnded { outcome } => self.ended.push(outcome),
-                _ => {}
+            if self.motor.take(&a, self.core.peak.is_some(), false) {
+                continue;
+            }
+            if let Action::PeakEnded { outcome } = a {
+                self.ended.push(outcome);
             }
         }
     }
@@ -91,8 +67,8 @@ impl Bench {
         while self.now < end {
             self.now += ms(10);
             self.drain();
-            if let Some(t) = self.heading.take() {
-                self.at = t;
+            if let Some(t) = self.motor.heading.take() {
+                self.motor.at = t;
                 self.meters.set_position(t as f64);
                 self.core.handle_arrived(self.now, t);
             } else if self.core.wants_signal_meter() && !self.mute {
@@ -128,34 +104,37 @@ fn a_rained_on_loop_is_found_and_recorded_under_the_inhibit() {
     let half_width = half_width(&base, HZ);
     for seed in [1, 2, 3] {
         let mut b = Bench::new(1.5 * half_width, -105.0, seed);
-        let start = b.at;
+        let start = b.motor.at;
         assert_eq!(b.core.handle_command(b.now, Command::Peak), Reply::Done);
         assert_eq!(b.core.status().peak_hz, Some(HZ));
         b.run_to_end();
         let [peak::PeakOutcome::Candidate(c)] = b.ended.as_slice() else {
             panic!("seed {seed}: {:?}", b.ended);
         };
-        assert_eq!(b.candidates, vec![(HZ, c.steps)]);
-        assert_eq!(b.at, c.steps, "seed {seed}: the motor rests at the peak");
-        let error_hz = (b.meters.sim_loop.resonance_hz(b.at as f64) - HZ as f64).abs();
+        assert_eq!(b.motor.candidates, vec![(HZ, c.steps)]);
+        assert_eq!(
+            b.motor.at, c.steps,
+            "seed {seed}: the motor rests at the peak"
+        );
+        let error_hz = (b.meters.sim_loop.resonance_hz(b.motor.at as f64) - HZ as f64).abs();
         let bandwidth = swr_bandwidth_hz(HZ as f64, q, 1.5);
         assert!(
             error_hz <= bandwidth / 8.0,
             "seed {seed}: {error_hz:.0} Hz off, bandwidth {bandwidth:.0} Hz"
         );
-        assert!(b.at != start);
-        assert!(b.gotos.len() > 20, "{:?}", b.gotos);
-        assert_eq!(b.unguarded, 0);
-        assert!(!b.released_during);
-        assert!(!b.inhibit, "released after the search's tail");
+        assert!(b.motor.at != start);
+        assert!(b.motor.gotos.len() > 20, "{:?}", b.motor.gotos);
+        assert_eq!(b.motor.unguarded, 0);
+        assert!(!b.motor.released_during);
+        assert!(!b.motor.inhibit, "released after the search's tail");
         assert_eq!(b.core.tuned_hz(), Some(HZ));
         assert_eq!(b.core.status().peak_hz, None);
         assert!(b.core.status().last_peak.unwrap().starts_with("peak at"));
         // Following afterwards: the settled frequency stays in the dead band.
         b.core.handle_frequency(b.now, HZ + 100);
-        let before = b.gotos.len();
+        let before = b.motor.gotos.len();
         b.advance(ms(600));
-        assert_eq!(b.gotos.len(), before);
+        assert_eq!(b.motor.gotos.len(), before);
     }
 }
 
@@ -164,7 +143,7 @@ fn a_rained_on_loop_is_found_and_recorded_under_the_inhibit() {
 #[test]
 fn a_quiet_band_records_nothing_and_returns() {
     let mut b = Bench::new(0.0, -118.0, 7);
-    let start = b.at;
+    let start = b.motor.at;
     assert_eq!(b.core.handle_command(b.now, Command::Peak), Reply::Done);
     b.run_to_end();
     assert!(
@@ -172,10 +151,10 @@ fn a_quiet_band_records_nothing_and_returns() {
         "{:?}",
         b.ended
     );
-    assert!(b.candidates.is_empty());
-    assert_eq!(b.at, start);
-    assert!(!b.inhibit);
-    assert_eq!(b.unguarded, 0);
+    assert!(b.motor.candidates.is_empty());
+    assert_eq!(b.motor.at, start);
+    assert!(!b.motor.inhibit);
+    assert_eq!(b.motor.unguarded, 0);
 }
 
 /// A transmission during the search (a CAT-keyed over, say): the leg under
@@ -185,29 +164,29 @@ fn a_quiet_band_records_nothing_and_returns() {
 #[test]
 fn a_transmission_ends_the_search_with_nothing_recorded() {
     let mut b = Bench::new(0.0, -105.0, 3);
-    let start = b.at;
+    let start = b.motor.at;
     let tuned = b.core.tuned_hz();
     assert_eq!(b.core.handle_command(b.now, Command::Peak), Reply::Done);
     b.advance(ms(400));
-    assert!(b.gotos.len() >= 2 && b.ended.is_empty());
+    assert!(b.motor.gotos.len() >= 2 && b.ended.is_empty());
     b.core.handle_transmit(b.now, true);
     b.drain();
-    let during = b.gotos.len();
-    b.heading = None; // stopped where it was
+    let during = b.motor.gotos.len();
+    b.motor.heading = None; // stopped where it was
     b.advance(ms(2_000));
-    assert_eq!(b.gotos.len(), during, "nothing moves during the over");
+    assert_eq!(b.motor.gotos.len(), during, "nothing moves during the over");
     assert!(!b.core.wants_signal_meter());
-    assert!(b.inhibit || b.core.transmitting());
+    assert!(b.motor.inhibit || b.core.transmitting());
     b.core.handle_transmit(b.now, false);
     b.run_to_end();
     assert_eq!(
         b.ended,
         vec![peak::PeakOutcome::Aborted(peak::AbortReason::Transmit)]
     );
-    assert!(b.candidates.is_empty());
-    assert_eq!(b.at, start);
+    assert!(b.motor.candidates.is_empty());
+    assert_eq!(b.motor.at, start);
     assert_eq!(b.core.tuned_hz(), tuned);
-    assert_eq!(b.unguarded, 0);
+    assert_eq!(b.motor.unguarded, 0);
 }
 
 /// The receive frequency changes mid-search: it ends, returns, and the new
@@ -227,8 +206,8 @@ fn a_new_frequency_ends_the_search_and_is_then_followed() {
     ));
     b.advance(ms(1_000));
     let want = sim_loop().steps_for(7_150_000.0).round() as i64;
-    assert_eq!(b.at, want, "{:?}", b.gotos);
-    assert!(b.candidates.is_empty());
+    assert_eq!(b.motor.at, want, "{:?}", b.motor.gotos);
+    assert!(b.motor.candidates.is_empty());
 }
 
 /// What the search needs, refused with the reason when missing; the
@@ -260,7 +239,7 @@ fn refusals_and_the_operators_stop() {
     );
     // Running: other moves refused, a second search refused, stop returns.
     let mut b = Bench::new(0.0, -105.0, 5);
-    let start = b.at;
+    let start = b.motor.at;
     assert_eq!(b.core.handle_command(b.now, Command::Peak), Reply::Done);
     b.advance(ms(200));
     for cmd in [
@@ -280,7 +259,7 @@ fn refusals_and_the_operators_stop() {
         b.ended,
         vec![peak::PeakOutcome::Aborted(peak::AbortReason::OperatorStop)]
     );
-    assert_eq!(b.at, start);
+    assert_eq!(b.motor.at, start);
     assert!(matches!(
         b.core.handle_command(b.now, Command::PeakStop),
         Reply::Refused(Refusal::CannotPeak { .. })
@@ -296,20 +275,20 @@ fn a_fault_ends_the_search_and_the_recovery_retunes() {
     b.advance(ms(300));
     b.core.handle_fault(b.now);
     b.drain();
-    b.heading = None;
+    b.motor.heading = None;
     assert!(matches!(
         b.ended.as_slice(),
         [peak::PeakOutcome::Aborted(peak::AbortReason::Fault(_))]
     ));
-    assert!(b.candidates.is_empty());
-    assert!(b.inhibit);
+    assert!(b.motor.candidates.is_empty());
+    assert!(b.motor.inhibit);
     // The controller says where the motor is: back to the frequency.
-    let here = b.at;
+    let here = b.motor.at;
     b.core.handle_arrived(b.now, here);
     b.advance(ms(1_000));
     let want = sim_loop().steps_for(HZ as f64).round() as i64;
-    assert_eq!(b.at, want);
-    assert!(!b.inhibit);
+    assert_eq!(b.motor.at, want);
+    assert!(!b.motor.inhibit);
 }
 
 /// A rig that stops answering its meter read: the search does not hold
@@ -318,7 +297,7 @@ fn a_fault_ends_the_search_and_the_recovery_retunes() {
 #[test]
 fn a_silent_meter_ends_the_search_and_returns() {
     let mut b = Bench::new(0.0, -105.0, 8);
-    let start = b.at;
+    let start = b.motor.at;
     assert_eq!(b.core.handle_command(b.now, Command::Peak), Reply::Done);
     b.advance(ms(200));
     b.mute = true;
@@ -333,7 +312,7 @@ fn a_silent_meter_ends_the_search_and_returns() {
         "{:?}",
         b.ended
     );
-    assert_eq!(b.at, start);
-    assert!(b.candidates.is_empty());
-    assert!(!b.inhibit);
+    assert_eq!(b.motor.at, start);
+    assert!(b.motor.candidates.is_empty());
+    assert!(!b.motor.inhibit);
 }

@@ -13,7 +13,7 @@
 //! inhibit never released while the sweep runs.
 
 use super::sweep::{Restore, SweepEnd, SweepOutcome};
-use super::test_support::{half_width, metered_core, ms, sim_loop};
+use super::test_support::{half_width, metered_core, ms, sim_loop, MotorLog};
 use super::*;
 use crate::antenna::swr_bandwidth_hz;
 use crate::sim::meters::SimMeters;
@@ -36,17 +36,9 @@ struct Bench {
     meters: SimMeters,
     rig: Rig,
     now: Duration,
-    inhibit: bool,
-    gotos: Vec<i64>,
-    /// A `Goto` sent with the inhibit off, or while the rig transmitted.
-    unguarded: usize,
-    candidates: Vec<(u64, i64)>,
+    motor: MotorLog,
     moves_for: Vec<u64>,
     ended: Vec<SweepOutcome>,
-    /// The inhibit went off while the sweep ran.
-    released_during: bool,
-    at: i64,
-    heading: Option<i64>,
 }
 
 impl Bench {
@@ -64,20 +56,18 @@ impl Bench {
                 sets: Vec::new(),
             },
             now: Duration::ZERO,
-            inhibit: false,
-            gotos: Vec::new(),
-            unguarded: 0,
-            candidates: Vec::new(),
+            motor: MotorLog::at(start),
             moves_for: Vec::new(),
             ended: Vec::new(),
-            released_during: false,
-            at: start,
-            heading: None,
         };
         b.core.handle_transmit(b.now, false);
         b.poll_answer();
         b.advance(ms(500));
-        assert!(b.gotos.is_empty(), "already tuned: {:?}", b.gotos);
+        assert!(
+            b.motor.gotos.is_empty(),
+            "already tuned: {:?}",
+            b.motor.gotos
+        );
         b
     }
 
@@ -95,23 +85,14 @@ impl Bench {
 
     fn drain(&mut self) {
         while let Some(a) = self.core.poll_action() {
+            if self
+                .motor
+                .take(&a, self.core.sweep.is_some(), self.rig.transmitting)
+            {
+                continue;
+            }
             match a {
-                Action::Inhibit { on } => {
-                    if !on && self.core.sweep.is_some() {
-                        self.released_during = true;
-                    }
-                    self.inhibit = on;
-                }
-                Action::Goto { steps } => {
-                    if !self.inhibit || self.rig.transmitting {
-                        self.unguarded += 1;
-                    }
-                    self.gotos.push(steps);
-                    self.heading = Some(steps);
-                }
                 Action::Move { hz, .. } => self.moves_for.push(hz),
-                Action::Stop => self.heading = None,
-                Action::Candidate { hz, steps, .. } => self.candidates.push((hz, steps)),
                 Action::SetRigFrequency { vfo, hz } => {
                     assert_eq!(vfo, Vfo::A, "only the VFO the rig receives on is set");
                     self.rig.sets.push((hz, self.rig.transmitting));
@@ -152,8 +133,8 @@ impl Bench {
                 self.rig.answer_at = None;
                 self.poll_answer();
             }
-            if let Some(t) = self.heading.take() {
-                self.at = t;
+            if let Some(t) = self.motor.heading.take() {
+                self.motor.at = t;
                 self.meters.set_position(t as f64);
                 self.core.handle_arrived(self.now, t);
             } else if self.core.wants_signal_meter() {
@@ -169,6 +150,17 @@ impl Bench {
         self.rig.transmitting = on;
         self.core.handle_transmit(self.now, on);
         self.drain();
+    }
+
+    /// Runs until the rig has been set to the second point and its
+    /// search is under way (30 s at most).
+    fn run_into_the_second_points_search(&mut self) {
+        for _ in 0..600 {
+            if self.rig.sets.len() == 2 && self.core.peak.is_some() {
+                break;
+            }
+            self.advance(ms(50));
+        }
     }
 
     fn run_to_end(&mut self) {
@@ -225,9 +217,9 @@ fn a_sweep_finds_each_point_and_gives_the_rig_back() {
             ]
         );
         assert_eq!(b.rig.hz, HZ, "the operator's frequency given back");
-        assert_eq!(b.candidates.len(), 3, "{outcome}");
+        assert_eq!(b.motor.candidates.len(), 3, "{outcome}");
         let truth = b.meters.sim_loop;
-        for &(hz, steps) in &b.candidates {
+        for &(hz, steps) in &b.motor.candidates {
             let error = (truth.resonance_hz(steps as f64) - hz as f64).abs();
             let bandwidth = swr_bandwidth_hz(hz as f64, truth.q_unloaded(hz as f64), 1.5);
             assert!(
@@ -235,14 +227,14 @@ fn a_sweep_finds_each_point_and_gives_the_rig_back() {
                 "seed {seed}: {hz} Hz: {error:.0} Hz off, bandwidth {bandwidth:.0}"
             );
         }
-        assert_eq!(outcome.found, b.candidates);
-        assert_eq!(b.unguarded, 0);
-        assert!(!b.released_during);
+        assert_eq!(outcome.found, b.motor.candidates);
+        assert_eq!(b.motor.unguarded, 0);
+        assert!(!b.motor.released_during);
         // Following again: the loop is moved for 7.1 MHz through the
         // calibration in use (the candidates wait for `fit --accept`).
         assert_eq!(b.moves_for.last(), Some(&HZ));
-        assert_eq!(b.at, sim_loop().steps_for(HZ as f64).round() as i64);
-        assert!(!b.inhibit, "released once tuned again");
+        assert_eq!(b.motor.at, sim_loop().steps_for(HZ as f64).round() as i64);
+        assert!(!b.motor.inhibit, "released once tuned again");
         let st = b.core.status();
         assert_eq!(st.sweep, None);
         assert!(st.last_sweep.unwrap().contains("3 candidate(s) of 3"));
@@ -314,21 +306,16 @@ fn a_transmission_stops_the_sweep_and_the_rig_is_set_back_after_the_over() {
     let mut b = Bench::new(1.0, 5);
     assert_eq!(b.calibrate(), Reply::Done);
     // The first point's search, then into the second's.
-    for _ in 0..600 {
-        if b.rig.sets.len() == 2 && b.core.peak.is_some() {
-            break;
-        }
-        b.advance(ms(50));
-    }
+    b.run_into_the_second_points_search();
     b.advance(ms(1_000));
     assert_eq!(b.rig.hz, 7_100_000);
-    assert_eq!(b.candidates.len(), 1);
+    assert_eq!(b.motor.candidates.len(), 1);
     b.key(true);
-    b.heading = None;
-    let during = (b.gotos.len(), b.rig.sets.len());
+    b.motor.heading = None;
+    let during = (b.motor.gotos.len(), b.rig.sets.len());
     b.advance(ms(2_000));
     assert_eq!(
-        (b.gotos.len(), b.rig.sets.len()),
+        (b.motor.gotos.len(), b.rig.sets.len()),
         during,
         "nothing during the over"
     );
@@ -344,9 +331,9 @@ fn a_transmission_stops_the_sweep_and_the_rig_is_set_back_after_the_over() {
     assert_eq!(outcome.restore, Restore::Confirmed);
     assert_eq!(b.rig.sets.last(), Some(&(HZ, false)));
     assert!(b.rig.sets.iter().all(|(_, tx)| !tx));
-    assert_eq!(b.candidates.len(), 1);
-    assert_eq!(b.unguarded, 0);
-    assert!(!b.released_during);
+    assert_eq!(b.motor.candidates.len(), 1);
+    assert_eq!(b.motor.unguarded, 0);
+    assert!(!b.motor.released_during);
 }
 
 /// The operator turns the knob while the sweep has the rig on its second
@@ -357,12 +344,7 @@ fn a_transmission_stops_the_sweep_and_the_rig_is_set_back_after_the_over() {
 fn the_operator_turning_the_knob_ends_the_sweep_and_keeps_the_rig_where_it_is() {
     let mut b = Bench::new(0.0, 8);
     assert_eq!(b.calibrate(), Reply::Done);
-    for _ in 0..600 {
-        if b.rig.sets.len() == 2 && b.core.peak.is_some() {
-            break;
-        }
-        b.advance(ms(50));
-    }
+    b.run_into_the_second_points_search();
     b.rig.hz = 7_150_000;
     b.poll_answer();
     b.run_to_end();
@@ -378,8 +360,8 @@ fn the_operator_turning_the_knob_ends_the_sweep_and_keeps_the_rig_where_it_is() 
     );
     assert_eq!(b.rig.hz, 7_150_000);
     assert_eq!(b.moves_for.last(), Some(&7_150_000));
-    assert_eq!(b.at, sim_loop().steps_for(7_150_000.0).round() as i64);
-    assert_eq!(b.unguarded, 0);
+    assert_eq!(b.motor.at, sim_loop().steps_for(7_150_000.0).round() as i64);
+    assert_eq!(b.motor.unguarded, 0);
 }
 
 /// A rig that does not take the set (a set the dialect's rig ignores, a
@@ -392,7 +374,7 @@ fn a_rig_that_does_not_take_the_set_stops_the_sweep_after_the_wait() {
     b.rig.deaf = true;
     assert_eq!(b.calibrate(), Reply::Done);
     b.advance(sweep::SWEEP_SET_WAIT - ms(200));
-    assert!(b.ended.is_empty() && b.gotos.is_empty());
+    assert!(b.ended.is_empty() && b.motor.gotos.is_empty());
     b.run_to_end();
     let [outcome] = b.ended.as_slice() else {
         panic!("{:?}", b.ended);
@@ -404,8 +386,8 @@ fn a_rig_that_does_not_take_the_set_stops_the_sweep_after_the_wait() {
     assert_eq!(b.rig.sets, vec![(7_033_000, false)]);
     assert_eq!(outcome.restore, Restore::Confirmed);
     assert_eq!(b.rig.hz, HZ);
-    assert!(b.candidates.is_empty() && b.gotos.is_empty());
-    assert!(!b.inhibit);
+    assert!(b.motor.candidates.is_empty() && b.motor.gotos.is_empty());
+    assert!(!b.motor.inhibit);
 }
 
 /// `calibrate-stop` (and `peak-stop`, stop meaning stop) mid-search: back
@@ -428,8 +410,8 @@ fn an_operator_stop_ends_the_sweep_and_sets_the_rig_back() {
         );
         assert_eq!(b.rig.sets, vec![(7_033_000, false), (HZ, false)]);
         assert_eq!(b.rig.hz, HZ);
-        assert!(b.candidates.is_empty());
-        assert_eq!(b.unguarded, 0);
+        assert!(b.motor.candidates.is_empty());
+        assert_eq!(b.motor.unguarded, 0);
         assert_eq!(
             b.core.handle_command(b.now, Command::CalibrateStop),
             Reply::Refused(Refusal::CannotSweep {

@@ -115,3 +115,54 @@ pub(super) fn metered_core(
     meters.set_position(start as f64);
     (core, meters, start)
 }
+
+/// What a metered bench records of the core's motor and inhibit actions:
+/// every `Goto` and where the motor rests or heads, the inhibit, the
+/// candidates offered, and the two things never allowed.
+#[derive(Debug, Default)]
+pub(super) struct MotorLog {
+    pub inhibit: bool,
+    pub gotos: Vec<i64>,
+    /// A `Goto` sent with the inhibit off, or while the rig transmitted.
+    pub unguarded: usize,
+    pub candidates: Vec<(u64, i64)>,
+    /// The inhibit went off while a search or sweep ran.
+    pub released_during: bool,
+    /// The motor's position and the leg under way.
+    pub at: i64,
+    pub heading: Option<i64>,
+}
+
+impl MotorLog {
+    pub fn at(start: i64) -> MotorLog {
+        MotorLog {
+            at: start,
+            ..MotorLog::default()
+        }
+    }
+
+    /// Records `a` if it is about the motor, the inhibit or a candidate
+    /// (`searching`: a search or sweep runs; `on_air`: the rig transmits),
+    /// and says whether it was.
+    pub fn take(&mut self, a: &Action, searching: bool, on_air: bool) -> bool {
+        match *a {
+            Action::Inhibit { on } => {
+                if !on && searching {
+                    self.released_during = true;
+                }
+                self.inhibit = on;
+            }
+            Action::Goto { steps } => {
+                if !self.inhibit || on_air {
+                    self.unguarded += 1;
+                }
+                self.gotos.push(steps);
+                self.heading = Some(steps);
+            }
+            Action::Stop => self.heading = None,
+            Action::Candidate { hz, steps, .. } => self.candidates.push((hz, steps)),
+            _ => return false,
+        }
+        true
+    }
+}
