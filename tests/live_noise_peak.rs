@@ -16,7 +16,7 @@ use std::time::{Duration, Instant};
 mod common;
 
 use common::truth::{controller_at, wait_truth};
-use common::{Logged, Proc, BIN};
+use common::{jsonl, Logged, Proc, BIN};
 use tuneward::sim::meters::{SimLoop, SimMetersSpec};
 
 const HZ: f64 = 7_100_000.0;
@@ -350,15 +350,6 @@ fn a_transmission_during_the_search_ends_it_with_nothing_recorded() {
     assert!(m.violations.is_empty(), "{:?}", m.violations);
 }
 
-/// The rig's truth log as parsed lines.
-fn truth_lines(path: &Path) -> Vec<serde_json::Value> {
-    std::fs::read_to_string(path)
-        .unwrap_or_default()
-        .lines()
-        .filter_map(|l| serde_json::from_str(l).ok())
-        .collect()
-}
-
 /// The receive frequencies the rig was set to over its control port, in
 /// order, by its own truth log.
 fn set_over_the_port(truth: &[serde_json::Value]) -> Vec<u64> {
@@ -413,9 +404,7 @@ fn a_sweep_calibrates_the_band_from_its_noise_and_gives_the_rig_back() {
         "no terminal, no --yes: not confirmed"
     );
     std::thread::sleep(Duration::from_millis(300));
-    assert!(truth_lines(&s.truth)
-        .iter()
-        .all(|t| t["rx_hz"] == 7_100_000));
+    assert!(jsonl(&s.truth).iter().all(|t| t["rx_hz"] == 7_100_000));
 
     ctl_ok(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
     s.run
@@ -429,7 +418,7 @@ fn a_sweep_calibrates_the_band_from_its_noise_and_gives_the_rig_back() {
     );
     assert!(done.contains("3 candidate(s) of 3"), "{done}");
     assert!(done.contains("set back to 7100000 Hz"), "{done}");
-    let truth = truth_lines(&s.truth);
+    let truth = jsonl(&s.truth);
     let visited = set_over_the_port(&truth);
     assert_eq!(
         visited,
@@ -475,7 +464,7 @@ fn a_transmission_during_a_sweep_stops_it_and_the_rig_is_set_back_after_the_over
     ctl_ok(&s.config, &["calibrate", "40m", "--set-rig", "--yes"]);
     let ended = over_ends(&s, "calibration sweep: sweep of 40m stopped");
     assert!(ended.contains("set back to 7100000 Hz"), "{ended}");
-    let truth = truth_lines(&s.truth);
+    let truth = jsonl(&s.truth);
     assert_eq!(truth.last().unwrap()["rx_hz"], 7_100_000);
     assert!(
         truth
@@ -501,7 +490,7 @@ fn a_sweep_on_a_text_family_rig_sets_vfo_a_and_gives_it_back() {
         Duration::from_secs(120),
     );
     assert!(done.contains("3 candidate(s) of 3"), "{done}");
-    let truth = truth_lines(&s.truth);
+    let truth = jsonl(&s.truth);
     let visited = set_over_the_port(&truth);
     assert_eq!(visited, vec![7_033_000, 7_100_000, 7_167_000, 7_100_000]);
     assert!(truth.iter().all(|t| t["rx_vfo"] == "a"), "{truth:?}");

@@ -9,27 +9,18 @@
 //! lines), so the alarm is `action = "log"`; the inhibit it asserts with a
 //! line wired is tested on virtual time in `follow::session::tests`.
 
-use std::path::Path;
 use std::process::{Command, Stdio};
 
 mod common;
 
 use common::truth::{controller, wait_truth};
-use common::{forty_metres, Logged, Proc, BIN};
+use common::{forty_metres, jsonl, Logged, Proc, BIN};
 
 /// An invented loop like the demo station's (config/demo.toml), on a drive
 /// eight times coarser, through two points; no rain, no scatter.
 const METERS: &str = "loop_diameter_m = 1.0\nconductor_diameter_m = 0.022\n\
     through = [[7100000, 39049], [14175000, 8301]]\n\
     floor_dbm = -115.0\nnoise_dbm = -105.0\nscatter_db = 0.0\n";
-
-fn meter_lines(path: &Path) -> Vec<serde_json::Value> {
-    std::fs::read_to_string(path)
-        .unwrap_or_default()
-        .lines()
-        .filter_map(|l| serde_json::from_str(l).ok())
-        .collect()
-}
 
 #[test]
 fn a_high_swr_over_raises_the_alarm_from_the_rigs_own_meter() {
@@ -116,7 +107,7 @@ hold_ms = 300
     // What the simulator really showed: SWR readings while transmitting,
     // above the alarm (antenna::swr_at at the capacitor's position), and
     // none asked for on receive.
-    let lines = meter_lines(&meter_truth);
+    let lines = jsonl(&meter_truth);
     let swr: Vec<&serde_json::Value> = lines.iter().filter(|l| l["kind"] == "swr").collect();
     assert!(swr.len() >= 3, "{lines:?}");
     assert!(swr.iter().all(|l| l["transmitting"] == true), "{swr:?}");

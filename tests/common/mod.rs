@@ -243,8 +243,20 @@ pub fn wait_symlink(link: &Path) {
     }
 }
 
-/// A JSON-lines log's lines (a simulator's truth or meter log), parsed,
-/// once `done` holds for them (within 5 s).
+/// A JSON-lines log's lines (a simulator's truth or meter log) as they
+/// are now, parsed; none while it does not exist, and a line cut short by
+/// a write under way is left out.
+pub fn jsonl(path: &Path) -> Vec<serde_json::Value> {
+    jsonl_text(&std::fs::read_to_string(path).unwrap_or_default())
+}
+
+fn jsonl_text(text: &str) -> Vec<serde_json::Value> {
+    text.lines()
+        .filter_map(|l| serde_json::from_str(l).ok())
+        .collect()
+}
+
+/// [`jsonl`], once `done` holds for the lines (within 5 s).
 pub fn jsonl_until(
     path: &Path,
     done: impl Fn(&[serde_json::Value]) -> bool,
@@ -252,10 +264,7 @@ pub fn jsonl_until(
     let until = Instant::now() + Duration::from_secs(5);
     loop {
         let text = std::fs::read_to_string(path).unwrap_or_default();
-        let lines: Vec<serde_json::Value> = text
-            .lines()
-            .filter_map(|l| serde_json::from_str(l).ok())
-            .collect();
+        let lines = jsonl_text(&text);
         if done(&lines) {
             return lines;
         }
